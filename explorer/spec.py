@@ -1,0 +1,760 @@
+"""The analysis spec: TOML in, frozen typed dataclasses out, every key checked.
+
+One module holds the whole schema (`SCHEMA` tables below), so the parser, the unknown-key
+suggestions, the TOML writer and the generated spec reference all read the same definitions.
+"""
+from __future__ import annotations
+
+import dataclasses
+import difflib
+import hashlib
+import json
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .errors import FulcrumError
+
+OUTCOME_KINDS = ("continuous", "binary", "ordinal", "survival")
+INTERVALS = ("analytic", "bootstrap")
+SHAPES = ("linear", "spline")
+BANDS = ("pointwise", "simultaneous")
+SURVIVAL_MEASURES = ("survival", "rmst")
+SURVIVAL_MODELS = ("cox", "weibull")
+FIT_ON = ("second", "all")
+WHOSE = ("patient", "proxy", "team")
+
+
+@dataclass(frozen=True)
+class CohortSpec:
+    path: Path
+    arm: str
+    arms: tuple[str, str]
+    id: str | None = None
+    allocation: str | None = None
+    randomised: str = "randomised"
+    cluster: str | None = None
+    sheet: str | None = None
+    covariates: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class OutcomeSpec:
+    name: str
+    kind: str
+    column: str | None = None
+    time: str | None = None
+    event: str | None = None
+    horizon: float | None = None
+    measure: str | None = None
+    levels: tuple[str, ...] = ()
+    favourable: tuple[str, ...] = ()
+    higher_is_better: bool = True
+    model: str | None = None
+    adjust: tuple[str, ...] = ()
+    label: str | None = None
+    units: str | None = None
+    among_survivors: bool = False
+    bounds: tuple[float, float] | None = None
+
+    @property
+    def title(self) -> str:
+        return self.label or self.name
+
+    @property
+    def columns(self) -> tuple[str, ...]:
+        """Every cohort column this outcome reads (adjustment covariates included)."""
+        own = (self.time, self.event) if self.kind == "survival" else (self.column,)
+        return tuple(c for c in own if c) + self.adjust
+
+
+@dataclass(frozen=True)
+class PrognosticSpec:
+    outcome: str
+    covariates: tuple[str, ...]
+    fit_on: str = "second"
+    folds: int = 5
+
+
+@dataclass(frozen=True)
+class IndexSpec:
+    name: str
+    column: str | None = None
+    formula: str | None = None
+    prognostic: PrognosticSpec | None = None
+    label: str | None = None
+    units: str | None = None
+    discrete: bool | None = None
+
+    @property
+    def kind(self) -> str:
+        return "column" if self.column else "formula" if self.formula else "prognostic"
+
+    @property
+    def title(self) -> str:
+        return self.label or self.name
+
+
+@dataclass(frozen=True)
+class ValuesSpec:
+    outcome: str
+    weights: dict[str, float] = field(default_factory=dict)
+    preset: str | None = None
+    ranges: dict[str, tuple[float, float]] = field(default_factory=dict)
+    acceptable: tuple[str, ...] = ()
+    survival_outcome: str | None = None
+    utility_outcome: str | None = None
+    whose: str = "team"
+    spread: float = 0.0
+    draws: int = 500
+
+
+@dataclass(frozen=True)
+class AnalysisSpec:
+    margin: float = 0.0
+    level: float = 0.95
+    interval: str = "analytic"
+    replicates: int = 1000
+    seed: int = 1
+    shape: str = "linear"
+    knots: int = 4
+    bands: str = "pointwise"
+    workers: int = 1
+    scheduler: str | None = None
+    refit_index: bool = False
+    grid: int = 200
+
+
+@dataclass(frozen=True)
+class SelectionSpec:
+    covariates: tuple[str, ...] = ()
+    truncate: tuple[float, float] = (1.0, 99.0)
+    min_per_window: int = 10
+
+
+@dataclass(frozen=True)
+class PairwiseSpec:
+    priority: tuple[str, ...] = ()
+    window: int = 300
+
+
+@dataclass(frozen=True)
+class MapSpec:
+    indices: tuple[str, str]
+    target: str
+    interaction: bool = False
+
+
+@dataclass(frozen=True)
+class Spec:
+    cohort: CohortSpec
+    outcomes: tuple[OutcomeSpec, ...]
+    indices: tuple[IndexSpec, ...]
+    analysis: AnalysisSpec = AnalysisSpec()
+    values: ValuesSpec | None = None
+    selection: SelectionSpec | None = None
+    pairwise: PairwiseSpec | None = None
+    maps: tuple[MapSpec, ...] = ()
+    source: str | None = None
+
+    def outcome(self, name: str) -> OutcomeSpec:
+        for o in self.outcomes:
+            if o.name == name:
+                return o
+        raise KeyError(name)
+
+    def index(self, name: str) -> IndexSpec:
+        for i in self.indices:
+            if i.name == name:
+                return i
+        raise KeyError(name)
+
+    @property
+    def first(self) -> str:
+        return self.cohort.arms[0]
+
+    @property
+    def second(self) -> str:
+        return self.cohort.arms[1]
+
+
+# --------------------------------------------------------------------------------------
+# Schema: key -> (type words, description). Type words: str, float, int, bool, list[str],
+# list[float], table[float], table[range], path, table (a sub-table parsed separately).
+# --------------------------------------------------------------------------------------
+SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
+    "cohort": {
+        "path": ("path", "The cohort file (.csv, .tsv, .xlsx, .parquet), relative to the spec file."),
+        "id": ("str", "Optional column of unique patient identifiers."),
+        "arm": ("str", "Column holding each patient's treatment arm."),
+        "arms": ("list[str]", "Exactly two arm labels as written in the file; differences are first minus second."),
+        "allocation": ("str", "Optional column saying how the arm was assigned (randomised or chosen)."),
+        "randomised": ("str", "The allocation value that marks randomised patients; any other value means chosen."),
+        "cluster": ("str", "Optional column of clusters (e.g. hospital) for cluster-robust intervals."),
+        "sheet": ("str", "Excel only: the sheet to read when the workbook has several."),
+        "covariates": ("list[str]", "Baseline covariates to describe by arm and allocation."),
+    },
+    "outcomes": {
+        "name": ("str", "A short unique name for the outcome."),
+        "kind": ("str", "continuous | binary | ordinal | survival."),
+        "column": ("str", "The outcome column (continuous, binary, ordinal)."),
+        "time": ("str", "Survival: follow-up time column (positive numbers)."),
+        "event": ("str", "Survival: event column, 1 = event (death), 0 = censored."),
+        "horizon": ("float", "Survival: the time at which survival or RMST is compared."),
+        "measure": ("str", "Survival: survival (probability alive at the horizon) | rmst."),
+        "levels": ("list[str]", "Ordinal: every level, best first; the last is usually death."),
+        "favourable": ("list[str]", "Ordinal: levels counted as favourable (default: all but the last)."),
+        "higher_is_better": ("bool", "Continuous and binary: whether a higher value is better (default true)."),
+        "model": ("str", "Survival: cox (default) | weibull."),
+        "adjust": ("list[str]", "Covariates adjusted for, held at stated reference values in the curves."),
+        "label": ("str", "A readable name for charts and sentences."),
+        "units": ("str", "Units of the outcome (e.g. days, years)."),
+        "among_survivors": ("bool", "The outcome is measured only in survivors (conditional on survival)."),
+        "bounds": ("list[float]", "Continuous: the outcome's possible range, e.g. [0, 180] days."),
+    },
+    "indices": {
+        "name": ("str", "A short unique name for the index."),
+        "column": ("str", "Use a cohort column as the index."),
+        "formula": ("str", "Compute the index from columns, e.g. 'age / 10 + cfs'."),
+        "prognostic": ("table", "Fit a cross-fitted prognostic index: outcome, covariates, fit_on, folds."),
+        "label": ("str", "A readable name for charts and sentences."),
+        "units": ("str", "Units of the index."),
+        "discrete": ("bool", "Whether the index takes whole levels only (default: guessed from the data)."),
+    },
+    "prognostic": {
+        "outcome": ("str", "The outcome the prognostic model predicts."),
+        "covariates": ("list[str]", "Covariates of the prognostic model."),
+        "fit_on": ("str", "second (fit on the second arm) | all (all patients, no arm term)."),
+        "folds": ("int", "Number of cross-fitting folds (default 5)."),
+    },
+    "values": {
+        "outcome": ("str", "The ordinal outcome whose states are weighted."),
+        "weights": ("table[float]", "One weight per level in [-1, 1]: best 1, death 0, below 0 worse than death."),
+        "preset": ("str", "The preset the weights started from (recorded for the report)."),
+        "ranges": ("table[range]", "Per level, [low, high] for the weight-uncertainty analysis."),
+        "acceptable": ("list[str]", "Levels the patient would find acceptable."),
+        "survival_outcome": ("str", "A survival outcome to combine with the function outcome."),
+        "utility_outcome": ("str", "A continuous utility outcome among survivors, for quality-adjusted survival."),
+        "whose": ("str", "Whose values these are: patient | proxy | team."),
+        "spread": ("float", "Spread (+/-) around each stated weight when no ranges are given."),
+        "draws": ("int", "Monte Carlo draws for the weight-uncertainty analysis."),
+    },
+    "analysis": {
+        "margin": ("float", "The smallest difference worth having (default 0)."),
+        "level": ("float", "Interval level (default 0.95)."),
+        "interval": ("str", "analytic | bootstrap."),
+        "replicates": ("int", "Bootstrap replicates (default 1000)."),
+        "seed": ("int", "Seed for every random step (default 1)."),
+        "shape": ("str", "linear | spline (restricted cubic spline in the index)."),
+        "knots": ("int", "Spline knots, 3 to 5 (default 4)."),
+        "bands": ("str", "pointwise | simultaneous: which band the clear-difference regions use."),
+        "workers": ("int", "Parallel workers for the bootstrap (default 1)."),
+        "scheduler": ("str", "tcp://host:port of an existing Dask scheduler (optional)."),
+        "refit_index": ("bool", "Refit a prognostic index in each bootstrap replicate (default false)."),
+        "grid": ("int", "Points along the index for curves (default 200)."),
+    },
+    "selection": {
+        "covariates": ("list[str]", "Covariates of the propensity model for chosen patients."),
+        "truncate": ("list[float]", "Weight truncation percentiles, e.g. [1, 99]."),
+        "min_per_window": ("int", "Fewest randomised patients per window before a stretch is called sparse."),
+    },
+    "pairwise": {
+        "priority": ("list[str]", "Outcome names in priority order for the pairwise comparison."),
+        "window": ("int", "Patients per window along the index."),
+    },
+    "maps": {
+        "indices": ("list[str]", "Two index names."),
+        "target": ("str", "An outcome name or 'composite'."),
+        "interaction": ("bool", "Include the interaction of the two indices (default false)."),
+    },
+}
+TOP_LEVEL = ("cohort", "outcomes", "indices", "values", "analysis", "selection", "pairwise", "maps")
+REQUIRED = {
+    "cohort": ("path", "arm", "arms"),
+    "outcomes": ("name", "kind"),
+    "indices": ("name",),
+    "values": ("outcome",),
+    "prognostic": ("outcome", "covariates"),
+    "maps": ("indices", "target"),
+}
+
+
+class _Reader:
+    """Reads one table of the spec, checking keys and types, with the key path for messages."""
+
+    def __init__(self, table: Any, section: str, where: str, source: str | None) -> None:
+        self.section, self.where, self.source = section, where, source
+        if not isinstance(table, dict):
+            raise FulcrumError(f"'{where}' should be a table of keys, found {_typename(table)}.",
+                               file=source, key=where, hint=f"Write it as [{where}] with key = value lines.")
+        self.table = table
+        allowed = SCHEMA[section]
+        for key in table:
+            if key not in allowed:
+                close = difflib.get_close_matches(key, list(allowed), n=1, cutoff=0.5)
+                hint = f"Did you mean '{close[0]}'?" if close else f"Valid keys here: {', '.join(allowed)}."
+                raise FulcrumError(f"unknown key '{key}' in [{where}].", file=source, key=f"{where}.{key}", hint=hint)
+        for key in REQUIRED.get(section, ()):
+            if key not in table:
+                raise FulcrumError(f"[{where}] is missing the required key '{key}' ({allowed[key][1]})",
+                                   file=source, key=f"{where}.{key}", hint=f"Add {key} = ... to [{where}].")
+
+    def get(self, key: str, default: Any = None) -> Any:
+        if key not in self.table:
+            return default
+        value = self.table[key]
+        kind = SCHEMA[self.section][key][0]
+        path = f"{self.where}.{key}"
+        return _coerce(value, kind, path, self.source)
+
+
+def _typename(v: Any) -> str:
+    return {str: "text", bool: "true/false", int: "a whole number", float: "a number",
+            list: "a list", dict: "a table"}.get(type(v), type(v).__name__)
+
+
+def _coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
+    def bad(expected: str) -> FulcrumError:
+        return FulcrumError(f"'{path}' should be {expected}, found {_typename(value)} {value!r}.",
+                            file=source, key=path, hint=f"Write {path.split('.')[-1]} as {expected}.")
+
+    if kind in ("str", "path"):
+        if not isinstance(value, str) or not value.strip():
+            raise bad("non-empty text in quotes")
+        return value
+    if kind == "bool":
+        if not isinstance(value, bool):
+            raise bad("true or false")
+        return value
+    if kind == "int":
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise bad("a whole number")
+        return value
+    if kind == "float":
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+            raise bad("a finite number")
+        return float(value)
+    if kind == "list[str]":
+        if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
+            raise bad('a list of texts, e.g. ["a", "b"]')
+        return tuple(value)
+    if kind == "list[float]":
+        if not isinstance(value, list) or not all(
+                isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in value):
+            raise bad("a list of numbers, e.g. [1, 99]")
+        return tuple(float(v) for v in value)
+    if kind == "table[float]":
+        if not isinstance(value, dict):
+            raise bad("a table of numbers, e.g. { level = 0.5 }")
+        out = {}
+        for k, v in value.items():
+            if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+                raise FulcrumError(f"'{path}.{k}' should be a finite number, found {v!r}.",
+                                   file=source, key=f"{path}.{k}", hint="Give each weight as a number.")
+            out[str(k)] = float(v)
+        return out
+    if kind == "table[range]":
+        if not isinstance(value, dict):
+            raise bad("a table of [low, high] pairs")
+        out = {}
+        for k, v in value.items():
+            pair = _coerce(v, "list[float]", f"{path}.{k}", source)
+            if len(pair) != 2 or pair[0] > pair[1]:
+                raise FulcrumError(f"'{path}.{k}' should be [low, high] with low <= high, found {v!r}.",
+                                   file=source, key=f"{path}.{k}", hint="Give two numbers, the lower first.")
+            out[str(k)] = (pair[0], pair[1])
+        return out
+    if kind == "table":
+        return value
+    raise AssertionError(kind)
+
+
+def _choice(value: str | None, options: tuple[str, ...], path: str, source: str | None) -> None:
+    if value is not None and value not in options:
+        close = difflib.get_close_matches(value, list(options), n=1, cutoff=0.4)
+        hint = (f"Did you mean '{close[0]}'? " if close else "") + f"Choose one of: {', '.join(options)}."
+        raise FulcrumError(f"'{path}' is '{value}', which is not an option.", file=source, key=path, hint=hint)
+
+
+def _unique(names: list[str], what: str, source: str | None) -> None:
+    seen = set()
+    for n in names:
+        if n in seen:
+            raise FulcrumError(f"two {what} are named '{n}'.", file=source, key=what,
+                               hint=f"Give each of the {what} its own name.")
+        seen.add(n)
+
+
+def load_spec(path: str | Path) -> Spec:
+    """Read and check a spec file; paths inside it resolve relative to its folder."""
+    path = Path(path)
+    if not path.exists():
+        raise FulcrumError("the spec file does not exist.", file=str(path),
+                           hint="Check the path, or write a demo spec with 'fulcrum demo DIR'.")
+    try:
+        text = path.read_text(encoding="utf-8")
+    except UnicodeDecodeError as exc:
+        raise FulcrumError(f"the spec is not UTF-8 text (byte {exc.start}).", file=str(path),
+                           hint="Save the spec as UTF-8 text.") from None
+    return parse_spec_text(text, base_dir=path.resolve().parent, source=str(path))
+
+
+def parse_spec_text(text: str, base_dir: str | Path = ".", source: str | None = None) -> Spec:
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise FulcrumError(f"the spec is not valid TOML: {exc}.", file=source,
+                           hint="Fix the line named; text values need quotes, lists need [ ].") from None
+    return parse_spec(data, base_dir=base_dir, source=source)
+
+
+def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | None = None) -> Spec:
+    """Turn a parsed TOML mapping into a checked Spec. Every error names the key."""
+    base_dir = Path(base_dir)
+    for key in data:
+        if key not in TOP_LEVEL:
+            close = difflib.get_close_matches(key, list(TOP_LEVEL), n=1, cutoff=0.5)
+            raise FulcrumError(f"unknown section '{key}'.", file=source, key=key,
+                               hint=f"Did you mean '{close[0]}'?" if close else f"Sections: {', '.join(TOP_LEVEL)}.")
+    for key in ("cohort", "outcomes", "indices"):
+        if key not in data:
+            raise FulcrumError(f"the spec has no [{key}] section.", file=source, key=key,
+                               hint="See the spec reference in docs/ or start from 'fulcrum demo DIR'.")
+
+    c = _Reader(data["cohort"], "cohort", "cohort", source)
+    arms = c.get("arms")
+    if len(arms) != 2 or arms[0] == arms[1]:
+        raise FulcrumError(f"'cohort.arms' needs exactly two different labels, found {list(arms)!r}.",
+                           file=source, key="cohort.arms", hint='Write arms = ["first", "second"] as in the file.')
+    raw_path = Path(c.get("path"))
+    cohort = CohortSpec(
+        path=raw_path if raw_path.is_absolute() else (base_dir / raw_path),
+        arm=c.get("arm"), arms=(arms[0], arms[1]), id=c.get("id"), allocation=c.get("allocation"),
+        randomised=c.get("randomised", "randomised"), cluster=c.get("cluster"), sheet=c.get("sheet"),
+        covariates=c.get("covariates", ()),
+    )
+
+    outcomes = tuple(_outcome(o, i, source) for i, o in enumerate(_array(data["outcomes"], "outcomes", source)))
+    if not outcomes:
+        raise FulcrumError("the spec lists no outcomes.", file=source, key="outcomes",
+                           hint="Add at least one [[outcomes]] table.")
+    _unique([o.name for o in outcomes], "outcomes", source)
+    by_name = {o.name: o for o in outcomes}
+
+    indices = tuple(_index(x, i, by_name, source) for i, x in enumerate(_array(data["indices"], "indices", source)))
+    if not indices:
+        raise FulcrumError("the spec lists no indices.", file=source, key="indices",
+                           hint="Add at least one [[indices]] table, e.g. name = \"cfs\", column = \"cfs\".")
+    _unique([x.name for x in indices], "indices", source)
+
+    a = _Reader(data.get("analysis", {}), "analysis", "analysis", source)
+    analysis = AnalysisSpec(
+        margin=a.get("margin", 0.0), level=a.get("level", 0.95), interval=a.get("interval", "analytic"),
+        replicates=a.get("replicates", 1000), seed=a.get("seed", 1), shape=a.get("shape", "linear"),
+        knots=a.get("knots", 4), bands=a.get("bands", "pointwise"), workers=a.get("workers", 1),
+        scheduler=a.get("scheduler"), refit_index=a.get("refit_index", False), grid=a.get("grid", 200),
+    )
+    _choice(analysis.interval, INTERVALS, "analysis.interval", source)
+    _choice(analysis.shape, SHAPES, "analysis.shape", source)
+    _choice(analysis.bands, BANDS, "analysis.bands", source)
+    _range_check(analysis.level, 0.5, 0.999, "analysis.level", source)
+    _range_check(analysis.knots, 3, 5, "analysis.knots", source)
+    _range_check(analysis.replicates, 20, 100_000, "analysis.replicates", source)
+    _range_check(analysis.workers, -1, 256, "analysis.workers", source)
+    _range_check(analysis.grid, 20, 5000, "analysis.grid", source)
+    if analysis.scheduler is not None and not analysis.scheduler.startswith("tcp://"):
+        raise FulcrumError(f"'analysis.scheduler' should look like tcp://host:port, found '{analysis.scheduler}'.",
+                           file=source, key="analysis.scheduler", hint="Give the Dask scheduler's address.")
+
+    values = _values(data["values"], by_name, source) if "values" in data else None
+
+    selection = None
+    if "selection" in data:
+        s = _Reader(data["selection"], "selection", "selection", source)
+        truncate = s.get("truncate", (1.0, 99.0))
+        if len(truncate) != 2 or not (0 <= truncate[0] < truncate[1] <= 100):
+            raise FulcrumError(f"'selection.truncate' should be two percentiles, low < high, found {list(truncate)}.",
+                               file=source, key="selection.truncate", hint="For example truncate = [1, 99].")
+        selection = SelectionSpec(covariates=s.get("covariates", ()), truncate=(truncate[0], truncate[1]),
+                                  min_per_window=s.get("min_per_window", 10))
+        if cohort.allocation is None:
+            raise FulcrumError("[selection] needs cohort.allocation, the column saying who was randomised.",
+                               file=source, key="selection", hint="Add allocation = \"column\" to [cohort].")
+
+    pairwise = None
+    if "pairwise" in data:
+        p = _Reader(data["pairwise"], "pairwise", "pairwise", source)
+        priority = p.get("priority", ())
+        for name in priority:
+            _known(name, by_name, "pairwise.priority", source)
+        pairwise = PairwiseSpec(priority=priority, window=p.get("window", 300))
+
+    maps = []
+    for i, m in enumerate(_array(data.get("maps", []), "maps", source)):
+        r = _Reader(m, "maps", f"maps[{i + 1}]", source)
+        names = r.get("indices")
+        if len(names) != 2 or names[0] == names[1]:
+            raise FulcrumError(f"'maps[{i + 1}].indices' needs two different index names.", file=source,
+                               key=f"maps[{i + 1}].indices", hint='For example indices = ["cfs", "age"].')
+        for n in names:
+            _known(n, {x.name: x for x in indices}, f"maps[{i + 1}].indices", source)
+        target = r.get("target")
+        if target != "composite":
+            _known(target, by_name, f"maps[{i + 1}].target", source)
+        elif values is None:
+            raise FulcrumError("a map targets the composite but the spec has no [values].", file=source,
+                               key=f"maps[{i + 1}].target", hint="Add [values] or target an outcome.")
+        maps.append(MapSpec(indices=(names[0], names[1]), target=target, interaction=r.get("interaction", False)))
+
+    return Spec(cohort=cohort, outcomes=outcomes, indices=indices, analysis=analysis, values=values,
+                selection=selection, pairwise=pairwise, maps=tuple(maps), source=source)
+
+
+def _array(value: Any, name: str, source: str | None) -> list:
+    if not isinstance(value, list):
+        raise FulcrumError(f"'{name}' should be an array of tables, written [[{name}]].", file=source, key=name,
+                           hint=f"Start each entry with a line [[{name}]].")
+    return value
+
+
+def _range_check(value: float, lo: float, hi: float, path: str, source: str | None) -> None:
+    if not lo <= value <= hi:
+        raise FulcrumError(f"'{path}' is {value}, outside {lo} to {hi}.", file=source, key=path,
+                           hint=f"Choose a value from {lo} to {hi}.")
+
+
+def _known(name: str, table: dict, path: str, source: str | None) -> None:
+    if name not in table:
+        close = difflib.get_close_matches(name, list(table), n=1, cutoff=0.4)
+        hint = (f"Did you mean '{close[0]}'? " if close else "") + f"Known names: {', '.join(table)}."
+        raise FulcrumError(f"'{path}' names '{name}', which the spec does not define.", file=source, key=path,
+                           hint=hint)
+
+
+def _outcome(raw: Any, i: int, source: str | None) -> OutcomeSpec:
+    where = f"outcomes[{i + 1}]"
+    r = _Reader(raw, "outcomes", where, source)
+    name, kind = r.get("name"), r.get("kind")
+    where = f"outcomes '{name}'"
+    _choice(kind, OUTCOME_KINDS, f"{where}.kind", source)
+
+    def need(key: str, why: str) -> Any:
+        if key not in raw:
+            raise FulcrumError(f"{kind} outcome '{name}' needs '{key}' ({why}).", file=source,
+                               key=f"{where}.{key}", hint=f"Add {key} = ... to this [[outcomes]] table.")
+        return r.get(key)
+
+    def refuse(keys: tuple[str, ...]) -> None:
+        for key in keys:
+            if key in raw:
+                raise FulcrumError(f"'{key}' does not apply to a {kind} outcome.", file=source,
+                                   key=f"{where}.{key}", hint=f"Remove '{key}' from outcome '{name}'.")
+
+    common = dict(name=name, kind=kind, label=r.get("label"), units=r.get("units"), adjust=r.get("adjust", ()),
+                  among_survivors=r.get("among_survivors", False))
+    if kind == "survival":
+        refuse(("column", "levels", "favourable", "bounds"))
+        horizon = need("horizon", "the time at which survival is compared")
+        if horizon <= 0:
+            raise FulcrumError(f"'{where}.horizon' must be positive, found {horizon}.", file=source,
+                               key=f"{where}.horizon", hint="Give the horizon in the units of the time column.")
+        measure = r.get("measure", "survival")
+        _choice(measure, SURVIVAL_MEASURES, f"{where}.measure", source)
+        model = r.get("model", "cox")
+        _choice(model, SURVIVAL_MODELS, f"{where}.model", source)
+        return OutcomeSpec(time=need("time", "the follow-up time column"), event=need("event", "the event column"),
+                           horizon=horizon, measure=measure, model=model, **common)
+    refuse(("time", "event", "horizon", "model"))
+    column = need("column", "the outcome column")
+    if kind == "ordinal":
+        refuse(("bounds",))
+        levels = need("levels", "every level, best first")
+        if len(levels) < 2 or len(set(levels)) != len(levels):
+            raise FulcrumError(f"'{where}.levels' needs at least two different levels, found {list(levels)}.",
+                               file=source, key=f"{where}.levels", hint="List every level once, best first.")
+        favourable = r.get("favourable", levels[:-1])
+        for lv in favourable:
+            if lv not in levels:
+                close = difflib.get_close_matches(lv, list(levels), n=1, cutoff=0.4)
+                raise FulcrumError(f"favourable level '{lv}' is not one of the levels {list(levels)}.", file=source,
+                                   key=f"{where}.favourable", hint=f"Did you mean '{close[0]}'?" if close else
+                                   "Use the level names exactly as listed in levels.")
+        if not favourable or len(favourable) == len(levels):
+            raise FulcrumError("'favourable' must name some levels but not all.", file=source,
+                               key=f"{where}.favourable", hint="Leave it out to count every level but the last.")
+        measure = r.get("measure", "favourable")
+        _choice(measure, ("favourable",), f"{where}.measure", source)
+        return OutcomeSpec(column=column, levels=levels, favourable=favourable, measure=measure,
+                           higher_is_better=True, **common)
+    refuse(("levels", "favourable"))
+    measure = r.get("measure", "mean" if kind == "continuous" else "probability")
+    _choice(measure, ("mean",) if kind == "continuous" else ("probability",), f"{where}.measure", source)
+    bounds = r.get("bounds")
+    if bounds is not None:
+        if kind != "continuous" or len(bounds) != 2 or bounds[0] >= bounds[1]:
+            raise FulcrumError(f"'{where}.bounds' should be [low, high] for a continuous outcome.", file=source,
+                               key=f"{where}.bounds", hint="For example bounds = [0, 180].")
+        bounds = (bounds[0], bounds[1])
+    return OutcomeSpec(column=column, measure=measure, higher_is_better=r.get("higher_is_better", True),
+                       bounds=bounds, **common)
+
+
+def _index(raw: Any, i: int, outcomes: dict[str, OutcomeSpec], source: str | None) -> IndexSpec:
+    r = _Reader(raw, "indices", f"indices[{i + 1}]", source)
+    name = r.get("name")
+    where = f"indices '{name}'"
+    given = [k for k in ("column", "formula", "prognostic") if k in raw]
+    if len(given) != 1:
+        raise FulcrumError(f"index '{name}' needs exactly one of column, formula or prognostic; found "
+                           f"{', '.join(given) or 'none'}.", file=source, key=where,
+                           hint='For example column = "cfs", or formula = "age / 10 + cfs".')
+    prognostic = None
+    if "prognostic" in raw:
+        p = _Reader(raw["prognostic"], "prognostic", f"{where}.prognostic", source)
+        outcome = p.get("outcome")
+        _known(outcome, outcomes, f"{where}.prognostic.outcome", source)
+        fit_on = p.get("fit_on", "second")
+        _choice(fit_on, FIT_ON, f"{where}.prognostic.fit_on", source)
+        folds = p.get("folds", 5)
+        _range_check(folds, 2, 20, f"{where}.prognostic.folds", source)
+        covariates = p.get("covariates")
+        if not covariates:
+            raise FulcrumError("a prognostic index needs at least one covariate.", file=source,
+                               key=f"{where}.prognostic.covariates", hint='For example covariates = ["age", "cfs"].')
+        prognostic = PrognosticSpec(outcome=outcome, covariates=covariates, fit_on=fit_on, folds=folds)
+    return IndexSpec(name=name, column=r.get("column"), formula=r.get("formula"), prognostic=prognostic,
+                     label=r.get("label"), units=r.get("units"), discrete=r.get("discrete"))
+
+
+def _values(raw: Any, outcomes: dict[str, OutcomeSpec], source: str | None) -> ValuesSpec:
+    r = _Reader(raw, "values", "values", source)
+    name = r.get("outcome")
+    _known(name, outcomes, "values.outcome", source)
+    outcome = outcomes[name]
+    if outcome.kind != "ordinal":
+        raise FulcrumError(f"'values.outcome' must be an ordinal outcome; '{name}' is {outcome.kind}.", file=source,
+                           key="values.outcome", hint="Name the ordinal function outcome whose states are weighted.")
+    levels = outcome.levels
+    weights = r.get("weights", {})
+    for level, w in weights.items():
+        if level not in levels:
+            close = difflib.get_close_matches(level, list(levels), n=1, cutoff=0.4)
+            raise FulcrumError(f"a weight is given for '{level}', which is not a level of '{name}'.", file=source,
+                               key=f"values.weights.{level}", hint=(f"Did you mean '{close[0]}'? " if close else "")
+                               + f"Levels: {', '.join(levels)}.")
+        if not -1.0 <= w <= 1.0:
+            raise FulcrumError(f"the weight of '{level}' is {w}, outside -1 to 1.", file=source,
+                               key=f"values.weights.{level}", hint="Weights run from -1 (worst) through 0 (death) "
+                               "to 1 (best state).")
+    full = default_weights(levels)
+    full.update(weights)
+    ranges = r.get("ranges", {})
+    for level in ranges:
+        if level not in levels:
+            raise FulcrumError(f"a range is given for '{level}', which is not a level of '{name}'.", file=source,
+                               key=f"values.ranges.{level}", hint=f"Levels: {', '.join(levels)}.")
+    acceptable = r.get("acceptable", ())
+    for level in acceptable:
+        if level not in levels:
+            raise FulcrumError(f"'values.acceptable' names '{level}', which is not a level of '{name}'.",
+                               file=source, key="values.acceptable", hint=f"Levels: {', '.join(levels)}.")
+    whose = r.get("whose", "team")
+    _choice(whose, WHOSE, "values.whose", source)
+    for key, kind in (("survival_outcome", "survival"), ("utility_outcome", "continuous")):
+        other = r.get(key)
+        if other is not None:
+            _known(other, outcomes, f"values.{key}", source)
+            if outcomes[other].kind != kind:
+                raise FulcrumError(f"'values.{key}' must be a {kind} outcome; '{other}' is "
+                                   f"{outcomes[other].kind}.", file=source, key=f"values.{key}",
+                                   hint=f"Name a {kind} outcome.")
+    spread = r.get("spread", 0.0)
+    _range_check(spread, 0.0, 1.0, "values.spread", source)
+    draws = r.get("draws", 500)
+    _range_check(draws, 10, 100_000, "values.draws", source)
+    return ValuesSpec(outcome=name, weights=full, preset=r.get("preset"), ranges=ranges, acceptable=acceptable,
+                      survival_outcome=r.get("survival_outcome"), utility_outcome=r.get("utility_outcome"),
+                      whose=whose, spread=spread, draws=draws)
+
+
+def default_weights(levels: tuple[str, ...]) -> dict[str, float]:
+    """Equal steps from 1 (best) down to 0 (the last level, death)."""
+    k = len(levels) - 1
+    return {lv: round(1.0 - i / k, 6) for i, lv in enumerate(levels)}
+
+
+# --------------------------------------------------------------------------------------
+# Spec -> plain data (for hashing and the results JSON) and -> TOML (so the app can save)
+# --------------------------------------------------------------------------------------
+def spec_to_dict(spec: Spec, relative_to: Path | None = None) -> dict[str, Any]:
+    """The spec as TOML-shaped data, defaults filled in, empty optional keys left out."""
+
+    def clean(obj: Any) -> Any:
+        if dataclasses.is_dataclass(obj):
+            return {f.name: clean(getattr(obj, f.name)) for f in dataclasses.fields(obj)
+                    if getattr(obj, f.name) not in (None, (), {}) and f.name != "source"}
+        if isinstance(obj, Path):
+            if relative_to is not None:
+                try:
+                    return obj.resolve().relative_to(relative_to.resolve()).as_posix()
+                except ValueError:
+                    return obj.resolve().as_posix()
+            return obj.name
+        if isinstance(obj, (list, tuple)):
+            return [clean(v) for v in obj]
+        if isinstance(obj, dict):
+            return {str(k): clean(v) for k, v in obj.items()}
+        return obj
+
+    out = clean(spec)
+    for key in ("outcomes", "indices", "maps"):
+        out.setdefault(key, [])
+    if not out["maps"]:
+        del out["maps"]
+    return out
+
+
+def canonical_sha256(spec: Spec) -> str:
+    """Hash of the parsed spec as sorted JSON: the same analysis typed differently hashes the same."""
+    text = json.dumps(spec_to_dict(spec), sort_keys=True, separators=(",", ":"), default=str)
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+def to_toml(spec: Spec, relative_to: Path | None = None) -> str:
+    """Write the spec back as TOML that `load_spec` reads to the same Spec."""
+    data = spec_to_dict(spec, relative_to)
+    lines: list[str] = []
+    for section in TOP_LEVEL:
+        if section not in data:
+            continue
+        value = data[section]
+        if isinstance(value, list):
+            for item in value:
+                lines.append(f"[[{section}]]")
+                lines.extend(f"{k} = {_toml_value(v)}" for k, v in item.items())
+                lines.append("")
+        else:
+            lines.append(f"[{section}]")
+            lines.extend(f"{k} = {_toml_value(v)}" for k, v in value.items())
+            lines.append("")
+    return "\n".join(lines)
+
+
+def _toml_value(v: Any) -> str:
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, (int, float)):
+        return repr(v)
+    if isinstance(v, str):
+        return json.dumps(v, ensure_ascii=False)
+    if isinstance(v, list):
+        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    if isinstance(v, dict):
+        return "{ " + ", ".join(f"{_toml_key(k)} = {_toml_value(x)}" for k, x in v.items()) + " }"
+    raise TypeError(type(v))
+
+
+def _toml_key(k: str) -> str:
+    return k if k.replace("_", "").replace("-", "").isalnum() and k.isascii() else json.dumps(k)

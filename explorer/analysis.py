@@ -1,0 +1,461 @@
+"""The one orchestrator: Spec + Cohort -> fitted models -> curves, break-evens, composites -> Results.
+
+Fitting (`fit_all`) and summarising (`summarise`) are separate so the app can re-weight the
+composite, move the margin or place a patient without refitting anything.
+"""
+from __future__ import annotations
+
+import dataclasses
+import functools
+import math
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+import numpy as np
+
+from . import breakeven as be
+from .cohort import Cohort, load_cohort
+from .errors import FulcrumError
+from .indices import IndexValues, compute_index, needed_columns
+from .models import fit_model
+from .models.base import Basis, Fitted, OutcomeData
+from .resampling import Progress, run_replicates
+from .spec import OutcomeSpec, Spec
+
+SPARSE_SHARE = 0.05  # an arm holding under 5% of the patients in a stretch of the index is flagged
+STRETCHES = 10
+
+
+@dataclass
+class PairFit:
+    """One outcome along one index: both arms' fits and what they were fitted on."""
+
+    outcome: OutcomeSpec
+    index: str
+    basis: Basis
+    fits: dict[str, Fitted]
+    data: dict[str, OutcomeData]
+    rows: dict[str, np.ndarray]  # cohort row positions used per arm
+    x_range: tuple[float, float]
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def sign(self) -> float:
+        return 1.0 if self.outcome.higher_is_better else -1.0
+
+
+@dataclass
+class FitSet:
+    spec: Spec
+    cohort: Cohort
+    indices: dict[str, IndexValues]
+    pairs: dict[tuple[str, str], PairFit]
+    n_fits: int = 0
+
+    def pair(self, outcome: str, index: str) -> PairFit:
+        return self.pairs[(outcome, index)]
+
+
+# ------------------------------------------------------------------------------------------
+# Fitting
+# ------------------------------------------------------------------------------------------
+def compute_indices(spec: Spec, cohort: Cohort) -> dict[str, IndexValues]:
+    return {ix.name: compute_index(ix, cohort.frame, spec=spec) for ix in spec.indices}
+
+
+def outcome_data(spec: Spec, cohort: Cohort, outcome: OutcomeSpec, x: np.ndarray, rows: np.ndarray,
+                 z_ref: np.ndarray | None) -> OutcomeData:
+    """The cleaned arrays of one outcome for the given cohort rows (positions)."""
+    f = cohort.frame
+    d = OutcomeData(x=np.asarray(x[rows], float))
+    if outcome.kind == "survival":
+        d.time = f[outcome.time].to_numpy(float)[rows]
+        d.event = f[outcome.event].to_numpy(float)[rows]
+    elif outcome.kind == "ordinal":
+        d.y = np.asarray(f[outcome.column].cat.codes.to_numpy()[rows], float)
+    else:
+        d.y = f[outcome.column].to_numpy(float)[rows]
+    if outcome.adjust:
+        d.z = f[list(outcome.adjust)].to_numpy(float)[rows]
+        d.z_names = tuple(outcome.adjust)
+        d.z_ref = z_ref
+    if spec.cohort.cluster:
+        d.cluster = f[spec.cohort.cluster].astype(str).to_numpy()[rows]
+    return d
+
+
+def _robust(spec: Spec, outcome: OutcomeSpec) -> bool:
+    return bool(spec.cohort.cluster) or (outcome.kind == "continuous" and outcome.bounds is not None)
+
+
+def fit_pair(spec: Spec, cohort: Cohort, outcome: OutcomeSpec, index: IndexValues, basis: Basis,
+             rows: dict[str, np.ndarray] | None = None, weights: dict[str, np.ndarray] | None = None,
+             start: dict[str, np.ndarray] | None = None) -> PairFit:
+    """Fit one outcome in each arm along one index (complete cases, counted in warnings)."""
+    f = cohort.frame
+    x = np.asarray(index.values, float)
+    arm_col = f[spec.cohort.arm].to_numpy()
+    ok = cohort.complete(outcome) & np.isfinite(x)
+    warnings: list[str] = []
+    if rows is None:
+        rows = {arm: np.flatnonzero(ok & (arm_col == arm)) for arm in spec.cohort.arms}
+        dropped = {arm: int(((arm_col == arm) & ~ok).sum()) for arm in spec.cohort.arms}
+        if any(dropped.values()):
+            warnings.append(f"{outcome.title} along {index.info.get('label', index.name)}: "
+                            + ", ".join(f"{n} {arm} patients" for arm, n in dropped.items() if n)
+                            + " left out for missing values (complete cases).")
+    z_ref = None
+    if outcome.adjust:
+        all_rows = np.concatenate([rows[a] for a in spec.cohort.arms])
+        z_ref = f[list(outcome.adjust)].to_numpy(float)[all_rows].mean(axis=0)
+    fits, data = {}, {}
+    for arm in spec.cohort.arms:
+        d = outcome_data(spec, cohort, outcome, x, rows[arm], z_ref)
+        if weights is not None:
+            d.weights = weights[arm]
+        data[arm] = d
+        if len(d) == 0:
+            raise FulcrumError(f"no {arm} patients have complete data for outcome '{outcome.name}'.",
+                               column=outcome.column or outcome.time,
+                               hint="Check the outcome and index columns for this arm.")
+        fits[arm] = fit_model(outcome, arm, basis, d, start=None if start is None else start.get(arm),
+                              robust=_robust(spec, outcome))
+        warnings.extend(f"{arm}, {outcome.title}: {w}" for w in fits[arm].warnings_)
+    xs = x[np.concatenate(list(rows.values()))]
+    pf = PairFit(outcome, index.name, basis, fits, data, rows, (float(np.min(xs)), float(np.max(xs))), warnings)
+    pf.warnings.extend(sparse_stretches(pf, spec))
+    return pf
+
+
+def sparse_stretches(pf: PairFit, spec: Spec) -> list[str]:
+    """Flag stretches of the index where one arm holds under 5% of the patients."""
+    xs = {arm: d.x for arm, d in pf.data.items()}
+    pooled = np.concatenate(list(xs.values()))
+    edges = np.unique(np.quantile(pooled, np.linspace(0, 1, STRETCHES + 1)))
+    out = []
+    for lo, hi in zip(edges[:-1], edges[1:]):
+        counts = {arm: int(((v >= lo) & (v <= hi)).sum()) for arm, v in xs.items()}
+        total = sum(counts.values())
+        for arm, c in counts.items():
+            if total and c / total < SPARSE_SHARE:
+                out.append(f"{pf.outcome.title}: between {lo:.3g} and {hi:.3g} on {pf.index}, {arm} has {c} of "
+                           f"{total} patients (under {SPARSE_SHARE:.0%}); the curves there rest on the model.")
+    return out
+
+
+def fit_all(spec: Spec, cohort: Cohort | None = None, *, indices: dict[str, IndexValues] | None = None,
+            progress: Progress | None = None) -> FitSet:
+    if cohort is None:
+        cohort = load_cohort(spec, extra_columns=needed_columns(spec))
+    if indices is None:
+        indices = compute_indices(spec, cohort)
+    pairs = {}
+    total = len(spec.outcomes) * len(spec.indices)
+    k = 0
+    for ix in spec.indices:
+        iv = indices[ix.name]
+        basis = Basis.from_index(iv.values, spec.analysis.shape, spec.analysis.knots)
+        for outcome in spec.outcomes:
+            pairs[(outcome.name, ix.name)] = fit_pair(spec, cohort, outcome, iv, basis)
+            k += 1
+            if progress:
+                progress(k, total)
+    return FitSet(spec, cohort, indices, pairs, n_fits=2 * total)
+
+
+# ------------------------------------------------------------------------------------------
+# Curves and break-even points
+# ------------------------------------------------------------------------------------------
+def grid_for(pf: PairFit, n: int) -> np.ndarray:
+    lo, hi = be.search_range(*pf.x_range)
+    return np.linspace(lo, hi, n)
+
+
+def in_range(pf: PairFit, grid: np.ndarray) -> np.ndarray:
+    lo, hi = pf.x_range
+    eps = 1e-9 * max(1.0, hi - lo)
+    return (grid >= lo - eps) & (grid <= hi + eps)
+
+
+def fieller_terms(pf: PairFit, margin: float) -> tuple[float, float, np.ndarray] | None:
+    """(a, b, cov) of the linear difference c0 + c1 x when Fieller applies, else None."""
+    first, second = (pf.fits[a] for a in _arms(pf))
+    t1, t2 = first.linear_terms(), second.linear_terms()
+    if t1 is None or t2 is None:
+        return None
+    identity = pf.outcome.kind == "continuous"
+    if margin != 0.0 and not identity:
+        return None
+    (c1, v1), (c2, v2) = t1, t2
+    a = float(c1[0] - c2[0]) - (pf.sign * margin if identity else 0.0)
+    b = float(c1[1] - c2[1])
+    return a, b, np.asarray(v1, float) + np.asarray(v2, float)
+
+
+def _arms(pf: PairFit) -> list[str]:
+    return list(pf.fits)
+
+
+def difference_fn(pf: PairFit) -> Callable[[np.ndarray], np.ndarray]:
+    first, second = (pf.fits[a] for a in _arms(pf))
+    return lambda x: pf.sign * (first.measure(x) - second.measure(x))
+
+
+def analytic_summary(pf: PairFit, spec: Spec) -> be.CurveSummary:
+    a = spec.analysis
+    arms = _arms(pf)
+    first, second = pf.fits[arms[0]], pf.fits[arms[1]]
+    grid = grid_for(pf, a.grid)
+    m1, m2 = first.measure(grid), second.measure(grid)
+    v1, v2 = first.measure_var(grid), second.measure_var(grid)
+    diff = pf.sign * (m1 - m2)
+    se = np.sqrt(np.maximum(v1 + v2, 0.0))
+    z = be.critical_value(a.level)
+    crit = z if a.bands == "pointwise" else simultaneous_critical(pf, a.level)
+    s = be.CurveSummary(grid, m1, m2, diff, diff - crit * se, diff + crit * se, band=a.bands,
+                        first_band=(m1 - z * np.sqrt(v1), m1 + z * np.sqrt(v1)),
+                        second_band=(m2 - z * np.sqrt(v2), m2 + z * np.sqrt(v2)))
+    terms = fieller_terms(pf, a.margin)
+    dfn = difference_fn(pf)
+    lo, hi = be.search_range(*pf.x_range)
+    step = 1e-4 * (hi - lo)
+    for x0 in be.find_roots(lambda x: dfn(x) - a.margin, lo, hi):
+        below, above = be.favoured_side(dfn, x0, a.margin, step, *arms)
+        slope = float((dfn(np.array([x0 + step])) - dfn(np.array([x0 - step])))[0] / (2 * step))
+        if terms is not None:
+            ci_lo, ci_hi, shape = be.fieller_set(terms[0], terms[1], terms[2], z)
+            method = "fieller"
+        else:
+            var0 = float(first.measure_var(np.array([x0]))[0] + second.measure_var(np.array([x0]))[0])
+            ci_lo, ci_hi, shape = be.delta_root_interval(x0, var0, slope, z)
+            method = "delta"
+        s.break_even.append(be.BreakEven(x0, (ci_lo, ci_hi), method, shape, not _inside(pf, x0), below, above,
+                                         slope=slope))
+    if terms is not None:
+        s.clear_difference = be.regions_from_linear(grid, terms[0], terms[1], terms[2], crit,
+                                                    _linear_sign(pf), *arms)
+    else:
+        s.clear_difference = be.regions(grid, s.lower, s.upper, a.margin, *arms)
+    _finish(pf, s)
+    return s
+
+
+def _linear_sign(pf: PairFit) -> float:
+    """+1 when a higher linear predictor means a better oriented measure, else -1."""
+    first = pf.fits[_arms(pf)[0]]
+    c, _ = first.linear_terms()
+    x0 = pf.x_range[0]
+    h = max(1e-3, 1e-3 * (pf.x_range[1] - pf.x_range[0]))
+    dm = float(first.measure(np.array([x0 + h]))[0] - first.measure(np.array([x0]))[0]) * pf.sign
+    dl = c[1] * h
+    if dl == 0 or dm == 0:
+        return 1.0
+    return 1.0 if (dm > 0) == (dl > 0) else -1.0
+
+
+def simultaneous_critical(pf: PairFit, level: float) -> float:
+    """Scheffe-type critical value over the difference's coefficients along the index."""
+    from scipy import stats
+
+    return float(math.sqrt(stats.chi2.ppf(level, pf.basis.n_columns + 1)))
+
+
+def _inside(pf: PairFit, x: float) -> bool:
+    lo, hi = pf.x_range
+    return lo - 1e-9 <= x <= hi + 1e-9
+
+
+def _finish(pf: PairFit, s: be.CurveSummary) -> None:
+    arms = _arms(pf)
+    for b in s.break_even:
+        if b.extrapolated:
+            s.warnings.append(f"{pf.outcome.title}: the break-even point {b.x:.3g} lies outside the observed "
+                              f"{pf.index} range ({pf.x_range[0]:.3g} to {pf.x_range[1]:.3g}); it is an "
+                              f"extrapolation.")
+    if not s.break_even:
+        mid = s.difference[in_range(pf, s.grid)]
+        s.favours_throughout = arms[0] if np.nanmean(mid) - 0 > 0 else arms[1]
+
+
+# ------------------------------------------------------------------------------------------
+# Bootstrap
+# ------------------------------------------------------------------------------------------
+@dataclass
+class BootPayload:
+    """What a replicate needs: the spec, the cohort arrays and each pair's rows and start values."""
+
+    spec: Spec
+    cohort: Cohort
+    indices: dict[str, IndexValues]
+    pairs: dict[tuple[str, str], tuple[Basis, dict[str, np.ndarray], dict[str, np.ndarray], np.ndarray]]
+    arm_rows: dict[str, np.ndarray]
+    keep_distribution: tuple[str, ...] = ()
+    extra: dict[str, Any] = field(default_factory=dict)
+
+
+def boot_payload(fs: FitSet, keep_distribution: tuple[str, ...] = ()) -> BootPayload:
+    spec = fs.spec
+    arm_col = fs.cohort.frame[spec.cohort.arm].to_numpy()
+    arm_rows = {arm: np.flatnonzero(arm_col == arm) for arm in spec.cohort.arms}
+    pairs = {}
+    for key, pf in fs.pairs.items():
+        starts = {arm: f.params_ for arm, f in pf.fits.items()}
+        pairs[key] = (pf.basis, pf.rows, starts, grid_for(pf, spec.analysis.grid))
+    return BootPayload(spec, fs.cohort, fs.indices, pairs, arm_rows, keep_distribution)
+
+
+def boot_replicate(payload: BootPayload, rng: np.random.Generator) -> dict[tuple[str, str], dict[str, np.ndarray]]:
+    """Resample patients within each arm, refit every model, return curves on each pair's grid."""
+    draw = {arm: np.sort(rng.choice(rows, size=len(rows), replace=True)) for arm, rows in payload.arm_rows.items()}
+    out = {}
+    for (oname, iname), (basis, rows, starts, grid) in payload.pairs.items():
+        outcome = payload.spec.outcome(oname)
+        new_rows = {}
+        for arm, r in rows.items():
+            keep = np.isin(draw[arm], r)
+            new_rows[arm] = draw[arm][keep]
+        try:
+            pf = fit_pair(payload.spec, payload.cohort, outcome, payload.indices[iname], basis, rows=new_rows,
+                          start=starts)
+        except (FulcrumError, np.linalg.LinAlgError, ValueError, FloatingPointError):
+            out[(oname, iname)] = {"failed": np.array(True)}
+            continue
+        arms = list(rows)
+        rec = {"first": pf.fits[arms[0]].measure(grid).astype(np.float32),
+               "second": pf.fits[arms[1]].measure(grid).astype(np.float32)}
+        if oname in payload.keep_distribution:
+            rec["dist_first"] = pf.fits[arms[0]].distribution(grid).astype(np.float32)
+            rec["dist_second"] = pf.fits[arms[1]].distribution(grid).astype(np.float32)
+        out[(oname, iname)] = rec
+    return out
+
+
+def run_bootstrap(fs: FitSet, *, progress: Progress | None = None, replicates: int | None = None,
+                  keep_distribution: tuple[str, ...] = ()) -> list[dict]:
+    a = fs.spec.analysis
+    payload = boot_payload(fs, keep_distribution)
+    task = functools.partial(boot_replicate, payload)
+    return run_replicates(task, replicates or a.replicates, a.seed, workers=a.workers, scheduler=a.scheduler,
+                          progress=progress)
+
+
+def grid_roots(grid: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Roots of a curve given on a grid, by linear interpolation between sign changes."""
+    y = np.asarray(y, float)
+    s = np.sign(y)
+    idx = np.flatnonzero(s[:-1] * s[1:] < 0)
+    exact = grid[s == 0]
+    r = grid[idx] - y[idx] * (grid[idx + 1] - grid[idx]) / (y[idx + 1] - y[idx])
+    return np.sort(np.concatenate([r, exact]))
+
+
+def bootstrap_summary(pf: PairFit, spec: Spec, curves: list[np.ndarray | None],
+                      firsts: list[np.ndarray], seconds: list[np.ndarray],
+                      base: be.CurveSummary | None = None) -> be.CurveSummary:
+    """Percentile intervals for the curves, the difference and each break-even point."""
+    a = spec.analysis
+    arms = _arms(pf)
+    if base is None:
+        base = analytic_summary(pf, spec)
+    ok = [i for i, c in enumerate(curves) if c is not None]
+    failed = len(curves) - len(ok)
+    D = np.array([curves[i] for i in ok], float)
+    F = np.array([firsts[i] for i in ok], float)
+    S = np.array([seconds[i] for i in ok], float)
+    qlo, qhi = 0.5 - a.level / 2, 0.5 + a.level / 2
+    grid = base.grid
+    s = be.CurveSummary(grid, base.first, base.second, base.difference,
+                        np.quantile(D, qlo, axis=0), np.quantile(D, qhi, axis=0), band="pointwise",
+                        first_band=(np.quantile(F, qlo, axis=0), np.quantile(F, qhi, axis=0)),
+                        second_band=(np.quantile(S, qlo, axis=0), np.quantile(S, qhi, axis=0)))
+    if a.bands == "simultaneous":
+        sd = np.maximum(D.std(axis=0, ddof=1), 1e-12)
+        tmax = np.max(np.abs(D - base.difference) / sd, axis=1)
+        crit = float(np.quantile(tmax, a.level))
+        s.lower, s.upper, s.band = base.difference - crit * sd, base.difference + crit * sd, "simultaneous"
+    s.clear_difference = be.regions(grid, s.lower, s.upper, a.margin, *arms)
+    for b in base.break_even:
+        draws = []
+        for d in D:
+            r = grid_roots(grid, d - a.margin)
+            if len(r):
+                draws.append(r[np.argmin(np.abs(r - b.x))])
+            else:
+                # no root: the break-even moved past the searched range on the side the replicate implies
+                favoured_first = np.mean(d - a.margin) > 0
+                draws.append(math.inf if favoured_first == (b.favours_below == arms[0]) else -math.inf)
+        draws = np.asarray(draws)
+        lo, hi = be.percentile_interval(draws, a.level)
+        s.break_even.append(dataclasses.replace(b, ci=(lo, hi), interval="bootstrap-percentile",
+                                                interval_shape=be.shape_of(lo, hi),
+                                                no_root_share=float(np.mean(~np.isfinite(draws)))))
+    s.favours_throughout = base.favours_throughout
+    s.warnings = list(base.warnings)
+    if failed:
+        s.warnings.append(f"{pf.outcome.title}: {failed} of {len(curves)} bootstrap replicates could not be "
+                          f"fitted and were left out.")
+    return s
+
+
+def pair_curves(pf: PairFit, reps: list[dict]) -> tuple[list, list, list]:
+    key = (pf.outcome.name, pf.index)
+    diffs, firsts, seconds = [], [], []
+    for rep in reps:
+        rec = rep[key]
+        if "failed" in rec:
+            diffs.append(None)
+            firsts.append(None)
+            seconds.append(None)
+            continue
+        firsts.append(rec["first"])
+        seconds.append(rec["second"])
+        diffs.append(pf.sign * (rec["first"].astype(float) - rec["second"].astype(float)))
+    return diffs, firsts, seconds
+
+
+# ------------------------------------------------------------------------------------------
+# The whole analysis
+# ------------------------------------------------------------------------------------------
+@dataclass
+class Results:
+    """Everything one analysis produced: fits (for re-use), curve summaries and the JSON document."""
+
+    fitset: FitSet
+    summaries: dict[tuple[str, str], be.CurveSummary]
+    document: dict
+    replicates: list[dict] | None = None
+
+    @property
+    def spec(self) -> Spec:
+        return self.fitset.spec
+
+
+def summarise(fs: FitSet, replicates: list[dict] | None = None) -> dict[tuple[str, str], be.CurveSummary]:
+    out = {}
+    for key, pf in fs.pairs.items():
+        base = analytic_summary(pf, fs.spec)
+        if replicates is not None:
+            diffs, firsts, seconds = pair_curves(pf, replicates)
+            base = bootstrap_summary(pf, fs.spec, diffs, firsts, seconds, base)
+        out[key] = base
+    return out
+
+
+def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | None = None,
+            progress: Progress | None = None, fitset: FitSet | None = None) -> Results:
+    """Run the analysis the spec describes; `progress(done, total)` reports bootstrap replicates."""
+    from . import results as res
+
+    fs = fitset or fit_all(spec, cohort)
+    reps = None
+    if spec.analysis.interval == "bootstrap":
+        keep = (spec.values.outcome,) if spec.values else ()
+        reps = run_bootstrap(fs, progress=progress, keep_distribution=keep)
+    summaries = summarise(fs, reps)
+    rows = [res.curve_row(fs.pairs[key], s, res.index_info_json(fs.indices[key[1]])) for key, s in summaries.items()]
+    warnings = list(fs.cohort.warnings)
+    for iv in fs.indices.values():
+        warnings.extend(iv.warnings)
+    doc = res.document(spec, data_sha256=fs.cohort.sha256, spec_bytes=spec_bytes, rows=rows, composite=[],
+                       selection=[], warnings=warnings)
+    return Results(fs, summaries, doc, reps)

@@ -1,0 +1,208 @@
+"""Break-even points of two curves along an index, their intervals, and clear-difference regions.
+
+Everything here works on curves and small coefficient vectors; nothing knows the outcome kind.
+Conventions: the difference is first arm minus second arm, oriented so higher is better; a
+break-even point is a root of (difference - margin).
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+from scipy import optimize, stats
+
+EXTEND = 0.10  # roots this far (share of the range) beyond the observed index are reported as extrapolated
+
+
+@dataclass
+class BreakEven:
+    x: float
+    ci: tuple[float | None, float | None]
+    interval: str
+    interval_shape: str
+    extrapolated: bool
+    favours_below: str
+    favours_above: str
+    no_root_share: float | None = None
+    coverage: float | None = None
+    approximate: bool = False
+    slope: float = math.nan
+
+    def to_json(self) -> dict:
+        return {"x": _r(self.x), "ci": [_r(self.ci[0]), _r(self.ci[1])], "interval": self.interval,
+                "interval_shape": self.interval_shape, "extrapolated": self.extrapolated,
+                "favours_below": self.favours_below, "favours_above": self.favours_above,
+                "no_root_share": None if self.no_root_share is None else _r(self.no_root_share),
+                "coverage": self.coverage, "approximate": self.approximate}
+
+
+@dataclass
+class Region:
+    start: float
+    stop: float
+    favours: str
+
+    def to_json(self) -> dict:
+        return {"from": _r(self.start), "to": _r(self.stop), "favours": self.favours}
+
+
+@dataclass
+class CurveSummary:
+    """A difference curve on a grid with its band, roots and regions."""
+
+    grid: np.ndarray
+    first: np.ndarray
+    second: np.ndarray
+    difference: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    break_even: list[BreakEven] = field(default_factory=list)
+    favours_throughout: str | None = None
+    clear_difference: list[Region] = field(default_factory=list)
+    band: str = "pointwise"
+    first_band: tuple[np.ndarray, np.ndarray] | None = None
+    second_band: tuple[np.ndarray, np.ndarray] | None = None
+    warnings: list[str] = field(default_factory=list)
+
+
+def _r(v: float | None, digits: int = 6) -> float | None:
+    if v is None or not np.isfinite(v):
+        return None
+    return float(round(float(v), digits))
+
+
+def critical_value(level: float) -> float:
+    return float(stats.norm.ppf(0.5 + level / 2))
+
+
+def find_roots(f: Callable[[np.ndarray], np.ndarray], lo: float, hi: float, n: int = 801) -> list[float]:
+    """Every sign change of f on a fine grid over [lo, hi], refined by Brent's method."""
+    if not hi > lo:
+        return []
+    xs = np.linspace(lo, hi, n)
+    ys = np.asarray(f(xs), float)
+    roots: list[float] = []
+    for i in range(n - 1):
+        a, b = ys[i], ys[i + 1]
+        if not (np.isfinite(a) and np.isfinite(b)):
+            continue
+        if a == 0.0:
+            if not roots or abs(roots[-1] - xs[i]) > 1e-12:
+                roots.append(float(xs[i]))
+            continue
+        if a * b < 0:
+            g = lambda t: float(np.asarray(f(np.array([t])), float)[0])  # noqa: E731
+            roots.append(float(optimize.brentq(g, xs[i], xs[i + 1], xtol=1e-10, rtol=1e-12)))
+    if ys[-1] == 0.0 and (not roots or abs(roots[-1] - xs[-1]) > 1e-12):
+        roots.append(float(xs[-1]))
+    return roots
+
+
+def fieller_set(a: float, b: float, cov: np.ndarray, crit: float) -> tuple[float | None, float | None, str]:
+    """Fieller's confidence set for the root of a + b x = 0, where (a, b) has covariance `cov`.
+
+    The set is {x : (a + b x)^2 <= crit^2 var(a + b x)}: exactly where the difference is not
+    clearly non-zero, so it may be a finite interval, one ray, two rays or the whole line.
+    Returns (low, high, shape); for two rays, the inner ends (-inf, low] U [high, inf).
+    """
+    c2 = crit * crit
+    qa = b * b - c2 * cov[1, 1]
+    qb = 2.0 * (a * b - c2 * cov[0, 1])
+    qc = a * a - c2 * cov[0, 0]
+    disc = qb * qb - 4.0 * qa * qc
+    scale = max(abs(qa), abs(qb), abs(qc), 1e-300)
+    if abs(qa) <= 1e-14 * scale:
+        if abs(qb) <= 1e-300:
+            return (None, None, "unbounded")
+        x0 = -qc / qb
+        return (x0, None, "unbounded_above") if qb < 0 else (None, x0, "unbounded_below")
+    if qa > 0:
+        disc = max(disc, 0.0)
+        s = math.sqrt(disc)
+        lo, hi = sorted(((-qb - s) / (2 * qa), (-qb + s) / (2 * qa)))
+        return (lo, hi, "finite")
+    if disc <= 0:
+        return (None, None, "unbounded")
+    s = math.sqrt(disc)
+    lo, hi = sorted(((-qb - s) / (2 * qa), (-qb + s) / (2 * qa)))
+    return (lo, hi, "two_rays")
+
+
+def delta_root_interval(x0: float, var_at_root: float, slope: float, crit: float
+                        ) -> tuple[float | None, float | None, str]:
+    """Delta-method interval for a root: se(x*) = se(d(x*)) / |d'(x*)|."""
+    if not np.isfinite(var_at_root) or not np.isfinite(slope) or slope == 0:
+        return (None, None, "unbounded")
+    se = math.sqrt(max(var_at_root, 0.0)) / abs(slope)
+    return (x0 - crit * se, x0 + crit * se, "finite")
+
+
+def regions(grid: np.ndarray, lower: np.ndarray, upper: np.ndarray, margin: float,
+            first: str, second: str) -> list[Region]:
+    """Stretches of the grid where the band for (difference - margin) excludes zero."""
+    state = np.where(lower > margin, 1, np.where(upper < margin, -1, 0))
+    out: list[Region] = []
+    i = 0
+    n = len(grid)
+    while i < n:
+        if state[i] == 0:
+            i += 1
+            continue
+        j = i
+        while j + 1 < n and state[j + 1] == state[i]:
+            j += 1
+        out.append(Region(float(grid[i]), float(grid[j]), first if state[i] > 0 else second))
+        i = j + 1
+    return out
+
+
+def regions_from_linear(grid: np.ndarray, a: float, b: float, cov: np.ndarray, crit: float, sign: float,
+                        first: str, second: str) -> list[Region]:
+    """Johnson-Neyman regions on the linear-predictor scale: the exact complement of Fieller's set."""
+    d = a + b * grid
+    se = np.sqrt(np.maximum(cov[0, 0] + 2 * grid * cov[0, 1] + grid * grid * cov[1, 1], 0.0))
+    oriented = sign * d
+    return regions(grid, oriented - crit * se, oriented + crit * se, 0.0, first, second)
+
+
+def favoured_side(diff_fn: Callable[[np.ndarray], np.ndarray], x: float, margin: float, step: float,
+                  first: str, second: str) -> tuple[str, str]:
+    below = float(np.asarray(diff_fn(np.array([x - step])))[0]) - margin
+    above = float(np.asarray(diff_fn(np.array([x + step])))[0]) - margin
+    return (first if below > 0 else second, first if above > 0 else second)
+
+
+def search_range(lo: float, hi: float) -> tuple[float, float]:
+    pad = EXTEND * (hi - lo)
+    return lo - pad, hi + pad
+
+
+def percentile_interval(values: np.ndarray, level: float) -> tuple[float | None, float | None]:
+    """Percentile interval that keeps infinite draws (no root on one side) as unbounded ends."""
+    v = np.asarray(values, float)
+    v = v[~np.isnan(v)]
+    if len(v) == 0:
+        return (None, None)
+    lo, hi = np.quantile(v, [0.5 - level / 2, 0.5 + level / 2], method="linear") if np.all(np.isfinite(v)) else \
+        _quantile_with_inf(v, level)
+    return (float(lo) if np.isfinite(lo) else None, float(hi) if np.isfinite(hi) else None)
+
+
+def _quantile_with_inf(v: np.ndarray, level: float) -> tuple[float, float]:
+    s = np.sort(v)
+    n = len(s)
+    lo_i = int(math.floor((0.5 - level / 2) * (n - 1)))
+    hi_i = int(math.ceil((0.5 + level / 2) * (n - 1)))
+    return s[lo_i], s[hi_i]
+
+
+def shape_of(lo: float | None, hi: float | None) -> str:
+    if lo is None and hi is None:
+        return "unbounded"
+    if lo is None:
+        return "unbounded_below"
+    if hi is None:
+        return "unbounded_above"
+    return "finite"

@@ -1,0 +1,145 @@
+"""Results JSON v1: built from the fitted set and its summaries, validated against explorer/schema."""
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import json
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from . import CAUTIONS, __version__
+from .breakeven import CurveSummary
+from .spec import Spec, canonical_sha256, spec_to_dict, to_toml
+
+SCHEMA_VERSION = 1
+
+
+def r6(v: Any) -> Any:
+    """Round floats for JSON (stable across platforms), map non-finite to null."""
+    if v is None:
+        return None
+    if isinstance(v, (float, np.floating)):
+        return float(round(float(v), 6)) if np.isfinite(v) else None
+    if isinstance(v, (int, np.integer)) and not isinstance(v, bool):
+        return int(v)
+    return v
+
+
+def measure_words(outcome) -> str:
+    if outcome.kind == "survival":
+        unit = f" {outcome.units}" if outcome.units else ""
+        h = f"{outcome.horizon:g}{unit}"
+        return f"probability alive at {h}" if outcome.measure == "survival" else f"restricted mean survival to {h}"
+    if outcome.kind == "ordinal":
+        return "probability of " + " or ".join(outcome.favourable)
+    if outcome.kind == "binary":
+        return f"probability of {outcome.title}" + ("" if outcome.higher_is_better else " (lower is better)")
+    return f"mean {outcome.title}" + ("" if outcome.higher_is_better else " (lower is better)")
+
+
+def curve_row(pair, summary: CurveSummary, index_info: dict, n_points: int | None = None) -> dict:
+    from .analysis import in_range
+
+    keep = in_range(pair, summary.grid)
+    pts = []
+    fb, sb = summary.first_band, summary.second_band
+    for i in np.flatnonzero(keep):
+        p = {"x": r6(summary.grid[i]), "first": r6(summary.first[i]), "second": r6(summary.second[i]),
+             "difference": r6(summary.difference[i]), "difference_ci": [r6(summary.lower[i]), r6(summary.upper[i])]}
+        if fb is not None:
+            p["first_ci"] = [r6(fb[0][i]), r6(fb[1][i])]
+            p["second_ci"] = [r6(sb[0][i]), r6(sb[1][i])]
+        pts.append(p)
+    arms = list(pair.fits)
+    ref = {}
+    for arm in arms[:1]:
+        f = pair.fits[arm]
+        if getattr(f, "z_names", ()):
+            ref = {n: r6(v) for n, v in zip(f.z_names, f.z_ref)}
+    return {
+        "outcome": pair.outcome.name,
+        "index": pair.index,
+        "measure": measure_words(pair.outcome),
+        "kind": pair.outcome.kind,
+        "higher_is_better": pair.outcome.higher_is_better,
+        "among_survivors": pair.outcome.among_survivors,
+        "range": [r6(pair.x_range[0]), r6(pair.x_range[1])],
+        "n": {arm: int(pair.fits[arm].n_) for arm in arms},
+        "events": {arm: (None if pair.fits[arm].n_events_ is None else int(pair.fits[arm].n_events_)) for arm in arms},
+        "break_even": [b.to_json() for b in summary.break_even],
+        "favours_throughout": summary.favours_throughout,
+        "curve": pts,
+        "clear_difference": [r.to_json() for r in summary.clear_difference],
+        "regions_band": summary.band,
+        "index_info": index_info,
+        "reference": ref,
+        "methods": {arm: getattr(pair.fits[arm], "method_", "") for arm in arms},
+        "warnings": list(dict.fromkeys(pair.warnings + summary.warnings)),
+    }
+
+
+def index_info_json(iv) -> dict:
+    info = dict(iv.info)
+    out = {"kind": info.get("kind"), "label": info.get("label"), "units": info.get("units"),
+           "discrete": bool(info.get("discrete", False)),
+           "percentiles": {str(k): r6(v) for k, v in (info.get("percentiles") or {}).items()}}
+    if "prognostic" in info:
+        out["prognostic"] = _jsonable(info["prognostic"])
+    return out
+
+
+def _jsonable(obj: Any) -> Any:
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [_jsonable(v) for v in obj.tolist()]
+    return r6(obj) if isinstance(obj, (float, int, np.floating, np.integer)) else obj
+
+
+def document(spec: Spec, *, data_sha256: str, spec_bytes: bytes | None, rows: list[dict], composite: list[dict],
+             selection: list[dict], warnings: list[str], extra: dict | None = None) -> dict:
+    if spec_bytes is None:
+        spec_bytes = to_toml(spec).encode()
+    doc = {
+        "schema_version": SCHEMA_VERSION,
+        "tool": {"name": "fulcrum", "version": __version__,
+                 "generated_at": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")},
+        "inputs": {"spec_sha256": hashlib.sha256(spec_bytes).hexdigest(), "data_sha256": data_sha256,
+                   "spec_canonical_sha256": canonical_sha256(spec), "seed": spec.analysis.seed,
+                   "interval": spec.analysis.interval, "level": spec.analysis.level,
+                   "margin": spec.analysis.margin},
+        "arms": list(spec.cohort.arms),
+        "spec": spec_to_dict(spec),
+        "results": rows,
+        "composite": composite,
+        "selection": selection,
+        "warnings": list(dict.fromkeys(warnings)),
+        "cautions": list(CAUTIONS),
+    }
+    if extra:
+        doc.update(extra)
+    return doc
+
+
+def dumps(doc: dict) -> str:
+    return json.dumps(doc, indent=1, ensure_ascii=False, allow_nan=False)
+
+
+def schema() -> dict:
+    return json.loads(resources.files("explorer.schema").joinpath("results.schema.json").read_text())
+
+
+def validate(doc: dict) -> None:
+    """Raise jsonschema.ValidationError when the document does not follow the schema."""
+    import jsonschema
+
+    jsonschema.validate(doc, schema())
+
+
+def write(doc: dict, path: str | Path) -> None:
+    Path(path).write_text(dumps(doc) + "\n", encoding="utf-8")

@@ -1,0 +1,1 @@
+"""JSON Schema of the results document (results.schema.json)."""

@@ -1,0 +1,487 @@
+"""Hierarchical pairwise comparison (generalized pairwise comparisons, Buyse 2010) along an index.
+
+Every first-arm patient meets every second-arm patient; outcomes are tried in priority order and the
+first one that separates the two decides the pair. Win ratio (Pocock 2012), win odds (Dong 2020) and
+net benefit (Buyse 2010) come with percentile bootstrap intervals, overall and in overlapping windows.
+
+A pair's verdict depends on the two patients only, so a bootstrap replicate (resampling within arm)
+is the decision matrix weighted by how often each patient was drawn: the verdicts are computed once
+and each replicate costs a matrix product, not a new comparison.
+"""
+from __future__ import annotations
+
+import functools
+import math
+from dataclasses import dataclass
+from typing import Any, Sequence
+
+import numpy as np
+import pandas as pd
+
+from .breakeven import percentile_interval
+from .errors import FulcrumError, format_rows
+from .resampling import Progress, run_replicates
+from .results import r6
+from .spec import OutcomeSpec, Spec
+
+RULE_KINDS = ("survival", "ordinal", "continuous", "binary")
+BLOCK_ELEMENTS = 1 << 20
+MAX_PAIRS = 50_000_000
+MAX_WINDOWS = 100
+STEP_FRACTION = 0.5
+REPLICATE_CHUNK = 25
+FEW = 10
+
+
+@dataclass(frozen=True)
+class Rule:
+    """One priority level: which outcome, how it separates two patients, and when it cannot."""
+
+    name: str
+    kind: str
+    higher_is_better: bool = True
+    threshold: float = 0.0
+    horizon: float | None = None
+    label: str | None = None
+    among_survivors: bool = False
+
+    def __post_init__(self) -> None:
+        if self.kind not in RULE_KINDS:
+            raise FulcrumError(f"pairwise rule '{self.name}' has kind '{self.kind}'.", key="pairwise.priority",
+                               hint=f"Use one of {', '.join(RULE_KINDS)}.")
+        if not self.threshold >= 0:
+            raise FulcrumError(f"pairwise rule '{self.name}' has threshold {self.threshold}.",
+                               key="pairwise.priority", hint="Use a threshold of 0 or more.")
+
+    @property
+    def title(self) -> str:
+        return self.label or self.name
+
+    def describe(self) -> str:
+        if self.kind == "survival":
+            within = f" within {self.horizon:g}" if self.horizon is not None else ""
+            return f"observed death{within} while the other patient is known to have lived longer"
+        if self.kind == "ordinal":
+            return f"better {self.title} level"
+        side = "higher" if self.higher_is_better else "lower"
+        by = f" by more than {self.threshold:g}" if self.threshold > 0 else ""
+        return f"{side} {self.title}{by}"
+
+
+@dataclass(frozen=True)
+class PatientTable:
+    """One arm's outcome values per rule name: survival (n, 2) time and event, otherwise (n,) with NaN missing."""
+
+    columns: dict[str, np.ndarray]
+
+    def __len__(self) -> int:
+        return len(next(iter(self.columns.values()))) if self.columns else 0
+
+    def take(self, rows: np.ndarray) -> PatientTable:
+        return PatientTable({k: v[rows] for k, v in self.columns.items()})
+
+
+@dataclass(frozen=True)
+class PairwiseResult:
+    """Counts for the first arm: wins and losses decided at each priority level, over all pairs."""
+
+    priority: tuple[Rule, ...]
+    wins_by_level: tuple[int, ...]
+    losses_by_level: tuple[int, ...]
+    pairs: int
+
+    @property
+    def wins(self) -> int:
+        return int(sum(self.wins_by_level))
+
+    @property
+    def losses(self) -> int:
+        return int(sum(self.losses_by_level))
+
+    @property
+    def ties(self) -> int:
+        return self.pairs - self.wins - self.losses
+
+    @property
+    def win_ratio(self) -> float:
+        return float(statistics(self.wins, self.losses, self.pairs)["win_ratio"])
+
+    @property
+    def win_odds(self) -> float:
+        return float(statistics(self.wins, self.losses, self.pairs)["win_odds"])
+
+    @property
+    def net_benefit(self) -> float:
+        return float(statistics(self.wins, self.losses, self.pairs)["net_benefit"])
+
+
+def statistics(wins: Any, losses: Any, pairs: Any) -> dict[str, np.ndarray]:
+    """Win ratio, win odds and net benefit (inf where the denominator is 0 and the numerator is not)."""
+    w, lo, p = (np.asarray(v, float) for v in (wins, losses, pairs))
+    t = p - w - lo
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return {"win_ratio": w / lo, "win_odds": (w + 0.5 * t) / (lo + 0.5 * t), "net_benefit": (w - lo) / p}
+
+
+# ------------------------------------------------------------------------------------------
+# Pair verdicts
+# ------------------------------------------------------------------------------------------
+def _separate(rule: Rule, a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Boolean (len(a), len(b)) matrices: first patient better, first patient worse, at this level."""
+    if rule.kind == "survival":
+        ti, di = a[:, 0:1], a[:, 1:2]
+        tj, dj = b[None, :, 0], b[None, :, 1]
+        horizon = math.inf if rule.horizon is None else rule.horizon
+        win = (dj == 1) & (tj <= horizon) & (ti > tj)
+        loss = (di == 1) & (ti <= horizon) & (tj > ti)
+        return win, loss
+    diff = a[:, None] - b[None, :]
+    if rule.kind == "ordinal" or not rule.higher_is_better:
+        diff = -diff
+    return diff > rule.threshold, diff < -rule.threshold
+
+
+def decisions(first: PatientTable, second: PatientTable, priority: Sequence[Rule]) -> np.ndarray:
+    """int8 (n_first, n_second): +k where the first patient wins at level k (1-based), -k where it loses, 0 tied."""
+    if len(priority) > 127:
+        raise FulcrumError(f"{len(priority)} pairwise priority levels is more than 127.", key="pairwise.priority",
+                           hint="Name fewer outcomes.")
+    n1, n2 = len(first), len(second)
+    out = np.zeros((n1, n2), np.int8)
+    rows = max(1, BLOCK_ELEMENTS // max(n2, 1))
+    for s in range(0, n1, rows):
+        block = out[s:s + rows]
+        for k, rule in enumerate(priority, 1):
+            win, loss = _separate(rule, first.columns[rule.name][s:s + rows], second.columns[rule.name])
+            verdict = win.astype(np.int8) - loss.astype(np.int8)
+            block[...] = np.where(block != 0, block, verdict * np.int8(k))
+    return out
+
+
+def count_decisions(d: np.ndarray, levels: int) -> tuple[np.ndarray, np.ndarray]:
+    """Wins and losses per level from a decision matrix."""
+    counts = np.bincount((d.ravel().astype(np.int16) + levels), minlength=2 * levels + 1)
+    return counts[levels + 1:], counts[:levels][::-1]
+
+
+def pairwise_compare(first: PatientTable, second: PatientTable, priority: Sequence[Rule]) -> PairwiseResult:
+    """Compare every first-arm patient with every second-arm patient in the given priority order."""
+    d = decisions(first, second, priority)
+    wins, losses = count_decisions(d, len(priority))
+    return PairwiseResult(tuple(priority), tuple(int(v) for v in wins), tuple(int(v) for v in losses),
+                          len(first) * len(second))
+
+
+# ------------------------------------------------------------------------------------------
+# Bootstrap by case weights
+# ------------------------------------------------------------------------------------------
+def resample_counts(rng: np.random.Generator, sizes: Sequence[tuple[int, int]]) -> list[tuple[np.ndarray, ...]]:
+    """One replicate: for each group, how often each first- and second-arm patient is drawn (within arm)."""
+    return [tuple(np.bincount(rng.integers(0, n, n), minlength=n).astype(np.uint16) for n in pair)
+            for pair in sizes]
+
+
+def weighted_counts(d: np.ndarray, levels: int, a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Wins and losses per level (R, levels) when patients carry draw counts a (R, n1) and b (R, n2)."""
+    r = a.shape[0]
+    wins, losses = np.zeros((r, levels)), np.zeros((r, levels))
+    a32, b32 = a.astype(np.float32), b.astype(np.float32)
+    rows = max(1, BLOCK_ELEMENTS // max(d.shape[1], 1))
+    for s in range(0, d.shape[0], rows):
+        block, wa = d[s:s + rows], a32[:, s:s + rows]
+        for k in range(1, levels + 1):
+            for code, out in ((k, wins), (-k, losses)):
+                hit = block == code
+                if hit.any():
+                    out[:, k - 1] += ((wa @ hit.astype(np.float32)) * b32).sum(axis=1, dtype=np.float64)
+    return wins, losses
+
+
+def bootstrap(groups: Sequence[np.ndarray], levels: int, replicates: int, seed: int,
+              progress: Progress | None = None) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Per group (a decision matrix), replicate wins and losses by level, resampling patients within arm.
+
+    Each replicate draws from its own seed (explorer.resampling), so it does not depend on chunking.
+    """
+    sizes = [g.shape for g in groups]
+    draws = run_replicates(functools.partial(resample_counts, sizes=sizes), replicates, seed)
+    out = [(np.zeros((replicates, levels)), np.zeros((replicates, levels))) for _ in groups]
+    for start in range(0, replicates, REPLICATE_CHUNK):
+        chunk = draws[start:start + REPLICATE_CHUNK]
+        for g, d in enumerate(groups):
+            a = np.stack([rep[g][0] for rep in chunk])
+            b = np.stack([rep[g][1] for rep in chunk])
+            w, lo = weighted_counts(d, levels, a, b)
+            out[g][0][start:start + len(chunk)] = w
+            out[g][1][start:start + len(chunk)] = lo
+        if progress:
+            progress(min(start + REPLICATE_CHUNK, replicates), replicates)
+    return out
+
+
+# ------------------------------------------------------------------------------------------
+# From the spec and the cohort
+# ------------------------------------------------------------------------------------------
+def default_priority(spec: Spec) -> tuple[str, ...]:
+    """Survival, then the ordinal function outcome, then quality of life among survivors (when present).
+
+    The [values] outcomes are preferred where named; with none of these kinds, every outcome in spec order.
+    """
+    v = spec.values
+    by_kind = {kind: [o for o in spec.outcomes if o.kind == kind] for kind in ("survival", "ordinal")}
+    survival = (v.survival_outcome if v and v.survival_outcome else
+                by_kind["survival"][0].name if by_kind["survival"] else None)
+    ordinal = (v.outcome if v and spec.outcome(v.outcome).kind == "ordinal" else
+               by_kind["ordinal"][0].name if by_kind["ordinal"] else None)
+    qol = v.utility_outcome if v and v.utility_outcome else next(
+        (o.name for o in spec.outcomes if o.kind == "continuous" and o.among_survivors), None)
+    names = tuple(n for n in (survival, ordinal, qol) if n)
+    return names or tuple(o.name for o in spec.outcomes)
+
+
+def rule_for(outcome: OutcomeSpec, threshold: float = 0.0) -> Rule:
+    return Rule(outcome.name, outcome.kind, higher_is_better=outcome.higher_is_better, threshold=threshold,
+                horizon=outcome.horizon if outcome.kind == "survival" else None, label=outcome.label,
+                among_survivors=outcome.among_survivors)
+
+
+def rules_for(spec: Spec, priority: Sequence[str] | None = None) -> list[Rule]:
+    """The priority levels: the given names, else [pairwise].priority, else the default order."""
+    names = tuple(priority or (spec.pairwise.priority if spec.pairwise else ()) or default_priority(spec))
+    known = {o.name: o for o in spec.outcomes}
+    for n in names:
+        if n not in known:
+            raise FulcrumError(f"'pairwise.priority' names '{n}', which is not an outcome of the spec.",
+                               key="pairwise.priority", hint=f"Known outcomes: {', '.join(known)}.")
+    if len(set(names)) != len(names):
+        raise FulcrumError("'pairwise.priority' names an outcome twice.", key="pairwise.priority",
+                           hint="Name each outcome once, most important first.")
+    return [rule_for(known[n]) for n in names]
+
+
+def _column(frame: pd.DataFrame, name: str | None, outcome: OutcomeSpec) -> pd.Series:
+    if name not in frame.columns:
+        raise FulcrumError(f"the cohort has no column '{name}' for outcome '{outcome.name}'.", column=name,
+                           hint="Check the column name in the spec.")
+    return frame[name]
+
+
+def _ordinal_codes(series: pd.Series, outcome: OutcomeSpec) -> np.ndarray:
+    levels = [str(x) for x in outcome.levels]
+    if isinstance(series.dtype, pd.CategoricalDtype) and [str(c) for c in series.cat.categories] == levels:
+        codes = series.cat.codes.to_numpy()
+    else:
+        text = series.astype(object).to_numpy()
+        present = series.notna().to_numpy()
+        codes = np.array([levels.index(str(t)) if str(t) in levels else -2 if ok else -1
+                          for t, ok in zip(text, present)], int)
+        bad = np.flatnonzero(codes == -2)
+        if len(bad):
+            raise FulcrumError(f"'{outcome.column}' holds values that are not levels of '{outcome.name}' "
+                               f"(for example '{text[bad[0]]}').", column=outcome.column, rows=bad + 1,
+                               hint=f"Use only these levels: {', '.join(levels)}.")
+    return np.where(codes < 0, np.nan, codes.astype(float))
+
+
+def patient_table(spec: Spec, frame: pd.DataFrame, rules: Sequence[Rule], rows: np.ndarray) -> PatientTable:
+    """The arrays each rule compares, for the given cohort row positions."""
+    cols = {}
+    for rule in rules:
+        o = spec.outcome(rule.name)
+        if o.kind == "survival":
+            t = pd.to_numeric(_column(frame, o.time, o), errors="coerce").to_numpy(float)
+            e = pd.to_numeric(_column(frame, o.event, o), errors="coerce").to_numpy(float)
+            cols[rule.name] = np.column_stack([t, e])[rows]
+        elif o.kind == "ordinal":
+            cols[rule.name] = _ordinal_codes(_column(frame, o.column, o), o)[rows]
+        else:
+            cols[rule.name] = pd.to_numeric(_column(frame, o.column, o), errors="coerce").to_numpy(float)[rows]
+    return PatientTable(cols)
+
+
+def missing_counts(table: PatientTable) -> dict[str, int]:
+    return {name: int(np.isnan(v).any(axis=1).sum() if v.ndim == 2 else np.isnan(v).sum())
+            for name, v in table.columns.items()}
+
+
+def index_windows(x: np.ndarray, size: int, *, step_fraction: float = STEP_FRACTION,
+                  max_windows: int = MAX_WINDOWS) -> list[np.ndarray]:
+    """Row positions of overlapping windows of `size` patients along x, sliding by step_fraction * size.
+
+    Patients without an index value are left out; ties in x keep row order. The last window ends at the
+    top of the index, and the windows are spread evenly when there would be more than max_windows.
+    """
+    if size < 2:
+        raise FulcrumError(f"a pairwise window of {size} patients is too small.", key="pairwise.window",
+                           hint="Use at least 2 (a few hundred is usual).")
+    x = np.asarray(x, float)
+    finite = np.flatnonzero(np.isfinite(x))
+    order = finite[np.argsort(x[finite], kind="stable")]
+    n = len(order)
+    if n == 0:
+        return []
+    if n <= size:
+        return [order]
+    step = max(1, int(round(size * step_fraction)))
+    starts = list(range(0, n - size + 1, step))
+    if starts[-1] != n - size:
+        starts.append(n - size)
+    if len(starts) > max_windows:
+        starts = sorted(set(np.round(np.linspace(0, n - size, max_windows)).astype(int).tolist()))
+    return [order[s:s + size] for s in starts]
+
+
+# ------------------------------------------------------------------------------------------
+# JSON rows
+# ------------------------------------------------------------------------------------------
+@dataclass
+class _Group:
+    window: dict | None
+    first: PatientTable
+    second: PatientTable
+    warnings: list[str]
+    d: np.ndarray | None = None
+
+
+def _subsample(group: _Group, seed: int, where: str) -> None:
+    n1, n2 = len(group.first), len(group.second)
+    if n1 * n2 <= MAX_PAIRS:
+        return
+    f = math.sqrt(MAX_PAIRS / (n1 * n2))
+    rng = np.random.default_rng(seed)
+    m1, m2 = max(1, int(n1 * f)), max(1, int(n2 * f))
+    group.first = group.first.take(np.sort(rng.choice(n1, m1, replace=False)))
+    group.second = group.second.take(np.sort(rng.choice(n2, m2, replace=False)))
+    group.warnings.append(f"{where}: {n1:,} x {n2:,} pairs is more than {MAX_PAIRS:,}; the comparison uses a "
+                          f"random {m1:,} x {m2:,} subsample of patients (seed {seed}).")
+
+
+def _interval(values: np.ndarray, level: float) -> list[float | None]:
+    lo, hi = percentile_interval(values, level)
+    return [r6(lo), r6(hi)]
+
+
+def _row(group: _Group, rules: Sequence[Rule], arms: tuple[str, str], index_name: str | None,
+         boot: tuple[np.ndarray, np.ndarray] | None, level: float, replicates: int) -> dict:
+    n1, n2 = len(group.first), len(group.second)
+    row: dict[str, Any] = {"index": index_name, "window": group.window, "n_first": n1, "n_second": n2,
+                           "priority": [r.name for r in rules], "interval": "bootstrap-percentile" if boot else None,
+                           "replicates": replicates if boot else 0, "level": level, "warnings": group.warnings}
+    if group.d is None:
+        empty = [a for a, n in zip(arms, (n1, n2)) if n == 0]
+        group.warnings.append(f"no {' or '.join(empty)} patients here; nothing to compare.")
+        row.update({k: None for k in ("wins", "losses", "ties", "pairs", "win_ratio", "win_odds", "net_benefit",
+                                      "favours")})
+        row.update({f"{k}_ci": [None, None] for k in ("win_ratio", "win_odds", "net_benefit")})
+        row["by_level"] = []
+        return row
+    w, lo = count_decisions(group.d, len(rules))
+    pairs = n1 * n2
+    res = PairwiseResult(tuple(rules), tuple(int(v) for v in w), tuple(int(v) for v in lo), pairs)
+    point = statistics(res.wins, res.losses, pairs)
+    draws = statistics(boot[0].sum(axis=1), boot[1].sum(axis=1), pairs) if boot else None
+    row.update({"wins": res.wins, "losses": res.losses, "ties": res.ties, "pairs": pairs})
+    for key, value in point.items():
+        row[key] = r6(float(value))
+        row[f"{key}_ci"] = _interval(draws[key], level) if draws else [None, None]
+    if res.losses == 0:
+        group.warnings.append(f"{arms[0]} loses no pair here, so the win ratio is unbounded.")
+    if draws is not None and np.isnan(draws["win_ratio"]).any():
+        k = int(np.isnan(draws["win_ratio"]).sum())
+        group.warnings.append(f"{k} of {replicates} bootstrap replicates had neither wins nor losses; the win "
+                              f"ratio interval leaves them out.")
+    nb_ci = row["net_benefit_ci"]
+    row["favours"] = (arms[0] if nb_ci[0] is not None and nb_ci[0] > 0 else
+                      arms[1] if nb_ci[1] is not None and nb_ci[1] < 0 else None)
+    row["by_level"] = [{"outcome": rule.name, "kind": rule.kind, "rule": rule.describe(), "wins": int(w[k]),
+                        "losses": int(lo[k]), "net_benefit": r6((w[k] - lo[k]) / pairs),
+                        "net_benefit_ci": (_interval((boot[0][:, k] - boot[1][:, k]) / pairs, level) if boot
+                                           else [None, None]),
+                        "conditional_on_survival": rule.among_survivors} for k, rule in enumerate(rules)]
+    return row
+
+
+def _missing_warnings(rules: Sequence[Rule], arms: tuple[str, str], tables: Sequence[PatientTable]) -> list[str]:
+    out = []
+    counts = [missing_counts(t) for t in tables]
+    for rule in rules:
+        parts = [f"{c[rule.name]} {arm}" for arm, c in zip(arms, counts) if c[rule.name]]
+        if parts:
+            out.append(f"{rule.title}: {' and '.join(parts)} patients have no value; their pairs go on to the "
+                       f"next priority (or end tied).")
+        if rule.among_survivors:
+            out.append(f"{rule.title} is measured only in survivors (conditional on survival, truncation by death);"
+                       f" it decides only pairs that earlier levels left undecided.")
+    return out
+
+
+def pairwise_rows(spec: Spec, cohort: Any, index_name: str | None = None, index_values: Any = None, *,
+                  replicates: int = 200, seed: int | None = None, level: float | None = None,
+                  window: int | None = None, priority: Sequence[str] | None = None,
+                  progress: Progress | None = None) -> list[dict]:
+    """JSON rows of the pairwise comparison: the whole cohort first, then each window along the index.
+
+    `index_values` is aligned with `cohort.frame` rows (an array or an object with `.values`); without
+    it only the overall row is made. Patients without an index value are left out of the windows only.
+    """
+    frame: pd.DataFrame = cohort.frame
+    arms = (spec.first, spec.second)
+    rules = rules_for(spec, priority)
+    seed = spec.analysis.seed if seed is None else seed
+    level = spec.analysis.level if level is None else level
+    size = window or (spec.pairwise.window if spec.pairwise else 300)
+    if replicates < 0:
+        raise FulcrumError(f"{replicates} bootstrap replicates asked for.", key="analysis.replicates",
+                           hint="Use 0 (no intervals) or more.")
+    arm_col = frame[spec.cohort.arm].astype(str).to_numpy()
+    arm_rows = {a: np.flatnonzero(arm_col == a) for a in arms}
+    for a, r in arm_rows.items():
+        if len(r) == 0:
+            raise FulcrumError(f"no patients in arm '{a}', so there are no pairs to compare.",
+                               column=spec.cohort.arm, hint=f"Check the arm labels in [cohort] arms: {arms}.")
+    tables = {a: patient_table(spec, frame, rules, r) for a, r in arm_rows.items()}
+    overall = _Group(None, tables[arms[0]], tables[arms[1]], _missing_warnings(rules, arms, list(tables.values())))
+    _subsample(overall, seed, "the whole cohort")
+    groups = [overall]
+    if index_values is not None:
+        x = np.asarray(getattr(index_values, "values", index_values), float)
+        if len(x) != len(frame):
+            raise FulcrumError(f"the index '{index_name}' has {len(x)} values for {len(frame)} patients.",
+                               key=f"indices.{index_name}", hint="Compute the index on the same cohort.")
+        groups.extend(_window_groups(x, size, arm_col, arms, tables, arm_rows, overall, seed, index_name))
+    for g in groups:
+        if len(g.first) and len(g.second):
+            g.d = decisions(g.first, g.second, rules)
+    ready = [g for g in groups if g.d is not None]
+    boots = bootstrap([g.d for g in ready], len(rules), replicates, seed, progress) if replicates else None
+    by_group = {id(g): b for g, b in zip(ready, boots)} if boots else {}
+    return [_row(g, rules, arms, index_name, by_group.get(id(g)), level, replicates) for g in groups]
+
+
+def _window_groups(x: np.ndarray, size: int, arm_col: np.ndarray, arms: tuple[str, str],
+                   tables: dict[str, PatientTable], arm_rows: dict[str, np.ndarray], overall: _Group, seed: int,
+                   index_name: str | None) -> list[_Group]:
+    where = {a: np.full(len(x), -1) for a in arms}
+    for a in arms:
+        where[a][arm_rows[a]] = np.arange(len(arm_rows[a]))
+    no_index = np.flatnonzero(~np.isfinite(x))
+    if len(no_index):
+        overall.warnings.append(f"{len(no_index)} patients have no {index_name} value ({format_rows(no_index + 1)})"
+                                f"; they count in the whole-cohort comparison but in no window.")
+    windows = index_windows(x, size)
+    if windows and len(windows[0]) < size:
+        overall.warnings.append(f"only {len(windows[0])} patients have a {index_name} value, fewer than the window of "
+                                f"{size}; the one window holds them all.")
+    out = []
+    for rows in windows:
+        xs = x[rows]
+        sub = {a: where[a][rows[arm_col[rows] == a]] for a in arms}
+        info = {"from": r6(float(xs.min())), "to": r6(float(xs.max())), "median": r6(float(np.median(xs))),
+                "n_first": len(sub[arms[0]]), "n_second": len(sub[arms[1]])}
+        g = _Group(info, tables[arms[0]].take(sub[arms[0]]), tables[arms[1]].take(sub[arms[1]]), [])
+        few = [f"{len(sub[a])} {a}" for a in arms if 0 < len(sub[a]) < FEW]
+        if few:
+            g.warnings.append(f"only {' and '.join(few)} patients in this window; its interval is wide and rough.")
+        _subsample(g, seed, f"the window {info['from']:g} to {info['to']:g}")
+        out.append(g)
+    return out

@@ -1,0 +1,250 @@
+"""Proportional odds (cumulative logit) per arm: logit P(Y <= k) = theta_k - eta, levels best first.
+
+Higher eta means worse levels. Parameters are the natural cut-points theta_1 < ... < theta_{K-1}
+followed by the coefficients; the log-likelihood is concave in them (Pratt 1981), so Newton-Raphson
+with step halving that refuses any step breaking the order converges from the marginal start.
+Levels nobody in the arm reached are left out of the fit and given probability 0.
+"""
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+from scipy.special import expit
+
+from ..errors import FulcrumError
+from .base import Basis, OutcomeData
+from .common import (ArmFit, check_rank, inverse, linear_pair, newton, prepare, quad_form, sandwich,
+                     standardised_size)
+from .glm import SEPARATION_SIZE, fit_logistic
+
+PO_ALPHA = 0.01
+
+
+def _cell_terms(theta: np.ndarray, eta: np.ndarray, y: np.ndarray):
+    """Per row: a = theta_y - eta, b = theta_{y-1} - eta (infinite at the ends) and their F, f, f', cell p."""
+    up = np.r_[theta, np.inf][y] - eta
+    lo = np.r_[-np.inf, theta][y] - eta
+    Fa, Fb = expit(up), expit(lo)
+    fa, fb = Fa * (1 - Fa), Fb * (1 - Fb)
+    # the cell probability from whichever tail keeps precision
+    p = np.where(up + lo > 0, expit(-lo) - expit(-up), Fa - Fb)
+    return Fa, Fb, fa, fb, p
+
+
+def ordinal_loglik(X: np.ndarray, y: np.ndarray, w: np.ndarray, K: int):
+    """fun(params) -> (loglik, gradient, Hessian) with params = (theta_1..theta_{K-1}, beta)."""
+    m = K - 1
+
+    def fun(params: np.ndarray):
+        theta, beta = params[:m], params[m:]
+        if np.any(np.diff(theta) <= 0):
+            return -np.inf, None, None
+        eta = X @ beta
+        Fa, Fb, fa, fb, p = _cell_terms(theta, eta, y)
+        if np.any(p <= 0):
+            return -np.inf, None, None
+        ll = float(w @ np.log(p))
+        da, db = fa / p, -fb / p
+        faa = fa * (1 - 2 * Fa) / p - da ** 2
+        fbb = -fb * (1 - 2 * Fb) / p - db ** 2
+        fab = -da * db
+        top, bot = y < m, y > 0
+        g = np.zeros(m + X.shape[1])
+        g[:m] = np.bincount(y[top], weights=(w * da)[top], minlength=m)[:m] + \
+            np.bincount(y[bot] - 1, weights=(w * db)[bot], minlength=m)
+        g[m:] = -X.T @ (w * (da + db))
+        H = np.zeros((len(g), len(g)))
+        H[:m, :m] = np.diag(np.bincount(y[top], weights=(w * faa)[top], minlength=m)[:m]
+                            + np.bincount(y[bot] - 1, weights=(w * fbb)[bot], minlength=m))
+        mid = top & bot
+        off = np.bincount(y[mid] - 1, weights=(w * fab)[mid], minlength=m)[:m - 1]
+        H[np.arange(1, m), np.arange(m - 1)] = off
+        H[np.arange(m - 1), np.arange(1, m)] = off
+        ca, cb = w * (faa + fab), w * (fab + fbb)
+        cross = -(_by_level(X[top], y[top], ca[top], m) + _by_level(X[bot], y[bot] - 1, cb[bot], m))
+        H[:m, m:] = cross
+        H[m:, :m] = cross.T
+        H[m:, m:] = (X.T * (w * (faa + 2 * fab + fbb))) @ X
+        return ll, g, H
+
+    return fun
+
+
+def _by_level(X: np.ndarray, level: np.ndarray, weight: np.ndarray, m: int) -> np.ndarray:
+    """(m, p) sums of weight * X over the rows at each level."""
+    return np.stack([np.bincount(level, weights=weight * col, minlength=m)[:m] for col in X.T], axis=1)
+
+
+def ordinal_scores(X: np.ndarray, y: np.ndarray, theta: np.ndarray, beta: np.ndarray) -> np.ndarray:
+    """Per-row gradients of the log-likelihood (unweighted), for sandwich covariances."""
+    m = len(theta)
+    _, _, fa, fb, p = _cell_terms(theta, X @ beta, y)
+    da, db = fa / p, -fb / p
+    S = np.zeros((len(y), m + X.shape[1]))
+    top, bot = np.flatnonzero(y < m), np.flatnonzero(y > 0)
+    S[top, y[top]] += da[top]
+    S[bot, y[bot] - 1] += db[bot]
+    S[:, m:] = -X * (da + db)[:, None]
+    return S
+
+
+class OrdinalFit(ArmFit):
+    """A fitted per-arm proportional odds model; measure = P(a favourable level)."""
+
+    def __init__(self, outcome: str, arm: str, basis: Basis, data: OutcomeData, levels: tuple[str, ...],
+                 favourable: tuple[str, ...], start: np.ndarray | None = None, robust: bool = False,
+                 checks: bool = True) -> None:
+        prep = prepare(basis, data, arm, outcome)
+        self._init_common(arm, outcome, basis, prep)
+        self.levels = tuple(levels)
+        K = len(levels)
+        fav = np.isin(np.arange(K), [levels.index(f) for f in favourable])
+        self.favourable_mask_ = fav
+        y = self._codes(data, K)
+        used = prep.w > 0
+        present = np.bincount(y[used], minlength=K) > 0
+        self.observed_ = np.flatnonzero(present)
+        if len(self.observed_) < 2:
+            raise FulcrumError(f"outcome '{outcome}': every patient in arm '{arm}' is in the same level "
+                               f"('{levels[self.observed_[0]]}'), so no model can be fitted.",
+                               hint="Check the level coding, or leave this outcome out for this comparison.")
+        missing = [levels[k] for k in range(K) if not present[k]]
+        if missing:
+            self.warnings_.append(f"No patient in arm '{arm}' is in level(s) {', '.join(missing)}; the model uses "
+                                  "the levels seen in this arm and gives the others probability 0.")
+        yk = np.searchsorted(self.observed_, y)
+        yk = np.where(used, yk, 0)
+        Ko = len(self.observed_)
+        m = Ko - 1
+        check_rank(prep.X, prep.names, arm, outcome, prep.w)
+        self.param_names_ = tuple(f"cut {levels[self.observed_[j]]}|{levels[self.observed_[j + 1]]}"
+                                  for j in range(m)) + prep.names
+        fun = ordinal_loglik(prep.X, yk, prep.w, Ko)
+        params0 = self._start(yk, prep.w, Ko, prep.X.shape[1], start, fun)
+        params, ll, g, H, it, ok = newton(fun, params0)
+        self.params_, self.loglik_, self.iterations_ = params, ll, it
+        self.cov_ = inverse(-H)
+        if robust:
+            self.cov_ = sandwich(self.cov_, ordinal_scores(prep.X, yk, params[:m], params[m:]), prep.w, prep.cluster)
+            self.robust_ = True
+        spread = np.diff(params[:m]).max() if m > 1 else 0.0
+        separated = standardised_size(params[m:], prep.X, prep.w) > SEPARATION_SIZE or spread > 4 * SEPARATION_SIZE
+        self.converged_ = ok and not separated
+        if not self.converged_:
+            self.warnings_.append(f"The proportional odds model in arm '{arm}' did not settle: some index values "
+                                  "predict the level perfectly (separation), so its estimates are unreliable.")
+        self.n_events_ = None
+        if checks and m >= 2:
+            self._po_check(prep.X, yk, prep.w, m)
+        self.method_ = (f"Proportional odds (cumulative logit) model in arm '{arm}', {self._shape_words()}"
+                        f"{self._held_at()}{self._cov_words()}; probability of "
+                        f"{' or '.join(favourable)}.")
+
+    def _codes(self, data: OutcomeData, K: int) -> np.ndarray:
+        if data.y is None:
+            raise FulcrumError(f"outcome '{self.outcome}', arm '{self.arm}': the level codes are missing.",
+                               hint="Pass complete cases for this outcome.")
+        raw = np.asarray(data.y, float).reshape(-1)
+        bad = np.flatnonzero(~np.isfinite(raw) | (raw != np.round(raw)) | (raw < 0) | (raw > K - 1))
+        if len(bad):
+            raise FulcrumError(f"outcome '{self.outcome}', arm '{self.arm}': level codes must be whole numbers "
+                               f"0 to {K - 1} (best first).", rows=bad + 1, hint="Map each level name to its position.")
+        return raw.astype(int)
+
+    @staticmethod
+    def _start(y, w, K, p, start, fun) -> np.ndarray:
+        if start is not None and np.shape(start) == (K - 1 + p,) and np.isfinite(fun(np.asarray(start, float))[0]):
+            return np.asarray(start, float)
+        cum = np.cumsum(np.bincount(y, weights=w, minlength=K))[:-1] / w.sum()
+        cum = np.clip(cum, 1e-6, 1 - 1e-6)
+        return np.r_[np.log(cum / (1 - cum)), np.zeros(p)]
+
+    def _po_check(self, X: np.ndarray, y: np.ndarray, w: np.ndarray, m: int) -> None:
+        """Brant's Wald test: the slopes of the K-1 binary logits I(Y > k) are equal."""
+        D = np.column_stack([np.ones(len(y)), X])
+        p = X.shape[1]
+        betas, probs, infos = [], [], []
+        for k in range(m):
+            yb = (y > k).astype(float)
+            beta, _, H, _, ok, separated = fit_logistic(D, yb, w)
+            if not ok or separated:
+                self.checks_["proportional_odds"] = {"chi2": None, "df": None, "p": None,
+                                                     "note": f"not run: the binary logit at cut {k + 1} separates"}
+                return
+            betas.append(beta)
+            probs.append(expit(D @ beta))
+            infos.append(inverse(-H))
+        V = np.zeros((m * p, m * p))
+        for k in range(m):
+            for j in range(k, m):
+                mid = probs[j] * (1 - probs[k])
+                blk = infos[k] @ ((D.T * (w * mid)) @ D) @ infos[j]
+                V[k * p:(k + 1) * p, j * p:(j + 1) * p] = blk[1:, 1:]
+                V[j * p:(j + 1) * p, k * p:(k + 1) * p] = blk[1:, 1:].T
+        b = np.concatenate([bb[1:] for bb in betas])
+        C = np.zeros(((m - 1) * p, m * p))
+        for k in range(1, m):
+            C[(k - 1) * p:k * p, :p] = np.eye(p)
+            C[(k - 1) * p:k * p, k * p:(k + 1) * p] = -np.eye(p)
+        diff = C @ b
+        chi2 = float(diff @ np.linalg.pinv(C @ V @ C.T) @ diff)
+        dof = (m - 1) * p
+        pval = float(stats.chi2.sf(chi2, dof))
+        self.checks_["proportional_odds"] = {"chi2": chi2, "df": dof, "p": pval}
+        if pval < PO_ALPHA:
+            self.warnings_.append(f"Proportional odds look doubtful in arm '{self.arm}' (Brant's test comparing "
+                                  f"the binary logits at each cut: chi-square {chi2:.1f} on {dof} df, "
+                                  f"p = {pval:.2g}).")
+
+    # ---- predictions -------------------------------------------------------------------
+    def _parts(self, x: np.ndarray):
+        R = self.rows(x)
+        m = len(self.observed_) - 1
+        eta = R @ self.params_[m:]
+        F = expit(self.params_[:m][None, :] - eta[:, None])
+        return R, m, F
+
+    def distribution(self, x: np.ndarray) -> np.ndarray:
+        _, m, F = self._parts(x)
+        cum = np.hstack([np.zeros((len(F), 1)), F, np.ones((len(F), 1))])
+        out = np.zeros((len(F), len(self.levels)))
+        out[:, self.observed_] = np.diff(cum, axis=1)
+        return out
+
+    def distribution_jacobian(self, x: np.ndarray) -> np.ndarray:
+        """d P(level) / d params_: (len(x), K, len(params_)), analytic."""
+        R, m, F = self._parts(x)
+        f = F * (1 - F)
+        n, q = len(F), len(self.params_)
+        Jc = np.zeros((n, m + 2, q))
+        Jc[:, 1:m + 1, :m] = f[:, :, None] * np.eye(m)[None]
+        Jc[:, 1:m + 1, m:] = -f[:, :, None] * R[:, None, :]
+        out = np.zeros((n, len(self.levels), q))
+        out[:, self.observed_, :] = np.diff(Jc, axis=1)
+        return out
+
+    def measure(self, x: np.ndarray) -> np.ndarray:
+        return self.distribution(x)[:, self.favourable_mask_].sum(axis=1)
+
+    def measure_var(self, x: np.ndarray) -> np.ndarray:
+        G = self.distribution_jacobian(x)[:, self.favourable_mask_, :].sum(axis=1)
+        return quad_form(G, self.cov_)
+
+    def linear_terms(self) -> tuple[np.ndarray, np.ndarray] | None:
+        """logit P(favourable) = theta_c - eta = c0 + c1 x, when the favourable levels lead the order."""
+        if not self.basis.is_linear:
+            return None
+        c = int(self.favourable_mask_.sum())
+        if not self.favourable_mask_[:c].all():
+            return None
+        j = int(np.searchsorted(self.observed_, c)) - 1
+        m = len(self.observed_) - 1
+        if j < 0 or j >= m:
+            return None
+        q = len(self.params_)
+        g0 = np.zeros(q)
+        g0[j] = 1.0
+        g0[m:] = -self.rows(np.zeros(1))[0]
+        g1 = np.zeros(q)
+        g1[m] = -1.0
+        return np.array([g0 @ self.params_, -self.params_[m]]), linear_pair(self.cov_, g0, g1)

@@ -1,0 +1,702 @@
+"""The app's plain-Python side: column-role guesses, specs built from the user's choices, cache keys,
+saved specs, and a per-session workspace that keeps the last good cohort when an edit fails.
+
+Nothing here imports streamlit, so every rule the pages follow is tested directly.
+"""
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import math
+import re
+from collections import OrderedDict
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+import pandas as pd
+
+from .errors import FulcrumError
+from .spec import Spec, canonical_sha256, parse_spec, parse_spec_text, spec_to_dict, to_toml
+
+APP_SOURCE = "the app's settings"
+NAME_HINTS: dict[str, tuple[str, ...]] = {
+    "arm": ("arm", "group", "treatment", "treat", "trt", "strategy", "management"),
+    "id": ("id", "pid", "patient_id", "patientid", "subject", "subject_id", "record", "study_id", "mrn"),
+    "allocation": ("allocation", "allocated", "assignment", "assigned", "randomised", "randomized", "route"),
+    "cluster": ("hospital", "site", "centre", "center", "cluster", "unit", "trust"),
+    "time": ("time", "days", "followed", "follow", "futime", "fu", "survival", "months", "years", "duration"),
+    "event": ("event", "died", "dead", "death", "status", "fustat", "deceased"),
+    "index": ("cfs", "frail", "frailty", "age", "score", "index", "risk", "asa", "lactate", "albumin"),
+}
+DEATH_WORDS = ("dead", "death", "died", "deceased")
+RANDOM_WORDS = ("random", "rct", "trial")
+MAX_LEVELS = 12
+
+
+# ------------------------------------------------------------------------------------------
+# Guessing column roles
+# ------------------------------------------------------------------------------------------
+@dataclass
+class Guess:
+    """The app's first guess at each column's role; the user confirms or changes every one."""
+
+    arm: str | None = None
+    arms: tuple[str, ...] = ()
+    id: str | None = None
+    allocation: str | None = None
+    randomised: str | None = None
+    cluster: str | None = None
+    time: str | None = None
+    event: str | None = None
+    horizon: float | None = None
+    ordinal: dict[str, tuple[str, ...]] = field(default_factory=dict)
+    binary: tuple[str, ...] = ()
+    continuous: tuple[str, ...] = ()
+    indices: tuple[str, ...] = ()
+
+
+def _words(name: str) -> set[str]:
+    low = str(name).lower()
+    return {low, *re.split(r"[^a-z0-9]+", low)} - {""}
+
+
+def _hint(name: str, role: str) -> int:
+    """2 when the column's name is a role word, 1 when it contains one, else 0."""
+    words = _words(name)
+    hints = NAME_HINTS[role]
+    if str(name).lower() in hints:
+        return 2
+    return 1 if words & set(hints) else 0
+
+
+def _values(s: pd.Series) -> list[str]:
+    return [str(v) for v in pd.unique(s.dropna())]
+
+
+def _is_numeric(s: pd.Series) -> bool:
+    if pd.api.types.is_bool_dtype(s):
+        return False
+    if pd.api.types.is_numeric_dtype(s):
+        return True
+    return bool(s.notna().any()) and pd.to_numeric(s.dropna(), errors="coerce").notna().all()
+
+
+def _numbers(s: pd.Series) -> pd.Series:
+    return pd.to_numeric(s, errors="coerce")
+
+
+def _is_binary01(s: pd.Series) -> bool:
+    if not _is_numeric(s):
+        return False
+    v = set(_numbers(s).dropna().unique().tolist())
+    return bool(v) and v <= {0, 1} and len(v) == 2
+
+
+def _best(frame: pd.DataFrame, role: str, ok: Callable[[pd.Series], bool], taken: set[str]) -> str | None:
+    """The column with the strongest name hint for the role among those that pass `ok`."""
+    ranked = [(_hint(c, role), -i, c) for i, c in enumerate(frame.columns)
+              if c not in taken and _hint(c, role) and ok(frame[c])]
+    return max(ranked)[2] if ranked else None
+
+
+def guess_roles(frame: pd.DataFrame) -> Guess:
+    """Guess arm, id, allocation, cluster, survival time and event, outcomes and index candidates."""
+    g = Guess()
+    taken: set[str] = set()
+    n = len(frame)
+
+    def two_values(s: pd.Series) -> bool:
+        return len(_values(s)) == 2
+
+    def randomish(s: pd.Series) -> bool:
+        return two_values(s) and any(any(w in v.lower() for w in RANDOM_WORDS) for v in _values(s))
+
+    g.allocation = _best(frame, "allocation", randomish, taken) or next(
+        (c for c in frame.columns if randomish(frame[c])), None)
+    if g.allocation:
+        taken.add(g.allocation)
+        g.randomised = next(v for v in _values(frame[g.allocation]) if any(w in v.lower() for w in RANDOM_WORDS))
+    g.arm = _best(frame, "arm", lambda s: two_values(s) and not _is_binary01(s), taken) or next(
+        (c for c in frame.columns if c not in taken and two_values(frame[c]) and not _is_numeric(frame[c])), None)
+    if g.arm:
+        taken.add(g.arm)
+        g.arms = tuple(sorted(_values(frame[g.arm]), key=lambda v: -int((frame[g.arm].astype(str) == v).sum())))
+    g.id = _best(frame, "id", lambda s: s.notna().all() and s.is_unique, taken)
+    if g.id:
+        taken.add(g.id)
+    g.event = _best(frame, "event", _is_binary01, taken)
+    if g.event:
+        taken.add(g.event)
+        g.time = _best(frame, "time", lambda s: _is_numeric(s) and bool((_numbers(s).dropna() > 0).all()), taken)
+        if g.time:
+            taken.add(g.time)
+            g.horizon = nice_horizon(_numbers(frame[g.time]).dropna().to_numpy(float))
+    g.cluster = _best(frame, "cluster", lambda s: not _is_numeric(s) and 2 <= len(_values(s)) <= max(2, n // 5),
+                      taken)
+    if g.cluster:
+        taken.add(g.cluster)
+    rest = [c for c in frame.columns if c not in taken]
+    g.ordinal = {c: guess_levels(frame[c]) for c in rest
+                 if not _is_numeric(frame[c]) and 3 <= len(_values(frame[c])) <= MAX_LEVELS
+                 and _hint(c, "cluster") == 0}
+    g.binary = tuple(c for c in rest if _is_binary01(frame[c]))
+    numeric = [c for c in rest if _is_numeric(frame[c]) and c not in g.binary]
+    hinted = sorted((c for c in numeric if _hint(c, "index")), key=lambda c: -_hint(c, "index"))
+    g.indices = tuple(hinted)
+    g.continuous = tuple(c for c in numeric if c not in hinted)
+    return g
+
+
+def guess_levels(s: pd.Series) -> tuple[str, ...]:
+    """Level order guess, best first: an ordered categorical's order, else by frequency, death last."""
+    if isinstance(s.dtype, pd.CategoricalDtype) and s.dtype.ordered:
+        levels = [str(v) for v in s.dtype.categories]
+    else:
+        counts = s.dropna().astype(str).value_counts()
+        levels = list(counts.index)
+    dead = [v for v in levels if v.lower() in DEATH_WORDS]
+    return tuple([v for v in levels if v not in dead] + dead)
+
+
+def nice_horizon(times: np.ndarray) -> float | None:
+    """A round follow-up time most patients reach: the median, rounded to 1 or 2 significant figures."""
+    times = times[np.isfinite(times)]
+    if not len(times):
+        return None
+    med = float(np.median(times))
+    if med <= 0:
+        return None
+    mag = 10 ** math.floor(math.log10(med))
+    return float(round(med / mag) * mag)
+
+
+# ------------------------------------------------------------------------------------------
+# From the user's choices to a Spec (always through the one parser, so every check applies)
+# ------------------------------------------------------------------------------------------
+OUTCOME_COLUMNS = ("name", "kind", "column", "time", "event", "horizon", "levels", "label")
+INDEX_COLUMNS = ("name", "column", "formula", "label")
+_KIND_KEYS = {
+    "survival": {"measure", "model", "adjust", "label", "units"},
+    "ordinal": {"favourable", "measure", "adjust", "label", "among_survivors"},
+    "continuous": {"higher_is_better", "bounds", "adjust", "units", "label", "among_survivors", "measure"},
+    "binary": {"higher_is_better", "adjust", "label", "among_survivors", "measure"},
+}
+
+
+def _blank(v: Any) -> bool:
+    return v is None or (isinstance(v, float) and math.isnan(v)) or (isinstance(v, str) and not v.strip()) \
+        or v is pd.NA
+
+
+def outcome_rows(spec: Spec | None, guess: Guess | None = None) -> list[dict]:
+    """One editable row per outcome (from the spec, else from the guesses), for a table editor."""
+    rows = []
+    if spec is not None:
+        for o in spec.outcomes:
+            rows.append({"name": o.name, "kind": o.kind, "column": o.column or "", "time": o.time or "",
+                         "event": o.event or "", "horizon": o.horizon, "levels": ", ".join(o.levels),
+                         "label": o.label or ""})
+        return rows
+    g = guess or Guess()
+    if g.time and g.event:
+        rows.append({"name": "alive", "kind": "survival", "column": "", "time": g.time, "event": g.event,
+                     "horizon": g.horizon, "levels": "", "label": ""})
+    for col, levels in g.ordinal.items():
+        rows.append({"name": _name(col), "kind": "ordinal", "column": col, "time": "", "event": "",
+                     "horizon": None, "levels": ", ".join(levels), "label": ""})
+    for col in g.binary:
+        rows.append({"name": _name(col), "kind": "binary", "column": col, "time": "", "event": "",
+                     "horizon": None, "levels": "", "label": ""})
+    return rows
+
+
+def index_rows(spec: Spec | None, guess: Guess | None = None) -> list[dict]:
+    """One editable row per column or formula index; prognostic indices are kept from the spec."""
+    if spec is not None:
+        return [{"name": i.name, "column": i.column or "", "formula": i.formula or "", "label": i.label or ""}
+                for i in spec.indices if i.prognostic is None]
+    g = guess or Guess()
+    return [{"name": _name(c), "column": c, "formula": "", "label": ""} for c in g.indices[:3]]
+
+
+def _name(column: str) -> str:
+    name = re.sub(r"[^A-Za-z0-9_]+", "_", str(column)).strip("_").lower()
+    return name or "outcome"
+
+
+def outcomes_from_rows(rows: list[dict], base: Spec | None = None) -> list[dict]:
+    """TOML-shaped [[outcomes]] tables from edited rows; keys the table does not show are kept from base."""
+    known = {o.name: spec_to_dict_single(o) for o in base.outcomes} if base else {}
+    out = []
+    for i, row in enumerate(rows):
+        if all(_blank(row.get(k)) for k in OUTCOME_COLUMNS):
+            continue
+        name = str(row.get("name") or "").strip()
+        if not name:
+            raise FulcrumError(f"outcome row {i + 1} has no name.", key=f"outcomes[{i + 1}].name",
+                               hint="Give each outcome a short name, or clear the row.")
+        kind = str(row.get("kind") or "").strip()
+        table: dict[str, Any] = {"name": name, "kind": kind}
+        old = known.get(name, {})
+        if old.get("kind") == kind:
+            table.update({k: v for k, v in old.items() if k in _KIND_KEYS.get(kind, set())})
+        for key in ("column", "time", "event", "label"):
+            v = row.get(key)
+            if not _blank(v):
+                table[key] = str(v).strip()
+            elif key == "label":
+                table.pop("label", None)
+        if not _blank(row.get("horizon")):
+            try:
+                table["horizon"] = float(row["horizon"])
+            except (TypeError, ValueError):
+                raise FulcrumError(f"the horizon of outcome '{name}' is not a number: {row['horizon']!r}.",
+                                   key=f"outcomes '{name}'.horizon", hint="Give the horizon as a number.") from None
+        if not _blank(row.get("levels")):
+            table["levels"] = [v.strip() for v in str(row["levels"]).split(",") if v.strip()]
+            if "favourable" in table and not set(table["favourable"]) <= set(table["levels"]):
+                del table["favourable"]
+        out.append(table)
+    return out
+
+
+def spec_to_dict_single(obj) -> dict:
+    """One spec dataclass as TOML-shaped data (lists for tuples, no empty keys)."""
+    def clean(v: Any) -> Any:
+        if isinstance(v, tuple):
+            return [clean(x) for x in v]
+        if dataclasses.is_dataclass(v):
+            return spec_to_dict_single(v)
+        if isinstance(v, dict):
+            return {str(k): clean(x) for k, x in v.items()}
+        return v
+
+    return {f.name: clean(getattr(obj, f.name)) for f in dataclasses.fields(obj)
+            if getattr(obj, f.name) not in (None, (), {})}
+
+
+def indices_from_rows(rows: list[dict], base: Spec | None = None, keep_prognostic: tuple[str, ...] = ()
+                      ) -> list[dict]:
+    """TOML-shaped [[indices]] tables from edited rows, plus the base spec's prognostic indices kept."""
+    known = {i.name: spec_to_dict_single(i) for i in base.indices} if base else {}
+    out = []
+    for i, row in enumerate(rows):
+        if all(_blank(row.get(k)) for k in INDEX_COLUMNS):
+            continue
+        name = str(row.get("name") or "").strip() or _name(str(row.get("column") or ""))
+        if not name or name == "outcome":
+            raise FulcrumError(f"index row {i + 1} has no name.", key=f"indices[{i + 1}].name",
+                               hint="Give each index a short name, or clear the row.")
+        table: dict[str, Any] = {"name": name}
+        old = known.get(name, {})
+        for key in ("column", "formula", "label"):
+            if not _blank(row.get(key)):
+                table[key] = str(row[key]).strip()
+        source = "column" if "column" in table else "formula" if "formula" in table else None
+        if old.get(source) == table.get(source):
+            for key in ("units", "discrete"):
+                if key in old:
+                    table[key] = old[key]
+        out.append(table)
+    for name in keep_prognostic:
+        if name in known and "prognostic" in known[name]:
+            out.append(known[name])
+    return out
+
+
+def build_spec(cohort: dict[str, Any], outcomes: list[dict], indices: list[dict], base: Spec | None = None,
+               base_dir: Path | None = None) -> Spec:
+    """A checked Spec from the Cohort page's choices (TOML-shaped tables; blank entries dropped), with the
+    analysis, values and selection settings carried over from base where they still fit."""
+    table = {k: v for k, v in cohort.items() if not _blank(v)}
+    if not table.get("allocation"):
+        table.pop("randomised", None)
+    if base is not None and base.cohort.covariates and "covariates" not in table:
+        table["covariates"] = list(base.cohort.covariates)
+    data: dict[str, Any] = {"cohort": table, "outcomes": outcomes, "indices": indices}
+    if base is not None:
+        old = spec_to_dict(base)
+        data["analysis"] = old.get("analysis", {})
+        names = {o["name"]: o for o in outcomes}
+        values = old.get("values")
+        if values and names.get(values["outcome"], {}).get("kind") == "ordinal":
+            levels = names[values["outcome"]].get("levels", [])
+            if set(values.get("weights", {})) <= set(levels):
+                for key in ("survival_outcome", "utility_outcome"):
+                    if key in values and values[key] not in names:
+                        del values[key]
+                data["values"] = values
+        if "selection" in old and table.get("allocation"):
+            data["selection"] = old["selection"]
+    return parse_spec(data, base_dir=base_dir or Path("."), source=APP_SOURCE)
+
+
+# ------------------------------------------------------------------------------------------
+# Settings that never refit: margin, level, bands, weights
+# ------------------------------------------------------------------------------------------
+def edit_spec(spec: Spec, changes: dict[str, dict[str, Any]]) -> Spec:
+    """Apply TOML-shaped changes section by section and re-check the whole spec through the parser."""
+    base_dir = spec.cohort.path.parent
+    data = spec_to_dict(spec, relative_to=base_dir)
+    for section, table in changes.items():
+        if table is None:
+            data.pop(section, None)
+        else:
+            data[section] = {**data.get(section, {}), **table}
+    return parse_spec(data, base_dir=base_dir, source=spec.source or APP_SOURCE)
+
+
+def with_settings(spec: Spec, *, margin: float | None = None, level: float | None = None,
+                  bands: str | None = None, replicates: int | None = None, weights: dict[str, float] | None = None,
+                  preset: str | None = None, whose: str | None = None, spread: float | None = None) -> Spec:
+    """The spec with new analysis or value settings; None leaves a setting as it is."""
+    analysis = {k: v for k, v in (("margin", margin), ("level", level), ("bands", bands),
+                                  ("replicates", replicates)) if v is not None}
+    values = {k: v for k, v in (("weights", weights), ("preset", preset), ("whose", whose), ("spread", spread))
+              if v is not None}
+    changes: dict[str, dict[str, Any]] = {}
+    if analysis:
+        changes["analysis"] = analysis
+    if values:
+        if spec.values is None:
+            raise FulcrumError("the spec has no [values] section, so there are no weights to set.",
+                               key="values", hint="Choose the ordinal outcome whose states you want to weigh.")
+        changes["values"] = values
+    return edit_spec(spec, changes) if changes else spec
+
+
+def add_values(spec: Spec, outcome: str) -> Spec:
+    """Start a [values] section on an ordinal outcome with equal-step weights."""
+    changes: dict[str, Any] = {"outcome": outcome}
+    survival = [o.name for o in spec.outcomes if o.kind == "survival"]
+    if survival:
+        changes["survival_outcome"] = survival[0]
+    return edit_spec(spec, {"values": changes})
+
+
+# ------------------------------------------------------------------------------------------
+# Cache keys, saved specs, error text
+# ------------------------------------------------------------------------------------------
+def data_sha256(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def fit_spec(spec: Spec) -> Spec:
+    """The spec with every setting that fitting does not read set to its default."""
+    a = spec.analysis
+    neutral = dataclasses.replace(a, margin=0.0, interval="analytic", bands="pointwise", replicates=1000,
+                                  workers=1, scheduler=None)
+    return dataclasses.replace(spec, analysis=neutral, values=None, pairwise=None, maps=(), source=None)
+
+
+def fit_key(data_hash: str, spec: Spec) -> tuple[str, str]:
+    """(data sha256, canonical hash of what fitting reads): equal keys give equal fits."""
+    return data_hash, canonical_sha256(fit_spec(spec))
+
+
+def result_key(data_hash: str, spec: Spec, bootstrap: bool = False) -> tuple[str, str, bool]:
+    """(data sha256, canonical spec hash, whether bootstrap intervals are in it)."""
+    return data_hash, canonical_sha256(spec), bootstrap
+
+
+def spec_text(spec: Spec) -> str:
+    """The spec as TOML with the cohort path written as the file's name, so it reloads beside the file."""
+    head = ("# Fulcrum spec saved by the app. Put it beside the cohort file and run: fulcrum analyse <this file>\n"
+            "# Research and discussion aid, not a medical device.\n\n")
+    return head + to_toml(spec, relative_to=spec.cohort.path.parent)
+
+
+def read_spec(text: str | bytes, current: Spec, source: str = "the uploaded spec") -> tuple[Spec, list[str]]:
+    """Parse an uploaded spec for the cohort already loaded; notes say what was adjusted to fit it."""
+    if isinstance(text, bytes):
+        try:
+            text = text.decode("utf-8-sig")
+        except UnicodeDecodeError as exc:
+            raise FulcrumError(f"the spec is not UTF-8 text (byte {exc.start}).", file=source,
+                               hint="Upload the .toml file the app saved.") from None
+    spec = parse_spec_text(text, base_dir=current.cohort.path.parent, source=source)
+    notes = []
+    if spec.cohort.path.name != current.cohort.path.name:
+        notes.append(f"The spec names the cohort file '{spec.cohort.path.name}'; it was applied to the loaded "
+                     f"file '{current.cohort.path.name}'.")
+        spec = dataclasses.replace(spec, cohort=dataclasses.replace(spec.cohort, path=current.cohort.path))
+    return spec, notes
+
+
+def error_parts(exc: BaseException) -> dict[str, str]:
+    """The pieces of an error for display: what, where and what to do."""
+    if isinstance(exc, FulcrumError):
+        out = {"what": exc.what[:1].upper() + exc.what[1:]}
+        if exc.where:
+            out["where"] = exc.where
+        if exc.hint:
+            out["hint"] = exc.hint
+        return out
+    return {"what": f"Something went wrong that Fulcrum did not expect ({type(exc).__name__}: {exc}).",
+            "hint": "Your cohort and settings are kept. Please report this with the steps that led to it."}
+
+
+_MD = re.compile(r"([\\`*_{}\[\]()#+\-.!|<>~$])")
+
+
+def md_escape(text: Any) -> str:
+    """Text safe to place inside Streamlit markdown (user strings never become markup)."""
+    return _MD.sub(r"\\\1", str(text))
+
+
+# ------------------------------------------------------------------------------------------
+# The workspace: one session's cohort, spec, fits and results
+# ------------------------------------------------------------------------------------------
+class LRU(OrderedDict):
+    """A small dictionary that forgets its oldest entries beyond `size`."""
+
+    def __init__(self, size: int) -> None:
+        super().__init__()
+        self.size = size
+
+    def put(self, key: Any, value: Any) -> Any:
+        self[key] = value
+        self.move_to_end(key)
+        while len(self) > self.size:
+            self.popitem(last=False)
+        return value
+
+    def take(self, key: Any) -> Any:
+        if key in self:
+            self.move_to_end(key)
+            return self[key]
+        return None
+
+
+@dataclass
+class Workspace:
+    """One session's loaded cohort (bytes kept in memory only), its spec, and caches of what was computed.
+
+    Every change builds a new Workspace or raises FulcrumError, so the page keeps the last good one.
+    Models are fitted once per (data hash, fit-relevant spec); margin, level bands and weights only
+    re-summarise. The caches are plain attributes of this object, which lives in one session's state.
+    """
+
+    data: bytes
+    filename: str
+    spec: Spec
+    cohort: Any
+    is_demo: bool = False
+    notes: list[str] = field(default_factory=list)
+    fits: LRU = field(default_factory=lambda: LRU(10))
+    results: LRU = field(default_factory=lambda: LRU(12))
+    replicates: LRU = field(default_factory=lambda: LRU(2))
+    n_fits: int = 0
+
+    @property
+    def data_sha256(self) -> str:
+        return self.cohort.sha256
+
+    @classmethod
+    def open(cls, data: bytes, filename: str, spec: Spec, *, is_demo: bool = False) -> "Workspace":
+        """Load and check the cohort for this spec; raises FulcrumError and changes nothing on failure."""
+        return cls(data=data, filename=filename, spec=spec, cohort=load_for(spec, data, filename),
+                   is_demo=is_demo)
+
+    def with_spec(self, spec: Spec) -> "Workspace":
+        """The same cohort under a new spec: reloaded and re-checked when the fit-relevant parts changed."""
+        if fit_key("", spec) == fit_key("", self.spec):
+            return dataclasses.replace(self, spec=spec, notes=[])
+        new = Workspace.open(self.data, self.filename, spec, is_demo=self.is_demo)
+        new.fits, new.results, new.replicates, new.n_fits = self.fits, self.results, self.replicates, self.n_fits
+        return new
+
+    def _key(self, *parts: Any) -> tuple:
+        return (*parts, *fit_key(self.data_sha256, self.spec))
+
+    def index_values(self) -> dict:
+        """Each index over the cohort (computed once per cohort and spec; the fits reuse them)."""
+        from .analysis import compute_indices
+
+        key = self._key("indices")
+        return self.fits.take(key) or self.fits.put(key, compute_indices(self.spec, self.cohort))
+
+    def is_fitted(self) -> bool:
+        return self._key("fits") in self.fits
+
+    def fitset(self, progress: Callable[[int, int], None] | None = None):
+        """The fitted models for this cohort and spec, fitted once and reused (never for weights or margin)."""
+        from .analysis import fit_all
+
+        key = self._key("fits")
+        fs = self.fits.take(key)
+        if fs is None:
+            fs = self.fits.put(key, fit_all(self.spec, self.cohort, indices=self.index_values(), progress=progress))
+            self.n_fits += 1
+        return dataclasses.replace(fs, spec=self.spec)
+
+    # -- bootstrap, on request ---------------------------------------------------------------
+    def boot_key(self) -> tuple:
+        a = self.spec.analysis
+        return self._key("boot", a.replicates, a.seed)
+
+    def has_bootstrap(self) -> bool:
+        return self.boot_key() in self.replicates
+
+    def run_bootstrap(self, progress: Callable[[int, int], None] | None = None) -> None:
+        """Bootstrap replicates for the current fits, kept for every later re-summary (margin, weights)."""
+        from .analysis import run_bootstrap
+
+        keep = (self.spec.values.outcome,) if self.spec.values else ()
+        self.replicates.put(self.boot_key(), run_bootstrap(self.fitset(), progress=progress, keep_distribution=keep))
+
+    def _reps(self, bootstrap: bool) -> list[dict] | None:
+        return self.replicates.take(self.boot_key()) if bootstrap else None
+
+    def _cached(self, key: tuple, make: Callable[[], Any]) -> Any:
+        found = self.results.take(key)
+        return found if found is not None else self.results.put(key, make())
+
+    # -- what the pages show -----------------------------------------------------------------
+    def curve_rows(self, bootstrap: bool = True) -> list[dict]:
+        """The `results` rows (outcome x index) for the current margin, level and bands."""
+        from . import results as res
+        from .analysis import summarise
+
+        boot = bootstrap and self.has_bootstrap()
+
+        def make() -> list[dict]:
+            fs = self.fitset()
+            if boot:
+                fs = dataclasses.replace(fs, spec=_interval(self.spec, "bootstrap"))
+            summaries = summarise(fs, self._reps(boot))
+            return [res.curve_row(fs.pairs[k], s, res.index_info_json(fs.indices[k[1]])) for k, s in summaries.items()]
+
+        return self._cached(("rows", *result_key(self.data_sha256, self.spec, boot)), make)
+
+    def composites(self, bootstrap: bool = True) -> dict:
+        """Prepared composites (level probabilities on the grid) for fast re-weighting."""
+        from .values import prepare_composites
+
+        if self.spec.values is None:
+            return {}
+        boot = bootstrap and self.has_bootstrap()
+        v = self.spec.values
+        key = self._key("composites", boot, v.outcome, v.survival_outcome, v.utility_outcome,
+                        self.spec.analysis.replicates if boot else 0)
+        return self.fits.take(key) or self.fits.put(key, prepare_composites(self.fitset(), replicates=self._reps(boot)))
+
+    def selection(self, replicates: int | None = 0, progress: Callable[[int, int], None] | None = None):
+        """The randomised-vs-chosen analysis for the current margin and level; replicates=0 skips the
+        bootstrap of the break-even shift, None uses the engine's default number."""
+        from .selection import analyse_selection
+
+        spec = dataclasses.replace(self.spec, values=None)
+        key = ("selection", replicates, self.data_sha256, canonical_sha256(spec))
+        return self._cached(key, lambda: analyse_selection(self.fitset(), replicates=replicates, progress=progress))
+
+    def has_selection(self, replicates: int | None) -> bool:
+        spec = dataclasses.replace(self.spec, values=None)
+        return ("selection", replicates, self.data_sha256, canonical_sha256(spec)) in self.results
+
+    def pairwise(self, index: str | None, progress: Callable[[int, int], None] | None = None) -> list[dict]:
+        """The hierarchical pairwise comparison, overall and in windows along the index."""
+        from .pairwise import pairwise_rows
+
+        spec = dataclasses.replace(self.spec, values=None)
+        key = ("pairwise", index, self.data_sha256, canonical_sha256(spec))
+        ivs = self.index_values()
+        return self._cached(key, lambda: pairwise_rows(
+            self.spec, self.cohort, index, ivs.get(index) if index else None,
+            replicates=min(self.spec.analysis.replicates, 200), progress=progress))
+
+    def result(self, bootstrap: bool = True, progress: Callable[[int, int], None] | None = None):
+        """The whole analysis as the engine's orchestrator makes it (for the report and the JSON)."""
+        from .analysis import analyse
+
+        boot = bootstrap and self.has_bootstrap()
+        key = ("result", *result_key(self.data_sha256, self.spec, boot))
+
+        def make():
+            spec = _interval(self.spec, "bootstrap" if boot else "analytic")
+            fs = dataclasses.replace(self.fitset(), spec=spec)
+            extra: dict[str, Any] = {"spec_bytes": spec_text(self.spec).encode()}
+            if boot and _takes_replicates():
+                extra["replicates"] = self._reps(True)
+            elif boot:
+                extra["progress"] = progress
+            return analyse(spec, fitset=fs, **extra)
+
+        return self._cached(key, make)
+
+
+def _interval(spec: Spec, interval: str) -> Spec:
+    return dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, interval=interval))
+
+
+def _takes_replicates() -> bool:
+    """Whether analysis.analyse accepts finished bootstrap replicates (so the report needs no new bootstrap)."""
+    import inspect
+
+    from .analysis import analyse
+
+    return "replicates" in inspect.signature(analyse).parameters
+
+
+def load_for(spec: Spec, data: bytes, filename: str):
+    """Read and check the cohort bytes against the spec (the engine's loader, nothing of our own)."""
+    from .cohort import load_cohort
+    from .indices import needed_columns
+
+    return load_cohort(spec, data=data, filename=filename, extra_columns=needed_columns(spec))
+
+
+# ------------------------------------------------------------------------------------------
+# A first look at an uploaded file, for the role guesses
+# ------------------------------------------------------------------------------------------
+def preview(data: bytes, filename: str, sheet: str | None = None) -> pd.DataFrame:
+    """Every column of the file as text (the loader's own reader), so roles can be guessed before checking."""
+    from .cohort import FORMATS, _open
+
+    ext = Path(filename).suffix.lower()
+    if ext not in FORMATS:
+        raise FulcrumError(f"'{ext or 'no extension'}' files are not supported; Fulcrum reads {', '.join(FORMATS)}.",
+                           file=filename, hint="Save it as CSV (comma-separated), TSV, Excel .xlsx or Parquet.")
+    if not data:
+        raise FulcrumError("the file is empty (0 bytes).", file=filename,
+                           hint="Check that the file was saved or uploaded completely.")
+    header, read = _open(data, ext, filename, sheet)
+    import inspect
+
+    extra = (set(),) if len(inspect.signature(read).parameters) > 1 else ()
+    frame = read(set(header), *extra)
+    if frame.empty:
+        raise FulcrumError("the file has column names but no data rows.", file=filename,
+                           hint="Add one row per patient under the header.")
+    return frame
+
+
+def sheet_names(data: bytes) -> list[str]:
+    """The sheets of an .xlsx workbook (empty when it cannot be opened)."""
+    import io
+
+    import openpyxl
+
+    try:
+        book = openpyxl.load_workbook(io.BytesIO(data), read_only=True)
+    except Exception:  # noqa: BLE001 - the loader reports damaged workbooks in its own words
+        return []
+    names = list(book.sheetnames)
+    book.close()
+    return names
+
+
+def chart_catalogue(doc: dict, index_titles: dict[str, str], outcome_titles: dict[str, str]) -> list[dict]:
+    """Every chart the results hold: a label, a safe file name, the row, and whether it is a composite."""
+    out = []
+    for composite, rows in ((False, doc.get("results", [])), (True, doc.get("composite", []))):
+        for row in rows:
+            ix = index_titles.get(row["index"], row["index"])
+            what = (f"Value of outcomes ({row.get('kind', 'composite').replace('_', ' ')})" if composite
+                    else outcome_titles.get(row["outcome"], row["outcome"]))
+            name = f"{'composite_' + row.get('kind', '') if composite else row['outcome']}_by_{row['index']}"
+            out.append({"label": f"{what} along {ix}", "file": re.sub(r"[^A-Za-z0-9_.-]+", "_", name),
+                        "row": row, "composite": composite, "index_label": ix})
+    return out

@@ -1,0 +1,256 @@
+"""Streamlit plumbing the pages share: the session's workspace, errors shown plainly, cautions, large type.
+
+Pages import this as a sibling module (Streamlit puts the entry script's folder on the path).
+Everything statistical is in explorer/; this file only moves things between session state and the screen.
+"""
+from __future__ import annotations
+
+import importlib
+import logging
+import sys
+import tempfile
+import traceback
+from pathlib import Path
+from types import ModuleType
+from typing import Any, Callable
+
+import streamlit as st
+
+from explorer import CAUTIONS
+from explorer import appstate as aps
+from explorer.errors import FulcrumError
+
+log = logging.getLogger("fulcrum.app")
+
+STYLE = """
+<style>
+html, body, [data-testid="stAppViewContainer"] { font-size: 19px; }
+[data-testid="stMarkdownContainer"] p, [data-testid="stMarkdownContainer"] li { font-size: 1.05rem; line-height: 1.5; }
+[data-testid="stSidebarNav"] a span { font-size: 1.1rem; }
+.fulcrum-sentence { font-size: 1.1rem; line-height: 1.55; }
+</style>
+"""
+WS = "workspace"
+GEN = "generation"
+
+
+def setup() -> None:
+    st.set_page_config(page_title="Fulcrum", layout="wide", initial_sidebar_state="expanded")
+    st.markdown(STYLE, unsafe_allow_html=True)
+
+
+def engine(name: str) -> ModuleType | None:
+    """An engine module, or None while it has not landed (a missing module, not a broken one)."""
+    try:
+        return importlib.import_module(f"explorer.{name}")
+    except ModuleNotFoundError as exc:
+        if exc.name and (exc.name == f"explorer.{name}" or exc.name.startswith(f"explorer.{name}.")):
+            return None
+        raise
+
+
+def part(module: str, attr: str) -> Any:
+    """An engine function, or None while it has not landed."""
+    mod = engine(module)
+    return getattr(mod, attr, None) if mod is not None else None
+
+
+def not_available(what: str, waiting_for: str) -> None:
+    st.info(f"{what} is not available yet (waiting for {waiting_for} in the engine).")
+
+
+# ------------------------------------------------------------------------------------------
+# Errors: never a traceback on screen
+# ------------------------------------------------------------------------------------------
+def show_error(exc: BaseException, keeping: str | None = "Your loaded cohort and settings are kept.") -> None:
+    parts = aps.error_parts(exc)
+    if not isinstance(exc, FulcrumError):
+        log.error("unexpected %s in the app:\n%s", type(exc).__name__, "".join(traceback.format_tb(exc.__traceback__)))
+    lines = [aps.md_escape(parts["what"])]
+    if "where" in parts:
+        lines.append(f"**Where:** {aps.md_escape(parts['where'])}")
+    if "hint" in parts:
+        lines.append(f"**What to do:** {aps.md_escape(parts['hint'])}")
+    if keeping:
+        lines.append(f"_{keeping}_")
+    st.error("  \n".join(lines))
+
+
+def attempt(fn: Callable[..., Any], *args: Any, keeping: str | None = "Your loaded cohort and settings are kept.",
+            **kwargs: Any) -> Any:
+    """Run fn; on any error show it plainly and return None (the caller keeps its last good state)."""
+    try:
+        return fn(*args, **kwargs)
+    except Exception as exc:  # noqa: BLE001 - every failure is shown, none is a traceback
+        show_error(exc, keeping)
+        return None
+
+
+# ------------------------------------------------------------------------------------------
+# The session's workspace
+# ------------------------------------------------------------------------------------------
+@st.cache_resource(show_spinner=False)
+def demo_spec_path() -> str:
+    """The invented demo cohort, written once per server process into its own temporary folder."""
+    from explorer.demo import write_demo
+
+    folder = Path(tempfile.mkdtemp(prefix="fulcrum-demo-"))
+    return str(write_demo(folder))
+
+
+def open_spec_file(path: str | Path, is_demo: bool) -> aps.Workspace:
+    from explorer.spec import load_spec
+
+    spec = load_spec(path)
+    return aps.Workspace.open(Path(spec.cohort.path).read_bytes(), Path(spec.cohort.path).name, spec,
+                              is_demo=is_demo)
+
+
+def open_demo() -> aps.Workspace:
+    return open_spec_file(demo_spec_path(), is_demo=True)
+
+
+def startup_spec() -> str | None:
+    """`fulcrum app --spec FILE` passes `--spec FILE` after the script's name."""
+    argv = sys.argv
+    if "--spec" in argv and argv.index("--spec") + 1 < len(argv):
+        return argv[argv.index("--spec") + 1]
+    return None
+
+
+def workspace() -> aps.Workspace:
+    """This session's workspace; the first visit opens the demo cohort (or the spec given at start)."""
+    ws = st.session_state.get(WS)
+    if ws is None:
+        start = startup_spec()
+        with st.spinner("Opening the " + ("cohort" if start else "invented demo cohort") + "..."):
+            ws = attempt(open_spec_file, start, False) if start else None
+            if ws is None:
+                ws = attempt(open_demo, keeping=None)
+        if ws is None:
+            st.stop()
+        set_workspace(ws)
+    return ws
+
+
+def set_workspace(ws: aps.Workspace) -> None:
+    """Keep the new workspace; widgets keyed by generation start again from its spec."""
+    st.session_state[WS] = ws
+    st.session_state[GEN] = st.session_state.get(GEN, 0) + 1
+
+
+def key(name: str) -> str:
+    """A widget key that resets whenever a new cohort or spec is loaded."""
+    return f"{name}@{st.session_state.get(GEN, 0)}"
+
+
+def seed(name: str, value: Any) -> str:
+    """A widget key whose first value comes from the workspace (so settings survive page changes)."""
+    k = key(name)
+    if k not in st.session_state:
+        st.session_state[k] = value
+    return k
+
+
+def update_spec(change: Callable[[Any], Any]) -> bool:
+    """Apply change(spec) -> spec; on failure show why and keep the last good spec."""
+    ws = workspace()
+    spec = attempt(change, ws.spec)
+    if spec is None or spec == ws.spec:
+        return False
+    new = attempt(ws.with_spec, spec)
+    if new is None:
+        return False
+    st.session_state[WS] = new
+    return True
+
+
+def with_progress(label: str, fn: Callable[..., Any], *args: Any) -> Any:
+    """Run fn(*args, progress=...) under a progress bar; errors shown plainly, None returned."""
+    bar = st.progress(0.0, text=label)
+
+    def progress(done: int, total: int) -> None:
+        bar.progress(min(done / max(total, 1), 1.0), text=f"{label} {done} of {total}")
+
+    try:
+        return attempt(fn, *args, progress=progress)
+    finally:
+        bar.empty()
+
+
+def fitted(ws: aps.Workspace):
+    """The fitted models, with a progress bar the first time this cohort and spec are fitted."""
+    if ws.is_fitted():
+        return attempt(ws.fitset)
+    return with_progress("Fitting the models (once for this cohort and spec):", ws.fitset)
+
+
+def curve_rows(ws: aps.Workspace, bootstrap: bool = True) -> list[dict] | None:
+    """The outcome x index rows for the current settings (re-summarised, never refitted)."""
+    if fitted(ws) is None:
+        return None
+    return attempt(ws.curve_rows, bootstrap)
+
+
+def result(ws: aps.Workspace, bootstrap: bool = True):
+    """The whole analysis (report, JSON), made by the engine's orchestrator from the cached fits."""
+    if fitted(ws) is None:
+        return None
+    with st.spinner("Putting the whole analysis together..."):
+        return attempt(ws.result, bootstrap)
+
+
+# ------------------------------------------------------------------------------------------
+# Small pieces of screen
+# ------------------------------------------------------------------------------------------
+def sidebar(ws: aps.Workspace) -> None:
+    with st.sidebar:
+        name = aps.md_escape(ws.filename)
+        st.markdown(f"**Cohort:** {name}  \n{ws.cohort.n:,} patients"
+                    + ("  \n_Invented demo data: no real patient._" if ws.is_demo else ""))
+        arms = ws.spec.cohort.arms
+        st.markdown(f"**Arms:** {aps.md_escape(arms[0])} (first) and {aps.md_escape(arms[1])} (second)")
+        st.caption(" ".join(CAUTIONS))
+
+
+def page_head(title: str, intro: str, needs: tuple[str, str] | None = None) -> tuple[aps.Workspace, ModuleType | None]:
+    """Title, a plain-words introduction and the cautions; with needs=(module, what), the engine module or a
+    clean 'not available yet' and a stop."""
+    ws = workspace()
+    st.title(title)
+    st.markdown(intro)
+    cautions()
+    module = None
+    if needs is not None:
+        module = engine(needs[0])
+        if module is None:
+            not_available(needs[1], f"explorer/{needs[0]}.py")
+            st.stop()
+    return ws, module
+
+
+def cautions() -> None:
+    """The cautions, on every page that shows estimates."""
+    st.info("**Please note.** " + " ".join(CAUTIONS))
+
+
+def sentence(text: str) -> None:
+    st.markdown(aps.md_escape(text))
+
+
+def description(chart: Any) -> str | None:
+    """The sentence a chart builder wrote into the chart (its Vega-Lite description)."""
+    text = getattr(chart, "description", None)
+    return text if isinstance(text, str) else None
+
+
+def altair(chart: Any, text: str | None = None) -> None:
+    """A chart with the sentence that says the same thing beside it."""
+    if text is None:
+        st.altair_chart(chart, width="stretch")
+        return
+    left, right = st.columns([3, 2], vertical_alignment="center")
+    with left:
+        st.altair_chart(chart, width="stretch")
+    with right:
+        sentence(text)

@@ -1,0 +1,221 @@
+"""Cohort: load a file or the demo, say which column is which, declare outcomes and indices, see the checks."""
+from pathlib import Path
+
+import pandas as pd
+import streamlit as st
+
+import fulcrum_ui as ui
+from explorer import appstate as aps
+from explorer.errors import FulcrumError
+from explorer.spec import OUTCOME_KINDS
+
+NONE = "(none)"
+STAGED = "staged_upload"
+PREVIEWS = "previews"
+ws = ui.workspace()
+
+st.title("Cohort")
+st.markdown("Load a cohort, tell Fulcrum which column holds what, and check the data before anything is "
+            "estimated. The app opens on an **invented** demo cohort: older adults with an acute abdominal "
+            "emergency, emergency laparotomy or non-operative care.")
+
+
+# ------------------------------------------------------------------------------------------
+# 1. Load
+# ------------------------------------------------------------------------------------------
+def stage(data: bytes, filename: str, sheet: str | None = None) -> dict:
+    """Read a first look at an upload; an error is kept to show, the loaded cohort is untouched."""
+    out = {"sha": aps.data_sha256(data), "data": data, "filename": filename, "sheet": sheet, "frame": None,
+           "error": None, "sheets": []}
+    try:
+        out["frame"] = aps.preview(data, filename, sheet)
+    except FulcrumError as exc:
+        out["error"] = exc
+        if exc.key == "cohort.sheet":
+            out["sheets"] = aps.sheet_names(data)
+    return out
+
+
+def use_demo() -> None:
+    new = ui.attempt(ui.open_demo)
+    if new is not None:
+        st.session_state.pop(STAGED, None)
+        ui.set_workspace(new)
+
+
+st.header("1. Load a cohort")
+left, right = st.columns(2)
+with left:
+    upload = st.file_uploader("Your cohort file: CSV, TSV, Excel (.xlsx) or Parquet, one row per patient",
+                              type=["csv", "tsv", "xlsx", "parquet"], key=ui.key("cohort_file"))
+with right:
+    st.button("Use the invented demo cohort", on_click=use_demo, disabled=ws.is_demo)
+    spec_upload = st.file_uploader("Reload a spec saved by Fulcrum (.toml): weights, indices, margin",
+                                   type=["toml"], key=ui.key("spec_file"))
+
+if upload is None:
+    st.session_state.pop(STAGED, None)
+else:
+    data = upload.getvalue()
+    staged = st.session_state.get(STAGED)
+    if staged is None or staged["sha"] != aps.data_sha256(data) or staged["filename"] != upload.name:
+        staged = st.session_state[STAGED] = stage(data, upload.name)
+    if staged["sheets"]:
+        sheet = st.selectbox("The workbook has several sheets; which holds the cohort?", staged["sheets"],
+                             key=ui.key("sheet"))
+        if sheet != staged["sheet"]:
+            staged = st.session_state[STAGED] = stage(staged["data"], staged["filename"], sheet)
+    if staged["error"] is not None and not (staged["sheets"] and staged["frame"] is not None):
+        ui.show_error(staged["error"], f"The cohort already loaded ({ws.filename}) is kept.")
+
+if spec_upload is not None:
+    spec, notes = ui.attempt(aps.read_spec, spec_upload.getvalue(), ws.spec) or (None, [])
+    if spec is not None:
+        new = ui.attempt(ws.with_spec, spec)
+        if new is not None:
+            new.notes = notes
+            ui.set_workspace(new)
+            st.rerun()
+
+for note in ws.notes:
+    st.info(aps.md_escape(note))
+
+staged = st.session_state.get(STAGED)
+fresh = staged is not None and staged["frame"] is not None
+
+# ------------------------------------------------------------------------------------------
+# 2. Columns, outcomes and indices
+# ------------------------------------------------------------------------------------------
+st.header("2. Columns, outcomes and indices")
+if fresh:
+    source = staged
+    st.markdown(f"**New file:** {aps.md_escape(staged['filename'])}, {len(staged['frame']):,} rows. Fulcrum has "
+                "guessed each column's role; check every choice, then press **Check and use**.")
+    frame = staged["frame"]
+    base_rows = None
+else:
+    source = {"sha": ws.data_sha256, "data": ws.data, "filename": ws.filename, "sheet": ws.spec.cohort.sheet}
+    previews = st.session_state.setdefault(PREVIEWS, {})
+    frame = previews.get(ws.data_sha256)
+    if frame is None:
+        frame = ui.attempt(aps.preview, ws.data, ws.filename, ws.spec.cohort.sheet)
+        if frame is not None:
+            previews.clear()
+            previews[ws.data_sha256] = frame
+    base_rows = ws.spec
+    st.markdown(f"**Loaded:** {aps.md_escape(ws.filename)}. Change any role below and press **Check and use**; "
+                "if the check fails, the cohort stays as it is.")
+
+if frame is not None:
+    tag = source["sha"][:10]
+    guess = aps.guess_roles(frame)
+    cols = list(frame.columns)
+    current = ws.spec.cohort if not fresh else None
+
+    def choose(label: str, name: str, options: list[str], default: str | None, help: str | None = None) -> str:
+        k = ui.seed(f"{name}:{tag}", default if default in options else options[0])
+        return st.selectbox(label, options, key=k, help=help)
+
+    def values_of(col: str) -> list[str]:
+        return [str(v) for v in pd.unique(frame[col].dropna())] if col in frame else []
+
+    a, b, c = st.columns(3)
+    with a:
+        arm = choose("Treatment arm column", "arm", cols, current.arm if current else guess.arm)
+        arm_values = values_of(arm) or ["?"]
+        defaults = list(current.arms) if current else list(guess.arms)
+        first = choose("First arm (differences are first minus second)", f"first:{arm}", arm_values,
+                       defaults[0] if defaults else None)
+        rest = [v for v in arm_values if v != first] or arm_values
+        second = choose("Second arm", f"second:{arm}", rest, defaults[1] if len(defaults) > 1 else None)
+    with b:
+        pid = choose("Patient identifier (kept out of every export)", "id", [NONE] + cols,
+                     (current.id if current else guess.id) or NONE)
+        cluster = choose("Hospital or other cluster", "cluster", [NONE] + cols,
+                         (current.cluster if current else guess.cluster) or NONE)
+    with c:
+        alloc = choose("Allocation column (randomised or chosen)", "allocation", [NONE] + cols,
+                       (current.allocation if current else guess.allocation) or NONE)
+        randomised = "randomised"
+        if alloc != NONE:
+            randomised = choose("Its value for randomised patients", f"randomised:{alloc}", values_of(alloc) or ["?"],
+                                current.randomised if current else guess.randomised)
+
+    st.subheader("Outcomes")
+    st.caption("Kinds: survival (time and event columns, a horizon), ordinal (levels best first, separated by "
+               "commas; the last is usually death), binary (0/1) or continuous. Add or remove rows freely.")
+    out_df = pd.DataFrame(aps.outcome_rows(base_rows, guess), columns=list(aps.OUTCOME_COLUMNS))
+    col_choice = st.column_config.SelectboxColumn
+    outcomes = st.data_editor(
+        out_df, num_rows="dynamic", hide_index=True, key=ui.key(f"outcomes:{tag}"), width="stretch",
+        column_config={"kind": col_choice("kind", options=list(OUTCOME_KINDS)),
+                       "column": col_choice("column", options=cols), "time": col_choice("time", options=cols),
+                       "event": col_choice("event", options=cols),
+                       "horizon": st.column_config.NumberColumn("horizon", help="In the time column's units"),
+                       "levels": st.column_config.TextColumn("levels (best first)")})
+
+    st.subheader("Indices")
+    st.caption("An index orders patients, e.g. a frailty scale or age. Give a column, or a formula over columns "
+               "such as `lactate - albumin / 10`.")
+    ix_df = pd.DataFrame(aps.index_rows(base_rows, guess), columns=list(aps.INDEX_COLUMNS))
+    indices = st.data_editor(ix_df, num_rows="dynamic", hide_index=True, key=ui.key(f"indices:{tag}"),
+                             width="stretch",
+                             column_config={"column": col_choice("column", options=cols)})
+    prognostic = [i.name for i in ws.spec.indices if i.prognostic is not None] if not fresh else []
+    keep = tuple(n for n in prognostic
+                 if st.checkbox(f"Keep the prognostic index '{n}' (defined in the spec)", value=True,
+                                key=ui.key(f"keep:{n}")))
+
+    def apply() -> aps.Workspace:
+        cohort = {"path": source["filename"], "arm": arm, "arms": [first, second], "id": pid, "cluster": cluster,
+                  "allocation": alloc, "randomised": randomised, "sheet": source.get("sheet")}
+        spec = aps.build_spec({k: (None if v == NONE else v) for k, v in cohort.items()},
+                              aps.outcomes_from_rows(outcomes.to_dict("records"), ws.spec),
+                              aps.indices_from_rows(indices.to_dict("records"), ws.spec, keep),
+                              base=ws.spec, base_dir=Path(".") if fresh else ws.spec.cohort.path.parent)
+        if fresh:
+            return aps.Workspace.open(source["data"], source["filename"], spec)
+        return ws.with_spec(spec)
+
+    if st.button("Check and use", type="primary"):
+        with st.spinner("Checking the cohort against these settings..."):
+            new = ui.attempt(apply, keeping=f"The cohort already loaded ({ws.filename}) and its settings are kept.")
+        if new is not None:
+            st.session_state.pop(STAGED, None)
+            ui.set_workspace(new)
+            st.rerun()
+
+# ------------------------------------------------------------------------------------------
+# 3. Checks, counts and how each index is spread
+# ------------------------------------------------------------------------------------------
+st.header("3. Checks and counts")
+cohort = ws.cohort
+if cohort.warnings:
+    st.warning(f"{cohort.n:,} patients loaded, with {len(cohort.warnings)} warning(s):")
+    for w in cohort.warnings:
+        st.markdown("- " + aps.md_escape(w))
+else:
+    st.success(f"{cohort.n:,} patients loaded; the cohort passed every check.")
+for note in cohort.notes:
+    st.caption(aps.md_escape(note))
+
+st.subheader("Patients by arm and allocation")
+st.table(cohort.counts())
+
+st.subheader("How each index is spread, by arm")
+index_values = ui.attempt(ws.index_values)
+chart_fn = ui.part("charts", "index_distribution_chart")
+if index_values is not None and chart_fn is None:
+    ui.not_available("The index charts", "explorer/charts.py")
+elif index_values is not None:
+    arm_col = cohort.frame[ws.spec.cohort.arm].astype(str).to_numpy()
+    for ix in ws.spec.indices:
+        iv = index_values[ix.name]
+        df = pd.DataFrame({"x": iv.values, "arm": arm_col})
+        chart = chart_fn(df, arms=list(ws.spec.cohort.arms), label=ix.title, discrete=iv.info.get("discrete"))
+        pct = iv.info.get("percentiles") or {}
+        text = (f"{ix.title}: " + ", ".join(f"{k}th percentile {v:.3g}" for k, v in pct.items()) + "."
+                if pct else ix.title)
+        ui.altair(chart, text)
+        for w in iv.warnings:
+            st.caption(aps.md_escape(w))

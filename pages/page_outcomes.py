@@ -1,0 +1,98 @@
+"""Outcomes by index: each arm's curve along an index, where the arms break even, and every break-even point."""
+import streamlit as st
+
+import fulcrum_ui as ui
+from explorer import appstate as aps
+
+LEVELS = [0.8, 0.9, 0.95, 0.99]
+ws, _ = ui.page_head(
+    "Outcomes by index",
+    "Each chart shows one outcome along one index for the first arm (blue) and the second arm (orange). A "
+    "break-even point is where the arms do equally well; differences are the first arm minus the second, "
+    "higher is better.")
+arms = list(ws.spec.cohort.arms)
+st.caption(f"First arm: {aps.md_escape(arms[0])} (blue). Second arm: {aps.md_escape(arms[1])} (orange).")
+
+# ------------------------------------------------------------------------------------------
+# Settings that re-summarise (never refit)
+# ------------------------------------------------------------------------------------------
+a = ws.spec.analysis
+levels = sorted(set(LEVELS) | {a.level})
+c1, c2, c3 = st.columns(3)
+with c1:
+    margin = st.number_input("Margin: the smallest difference worth having (in each outcome's own units)",
+                             step=0.01, format="%.3f", key=ui.seed("margin", float(a.margin)))
+with c2:
+    level = st.selectbox("Interval level", levels, format_func=lambda v: f"{v:.0%}", key=ui.seed("level", a.level))
+with c3:
+    bands = st.radio("Clear-difference regions use", ["pointwise", "simultaneous"], horizontal=True,
+                     format_func=lambda v: {"pointwise": "pointwise intervals",
+                                            "simultaneous": "simultaneous bands"}[v], key=ui.seed("bands", a.bands))
+if (margin, level, bands) != (a.margin, a.level, a.bands):
+    ui.update_spec(lambda s: aps.with_settings(s, margin=margin, level=level, bands=bands))
+    ws = ui.workspace()
+
+with st.expander("Bootstrap intervals (run on request)", expanded=ws.has_bootstrap()):
+    st.markdown("Analytic intervals are shown by default. The bootstrap refits every model on resampled "
+                "patients; it takes longer and runs only when you ask.")
+    b1, b2 = st.columns([1, 2])
+    with b1:
+        reps = st.number_input("Replicates", min_value=20, max_value=5000, step=50,
+                               key=ui.seed("replicates", int(ws.spec.analysis.replicates)))
+    if reps != ws.spec.analysis.replicates:
+        ui.update_spec(lambda s: aps.with_settings(s, replicates=int(reps)))
+        ws = ui.workspace()
+    use_boot = True
+    with b2:
+        if ws.has_bootstrap():
+            use_boot = st.checkbox(f"Use the bootstrap intervals ({ws.spec.analysis.replicates} replicates)",
+                                   value=True, key=ui.key("use_boot"))
+        elif st.button(f"Run the bootstrap ({ws.spec.analysis.replicates} replicates)"):
+            if ui.fitted(ws) is not None:
+                ui.with_progress("Bootstrap replicates:", ws.run_bootstrap)
+                st.rerun()
+
+rows = ui.curve_rows(ws, bootstrap=use_boot)
+if rows is None:
+    st.stop()
+doc = {"arms": arms, "results": rows}
+charts = ui.engine("charts")
+
+# ------------------------------------------------------------------------------------------
+# Every break-even point in one table
+# ------------------------------------------------------------------------------------------
+st.header("All break-even points")
+if charts is None:
+    ui.not_available("The break-even table", "explorer/charts.py")
+else:
+    st.dataframe(charts.breakeven_table(doc), hide_index=True, width="stretch")
+
+# ------------------------------------------------------------------------------------------
+# One index at a time: a chart and its sentence per outcome
+# ------------------------------------------------------------------------------------------
+names = [ix.name for ix in ws.spec.indices]
+titles = {ix.name: ix.title for ix in ws.spec.indices}
+index = st.radio("Index", names, format_func=titles.get, horizontal=True, key=ui.seed("index", names[0]))
+show_points = st.checkbox("Show each patient beneath the curves (triangles: randomised, dots: chosen)",
+                          value=True, key=ui.key("points"))
+st.header(f"Outcomes along {titles[index]}")
+for row in [r for r in doc["results"] if r["index"] == index]:
+    st.subheader(ws.spec.outcome(row["outcome"]).title)
+    if charts is None:
+        ui.not_available("Charts", "explorer/charts.py")
+        continue
+    points = ui.attempt(charts.cohort_points, ws.fitset(), row["outcome"], index) if show_points else None
+    ui.altair(charts.outcome_chart(row, arms, points, index_label=titles[index]),
+              charts.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin))
+    with st.expander("The difference between the arms, and the numbers"):
+        ui.altair(charts.difference_chart(row, arms, margin=ws.spec.analysis.margin, index_label=titles[index]))
+        st.dataframe(charts.curve_table(row, arms, every=max(1, len(row["curve"]) // 25)), hide_index=True,
+                     width="stretch")
+    for w in row.get("warnings", []):
+        st.caption("Note: " + aps.md_escape(w))
+
+notes = list(ws.cohort.warnings) + [w for iv in ws.index_values().values() for w in iv.warnings]
+if notes:
+    with st.expander(f"Warnings about the cohort and indices ({len(notes)})"):
+        for w in notes:
+            st.markdown("- " + aps.md_escape(w))

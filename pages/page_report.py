@@ -1,0 +1,65 @@
+"""Report: take the analysis away as results (JSON), the spec with the current weights, an offline report,
+and each chart as a picture."""
+import streamlit as st
+
+import fulcrum_ui as ui
+from explorer import appstate as aps
+from explorer import results
+
+ws, _ = ui.page_head(
+    "Report",
+    "Everything here reflects the current settings: the cohort, the weights, the margin and the interval level. "
+    "The spec file reloads all of them on the Cohort page or with `fulcrum analyse`.")
+arms = list(ws.spec.cohort.arms)
+
+st.header("Save the settings")
+st.download_button("Spec with the current weights, indices and margin (.toml)", data=aps.spec_text(ws.spec),
+                   file_name="fulcrum_spec.toml", mime="application/toml", on_click="ignore", icon=":material/save:")
+
+res = ui.result(ws, bootstrap=True)
+if res is None:
+    st.stop()
+doc = res.document
+
+st.header("Results")
+c1, c2 = st.columns(2)
+with c1:
+    st.download_button("Results (.json)", data=results.dumps(doc), file_name="fulcrum_results.json",
+                       mime="application/json", on_click="ignore", icon=":material/data_object:")
+with c2:
+    render_report = ui.part("report", "render_report")
+    if render_report is None:
+        ui.not_available("The offline HTML report", "explorer/report")
+    else:
+        html = ui.attempt(render_report, res)
+        if html is not None:
+            st.download_button("Offline report (.html, opens with no network)", data=html,
+                               file_name="fulcrum_report.html", mime="text/html", on_click="ignore",
+                               icon=":material/description:")
+st.caption(f"Data sha256 {doc['inputs']['data_sha256'][:16]}..., spec {doc['inputs']['spec_canonical_sha256'][:16]}..., "
+           f"seed {doc['inputs']['seed']}, {doc['inputs']['interval']} intervals at {doc['inputs']['level']:.0%}.")
+
+charts = ui.engine("charts")
+if charts is None:
+    ui.not_available("Break-even table and chart pictures", "explorer/charts.py")
+    st.stop()
+st.dataframe(charts.breakeven_table(doc), hide_index=True, width="stretch")
+
+st.header("Charts as pictures")
+catalogue = aps.chart_catalogue(doc, {ix.name: ix.title for ix in ws.spec.indices},
+                                {o.name: o.title for o in ws.spec.outcomes})
+if not catalogue:
+    st.stop()
+pick = st.selectbox("Chart", list(range(len(catalogue))), format_func=lambda i: catalogue[i]["label"],
+                    key=ui.key("chart_pick"))
+item = catalogue[pick]
+build = charts.composite_chart if item["composite"] else charts.outcome_chart
+chart = build(item["row"], arms, index_label=item["index_label"])
+ui.altair(chart, charts.describe_row(item["row"], arms, item["index_label"], margin=ws.spec.analysis.margin))
+p1, p2 = st.columns(2)
+with p1:
+    st.download_button("PNG picture", data=lambda: charts.chart_to_png(chart), file_name=item["file"] + ".png",
+                       mime="image/png", on_click="ignore", key=ui.key(f"png:{pick}"), icon=":material/image:")
+with p2:
+    st.download_button("SVG drawing", data=lambda: charts.chart_to_svg(chart), file_name=item["file"] + ".svg",
+                       mime="image/svg+xml", on_click="ignore", key=ui.key(f"svg:{pick}"), icon=":material/draw:")

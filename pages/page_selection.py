@@ -1,0 +1,81 @@
+"""Randomised vs chosen: do patients who chose a treatment fare differently from those randomised to it?"""
+import pandas as pd
+import streamlit as st
+
+import fulcrum_ui as ui
+from explorer import appstate as aps
+
+ws, selection = ui.page_head(
+    "Randomised vs chosen",
+    "Patients allocated at random and patients whose treatment was chosen can differ in ways the data do not "
+    "show. Here each arm's outcomes in chosen patients are set against the same arm's randomised patients at "
+    "the same index value, and the break-even points are compared.",
+    needs=("selection", "The randomised vs chosen analysis"))
+arms = list(ws.spec.cohort.arms)
+charts = ui.engine("charts")
+if ws.cohort.randomised is None:
+    st.warning("The cohort has no allocation column, so randomised and chosen patients cannot be told apart. "
+               "Name the allocation column on the Cohort page.")
+    st.stop()
+if ui.fitted(ws) is None:
+    st.stop()
+
+names = [ix.name for ix in ws.spec.indices]
+titles = {ix.name: ix.title for ix in ws.spec.indices}
+index = st.radio("Index", names, format_func=titles.get, horizontal=True, key=ui.seed("sindex", names[0]))
+
+st.header(f"Where the randomised patients are, along {titles[index]}")
+coverage = ui.attempt(selection.randomised_coverage, ws.fitset(), index)
+if coverage:
+    table = pd.DataFrame([{"from": c["from"], "to": c["to"],
+                           **{f"{arm} randomised": c["n"][arm]["randomised"] for arm in arms},
+                           **{f"{arm} chosen": c["n"][arm]["chosen"] for arm in arms},
+                           "few randomised": "yes" if c["sparse"] else ""} for c in coverage])
+    st.dataframe(table, hide_index=True, width="stretch")
+    sparse = [c for c in coverage if c["sparse"]]
+    if sparse:
+        ui.sentence("Randomised evidence is sparse from " + "; ".join(f"{c['from']:.3g} to {c['to']:.3g}"
+                                                                       for c in sparse)
+                    + f" on {titles[index]}: there the comparison rests mostly on chosen patients.")
+
+with_shift = ws.has_selection(None)
+if not with_shift and st.button("Add intervals for the shift in break-even (bootstrap, takes a while)"):
+    if ui.with_progress("Bootstrap of the break-even shift:", ws.selection, None) is not None:
+        st.rerun()
+with st.spinner("Comparing randomised and chosen patients..."):
+    result = ui.attempt(ws.selection, None if with_shift else 0)
+if result is None:
+    st.stop()
+
+
+st.header(f"Randomised and chosen patients along {titles[index]}")
+for outcome in ws.spec.outcomes:
+    rows = [r for r in result.rows if r["index"] == index and r["outcome"] == outcome.name]
+    if not rows:
+        continue
+    st.subheader(outcome.title)
+    if charts is None:
+        ui.not_available("Selection charts", "explorer/charts.py")
+        continue
+    ui.altair(charts.selection_break_even_chart(rows[0], index_title=titles[index]),
+              "Break-even points: " + "; ".join(
+                  f"{what} " + (", ".join(f"{b['x']:.3g}" for b in rows[0].get(key) or []) or "none in range")
+                  for key, what in charts.SELECTION_SETS) + ".")
+    for row in rows:
+        ui.altair(charts.selection_chart(row, arms, index_title=titles[index]), charts.describe_selection(row))
+    table = pd.DataFrame([{"arm": r["arm"], "chosen minus randomised": r["effect"], "interval": r["ci"],
+                           "randomised": r["n_randomised"], "chosen": r["n_chosen"],
+                           "varies along the index (p)": r.get("varies_with_index_p")} for r in rows])
+    st.dataframe(table.astype(str), hide_index=True, width="stretch")
+    ev = rows[0].get("e_value")
+    if ev and ev.get("e_value") is not None:
+        st.caption(f"E-value {ev['e_value']:.3g}: " + aps.md_escape(ev.get("note", "")))
+    with st.expander("Balance after weighting, and notes"):
+        for r in rows:
+            if r.get("balance"):
+                st.markdown(f"**{aps.md_escape(r['arm'])}**")
+                st.dataframe(pd.DataFrame(r["balance"]).astype(str), hide_index=True, width="stretch")
+        if rows[0].get("adjusted") and rows[0]["adjusted"].get("note"):
+            st.caption(aps.md_escape(rows[0]["adjusted"]["note"]))
+        for w in dict.fromkeys(w for r in rows for w in r.get("warnings", [])):
+            st.caption("Note: " + aps.md_escape(w))

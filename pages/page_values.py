@@ -1,0 +1,185 @@
+"""Values: weigh each outcome state, see which arm the weights favour along the index, and how firmly."""
+import pandas as pd
+import streamlit as st
+
+import fulcrum_ui as ui
+from explorer import appstate as aps
+
+CUSTOM = "custom"
+WHOSE = {"patient": "the patient's own", "proxy": "a proxy's, on the patient's behalf", "team": "the team's"}
+ws, values = ui.page_head(
+    "Values",
+    "How much is each outcome state worth? Give the best state 1 and death 0; a state judged worse than death "
+    "goes below 0. The composite is each arm's expected value of these weights along the index.",
+    needs=("values", "Weighing outcome states"))
+arms = list(ws.spec.cohort.arms)
+charts = ui.engine("charts")
+
+ordinal = [o for o in ws.spec.outcomes if o.kind == "ordinal"]
+if ws.spec.values is None:
+    if not ordinal:
+        st.warning("The spec has no ordinal outcome (a ranked list of states such as independent, home with help, "
+                   "care home, bedbound, dead), so there is nothing to weigh. Declare one on the Cohort page.")
+        st.stop()
+    pick = st.selectbox("Which outcome's states should be weighed?", [o.name for o in ordinal],
+                        format_func=lambda n: ws.spec.outcome(n).title)
+    if st.button("Weigh its states", type="primary"):
+        if ui.update_spec(lambda s: aps.add_values(s, pick)):
+            st.rerun()
+    st.stop()
+
+v = ws.spec.values
+outcome = ws.spec.outcome(v.outcome)
+levels = list(outcome.levels)
+
+# ------------------------------------------------------------------------------------------
+# Weights: a preset to start from, then one slider per state
+# ------------------------------------------------------------------------------------------
+st.header(f"Weights for {outcome.title}")
+presets = values.available_presets(levels)
+labels = {p.name: p.label for p in presets} | {CUSTOM: "My own weights"}
+p1, p2 = st.columns([2, 1])
+with p2:
+    whose = st.radio("Whose values are these?", list(WHOSE), format_func=WHOSE.get, key=ui.seed("whose", v.whose))
+    acceptable = st.multiselect("States the patient would find acceptable", levels,
+                                default=[lv for lv in v.acceptable if lv in levels], key=ui.key("acceptable"))
+
+
+def apply_preset() -> None:
+    name = st.session_state[ui.key("preset")]
+    if name == CUSTOM:
+        return
+    try:
+        weights = values.preset_weights(name, levels, st.session_state.get(ui.key("acceptable"), []))
+    except Exception as exc:  # noqa: BLE001 - shown below, weights unchanged
+        st.session_state["preset_error"] = exc
+        return
+    for lv in levels:
+        st.session_state[ui.key(f"w:{lv}")] = float(weights[lv])
+
+
+with p1:
+    start = v.preset if v.preset in labels else CUSTOM
+    preset = st.selectbox("Start from", list(labels), format_func=labels.get, key=ui.seed("preset", start),
+                          on_change=apply_preset)
+    source = next((p.source for p in presets if p.name == preset), None)
+    if source:
+        st.caption("Source: " + aps.md_escape(source))
+if "preset_error" in st.session_state:
+    ui.show_error(st.session_state.pop("preset_error"), "The weights are unchanged.")
+
+cols = st.columns(min(len(levels), 5))
+weights = {}
+for i, lv in enumerate(levels):
+    with cols[i % len(cols)]:
+        weights[lv] = st.slider(lv.replace("_", " "), -1.0, 1.0, step=0.01,
+                                key=ui.seed(f"w:{lv}", float(v.weights.get(lv, 0.0))))
+
+changed = weights != v.weights or whose != v.whose or (preset != CUSTOM and preset != v.preset)
+if changed:
+    chosen = preset if preset != CUSTOM and values.preset_weights(preset, levels, acceptable) == weights else None
+    if ui.update_spec(lambda s: aps.edit_spec(s, {"values": {"weights": weights, "whose": whose,
+                                                             "acceptable": list(acceptable)}})):
+        if chosen is None and preset != CUSTOM:
+            st.session_state[ui.key("preset")] = CUSTOM
+        if chosen:
+            ui.update_spec(lambda s: aps.edit_spec(s, {"values": {"preset": chosen}}))
+    ws = ui.workspace()
+    v = ws.spec.values
+
+# ------------------------------------------------------------------------------------------
+# The composite along the chosen index (re-weighting only: nothing is refitted)
+# ------------------------------------------------------------------------------------------
+if ui.fitted(ws) is None:
+    st.stop()
+prepared = ui.attempt(ws.composites)
+if not prepared:
+    st.stop()
+names = [ix.name for ix in ws.spec.indices]
+titles = {ix.name: ix.title for ix in ws.spec.indices}
+index = st.radio("Index", names, format_func=titles.get, horizontal=True, key=ui.seed("vindex", names[0]))
+here = {k: cm for k, cm in prepared.items() if k[1] == index}
+anchor = next(iter(here.values()))
+lo, hi = anchor.x_range
+discrete = bool(ws.index_values()[index].info.get("discrete"))
+x0 = st.slider(f"Threshold analysis at {titles[index]} =", float(lo), float(hi),
+               step=1.0 if discrete else (hi - lo) / 100,
+               key=ui.seed(f"x0:{index}", float(round(values.default_threshold_x(anchor)) if discrete
+                                                else values.default_threshold_x(anchor))))
+summaries = ui.attempt(values.reweight, here, v.weights, values=v, margin=ws.spec.analysis.margin,
+                       threshold_at={index: x0})
+if summaries is None:
+    st.stop()
+rows = values.composite_rows(ws.fitset(), summaries, v)
+
+st.header(f"Value of outcomes along {titles[index]}")
+st.caption(f"Weights are {WHOSE[v.whose]} values.")
+for row, ((kind, _), (_, info)) in zip(rows, summaries.items()):
+    st.subheader({"ordinal": f"Expected value of the weights ({outcome.title})",
+                  "survival_function": "Survival combined with function",
+                  "quality_adjusted": "Quality-adjusted survival"}.get(kind, kind))
+    if charts is None:
+        ui.not_available("Composite charts", "explorer/charts.py")
+    else:
+        ui.altair(charts.composite_chart(row, arms, index_label=titles[index]),
+                  charts.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin))
+    for note in row.get("notes", []):
+        st.caption(aps.md_escape(note))
+
+    th = row.get("thresholds")
+    if th:
+        with st.expander("Which weights would change the answer (threshold analysis)", expanded=False):
+            fav = th.get("favours") or "neither arm"
+            ui.sentence(f"At {titles[index]} {x0:.3g}, these weights favour {fav}. Holding the other weights fixed, "
+                        "the answer changes only if a single state's weight crosses the value below.")
+            st.dataframe(pd.DataFrame([{"state": s["level"], "weight now": s["weight"],
+                                        "answer flips at": s["flip_weight"], "what it means": s["message"]}
+                                       for s in th["states"]]), hide_index=True, width="stretch")
+            if charts is not None and len(levels) >= 3:
+                a1, a2 = st.columns(2)
+                state_a = a1.selectbox("Map: first state", levels[:-1], key=ui.key(f"ma:{kind}"))
+                rest = [lv for lv in levels if lv != state_a]
+                state_b = a2.selectbox("Map: second state", rest, index=min(1, len(rest) - 1), key=ui.key(f"mb:{kind}"))
+                cells = values.threshold_map(info.model, v.weights, x0, state_a, state_b, n=21,
+                                             margin=ws.spec.analysis.margin)
+                chart = charts.threshold_map_chart(cells, arms, title=f"Which arm is favoured at {titles[index]} "
+                                                                      f"{x0:.3g}")
+                ui.altair(chart, ui.description(chart))
+
+    acc = row.get("acceptability")
+    if acc and charts is not None:
+        chart = charts.acceptability_chart(acc, arms, index_title=titles[index],
+                                           title="How often each arm comes out ahead")
+        ui.altair(chart, ui.description(chart))
+
+with st.expander("Uncertainty about the weights themselves"):
+    spread = st.slider("Let each weight vary by plus or minus", 0.0, 0.5, step=0.05,
+                       key=ui.seed("spread", float(v.spread)))
+    if spread != v.spread and ui.update_spec(lambda s: aps.with_settings(s, spread=spread)):
+        st.rerun()
+    st.caption("The chance each arm comes out ahead combines the models' uncertainty with weights drawn evenly "
+               "within this range (death stays at its weight).")
+
+# ------------------------------------------------------------------------------------------
+# The hierarchical pairwise comparison
+# ------------------------------------------------------------------------------------------
+st.header("Pairwise comparison of patients")
+pairwise = ui.engine("pairwise")
+if pairwise is None:
+    ui.not_available("The pairwise comparison", "explorer/pairwise.py")
+else:
+    st.markdown("Every patient in one arm is compared with every patient in the other, outcome by outcome in "
+                "order of priority; a pair is decided by the first outcome that separates them.")
+    if st.checkbox("Compute the pairwise comparison (with its own bootstrap)", key=ui.key("pairwise_on")):
+        prow = ui.with_progress("Pairwise comparison:", ws.pairwise, index)
+        if prow:
+            table = pd.DataFrame([{"patients": "everyone" if r["window"] is None else r["window"],
+                                   f"{arms[0]}": r["n_first"], f"{arms[1]}": r["n_second"],
+                                   "win ratio": r["win_ratio"], "win ratio interval": r["win_ratio_ci"],
+                                   "net benefit": r["net_benefit"], "net benefit interval": r["net_benefit_ci"],
+                                   "clearly favours": r["favours"] or "neither"} for r in prow])
+            st.dataframe(table.astype(str), hide_index=True, width="stretch")
+            overall = prow[0]
+            if overall.get("win_ratio") is not None:
+                ui.sentence(f"Across everyone, {arms[0]} wins {overall['wins']:,} and loses {overall['losses']:,} "
+                            f"of {overall['pairs']:,} pairs (win ratio {overall['win_ratio']:.3g}).")

@@ -18,11 +18,11 @@ import numpy as np
 import pandas as pd
 
 from ..errors import FulcrumError
+from .columns import MAX_ERROR_ROWS, as_float
 
 MAX_CHARS = 500
 MAX_NODES = 200
 MAX_EXPONENT = 10.0
-MAX_ERROR_ROWS = 100
 
 # name -> (fewest arguments, most arguments or None, numpy function, what goes wrong when not finite)
 FUNCTIONS: dict[str, tuple[int, int | None, Callable[..., np.ndarray], str]] = {
@@ -108,6 +108,10 @@ class Formula:
             out = _Evaluator(self, env, n).run(self._tree)
         return np.broadcast_to(out, (n,)).astype(float, copy=True)
 
+    def compute(self, data: pd.DataFrame | Mapping[str, Any]) -> np.ndarray:
+        """Same as evaluate: the index-model interface shared by every index kind."""
+        return self.evaluate(data)
+
     def where(self, node: ast.AST) -> tuple[str, int]:
         """The user's own text of a node and its 1-based character position."""
         start, end = _char_span(self._source, node)
@@ -127,12 +131,16 @@ class Formula:
                                          f"and the functions {ALLOWED_FUNCTIONS}.")
 
 
-def parse_formula(text: str, columns: Iterable[str], *, key: str | None = None) -> Formula:
-    """Check a formula against the whitelist and the known column names; refuse with FulcrumError."""
+def parse_formula(text: str, columns: Iterable[str] | None, *, key: str | None = None) -> Formula:
+    """Check a formula against the whitelist and the known column names; refuse with FulcrumError.
+
+    columns=None accepts any plain name as a column (to list what a formula reads before loading data).
+    """
     if not isinstance(text, str):
         raise FulcrumError(f"a formula must be text, found {type(text).__name__}.", key=key,
                            hint='Write it in quotes, e.g. formula = "age / 10 + cfs".')
-    columns = [str(c) for c in columns]
+    known = columns is not None
+    columns = [str(c) for c in columns] if columns is not None else []
     bare = Formula(text=text, columns=(), key=key)
     if not text.strip():
         raise bare.refuse(None, "the formula is empty", 'Write an expression such as "age / 10 + cfs".')
@@ -150,12 +158,12 @@ def parse_formula(text: str, columns: Iterable[str], *, key: str | None = None) 
     formula = Formula(text=text, columns=(), key=key, _tree=tree.body, _source=source, _offset=offset,
                       _names=names)
     resolved: dict[str, str] = {}
-    _Checker(formula, _lookup(columns), columns, resolved).check(tree.body)
+    _Checker(formula, _lookup(columns) if known else None, columns, resolved).check(tree.body)
     return Formula(text=text, columns=tuple(dict.fromkeys(resolved.values())), key=key, _tree=tree.body,
                    _source=source, _offset=offset, _names=names, _resolved=resolved)
 
 
-def formula_columns(text: str, columns: Iterable[str], *, key: str | None = None) -> list[str]:
+def formula_columns(text: str, columns: Iterable[str] | None = None, *, key: str | None = None) -> list[str]:
     """The column names a formula reads, in order of first use (the formula is checked too)."""
     return list(parse_formula(text, columns, key=key).columns)
 
@@ -239,7 +247,8 @@ def _bool_op_name(node: ast.AST) -> str:
 class _Checker:
     """Walks a parsed formula and refuses anything outside the whitelist, naming the offending part."""
 
-    def __init__(self, formula: Formula, lookup: dict[str, str], columns: list[str], resolved: dict[str, str]):
+    def __init__(self, formula: Formula, lookup: dict[str, str] | None, columns: list[str],
+                 resolved: dict[str, str]):
         self.f, self.lookup, self.columns, self.resolved = formula, lookup, columns, resolved
 
     def check(self, node: ast.AST) -> None:
@@ -279,7 +288,10 @@ class _Checker:
         elif ident.startswith("__") or ident.endswith("__"):
             raise f.refuse(node, "names with double underscores are not allowed",
                            "Use column names and the listed functions only.")
-        column = self.lookup.get(unicodedata.normalize("NFKC", ident))
+        if self.lookup is None:
+            column = None if ident in FUNCTIONS and ident == node.id else ident
+        else:
+            column = self.lookup.get(unicodedata.normalize("NFKC", ident))
         if column is None and ident in FUNCTIONS:
             raise f.refuse(node, f"'{ident}' is a function and needs brackets", f"Write {ident}(x).")
         if column is None:
@@ -436,7 +448,7 @@ def _columns_of(data: pd.DataFrame | Mapping[str, Any], columns: tuple[str, ...]
         if c not in data:
             raise FulcrumError(f"the formula reads column '{c}', which is not in the data.", key=key, column=c,
                                hint="Add the column to the cohort file or change the formula.")
-        values = _as_float(data[c], c, key)
+        values = as_float(data[c], c, key)
         if n is not None and len(values) != n:
             raise FulcrumError(f"column '{c}' has {len(values)} values where {n} were expected.", key=key,
                                column=c, hint="Give every column the same number of rows.")
@@ -445,20 +457,3 @@ def _columns_of(data: pd.DataFrame | Mapping[str, Any], columns: tuple[str, ...]
     if n is None:
         n = next((len(np.atleast_1d(v)) for v in data.values()), 1) if isinstance(data, Mapping) else 1
     return env, n
-
-
-def _as_float(values: Any, column: str, key: str | None) -> np.ndarray:
-    series = values if isinstance(values, pd.Series) else pd.Series(np.atleast_1d(np.asarray(values, dtype=object)))
-    if isinstance(series.dtype, pd.CategoricalDtype):
-        series = series.astype(object)
-    if pd.api.types.is_bool_dtype(series.dtype):
-        series = series.astype(float)
-    converted = pd.to_numeric(series, errors="coerce")
-    bad = np.flatnonzero(converted.isna().to_numpy() & series.notna().to_numpy())
-    if len(bad):
-        raise FulcrumError(f"the formula needs numbers, but column '{column}' holds text such as "
-                           f"'{series.iloc[bad[0]]}'.", key=key, column=column,
-                           rows=(bad[:MAX_ERROR_ROWS] + 1).tolist(), n_rows=len(bad),
-                           hint="Use a numeric column, or recode it in the cohort file.")
-    out = converted.to_numpy(dtype=float, na_value=np.nan)
-    return np.where(np.isfinite(out), out, np.nan)

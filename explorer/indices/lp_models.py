@@ -1,0 +1,94 @@
+"""Multi-covariate models that give a linear predictor, for prognostic indices.
+
+Cox, logistic and proportional odds reuse the per-arm models' likelihoods (explorer.models) on a
+covariate matrix; linear regression is least squares. Each returns a `LinearPredictor`:
+intercept + X @ coef. Proportional odds: P(Y <= j) = expit(cut_j - X @ coef), so a higher
+predictor means worse levels (coded best first); the cut-points are not part of the predictor.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..models.common import inverse, newton
+from ..models.cox_kernel import CoxKernel
+from ..models.glm import fit_logistic
+from ..models.ordinal import ordinal_loglik
+
+MODEL_OF_KIND = {"survival": "Cox", "binary": "logistic", "ordinal": "proportional odds", "continuous": "linear"}
+SCALE_OF_KIND = {"survival": "log hazard", "binary": "log odds", "ordinal": "log odds of a worse level",
+                 "continuous": "predicted outcome"}
+
+
+@dataclass
+class LinearPredictor:
+    """A fitted linear predictor: intercept + X @ coef; cov is the covariance of coef."""
+
+    coef: np.ndarray
+    cov: np.ndarray
+    intercept: float = 0.0
+    converged: bool = True
+    extra: dict = field(default_factory=dict)
+
+    def __call__(self, X: np.ndarray) -> np.ndarray:
+        return self.intercept + np.asarray(X, float) @ self.coef
+
+    @property
+    def se(self) -> np.ndarray:
+        return np.sqrt(np.clip(np.diag(self.cov), 0.0, None))
+
+
+@dataclass
+class Target:
+    """The outcome a prognostic model is fitted to: y (0/1, codes 0..K-1 best first, or values) or time/event."""
+
+    kind: str
+    y: np.ndarray | None = None
+    time: np.ndarray | None = None
+    event: np.ndarray | None = None
+
+    def take(self, rows: np.ndarray) -> "Target":
+        pick = (lambda a: None if a is None else a[rows])
+        return Target(self.kind, pick(self.y), pick(self.time), pick(self.event))
+
+
+def fit_linear_predictor(X: np.ndarray, target: Target) -> LinearPredictor:
+    """Fit the model for the target's kind on covariates X (n x p, finite)."""
+    X = np.asarray(X, float).reshape(len(X), -1)
+    fit = {"survival": _cox, "binary": _logistic, "ordinal": _proportional_odds, "continuous": _linear}[target.kind]
+    return fit(X, target)
+
+
+def _cox(X: np.ndarray, t: Target) -> LinearPredictor:
+    kernel = CoxKernel(np.asarray(t.time, float), np.asarray(t.event, float), X, np.ones(len(X)))
+    beta, _, _, H, _, ok = newton(kernel.evaluate, np.zeros(X.shape[1]))
+    return LinearPredictor(beta, inverse(-H), 0.0, bool(ok))
+
+
+def _logistic(X: np.ndarray, t: Target) -> LinearPredictor:
+    beta, _, H, _, ok, separated = fit_logistic(np.column_stack([np.ones(len(X)), X]), np.asarray(t.y, float),
+                                                np.ones(len(X)))
+    cov = inverse(-H)
+    return LinearPredictor(beta[1:], cov[1:, 1:], float(beta[0]), bool(ok and not separated))
+
+
+def _linear(X: np.ndarray, t: Target) -> LinearPredictor:
+    Z = np.column_stack([np.ones(len(X)), X])
+    y = np.asarray(t.y, float)
+    b, *_ = np.linalg.lstsq(Z, y, rcond=None)
+    dof = max(len(y) - Z.shape[1], 1)
+    sigma2 = float(np.sum((y - Z @ b) ** 2) / dof)
+    cov = sigma2 * inverse(Z.T @ Z)
+    return LinearPredictor(b[1:], cov[1:, 1:], float(b[0]), True, {"sigma": np.sqrt(sigma2)})
+
+
+def _proportional_odds(X: np.ndarray, t: Target) -> LinearPredictor:
+    observed, code = np.unique(np.asarray(t.y, float), return_inverse=True)
+    code = code.reshape(-1)
+    m = len(observed) - 1
+    cum = np.clip(np.cumsum(np.bincount(code, minlength=m + 1))[:-1] / len(code), 1e-6, 1 - 1e-6)
+    start = np.r_[np.log(cum / (1 - cum)), np.zeros(X.shape[1])]
+    params, _, _, H, _, ok = newton(ordinal_loglik(X, code, np.ones(len(X)), m + 1), start)
+    cov = inverse(-H)
+    return LinearPredictor(params[m:], cov[m:, m:], 0.0, bool(ok), {"cuts": params[:m]})

@@ -1,0 +1,303 @@
+"""Cross-fitted prognostic index (Abadie, Chingos & West, Rev Econ Stat 2018).
+
+A model of the chosen outcome on the chosen covariates is fitted on the second arm
+(fit_on = "second") or on everyone without an arm term (fit_on = "all"), by K-fold
+cross-fitting: each patient in the fitting set gets the linear predictor of the fold model that
+did not see them; everyone else (the first arm, patients without the outcome) and any new
+patient gets the mean of the K fold models. An index fitted in-sample would carry each fitting
+patient's own noise and fake effect modification along the index.
+
+Orientation: higher = worse prognosis. Cox: log hazard. Proportional odds: log odds of a worse
+level. Logistic: log odds of the outcome, negated when higher_is_better (so log odds of 0).
+Linear: the predicted outcome, negated when higher_is_better.
+"""
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+from sklearn.model_selection import KFold
+
+from ..errors import FulcrumError
+from ..spec import IndexSpec, OutcomeSpec, Spec
+from .concordance import harrell_c
+from .columns import MAX_ERROR_ROWS, as_float, describe_missing
+from .lp_models import MODEL_OF_KIND, SCALE_OF_KIND, LinearPredictor, Target, fit_linear_predictor
+
+MIN_PER_FOLD = 5
+EVENTS_PER_COVARIATE = 10  # common practice
+
+
+@dataclass
+class PrognosticModel:
+    """The K fold models of a cross-fitted index; `compute` gives a new patient the mean of them.
+
+    fold_of: per cohort row, the fold whose model left that row out (-1: not in the fitting set,
+    valued by the mean of the fold models). fold_models[k] was fitted without the rows of fold k.
+    """
+
+    outcome: str
+    kind: str
+    covariates: tuple[str, ...]
+    center: np.ndarray
+    sign: float
+    fold_models: list[LinearPredictor]
+    full: LinearPredictor
+    fold_of: np.ndarray
+    key: str | None = None
+    report: dict = field(default_factory=dict)
+
+    @property
+    def columns(self) -> tuple[str, ...]:
+        return self.covariates
+
+    def fold_values(self, X: np.ndarray) -> np.ndarray:
+        """Oriented index of each fold model, (K, n), from raw covariate rows X."""
+        Xc = np.asarray(X, float).reshape(-1, len(self.covariates)) - self.center
+        return self.sign * np.vstack([m(Xc) for m in self.fold_models])
+
+    def compute(self, data: pd.DataFrame | Mapping[str, Any]) -> np.ndarray:
+        """The index for new patients (mean of the K fold models); every covariate must be given."""
+        X = _covariates(data, self.covariates, self.key)
+        bad = np.flatnonzero(~np.all(np.isfinite(X), axis=1))
+        if len(bad):
+            missing = [c for j, c in enumerate(self.covariates) if not np.isfinite(X[bad[0], j])]
+            raise FulcrumError(f"the prognostic index needs {', '.join(self.covariates)}; "
+                               f"{', '.join(missing)} is missing.", key=self.key,
+                               rows=(bad[:MAX_ERROR_ROWS] + 1).tolist(), n_rows=len(bad),
+                               hint="Give a value for every covariate of the prognostic model.")
+        return self.fold_values(X).mean(axis=0)
+
+
+def cross_fitted_index(index: IndexSpec, frame: pd.DataFrame, spec: Spec, *, key: str, seed: int,
+                       level: float, groups: np.ndarray | None = None
+                       ) -> tuple[np.ndarray, PrognosticModel, list[str]]:
+    """Out-of-fold index values for every cohort row (NaN where covariates are missing) and the model."""
+    p = index.prognostic
+    assert p is not None
+    outcome = _outcome(spec, p.outcome, key)
+    X = _covariates(frame, p.covariates, f"{key}.prognostic.covariates")
+    target, has_outcome = outcome_target(outcome, frame, f"{key}.prognostic.outcome")
+    complete = np.all(np.isfinite(X), axis=1)
+    in_arm = _arm_mask(frame, spec, spec.second) if p.fit_on == "second" else np.ones(len(frame), bool)
+    fit = np.flatnonzero(complete & has_outcome & in_arm)
+    _check_size(fit, target, p.folds, len(p.covariates), outcome, p.fit_on, spec, key)
+    center = X[fit].mean(axis=0)
+    Xc = np.where(complete[:, None], X - center, 0.0)
+    _check_rank(Xc[fit], p.covariates, f"{key}.prognostic.covariates")
+    sign = -1.0 if outcome.kind in ("binary", "continuous") and outcome.higher_is_better else 1.0
+    fold_of = np.full(len(frame), -1)
+    models, lp = [], np.full(len(frame), np.nan)
+    for k, (train, held) in enumerate(_folds(fit, p.folds, seed, groups)):
+        m = fit_linear_predictor(Xc[train], target.take(train))
+        models.append(m)
+        fold_of[held] = k
+        lp[held] = m(Xc[held])
+    others = np.flatnonzero(complete & (fold_of < 0))
+    lp[others] = np.mean([m(Xc[others]) for m in models], axis=0)
+    full = fit_linear_predictor(Xc[fit], target.take(fit))
+    model = PrognosticModel(outcome.name, outcome.kind, tuple(p.covariates), center, sign, models, full, fold_of,
+                            key=key)
+    model.report = _report(index, outcome, model, Xc[fit], lp[fit], target.take(fit), seed, level)
+    missing = describe_missing(dict(zip(p.covariates, X.T)))
+    warnings = _warnings(index, outcome, complete, has_outcome, in_arm, model, missing)
+    return sign * lp, model, warnings
+
+
+def outcome_target(outcome: OutcomeSpec, frame: pd.DataFrame, key: str) -> tuple[Target, np.ndarray]:
+    """The outcome's arrays (NaN where missing) and the mask of rows that have it."""
+    if outcome.kind == "survival":
+        time = as_float(_column(frame, outcome.time, key), outcome.time, key)
+        event = as_float(_column(frame, outcome.event, key), outcome.event, key)
+        has = np.isfinite(time) & np.isfinite(event)
+        _refuse_rows(has & (time <= 0), outcome.time, key, "follow-up times must be positive")
+        _refuse_rows(has & ~np.isin(event, (0.0, 1.0)), outcome.event, key, "the event column must hold 0 or 1")
+        return Target("survival", time=time, event=event), has
+    raw = _column(frame, outcome.column, key)
+    if outcome.kind == "ordinal":
+        y = _ordinal_codes(raw, outcome, key)
+    else:
+        y = as_float(raw, outcome.column, key)
+    has = np.isfinite(y)
+    if outcome.kind == "binary":
+        _refuse_rows(has & ~np.isin(y, (0.0, 1.0)), outcome.column, key, "a binary outcome must hold 0 or 1")
+    return Target(outcome.kind, y=y), has
+
+
+def _ordinal_codes(raw: pd.Series, outcome: OutcomeSpec, key: str) -> np.ndarray:
+    levels = {str(level): i for i, level in enumerate(outcome.levels)}
+    values = raw.astype(object)
+    text = values.map(lambda v: None if pd.isna(v) else (str(int(v)) if isinstance(v, float) and v.is_integer()
+                                                         else str(v)))
+    codes = text.map(lambda v: np.nan if v is None else levels.get(v, -1.0)).to_numpy(float)
+    _refuse_rows(codes == -1.0, outcome.column, key, f"values that are not levels of '{outcome.name}' "
+                 f"({', '.join(outcome.levels)})")
+    return codes
+
+
+def _refuse_rows(bad: np.ndarray, column: str | None, key: str, what: str) -> None:
+    rows = np.flatnonzero(bad)
+    if len(rows):
+        raise FulcrumError(f"column '{column}': {what}.", key=key, column=column,
+                           rows=(rows[:MAX_ERROR_ROWS] + 1).tolist(), n_rows=len(rows),
+                           hint="Fix these rows in the cohort file.")
+
+
+def _outcome(spec: Spec, name: str, key: str) -> OutcomeSpec:
+    try:
+        return spec.outcome(name)
+    except KeyError:
+        raise FulcrumError(f"the prognostic index names outcome '{name}', which the spec does not define.",
+                           key=f"{key}.prognostic.outcome",
+                           hint=f"Outcomes: {', '.join(o.name for o in spec.outcomes)}.") from None
+
+
+def _column(frame: pd.DataFrame, column: str | None, key: str) -> pd.Series:
+    if column is None or column not in frame.columns:
+        raise FulcrumError(f"column '{column}' is not in the cohort.", key=key, column=column,
+                           hint="Check the column name, or load it as an extra column.")
+    return frame[column]
+
+
+def _covariates(data: pd.DataFrame | Mapping[str, Any], names: tuple[str, ...], key: str | None) -> np.ndarray:
+    cols = []
+    for c in names:
+        if c not in data:
+            raise FulcrumError(f"covariate '{c}' of the prognostic index is not in the data.", key=key, column=c,
+                               hint="Check the covariate names against the cohort columns.")
+        cols.append(as_float(data[c], c, key))
+    return np.column_stack(cols) if cols else np.zeros((len(data), 0))
+
+
+def _arm_mask(frame: pd.DataFrame, spec: Spec, arm: str) -> np.ndarray:
+    values = _column(frame, spec.cohort.arm, "cohort.arm")
+    mask = values.astype(str).str.strip().to_numpy() == arm
+    if not mask.any() and pd.api.types.is_numeric_dtype(values):
+        try:
+            mask = values.to_numpy(float) == float(arm)
+        except ValueError:
+            pass
+    return mask
+
+
+def _folds(fit: np.ndarray, k: int, seed: int, groups: np.ndarray | None):
+    """(train rows, held-out rows) per fold; copies of one patient (same group) share a fold."""
+    splitter = KFold(n_splits=k, shuffle=True, random_state=seed)
+    if groups is None:
+        for train, held in splitter.split(fit):
+            yield fit[train], fit[held]
+        return
+    unique, member = np.unique(np.asarray(groups)[fit], return_inverse=True)
+    for _, held_groups in splitter.split(unique):
+        held = np.isin(member.reshape(-1), held_groups)
+        yield fit[~held], fit[held]
+
+
+def _check_size(fit: np.ndarray, target: Target, folds: int, p: int, outcome: OutcomeSpec, fit_on: str,
+                spec: Spec, key: str) -> None:
+    where = f"the {spec.second} arm" if fit_on == "second" else "the cohort"
+    need = max(folds * MIN_PER_FOLD, -(-(p + 2) * folds // (folds - 1)))
+    if len(fit) < need:
+        raise FulcrumError(f"only {len(fit)} patients in {where} have '{outcome.name}' and every covariate; "
+                           f"{folds}-fold cross-fitting of {p} covariate(s) needs at least {need}.",
+                           key=f"{key}.prognostic", hint="Use fewer covariates or folds, or fit_on = \"all\".")
+    if outcome.kind in ("binary", "ordinal", "survival"):
+        values = target.event if outcome.kind == "survival" else target.y
+        distinct = np.unique(values[fit])
+        if len(distinct) < 2:
+            raise FulcrumError(f"every patient in {where} has the same value of '{outcome.name}' "
+                               f"({distinct[0]:g}), so a prognostic model cannot be fitted.",
+                               key=f"{key}.prognostic.outcome", hint="Choose an outcome that varies.")
+
+
+def _check_rank(X: np.ndarray, names: tuple[str, ...], key: str) -> None:
+    for j in range(X.shape[1]):
+        if np.linalg.matrix_rank(np.column_stack([np.ones(len(X)), X[:, :j + 1]])) < j + 2:
+            raise FulcrumError(f"covariate '{names[j]}' is constant or fully determined by the covariates before "
+                               "it, so the prognostic model cannot estimate its effect.", key=key, column=names[j],
+                               hint="Remove it from the covariates.")
+
+
+def _report(index: IndexSpec, outcome: OutcomeSpec, model: PrognosticModel, X: np.ndarray, oof: np.ndarray,
+            target: Target, seed: int, level: float) -> dict:
+    p = index.prognostic
+    assert p is not None
+    z = float(stats.norm.ppf(0.5 + level / 2))
+    full = model.full
+    coefficients = [{"name": n, "estimate": float(b), "se": float(s), "ci": [float(b - z * s), float(b + z * s)]}
+                    for n, b, s in zip(model.covariates, full.coef, full.se)]
+    calibration = fit_linear_predictor(oof[:, None], target)
+    slope, slope_se = float(calibration.coef[0]), float(calibration.se[0])
+    return {
+        "outcome": outcome.name,
+        "model": MODEL_OF_KIND[outcome.kind],
+        "scale": SCALE_OF_KIND[outcome.kind],
+        "fit_on": p.fit_on,
+        "folds": p.folds,
+        "seed": seed,
+        "n_fit": int(len(oof)),
+        "n_events": int(np.sum(target.event)) if outcome.kind == "survival" else None,
+        "coefficients": coefficients,
+        "intercept": float(full.intercept) if outcome.kind in ("binary", "continuous") else None,
+        "centre": {n: float(c) for n, c in zip(model.covariates, model.center)},
+        "orientation": orientation(outcome),
+        "c_index": _discrimination(outcome, target, model.sign * oof, level).as_dict(),
+        "calibration_slope": {"estimate": slope, "se": slope_se, "ci": [slope - z * slope_se, slope + z * slope_se],
+                              "level": level, "method": f"{MODEL_OF_KIND[outcome.kind]} regression of the outcome "
+                              "on the out-of-fold linear predictor in the fitting set (1 = well calibrated)"},
+        "converged": bool(full.converged and all(m.converged for m in model.fold_models)),
+        "method": (f"{MODEL_OF_KIND[outcome.kind]} model of {outcome.title} on {', '.join(model.covariates)}, "
+                   f"fitted on {'the second arm' if p.fit_on == 'second' else 'all patients without an arm term'} "
+                   f"by {p.folds}-fold cross-fitting (seed {seed}): patients in the fitting set take the value of "
+                   "the fold model that did not see them, everyone else (and a new patient) the mean of the "
+                   f"{p.folds} fold models. Coefficients are from the fit on the whole fitting set, covariates "
+                   "centred at its means."),
+    }
+
+
+def orientation(outcome: OutcomeSpec) -> str:
+    """One sentence saying what a higher index means."""
+    flipped = outcome.kind in ("binary", "continuous") and outcome.higher_is_better
+    what = {"survival": f"a higher predicted hazard of the event in '{outcome.title}'",
+            "ordinal": f"higher odds of a worse level of {outcome.title}",
+            "binary": f"{'lower' if flipped else 'higher'} predicted odds of {outcome.title}",
+            "continuous": f"a {'lower' if flipped else 'higher'} predicted {outcome.title}"}[outcome.kind]
+    return f"Higher index = worse prognosis: {what}."
+
+
+def _discrimination(outcome: OutcomeSpec, target: Target, index: np.ndarray, level: float):
+    if outcome.kind == "survival":
+        return harrell_c(target.time, target.event, index, level)
+    badness = np.asarray(target.y, float)
+    if outcome.kind in ("binary", "continuous") and outcome.higher_is_better:
+        badness = -badness
+    return harrell_c(-badness, np.ones(len(badness)), index, level)
+
+
+def _warnings(index: IndexSpec, outcome: OutcomeSpec, complete: np.ndarray, has_outcome: np.ndarray,
+              in_arm: np.ndarray, model: PrognosticModel, missing: str) -> list[str]:
+    p = index.prognostic
+    assert p is not None
+    out = []
+    name = index.title
+    if (~complete).any():
+        out.append(f"Index '{name}': {int((~complete).sum())} of {len(complete)} patients lack a covariate of the "
+                   f"prognostic model (missing: {missing}) and have no index value.")
+    valued = complete & (model.fold_of < 0)
+    no_outcome = valued & in_arm & ~has_outcome
+    if no_outcome.any():
+        out.append(f"Index '{name}': {int(no_outcome.sum())} patients without '{outcome.name}' were left out of "
+                   f"the fitting and take the mean of the {p.folds} fold models.")
+    events = model.report["n_events"] if outcome.kind == "survival" else None
+    if events is not None and events < EVENTS_PER_COVARIATE * len(model.covariates):
+        out.append(f"Index '{name}': {events} events for {len(model.covariates)} covariates (fewer than "
+                   f"{EVENTS_PER_COVARIATE} per covariate); the prognostic model may be overfitted.")
+    if not model.report["converged"]:
+        out.append(f"Index '{name}': the prognostic model did not settle (a covariate may predict the outcome "
+                   "perfectly); its coefficients are unreliable.")
+    return out
+

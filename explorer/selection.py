@@ -808,18 +808,18 @@ def analyse_selection(fs: an.FitSet, *, shift_interval: str | None = None, repli
     """Every outcome x index x arm: selection effect, break-even from randomised, all and weighted chosen
     patients, their shift and E-values. Empty when the cohort names no allocation column.
 
-    shift_interval: "delta" (see shift_delta) or "bootstrap" (within arm x allocation strata, seeded from
-    analysis.seed, `replicates` defaulting to min(analysis.replicates, SHIFT_REPLICATES)); by default the
-    analysis interval decides ("analytic" -> delta).
+    The shift's interval: "bootstrap" within arm x allocation strata, seeded from analysis.seed, with
+    `replicates` (None: min(analysis.replicates, SHIFT_REPLICATES)); replicates = 0 gives the quick delta
+    interval instead (see shift_delta). shift_interval = "delta" or "bootstrap" overrides that choice.
     """
     spec = fs.spec
     if fs.cohort.randomised is None:
         return SelectionResults({}, {}, [], {})
     if shift_interval is None:
-        shift_interval = "bootstrap" if spec.analysis.interval == "bootstrap" else "delta"
+        shift_interval = "delta" if replicates == 0 else "bootstrap"
     if shift_interval not in ("delta", "bootstrap"):
         raise FulcrumError(f"unknown shift interval '{shift_interval}'.", hint="Use 'delta' or 'bootstrap'.")
-    if replicates is None:
+    if replicates is None or (shift_interval == "bootstrap" and replicates <= 0):
         replicates = min(spec.analysis.replicates, SHIFT_REPLICATES)
     cache: dict = {}
     pairs = {key: fit_selection(fs, *key, cache=cache) for key in fs.pairs}

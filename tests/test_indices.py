@@ -413,3 +413,45 @@ def test_in_sample_index_fakes_effect_modification_and_the_cross_fitted_one_much
           f"(MC s.e. {se_in:.3f}), cross-fitted {bias_cf:+.3f} (MC s.e. {se_cf:.3f})")
     assert bias_in < -5 * se_in
     assert abs(bias_in) > 2 * abs(bias_cf)
+
+
+# ---------------------------------------------------------------------------------------------
+# a formula that is a linear transform of a column moves the break-even by that transform
+# ---------------------------------------------------------------------------------------------
+def test_a_linear_transform_of_a_column_moves_the_break_even_by_that_transform(demo_spec: Spec) -> None:
+    """Per-arm models linear in the index are re-parametrised exactly by x' = a x + c (closed form), so every
+    break-even and every Fieller end moves to a x + c; a < 0 reverses the order and the interval ends."""
+    import dataclasses
+
+    from explorer.analysis import fit_all, summarise
+    from explorer.cohort import load_cohort
+
+    plain = IndexSpec(name="cfs", column="cfs")
+    scaled = IndexSpec(name="scaled", formula="2.5 * cfs + 10")
+    flipped = IndexSpec(name="flipped", formula="3 - cfs / 2")
+    spec = dataclasses.replace(demo_spec, indices=(plain, scaled, flipped), values=None, maps=())
+    fs = fit_all(spec, load_cohort(spec, extra_columns=needed_columns(spec)))
+    summaries = summarise(fs)
+    checked = 0
+    for outcome in spec.outcomes:
+        base = summaries[(outcome.name, "cfs")].break_even
+        for name, a, c in (("scaled", 2.5, 10.0), ("flipped", -0.5, 3.0)):
+            moved = summaries[(outcome.name, name)].break_even
+            assert len(moved) == len(base), (outcome.name, name)
+            for b, m in zip(sorted(base, key=lambda r: a * r.x), sorted(moved, key=lambda r: r.x)):
+                assert m.x == pytest.approx(a * b.x + c, rel=1e-6, abs=1e-6)
+                ends = sorted(a * e + c for e in b.ci if e is not None)
+                assert sorted(e for e in m.ci if e is not None) == pytest.approx(ends, rel=1e-5, abs=1e-5)
+                checked += 1
+    print(f"\n{checked} break-evens moved by the transform")
+    assert checked >= 1
+
+
+def test_few_events_per_covariate_are_warned_about() -> None:
+    frame = cohort(300, seed=11)
+    rare = np.zeros(300)
+    rare[np.flatnonzero(frame["arm"] == ARMS[1])[:12]] = 1.0
+    spec, index = prognostic_spec("binary")
+    iv = compute_index(index, frame.assign(dead90=rare), spec=spec)
+    assert iv.info["prognostic"]["n_events"] == 12
+    assert any("12 events for 3 covariates (fewer than 10 per covariate)" in w for w in iv.warnings)

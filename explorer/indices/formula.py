@@ -178,7 +178,7 @@ def _parse(source: str, bare: Formula, offset: int) -> ast.Expression:
         if "null bytes" in detail or e.offset is None:
             raise bare.refuse(None, f"the formula is not a valid expression ({detail})") from None
         at = min(max(int(e.offset), 1), len(source) + 1)
-        near = source[at - 1:at + 9].strip() or "the end"
+        near = bare.text[offset + at - 1:offset + at + 9].strip() or "the end"
         raise bare.refuse(None, f"the formula is not a valid expression near character {at + offset} "
                                 f"('{near}'): {detail}",
                           "Check brackets and operators; columns with spaces go in backticks.") from None

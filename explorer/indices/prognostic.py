@@ -240,7 +240,7 @@ def _report(index: IndexSpec, outcome: OutcomeSpec, model: PrognosticModel, X: n
         "folds": p.folds,
         "seed": seed,
         "n_fit": int(len(oof)),
-        "n_events": int(np.sum(target.event)) if outcome.kind == "survival" else None,
+        "n_events": _events(target),
         "coefficients": coefficients,
         "intercept": float(full.intercept) if outcome.kind in ("binary", "continuous") else None,
         "centre": {n: float(c) for n, c in zip(model.covariates, model.center)},
@@ -257,6 +257,13 @@ def _report(index: IndexSpec, outcome: OutcomeSpec, model: PrognosticModel, X: n
                    f"{p.folds} fold models. Coefficients are from the fit on the whole fitting set, covariates "
                    "centred at its means."),
     }
+
+
+def _events(target: Target) -> int | None:
+    """Events (survival) or patients with the outcome coded 1 (binary); None for other kinds."""
+    if target.kind == "survival":
+        return int(np.sum(target.event))
+    return int(np.sum(target.y)) if target.kind == "binary" else None
 
 
 def orientation(outcome: OutcomeSpec) -> str:
@@ -292,7 +299,9 @@ def _warnings(index: IndexSpec, outcome: OutcomeSpec, complete: np.ndarray, has_
     if no_outcome.any():
         out.append(f"Index '{name}': {int(no_outcome.sum())} patients without '{outcome.name}' were left out of "
                    f"the fitting and take the mean of the {p.folds} fold models.")
-    events = model.report["n_events"] if outcome.kind == "survival" else None
+    events = model.report["n_events"]
+    if outcome.kind == "binary":
+        events = min(events, model.report["n_fit"] - events)
     if events is not None and events < EVENTS_PER_COVARIATE * len(model.covariates):
         out.append(f"Index '{name}': {events} events for {len(model.covariates)} covariates (fewer than "
                    f"{EVENTS_PER_COVARIATE} per covariate); the prognostic model may be overfitted.")

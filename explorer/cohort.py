@@ -1,0 +1,676 @@
+"""Read a cohort file (CSV, TSV, Excel, Parquet) and check it against the spec.
+
+Values are read as the literal text in the file, so an arm or level called "NA" stays a label; only
+empty cells are missing. Every problem is a FulcrumError naming file, column, rows and what to do.
+"""
+from __future__ import annotations
+
+import csv
+import difflib
+import hashlib
+import io
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from .errors import FulcrumError
+from .spec import OutcomeSpec, Spec
+
+FORMATS = (".csv", ".tsv", ".xlsx", ".parquet")
+MIN_PATIENTS = 20
+MIN_EVENTS = 10
+REFUSE_EVENTS = 5
+ONE_WORDS = {"1": 1.0, "true": 1.0, "yes": 1.0, "0": 0.0, "false": 0.0, "no": 0.0}
+MISSING_WORDS = ("na", "n/a", "nan", "null", "none")
+TEXT_ROLES = ("arm", "id", "allocation", "cluster", "ordinal")
+SHOWN = 20
+
+Raw = dict[str, pd.Series]
+Opener = Callable[[set[str], set[str]], Raw]
+
+
+@dataclass
+class Cohort:
+    """A checked cohort: only the columns the spec reads, typed, with what was noticed on the way."""
+
+    spec: Spec
+    frame: pd.DataFrame
+    path: Path | None
+    name: str
+    sha256: str
+    warnings: list[str]
+    randomised: pd.Series | None
+    notes: list[str]
+    missing: dict[str, int] = field(default_factory=dict)
+
+    @property
+    def n(self) -> int:
+        return len(self.frame)
+
+    def complete(self, outcome: OutcomeSpec, extra: Sequence[str] = ()) -> np.ndarray:
+        """Rows with every column of this outcome (and of `extra`, e.g. index columns) present."""
+        cols = list(dict.fromkeys([*outcome.columns, *extra]))
+        absent = [c for c in cols if c not in self.frame.columns]
+        if absent:
+            raise KeyError(f"columns {absent} were not loaded; pass them to load_cohort(extra_columns=...)")
+        return self.frame[cols].notna().all(axis=1).to_numpy()
+
+    def counts(self) -> pd.DataFrame:
+        """Patients by arm (rows, in the spec's order) and allocation (randomised, chosen, total)."""
+        arm = pd.Categorical(self.frame[self.spec.cohort.arm], categories=list(self.spec.cohort.arms))
+        if self.randomised is None:
+            out = pd.crosstab(arm, np.full(self.n, "total"), dropna=False)
+        else:
+            group = np.where(self.randomised.to_numpy(), "randomised", "chosen")
+            out = pd.crosstab(arm, pd.Categorical(group, categories=["randomised", "chosen"]), dropna=False)
+            out["total"] = out.sum(axis=1)
+        out.index.name, out.columns.name = "arm", None
+        return out
+
+
+# ---------------------------------------------------------------------------------------------
+# Which columns the spec reads, and in what role
+# ---------------------------------------------------------------------------------------------
+def column_roles(spec: Spec, extra_columns: Sequence[str] = ()) -> dict[str, list[tuple[str, str]]]:
+    """Every column the spec reads -> [(role, spec key that names it), ...] in spec order."""
+    roles: dict[str, list[tuple[str, str]]] = {}
+
+    def add(column: str | None, role: str, key: str) -> None:
+        if column:
+            roles.setdefault(column, []).append((role, key))
+
+    c = spec.cohort
+    add(c.arm, "arm", "cohort.arm")
+    add(c.id, "id", "cohort.id")
+    add(c.allocation, "allocation", "cohort.allocation")
+    add(c.cluster, "cluster", "cohort.cluster")
+    for col in c.covariates:
+        add(col, "covariate", "cohort.covariates")
+    for o in spec.outcomes:
+        where = f"outcomes '{o.name}'"
+        if o.kind == "survival":
+            add(o.time, "time", f"{where}.time")
+            add(o.event, "event", f"{where}.event")
+        else:
+            add(o.column, {"ordinal": "ordinal", "binary": "binary"}.get(o.kind, "continuous"), f"{where}.column")
+        for col in o.adjust:
+            add(col, "covariate", f"{where}.adjust")
+    for x in spec.indices:
+        add(x.column, "index", f"indices '{x.name}'.column")
+        if x.prognostic:
+            for col in x.prognostic.covariates:
+                add(col, "covariate", f"indices '{x.name}'.prognostic.covariates")
+    if spec.selection:
+        for col in spec.selection.covariates:
+            add(col, "covariate", "selection.covariates")
+    for col in extra_columns:
+        add(col, "covariate", "extra_columns")
+    return roles
+
+
+# ---------------------------------------------------------------------------------------------
+# Loading
+# ---------------------------------------------------------------------------------------------
+def load_cohort(spec: Spec, *, data: bytes | None = None, filename: str | None = None,
+                extra_columns: Sequence[str] = ()) -> Cohort:
+    """Read the cohort named by the spec (or uploaded bytes) and check it; the file is only read."""
+    path = None if data is not None else Path(spec.cohort.path)
+    name = filename or (path.name if path else Path(spec.cohort.path).name)
+    shown = str(path) if path else name
+    if path is not None:
+        if not path.is_file():
+            raise FulcrumError("the cohort file does not exist." if not path.exists() else
+                               "the cohort path is a folder, not a file.", file=shown, key="cohort.path",
+                               hint="Check cohort.path in the spec; it is read relative to the spec file's folder.")
+        data = path.read_bytes()
+    assert data is not None
+    roles = column_roles(spec, extra_columns)
+    numeric = {col for col, rs in roles.items() if not {r for r, _ in rs} & set(TEXT_ROLES)}
+    header, raw = _read(data, name, shown, spec.cohort.sheet, roles, numeric)
+    raw = {h: raw[h] for h in header if h in roles}
+    return _build(spec, raw, roles, path, name, shown, hashlib.sha256(data).hexdigest())
+
+
+def read_table(data: bytes, filename: str, sheet: str | None = None) -> pd.DataFrame:
+    """Every column of a cohort file as its literal text (None = empty cell), e.g. for a preview."""
+    header, raw = _read(data, filename, filename, sheet, {}, set())
+    return pd.DataFrame({h: raw[h] for h in header if h in raw})
+
+
+def _read(data: bytes, name: str, shown: str, sheet: str | None, roles: dict[str, list[tuple[str, str]]],
+          numeric: set[str]) -> tuple[list[str], Raw]:
+    """Check the format, open the file, check the header, read the wanted columns (all when roles is empty)."""
+    ext = Path(name).suffix.lower()
+    if ext not in FORMATS:
+        hint = "Save it as .xlsx (Excel 2007 or later) or .csv." if ext == ".xls" else \
+            "Save it as CSV (comma-separated), TSV (tab-separated), Excel .xlsx or Parquet."
+        raise FulcrumError(f"'{ext or 'no extension'}' files are not supported; Fulcrum reads "
+                           f"{', '.join(FORMATS)}.", file=shown, hint=hint)
+    if not data:
+        raise FulcrumError("the file is empty (0 bytes).", file=shown, hint="Check that the file was saved or "
+                           "uploaded completely.")
+    header, read = _open(data, ext, shown, sheet)
+    _check_header(header, roles, shown)
+    raw = read(set(roles) or {h for h in header if h}, numeric)
+    if not raw or not len(next(iter(raw.values()))):
+        raise FulcrumError("the file has column names but no data rows.", file=shown,
+                           hint="Add one row per patient under the header.")
+    return header, raw
+
+
+def _open(data: bytes, ext: str, file: str, sheet: str | None) -> tuple[list[str], Opener]:
+    if ext == ".xlsx":
+        return _open_xlsx(data, file, sheet)
+    if ext == ".parquet":
+        return _open_parquet(data, file)
+    return _open_text(data, "\t" if ext == ".tsv" else ",", file)
+
+
+def _wrong_kind(data: bytes, file: str) -> None:
+    """Refuse a binary file saved under a text extension, naming what it probably is."""
+    kinds = {b"PK\x03\x04": "an Excel .xlsx workbook (or another zip file)", b"PAR1": "a Parquet file",
+             b"\xd0\xcf\x11\xe0": "an old Excel .xls workbook", b"%PDF": "a PDF document"}
+    for magic, what in kinds.items():
+        if data.startswith(magic):
+            raise FulcrumError(f"this is {what}, not a text table.", file=file,
+                               hint="Give it the right extension, or save it as CSV UTF-8 from the program that "
+                                    "made it.")
+    if data.startswith((b"\xff\xfe", b"\xfe\xff")):
+        raise FulcrumError("the file is saved as UTF-16 text.", file=file,
+                           hint="Save it as UTF-8 (in Excel: Save As > 'CSV UTF-8').")
+    nul = data.find(b"\x00")
+    if nul >= 0:
+        raise FulcrumError(f"the file holds binary data (a zero byte at byte {nul}), so it is not a text table.",
+                           file=file, hint="Export the data as CSV UTF-8 and try again.")
+
+
+def _open_text(data: bytes, sep: str, file: str) -> tuple[list[str], Opener]:
+    _wrong_kind(data, file)
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = data.count(b"\n", 0, exc.start) + 1
+        raise FulcrumError(f"the file is not UTF-8 text: byte {exc.start} (line {line}) is "
+                           f"0x{data[exc.start]:02X}.", file=file,
+                           hint="Save the file as UTF-8 (in Excel: Save As > 'CSV UTF-8'), then load it again.") from None
+    if not text or text.isspace() or text == "\ufeff":
+        raise FulcrumError("the file holds no text, only blank space.", file=file,
+                           hint="Check that the file was saved or uploaded completely.")
+    end = text.find("\n", 1 << 16)
+    records = csv.reader(io.StringIO(text[:end] if end > 0 else text), delimiter=sep)
+    raw_header = next((r for r in records if any(x.strip() for x in r)), [])
+    if raw_header:
+        raw_header[0] = raw_header[0].removeprefix("\ufeff")
+    header = [h.strip() for h in raw_header]
+    if len(header) == 1:
+        found = {";": "semicolons", "\t": "tabs", ",": "commas"}
+        for other, word in found.items():
+            if other != sep and other in header[0]:
+                expected = "tabs" if sep == "\t" else "commas"
+                raise FulcrumError(f"wrong delimiter: the first line has one column, '{header[0][:60]}', "
+                                   f"which looks like values separated by {word}, but a {file.rsplit('.', 1)[-1]} "
+                                   f"file is read with {expected}.", file=file,
+                                   hint="Save the file with commas as .csv, or with tabs as .tsv.")
+
+    def read(wanted: set[str], numeric: set[str]) -> Raw:
+        import pyarrow.csv as pacsv
+
+        names = [r for r, h in zip(raw_header, header) if h in wanted]
+        try:
+            table = pacsv.read_csv(
+                io.BytesIO(data),
+                parse_options=pacsv.ParseOptions(delimiter=sep, newlines_in_values=True),
+                convert_options=pacsv.ConvertOptions(include_columns=names, strings_can_be_null=False,
+                                                     column_types={n: pa.string() for n in names}))
+        except pa.ArrowInvalid as exc:
+            raise _ragged(text, sep, len(raw_header), file, exc) from None
+        return {h.strip(): _arrow_text(col, h.strip() in numeric) for h, col in zip(table.column_names, table.columns)}
+
+    return header, read
+
+
+def _ragged(text: str, sep: str, width: int, file: str, exc: Exception) -> FulcrumError:
+    """Find the first row whose number of values differs from the header's (slow path, errors only)."""
+    records = csv.reader(io.StringIO(text.removeprefix("\ufeff")), delimiter=sep)
+    row = -1
+    for values in records:
+        if not values:
+            continue
+        row += 1
+        if len(values) != width:
+            more = len(values) > width
+            return FulcrumError(f"line {records.line_num} has {len(values)} values but the header names {width} "
+                                "columns.", file=file, rows=[row],
+                                hint="A value probably contains the delimiter: put quotes around it, or remove the "
+                                     "extra value." if more else "Add the missing values (empty cells are fine).")
+    return FulcrumError(f"the table could not be read ({exc}).", file=file,
+                        hint="Check quotes and delimiters around the place named.")
+
+
+def _arrow_text(col: pa.ChunkedArray, numeric: bool) -> pd.Series:
+    """Strip spaces, empty cells missing; a column wanted as numbers comes back as floats when it parses."""
+    col = pc.utf8_trim_whitespace(col)
+    col = pc.if_else(pc.equal(col, ""), pa.scalar(None, pa.string()), col)
+    if numeric:
+        try:
+            values = pc.cast(col, pa.float64()).to_numpy(zero_copy_only=False)
+        except pa.ArrowInvalid:
+            pass
+        else:
+            if not np.isinf(values).any() and np.isnan(values).sum() == col.null_count:
+                return pd.Series(values)
+    return pd.Series(col.to_numpy(zero_copy_only=False), dtype=object)
+
+
+NUMBER = r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$"
+
+
+def _floats(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """Numbers from text cells (None = missing): values (NaN where missing or bad) and the mask of entries
+    that are not finite numbers. Arrow parses, as for CSV columns, so every file format agrees."""
+    cells = pa.array(s.to_numpy(dtype=object), type=pa.string())
+    ok = pc.fill_null(pc.match_substring_regex(cells, NUMBER), True)
+    values = pc.cast(pc.if_else(ok, cells, pa.scalar(None, pa.string())), pa.float64()).to_numpy(zero_copy_only=False)
+    bad = ~ok.to_numpy(zero_copy_only=False) | np.isinf(values)
+    return np.where(bad, np.nan, values), bad
+
+
+def _open_xlsx(data: bytes, file: str, sheet: str | None) -> tuple[list[str], Opener]:
+    if not data.startswith(b"PK\x03\x04"):
+        old = data.startswith(b"\xd0\xcf\x11\xe0")
+        raise FulcrumError("this is an old Excel .xls workbook." if old else "this is not an Excel .xlsx workbook.",
+                           file=file, hint="Open it in Excel and save it as .xlsx, or export CSV UTF-8.")
+    import openpyxl
+
+    try:
+        book = openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=True)
+    except Exception as exc:  # openpyxl raises many types for damaged workbooks
+        raise FulcrumError(f"the workbook could not be opened ({type(exc).__name__}: {exc}).", file=file,
+                           hint="Open it in Excel, save it again as .xlsx, or export CSV UTF-8.") from None
+    names = book.sheetnames
+    if sheet is None and len(names) > 1:
+        raise FulcrumError(f"the workbook has {len(names)} sheets: {', '.join(repr(n) for n in names)}.", file=file,
+                           key="cohort.sheet", hint=f'Add sheet = "{names[0]}" (or another) to [cohort] in the spec.')
+    if sheet is not None and sheet not in names:
+        close = difflib.get_close_matches(sheet, names, n=1, cutoff=0.4)
+        raise FulcrumError(f"the workbook has no sheet '{sheet}'; its sheets are {', '.join(map(repr, names))}.",
+                           file=file, key="cohort.sheet",
+                           hint=f"Did you mean '{close[0]}'?" if close else "Name one of the sheets listed.")
+    rows = book[sheet or names[0]].iter_rows(values_only=True)
+    first = next(rows, None)
+    if first is None or all(v is None for v in first):
+        raise FulcrumError("the sheet is empty or its first row has no column names.", file=file,
+                           hint="Put the column names in the first row.")
+    header = [(_cell_text(v) or "") for v in first]
+
+    def read(wanted: set[str], numeric: set[str]) -> Raw:
+        keep = [i for i, h in enumerate(header) if h in wanted]
+        cols: dict[str, list] = {header[i]: [] for i in keep}
+        for row in rows:
+            if all(v is None or v == "" for v in row):
+                continue
+            for i in keep:
+                cols[header[i]].append(_cell_text(row[i]) if i < len(row) else None)
+        book.close()
+        return {h: pd.Series(v, dtype=object) for h, v in cols.items()}
+
+    return header, read
+
+
+def _cell_text(v: object) -> str | None:
+    """A spreadsheet or Parquet value as the text a person would type; None when empty."""
+    if v is None:
+        return None
+    if isinstance(v, (bool, np.bool_)):
+        return "true" if v else "false"
+    if isinstance(v, float):
+        if not np.isfinite(v):
+            return None if np.isnan(v) else str(v)
+        return str(int(v)) if v.is_integer() and abs(v) < 1e15 else repr(v)
+    if hasattr(v, "isoformat"):
+        return v.isoformat()
+    text = str(v).strip()
+    return text or None
+
+
+def _open_parquet(data: bytes, file: str) -> tuple[list[str], Opener]:
+    if not data.startswith(b"PAR1"):
+        raise FulcrumError("this is not a Parquet file.", file=file,
+                           hint="Give the file the extension of its real format (.csv, .tsv, .xlsx).")
+    import pyarrow.parquet as pq
+
+    try:
+        pf = pq.ParquetFile(io.BytesIO(data))
+    except Exception as exc:  # pyarrow raises ArrowInvalid, OSError... for damaged files
+        raise FulcrumError(f"the Parquet file could not be read ({exc}).", file=file,
+                           hint="Write the file again, or export CSV UTF-8.") from None
+    names = list(pf.schema_arrow.names)
+
+    def read(wanted: set[str], numeric: set[str]) -> Raw:
+        chosen = [n for n in names if n.strip() in wanted]
+        table = pf.read(columns=chosen)
+        return {name.strip(): _arrow_column(col, name.strip() in numeric) for name, col in zip(chosen, table.columns)}
+
+    return [n.strip() for n in names], read
+
+
+def _arrow_column(col: pa.ChunkedArray, numeric: bool) -> pd.Series:
+    """A typed Parquet column: numbers stay numbers where numbers are wanted, the rest becomes text."""
+    t = col.type
+    if pa.types.is_dictionary(t):
+        col, t = col.cast(t.value_type), t.value_type
+    plain = pa.types.is_integer(t) or pa.types.is_floating(t) or pa.types.is_boolean(t)
+    if plain and numeric:
+        return pd.Series(pc.cast(col, pa.float64()).to_numpy(zero_copy_only=False))
+    if plain or pa.types.is_string(t) or pa.types.is_large_string(t):
+        return _arrow_text(pc.cast(col, pa.string()), numeric)
+    return pd.Series([_cell_text(v) for v in col.to_pylist()], dtype=object)
+
+
+def _check_header(header: list[str], roles: dict[str, list[tuple[str, str]]], file: str) -> None:
+    seen: dict[str, int] = {}
+    for h in header:
+        if h:
+            seen[h] = seen.get(h, 0) + 1
+    dups = [h for h, k in seen.items() if k > 1]
+    if dups:
+        raise FulcrumError(f"the header repeats column names: {', '.join(repr(d) for d in dups)}.", file=file,
+                           column=dups[0], hint="Give every column its own name, then load the file again.")
+    absent = [c for c in roles if c not in seen]
+    if absent:
+        parts = []
+        for c in absent:
+            close = [h for h in seen if h.lower() == c.lower()] or difflib.get_close_matches(c, list(seen), n=2,
+                                                                                            cutoff=0.6)
+            parts.append(f"'{c}' (named by {roles[c][0][1]})" +
+                         (f" - did you mean {' or '.join(repr(x) for x in close)}?" if close else ""))
+        listed = ", ".join(list(seen)[:30]) + (" ..." if len(seen) > 30 else "")
+        raise FulcrumError(f"the file has no column {'; no column '.join(parts)}.", file=file, column=absent[0],
+                           key=roles[absent[0]][0][1],
+                           hint=f"Correct the name in the spec or in the file. Columns in the file: {listed}.")
+
+
+# ---------------------------------------------------------------------------------------------
+# Checking and typing the columns
+# ---------------------------------------------------------------------------------------------
+class _Checker:
+    """Types each column by its role; collects warnings and notes; raises on the first real problem."""
+
+    def __init__(self, spec: Spec, raw: Raw, roles: dict[str, list[tuple[str, str]]], file: str) -> None:
+        self.spec, self.raw, self.roles, self.file = spec, raw, roles, file
+        self.warnings: list[str] = []
+        self.notes: list[str] = []
+
+    def fail(self, what: str, column: str, mask: np.ndarray | None = None, hint: str | None = None) -> FulcrumError:
+        rows = np.flatnonzero(mask) + 1 if mask is not None else None
+        return FulcrumError(what, file=self.file, column=column, key=self.roles[column][0][1],
+                            rows=None if rows is None else rows[:SHOWN],
+                            n_rows=None if rows is None else len(rows), hint=hint)
+
+    def text(self, col: str) -> pd.Series:
+        s = self.raw[col]
+        if s.dtype == object:
+            return s
+        return pd.Series([_cell_text(v) for v in s.tolist()], dtype=object)
+
+    def required(self, s: pd.Series, col: str, what: str) -> None:
+        empty = s.isna().to_numpy()
+        if empty.any():
+            raise self.fail(f"{empty.sum()} empty cell(s); every patient needs {what}.", col, empty,
+                            hint="Fill in the empty cells, or remove those patients from the file.")
+
+    def column(self, col: str) -> pd.Series:
+        kinds = {r for r, _ in self.roles[col]}
+        text_roles = kinds.intersection(TEXT_ROLES)
+        if text_roles and kinds - set(TEXT_ROLES):
+            keys = ", ".join(k for _, k in self.roles[col])
+            raise self.fail(f"the column is used both as text and as numbers ({keys}).", col,
+                            hint="Use a separate column for each role.")
+        if "ordinal" in kinds:
+            return self.ordinal(col)
+        if kinds & {"arm", "id", "allocation", "cluster"}:
+            return self.text(col)
+        if kinds & {"event", "binary"}:
+            return self.zero_one(col, "event" in kinds)
+        if "time" in kinds:
+            return self.time(col)
+        return self.number(col, coding="covariate" in kinds)
+
+    def number(self, col: str, coding: bool = False) -> pd.Series:
+        s = self.raw[col]
+        if s.dtype != object:
+            s = s.astype(float)
+            inf = np.isinf(s.to_numpy())
+            if inf.any():
+                raise self.fail(f"{inf.sum()} entries are infinite.", col, inf, hint="Enter finite numbers only.")
+            return s
+        values, bad = _floats(s)
+        present = s.notna().to_numpy()
+        bad &= present
+        if not bad.any():
+            return pd.Series(values)
+        marked = [v for v in pd.unique(s[bad]) if v.lower() in MISSING_WORDS]
+        words = s.isin(marked).to_numpy() & bad
+        if words.any():
+            found = ", ".join(sorted(set(s[words])))
+            self.warnings.append(f"column '{col}': {words.sum()} cell(s) reading {found} were taken as missing "
+                                 "values.")
+            s = s.where(~words, None)
+            bad &= ~words
+            present &= ~words
+        if not bad.any():
+            return pd.Series(values)
+        if coding and not (present & ~bad).any():
+            return self.code(col, s)
+        offenders = ", ".join(f"'{v}'" for v in dict.fromkeys(s[bad].head(5)))
+        comma = s[bad].str.fullmatch(r"-?\d+,\d+").any()
+        hint = ("Use a point as the decimal mark (2.5, not 2,5)." if comma else
+                "Enter numbers only; leave a cell empty when the value is missing.")
+        raise self.fail(f"{bad.sum()} entr{'y is' if bad.sum() == 1 else 'ies are'} not numbers: {offenders}.",
+                        col, bad, hint=hint)
+
+    def code(self, col: str, s: pd.Series) -> pd.Series:
+        counts = s.value_counts()
+        if len(counts) != 2:
+            listed = ", ".join(f"'{v}' ({k})" for v, k in counts.head(8).items())
+            raise self.fail(f"a covariate holds text with {len(counts)} different value(s): {listed}.", col,
+                            hint="Code it as numbers (for example one 0/1 column per category) and name those "
+                                 "columns in the spec.")
+        zero, one = sorted(counts.index)
+        self.notes.append(f"covariate '{col}' is text with two values: coded '{one}' = 1, '{zero}' = 0.")
+        return s.map({zero: 0.0, one: 1.0}).astype(float)
+
+    def zero_one(self, col: str, event: bool) -> pd.Series:
+        s = self.raw[col]
+        meaning = "1 = event (death), 0 = censored" if event else "1 = yes, 0 = no"
+        if s.dtype != object:
+            out = s.astype(float)
+            bad = out.notna().to_numpy() & ~out.isin([0.0, 1.0]).to_numpy()
+            found = out[bad]
+        else:
+            low = s.str.lower()
+            out = low.map(ONE_WORDS).astype(float)
+            num = pd.to_numeric(s, errors="coerce")
+            out = out.fillna(num.where(num.isin([0, 1])))
+            bad = s.notna().to_numpy() & out.isna().to_numpy()
+            found = s[bad]
+            words = low.isin(["true", "false", "yes", "no"])
+            if words.any() and not bad.any():
+                self.notes.append(f"column '{col}': read true/yes as 1 and false/no as 0 ({meaning}).")
+        if bad.any():
+            counts = found.value_counts()
+            listed = ", ".join(f"'{v}' ({k})" for v, k in counts.head(6).items())
+            raise self.fail(f"values must be 0 or 1 ({meaning}); found {listed}.", col, bad,
+                            hint="Use 0 and 1 (true/false and yes/no are also read).")
+        return out
+
+    def time(self, col: str) -> pd.Series:
+        t = self.number(col)
+        empty = t.isna().to_numpy()
+        if empty.any():
+            raise self.fail(f"{empty.sum()} patient(s) have no follow-up time.", col, empty,
+                            hint="Fill in the time from the start of follow-up to the event or censoring.")
+        low = (t <= 0).to_numpy()
+        if low.any():
+            shown = ", ".join(f"{v:g}" for v in t[low].head(5))
+            raise self.fail(f"follow-up times must be positive; found {shown}.", col, low,
+                            hint="A patient who died or left on day 0 can be given a small positive time "
+                                 "(e.g. 0.5 days).")
+        return t
+
+    def ordinal(self, col: str) -> pd.Series:
+        levels = [lv for o in self.spec.outcomes if o.column == col and o.kind == "ordinal" for lv in o.levels]
+        levels = list(dict.fromkeys(levels))
+        s = self.text(col)
+        bad = s.notna().to_numpy() & ~s.isin(levels).to_numpy()
+        if bad.any():
+            counts = s[bad].value_counts()
+            first = s[bad].drop_duplicates().head(6)
+            listed = ", ".join(f"'{v}' (row {i + 1}{', ' + str(counts[v]) + ' rows in all' if counts[v] > 1 else ''})"
+                               for i, v in first.items())
+            close = difflib.get_close_matches(str(first.iloc[0]), levels, n=1, cutoff=0.5)
+            raise self.fail(f"{bad.sum()} value(s) are not among the declared levels {levels}: {listed}.", col, bad,
+                            hint=(f"Did you mean '{close[0]}'? " if close else "") +
+                            "Make every cell one of the levels exactly as written in the spec, or add the level "
+                            "to 'levels'.")
+        return pd.Series(pd.Categorical(s, categories=levels, ordered=True))
+
+    def arm(self, s: pd.Series) -> None:
+        col, arms = self.spec.cohort.arm, self.spec.cohort.arms
+        bad = ~s.isin(arms).to_numpy()
+        if bad.any():
+            counts = s.fillna("(empty)").value_counts()
+            listed = ", ".join(f"'{v}' ({k})" for v, k in counts.items())
+            odd = str(s[bad].fillna("(empty)").iloc[0])
+            close = difflib.get_close_matches(odd, list(arms), n=1, cutoff=0.5)
+            raise self.fail(f"arm values must be '{arms[0]}' or '{arms[1]}'; the column holds {listed}.", col, bad,
+                            hint=(f"'{odd}' looks like '{close[0]}'. " if close else "") +
+                            "Make every cell one of the two arms, or change cohort.arms to the labels in the file.")
+        for a in arms:
+            if not (s == a).any():
+                raise self.fail(f"no patient is in arm '{a}'; every patient is in '{s.iloc[0]}'.", col,
+                                hint="A comparison needs patients in both arms: check the file and cohort.arms.")
+
+    def ids(self, s: pd.Series) -> None:
+        if s.is_unique:
+            return
+        dup = s.duplicated(keep=False).to_numpy()
+        if dup.any():
+            shown = ", ".join(f"'{v}'" for v in dict.fromkeys(s[dup].head(10)))
+            raise self.fail(f"{s[dup].nunique()} identifier(s) appear more than once: {shown}.",
+                            self.spec.cohort.id, dup, hint="Give every patient one row with a unique identifier.")
+
+    def allocation(self, s: pd.Series) -> pd.Series:
+        col, marker = self.spec.cohort.allocation, self.spec.cohort.randomised
+        is_rand = (s == marker)
+        counts = s.value_counts()
+        self.notes.append(f"allocation column '{col}': " + ", ".join(f"'{v}' {k}" for v, k in counts.items())
+                          + f"; '{marker}' marks randomised patients, every other value chosen.")
+        if not is_rand.any():
+            close = [v for v in counts.index if str(v).strip().lower() == marker.lower()]
+            if close:
+                raise self.fail(f"no cell reads '{marker}' exactly, but {counts[close[0]]} read '{close[0]}'.", col,
+                                hint=f'Set randomised = "{close[0]}" in [cohort], or correct the file.')
+            self.warnings.append(f"no patient is marked '{marker}' in column '{col}', so every patient counts as "
+                                 "chosen and randomised-only analyses are not possible.")
+        return is_rand
+
+
+def _build(spec: Spec, raw: Raw, roles: dict[str, list[tuple[str, str]]], path: Path | None, name: str,
+           file: str, sha: str) -> Cohort:
+    chk = _Checker(spec, raw, roles, file)
+    c = spec.cohort
+    frame = pd.DataFrame({col: chk.column(col) for col in raw})
+    missing = {col: int(frame[col].isna().sum()) for col in frame.columns}
+    for col, what in ((c.arm, "an arm"), (c.id, "an identifier"), (c.allocation, "an allocation"),
+                      (c.cluster, "a cluster")):
+        if col and missing[col]:
+            chk.required(frame[col], col, what)
+    chk.arm(frame[c.arm])
+    if c.id:
+        chk.ids(frame[c.id])
+    randomised = chk.allocation(frame[c.allocation]) if c.allocation else None
+    for o in spec.outcomes:
+        if o.bounds:
+            out = ((frame[o.column] < o.bounds[0]) | (frame[o.column] > o.bounds[1])).to_numpy()
+            if out.any():
+                shown = ", ".join(f"{v:g}" for v in frame[o.column][out].head(5))
+                raise chk.fail(f"{out.sum()} value(s) lie outside the declared bounds {list(o.bounds)}: {shown}.",
+                               o.column, out, hint=f"Correct the values, or the bounds of outcome '{o.name}'.")
+    empties = [f"{col} {k}" for col, k in missing.items() if k]
+    if empties:
+        chk.notes.append("empty cells per column: " + ", ".join(empties) + ".")
+    cohort = Cohort(spec=spec, frame=frame, path=path, name=name, sha256=sha, warnings=chk.warnings,
+                    randomised=randomised, notes=chk.notes, missing=missing)
+    index_cols = [col for col, rs in roles.items() if any(r == "index" or k == "extra_columns" for r, k in rs)]
+    in_arm = {a: (frame[c.arm] == a).to_numpy() for a in c.arms}
+    dead = _died(cohort)
+    for outcome in spec.outcomes:
+        _outcome_checks(cohort, outcome, index_cols, in_arm, dead, file)
+    return cohort
+
+
+def _outcome_checks(cohort: Cohort, outcome: OutcomeSpec, index_cols: list[str], in_arm: dict[str, np.ndarray],
+                    dead: np.ndarray | None, file: str) -> None:
+    """Count patients left out for missing values, then apply the minimum-data rules per arm."""
+    spec, frame = cohort.spec, cohort.frame
+    used = list(dict.fromkeys([*outcome.columns, *index_cols]))
+    ok = cohort.complete(outcome, index_cols)
+    if not ok.all():
+        why = ", ".join(f"{c} {int(frame[c].isna().sum())}" for c in used if frame[c].isna().any())
+        per_arm = ", ".join(f"{a} {int(((~ok) & in_arm[a]).sum())}" for a in spec.cohort.arms)
+        text = (f"outcome '{outcome.name}': {int((~ok).sum())} of {len(ok)} patients are left out for missing "
+                f"values ({why}): {per_arm}.")
+        if outcome.among_survivors and dead is not None:
+            expected = (~ok) & dead & frame[outcome.column].isna().to_numpy()
+            cohort.notes.append(f"outcome '{outcome.name}' is measured among survivors: {int(expected.sum())} "
+                                "patients who died have no value, as expected.")
+            others = (~ok) & ~expected
+            if others.any():
+                per_arm = ", ".join(f"{a} {int((others & in_arm[a]).sum())}" for a in spec.cohort.arms)
+                cohort.warnings.append(f"outcome '{outcome.name}': besides those who died, {int(others.sum())} "
+                                       f"patients are left out for missing values ({why}): {per_arm}.")
+        else:
+            cohort.warnings.append(text)
+    for a in spec.cohort.arms:
+        rows = ok & in_arm[a]
+        n, events, word = _events(frame, outcome, rows)
+        label = f"outcome '{outcome.name}' in arm '{a}'"
+        if events < REFUSE_EVENTS:
+            raise FulcrumError(f"{label} has only {events} {word} among {n} patients with data; at least "
+                               f"{REFUSE_EVENTS} are needed, so this analysis is refused.", file=file,
+                               column=outcome.columns[0], key=f"outcomes '{outcome.name}'",
+                               hint="Remove this outcome from the spec, combine levels, or use a larger cohort.")
+        if n < MIN_PATIENTS:
+            cohort.warnings.append(f"{label} has only {n} patients with data (fewer than {MIN_PATIENTS}); its "
+                                   "curve will be very uncertain.")
+        elif events < MIN_EVENTS and word != "patients":
+            cohort.warnings.append(f"{label} has only {events} {word} (fewer than {MIN_EVENTS}); its curve will "
+                                   "be very uncertain.")
+
+
+def _events(frame: pd.DataFrame, outcome: OutcomeSpec, rows: np.ndarray) -> tuple[int, int, str]:
+    """(patients, events, what the events are) for the minimum-data rules."""
+    n = int(rows.sum())
+    if outcome.kind == "survival":
+        return n, int(frame[outcome.event].to_numpy()[rows].sum()), "deaths (events)"
+    if outcome.kind == "binary":
+        ones = int(frame[outcome.column].to_numpy()[rows].sum())
+        return n, min(ones, n - ones), "patients in the rarer outcome group"
+    if outcome.kind == "ordinal":
+        fav = int(frame[outcome.column][rows].isin(outcome.favourable).sum())
+        return n, min(fav, n - fav), "patients in the smaller of the favourable and unfavourable groups"
+    return n, n, "patients"
+
+
+def _died(cohort: Cohort) -> np.ndarray | None:
+    """Who died during follow-up, from the first survival outcome; None without one."""
+    for o in cohort.spec.outcomes:
+        if o.kind == "survival":
+            return (cohort.frame[o.event] == 1).to_numpy()
+    return None

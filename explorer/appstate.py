@@ -27,8 +27,9 @@ NAME_HINTS: dict[str, tuple[str, ...]] = {
     "allocation": ("allocation", "allocated", "assignment", "assigned", "randomised", "randomized", "route"),
     "cluster": ("hospital", "site", "centre", "center", "cluster", "unit", "trust"),
     "time": ("time", "days", "followed", "follow", "futime", "fu", "survival", "months", "years", "duration"),
-    "event": ("event", "died", "dead", "death", "status", "fustat", "deceased"),
-    "index": ("cfs", "frail", "frailty", "age", "score", "index", "risk", "asa", "lactate", "albumin"),
+    "event": ("event", "died", "dead", "death", "status", "fustat", "deceased", "cens", "relapse", "failure"),
+    "index": ("cfs", "frail", "frailty", "age", "score", "index", "risk", "asa", "lactate", "albumin", "karno",
+              "karnofsky", "ecog", "performance", "apache", "sofa", "charlson", "bmi"),
 }
 DEATH_WORDS = ("dead", "death", "died", "deceased")
 RANDOM_WORDS = ("random", "rct", "trial")
@@ -63,12 +64,14 @@ def _words(name: str) -> set[str]:
 
 
 def _hint(name: str, role: str) -> int:
-    """2 when the column's name is a role word, 1 when it contains one, else 0."""
-    words = _words(name)
+    """3 when the column's name is a role word, 2 when one of its words is, 1 when it contains a long one."""
     hints = NAME_HINTS[role]
-    if str(name).lower() in hints:
+    low = str(name).lower()
+    if low in hints:
+        return 3
+    if _words(name) & set(hints):
         return 2
-    return 1 if words & set(hints) else 0
+    return 1 if any(len(h) >= 4 and h in low for h in hints) else 0
 
 
 def _values(s: pd.Series) -> list[str]:
@@ -106,6 +109,7 @@ def guess_roles(frame: pd.DataFrame) -> Guess:
     g = Guess()
     taken: set[str] = set()
     n = len(frame)
+    frame = frame.apply(lambda s: s.where(s.astype(str).str.strip() != "", None) if s.dtype == object else s)
 
     def two_values(s: pd.Series) -> bool:
         return len(_values(s)) == 2
@@ -118,14 +122,6 @@ def guess_roles(frame: pd.DataFrame) -> Guess:
     if g.allocation:
         taken.add(g.allocation)
         g.randomised = next(v for v in _values(frame[g.allocation]) if any(w in v.lower() for w in RANDOM_WORDS))
-    g.arm = _best(frame, "arm", lambda s: two_values(s) and not _is_binary01(s), taken) or next(
-        (c for c in frame.columns if c not in taken and two_values(frame[c]) and not _is_numeric(frame[c])), None)
-    if g.arm:
-        taken.add(g.arm)
-        g.arms = tuple(sorted(_values(frame[g.arm]), key=lambda v: -int((frame[g.arm].astype(str) == v).sum())))
-    g.id = _best(frame, "id", lambda s: s.notna().all() and s.is_unique, taken)
-    if g.id:
-        taken.add(g.id)
     g.event = _best(frame, "event", _is_binary01, taken)
     if g.event:
         taken.add(g.event)
@@ -133,6 +129,15 @@ def guess_roles(frame: pd.DataFrame) -> Guess:
         if g.time:
             taken.add(g.time)
             g.horizon = nice_horizon(_numbers(frame[g.time]).dropna().to_numpy(float))
+    g.arm = _best(frame, "arm", two_values, taken) or next(
+        (c for c in frame.columns if c not in taken and two_values(frame[c]) and not _is_numeric(frame[c])), None) \
+        or next((c for c in frame.columns if c not in taken and two_values(frame[c])), None)
+    if g.arm:
+        taken.add(g.arm)
+        g.arms = tuple(sorted(_values(frame[g.arm]), key=lambda v: -int((frame[g.arm].astype(str) == v).sum())))
+    g.id = _best(frame, "id", lambda s: s.notna().all() and s.is_unique, taken)
+    if g.id:
+        taken.add(g.id)
     g.cluster = _best(frame, "cluster", lambda s: not _is_numeric(s) and 2 <= len(_values(s)) <= max(2, n // 5),
                       taken)
     if g.cluster:
@@ -161,15 +166,16 @@ def guess_levels(s: pd.Series) -> tuple[str, ...]:
 
 
 def nice_horizon(times: np.ndarray) -> float | None:
-    """A round follow-up time most patients reach: the median, rounded to 1 or 2 significant figures."""
+    """A horizon most patients reach: the end of follow-up when at least 10% share it (administrative
+    censoring), else the median time to two significant figures."""
     times = times[np.isfinite(times)]
-    if not len(times):
+    if not len(times) or np.max(times) <= 0:
         return None
+    top = float(np.max(times))
+    if np.mean(times == top) >= 0.10:
+        return top
     med = float(np.median(times))
-    if med <= 0:
-        return None
-    mag = 10 ** math.floor(math.log10(med))
-    return float(round(med / mag) * mag)
+    return float(f"{med:.2g}") if med > 0 else None
 
 
 # ------------------------------------------------------------------------------------------
@@ -438,12 +444,15 @@ def error_parts(exc: BaseException) -> dict[str, str]:
             "hint": "Your cohort and settings are kept. Please report this with the steps that led to it."}
 
 
-_MD = re.compile(r"([\\`*_{}\[\]()#+\-.!|<>~$])")
+_MD = re.compile(r"([\\`*_\[\]()<>#|~$:])")
+_MD_LINE = re.compile(r"^(\s*)(\d+)([.)])|^(\s*)([-+=])", re.MULTILINE)
 
 
 def md_escape(text: Any) -> str:
-    """Text safe to place inside Streamlit markdown (user strings never become markup)."""
-    return _MD.sub(r"\\\1", str(text))
+    """Text safe to place inside Streamlit markdown: user strings never become markup, links, emoji or lists."""
+    out = _MD.sub(r"\\\1", str(text))
+    return _MD_LINE.sub(lambda m: f"{m.group(1)}{m.group(2)}\\{m.group(3)}" if m.group(2) else
+                        f"{m.group(4)}\\{m.group(5)}", out)
 
 
 # ------------------------------------------------------------------------------------------
@@ -666,7 +675,7 @@ def preview(data: bytes, filename: str, sheet: str | None = None) -> pd.DataFram
     import inspect
 
     extra = (set(),) if len(inspect.signature(read).parameters) > 1 else ()
-    frame = read(set(header), *extra)
+    frame = pd.DataFrame(read(set(header), *extra))
     if frame.empty:
         raise FulcrumError("the file has column names but no data rows.", file=filename,
                            hint="Add one row per patient under the header.")

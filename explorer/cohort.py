@@ -413,10 +413,8 @@ class _Checker:
                             n_rows=None if rows is None else len(rows), hint=hint)
 
     def text(self, col: str) -> pd.Series:
-        s = self.raw[col]
-        if s.dtype == object:
-            return s
-        return pd.Series([_cell_text(v) for v in s.tolist()], dtype=object)
+        """A text-role column: every reader returns these as stripped strings, None for empty cells."""
+        return self.raw[col]
 
     def required(self, s: pd.Series, col: str, what: str) -> None:
         empty = s.isna().to_numpy()

@@ -90,8 +90,13 @@ def _robust(spec: Spec, outcome: OutcomeSpec) -> bool:
 
 def fit_pair(spec: Spec, cohort: Cohort, outcome: OutcomeSpec, index: IndexValues, basis: Basis,
              rows: dict[str, np.ndarray] | None = None, weights: dict[str, np.ndarray] | None = None,
-             start: dict[str, np.ndarray] | None = None) -> PairFit:
-    """Fit one outcome in each arm along one index (complete cases, counted in warnings)."""
+             start: dict[str, np.ndarray] | None = None, robust: bool | None = None,
+             checks: bool = True) -> PairFit:
+    """Fit one outcome in each arm along one index (complete cases, counted in warnings).
+
+    robust=None picks sandwich variances where the spec calls for them (clusters, bounded counts);
+    checks=False skips model diagnostics (bootstrap replicates and subset fits do not need them).
+    """
     f = cohort.frame
     x = np.asarray(index.values, float)
     arm_col = f[spec.cohort.arm].to_numpy()
@@ -119,7 +124,7 @@ def fit_pair(spec: Spec, cohort: Cohort, outcome: OutcomeSpec, index: IndexValue
                                column=outcome.column or outcome.time,
                                hint="Check the outcome and index columns for this arm.")
         fits[arm] = fit_model(outcome, arm, basis, d, start=None if start is None else start.get(arm),
-                              robust=_robust(spec, outcome))
+                              robust=_robust(spec, outcome) if robust is None else robust, checks=checks)
         warnings.extend(f"{arm}, {outcome.title}: {w}" for w in fits[arm].warnings_)
     xs = x[np.concatenate(list(rows.values()))]
     pf = PairFit(outcome, index.name, basis, fits, data, rows, (float(np.min(xs)), float(np.max(xs))), warnings)
@@ -316,7 +321,7 @@ def boot_replicate(payload: BootPayload, rng: np.random.Generator) -> dict[tuple
             new_rows[arm] = draw[arm][keep]
         try:
             pf = fit_pair(payload.spec, payload.cohort, outcome, payload.indices[iname], basis, rows=new_rows,
-                          start=starts)
+                          start=starts, checks=False)
         except (FulcrumError, np.linalg.LinAlgError, ValueError, FloatingPointError):
             out[(oname, iname)] = {"failed": np.array(True)}
             continue
@@ -424,6 +429,8 @@ class Results:
     summaries: dict[tuple[str, str], be.CurveSummary]
     document: dict
     replicates: list[dict] | None = None
+    composite: dict = field(default_factory=dict)
+    selection: Any = None
 
     @property
     def spec(self) -> Spec:
@@ -443,8 +450,11 @@ def summarise(fs: FitSet, replicates: list[dict] | None = None) -> dict[tuple[st
 
 def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | None = None,
             progress: Progress | None = None, fitset: FitSet | None = None) -> Results:
-    """Run the analysis the spec describes; `progress(done, total)` reports bootstrap replicates."""
+    """Run the analysis the spec describes; `progress(done, total)` reports resampling steps."""
+    from . import pairwise as pw
     from . import results as res
+    from . import selection as sel
+    from . import values as vl
 
     fs = fitset or fit_all(spec, cohort)
     reps = None
@@ -453,9 +463,21 @@ def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | Non
         reps = run_bootstrap(fs, progress=progress, keep_distribution=keep)
     summaries = summarise(fs, reps)
     rows = [res.curve_row(fs.pairs[key], s, res.index_info_json(fs.indices[key[1]])) for key, s in summaries.items()]
+    composite = vl.composite_summaries(fs, replicates=reps) if spec.values else {}
+    selection = None
+    if spec.cohort.allocation and fs.cohort.randomised is not None:
+        selection = sel.analyse_selection(fs, replicates=0 if spec.analysis.interval == "analytic" else None,
+                                          progress=progress)
+    pairwise = []
+    if spec.pairwise is not None:
+        for ix in spec.indices:
+            pairwise += pw.pairwise_rows(spec, fs.cohort, ix.name, fs.indices[ix.name].values,
+                                         seed=spec.analysis.seed, progress=progress)
     warnings = list(fs.cohort.warnings)
     for iv in fs.indices.values():
         warnings.extend(iv.warnings)
-    doc = res.document(spec, data_sha256=fs.cohort.sha256, spec_bytes=spec_bytes, rows=rows, composite=[],
-                       selection=[], warnings=warnings)
-    return Results(fs, summaries, doc, reps)
+    doc = res.document(spec, data_sha256=fs.cohort.sha256, spec_bytes=spec_bytes, rows=rows,
+                       composite=vl.composite_rows(fs, composite) if composite else [],
+                       selection=selection.rows if selection else [], warnings=warnings,
+                       extra={"pairwise": pairwise})
+    return Results(fs, summaries, doc, reps, composite, selection)

@@ -444,7 +444,7 @@ def error_parts(exc: BaseException) -> dict[str, str]:
             "hint": "Your cohort and settings are kept. Please report this with the steps that led to it."}
 
 
-_MD = re.compile(r"([\\`*_\[\]()<>#|~$:])")
+_MD = re.compile(r"([\\`*_\[\]<>#|~$:])")
 _MD_LINE = re.compile(r"^(\s*)(\d+)([.)])|^(\s*)([-+=])", re.MULTILINE)
 
 
@@ -709,3 +709,32 @@ def chart_catalogue(doc: dict, index_titles: dict[str, str], outcome_titles: dic
             out.append({"label": f"{what} along {ix}", "file": re.sub(r"[^A-Za-z0-9_.-]+", "_", name),
                         "row": row, "composite": composite, "index_label": ix})
     return out
+
+
+def patient_fields(spec: Spec, index_values: dict, frame: pd.DataFrame) -> list[dict]:
+    """What the Patient page asks for: each column index's value, and the columns a formula or prognostic
+    index reads; each with a default (the cohort median, or the commonest value of a text column)."""
+    fields: dict[str, dict] = {}
+    for ix in spec.indices:
+        iv = index_values[ix.name]
+        if ix.column:
+            x = iv.finite
+            discrete = bool(iv.info.get("discrete"))
+            fields[ix.name] = {"key": ix.name, "label": ix.title, "numeric": True, "discrete": discrete,
+                               "default": float(np.round(np.median(x)) if discrete else np.median(x)),
+                               "min": float(np.min(x)), "max": float(np.max(x))}
+            continue
+        for col in getattr(iv.model, "columns", ()) or ():
+            if col in fields or col not in frame:
+                continue
+            s = frame[col].dropna()
+            nums = pd.to_numeric(s, errors="coerce")
+            if len(s) and nums.notna().all():
+                whole = bool(np.all(np.mod(nums, 1) == 0))
+                fields[col] = {"key": col, "label": col, "numeric": True, "discrete": whole,
+                               "default": float(np.median(nums)), "min": float(nums.min()), "max": float(nums.max())}
+            else:
+                options = [str(v) for v in s.astype(str).value_counts().index]
+                fields[col] = {"key": col, "label": col, "numeric": False, "options": options,
+                               "default": options[0] if options else ""}
+    return list(fields.values())

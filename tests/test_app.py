@@ -144,3 +144,15 @@ def test_an_uploaded_cohort_is_guessed_checked_and_kept_to_its_own_session() -> 
     assert workspace(b).is_demo and workspace(b).data_sha256 != mine.data_sha256
     visit(a, "page_outcomes.py")
     assert not a.error, [e.value for e in a.error]
+
+
+def test_patient_page_places_a_cohort_row_and_offers_a_summary_without_identifiers() -> None:
+    at = visit(start(), "page_patient.py")
+    assert not at.error, [e.value for e in at.error]
+    assert "of 100" in texts(at)
+    at.radio[0].set_value("Pick a patient from the cohort").run()
+    assert not at.exception and not at.error, [e.value for e in at.error]
+    ws = workspace(at)
+    pid = ws.cohort.frame[ws.spec.cohort.id].iloc[0]
+    assert pid not in texts(at)
+    assert any(b.label.startswith("Printable summary") for b in at.get("download_button"))

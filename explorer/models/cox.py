@@ -3,8 +3,9 @@
 Coefficients by Newton-Raphson on the Efron partial likelihood (cox_kernel.py). The baseline is
 Breslow's estimator, dH0(t_j) = (weighted events at t_j) / (weighted risk-set sum of exp(eta)), the
 same increments lifelines reports (not the Efron-adjusted increments of R's survfit). Variances of
-survival and RMST follow Tsiatis: baseline increments treated as uncorrelated given beta, plus the
-coefficient part through the derivative of the baseline with respect to beta.
+survival and RMST follow Tsiatis: baseline increments treated as uncorrelated given beta (variance
+dN/S0^2), plus the coefficient part through the derivative of the baseline with respect to beta; the
+coefficient part uses cov_, so it is robust when the fit is.
 """
 from __future__ import annotations
 
@@ -13,11 +14,12 @@ from scipy import stats
 
 from ..errors import FulcrumError
 from .base import Basis, OutcomeData
-from .common import (ArmFit, check_rank, events_per_term_warning, inverse, linear_pair, newton, prepare,
-                     quad_form, sandwich, standardised_size)
+from .common import (ArmFit, check_rank, effect_size, events_per_term_warning, inverse, linear_pair, newton,
+                     prepare, quad_form, sandwich)
 from .cox_kernel import CoxKernel
 
 PH_ALPHA = 0.01
+SEPARATION_SIZE = 10.0
 CHUNK = 2_000_000
 
 
@@ -74,7 +76,7 @@ class CoxFit(ArmFit):
             self.cov_ = sandwich(model_cov, k.score_residuals(beta), prep.w, prep.cluster)
             self.robust_ = True
         self._baseline(k, beta)
-        if standardised_size(beta, prep.X, prep.w) > 10 or not ok:
+        if effect_size(beta, prep.X, prep.w, basis.n_columns) > SEPARATION_SIZE or not ok:
             self.converged_ = False
             self.warnings_.append(f"The Cox model in arm '{arm}' did not settle: coefficients grow without bound "
                                   "(some values predict every event or none); its estimates are unreliable.")
@@ -119,8 +121,8 @@ class CoxFit(ArmFit):
                                                 zip(self.param_names_, chi2, p)}
         bad = [f"{n} (p = {q:.2g})" for n, q in zip(self.param_names_, p) if q < PH_ALPHA]
         if bad:
-            self.warnings_.append(f"Proportional hazards look doubtful in arm '{self.arm}' for {', '.join(bad)} "
-                                  "(scaled Schoenfeld residuals against the rank of event time).")
+            self.warnings_.append(f"Proportional hazards look doubtful in arm '{self.arm}' for the terms: "
+                                  f"{', '.join(bad)} (scaled Schoenfeld residuals against the rank of event time).")
 
     # ---- predictions -------------------------------------------------------------------
     def _centred(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -1,14 +1,18 @@
 """Exact, vectorised Cox partial likelihood with Efron ties: one sort, segment sums, cumulative sums.
 
-Tied events follow R's survival package and lifelines: within a tied set of d events the Efron
-correction steps l = 0..d-1 use the count d, and each step carries the mean weight of the tied
-events. So non-integer weights are allowed, and integer weights equal duplicated rows except when
-events tie. Every Efron sum over the steps l is reduced to a few per-time scalars, so no pass builds
-an array larger than (terms x rows); covariates are held transposed so passes run over contiguous memory.
+Weights and tied events: when every weight is a whole number, weights are frequencies and the fit
+equals the fit to duplicated rows, ties included (a tied set with total event weight D takes D Efron
+steps), so bootstrap replicates may be run as multinomial weights. Otherwise the tie correction
+follows R's survival package and lifelines: a tied set of d event rows takes d steps, each carrying
+the mean weight of the tied events. Rows with weight 0 are left out. Every Efron sum over the steps
+is reduced to a few per-time scalars, so no pass builds an array larger than (terms x rows), and
+covariates are held transposed so passes run over contiguous memory.
 """
 from __future__ import annotations
 
 import numpy as np
+
+MAX_STEPS_PER_ROW = 50
 
 
 def _tail_sums(v: np.ndarray, starts: np.ndarray) -> np.ndarray:
@@ -21,10 +25,13 @@ class CoxKernel:
     """Risk-set bookkeeping for one arm, computed once; `evaluate(beta)` is then a few passes over n rows."""
 
     def __init__(self, time: np.ndarray, event: np.ndarray, X: np.ndarray, w: np.ndarray) -> None:
+        self.n = len(time)
+        kept = np.flatnonzero(w > 0)
+        time, event, X, w = time[kept], event[kept], X[kept], w[kept]
         d = event > 0
         first_events = np.r_[np.flatnonzero(d), np.flatnonzero(~d)]
         order = first_events[np.argsort(time[first_events], kind="stable")]
-        self.order = order
+        self.order = kept[order]
         t = time[order]
         self.w = w[order]
         self.mean = (w @ X) / w.sum()
@@ -35,16 +42,20 @@ class CoxKernel:
         td = t[dth]
         first = np.r_[True, td[1:] != td[:-1]]
         tie_start = np.flatnonzero(first)
-        self.inv = np.cumsum(first) - 1
+        self.row_group = np.cumsum(first) - 1
         self.event_times = td[tie_start]
-        self.count = np.diff(np.r_[tie_start, len(dth)]).astype(float)
+        rows = np.diff(np.r_[tie_start, len(dth)])
         self.risk_row = dth[tie_start]
-        ends = self.risk_row + self.count.astype(int)
-        bounds = np.column_stack([self.risk_row, ends]).reshape(-1)
+        bounds = np.column_stack([self.risk_row, self.risk_row + rows]).reshape(-1)
         self._tie_bounds = bounds[:-1] if bounds[-1] >= len(t) else bounds
         self.wd = np.add.reduceat(self.w[dth], tie_start)
-        self.wbar = self.wd / self.count
-        self.c = (np.arange(len(dth)) - tie_start[self.inv]) / self.count[self.inv]
+        whole = np.all(self.w == np.round(self.w)) and self.wd.sum() <= MAX_STEPS_PER_ROW * len(t)
+        self.frequency = bool(whole)
+        self.steps = np.round(self.wd).astype(int) if whole else rows
+        self.step_weight = np.ones(len(rows)) if whole else self.wd / rows
+        self.inv = np.repeat(np.arange(len(rows)), self.steps)
+        start = np.r_[0, np.cumsum(self.steps)[:-1]]
+        self.c = (np.arange(len(self.inv)) - start[self.inv]) / self.steps[self.inv]
         self.k = np.searchsorted(self.event_times, t, side="right")
         self.Xd = self.Xt[:, dth]
         self.wXd = self.Xd @ self.w[dth]
@@ -71,14 +82,14 @@ class CoxKernel:
         eta, shift, wr, R1, T1, phi = self._sums(beta)
         if not np.all(phi > 0) or not np.all(np.isfinite(R1)):
             return -np.inf, None, None
-        c, wb = self.c, self.wbar[self.inv]
+        c, wb = self.c, self.step_weight[self.inv]
         a = wb / phi
         e = a / phi
         ll = float(self.w[self.deaths] @ eta[self.deaths] - wb @ (np.log(phi) + shift))
         A, B = self._group(a), self._group(a * c)
         g = self.wXd - R1 @ A + T1 @ B
         coef = np.r_[0.0, np.cumsum(A)][self.k]
-        coef[self.deaths] -= B[self.inv]
+        coef[self.deaths] -= B[self.row_group]
         E0, E1, E2 = self._group(e), self._group(e * c), self._group(e * c * c)
         cross = (R1 * E1) @ T1.T
         info = ((self.Xt * (wr * coef)) @ self.Xt.T - (R1 * E0) @ R1.T + cross + cross.T - (T1 * E2) @ T1.T)
@@ -97,8 +108,8 @@ class CoxKernel:
     def schoenfeld(self, beta: np.ndarray) -> np.ndarray:
         """Schoenfeld residuals of the event rows in time order (Efron-averaged expected covariates)."""
         _, _, _, R1, T1, phi = self._sums(beta)
-        abar = self._weighted_means(R1, T1, phi, np.ones_like(phi)) / self.count
-        return (self.Xd - abar[:, self.inv]).T
+        abar = self._weighted_means(R1, T1, phi, np.ones_like(phi)) / self.steps
+        return (self.Xd - abar[:, self.row_group]).T
 
     def score_residuals(self, beta: np.ndarray) -> np.ndarray:
         """Per-row score residuals (Lin and Wei, Efron version), unweighted, in the caller's row order.
@@ -107,18 +118,18 @@ class CoxKernel:
         """
         eta, shift, wr, R1, T1, phi = self._sums(beta)
         r = np.exp(eta - shift)
-        inv, c, dth = self.inv, self.c, self.deaths
-        a = self.wbar[inv] / phi
+        inv, c, dth, own = self.inv, self.c, self.deaths, self.row_group
+        a = self.step_weight[inv] / phi
         A, A2 = self._group(a), self._group(a * (1 - c))
         Bv = self._weighted_means(R1, T1, phi, a)
         B2 = self._weighted_means(R1, T1, phi, a * (1 - c))
         Acum = np.r_[0.0, np.cumsum(A)][self.k]
         Bcum = np.hstack([np.zeros((len(beta), 1)), np.cumsum(Bv, axis=1)])[:, self.k]
-        Acum[dth] += (A2 - A)[inv]
-        Bcum[:, dth] += (B2 - Bv)[:, inv]
+        Acum[dth] += (A2 - A)[own]
+        Bcum[:, dth] += (B2 - Bv)[:, own]
         U = -r * (self.Xt * Acum - Bcum)
-        abar = self._weighted_means(R1, T1, phi, np.ones_like(phi)) / self.count
-        U[:, dth] += self.Xd - abar[:, inv]
-        out = np.empty((len(r), len(beta)))
+        abar = self._weighted_means(R1, T1, phi, np.ones_like(phi)) / self.steps
+        U[:, dth] += self.Xd - abar[:, own]
+        out = np.zeros((self.n, len(beta)))
         out[self.order] = U.T
         return out

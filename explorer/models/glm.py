@@ -9,12 +9,11 @@ the cluster sum, with no small-sample factor.
 from __future__ import annotations
 
 import numpy as np
-from scipy.special import expit, log_expit
 
 from ..errors import FulcrumError
 from .base import Basis, OutcomeData
-from .common import (ArmFit, check_rank, events_per_term_warning, inverse, linear_pair, newton, prepare, quad_form,
-                     sandwich, standardised_size)
+from .common import (ArmFit, check_rank, effect_size, events_per_term_warning, expit, inverse, linear_pair, newton,
+                     prepare, quad_form, sandwich)
 
 SEPARATION_SIZE = 10.0
 
@@ -23,7 +22,7 @@ def logistic_loglik(D: np.ndarray, y: np.ndarray, w: np.ndarray):
     """fun(beta) -> (loglik, gradient, Hessian) of a weighted logistic regression on design D."""
     def fun(beta: np.ndarray):
         eta = D @ beta
-        ll = float(w @ (y * log_expit(eta) + (1 - y) * log_expit(-eta)))
+        ll = float(w @ (y * eta - np.logaddexp(0.0, eta)))
         p = expit(eta)
         g = D.T @ (w * (y - p))
         H = -(D.T * (w * p * (1 - p))) @ D
@@ -31,14 +30,17 @@ def logistic_loglik(D: np.ndarray, y: np.ndarray, w: np.ndarray):
     return fun
 
 
-def fit_logistic(D: np.ndarray, y: np.ndarray, w: np.ndarray, start: np.ndarray | None = None):
-    """Weighted logistic maximum likelihood: (beta, loglik, Hessian, iterations, converged, separated)."""
+def fit_logistic(D: np.ndarray, y: np.ndarray, w: np.ndarray, start: np.ndarray | None = None, n_index: int = 1):
+    """Weighted logistic maximum likelihood on D = [1, index basis (n_index columns), covariates].
+
+    Returns (beta, loglik, Hessian, iterations, converged, separated).
+    """
     p = D.shape[1]
     if start is None or np.shape(start) != (p,):
         ybar = np.clip((w @ y) / w.sum(), 1e-6, 1 - 1e-6)
         start = np.r_[np.log(ybar / (1 - ybar)), np.zeros(p - 1)]
     beta, ll, g, H, it, ok = newton(logistic_loglik(D, y, w), start)
-    separated = standardised_size(beta[1:], D[:, 1:], w) > SEPARATION_SIZE or not ok
+    separated = effect_size(beta[1:], D[:, 1:], w, n_index) > SEPARATION_SIZE or not ok
     return beta, ll, H, it, ok, separated
 
 
@@ -84,7 +86,7 @@ class LogisticFit(_GlmFit):
                                hint="Check the outcome coding, or leave this outcome out for this comparison.")
         D = np.column_stack([np.ones(self.n_), prep.X])
         self.param_names_ = ("intercept",) + prep.names
-        beta, ll, H, it, ok, separated = fit_logistic(D, y, prep.w, start)
+        beta, ll, H, it, ok, separated = fit_logistic(D, y, prep.w, start, basis.n_columns)
         self.params_, self.loglik_, self.iterations_, self.converged_ = beta, ll, it, ok and not separated
         self.cov_ = inverse(-H)
         if robust:

@@ -9,37 +9,47 @@ from __future__ import annotations
 
 import numpy as np
 from scipy import stats
-from scipy.special import expit
 
 from ..errors import FulcrumError
 from .base import Basis, OutcomeData
-from .common import (ArmFit, check_rank, inverse, linear_pair, newton, prepare, quad_form, sandwich,
-                     standardised_size)
+from .common import ArmFit, check_rank, effect_size, expit, inverse, linear_pair, newton, prepare, quad_form, sandwich
 from .glm import SEPARATION_SIZE, fit_logistic
 
 PO_ALPHA = 0.01
 
 
 def _cell_terms(theta: np.ndarray, eta: np.ndarray, y: np.ndarray):
-    """Per row: a = theta_y - eta, b = theta_{y-1} - eta (infinite at the ends) and their F, f, f', cell p."""
+    """Per row, with a = theta_y - eta and b = theta_{y-1} - eta (infinite at the ends): F(a), F(b),
+    their densities and the cell probability F(a) - F(b) = F(a) F(-b) (1 - exp(b - a)), which keeps
+    full precision in both tails."""
     up = np.r_[theta, np.inf][y] - eta
     lo = np.r_[-np.inf, theta][y] - eta
-    Fa, Fb = expit(up), expit(lo)
-    fa, fb = Fa * (1 - Fa), Fb * (1 - Fb)
-    # the cell probability from whichever tail keeps precision
-    p = np.where(up + lo > 0, expit(-lo) - expit(-up), Fa - Fb)
-    return Fa, Fb, fa, fb, p
+    Fa, Fnb = expit(up), expit(-lo)
+    Fb = 1.0 - Fnb
+    gap = -np.expm1(-np.diff(np.r_[-np.inf, theta, np.inf]))
+    return Fa, Fb, Fa * (1 - Fa), Fb * Fnb, Fa * Fnb * gap[y]
 
 
 def ordinal_loglik(X: np.ndarray, y: np.ndarray, w: np.ndarray, K: int):
-    """fun(params) -> (loglik, gradient, Hessian) with params = (theta_1..theta_{K-1}, beta)."""
+    """fun(params) -> (loglik, gradient, Hessian) with params = (theta_1..theta_{K-1}, beta).
+
+    Terms of a missing cut (the top level has no upper cut, the bottom no lower one) are exactly 0,
+    so per-level sums run over every row: bin y holds the upper cut theta_y, bin y - 1 the lower.
+    """
     m = K - 1
+    Xt = np.ascontiguousarray(X.T)
+
+    def upper(v):
+        return np.bincount(y, weights=v, minlength=K)[:m]
+
+    def lower(v):
+        return np.bincount(y, weights=v, minlength=K)[1:]
 
     def fun(params: np.ndarray):
         theta, beta = params[:m], params[m:]
         if np.any(np.diff(theta) <= 0):
             return -np.inf, None, None
-        eta = X @ beta
+        eta = beta @ Xt
         Fa, Fb, fa, fb, p = _cell_terms(theta, eta, y)
         if np.any(p <= 0):
             return -np.inf, None, None
@@ -48,31 +58,20 @@ def ordinal_loglik(X: np.ndarray, y: np.ndarray, w: np.ndarray, K: int):
         faa = fa * (1 - 2 * Fa) / p - da ** 2
         fbb = -fb * (1 - 2 * Fb) / p - db ** 2
         fab = -da * db
-        top, bot = y < m, y > 0
-        g = np.zeros(m + X.shape[1])
-        g[:m] = np.bincount(y[top], weights=(w * da)[top], minlength=m)[:m] + \
-            np.bincount(y[bot] - 1, weights=(w * db)[bot], minlength=m)
-        g[m:] = -X.T @ (w * (da + db))
+        g = np.r_[upper(w * da) + lower(w * db), -(Xt @ (w * (da + db)))]
         H = np.zeros((len(g), len(g)))
-        H[:m, :m] = np.diag(np.bincount(y[top], weights=(w * faa)[top], minlength=m)[:m]
-                            + np.bincount(y[bot] - 1, weights=(w * fbb)[bot], minlength=m))
-        mid = top & bot
-        off = np.bincount(y[mid] - 1, weights=(w * fab)[mid], minlength=m)[:m - 1]
+        H[:m, :m] = np.diag(upper(w * faa) + lower(w * fbb))
+        off = lower(w * fab)[:m - 1]
         H[np.arange(1, m), np.arange(m - 1)] = off
         H[np.arange(m - 1), np.arange(1, m)] = off
         ca, cb = w * (faa + fab), w * (fab + fbb)
-        cross = -(_by_level(X[top], y[top], ca[top], m) + _by_level(X[bot], y[bot] - 1, cb[bot], m))
+        cross = -np.stack([upper(ca * col) + lower(cb * col) for col in Xt], axis=1)
         H[:m, m:] = cross
         H[m:, :m] = cross.T
-        H[m:, m:] = (X.T * (w * (faa + 2 * fab + fbb))) @ X
+        H[m:, m:] = (Xt * (w * (faa + 2 * fab + fbb))) @ Xt.T
         return ll, g, H
 
     return fun
-
-
-def _by_level(X: np.ndarray, level: np.ndarray, weight: np.ndarray, m: int) -> np.ndarray:
-    """(m, p) sums of weight * X over the rows at each level."""
-    return np.stack([np.bincount(level, weights=weight * col, minlength=m)[:m] for col in X.T], axis=1)
 
 
 def ordinal_scores(X: np.ndarray, y: np.ndarray, theta: np.ndarray, beta: np.ndarray) -> np.ndarray:
@@ -128,14 +127,15 @@ class OrdinalFit(ArmFit):
             self.cov_ = sandwich(self.cov_, ordinal_scores(prep.X, yk, params[:m], params[m:]), prep.w, prep.cluster)
             self.robust_ = True
         spread = np.diff(params[:m]).max() if m > 1 else 0.0
-        separated = standardised_size(params[m:], prep.X, prep.w) > SEPARATION_SIZE or spread > 4 * SEPARATION_SIZE
+        separated = (effect_size(params[m:], prep.X, prep.w, basis.n_columns) > SEPARATION_SIZE
+                     or spread > 4 * SEPARATION_SIZE)
         self.converged_ = ok and not separated
         if not self.converged_:
             self.warnings_.append(f"The proportional odds model in arm '{arm}' did not settle: some index values "
                                   "predict the level perfectly (separation), so its estimates are unreliable.")
         self.n_events_ = None
         if checks and m >= 2:
-            self._po_check(prep.X, yk, prep.w, m)
+            self._po_check(prep.X, yk, prep.w, params)
         self.method_ = (f"Proportional odds (cumulative logit) model in arm '{arm}', {self._shape_words()}"
                         f"{self._held_at()}{self._cov_words()}; probability of "
                         f"{' or '.join(favourable)}.")
@@ -159,14 +159,19 @@ class OrdinalFit(ArmFit):
         cum = np.clip(cum, 1e-6, 1 - 1e-6)
         return np.r_[np.log(cum / (1 - cum)), np.zeros(p)]
 
-    def _po_check(self, X: np.ndarray, y: np.ndarray, w: np.ndarray, m: int) -> None:
-        """Brant's Wald test: the slopes of the K-1 binary logits I(Y > k) are equal."""
+    def _po_check(self, X: np.ndarray, y: np.ndarray, w: np.ndarray, params: np.ndarray) -> None:
+        """Brant's Wald test: the slopes of the K-1 binary logits I(Y > k) are equal.
+
+        Each binary logit starts from the ordinal fit, logit P(Y > k) = eta - theta_k.
+        """
         D = np.column_stack([np.ones(len(y)), X])
         p = X.shape[1]
+        m = len(params) - p
         betas, probs, infos = [], [], []
         for k in range(m):
             yb = (y > k).astype(float)
-            beta, _, H, _, ok, separated = fit_logistic(D, yb, w)
+            start = np.r_[-params[k], params[m:]]
+            beta, _, H, _, ok, separated = fit_logistic(D, yb, w, start, self.basis.n_columns)
             if not ok or separated:
                 self.checks_["proportional_odds"] = {"chi2": None, "df": None, "p": None,
                                                      "note": f"not run: the binary logit at cut {k + 1} separates"}

@@ -324,6 +324,16 @@ label = "Alive at one year"
 units = "days"
 
 [[outcomes]]
+name = "alive_6m"
+kind = "survival"
+time = "days_followed"
+event = "died"
+horizon = 182
+measure = "survival"
+label = "Alive at six months"
+units = "days"
+
+[[outcomes]]
 name = "function"
 kind = "ordinal"
 column = "function_6m"
@@ -363,10 +373,17 @@ name = "physiology"
 formula = "lactate - albumin / 10"
 label = "Physiology (lactate minus albumin / 10)"
 
+[[indices]]
+name = "risk"
+prognostic = {{ outcome = "alive", covariates = ["age", "sex", "cfs", "lactate", "albumin"], fit_on = "second", folds = 5 }}
+label = "Predicted one-year risk without surgery (cross-fitted, log hazard)"
+
 [values]
 outcome = "function"
 weights = {{ independent = 1.0, home_with_help = 0.8, care_home = 0.45, bedbound = 0.1, dead = 0.0 }}
-survival_outcome = "alive"
+survival_outcome = "alive_6m"
+utility_outcome = "qol"
+whose = "team"
 
 [analysis]
 interval = "analytic"
@@ -375,6 +392,10 @@ replicates = 200
 
 [selection]
 covariates = ["age", "sex", "cfs", "lactate", "albumin"]
+
+[pairwise]
+priority = ["alive", "function", "qol"]
+window = 400
 """
 
 

@@ -61,20 +61,23 @@ def test_demo_spec_is_the_contract_and_says_invented(demo_dir):
     assert (c.id, c.arm, c.arms, c.allocation, c.randomised, c.cluster) == (
         "pid", "arm", ("laparotomy", "non-operative"), "allocation", "randomised", "hospital")
     assert c.covariates == ("age", "sex", "cfs", "lactate", "albumin")
-    alive, function, qol, home = spec.outcomes
+    alive, alive_6m, function, qol, home = spec.outcomes
     assert (alive.kind, alive.time, alive.event, alive.horizon, alive.label, alive.units) == (
         "survival", "days_followed", "died", 365.0, "Alive at one year", "days")
+    # the survival x function composite needs survival at the function outcome's six-month horizon
+    assert (alive_6m.kind, alive_6m.time, alive_6m.horizon) == ("survival", "days_followed", 182.0)
     assert (function.kind, function.levels, function.favourable) == (
         "ordinal", demo.LEVELS, ("independent", "home_with_help"))
     assert (qol.kind, qol.column, qol.among_survivors) == ("continuous", "qol_6m", True)
     assert (home.kind, home.column, home.bounds) == ("continuous", "days_home_180", (0.0, 180.0))
-    cfs, age, physiology = spec.indices
+    cfs, age, physiology, risk = spec.indices
     assert (cfs.column, cfs.discrete, cfs.label) == ("cfs", True, "Clinical Frailty Scale")
     assert (age.column, age.units) == ("age", "years")
     assert physiology.formula == "lactate - albumin / 10"
+    assert (risk.prognostic.outcome, risk.prognostic.fit_on, risk.prognostic.folds) == ("alive", "second", 5)
     assert spec.values.weights == {"independent": 1.0, "home_with_help": 0.8, "care_home": 0.45, "bedbound": 0.1,
                                    "dead": 0.0}
-    assert spec.values.survival_outcome == "alive"
+    assert (spec.values.survival_outcome, spec.values.utility_outcome) == ("alive_6m", "qol")
     assert (spec.analysis.interval, spec.analysis.seed, spec.analysis.replicates) == ("analytic", 1, 200)
     assert spec.selection.covariates == ("age", "sex", "cfs", "lactate", "albumin")
     header = (demo_dir / "demo.toml").read_text().splitlines()[0:3]

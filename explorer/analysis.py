@@ -12,6 +12,7 @@ from dataclasses import dataclass, field
 from typing import Any, Callable
 
 import numpy as np
+import pandas as pd
 
 from . import breakeven as be
 from .cohort import Cohort, load_cohort
@@ -295,6 +296,7 @@ class BootPayload:
     pairs: dict[tuple[str, str], tuple[Basis, dict[str, np.ndarray], dict[str, np.ndarray], np.ndarray]]
     arm_rows: dict[str, np.ndarray]
     keep_distribution: tuple[str, ...] = ()
+    cluster_rows: list[np.ndarray] | None = None
     extra: dict[str, Any] = field(default_factory=dict)
 
 
@@ -306,12 +308,26 @@ def boot_payload(fs: FitSet, keep_distribution: tuple[str, ...] = ()) -> BootPay
     for key, pf in fs.pairs.items():
         starts = {arm: f.params_ for arm, f in pf.fits.items()}
         pairs[key] = (pf.basis, pf.rows, starts, grid_for(pf, spec.analysis.grid))
-    return BootPayload(spec, fs.cohort, fs.indices, pairs, arm_rows, keep_distribution)
+    cluster_rows = None
+    if spec.cohort.cluster:
+        codes, _ = pd.factorize(fs.cohort.frame[spec.cohort.cluster].astype(str))
+        order = np.argsort(codes, kind="stable")
+        cluster_rows = np.split(order, np.flatnonzero(np.diff(codes[order])) + 1)
+    return BootPayload(spec, fs.cohort, fs.indices, pairs, arm_rows, keep_distribution, cluster_rows=cluster_rows)
+
+
+def draw_rows(payload: BootPayload, rng: np.random.Generator) -> dict[str, np.ndarray]:
+    """One bootstrap draw of cohort rows per arm: patients within arm, or whole clusters when named."""
+    if payload.cluster_rows is None:
+        return {arm: np.sort(rng.choice(rows, size=len(rows), replace=True)) for arm, rows in payload.arm_rows.items()}
+    picked = rng.integers(0, len(payload.cluster_rows), len(payload.cluster_rows))
+    rows = np.sort(np.concatenate([payload.cluster_rows[k] for k in picked]))
+    return {arm: rows[np.isin(rows, r)] for arm, r in payload.arm_rows.items()}
 
 
 def boot_replicate(payload: BootPayload, rng: np.random.Generator) -> dict[tuple[str, str], dict[str, np.ndarray]]:
-    """Resample patients within each arm, refit every model, return curves on each pair's grid."""
-    draw = {arm: np.sort(rng.choice(rows, size=len(rows), replace=True)) for arm, rows in payload.arm_rows.items()}
+    """Resample patients within each arm (or whole clusters), refit every model, return curves on the grid."""
+    draw = draw_rows(payload, rng)
     out = {}
     for (oname, iname), (basis, rows, starts, grid) in payload.pairs.items():
         outcome = payload.spec.outcome(oname)

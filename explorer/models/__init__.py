@@ -17,11 +17,14 @@ __all__ = ["fit_model", "Basis", "Fitted", "OutcomeData", "CoxFit", "WeibullFit"
 
 def fit_model(outcome: OutcomeSpec, arm: str, basis: Basis, data: OutcomeData, start: np.ndarray | None = None,
               robust: bool = False, *, checks: bool = True) -> Fitted:
-    """Fit `outcome` in one arm along the index: design [basis(x), z], curves at z = data.z_ref.
+    """Fit `outcome` in one arm along the index: design [basis(x), z], curves at z = data.z_ref
+    (default: this arm's weighted mean of z; pass the same z_ref to both arms).
 
-    start: warm start for Newton (ignored if its shape does not fit). robust: sandwich covariance,
-    cluster-robust when data.cluster is given. checks=False skips the proportional hazards / odds
-    diagnostics (bootstrap replicates do not need them).
+    data.weights are case weights: the model-based fit treats them as frequencies (integer weights equal
+    duplicated rows, Cox ties included), and robust=True treats them as probability weights, as
+    inverse-probability weighting needs. start: warm start for Newton (ignored if its shape does not
+    fit). robust: sandwich covariance, cluster-robust when data.cluster is given. checks=False skips
+    the proportional hazards / odds diagnostics (bootstrap replicates do not need them).
     """
     kind = outcome.kind
     if kind == "survival":

@@ -9,6 +9,8 @@ usual choice for inverse-probability weighting.
 """
 from __future__ import annotations
 
+import functools
+from contextlib import nullcontext
 from dataclasses import dataclass
 
 import numpy as np
@@ -17,6 +19,27 @@ from ..errors import FulcrumError
 from .base import Basis, OutcomeData
 
 NEWTON_TOL = 1e-9
+_BLAS: list = []
+
+
+def one_blas_thread(init):
+    """Run a model fit with BLAS on one thread: the fits are tall-skinny products, where extra BLAS threads
+    only spin (and slow everything badly when the cores are busy); threadpoolctl comes with scikit-learn."""
+    @functools.wraps(init)
+    def wrapper(*args, **kwargs):
+        with _blas_limit():
+            return init(*args, **kwargs)
+    return wrapper
+
+
+def _blas_limit():
+    if not _BLAS:
+        try:
+            from threadpoolctl import ThreadpoolController
+            _BLAS.append(ThreadpoolController())
+        except ImportError:
+            _BLAS.append(None)
+    return _BLAS[0].limit(limits=1, user_api="blas") if _BLAS[0] is not None else nullcontext()
 
 
 @dataclass

@@ -15,7 +15,7 @@ from scipy import stats
 from ..errors import FulcrumError
 from .base import Basis, OutcomeData
 from .common import (ArmFit, check_rank, effect_size, events_per_term_warning, inverse, linear_pair, newton,
-                     prepare, quad_form, sandwich)
+                     one_blas_thread, prepare, quad_form, sandwich)
 from .cox_kernel import CoxKernel
 
 PH_ALPHA = 0.01
@@ -49,6 +49,7 @@ class CoxFit(ArmFit):
     patient at the arm's (weighted) covariate means `mean_` (as lifelines reports it).
     """
 
+    @one_blas_thread
     def __init__(self, outcome: str, arm: str, basis: Basis, data: OutcomeData, horizon: float,
                  measure: str = "survival", start: np.ndarray | None = None, robust: bool = False,
                  checks: bool = True) -> None:

@@ -13,7 +13,7 @@ import numpy as np
 from ..errors import FulcrumError
 from .base import Basis, OutcomeData
 from .common import (ArmFit, check_rank, effect_size, events_per_term_warning, expit, inverse, linear_pair, newton,
-                     prepare, quad_form, sandwich)
+                     one_blas_thread, prepare, quad_form, sandwich)
 
 SEPARATION_SIZE = 10.0
 
@@ -68,6 +68,7 @@ class _GlmFit(ArmFit):
 class LogisticFit(_GlmFit):
     """Logistic regression in one arm; measure P(outcome = 1)."""
 
+    @one_blas_thread
     def __init__(self, outcome: str, arm: str, basis: Basis, data: OutcomeData, start: np.ndarray | None = None,
                  robust: bool = False) -> None:
         prep = prepare(basis, data, arm, outcome)
@@ -114,6 +115,7 @@ class LogisticFit(_GlmFit):
 class LinearFit(_GlmFit):
     """Linear regression in one arm; measure the mean outcome."""
 
+    @one_blas_thread
     def __init__(self, outcome: str, arm: str, basis: Basis, data: OutcomeData, robust: bool = False,
                  bounded: bool = False) -> None:
         prep = prepare(basis, data, arm, outcome)

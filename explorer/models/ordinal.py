@@ -12,7 +12,8 @@ from scipy import stats
 
 from ..errors import FulcrumError
 from .base import Basis, OutcomeData
-from .common import ArmFit, check_rank, effect_size, expit, inverse, linear_pair, newton, prepare, quad_form, sandwich
+from .common import (ArmFit, check_rank, effect_size, expit, inverse, linear_pair, newton, one_blas_thread, prepare,
+                     quad_form, sandwich)
 from .glm import SEPARATION_SIZE, fit_logistic
 
 PO_ALPHA = 0.01
@@ -90,6 +91,7 @@ def ordinal_scores(X: np.ndarray, y: np.ndarray, theta: np.ndarray, beta: np.nda
 class OrdinalFit(ArmFit):
     """A fitted per-arm proportional odds model; measure = P(a favourable level)."""
 
+    @one_blas_thread
     def __init__(self, outcome: str, arm: str, basis: Basis, data: OutcomeData, levels: tuple[str, ...],
                  favourable: tuple[str, ...], start: np.ndarray | None = None, robust: bool = False,
                  checks: bool = True) -> None:

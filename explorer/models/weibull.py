@@ -12,7 +12,8 @@ from scipy.special import gamma as gamma_fn, gammainc
 
 from ..errors import FulcrumError
 from .base import Basis, OutcomeData, numerical_jacobian
-from .common import ArmFit, check_rank, events_per_term_warning, inverse, newton, prepare, quad_form, sandwich
+from .common import (ArmFit, check_rank, events_per_term_warning, inverse, newton, one_blas_thread, prepare,
+                     quad_form, sandwich)
 from .cox import survival_arrays
 
 
@@ -48,6 +49,7 @@ def weibull_loglik(D: np.ndarray, logt: np.ndarray, d: np.ndarray, w: np.ndarray
 class WeibullFit(ArmFit):
     """A fitted per-arm Weibull AFT model; measure 'survival' at the horizon or 'rmst' to it."""
 
+    @one_blas_thread
     def __init__(self, outcome: str, arm: str, basis: Basis, data: OutcomeData, horizon: float,
                  measure: str = "survival", start: np.ndarray | None = None, robust: bool = False) -> None:
         prep = prepare(basis, data, arm, outcome)

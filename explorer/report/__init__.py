@@ -1,0 +1,398 @@
+"""The offline HTML report: one self-contained file (Vega scripts inlined) that opens with no network.
+
+Every chart sits beside the sentence and the table that say the same thing; every user-supplied
+string is escaped by Jinja's autoescaping, and JSON inside <script> blocks by `script_json`.
+"""
+from __future__ import annotations
+
+import dataclasses
+import json
+import platform
+from functools import lru_cache
+from importlib import metadata, resources
+from pathlib import Path
+from typing import Any, Iterable, Mapping, Sequence
+
+import jinja2
+import numpy as np
+import pandas as pd
+from markupsafe import Markup
+
+from .. import CAUTIONS, __version__
+from .. import charts as ch
+
+CURVE_TABLE_ROWS = 21
+REPORT_POINTS = 400
+PACKAGES = (("numpy", "numpy"), ("pandas", "pandas"), ("scipy", "scipy"), ("lifelines", "lifelines"),
+            ("scikit-learn", "scikit-learn"), ("statsmodels", "statsmodels"), ("altair", "altair"),
+            ("vl-convert-python", "vl-convert-python"))
+
+
+@dataclasses.dataclass
+class Section:
+    """A block of the report: a heading, a sentence, an optional chart and an optional table."""
+
+    title: str
+    text: str = ""
+    chart: Any = None
+    table: pd.DataFrame | None = None
+    notes: Sequence[str] = ()
+    html: Markup | None = None
+    level: int = 3
+
+
+# ------------------------------------------------------------------------------------------
+# Safe embedding
+# ------------------------------------------------------------------------------------------
+def script_json(obj: Any) -> Markup:
+    """JSON that is safe inside a <script> element: '<', '>', '&' and line separators escaped."""
+    text = json.dumps(obj, ensure_ascii=False, allow_nan=False, separators=(",", ":"), default=_plain)
+    for raw, esc in (("<", "\\u003c"), (">", "\\u003e"), ("&", "\\u0026"), ("\u2028", "\\u2028"),
+                     ("\u2029", "\\u2029")):
+        text = text.replace(raw, esc)
+    return Markup(text)
+
+
+def _plain(obj: Any) -> Any:
+    if isinstance(obj, np.generic):
+        return obj.item()
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    return str(obj)
+
+
+def _clean_nan(obj: Any) -> Any:
+    """Replace non-finite floats by None so the JSON stays standard."""
+    if isinstance(obj, float):
+        return obj if np.isfinite(obj) else None
+    if isinstance(obj, dict):
+        return {k: _clean_nan(v) for k, v in obj.items()}
+    if isinstance(obj, list):
+        return [_clean_nan(v) for v in obj]
+    return obj
+
+
+@lru_cache(maxsize=1)
+def javascript_bundle() -> str:
+    """Vega, Vega-Lite and vega-embed in one script (from vl-convert), safe to inline in <script>."""
+    import vl_convert as vlc
+
+    js = vlc.javascript_bundle(vl_version=ch._vl_version())
+    return js.replace("</script", "<\\/script").replace("<!--", "<\\!--")
+
+
+# ------------------------------------------------------------------------------------------
+# Pieces of the report
+# ------------------------------------------------------------------------------------------
+def versions() -> dict[str, str]:
+    out = {"fulcrum": __version__, "python": platform.python_version()}
+    for label, dist in PACKAGES:
+        try:
+            out[label] = metadata.version(dist)
+        except metadata.PackageNotFoundError:
+            out[label] = "not installed"
+    return out
+
+
+def table_of(df: pd.DataFrame) -> dict:
+    """A frame as header and rows of readable strings (numbers to three significant figures)."""
+    def cell(v: Any) -> str:
+        if v is None or (isinstance(v, float) and not np.isfinite(v)):
+            return ""
+        if isinstance(v, (float, np.floating)):
+            return ch.fmt(float(v))
+        return str(v)
+
+    return {"columns": [str(c) for c in df.columns], "rows": [[cell(v) for v in r] for r in df.itertuples(False)]}
+
+
+def _labelled(row: Mapping[str, Any], spec_doc: Mapping[str, Any]) -> dict:
+    """A copy of a row carrying its outcome's readable label, when the spec gives one."""
+    out = dict(row)
+    if "label" not in out:
+        for o in spec_doc.get("outcomes", []):
+            if o.get("name") == row.get("outcome") and o.get("label"):
+                out["label"] = o["label"]
+    return out
+
+
+def _every(row: Mapping[str, Any]) -> int:
+    return max(1, len(row["curve"]) // (CURVE_TABLE_ROWS - 1))
+
+
+def _points(result: Any, row: Mapping[str, Any], n: int) -> pd.DataFrame | None:
+    if n <= 0 or getattr(result, "fitset", None) is None:
+        return None
+    try:
+        return ch.cohort_points(result.fitset, row["outcome"], row["index"], max_points=n)
+    except KeyError:
+        return None
+
+
+def outcome_sections(result: Any, doc: Mapping[str, Any], points: int) -> list[dict]:
+    arms, margin = doc["arms"], float(doc.get("inputs", {}).get("margin") or 0.0)
+    out = []
+    for raw in doc.get("results", []):
+        row = _labelled(raw, doc.get("spec", {}))
+        pts = _points(result, row, points)
+        out.append({
+            "title": f"{ch._cap(ch._outcome_title(row))} along {ch.index_label_of(row)}",
+            "sentence": ch.describe_row(row, arms, margin=margin),
+            "charts": [ch.outcome_chart(row, arms, pts), ch.difference_chart(row, arms, margin=margin)],
+            "table": table_of(ch.curve_table(row, arms, every=_every(row))),
+            "counts": _counts(row, arms),
+            "methods": row.get("methods") or {},
+            "warnings": row.get("warnings") or [],
+        })
+    return out
+
+
+def _counts(row: Mapping[str, Any], arms: Sequence[str]) -> str:
+    n, ev = row.get("n") or {}, row.get("events") or {}
+    parts = []
+    for a in arms:
+        if a in n:
+            parts.append(f"{a}: {n[a]} patients" + (f", {ev[a]} events" if ev.get(a) is not None else ""))
+    return "; ".join(parts)
+
+
+def composite_sections(doc: Mapping[str, Any]) -> list[dict]:
+    arms, margin = doc["arms"], float(doc.get("inputs", {}).get("margin") or 0.0)
+    out = []
+    for row in doc.get("composite", []):
+        charts = [ch.composite_chart(row, arms)]
+        extra_tables = []
+        acc = row.get("acceptability")
+        if acc:
+            charts.append(ch.acceptability_chart(acc, arms, index_title=ch._x_title(row)))
+            step = max(1, len(acc) // (CURVE_TABLE_ROWS - 1))
+            extra_tables.append(("How often each arm comes out ahead as the weights vary",
+                                 table_of(pd.DataFrame([{"index": p["x"], f"{arms[0]} ahead": p["first"],
+                                                         f"{arms[1]} ahead": p["second"]} for p in acc[::step]]))))
+        th = row.get("thresholds")
+        if th and th.get("states"):
+            extra_tables.append((f"Threshold weights at index value {ch.fmt(th.get('x'))}",
+                                 table_of(pd.DataFrame([{"state": ch.words(s["level"]), "weight": s["weight"],
+                                                         "weight at which the favoured arm flips": s["flip_weight"],
+                                                         "what it means": s.get("message", "")}
+                                                        for s in th["states"]]))))
+        weights = row.get("weights") or {}
+        out.append({
+            "title": f"{ch._cap(ch._outcome_title(row))} along {ch.index_label_of(row)}",
+            "sentence": ch.describe_row(row, arms, margin=margin),
+            "charts": charts,
+            "table": table_of(ch.curve_table(row, arms, every=_every(row))),
+            "weights": [(ch.words(k), ch.fmt(v)) for k, v in weights.items()],
+            "whose": row.get("whose"),
+            "notes": row.get("notes") or [],
+            "extra_tables": extra_tables,
+            "warnings": row.get("warnings") or [],
+        })
+    return out
+
+
+def selection_sections(doc: Mapping[str, Any]) -> list[dict]:
+    """One section per outcome x index: both arms' selection effects, the break-even points, the facts."""
+    arms = doc["arms"]
+    labels = _index_labels(doc)
+    groups: dict[tuple[str, str], list[dict]] = {}
+    for row in doc.get("selection", []):
+        groups.setdefault((row.get("outcome"), row.get("index")), []).append(row)
+    out = []
+    for (outcome, index), rows in groups.items():
+        xt = labels.get(index, index)
+        est = pd.DataFrame(ch._selection_estimates(rows[0]), columns=["estimate", "x", "lo", "hi"])
+        est.columns = ["patients used", "break-even", "interval low", "interval high"]
+        facts = pd.DataFrame([{"arm": r.get("arm"), "selection effect (chosen minus randomised)": r.get("effect"),
+                               "interval": _pair(r.get("ci")), "p-value": r.get("p_value"),
+                               "varies with the index (p)": r.get("varies_with_index_p"),
+                               "randomised patients": r.get("n_randomised"), "chosen patients": r.get("n_chosen")}
+                              for r in rows])
+        shift = rows[0].get("shift")
+        out.append({"title": f"{rows[0].get('measure', outcome)} along {xt}",
+                    "sentence": " ".join(ch.describe_selection(r) for r in rows),
+                    "charts": [ch.selection_chart(rows, arms, index_title=xt)],
+                    "table": table_of(facts), "break_even": table_of(est),
+                    "shift": None if shift is None else f"{ch.fmt(shift)} ({_pair(rows[0].get('shift_ci'))})",
+                    "warnings": list(dict.fromkeys(w for r in rows for w in r.get("warnings") or []))})
+    return out
+
+
+def pairwise_sections(doc: Mapping[str, Any]) -> list[dict]:
+    """One section per index: net benefit in windows (chart) and every window's counts (table)."""
+    arms = doc["arms"]
+    labels = _index_labels(doc)
+    groups: dict[Any, list[dict]] = {}
+    for row in doc.get("pairwise") or []:
+        groups.setdefault(row.get("index"), []).append(row)
+    out = []
+    for index, rows in groups.items():
+        xt = labels.get(index, index) if index else "the whole cohort"
+        table = pd.DataFrame([{"window": (f"{ch.fmt(r['window']['from'])} to {ch.fmt(r['window']['to'])}"
+                                          if r.get("window") else "whole cohort"),
+                               f"{arms[0]} patients": r.get("n_first"), f"{arms[1]} patients": r.get("n_second"),
+                               "wins": r.get("wins"), "losses": r.get("losses"), "ties": r.get("ties"),
+                               "win ratio": r.get("win_ratio"), "its interval": _pair(r.get("win_ratio_ci")),
+                               "net benefit": r.get("net_benefit"), "its interval ": _pair(r.get("net_benefit_ci")),
+                               "favours": r.get("favours") or ""} for r in rows])
+        priority = ", ".join(rows[0].get("priority") or [])
+        out.append({"title": f"Pairwise comparison along {xt}",
+                    "sentence": f"Outcomes in priority order: {priority}. Each {arms[0]} patient meets each "
+                                f"{arms[1]} patient in the same window; the first outcome that separates them "
+                                "decides the pair.",
+                    "charts": [ch.pairwise_chart(rows, arms, index_title=xt)] if index else [],
+                    "table": table_of(table),
+                    "warnings": list(dict.fromkeys(w for r in rows for w in r.get("warnings") or []))})
+    return out
+
+
+def _fact(v: Any) -> str:
+    if v is None:
+        return ""
+    if isinstance(v, (int, float)) and not isinstance(v, bool):
+        return ch.fmt(v)
+    return str(v)
+
+
+def _index_labels(doc: Mapping[str, Any]) -> dict[str, str]:
+    return {row["index"]: ch.index_label_of(row) for row in doc.get("results", [])}
+
+
+def _pair(v: Any) -> str:
+    if not v or v[0] is None or v[1] is None:
+        return ""
+    return f"{ch.fmt(v[0])} to {ch.fmt(v[1])}"
+
+
+def methods_by_outcome(doc: Mapping[str, Any]) -> list[tuple[str, list[tuple[str, str]]]]:
+    """Each outcome's model descriptions per arm, once each (they repeat across indices)."""
+    out: dict[str, dict[tuple[str, str], None]] = {}
+    labels = {o.get("name"): o.get("label") or o.get("name") for o in doc.get("spec", {}).get("outcomes", [])}
+    for row in doc.get("results", []):
+        seen = out.setdefault(labels.get(row["outcome"], row["outcome"]), {})
+        for arm, text in (row.get("methods") or {}).items():
+            if text:
+                seen[(arm, text)] = None
+    return [(name, list(items)) for name, items in out.items()]
+
+
+def index_rows(doc: Mapping[str, Any]) -> list[dict]:
+    seen: dict[str, dict] = {}
+    for row in doc.get("results", []):
+        info = row.get("index_info") or {}
+        if row["index"] in seen:
+            continue
+        pct = info.get("percentiles") or {}
+        seen[row["index"]] = {"name": row["index"], "label": info.get("label") or row["index"],
+                              "kind": info.get("kind") or "", "units": info.get("units") or "",
+                              "discrete": "whole levels" if info.get("discrete") else "continuous",
+                              "percentiles": ", ".join(f"{k}th {ch.fmt(v)}" for k, v in pct.items()),
+                              "prognostic": _flat(info.get("prognostic"))}
+    return list(seen.values())
+
+
+def _flat(obj: Any, prefix: str = "") -> list[tuple[str, str]]:
+    """A nested report (e.g. a prognostic model's) as (key, value) lines."""
+    if obj is None:
+        return []
+    if isinstance(obj, Mapping):
+        out = []
+        for k, v in obj.items():
+            out.extend(_flat(v, f"{prefix}{k}." if isinstance(v, Mapping) else f"{prefix}{k}"))
+        return out
+    if isinstance(obj, list):
+        return [(prefix.rstrip("."), ", ".join(ch.fmt(v) if isinstance(v, float) else str(v) for v in obj))]
+    return [(prefix.rstrip("."), ch.fmt(obj) if isinstance(obj, float) else str(obj))]
+
+
+def _extra(sections: Iterable[Section | Mapping[str, Any]] | None) -> list[dict]:
+    out = []
+    for s in sections or []:
+        s = s if isinstance(s, Section) else Section(**dict(s))
+        out.append({"title": s.title, "sentence": s.text, "charts": [s.chart] if s.chart is not None else [],
+                    "table": table_of(s.table) if s.table is not None else None, "notes": list(s.notes),
+                    "html": s.html})
+    return out
+
+
+# ------------------------------------------------------------------------------------------
+# Rendering
+# ------------------------------------------------------------------------------------------
+@lru_cache(maxsize=1)
+def _environment() -> jinja2.Environment:
+    loader = jinja2.FunctionLoader(lambda name: resources.files("explorer.report").joinpath(name).read_text(
+        encoding="utf-8"))
+    env = jinja2.Environment(loader=loader, autoescape=True, undefined=jinja2.StrictUndefined, trim_blocks=True,
+                             lstrip_blocks=True)
+    env.filters["fmt"] = ch.fmt
+    env.filters["words"] = ch.words
+    return env
+
+
+def render_template(name: str, **context: Any) -> str:
+    """Render one of the package's templates (autoescaped)."""
+    return _environment().get_template(name).render(**context)
+
+
+def _number_charts(sections: list[list[dict]]) -> list[dict]:
+    """Give every chart an id and its spec; return the list to embed."""
+    specs = []
+    for group in sections:
+        for sec in group:
+            sec["chart_ids"] = []
+            for chart in sec.get("charts", []):
+                cid = f"chart-{len(specs) + 1}"
+                spec = _clean_nan(ch.chart_spec(chart))
+                specs.append({"id": cid, "spec": spec, "description": spec.get("description", "")})
+                sec["chart_ids"].append((cid, spec.get("description", "")))
+    return specs
+
+
+def render_report(result: Any, *, extra_sections: Iterable[Section | Mapping[str, Any]] | None = None,
+                  points: int = REPORT_POINTS) -> str:
+    """The whole report as one HTML string; `points` caps the patients drawn beneath each outcome chart."""
+    from ..spec import to_toml
+
+    doc = result.document
+    arms = doc["arms"]
+    inputs = doc.get("inputs", {})
+    outcomes = outcome_sections(result, doc, points)
+    composites = composite_sections(doc)
+    selection = selection_sections(doc)
+    pairwise = pairwise_sections(doc)
+    extras = _extra(extra_sections)
+    specs = _number_charts([outcomes, composites, selection, pairwise, extras])
+    spec_obj = getattr(result, "spec", None)
+    context = {
+        "title": f"Fulcrum report: {arms[0]} versus {arms[1]}",
+        "arms": arms,
+        "colours": ch.arm_colours(arms),
+        "doc": doc,
+        "inputs": inputs,
+        "cautions": list(doc.get("cautions") or CAUTIONS),
+        "generated_at": doc.get("tool", {}).get("generated_at", ""),
+        "versions": versions(),
+        "spec_toml": to_toml(spec_obj) if spec_obj is not None else json.dumps(doc.get("spec", {}), indent=1),
+        "breakeven": table_of(ch.breakeven_table(doc)),
+        "outcomes": outcomes,
+        "composites": composites,
+        "selection": selection,
+        "pairwise": pairwise,
+        "extras": extras,
+        "methods": methods_by_outcome(doc),
+        "indices": index_rows(doc),
+        "warnings": list(doc.get("warnings") or []),
+        "charts": specs,
+        "results_json": script_json(_clean_nan(doc)),
+        "charts_json": script_json([{"id": s["id"], "spec": s["spec"]} for s in specs]),
+        "javascript": Markup(javascript_bundle()),
+        "points": points,
+    }
+    return render_template("report.html", **context)
+
+
+def write_report(result: Any, path: str | Path, **kwargs: Any) -> Path:
+    """Write the report to `path` (UTF-8) and return the path."""
+    path = Path(path)
+    path.write_text(render_report(result, **kwargs), encoding="utf-8")
+    return path

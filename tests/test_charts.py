@@ -1,0 +1,275 @@
+"""Chart builders: every row of a real demo analysis builds a chart that passes the Vega-Lite schema, colours are
+the published Okabe-Ito ones, markers are words-labelled shapes (not squares), and the sentences say the row."""
+from __future__ import annotations
+
+import dataclasses
+import math
+import re
+
+import altair as alt
+import numpy as np
+import pandas as pd
+import pytest
+
+from explorer import charts as ch
+from explorer import values as vl
+from explorer.analysis import analyse
+from explorer.spec import load_spec
+
+# Okabe & Ito (2008) palette as reproduced by Wong, Nature Methods 8:441 (2011), Figure 2 (memory).
+PUBLISHED_OKABE_ITO = {"#000000", "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7"}
+GREENISH_OR_RED = {"#009E73", "#D55E00"}
+NUMBER = re.compile(r"-?\d+(?:\.\d+)?")
+
+
+@pytest.fixture(scope="module")
+def result(_demo_master):
+    spec = load_spec(_demo_master / "demo.toml")
+    return analyse(dataclasses.replace(spec, pairwise=None))
+
+
+@pytest.fixture(scope="module")
+def doc(result):
+    return result.document
+
+
+def _validated(chart: alt.TopLevelMixin) -> dict:
+    """Altair validates the whole spec against the Vega-Lite JSON schema in to_dict()."""
+    spec = chart.to_dict()
+    assert spec["description"]
+    assert spec.get("title")
+    return spec
+
+
+def _walk(obj):
+    if isinstance(obj, dict):
+        yield obj
+        for v in obj.values():
+            yield from _walk(v)
+    elif isinstance(obj, list):
+        for v in obj:
+            yield from _walk(v)
+
+
+def _records(spec: dict) -> list[list[dict]]:
+    """Every inline data table of a spec (Altair moves them into the top-level datasets)."""
+    out = list((spec.get("datasets") or {}).values())
+    out += [d["values"] for d in _walk(spec) if isinstance(d.get("values"), list)]
+    return [r for r in out if r and isinstance(r[0], dict)]
+
+
+def _scales(spec: dict, channel: str) -> list[dict]:
+    return [enc[channel]["scale"] for d in _walk(spec) if isinstance(enc := d.get("encoding"), dict)
+            and isinstance(enc.get(channel), dict) and isinstance(enc[channel].get("scale"), dict)]
+
+
+def test_every_results_row_builds_outcome_and_difference_charts(result, doc):
+    arms = doc["arms"]
+    assert len(doc["results"]) == len(result.spec.outcomes) * len(result.spec.indices)
+    for row in doc["results"]:
+        points = ch.cohort_points(result.fitset, row["outcome"], row["index"], max_points=300)
+        assert set(points.columns) == {"x", "y", "arm", "allocation"}
+        assert set(points["allocation"]) <= {"randomised", "chosen"}
+        _validated(ch.outcome_chart(row, arms, points, patient={"x": row["range"][0]}))
+        _validated(ch.difference_chart(row, arms, margin=0.05))
+
+
+def test_every_composite_and_selection_row_builds(result, doc):
+    arms = doc["arms"]
+    assert doc["composite"] and doc["selection"]
+    for row in doc["composite"]:
+        _validated(ch.composite_chart(row, arms))
+        if row.get("acceptability"):
+            _validated(ch.acceptability_chart(row["acceptability"], arms, index_title=row["index"]))
+    for row in doc["selection"]:
+        _validated(ch.selection_chart(row, arms))
+        _validated(ch.selection_break_even_chart(row))
+    cm = next(iter(result.composite.values()))[1].model
+    cells = vl.threshold_map(cm, result.spec.values.weights, float(np.median(cm.grid)), "home_with_help", "care_home",
+                             n=11)
+    spec = _validated(ch.threshold_map_chart(cells, arms))
+    assert spec["description"].count("%") >= 1
+
+
+def test_icon_array_and_distribution_charts(result, doc):
+    levels = result.spec.outcome("function").levels
+    probs = dict(zip(levels, (0.305, 0.2, 0.15, 0.1, 0.245)))
+    spec = _validated(ch.icon_array_chart(probs, "With laparotomy"))
+    values = next(r for r in _records(spec) if "state" in r[0])
+    assert len(values) == 100
+    assert sorted({(v["col"], v["row"]) for v in values}) == [(c, r) for c in range(10) for r in range(10)]
+    # Death in black and the living states in Okabe-Ito colours the arms do not use.
+    colours = ch.state_colours(levels)
+    assert colours["dead"] == "#000000"
+    assert set(colours.values()) <= PUBLISHED_OKABE_ITO
+    assert not set(colours.values()) & set(ch.ARM_COLOURS)
+    frame = pd.DataFrame({"x": result.fitset.indices["cfs"].values,
+                          "arm": result.fitset.cohort.frame[result.spec.cohort.arm].to_numpy()})
+    _validated(ch.index_distribution_chart(frame, arms=doc["arms"], label="Clinical Frailty Scale", patient_x=6))
+
+
+def test_pairwise_chart_builds(result, doc):
+    from explorer import pairwise as pw
+
+    spec = result.spec
+    rows = pw.pairwise_rows(spec, result.fitset.cohort, "cfs", result.fitset.indices["cfs"].values, replicates=20,
+                            seed=1)
+    _validated(ch.pairwise_chart(rows, doc["arms"], index_title="Clinical Frailty Scale"))
+
+
+def test_arm_colours_are_okabe_ito_distinct_and_not_green_against_red(doc):
+    arms = doc["arms"]
+    colours = ch.arm_colours(arms)
+    assert set(colours.values()) <= PUBLISHED_OKABE_ITO
+    assert len(set(colours.values())) == 2
+    assert not set(colours.values()) & GREENISH_OR_RED
+    spec = ch.outcome_chart(doc["results"][0], arms).to_dict()
+    colour_scales = [s for s in _scales(spec, "color") if s.get("domain") == list(arms)]
+    assert colour_scales and all(s["range"] == [colours[a] for a in arms] for s in colour_scales)
+    with pytest.raises(ValueError):
+        ch.arm_colours([arms[0], arms[0]])
+
+
+def test_randomised_and_chosen_differ_by_shape_named_in_words(result, doc):
+    row = doc["results"][0]
+    points = ch.cohort_points(result.fitset, row["outcome"], row["index"])
+    assert {"randomised", "chosen"} <= set(points["allocation"])
+    spec = ch.outcome_chart(row, doc["arms"], points).to_dict()
+    shape_scales = [s for s in _scales(spec, "shape") if s.get("domain") == ["randomised", "chosen"]]
+    assert shape_scales
+    for s in shape_scales:
+        assert len(set(s["range"])) == 2
+        assert not any("square" in str(r) for r in s["range"])
+
+
+def _row_numbers(row: dict) -> set[str]:
+    """Every number the row holds (and, for whole-level indices, the levels either side), as the sentence prints."""
+    nums: list[float] = []
+    texts: list[str] = []
+    for d in _walk(row):
+        for k, v in d.items():
+            if k == "curve":
+                continue
+            if isinstance(v, (int, float)) and not isinstance(v, bool):
+                nums.append(float(v))
+            elif isinstance(v, list):
+                nums.extend(float(x) for x in v if isinstance(x, (int, float)) and not isinstance(x, bool))
+            elif isinstance(v, str):
+                texts.append(v)
+    out = {ch.fmt(v) for v in nums}
+    lo, hi = row["range"]
+    out |= {ch.fmt(min(max(v, lo), hi)) for v in nums}
+    if ch.is_discrete(row):
+        out |= {str(f(v)) for v in nums for f in (math.floor, math.ceil)}
+    for t in texts:
+        out |= set(NUMBER.findall(t))
+    return out
+
+
+def test_describe_row_says_only_numbers_of_the_row(doc):
+    arms = doc["arms"]
+    for row in doc["results"] + doc["composite"]:
+        sentence = ch.describe_row(row, arms)
+        allowed = _row_numbers(row)
+        found = NUMBER.findall(sentence)
+        assert found, sentence
+        assert set(found) <= allowed, (sentence, set(found) - allowed)
+        for b in row["break_even"]:
+            if ch.is_discrete(row):
+                assert str(math.floor(b["x"])) in found
+            else:
+                assert ch.fmt(b["x"]) in found
+            for end in b["ci"]:
+                if end is not None:
+                    assert ch.fmt(end) in found
+        for arm in {b["favours_below"] for b in row["break_even"]} | {r["favours"] for r in ch.clear_regions(row)}:
+            assert arm in sentence
+
+
+def _hand_row(shape: str, ci: list, discrete: bool = False) -> dict:
+    """A minimal row (first 0.8 - 0.1 x, second 0.5 - 0.05 x: they cross at x = 6) with a given interval shape."""
+    xs = np.linspace(1.0, 9.0, 9)
+    f, s = 0.8 - 0.1 * xs, 0.5 - 0.05 * xs
+    curve = [{"x": float(x), "first": float(a), "second": float(b), "difference": float(a - b),
+              "difference_ci": [float(a - b - 0.05), float(a - b + 0.05)]} for x, a, b in zip(xs, f, s)]
+    return {"outcome": "alive", "index": "cfs", "measure": "probability alive at 365 days", "range": [1.0, 9.0],
+            "break_even": [{"x": 6.0, "ci": ci, "interval": "fieller", "interval_shape": shape, "extrapolated": False,
+                            "favours_below": "A", "favours_above": "B", "approximate": True}],
+            "favours_throughout": None, "curve": curve,
+            "clear_difference": [{"from": 0.2, "to": 4.5, "favours": "A"}],
+            "index_info": {"label": "frailty", "discrete": discrete}, "warnings": []}
+
+
+@pytest.mark.parametrize("shape,ci,words", [
+    ("finite", [5.1, 7.2], "5.1 to 7.2"),
+    ("unbounded_above", [5.1, None], "open above"),
+    ("unbounded_below", [None, 7.2], "open below"),
+    ("two_rays", [4.0, 8.0], "in two parts, up to 4 and from 8"),
+    ("unbounded", [None, None], "unbounded"),
+])
+def test_interval_shapes_are_said_and_drawn(shape, ci, words):
+    row = _hand_row(shape, ci)
+    sentence = ch.describe_row(row, ["A", "B"])
+    assert words in sentence and "approximate" in sentence and "Fieller" in sentence
+    # the region runs from 0.2 on the search grid, but the sentence speaks of the observed range only
+    assert "from 1 to 4.5" in sentence
+    spec = _validated(ch.outcome_chart(row, ["A", "B"]))
+    texts = {v.get("text") for r in _records(spec) for v in r}
+    if ci[0] is None or ci[1] is None or shape == "two_rays":
+        assert "open" in texts
+
+
+def test_discrete_index_is_spoken_by_whole_levels():
+    row = _hand_row("finite", [5.1, 7.2], discrete=True)
+    row["break_even"][0]["x"] = 6.4
+    sentence = ch.describe_row(row, ["A", "B"])
+    assert "between levels 6 and 7 (at 6.4)" in sentence
+    assert "at levels up to 6 A is favoured, from level 7 B" in sentence
+    assert "at levels 1 to 4, favouring A" in sentence
+
+
+def test_no_break_even_says_who_is_favoured_throughout():
+    row = _hand_row("finite", [5.1, 7.2])
+    row["break_even"], row["favours_throughout"], row["clear_difference"] = [], "B", []
+    sentence = ch.describe_row(row, ["A", "B"])
+    assert "B is favoured throughout the observed range (1 to 9)" in sentence
+    assert "Nowhere" in sentence
+
+
+def test_breakeven_table_has_one_row_per_outcome_index_and_composite(doc):
+    table = ch.breakeven_table(doc)
+    assert len(table) == len(doc["results"]) + len(doc["composite"])
+    assert list(table.columns) == ["outcome", "index", "measure", "break-even", "interval", "favoured below",
+                                   "favoured above", "clear difference"]
+    for (_, t), row in zip(table.iterrows(), doc["results"] + doc["composite"]):
+        if row["break_even"]:
+            assert t["break-even"].split(";")[0].split(" ")[0] == ch.fmt(row["break_even"][0]["x"])
+            assert row["break_even"][0]["favours_below"] in t["favoured below"]
+        else:
+            assert t["favoured below"] == f"{row['favours_throughout']} throughout"
+
+
+def test_per_hundred_adds_to_100_by_largest_remainders():
+    # Hamilton's largest-remainder apportionment (common practice): 33.3/33.3/33.4 -> 33/33/34.
+    assert ch.per_hundred({"a": 1 / 3, "b": 1 / 3, "c": 1 / 3 + 1e-9}) == {"a": 33, "b": 33, "c": 34}
+    rng = np.random.default_rng(4)
+    for _ in range(50):
+        p = rng.dirichlet(np.ones(5))
+        counts = ch.per_hundred(dict(zip("abcde", p)))
+        assert sum(counts.values()) == 100
+        assert all(abs(counts[k] - 100 * v) < 1 for k, v in zip("abcde", p))
+
+
+def test_fmt_reads_as_three_significant_figures():
+    # Python's own 3-significant-figure formatting is the reference.
+    for v in (0.123456, 12.345, 123.456, -4.5678, 0.000123456, 9.996):
+        assert float(ch.fmt(v)) == pytest.approx(float(f"{v:.3g}"))
+    assert ch.fmt(None) == "open" and ch.fmt(0.0) == "0" and ch.fmt(1234.5) == "1234"
+
+
+def test_png_and_svg_export(doc):
+    chart = ch.difference_chart(doc["results"][0], doc["arms"])
+    png = ch.chart_to_png(chart, scale=1)
+    assert png[:8] == b"\x89PNG\r\n\x1a\n"
+    svg = ch.chart_to_svg(chart)
+    assert svg.lstrip().startswith("<svg") and "</svg>" in svg

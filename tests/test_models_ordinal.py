@@ -182,6 +182,20 @@ def test_proportional_odds_check():
     assert any("Proportional odds" in w for w in bad.warnings_)
 
 
+def test_proportional_odds_check_has_its_nominal_size():
+    # closed-form simulation under proportional odds: Brant's Wald test should reject about 5% at the 5% level
+    rng = np.random.default_rng(0)
+    pvals = []
+    for _ in range(150):
+        x, z = rng.uniform(0, 4, 300), rng.normal(size=(300, 1))
+        y = np.searchsorted([-1.0, 0.5, 2.0], 0.8 * x + 0.5 * z[:, 0] + rng.logistic(size=300))
+        fit = OrdinalFit("f", "a", Basis(), OutcomeData(x=x, y=y, z=z), ("a", "b", "c", "d"), ("a",))
+        pvals.append(fit.checks_["proportional_odds"]["p"])
+    pvals = np.array(pvals, float)
+    assert 0.01 <= np.mean(pvals < 0.05) <= 0.10
+    assert 0.35 <= np.median(pvals) <= 0.65
+
+
 def test_separation_is_flagged():
     x = np.r_[np.zeros(30), np.ones(30)]
     y = np.r_[np.zeros(30, int), np.r_[np.ones(15, int), np.full(15, 2)]]

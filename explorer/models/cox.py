@@ -66,10 +66,11 @@ class CoxFit(ArmFit):
         k = CoxKernel(t, e, prep.X, prep.w)
         self.mean_ = k.mean
         p = prep.X.shape[1]
-        beta0 = np.zeros(p) if start is None or np.shape(start) != (p,) else np.asarray(start, float)
-        if not np.isfinite(k.evaluate(beta0)[0]):
-            beta0 = np.zeros(p)
-        beta, ll, g, H, it, ok = newton(k.evaluate, beta0)
+        warm = start is not None and np.shape(start) == (p,) and np.all(np.isfinite(start))
+        try:
+            beta, ll, g, H, it, ok = newton(k.evaluate, np.asarray(start, float) if warm else np.zeros(p))
+        except ValueError:
+            beta, ll, g, H, it, ok = newton(k.evaluate, np.zeros(p))
         self.params_, self.loglik_, self.iterations_, self.converged_ = beta, ll, it, ok
         model_cov = inverse(-H)
         self.cov_ = model_cov

@@ -151,15 +151,15 @@ class CoxFit(ArmFit):
 
     def measure(self, x: np.ndarray) -> np.ndarray:
         if self.measure_name == "rmst":
-            return self._rmst(x)[0]
+            return self.rmst(x)[0]
         return np.exp(-self.cumulative_hazard(x))
 
     def measure_var(self, x: np.ndarray) -> np.ndarray:
         if self.measure_name == "rmst":
-            return self._rmst(x)[1]
+            return self.rmst(x)[1]
         return np.exp(-2 * self.cumulative_hazard(x)) * self.cumulative_hazard_var(x)
 
-    def _rmst(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def rmst(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """RMST to the horizon and its delta-method variance, in chunks of index values."""
         Xc, r = self._centred(x)
         edges = np.r_[0.0, self.event_times_, self.horizon]

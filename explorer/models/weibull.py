@@ -89,14 +89,18 @@ class WeibullFit(ArmFit):
                         f"{'survival probability' if measure == 'survival' else 'restricted mean survival'} "
                         f"at {self.horizon:g}.")
 
-    def _value(self, x: np.ndarray, params: np.ndarray) -> np.ndarray:
-        R = self.rows(x)
-        mu = params[0] + R @ params[1:-1]
+    def _cumhaz(self, x: np.ndarray, params: np.ndarray) -> np.ndarray:
+        mu = params[0] + self.rows(x) @ params[1:-1]
+        return np.exp(np.exp(params[-1]) * (np.log(self.horizon) - mu))
+
+    def _rmst_value(self, x: np.ndarray, params: np.ndarray) -> np.ndarray:
+        lam = np.exp(params[0] + self.rows(x) @ params[1:-1])
         rho = np.exp(params[-1])
-        if self.measure_name == "rmst":
-            lam = np.exp(mu)
-            return lam * gamma_fn(1 + 1 / rho) * gammainc(1 / rho, (self.horizon / lam) ** rho)
-        return np.exp(-np.exp(rho * (np.log(self.horizon) - mu)))
+        return lam * gamma_fn(1 + 1 / rho) * gammainc(1 / rho, (self.horizon / lam) ** rho)
+
+    def _with_var(self, f, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        x = np.asarray(x, float)
+        return f(x, self.params_), quad_form(numerical_jacobian(f, self.params_, x), self.cov_)
 
     def survival_at(self, x: np.ndarray, times: np.ndarray) -> np.ndarray:
         """S(t | x) for every x (rows) and t (columns)."""
@@ -104,9 +108,23 @@ class WeibullFit(ArmFit):
         rho = np.exp(self.params_[-1])
         return np.exp(-np.exp(rho * (np.log(np.asarray(times, float))[None, :] - mu[:, None])))
 
+    def cumulative_hazard(self, x: np.ndarray) -> np.ndarray:
+        """H(horizon | x) = (horizon / exp(mu(x)))^rho."""
+        return self._cumhaz(np.asarray(x, float), self.params_)
+
+    def cumulative_hazard_var(self, x: np.ndarray) -> np.ndarray:
+        return self._with_var(self._cumhaz, x)[1]
+
+    def rmst(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Restricted mean survival to the horizon and its delta-method variance."""
+        return self._with_var(self._rmst_value, x)
+
     def measure(self, x: np.ndarray) -> np.ndarray:
-        return self._value(np.asarray(x, float), self.params_)
+        if self.measure_name == "rmst":
+            return self._rmst_value(np.asarray(x, float), self.params_)
+        return np.exp(-self.cumulative_hazard(x))
 
     def measure_var(self, x: np.ndarray) -> np.ndarray:
-        J = numerical_jacobian(self._value, self.params_, np.asarray(x, float))
-        return quad_form(J, self.cov_)
+        if self.measure_name == "rmst":
+            return self.rmst(x)[1]
+        return np.exp(-2 * self.cumulative_hazard(x)) * self.cumulative_hazard_var(x)

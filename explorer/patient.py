@@ -7,6 +7,7 @@ the mean of the cross-fitted prognostic models), and every estimate from the fit
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import asdict, dataclass, field
 from typing import Any, Mapping
 
@@ -22,6 +23,7 @@ from .results import _jsonable
 from .spec import OutcomeSpec
 
 WHOSE = {"patient": "the patient's", "proxy": "a proxy's", "team": "the treating team's"}
+CODED = re.compile(r"covariate '(.+)' is text with two values: coded '(.*)' = 1, '(.*)' = 0\.$")
 FIRM = 0.95
 LEANING = 0.80
 
@@ -149,12 +151,38 @@ def _index_value(fs: FitSet, name: str, values: Mapping[str, float], row: int | 
         return float(values[name]), "entered"
     cols = tuple(getattr(iv.model, "columns", ()) or ())
     if cols and all(c in values for c in cols):
-        frame = pd.DataFrame([{c: values[c] for c in cols}])
+        frame = pd.DataFrame([{c: _coded(fs, c, values[c]) for c in cols}])
         return float(np.asarray(iv.model.compute(frame), float)[0]), "computed from entered values"
     if row is not None:
         return float(iv.values[row]), "cohort record"
     missing = [c for c in cols if c not in values]
     return "no value was given for " + ", ".join(missing or [name])
+
+
+def text_codings(fs: FitSet) -> dict[str, dict[str, float]]:
+    """How the cohort coded two-valued text covariates as 0/1 (e.g. sex 'F' = 0, 'M' = 1)."""
+    codings = dict(getattr(fs.cohort, "codings", None) or {})
+    for note in fs.cohort.notes:
+        m = CODED.match(note)
+        if m and m.group(1) not in codings:
+            codings[m.group(1)] = {m.group(2): 1.0, m.group(3): 0.0}
+    return codings
+
+
+def _coded(fs: FitSet, column: str, value: Any) -> float:
+    """An entered covariate value as a number, text mapped the way the cohort coded it."""
+    if not isinstance(value, str):
+        return value
+    try:
+        return float(value)
+    except ValueError:
+        pass
+    coding = text_codings(fs).get(column)
+    if coding is None or value not in coding:
+        known = f" It was coded {', '.join(f'{k!r} = {v:g}' for k, v in coding.items())}." if coding else ""
+        raise FulcrumError(f"the value {value!r} given for '{column}' is not one the cohort holds.{known}",
+                           column=column, hint="Give the value as it appears in the cohort file, or as a number.")
+    return coding[value]
 
 
 def _placement(fs: FitSet, name: str, value: float, source: str) -> Placement:

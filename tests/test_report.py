@@ -1,0 +1,183 @@
+"""The offline report: one self-contained file with no external addresses, cautions at the top and bottom,
+every user-supplied string escaped (also inside embedded JSON), and embedded JSON that parses back."""
+from __future__ import annotations
+
+import dataclasses
+import json
+import re
+from html.parser import HTMLParser
+from pathlib import Path
+
+import altair as alt
+import pandas as pd
+import pytest
+
+from explorer import CAUTIONS, demo
+from explorer.analysis import analyse
+from explorer.report import Section, render_report, script_json, write_report
+from explorer.spec import load_spec
+
+ATTR_URL = re.compile(r"""\b(?:src|href|action|xlink:href)\s*=\s*["']?\s*(?:https?:)?//""", re.I)
+ATTACK = "<script>alert(1)</script>"
+
+
+@pytest.fixture(scope="module")
+def result(_demo_master):
+    spec = load_spec(_demo_master / "demo.toml")
+    keep = tuple(ix for ix in spec.indices if ix.name in ("cfs", "age"))
+    return analyse(dataclasses.replace(spec, indices=keep, pairwise=None))
+
+
+@pytest.fixture(scope="module")
+def html(result, tmp_path_factory) -> str:
+    folder = tmp_path_factory.mktemp("report")
+    path = write_report(result, folder / "report.html")
+    assert [p.name for p in folder.iterdir()] == ["report.html"]
+    return path.read_text(encoding="utf-8")
+
+
+class _Scripts(HTMLParser):
+    """Collect <script> contents and every tag's attributes with Python's own HTML parser."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.scripts: list[tuple[dict, str]] = []
+        self.attrs: list[tuple[str, str, str]] = []
+        self._open: dict | None = None
+
+    def handle_starttag(self, tag, attrs):
+        self.attrs.extend((tag, k, v or "") for k, v in attrs)
+        if tag == "script":
+            self._open = dict(attrs)
+            self.scripts.append((self._open, ""))
+
+    def handle_data(self, data):
+        if self._open is not None:
+            attrs, text = self.scripts[-1]
+            self.scripts[-1] = (attrs, text + data)
+
+    def handle_endtag(self, tag):
+        if tag == "script":
+            self._open = None
+
+
+def _parsed(html: str) -> _Scripts:
+    p = _Scripts()
+    p.feed(html)
+    return p
+
+
+def test_report_is_self_contained(html):
+    parsed = _parsed(html)
+    assert not ATTR_URL.search(html)
+    for tag, key, value in parsed.attrs:
+        if key in ("src", "href"):
+            assert not re.match(r"\s*(https?:)?//", value), (tag, key, value)
+    assert "<link" not in html and "@import" not in html
+    bundle = [text for attrs, text in parsed.scripts if not attrs]
+    assert any("vegaEmbed" in text and len(text) > 100_000 for text in bundle)
+
+
+def test_cautions_top_and_bottom(html):
+    first_chart = html.index('class="chart"')
+    last_chart = html.rindex('class="chart"')
+    for caution in CAUTIONS:
+        assert html.index(caution) < first_chart
+        assert html.rindex(caution) > last_chart
+
+
+def test_embedded_json_parses_back(result, html):
+    scripts = {attrs.get("id"): text for attrs, text in _parsed(html).scripts if attrs.get("type") == "application/json"}
+    doc = json.loads(scripts["fulcrum-results"])
+    assert doc["arms"] == result.document["arms"]
+    assert [r["outcome"] for r in doc["results"]] == [r["outcome"] for r in result.document["results"]]
+    assert doc["results"][0]["break_even"] == result.document["results"][0]["break_even"]
+    charts = json.loads(scripts["fulcrum-charts"])
+    ids = re.findall(r'<div id="(chart-\d+)" role="img"', html)
+    assert [c["id"] for c in charts] == ids and len(ids) >= len(result.document["results"])
+    for c in charts[:3]:
+        alt.Chart.from_dict(c["spec"]) if "mark" in c["spec"] else alt.LayerChart.from_dict(c["spec"])
+
+
+def test_provenance_spec_and_versions(result, html):
+    doc = result.document
+    for text in (doc["inputs"]["data_sha256"], doc["inputs"]["spec_sha256"], "[cohort]", "[[outcomes]]",
+                 "numpy", "pandas", "lifelines", "scikit-learn", "python", "Fieller"):
+        assert text in html, text
+    assert re.search(r"<dt>seed</dt><dd>1</dd>", html)
+    assert "Break-even points" in html and "Value of outcomes" in html and "Randomised and chosen" in html
+    for row in doc["results"]:
+        for text in row["methods"].values():
+            assert text.replace("'", "&#39;") in html
+
+
+def test_script_json_is_safe_inside_script():
+    text = str(script_json({"a": "</script><!-- & \u2028"}))
+    assert "</" not in text and "<!--" not in text and "\u2028" not in text
+    assert json.loads(text) == {"a": "</script><!-- & \u2028"}
+
+
+def test_extra_sections_are_escaped(result):
+    frame = pd.DataFrame({"column <b>": [ATTACK]})
+    html = render_report(result, points=0, extra_sections=[
+        Section(title=ATTACK, text=ATTACK, table=frame, notes=[ATTACK]),
+        {"title": "second", "text": "plain words"}])
+    assert "<script>alert" not in html
+    assert html.count("&lt;script&gt;alert(1)&lt;/script&gt;") >= 4
+    assert "column &lt;b&gt;" in html and "plain words" in html
+
+
+def _hostile_case(folder: Path) -> Path:
+    """A small invented cohort whose arm label, ordinal level, outcome label and index label hold a script tag."""
+    frame, _ = demo.generate(n=400, seed=11)
+    frame["arm"] = frame["arm"].replace({"laparotomy": ATTACK})
+    frame["function_6m"] = frame["function_6m"].replace({"bedbound": "<script>alert(2)</script>"})
+    frame.to_csv(folder / "cohort.csv", index=False)
+    spec = f"""
+[cohort]
+path = "cohort.csv"
+id = "pid"
+arm = "arm"
+arms = [{json.dumps(ATTACK)}, "non-operative"]
+allocation = "allocation"
+
+[[outcomes]]
+name = "alive"
+kind = "survival"
+time = "days_followed"
+event = "died"
+horizon = 365
+label = "<script>alert(3)</script>"
+
+[[outcomes]]
+name = "function"
+kind = "ordinal"
+column = "function_6m"
+levels = ["independent", "home_with_help", "care_home", "<script>alert(2)</script>", "dead"]
+
+[[indices]]
+name = "cfs"
+column = "cfs"
+label = "<script>alert(4)</script>"
+
+[values]
+outcome = "function"
+weights = {{ independent = 1.0, home_with_help = 0.8, care_home = 0.45, "<script>alert(2)</script>" = 0.1, dead = 0.0 }}
+"""
+    path = folder / "spec.toml"
+    path.write_text(spec, encoding="utf-8")
+    return path
+
+
+def test_script_tags_in_labels_levels_and_names_are_escaped(tmp_path):
+    result = analyse(load_spec(_hostile_case(tmp_path)))
+    html = render_report(result, points=50)
+    assert "<script>alert" not in html
+    for k in (1, 2, 3, 4):
+        assert f"&lt;script&gt;alert({k})&lt;/script&gt;" in html, k
+    assert "\\u003cscript\\u003ealert(1)" in html
+    scripts = {attrs.get("id"): text for attrs, text in _parsed(html).scripts if attrs.get("type") == "application/json"}
+    doc = json.loads(scripts["fulcrum-results"])
+    assert doc["arms"][0] == ATTACK
+    charts = json.loads(scripts["fulcrum-charts"])
+    assert any(ATTACK in json.dumps(c["spec"]) for c in charts)

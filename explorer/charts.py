@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import math
 import re
+import textwrap
 from functools import lru_cache, wraps
 from typing import Any, Callable, Iterable, Mapping, Sequence
 
@@ -32,6 +33,7 @@ ALLOCATION_SIZES = {"randomised": 70, "chosen": 22}
 PERSON = ("M -0.32,-0.68 a 0.32,0.32 0 1,0 0.64,0 a 0.32,0.32 0 1,0 -0.64,0 Z "
           "M -0.55,-0.22 L 0.55,-0.22 L 0.55,0.45 L 0.3,0.45 L 0.3,1 L -0.3,1 L -0.3,0.45 L -0.55,0.45 Z")
 WIDTH, HEIGHT = 640, 360
+TITLE_CHARS, AXIS_CHARS = 58, 38
 FONT = {"title": 22, "subtitle": 16, "axis_title": 18, "axis_label": 16, "legend_title": 16, "legend_label": 15,
         "text": 15}
 ARM_LEGEND = alt.Legend(title="arm", symbolType="stroke", symbolStrokeWidth=5, symbolOpacity=1)
@@ -74,6 +76,12 @@ def fmt(v: float | None) -> str:
     if "." in s:
         s = s.rstrip("0").rstrip(".")
     return "0" if s in ("-0", "") else s
+
+
+def wrap(text: str, width: int) -> str | list[str]:
+    """Long titles as lines (Vega-Lite draws a list of strings as a multi-line title)."""
+    lines = textwrap.wrap(text, width)
+    return text if len(lines) <= 1 else lines
 
 
 def words(name: str) -> str:
@@ -122,7 +130,8 @@ def projector_config() -> alt.Config:
         axis=alt.AxisConfig(labelFontSize=FONT["axis_label"], titleFontSize=FONT["axis_title"], grid=True,
                             gridOpacity=0.4),
         legend=alt.LegendConfig(labelFontSize=FONT["legend_label"], titleFontSize=FONT["legend_title"],
-                                orient="bottom", direction="vertical", labelLimit=420, symbolSize=160),
+                                orient="bottom", direction="vertical", labelLimit=420, titleLimit=420,
+                                symbolSize=160),
         title=alt.TitleConfig(fontSize=FONT["title"], subtitleFontSize=FONT["subtitle"], anchor="start",
                               subtitleColor=INK),
         view=alt.ViewConfig(stroke=None))
@@ -138,7 +147,10 @@ def _finish(chart: alt.TopLevelMixin, title: str, subtitle: str | list[str] | No
             style: bool) -> alt.TopLevelMixin:
     """Title, accessible description and (optionally) the projector look, set in place on a fresh chart."""
     if title:
-        chart.title = alt.TitleParams(title, subtitle=subtitle) if subtitle else alt.TitleParams(title)
+        if isinstance(subtitle, str):
+            subtitle = wrap(subtitle, TITLE_CHARS + 20)
+        chart.title = (alt.TitleParams(wrap(title, TITLE_CHARS), subtitle=subtitle) if subtitle
+                       else alt.TitleParams(wrap(title, TITLE_CHARS)))
     chart.description = description
     return styled(chart) if style else chart
 
@@ -346,10 +358,10 @@ def outcome_chart(row: Mapping[str, Any], arms: Sequence[str], points: pd.DataFr
         layers.append(shade)
     if cf["lower"].notna().any():
         layers.append(_chart(cf).mark_area(opacity=0.2).encode(
-            x=_x_axis(row, index_label), y=alt.Y("lower:Q", scale=yscale, title=ytitle), y2=alt.Y2("upper"), color=colour))
+            x=_x_axis(row, index_label), y=alt.Y("lower:Q", scale=yscale, title=wrap(ytitle, AXIS_CHARS)), y2=alt.Y2("upper"), color=colour))
     layers.append(_chart(cf).mark_line(strokeWidth=3.5).encode(
         x=_x_axis(row, index_label),
-        y=alt.Y("estimate:Q", scale=yscale, title=ytitle), color=colour,
+        y=alt.Y("estimate:Q", scale=yscale, title=wrap(ytitle, AXIS_CHARS)), color=colour,
         tooltip=[alt.Tooltip("arm:N"), alt.Tooltip("x:Q", format=".3~g", title="index"),
                  alt.Tooltip("estimate:Q", format=".3~g"), alt.Tooltip("lower:Q", format=".3~g"),
                  alt.Tooltip("upper:Q", format=".3~g")]))
@@ -394,7 +406,7 @@ def difference_chart(row: Mapping[str, Any], arms: Sequence[str], *, margin: flo
     if shade is not None:
         layers.append(shade)
     layers.append(_chart(df).mark_area(opacity=0.25, color=INK).encode(
-        x=_x_axis(row, index_label), y=alt.Y("lower:Q", title=ytitle), y2=alt.Y2("upper")))
+        x=_x_axis(row, index_label), y=alt.Y("lower:Q", title=wrap(ytitle, AXIS_CHARS)), y2=alt.Y2("upper")))
     refs = pd.DataFrame([{"y": 0.0, "label": "no difference", "dash": False}]
                         + ([{"y": float(margin), "label": f"margin {fmt(margin)}", "dash": True}] if margin else []))
     for dashed, part in refs.groupby("dash"):
@@ -494,7 +506,8 @@ def describe_row(row: Mapping[str, Any], arms: Sequence[str], index_label: str |
     label = index_label_of(row, index_label)
     discrete = is_discrete(row)
     lo, hi = row["range"]
-    head = f"{_measure_title(row)} ({_outcome_title(row)}) along {label}, {arms[0]} against {arms[1]}: "
+    named = "" if _outcome_title(row) == row.get("measure") else f" ({_outcome_title(row)})"
+    head = f"{_measure_title(row)}{named} along {label}, {arms[0]} against {arms[1]}: "
     bes = row.get("break_even") or []
     if bes:
         body = "; and ".join(_break_even_words(b, discrete, margin) for b in bes) + "."
@@ -800,9 +813,9 @@ def pairwise_chart(rows: Sequence[Mapping[str, Any]], arms: Sequence[str], *, in
         ci = df.dropna(subset=["lo", "hi"])
         if len(ci):
             layers.append(_chart(ci).mark_rule(strokeWidth=3, color=INK).encode(
-                x=x, y=alt.Y("lo:Q", title=f"net benefit ({arms[0]} minus {arms[1]})"), y2=alt.Y2("hi")))
+                x=x, y=alt.Y("lo:Q", title=wrap(f"net benefit ({arms[0]} minus {arms[1]})", AXIS_CHARS)), y2=alt.Y2("hi")))
         layers.append(_chart(df).mark_point(filled=True, size=120, color=ARM_COLOURS[0], opacity=1).encode(
-            x=x, y=alt.Y("net_benefit:Q", title=f"net benefit ({arms[0]} minus {arms[1]})"),
+            x=x, y=alt.Y("net_benefit:Q", title=wrap(f"net benefit ({arms[0]} minus {arms[1]})", AXIS_CHARS)),
             tooltip=[alt.Tooltip("from:Q", format=".3~g"), alt.Tooltip("to:Q", format=".3~g"),
                      alt.Tooltip("net_benefit:Q", format=".3~g"), alt.Tooltip("lo:Q", format=".3~g"),
                      alt.Tooltip("hi:Q", format=".3~g")]))
@@ -897,6 +910,55 @@ def cohort_points(fs: Any, outcome: str, index: str, *, max_points: int = 1500, 
     if bool((ix.info or {}).get("discrete")):
         df["x"] = df["x"] + rng.uniform(-0.2, 0.2, len(df))
     return df
+
+
+@_quick
+def km_chart(fs: Any, outcome: str, *, index: str | None = None, between: tuple[float, float] | None = None,
+             style: bool = True) -> alt.TopLevelMixin:
+    """Kaplan-Meier curves per arm (lifelines), optionally for patients whose index lies in `between`."""
+    from lifelines import KaplanMeierFitter
+
+    o = fs.spec.outcome(outcome)
+    if o.kind != "survival":
+        raise ValueError(f"outcome '{outcome}' is not a survival outcome")
+    pf = next(p for (name, _), p in fs.pairs.items() if name == outcome and (index is None or p.index == index))
+    arms = list(pf.fits)
+    recs, counts = [], {}
+    for arm in arms:
+        d = pf.data[arm]
+        keep = np.ones(len(d.x), bool) if between is None else (d.x >= between[0]) & (d.x <= between[1])
+        counts[arm] = int(keep.sum())
+        if not keep.any():
+            continue
+        km = KaplanMeierFitter().fit(np.asarray(d.time)[keep], np.asarray(d.event)[keep])
+        sf = km.survival_function_.iloc[:, 0]
+        ci = km.confidence_interval_survival_function_
+        for t, v, lo, hi in zip(sf.index, sf.to_numpy(), ci.iloc[:, 0].to_numpy(), ci.iloc[:, 1].to_numpy()):
+            recs.append({"time": float(t), "survival": float(v), "lower": float(lo), "upper": float(hi), "arm": arm})
+    df = pd.DataFrame(recs, columns=["time", "survival", "lower", "upper", "arm"])
+    colour = alt.Color("arm:N", scale=_arm_scale(arms), legend=ARM_LEGEND)
+    unit = f" ({o.units})" if o.units else ""
+    x = alt.X("time:Q", title=f"time{unit}")
+    layers = [_chart(df).mark_area(opacity=0.18, interpolate="step-after").encode(
+                  x=x, y=alt.Y("lower:Q", title="probability alive", scale=alt.Scale(domain=[0, 1])),
+                  y2=alt.Y2("upper"), color=colour),
+              _chart(df).mark_line(strokeWidth=3, interpolate="step-after").encode(
+                  x=x, y=alt.Y("survival:Q"), color=colour,
+                  tooltip=[alt.Tooltip("arm:N"), alt.Tooltip("time:Q", format=".4~g"),
+                           alt.Tooltip("survival:Q", format=".3f")])]
+    if o.horizon:
+        layers.append(_chart(pd.DataFrame([{"t": float(o.horizon)}])).mark_rule(color=INK, strokeDash=[5, 4])
+                      .encode(x=alt.X("t:Q")))
+    chart = _sized(alt.layer(*layers), WIDTH, HEIGHT)
+    where = "" if between is None else f", {pf.index} {fmt(between[0])} to {fmt(between[1])}"
+    at = []
+    for arm in arms:
+        part = df[(df["arm"] == arm) & (df["time"] <= (o.horizon or np.inf))]
+        if len(part):
+            at.append(f"{arm} {fmt(part['survival'].iloc[-1])} ({counts[arm]} patients)")
+    desc = (f"Kaplan-Meier survival by arm for {o.title}{where}"
+            + (f"; at {o.horizon:g}{unit}: " + ", ".join(at) if at else "") + ".")
+    return _finish(chart, f"{o.title}: Kaplan-Meier by arm{where}", "dashed line: the horizon", desc, style)
 
 
 def chart_spec(chart: alt.TopLevelMixin) -> dict:

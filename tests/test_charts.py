@@ -38,6 +38,9 @@ def _validated(chart: alt.TopLevelMixin) -> dict:
     spec = chart.to_dict()
     assert spec["description"]
     assert spec.get("title")
+    config = spec["config"]
+    assert min(config["axis"]["labelFontSize"], config["legend"]["labelFontSize"]) >= 14
+    assert config["title"]["fontSize"] >= 20
     return spec
 
 
@@ -106,6 +109,19 @@ def test_icon_array_and_distribution_charts(result, doc):
     frame = pd.DataFrame({"x": result.fitset.indices["cfs"].values,
                           "arm": result.fitset.cohort.frame[result.spec.cohort.arm].to_numpy()})
     _validated(ch.index_distribution_chart(frame, arms=doc["arms"], label="Clinical Frailty Scale", patient_x=6))
+
+
+def test_kaplan_meier_chart_agrees_with_lifelines(result):
+    from lifelines import KaplanMeierFitter
+
+    spec = _validated(ch.km_chart(result.fitset, "alive", index="cfs", between=(6, 9)))
+    pf = result.fitset.pair("alive", "cfs")
+    arm = result.spec.cohort.arms[0]
+    d = pf.data[arm]
+    keep = (d.x >= 6) & (d.x <= 9)
+    km = KaplanMeierFitter().fit(d.time[keep], d.event[keep])
+    ref = float(km.predict(365.0))
+    assert f"{arm} {ch.fmt(ref)}" in spec["description"]
 
 
 def test_pairwise_chart_builds(result, doc):

@@ -20,6 +20,7 @@ import pandas as pd
 
 from .breakeven import percentile_interval
 from .errors import FulcrumError, format_rows
+from .models.common import one_blas_thread
 from .resampling import Progress, run_replicates
 from .results import r6
 from .spec import OutcomeSpec, Spec
@@ -29,7 +30,6 @@ BLOCK_ELEMENTS = 1 << 20
 MAX_PAIRS = 50_000_000
 MAX_WINDOWS = 100
 STEP_FRACTION = 0.5
-REPLICATE_CHUNK = 25
 FEW = 10
 
 
@@ -160,8 +160,9 @@ def decisions(first: PatientTable, second: PatientTable, priority: Sequence[Rule
 
 def count_decisions(d: np.ndarray, levels: int) -> tuple[np.ndarray, np.ndarray]:
     """Wins and losses per level from a decision matrix."""
-    counts = np.bincount((d.ravel().astype(np.int16) + levels), minlength=2 * levels + 1)
-    return counts[levels + 1:], counts[:levels][::-1]
+    wins = np.array([np.count_nonzero(d == k) for k in range(1, levels + 1)], np.int64)
+    losses = np.array([np.count_nonzero(d == -k) for k in range(1, levels + 1)], np.int64)
+    return wins, losses
 
 
 def pairwise_compare(first: PatientTable, second: PatientTable, priority: Sequence[Rule]) -> PairwiseResult:
@@ -181,8 +182,14 @@ def resample_counts(rng: np.random.Generator, sizes: Sequence[tuple[int, int]]) 
             for pair in sizes]
 
 
+@one_blas_thread
 def weighted_counts(d: np.ndarray, levels: int, a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Wins and losses per level (R, levels) when patients carry draw counts a (R, n1) and b (R, n2)."""
+    """Wins and losses per level (R, levels) when patients carry draw counts a (R, n1) and b (R, n2).
+
+    Each verdict mask is built once per block of rows and meets every replicate in one product (BLAS on one
+    thread: more only spin on a busy machine); the counts are whole numbers far below 2**24, so the float32
+    products are exact.
+    """
     r = a.shape[0]
     wins, losses = np.zeros((r, levels)), np.zeros((r, levels))
     a32, b32 = a.astype(np.float32), b.astype(np.float32)
@@ -201,21 +208,21 @@ def bootstrap(groups: Sequence[np.ndarray], levels: int, replicates: int, seed: 
               progress: Progress | None = None) -> list[tuple[np.ndarray, np.ndarray]]:
     """Per group (a decision matrix), replicate wins and losses by level, resampling patients within arm.
 
-    Each replicate draws from its own seed (explorer.resampling), so it does not depend on chunking.
+    Each replicate draws from its own seed (explorer.resampling), so it does not depend on chunking;
+    progress is reported in replicates, in proportion to the pairs done.
     """
     sizes = [g.shape for g in groups]
     draws = run_replicates(functools.partial(resample_counts, sizes=sizes), replicates, seed)
-    out = [(np.zeros((replicates, levels)), np.zeros((replicates, levels))) for _ in groups]
-    for start in range(0, replicates, REPLICATE_CHUNK):
-        chunk = draws[start:start + REPLICATE_CHUNK]
-        for g, d in enumerate(groups):
-            a = np.stack([rep[g][0] for rep in chunk])
-            b = np.stack([rep[g][1] for rep in chunk])
-            w, lo = weighted_counts(d, levels, a, b)
-            out[g][0][start:start + len(chunk)] = w
-            out[g][1][start:start + len(chunk)] = lo
+    total = max(1, sum(g.size for g in groups))
+    done = 0
+    out = []
+    for g, d in enumerate(groups):
+        a = np.stack([rep[g][0] for rep in draws])
+        b = np.stack([rep[g][1] for rep in draws])
+        out.append(weighted_counts(d, levels, a, b))
+        done += d.size
         if progress:
-            progress(min(start + REPLICATE_CHUNK, replicates), replicates)
+            progress(replicates * done // total, replicates)
     return out
 
 

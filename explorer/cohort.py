@@ -9,7 +9,7 @@ import csv
 import difflib
 import hashlib
 import io
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -29,6 +29,7 @@ ONE_WORDS = {"1": 1.0, "true": 1.0, "yes": 1.0, "0": 0.0, "false": 0.0, "no": 0.
 MISSING_WORDS = ("na", "n/a", "nan", "null", "none")
 TEXT_ROLES = ("arm", "id", "allocation", "cluster", "ordinal")
 SHOWN = 20
+MAX_MAGNITUDE = 1e12
 
 Raw = dict[str, pd.Series]
 Opener = Callable[[set[str], set[str]], Raw]
@@ -102,6 +103,11 @@ def column_roles(spec: Spec, extra_columns: Sequence[str] = ()) -> dict[str, lis
             add(col, "covariate", f"{where}.adjust")
     for x in spec.indices:
         add(x.column, "index", f"indices '{x.name}'.column")
+        if x.formula:
+            from .indices.formula import formula_columns
+
+            for col in formula_columns(x.formula, key=f"indices '{x.name}'.formula"):
+                add(col, "covariate", f"indices '{x.name}'.formula")
         if x.prognostic:
             for col in x.prognostic.covariates:
                 add(col, "covariate", f"indices '{x.name}'.prognostic.covariates")
@@ -202,8 +208,8 @@ def _open_text(data: bytes, sep: str, file: str) -> tuple[list[str], Opener]:
         raise FulcrumError("the file holds no text, only blank space.", file=file,
                            hint="Check that the file was saved or uploaded completely.")
     end = text.find("\n", 1 << 16)
-    records = csv.reader(io.StringIO(text[:end] if end > 0 else text), delimiter=sep)
-    raw_header = next((r for r in records if any(x.strip() for x in r)), [])
+    records = _records(text[:end] if end > 0 else text, sep, file)
+    raw_header = next((r for _, _, r in records if any(x.strip() for x in r)), [])
     if raw_header:
         raw_header[0] = raw_header[0].removeprefix("\ufeff")
     header = [h.strip() for h in raw_header]
@@ -221,12 +227,21 @@ def _open_text(data: bytes, sep: str, file: str) -> tuple[list[str], Opener]:
         import pyarrow.csv as pacsv
 
         names = [r for r, h in zip(raw_header, header) if h in wanted]
-        try:
-            table = pacsv.read_csv(
-                io.BytesIO(data),
+
+        def parse(block: int | None) -> pa.Table:
+            return pacsv.read_csv(
+                io.BytesIO(data), read_options=pacsv.ReadOptions(block_size=block) if block else None,
                 parse_options=pacsv.ParseOptions(delimiter=sep, newlines_in_values=True),
                 convert_options=pacsv.ConvertOptions(include_columns=names, strings_can_be_null=False,
                                                      column_types={n: pa.string() for n in names}))
+
+        try:
+            try:
+                table = parse(None)
+            except pa.ArrowInvalid as exc:
+                if "straddl" not in str(exc):
+                    raise
+                table = parse(len(data) + 1)  # a record longer than Arrow's block: read the file as one block
         except pa.ArrowInvalid as exc:
             raise _ragged(text, sep, len(raw_header), file, exc) from None
         return {h.strip(): _arrow_text(col, h.strip() in numeric) for h, col in zip(table.column_names, table.columns)}
@@ -234,18 +249,37 @@ def _open_text(data: bytes, sep: str, file: str) -> tuple[list[str], Opener]:
     return header, read
 
 
+def _records(text: str, sep: str, file: str) -> Iterator[tuple[int, int, list[str]]]:
+    """(first line, last line, values) of each CSV record, any line ending; csv's refusals become FulcrumErrors."""
+    records = csv.reader(io.StringIO(text, newline=""), delimiter=sep)
+    last = 0
+    while True:
+        try:
+            values = next(records)
+        except StopIteration:
+            return
+        except csv.Error as exc:
+            long = "field limit" in str(exc)
+            raise FulcrumError(f"line {last + 1} holds a value longer than {csv.field_size_limit():,} characters."
+                               if long else f"line {last + 1} could not be read ({exc}).", file=file,
+                               hint="Look for a quote that is opened but never closed, or a cell pasted by mistake."
+                               ) from None
+        yield last + 1, records.line_num, values
+        last = records.line_num
+
+
 def _ragged(text: str, sep: str, width: int, file: str, exc: Exception) -> FulcrumError:
     """Find the first row whose number of values differs from the header's (slow path, errors only)."""
-    records = csv.reader(io.StringIO(text.removeprefix("\ufeff")), delimiter=sep)
     row = -1
-    for values in records:
+    for line, end, values in _records(text.removeprefix("\ufeff"), sep, file):
         if not values:
             continue
         row += 1
         if len(values) != width:
             more = len(values) > width
-            return FulcrumError(f"line {records.line_num} has {len(values)} values but the header names {width} "
-                                "columns.", file=file, rows=[row],
+            span = f" (the record runs on to line {end}: a quote is probably never closed)" if end > line else ""
+            return FulcrumError(f"line {line} has {len(values)} values but the header names {width} "
+                                f"columns{span}.", file=file, rows=[row],
                                 hint="A value probably contains the delimiter: put quotes around it, or remove the "
                                      "extra value." if more else "Add the missing values (empty cells are fine).")
     return FulcrumError(f"the table could not be read ({exc}).", file=file,
@@ -265,6 +299,13 @@ def _arrow_text(col: pa.ChunkedArray, numeric: bool) -> pd.Series:
             if not np.isinf(values).any() and np.isnan(values).sum() == col.null_count:
                 return pd.Series(values)
     return pd.Series(col.to_numpy(zero_copy_only=False), dtype=object)
+
+
+
+def _cut(value: object, width: int = 40) -> str:
+    """A cell as shown in a message: long cells are cut, so one runaway cell cannot flood the message."""
+    text = str(value)
+    return text if len(text) <= width else text[:width - 3] + "..."
 
 
 NUMBER = r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$"
@@ -436,8 +477,18 @@ class _Checker:
         if kinds & {"event", "binary"}:
             return self.zero_one(col, "event" in kinds)
         if "time" in kinds:
-            return self.time(col)
-        return self.number(col, coding="covariate" in kinds)
+            return self.sized(col, self.time(col))
+        return self.sized(col, self.number(col, coding="covariate" in kinds))
+
+    def sized(self, col: str, s: pd.Series) -> pd.Series:
+        """Refuse numbers too large for the models to fit reliably, naming the rows."""
+        size = np.abs(s.to_numpy(dtype=float, na_value=np.nan))
+        big = size > MAX_MAGNITUDE
+        if big.any():
+            raise self.fail(f"{big.sum()} value(s) are larger than {MAX_MAGNITUDE:g} in size (the largest is "
+                            f"{np.nanmax(size):.3g}); numbers this large cannot be fitted reliably.", col, big,
+                            hint="Correct the entries, or rescale the column (for example thousands instead of units).")
+        return s
 
     def number(self, col: str, coding: bool = False) -> pd.Series:
         s = self.raw[col]
@@ -465,7 +516,7 @@ class _Checker:
             return pd.Series(values)
         if coding and not (present & ~bad).any():
             return self.code(col, s)
-        offenders = ", ".join(f"'{v}'" for v in dict.fromkeys(s[bad].head(5)))
+        offenders = ", ".join(f"'{_cut(v)}'" for v in dict.fromkeys(s[bad].head(5)))
         comma = s[bad].str.fullmatch(r"-?\d+,\d+").any()
         hint = ("Use a point as the decimal mark (2.5, not 2,5)." if comma else
                 "Enter numbers only; leave a cell empty when the value is missing.")
@@ -475,7 +526,7 @@ class _Checker:
     def code(self, col: str, s: pd.Series) -> pd.Series:
         counts = s.value_counts()
         if len(counts) != 2:
-            listed = ", ".join(f"'{v}' ({k})" for v, k in counts.head(8).items())
+            listed = ", ".join(f"'{_cut(v)}' ({k})" for v, k in counts.head(8).items())
             raise self.fail(f"a covariate holds text with {len(counts)} different value(s): {listed}.", col,
                             hint="Code it as numbers (for example one 0/1 column per category) and name those "
                                  "columns in the spec.")
@@ -502,7 +553,7 @@ class _Checker:
                 self.notes.append(f"column '{col}': read true/yes as 1 and false/no as 0 ({meaning}).")
         if bad.any():
             counts = found.value_counts()
-            listed = ", ".join(f"'{v}' ({k})" for v, k in counts.head(6).items())
+            listed = ", ".join(f"'{_cut(v)}' ({k})" for v, k in counts.head(6).items())
             raise self.fail(f"values must be 0 or 1 ({meaning}); found {listed}.", col, bad,
                             hint="Use 0 and 1 (true/false and yes/no are also read).")
         return out
@@ -529,7 +580,8 @@ class _Checker:
         if bad.any():
             counts = s[bad].value_counts()
             first = s[bad].drop_duplicates().head(6)
-            listed = ", ".join(f"'{v}' (row {i + 1}{', ' + str(counts[v]) + ' rows in all' if counts[v] > 1 else ''})"
+            listed = ", ".join(f"'{_cut(v)}' (row {i + 1}"
+                               f"{', ' + str(counts[v]) + ' rows in all' if counts[v] > 1 else ''})"
                                for i, v in first.items())
             close = difflib.get_close_matches(str(first.iloc[0]), levels, n=1, cutoff=0.5)
             raise self.fail(f"{bad.sum()} value(s) are not among the declared levels {levels}: {listed}.", col, bad,
@@ -543,11 +595,12 @@ class _Checker:
         bad = ~s.isin(arms).to_numpy()
         if bad.any():
             counts = s.fillna("(empty)").value_counts()
-            listed = ", ".join(f"'{v}' ({k})" for v, k in counts.items())
+            listed = ", ".join(f"'{_cut(v)}' ({k})" for v, k in counts.head(SHOWN).items()) + (
+                f" and {len(counts) - SHOWN} other values" if len(counts) > SHOWN else "")
             odd = str(s[bad].fillna("(empty)").iloc[0])
             close = difflib.get_close_matches(odd, list(arms), n=1, cutoff=0.5)
             raise self.fail(f"arm values must be '{arms[0]}' or '{arms[1]}'; the column holds {listed}.", col, bad,
-                            hint=(f"'{odd}' looks like '{close[0]}'. " if close else "") +
+                            hint=(f"'{_cut(odd)}' looks like '{close[0]}'. " if close else "") +
                             "Make every cell one of the two arms, or change cohort.arms to the labels in the file.")
         for a in arms:
             if not (s == a).any():
@@ -559,7 +612,7 @@ class _Checker:
             return
         dup = s.duplicated(keep=False).to_numpy()
         if dup.any():
-            shown = ", ".join(f"'{v}'" for v in dict.fromkeys(s[dup].head(10)))
+            shown = ", ".join(f"'{_cut(v)}'" for v in dict.fromkeys(s[dup].head(10)))
             raise self.fail(f"{s[dup].nunique()} identifier(s) appear more than once: {shown}.",
                             self.spec.cohort.id, dup, hint="Give every patient one row with a unique identifier.")
 
@@ -567,7 +620,9 @@ class _Checker:
         col, marker = self.spec.cohort.allocation, self.spec.cohort.randomised
         is_rand = (s == marker)
         counts = s.value_counts()
-        self.notes.append(f"allocation column '{col}': " + ", ".join(f"'{v}' {k}" for v, k in counts.items())
+        self.notes.append(f"allocation column '{col}': "
+                          + ", ".join(f"'{_cut(v)}' {k}" for v, k in counts.head(SHOWN).items())
+                          + (f" and {len(counts) - SHOWN} other values" if len(counts) > SHOWN else "")
                           + f"; '{marker}' marks randomised patients, every other value chosen.")
         if not is_rand.any():
             close = [v for v in counts.index if str(v).strip().lower() == marker.lower()]
@@ -605,7 +660,8 @@ def _build(spec: Spec, raw: Raw, roles: dict[str, list[tuple[str, str]]], path: 
         chk.notes.append("empty cells per column: " + ", ".join(empties) + ".")
     cohort = Cohort(spec=spec, frame=frame, path=path, name=name, sha256=sha, warnings=chk.warnings,
                     randomised=randomised, notes=chk.notes, missing=missing)
-    index_cols = [col for col, rs in roles.items() if any(r == "index" or k == "extra_columns" for r, k in rs)]
+    index_cols = [col for col, rs in roles.items()
+                  if any(r == "index" or k == "extra_columns" or k.endswith(".formula") for r, k in rs)]
     in_arm = {a: (frame[c.arm] == a).to_numpy() for a in c.arms}
     dead = _died(cohort)
     for outcome in spec.outcomes:

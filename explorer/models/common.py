@@ -19,6 +19,8 @@ from ..errors import FulcrumError
 from .base import Basis, OutcomeData
 
 NEWTON_TOL = 1e-9
+MAX_MAGNITUDE = 1e12
+MIN_AT_RISK = 10
 _BLAS: list = []
 
 
@@ -67,7 +69,7 @@ def prepare(basis: Basis, data: OutcomeData, arm: str, outcome: str) -> Prepared
 
     Callers comparing two arms should pass the same z_ref to both (for example the pooled mean).
     """
-    x = _finite(data.x, "the index", arm, outcome)
+    x = _sized(_finite(data.x, "the index", arm, outcome), "the index", arm, outcome)
     n = len(x)
     B = basis(x)
     z_names = tuple(data.z_names)
@@ -76,7 +78,7 @@ def prepare(basis: Basis, data: OutcomeData, arm: str, outcome: str) -> Prepared
         if not z_names:
             z_names = tuple(f"z{j + 1}" for j in range(z.shape[1]))
         for j, name in enumerate(z_names):
-            _finite(z[:, j], name, arm, outcome)
+            _sized(_finite(z[:, j], name, arm, outcome), name, arm, outcome)
         z_ref = np.asarray(data.z_ref, float).reshape(-1) if data.z_ref is not None else None
         if z_ref is not None and len(z_ref) != z.shape[1]:
             raise FulcrumError(f"outcome '{outcome}', arm '{arm}': {len(z_ref)} reference values were given for "
@@ -114,6 +116,16 @@ def _finite(values: np.ndarray | None, what: str, arm: str, outcome: str) -> np.
     if len(bad):
         raise FulcrumError(f"outcome '{outcome}', arm '{arm}': {what} has missing or non-numeric values.",
                            column=what, rows=bad + 1, hint="Drop or fill these rows before fitting.")
+    return v
+
+
+def _sized(v: np.ndarray, what: str, arm: str, outcome: str) -> np.ndarray:
+    """Refuse values so large that the fits lose their precision (e.g. a formula index such as exp(age))."""
+    big = np.abs(v) > MAX_MAGNITUDE
+    if big.any():
+        raise FulcrumError(f"outcome '{outcome}', arm '{arm}': {what} reaches {v[np.argmax(np.abs(v))]:.3g} for "
+                           f"{int(big.sum())} patient(s); values beyond {MAX_MAGNITUDE:g} in size cannot be fitted "
+                           "reliably.", hint="Rescale it, for example divide by 1,000 or take log().")
     return v
 
 
@@ -236,6 +248,15 @@ def effect_size(beta: np.ndarray, X: np.ndarray, w: np.ndarray, n_index: int) ->
     parts = [X[:, :n_index] @ beta[:n_index]] + [X[:, j] * beta[j] for j in range(n_index, X.shape[1])]
     sds = [np.sqrt(np.average((v - np.average(v, weights=w)) ** 2, weights=w)) for v in parts]
     return float(max(sds))
+
+
+def at_risk_warning(t: np.ndarray, w: np.ndarray, horizon: float, arm: str) -> list[str]:
+    """A warning when fewer than 10 patients are still followed at the horizon (common practice)."""
+    n = int(((t >= horizon) & (w > 0)).sum())
+    if horizon <= t.max() and n < MIN_AT_RISK:
+        return [f"Only {n} patient{'s are' if n != 1 else ' is'} still followed at the horizon {horizon:g} in arm "
+                f"'{arm}' (fewer than {MIN_AT_RISK}); the estimate there rests on very few patients."]
+    return []
 
 
 def events_per_term_warning(events: float, terms: int, arm: str, what: str = "events") -> list[str]:

@@ -14,8 +14,8 @@ from scipy import stats
 
 from ..errors import FulcrumError
 from .base import Basis, OutcomeData
-from .common import (ArmFit, check_rank, effect_size, events_per_term_warning, inverse, linear_pair, newton,
-                     one_blas_thread, prepare, quad_form, sandwich)
+from .common import (ArmFit, at_risk_warning, check_rank, effect_size, events_per_term_warning, inverse,
+                     linear_pair, newton, one_blas_thread, prepare, quad_form, sandwich)
 from .cox_kernel import CoxKernel
 
 PH_ALPHA = 0.01
@@ -83,7 +83,7 @@ class CoxFit(ArmFit):
             self.warnings_.append(f"The Cox model in arm '{arm}' did not settle: coefficients grow without bound "
                                   "(some values predict every event or none); its estimates are unreliable.")
         self.warnings_ += events_per_term_warning(self.n_events_, p, arm)
-        self._horizon_warnings(t)
+        self._horizon_warnings(t, prep.w)
         if checks:
             self._ph_check(k, beta, model_cov)
         self.method_ = (f"Cox proportional hazards model in arm '{arm}' (Efron ties, Breslow baseline), "
@@ -100,10 +100,11 @@ class CoxFit(ArmFit):
         self.Vh_ = float(self.dH_var_.sum())
         self.Qh_ = self.dH_ @ self.xbar_ if len(self.dH_) else np.zeros(len(beta))
 
-    def _horizon_warnings(self, t: np.ndarray) -> None:
+    def _horizon_warnings(self, t: np.ndarray, w: np.ndarray) -> None:
         if self.horizon > t.max():
             self.warnings_.append(f"The horizon {self.horizon:g} lies beyond the last follow-up time in arm "
                                   f"'{self.arm}' ({t.max():g}); its survival curve is carried flat from there.")
+        self.warnings_ += at_risk_warning(t, w, self.horizon, self.arm)
         if self.H0h_ == 0:
             self.warnings_.append(f"No events occur by the horizon {self.horizon:g} in arm '{self.arm}'; survival "
                                   "there is estimated as 1 with no spread.")

@@ -12,8 +12,8 @@ from scipy.special import gamma as gamma_fn, gammainc
 
 from ..errors import FulcrumError
 from .base import Basis, OutcomeData, numerical_jacobian
-from .common import (ArmFit, check_rank, events_per_term_warning, inverse, newton, one_blas_thread, prepare,
-                     quad_form, sandwich)
+from .common import (ArmFit, at_risk_warning, check_rank, events_per_term_warning, inverse, newton,
+                     one_blas_thread, prepare, quad_form, sandwich)
 from .cox import survival_arrays
 
 
@@ -84,6 +84,7 @@ class WeibullFit(ArmFit):
         if self.horizon > t.max():
             self.warnings_.append(f"The horizon {self.horizon:g} lies beyond the last follow-up time in arm "
                                   f"'{arm}' ({t.max():g}); the Weibull curve extrapolates there.")
+        self.warnings_ += at_risk_warning(t, w, self.horizon, arm)
         self.method_ = (f"Weibull accelerated failure time model in arm '{arm}', {self._shape_words()}"
                         f"{self._held_at()}{self._cov_words()}; "
                         f"{'survival probability' if measure == 'survival' else 'restricted mean survival'} "

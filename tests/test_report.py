@@ -29,11 +29,16 @@ def result(_demo_master):
 
 
 @pytest.fixture(scope="module")
-def html(result, tmp_path_factory) -> str:
+def report_path(result, tmp_path_factory) -> Path:
     folder = tmp_path_factory.mktemp("report")
     path = write_report(result, folder / "report.html")
     assert [p.name for p in folder.iterdir()] == ["report.html"]
-    return path.read_text(encoding="utf-8")
+    return path
+
+
+@pytest.fixture(scope="module")
+def html(report_path) -> str:
+    return report_path.read_text(encoding="utf-8")
 
 
 class _Scripts(HTMLParser):
@@ -181,3 +186,27 @@ def test_script_tags_in_labels_levels_and_names_are_escaped(tmp_path):
     assert doc["arms"][0] == ATTACK
     charts = json.loads(scripts["fulcrum-charts"])
     assert any(ATTACK in json.dumps(c["spec"]) for c in charts)
+
+
+@pytest.mark.browser
+def test_every_chart_draws_offline_in_chromium(report_path, html):
+    """Debian's Chromium opens the file with every network request refused; each chart must draw an SVG."""
+    from playwright.sync_api import sync_playwright
+
+    expected = len(re.findall(r'<div id="chart-\d+" role="img"', html))
+    refused, problems = [], []
+    with sync_playwright() as p:
+        browser = p.chromium.launch(executable_path="/usr/bin/chromium", args=["--no-sandbox", "--disable-gpu"])
+        try:
+            page = browser.new_page()
+            page.route(re.compile(r"^(?!file:).*"), lambda route: (refused.append(route.request.url), route.abort()))
+            page.on("pageerror", lambda e: problems.append(str(e)))
+            page.on("console", lambda m: problems.append(m.text) if m.type == "error" else None)
+            page.goto(report_path.as_uri())
+            page.wait_for_function(f"document.querySelectorAll('figure.chart svg').length >= {expected}",
+                                   timeout=120_000)
+            drawn = page.locator("figure.chart svg").count()
+        finally:
+            browser.close()
+    assert drawn == expected
+    assert not refused and not problems, (refused, problems)

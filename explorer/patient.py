@@ -409,18 +409,23 @@ def _limits(fs: FitSet, pl: Placement) -> list[str]:
     arm_col = fs.cohort.frame[fs.spec.cohort.arm].to_numpy()
     x = fs.indices[pl.name].values
     ok = np.isfinite(x)
-    edges = np.unique(np.quantile(x[ok], np.linspace(0, 1, STRETCHES + 1)))
-    if len(edges) < 2:
-        return out
-    k = int(np.clip(np.searchsorted(edges, pl.value, side="right") - 1, 0, len(edges) - 2))
-    a, z = edges[k], edges[k + 1]
+    if pl.discrete:
+        a = z = pl.value
+        where = f"At level {int(pl.value)} of the {pl.label}"
+    else:
+        edges = np.unique(np.quantile(x[ok], np.linspace(0, 1, STRETCHES + 1)))
+        if len(edges) < 2:
+            return out
+        k = int(np.clip(np.searchsorted(edges, pl.value, side="right") - 1, 0, len(edges) - 2))
+        a, z = edges[k], edges[k + 1]
+        where = f"Near this patient's {pl.label} ({fmt(a)} to {fmt(z)})"
     inside = ok & (x >= a) & (x <= z)
     total = int(inside.sum())
     for arm in fs.spec.cohort.arms:
         c = int((inside & (arm_col == arm)).sum())
         if total and c / total < SPARSE_SHARE:
-            out.append(f"Near this patient's {pl.label} ({fmt(a)} to {fmt(z)}), {arm} has only {c} of {total} "
-                       f"patients: the estimates there rest on the model more than on patients like this one.")
+            out.append(f"{where}, {arm} has only {c} of {total} patients: the estimates there rest on the model "
+                       "more than on patients like this one.")
     return out
 
 

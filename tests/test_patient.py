@@ -183,3 +183,26 @@ def test_summary_page_is_escaped_and_carries_cautions(view):
     for caution in CAUTIONS:
         assert caution in html
     assert not re.search(r"""\b(?:src|href)\s*=\s*["']?\s*(?:https?:)?//""", html)
+
+
+def test_a_stretch_where_one_arm_is_thin_is_a_limit(write_case):
+    from explorer import demo
+
+    frame, _ = demo.generate(n=900, seed=3)
+    frame = frame[~((frame["arm"] == "non-operative") & (frame["cfs"] >= 8))]
+    fs = fit_all(dataclasses.replace(write_case(frame), pairwise=None))
+    arm = fs.cohort.frame["arm"].to_numpy()
+    # counted directly from the loaded cohort with numpy
+    cfs = fs.cohort.frame["cfs"].to_numpy()
+    at_9 = cfs == 9
+    limit = next(w for w in place_patient(fs, {"cfs": 9}).limits if "non-operative has only" in w)
+    assert limit.startswith(f"At level 9 of the Clinical Frailty Scale, non-operative has only "
+                            f"{np.sum(at_9 & (arm == 'non-operative'))} of {np.sum(at_9)} patients")
+    assert not any("has only" in w for w in place_patient(fs, {"cfs": 5}).limits)
+    age = fs.cohort.frame["age"].to_numpy()
+    for w in place_patient(fs, {"age": float(np.max(age))}).limits:
+        m = re.search(r"\((-?[\d.]+) to (-?[\d.]+)\), (\S+) has only (\d+) of (\d+)", w)
+        if m:
+            lo, hi = float(m.group(1)), float(m.group(2))
+            inside = (age >= lo) & (age <= hi)
+            assert int(m.group(4)) == np.sum(inside & (arm == m.group(3))) and int(m.group(5)) == np.sum(inside)

@@ -1,0 +1,642 @@
+"""Can the curves be trusted? Observed versus fitted along the index, calibration, sliding-window
+differences, a test of effect modification, the break-even across horizons, and the baseline table.
+
+Everything works on a fitted set (explorer.analysis.FitSet) and returns JSON-ready rows; nothing
+here refits the main analysis except the restricted model of the effect-modification test.
+"""
+from __future__ import annotations
+
+import copy
+import dataclasses
+import math
+from dataclasses import dataclass
+from functools import lru_cache
+from typing import Callable
+
+import numpy as np
+from scipy import stats
+
+from . import analysis as an
+from . import breakeven as be
+from .cohort import Cohort
+from .errors import FulcrumError
+from .indices import MAX_DISCRETE_LEVELS, IndexValues
+from .km import kaplan_meier, km_json, nice_ticks, normal_quantile
+from .models.common import newton, prepare
+from .models.cox import CoxFit, survival_arrays
+from .models.cox_kernel import CoxKernel
+from .models.glm import logistic_loglik
+from .models.ordinal import ordinal_loglik
+from .models.weibull import weibull_loglik
+from .results import measure_words, r6
+from .selection import SMD_FLAG, smd
+from .spec import OutcomeSpec
+
+BANDS = 5
+WINDOW, STEP = 300, 100
+MAX_WINDOWS = 100
+MIN_PER_BAND = 10  # patients per arm a band must hold; smaller bands are merged with their neighbour
+ALPHA = 0.05
+HORIZONS = 12
+AT_RISK_SHARE, AT_RISK_MIN = 0.10, 20
+
+
+# ------------------------------------------------------------------------------------------
+# Bands of the index
+# ------------------------------------------------------------------------------------------
+def band_codes(x_by_arm: dict[str, np.ndarray], bands: int = BANDS, by_level: bool | None = None
+               ) -> tuple[dict[str, np.ndarray], list[tuple]]:
+    """Band of every patient, per arm, and the bands' (from, to) index values.
+
+    A discrete index (by_level; by default, one with at most `bands` distinct values) with at most 12
+    levels is banded by level, any other by quantiles of the pooled values (ties stay together);
+    neighbouring bands are merged until each holds 10 patients of each arm.
+    """
+    pooled = np.concatenate(list(x_by_arm.values()))
+    levels = np.unique(pooled)
+    if by_level is None:
+        by_level = len(levels) <= bands
+    if by_level and len(levels) <= MAX_DISCRETE_LEVELS:
+        edges = levels
+    else:
+        edges = np.unique(np.quantile(pooled, np.linspace(0, 1, bands + 1)[:-1]))
+    group = lambda v: np.searchsorted(edges, v, side="right") - 1  # noqa: E731
+    counts = np.array([np.bincount(group(x), minlength=len(edges)) for x in x_by_arm.values()])
+    merged = np.zeros(len(edges), int)
+    band, held = 0, np.zeros(len(counts))
+    for j in range(len(edges)):
+        merged[j] = band
+        held += counts[:, j]
+        if held.min() >= MIN_PER_BAND and j < len(edges) - 1:
+            band, held = band + 1, np.zeros(len(counts))
+    if band > 0 and held.min() < MIN_PER_BAND:
+        merged[merged == band] = band - 1
+    codes = {a: merged[group(x)] for a, x in x_by_arm.items()}
+    of_pooled = merged[group(pooled)]
+    spans = [(float(pooled[of_pooled == b].min()), float(pooled[of_pooled == b].max()))
+             for b in range(int(merged.max()) + 1)]
+    return codes, spans
+
+
+# ------------------------------------------------------------------------------------------
+# Observed values in a group of patients (no model)
+# ------------------------------------------------------------------------------------------
+@dataclass
+class Observed:
+    """A nonparametric estimate of the outcome's measure with its variance and interval."""
+
+    value: float | None
+    var: float | None
+    ci: tuple[float | None, float | None]
+    n: int
+    levels: list[float] | None = None
+    note: str | None = None
+
+
+def wilson(k: float, n: float, level: float) -> tuple[float, float]:
+    """Wilson score interval for a proportion (Wilson, JASA 1927)."""
+    z = normal_quantile(level)
+    p = k / n
+    centre = (p + z * z / (2 * n)) / (1 + z * z / n)
+    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / (1 + z * z / n)
+    return centre - half, centre + half
+
+
+def observed(outcome: OutcomeSpec, d, level: float) -> Observed:
+    """The measure among these patients, unweighted: Kaplan-Meier at the horizon (or RMST to it), the
+    proportion (favourable levels for ordinal outcomes, with every level's share) or the mean."""
+    n = len(d.x)
+    if n == 0:
+        return Observed(None, None, (None, None), 0, note="no patients")
+    if outcome.kind == "survival":
+        km = kaplan_meier(d.time, d.event, level=level)
+        h = float(outcome.horizon)
+        if km.last_time() < h and km.survival[-1] > 0:
+            return Observed(None, None, (None, None), n,
+                            note=f"follow-up ends at {km.last_time():g}, before the horizon {h:g}")
+        if (outcome.measure or "survival") == "rmst":
+            est, var = km.rmst(h)
+            z = normal_quantile(level)
+            return Observed(est, var, (est - z * math.sqrt(var), est + z * math.sqrt(var)), n)
+        lo, hi = km.interval_at(h)
+        return Observed(float(km.at(h)[0]), float(km.variance_at(h)[0]), (float(lo[0]), float(hi[0])), n)
+    y = np.asarray(d.y, float)
+    if outcome.kind in ("binary", "ordinal"):
+        levels = None
+        if outcome.kind == "ordinal":
+            fav = np.isin(np.arange(len(outcome.levels)), [outcome.levels.index(f) for f in favourable(outcome)])
+            levels = (np.bincount(y.astype(int), minlength=len(outcome.levels)) / n).tolist()
+            y = fav[y.astype(int)].astype(float)
+        p = float(y.mean())
+        return Observed(p, p * (1 - p) / n, wilson(y.sum(), n, level), n, levels)
+    m = float(y.mean())
+    if n < 2:
+        return Observed(m, None, (None, None), n, note="one patient")
+    var = float(y.var(ddof=1) / n)
+    t = _t_quantile(level, n - 1)
+    return Observed(m, var, (m - t * math.sqrt(var), m + t * math.sqrt(var)), n)
+
+
+@lru_cache(maxsize=4096)
+def _t_quantile(level: float, df: int) -> float:
+    return float(stats.t.ppf(0.5 + level / 2, df))
+
+
+def favourable(outcome: OutcomeSpec) -> tuple[str, ...]:
+    return tuple(outcome.favourable) or tuple(outcome.levels[:-1])
+
+
+def _subset(d, keep: np.ndarray):
+    """The same OutcomeData restricted to the rows in `keep`."""
+    out = copy.copy(d)
+    for name in ("x", "y", "time", "event", "z", "weights", "cluster"):
+        v = getattr(d, name)
+        if v is not None:
+            setattr(out, name, np.asarray(v)[keep])
+    return out
+
+
+def patient_fit(fit, d):
+    """A view of `fit` whose curves use each patient's own adjustment covariates (row i of d.z) instead
+    of the reference values, so band averages of fitted values compare with observed ones."""
+    if not getattr(fit, "z_names", ()) or d.z is None:
+        return fit
+    z = np.asarray(d.z, float).reshape(len(d.x), -1)
+
+    def rows(x: np.ndarray) -> np.ndarray:
+        x = np.asarray(x, float).reshape(-1)
+        if len(x) != len(z):
+            raise ValueError("a per-patient view takes exactly the patients' own index values")
+        return np.column_stack([fit.basis(x), z])
+
+    view = copy.copy(fit)
+    view.rows = rows
+    return view
+
+
+# ------------------------------------------------------------------------------------------
+# Observed versus fitted along the index, and calibration
+# ------------------------------------------------------------------------------------------
+def observed_vs_fitted(pf: an.PairFit, bands: int = BANDS, level: float = 0.95, by_level: bool | None = None
+                       ) -> tuple[list[dict], list[dict], list[str]]:
+    """Per arm and band: the observed measure with its interval beside the mean fitted value; then a
+    calibration summary per arm and the warnings."""
+    o = pf.outcome
+    codes, spans = band_codes({a: d.x for a, d in pf.data.items()}, bands, by_level)
+    rows, calib, warnings = [], [], []
+    for arm, fit in pf.fits.items():
+        d = pf.data[arm]
+        fitted_all = patient_fit(fit, d).measure(d.x)
+        dist_all = patient_fit(fit, d).distribution(d.x) if o.kind == "ordinal" else None
+        obs, fits = [], []
+        for b, (lo, hi) in enumerate(spans):
+            keep = codes[arm] == b
+            ob = observed(o, _subset(d, keep), level)
+            f = float(fitted_all[keep].mean()) if keep.any() else None
+            row = {"arm": arm, "band_from": r6(lo), "band_to": r6(hi), "n": int(keep.sum()),
+                   "observed": r6(ob.value), "observed_ci": [r6(ob.ci[0]), r6(ob.ci[1])], "fitted": r6(f)}
+            if ob.levels is not None and keep.any():
+                row["levels"] = [{"level": lv, "observed": r6(po), "fitted": r6(pfit)} for lv, po, pfit in
+                                 zip(o.levels, ob.levels, dist_all[keep].mean(axis=0))]
+            if ob.note:
+                warnings.append(f"{o.title}, {arm}, {pf.index} {lo:.3g} to {hi:.3g}: no observed value ({ob.note}).")
+            rows.append(row)
+            obs.append(ob)
+            fits.append(f)
+        calib.append({"arm": arm, **calibration(o, obs, fits, pf.basis.n_columns + 1)})
+    return rows, calib, warnings
+
+
+def calibration(outcome: OutcomeSpec, obs: list[Observed], fitted: list[float | None], n_params: int) -> dict:
+    """Observed band values regressed on mean fitted values (weights 1 / variance), and a band chi-square.
+
+    In-sample, a patient-level recalibration of a maximum-likelihood fit returns slope 1 and intercept 0
+    by construction, so misfit is judged by band: the chi-square sums (observed - fitted)^2 / variance
+    over bands (Hosmer-Lemeshow style, variance from the fitted proportion for proportions, Greenwood for
+    Kaplan-Meier, the band's sample variance for means) on bands - parameters degrees of freedom (approximate).
+    """
+    o, f, v = [], [], []
+    for ob, fv in zip(obs, fitted):
+        if ob.value is None or fv is None:
+            continue
+        var = ob.var
+        if outcome.kind in ("binary", "ordinal"):
+            var = fv * (1 - fv) / ob.n
+        elif outcome.kind == "survival" and (outcome.measure or "survival") == "survival" and not var:
+            var = fv * (1 - fv) / ob.n
+        if var is None or not var > 0:
+            continue
+        o.append(ob.value)
+        f.append(fv)
+        v.append(var)
+    o, f, v = np.array(o), np.array(f), np.array(v)
+    out = {"bands": int(len(o)), "slope": None, "intercept": None, "chi2": None, "df": None, "p_value": None,
+           "max_abs_z": None,
+           "method": "weighted least squares of observed band values on mean fitted values; band chi-square"}
+    if len(o) == 0:
+        return out
+    z = (o - f) / np.sqrt(v)
+    df = len(o) - n_params
+    out["max_abs_z"] = r6(float(np.max(np.abs(z))))
+    if df >= 1:
+        chi2 = float(z @ z)
+        out.update(chi2=r6(chi2), df=int(df), p_value=r6(float(stats.chi2.sf(chi2, df))))
+    if len(o) >= 3 and np.ptp(f) > 0:
+        W = 1 / v
+        D = np.column_stack([np.ones(len(f)), f])
+        coef = np.linalg.solve((D.T * W) @ D, (D.T * W) @ o)
+        out.update(intercept=r6(float(coef[0])), slope=r6(float(coef[1])))
+    return out
+
+
+# ------------------------------------------------------------------------------------------
+# Sliding windows (Bonetti & Gelber, Biostatistics 2004)
+# ------------------------------------------------------------------------------------------
+def window_starts(n: int, window: int, step: int) -> tuple[list[int], int, int, list[str]]:
+    """Start positions of overlapping windows of `window` patients moving by `step`; the last window ends
+    with the last patient. Very large cohorts widen both so at most 100 windows are made."""
+    notes = []
+    if n <= window:
+        return [0], n, step, ([f"only {n} patients, so the sliding window holds them all."] if n < window else [])
+    if (n - window) / step + 1 > MAX_WINDOWS:
+        factor = (n - window) / step / (MAX_WINDOWS - 1)
+        window, step = int(math.ceil(window * factor)), int(math.ceil(step * factor))
+        window = min(window, n)
+        notes.append(f"windows widened to {window} patients moving by {step} to keep at most {MAX_WINDOWS} windows.")
+    starts = list(range(0, n - window + 1, step))
+    if starts[-1] != n - window:
+        starts.append(n - window)
+    return starts, window, step, notes
+
+
+def sliding_windows(pf: an.PairFit, window: int = WINDOW, step: int = STEP, level: float = 0.95
+                    ) -> tuple[list[dict], list[str]]:
+    """Nonparametric first-minus-second difference (oriented) in overlapping windows of patients ordered
+    along the index (ties by cohort row), beside the model's difference at the window's median index."""
+    arms = list(pf.fits)
+    x = np.concatenate([pf.data[a].x for a in arms])
+    rows = np.concatenate([pf.rows[a] for a in arms])
+    arm_of = np.concatenate([np.full(len(pf.data[a].x), i) for i, a in enumerate(arms)])
+    pos = np.concatenate([np.arange(len(pf.data[a].x)) for a in arms])
+    order = np.lexsort((rows, x))
+    starts, width, _, notes = window_starts(len(x), window, step)
+    z = be.critical_value(level)
+    dfn = an.difference_fn(pf)
+    model = dfn(x)
+    out, warnings = [], [f"{pf.outcome.title} along {pf.index}: {n}" for n in notes]
+    for s in starts:
+        idx = order[s:s + width]
+        parts = [observed(pf.outcome, _subset(pf.data[a], np.sort(pos[idx][arm_of[idx] == i])), level)
+                 for i, a in enumerate(arms)]
+        xs = x[idx]
+        rec = {"from": r6(xs.min()), "to": r6(xs.max()), "median": float(np.median(xs)), "n_first": parts[0].n,
+               "n_second": parts[1].n, "difference": None, "ci": [None, None],
+               "model_average": r6(float(np.mean(model[idx])))}
+        if all(p.value is not None and p.var is not None for p in parts):
+            diff = pf.sign * (parts[0].value - parts[1].value)
+            se = math.sqrt(parts[0].var + parts[1].var)
+            rec.update(difference=r6(diff), ci=[r6(diff - z * se), r6(diff + z * se)])
+        else:
+            why = "; ".join(f"{a}: {p.note or 'too few patients'}" for a, p in zip(arms, parts)
+                            if p.value is None or p.var is None)
+            warnings.append(f"{pf.outcome.title} along {pf.index}, window {xs.min():.3g} to {xs.max():.3g}: "
+                            f"no difference ({why}).")
+        out.append(rec)
+    at_median = dfn(np.array([rec["median"] for rec in out]))
+    for rec, m in zip(out, at_median):
+        rec["median"], rec["model_difference"] = r6(rec["median"]), r6(float(m))
+    return out, warnings
+
+
+# ------------------------------------------------------------------------------------------
+# Effect modification: likelihood-ratio test of the arm-by-index terms
+# ------------------------------------------------------------------------------------------
+@dataclass
+class ArmLikelihood:
+    """One arm's log-likelihood as a function of its parameters; `shared` are the index-term positions."""
+
+    fun: Callable
+    params: np.ndarray
+    shared: np.ndarray
+
+
+def _gaussian_loglik(D: np.ndarray, y: np.ndarray, w: np.ndarray):
+    """Normal linear model with parameters (beta, log sigma), the likelihood LinearFit maximises."""
+    def fun(theta: np.ndarray):
+        beta, s = theta[:-1], theta[-1]
+        e = y - D @ beta
+        inv = math.exp(-2 * s)
+        ll = float(w @ (-0.5 * math.log(2 * math.pi) - s - 0.5 * e * e * inv))
+        we = w * e
+        g = np.r_[D.T @ we * inv, float(w @ (e * e)) * inv - w.sum()]
+        H = np.empty((len(theta), len(theta)))
+        H[:-1, :-1] = -(D.T * w) @ D * inv
+        H[:-1, -1] = H[-1, :-1] = -2 * (D.T @ we) * inv
+        H[-1, -1] = -2 * float(w @ (e * e)) * inv
+        return ll, g, H
+    return fun
+
+
+def arm_likelihood(outcome: OutcomeSpec, fit, d) -> ArmLikelihood:
+    """The log-likelihood each per-arm model maximised, rebuilt from its data, at its fitted parameters."""
+    prep = prepare(fit.basis, d, fit.arm, outcome.name)
+    q = fit.basis.n_columns
+    X, w = prep.X, prep.w
+    D = np.column_stack([np.ones(len(w)), X])
+    if outcome.kind == "survival":
+        t, e = survival_arrays(d, fit.arm, outcome.name)
+        if (outcome.model or "cox") == "weibull":
+            return ArmLikelihood(weibull_loglik(D, np.log(t), e, w), fit.params_, np.arange(1, q + 1))
+        return ArmLikelihood(CoxKernel(t, e, X, w).evaluate, fit.params_, np.arange(q))
+    if outcome.kind == "ordinal":
+        yk = np.searchsorted(fit.observed_, np.asarray(d.y, float).astype(int))
+        m = len(fit.observed_) - 1
+        return ArmLikelihood(ordinal_loglik(X, yk, w, m + 1), fit.params_, np.arange(m, m + q))
+    y = np.asarray(d.y, float)
+    if outcome.kind == "binary":
+        return ArmLikelihood(logistic_loglik(D, y, w), fit.params_, np.arange(1, q + 1))
+    rss = float(w @ (y - D @ fit.params_) ** 2)
+    return ArmLikelihood(_gaussian_loglik(D, y, w), np.r_[fit.params_, 0.5 * math.log(rss / w.sum())],
+                         np.arange(1, q + 1))
+
+
+def common_slope_fit(parts: list[ArmLikelihood]) -> tuple[float, np.ndarray, bool]:
+    """Maximise the sum of the arms' log-likelihoods with the index terms shared and everything else
+    (intercepts, cut-points, Cox baselines, covariate terms, scales) arm-specific."""
+    q = len(parts[0].shared)
+    own = [np.setdiff1d(np.arange(len(p.params)), p.shared) for p in parts]
+    sizes = [len(o) for o in own]
+    total = q + sum(sizes)
+    maps = []
+    at = q
+    for p, o, k in zip(parts, own, sizes):
+        P = np.zeros((len(p.params), total))
+        P[p.shared, np.arange(q)] = 1.0
+        P[o, at + np.arange(k)] = 1.0
+        maps.append(P)
+        at += k
+    start = np.r_[np.mean([p.params[p.shared] for p in parts], axis=0),
+                  np.concatenate([p.params[o] for p, o in zip(parts, own)])]
+
+    def fun(theta: np.ndarray):
+        ll, g, H = 0.0, np.zeros(total), np.zeros((total, total))
+        for p, P in zip(parts, maps):
+            li, gi, Hi = p.fun(P @ theta)
+            if not np.isfinite(li):
+                return -np.inf, None, None
+            ll, g, H = ll + li, g + P.T @ gi, H + P.T @ Hi @ P
+        return ll, g, H
+
+    theta, ll, _, _, _, ok = newton(fun, start)
+    return ll, theta, ok
+
+
+def effect_modification(pf: an.PairFit, clustered: bool = False, index_label: str | None = None) -> dict:
+    """Likelihood-ratio test that the index terms differ between the arms (df = index basis columns).
+
+    Unrestricted: the two per-arm fits (their log-likelihoods add). Restricted: shared index terms with
+    arm-specific intercepts, cut-points or scale, arm-specific covariate terms and, for Cox models,
+    arm-specific baseline hazards (stratified by arm).
+    """
+    o, arms = pf.outcome, list(pf.fits)
+    parts = [arm_likelihood(o, pf.fits[a], pf.data[a]) for a in arms]
+    ll_u = sum(p.fun(p.params)[0] for p in parts)
+    ll_r, _, ok = common_slope_fit(parts)
+    df = pf.basis.n_columns
+    stat = max(2.0 * (ll_u - ll_r), 0.0)
+    p = float(stats.chi2.sf(stat, df))
+    restricted = {"survival": "a Cox model stratified by arm (arm-specific baseline hazards)"
+                  if (o.model or "cox") == "cox" else "a Weibull model with arm-specific intercept and shape",
+                  "ordinal": "a proportional odds model with arm-specific cut-points",
+                  "binary": "a logistic model with arm-specific intercepts",
+                  "continuous": "a linear model with arm-specific intercepts and residual variances"}[o.kind]
+    weak = not p < ALPHA
+    index = index_label or pf.index
+    head = (f"{o.title}: the test of whether the difference between {arms[0]} and {arms[1]} changes along "
+            f"{index} gives p = {p:.2g} (likelihood ratio {stat:.2f} on {df} df)")
+    sentence = (head + (": the break-even point rests on weak evidence of any change in effect along the index."
+                        if weak else ": the data show the effect changing along the index."))
+    notes = []
+    if not ok:
+        notes.append(f"{o.title} along {index}: the model with a common index effect did not converge; the test "
+                     "is unreliable.")
+    if clustered:
+        notes.append(f"{o.title} along {index}: the likelihood-ratio test treats patients as independent; with "
+                     "clustered patients it may overstate the evidence.")
+    return {"statistic": r6(stat), "df": int(df), "p_value": r6(p), "weak_evidence": bool(weak),
+            "sentence": sentence, "method": f"likelihood ratio: per-arm models against {restricted} and "
+                                           "index terms common to both arms",
+            "converged": bool(ok), "warnings": notes}
+
+
+# ------------------------------------------------------------------------------------------
+# The break-even point as a function of the horizon (survival outcomes)
+# ------------------------------------------------------------------------------------------
+def horizon_grid(pf: an.PairFit, horizons: int = HORIZONS) -> np.ndarray:
+    """From the 10th percentile of event times to the end of follow-up in the arm that ends first,
+    with the spec's horizon added."""
+    times = np.concatenate([d.time[d.event > 0] for d in pf.data.values()])
+    end = min(float(d.time.max()) for d in pf.data.values())
+    start = float(np.quantile(times, 0.10)) if len(times) else end / horizons
+    grid = np.linspace(min(start, end), end, horizons)
+    return np.unique(np.r_[grid, float(pf.outcome.horizon)])
+
+
+def at_horizon(fit, d, horizon: float, kernel: CoxKernel | None = None):
+    """The same fitted model read at another horizon, without refitting: the coefficients do not depend
+    on the horizon; a Cox model takes its Breslow baseline up to the new horizon from `kernel`."""
+    view = copy.copy(fit)
+    view.horizon = float(horizon)
+    if isinstance(fit, CoxFit):
+        if kernel is None:
+            kernel = cox_kernel(fit, d)
+        view._baseline(kernel, fit.params_)
+    return view
+
+
+def cox_kernel(fit, d) -> CoxKernel:
+    """The risk-set bookkeeping of one arm's Cox fit, rebuilt from its data."""
+    prep = prepare(fit.basis, d, fit.arm, fit.outcome)
+    t, e = survival_arrays(d, fit.arm, fit.outcome)
+    return CoxKernel(t, e, prep.X, prep.w)
+
+
+def at_pair_horizon(pf: an.PairFit, horizon: float, kernels: dict | None = None) -> an.PairFit:
+    """Both arms' fits read at another horizon (see at_horizon)."""
+    kernels = kernels or {}
+    fits = {a: at_horizon(f, pf.data[a], horizon, kernels.get(a)) for a, f in pf.fits.items()}
+    return dataclasses.replace(pf, outcome=dataclasses.replace(pf.outcome, horizon=float(horizon)), fits=fits,
+                               warnings=[])
+
+
+def horizon_curve(fs: an.FitSet, pf: an.PairFit, horizons: int = HORIZONS) -> tuple[list[dict], list[str]]:
+    """Break-even point (with its interval) at a grid of horizons, and numbers at risk there; horizons
+    where fewer than 10% of an arm (or fewer than 20 patients) remain at risk are flagged."""
+    spec, arms = fs.spec, list(pf.fits)
+    main = an.analytic_summary(pf, spec).break_even
+    target = main[0].x if main else None
+    kernels = {a: cox_kernel(f, pf.data[a]) for a, f in pf.fits.items() if isinstance(f, CoxFit)}
+    out, flagged = [], []
+    for h in horizon_grid(pf, horizons):
+        s = an.analytic_summary(at_pair_horizon(pf, h, kernels), spec)
+        risk = [int((pf.data[a].time >= h).sum()) for a in arms]
+        beyond = any(r < max(AT_RISK_MIN, AT_RISK_SHARE * len(pf.data[a].time)) for r, a in zip(risk, arms))
+        pick = None
+        if s.break_even:
+            ref = target if target is not None else s.break_even[0].x
+            pick = min(s.break_even, key=lambda b: abs(b.x - ref))
+            target = pick.x if not main else target
+        out.append({"horizon": r6(h), "break_even": None if pick is None else r6(pick.x),
+                    "ci": [None, None] if pick is None else [r6(pick.ci[0]), r6(pick.ci[1])],
+                    "interval": None if pick is None else pick.interval,
+                    "break_evens": [b.to_json() for b in s.break_even], "favours_throughout": s.favours_throughout,
+                    "at_risk_first": risk[0], "at_risk_second": risk[1], "beyond_follow_up": bool(beyond),
+                    "spec_horizon": bool(np.isclose(h, pf.outcome.horizon))})
+        if beyond:
+            flagged.append(h)
+    warnings = []
+    if flagged:
+        warnings.append(f"{pf.outcome.title} along {pf.index}: from a horizon of {min(flagged):g} on, fewer than "
+                        f"{AT_RISK_SHARE:.0%} of an arm's patients (or fewer than {AT_RISK_MIN}) remain at risk; "
+                        "break-even points there rest on few patients.")
+    return out, warnings
+
+
+# ------------------------------------------------------------------------------------------
+# All checks for every outcome x index
+# ------------------------------------------------------------------------------------------
+def pair_checks(fs: an.FitSet, pf: an.PairFit, *, bands: int = BANDS, window: int = WINDOW,
+                step: int = STEP) -> dict:
+    """Every check for one outcome along one index, as one JSON row."""
+    level = fs.spec.analysis.level
+    o = pf.outcome
+    iv = fs.indices.get(pf.index)
+    ovf, calib, w1 = observed_vs_fitted(pf, bands, level, _discrete(iv))
+    windows, w2 = sliding_windows(pf, window, step, level)
+    em = effect_modification(pf, clustered=bool(fs.spec.cohort.cluster),
+                             index_label=None if iv is None else iv.info.get("label"))
+    row = {"outcome": o.name, "index": pf.index, "kind": o.kind, "measure": measure_words(o),
+           "observed_vs_fitted": ovf, "calibration": calib, "sliding_window": windows,
+           "window": {"patients": window, "step": step},
+           "effect_modification": {k: v for k, v in em.items() if k != "warnings"}}
+    warnings = w1 + w2 + em["warnings"]
+    if o.kind == "survival":
+        row["horizon_curve"], w3 = horizon_curve(fs, pf)
+        warnings += w3
+    row["warnings"] = list(dict.fromkeys(warnings))
+    return row
+
+
+def _discrete(iv: IndexValues | None) -> bool | None:
+    return None if iv is None else bool(iv.info.get("discrete"))
+
+
+def checks_rows(fs: an.FitSet, *, bands: int = BANDS, window: int = WINDOW, step: int = STEP) -> list[dict]:
+    """The JSON `checks` rows: one per outcome x index (see pair_checks)."""
+    return [pair_checks(fs, pf, bands=bands, window=window, step=step) for pf in fs.pairs.values()]
+
+
+# ------------------------------------------------------------------------------------------
+# Kaplan-Meier curves for charts
+# ------------------------------------------------------------------------------------------
+def km_curves(cohort: Cohort, outcome: OutcomeSpec | str, index: IndexValues | np.ndarray | None = None,
+              bands: int | None = None, level: float = 0.95) -> list[dict]:
+    """Kaplan-Meier curves per arm, overall and (with an index and bands) per band of the index, with
+    numbers at risk at ticks shared by every curve. Complete cases of the outcome (and index)."""
+    spec = cohort.spec
+    o = spec.outcome(outcome) if isinstance(outcome, str) else outcome
+    if o.kind != "survival":
+        raise FulcrumError(f"Kaplan-Meier curves need a survival outcome; '{o.name}' is {o.kind}.",
+                           key=f"outcomes '{o.name}'", hint="Choose a survival outcome.")
+    f = cohort.frame
+    ok = cohort.complete(o)
+    x = None
+    if index is not None:
+        x = np.asarray(index.values if isinstance(index, IndexValues) else index, float)
+        ok &= np.isfinite(x)
+    arm_col = f[spec.cohort.arm].to_numpy()
+    t, e = f[o.time].to_numpy(float), f[o.event].to_numpy(float)
+    ticks = nice_ticks(float(t[ok].max()) if ok.any() else 0.0)
+    out = []
+    for arm in spec.cohort.arms:
+        sel = ok & (arm_col == arm)
+        out.append({"outcome": o.name, "arm": arm, "band": None,
+                    **km_json(kaplan_meier(t[sel], e[sel], level=level), ticks)})
+    if x is not None and bands:
+        rows = {arm: np.flatnonzero(ok & (arm_col == arm)) for arm in spec.cohort.arms}
+        by_level = _discrete(index) if isinstance(index, IndexValues) else None
+        codes, spans = band_codes({a: x[r] for a, r in rows.items()}, bands, by_level)
+        for b, (lo, hi) in enumerate(spans):
+            for arm, r in rows.items():
+                sel = r[codes[arm] == b]
+                if len(sel) == 0:
+                    continue
+                out.append({"outcome": o.name, "arm": arm,
+                            "band": {"from": r6(lo), "to": r6(hi), "label": f"{lo:g}" if lo == hi else f"{lo:g} to {hi:g}"},
+                            **km_json(kaplan_meier(t[sel], e[sel], level=level), ticks)})
+    return out
+
+
+# ------------------------------------------------------------------------------------------
+# Baseline characteristics by arm and allocation
+# ------------------------------------------------------------------------------------------
+def _describe(v: np.ndarray, binary: bool) -> dict:
+    ok = v[np.isfinite(v)]
+    n = len(ok)
+    mean = float(ok.mean()) if n else None
+    sd = float(ok.std(ddof=1)) if n > 1 else None
+    if mean is None:
+        text = "no values"
+    elif binary:
+        text = f"{100 * mean:.0f}% ({int(ok.sum())} of {n})"
+    else:
+        text = f"{mean:.3g} (SD {sd:.3g})" if sd is not None else f"{mean:.3g}"
+    return {"n": int(n), "missing": int(len(v) - n), "mean": r6(mean), "sd": r6(sd), "text": text}
+
+
+def _smd_entry(a: np.ndarray, b: np.ndarray, binary: bool, compare: str, among: str) -> dict:
+    a, b = a[np.isfinite(a)], b[np.isfinite(b)]
+    value = smd(a, b, binary=binary) if len(a) > 1 and len(b) > 1 else None
+    return {"compare": compare, "among": among, "smd": r6(value),
+            "imbalanced": None if value is None else bool(abs(value) > SMD_FLAG)}
+
+
+def baseline_table(cohort: Cohort, covariates: list[str] | tuple[str, ...] | None = None) -> list[dict]:
+    """Per covariate: mean (SD) or share by arm, overall and among randomised and chosen patients, with
+    standardised mean differences between the arms and between chosen and randomised patients
+    (|SMD| above 0.1 flagged; Austin, Stat Med 2009)."""
+    spec, f = cohort.spec, cohort.frame
+    covariates = list(spec.cohort.covariates if covariates is None else covariates)
+    first, second = spec.cohort.arms
+    arm = f[spec.cohort.arm].to_numpy()
+    groups = {"all patients": np.ones(len(f), bool)}
+    if cohort.randomised is not None:
+        rnd = cohort.randomised.to_numpy(bool)
+        groups.update({"randomised": rnd, "chosen": ~rnd})
+    out = []
+    for name in covariates:
+        if name not in f.columns:
+            raise FulcrumError(f"the baseline table asks for covariate '{name}', which was not loaded.",
+                               column=name, key="cohort.covariates",
+                               hint="List it under [cohort] covariates so the cohort reader loads it.")
+        v = f[name].to_numpy(float)
+        finite = v[np.isfinite(v)]
+        binary = bool(len(finite) and np.isin(finite, (0.0, 1.0)).all())
+        cells = [{"arm": a, "allocation": g, **_describe(v[m & (arm == a)], binary)}
+                 for g, m in groups.items() for a in (first, second)]
+        smds = [_smd_entry(v[m & (arm == first)], v[m & (arm == second)], binary, f"{first} vs {second}", g)
+                for g, m in groups.items()]
+        if cohort.randomised is not None:
+            smds += [_smd_entry(v[groups["chosen"] & (arm == a)], v[groups["randomised"] & (arm == a)], binary,
+                                "chosen vs randomised", a) for a in (first, second)]
+        out.append({"covariate": name, "binary": binary, "groups": cells, "smd": smds})
+    return out
+
+
+def baseline_sentence(table: list[dict]) -> str:
+    """One sentence naming the covariates whose |SMD| exceeds 0.1 in any comparison."""
+    flagged = [f"{r['covariate']} ({s['compare']}, {s['among']}: {s['smd']:.2f})" for r in table for s in r["smd"]
+               if s["imbalanced"]]
+    if not flagged:
+        return "Every standardised mean difference is within 0.1."
+    return "Standardised mean differences above 0.1: " + "; ".join(flagged) + "."

@@ -20,7 +20,7 @@ from .errors import FulcrumError
 from .indices import IndexValues, compute_index, needed_columns
 from .models import fit_model
 from .models.base import Basis, Fitted, OutcomeData
-from .resampling import Progress, run_replicates
+from .resampling import ArmArrays, Progress, refit_arms, run_replicates
 from .spec import OutcomeSpec, Spec
 
 SPARSE_SHARE = 0.05  # an arm holding under 5% of the patients in a stretch of the index is flagged
@@ -301,24 +301,16 @@ class BootPayload:
 
 
 def boot_payload(fs: FitSet, keep_distribution: tuple[str, ...] = ()) -> BootPayload:
-    """Everything a replicate needs, computed once: rows per arm, each fit's arrays and warm starts.
-
-    extra["arm_data"][pair][arm] = (the full-data OutcomeData of that arm, a cohort-row -> position map),
-    so a replicate takes its rows from arrays instead of going back to the data frame.
-    """
+    """Everything a replicate needs, computed once: rows per arm, warm starts, and in
+    extra["arm_data"][pair][arm] each fit's arrays (resampling.ArmArrays), so replicates skip the frame."""
     spec = fs.spec
     arm_col = fs.cohort.frame[spec.cohort.arm].to_numpy()
     arm_rows = {arm: np.flatnonzero(arm_col == arm) for arm in spec.cohort.arms}
     pairs, arm_data = {}, {}
-    n = len(arm_col)
     for key, pf in fs.pairs.items():
         starts = {arm: f.params_ for arm, f in pf.fits.items()}
         pairs[key] = (pf.basis, pf.rows, starts, grid_for(pf, spec.analysis.grid))
-        arm_data[key] = {}
-        for arm, r in pf.rows.items():
-            where = np.full(n, -1, dtype=np.int64)
-            where[r] = np.arange(len(r))
-            arm_data[key][arm] = (dataclasses.replace(pf.data[arm], cluster=None, weights=None), where)
+        arm_data[key] = {arm: ArmArrays.of(pf.data[arm], r, len(arm_col)) for arm, r in pf.rows.items()}
     cluster_rows = None
     if spec.cohort.cluster:
         codes, _ = pd.factorize(fs.cohort.frame[spec.cohort.cluster].astype(str))
@@ -338,33 +330,13 @@ def draw_rows(payload: BootPayload, rng: np.random.Generator) -> dict[str, np.nd
 
 
 def boot_replicate(payload: BootPayload, rng: np.random.Generator) -> dict[tuple[str, str], dict[str, np.ndarray]]:
-    """Resample patients within each arm (or whole clusters), refit every model, return curves on the grid.
-
-    Same fits as fit_pair on the drawn rows (complete cases, sorted cohort order, z held at the pooled mean
-    of the drawn rows) without its diagnostics or sandwich variances, which the curves do not use.
-    """
+    """Resample patients within each arm (or whole clusters), refit every model, return curves on the grid."""
     draw = draw_rows(payload, rng)
     out = {}
     for (oname, iname), (basis, rows, starts, grid) in payload.pairs.items():
         outcome = payload.spec.outcome(oname)
-        arrays = payload.extra["arm_data"][(oname, iname)]
-        pos = {}
-        for arm in rows:
-            p = arrays[arm][1][draw[arm]]
-            pos[arm] = p[p >= 0]
-        z_ref = None
-        if outcome.adjust:
-            z_ref = np.concatenate([arrays[arm][0].z[pos[arm]] for arm in rows]).mean(axis=0)
-        fits = {}
         try:
-            for arm in rows:
-                full = arrays[arm][0]
-                d = OutcomeData(*(None if v is None else v[pos[arm]] for v in (full.x, full.y, full.time,
-                                                                              full.event, full.z)),
-                                z_names=full.z_names, z_ref=z_ref)
-                if len(d) == 0:
-                    raise FulcrumError(f"no {arm} patients were drawn for outcome '{oname}'.")
-                fits[arm] = fit_model(outcome, arm, basis, d, start=starts.get(arm), robust=False, checks=False)
+            fits = refit_arms(outcome, basis, payload.extra["arm_data"][(oname, iname)], draw, starts)
         except (FulcrumError, np.linalg.LinAlgError, ValueError, FloatingPointError):
             out[(oname, iname)] = {"failed": np.array(True)}
             continue

@@ -5,13 +5,58 @@ answer is identical whatever the backend or the number of workers.
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any, Callable, Sequence
 
 import numpy as np
 
 from .errors import FulcrumError
+from .models import fit_model
+from .models.base import Basis, Fitted, OutcomeData
+from .spec import OutcomeSpec
 
 Progress = Callable[[int, int], None]
+
+
+@dataclass
+class ArmArrays:
+    """One arm's complete-case arrays of one outcome, and where each cohort row sits in them (-1: absent).
+
+    Built once from a full-data fit, so a replicate refits from array slices, not from the data frame.
+    """
+
+    data: OutcomeData
+    where: np.ndarray
+
+    @classmethod
+    def of(cls, data: OutcomeData, rows: np.ndarray, n_cohort: int) -> "ArmArrays":
+        where = np.full(n_cohort, -1, dtype=np.int64)
+        where[rows] = np.arange(len(rows))
+        return cls(OutcomeData(data.x, data.y, data.time, data.event, data.z, data.z_names), where)
+
+    def positions(self, drawn: np.ndarray) -> np.ndarray:
+        """Positions of the drawn cohort rows that are complete cases here, duplicates and order kept."""
+        p = self.where[drawn]
+        return p[p >= 0]
+
+
+def refit_arms(outcome: OutcomeSpec, basis: Basis, arrays: dict[str, ArmArrays], drawn: dict[str, np.ndarray],
+               starts: dict[str, np.ndarray]) -> dict[str, Fitted]:
+    """Refit each arm on the drawn cohort rows, as fit_pair would (complete cases, z held at the pooled mean
+    of the drawn rows), without diagnostics or sandwich variances, which a replicate's curves do not use."""
+    pos = {arm: a.positions(drawn[arm]) for arm, a in arrays.items()}
+    z_ref = None
+    if outcome.adjust:
+        z_ref = np.concatenate([arrays[arm].data.z[p] for arm, p in pos.items()]).mean(axis=0)
+    fits = {}
+    for arm, a in arrays.items():
+        if len(pos[arm]) == 0:
+            raise FulcrumError(f"no {arm} patients were drawn for outcome '{outcome.name}'.")
+        d = a.data
+        sub = OutcomeData(*(None if v is None else v[pos[arm]] for v in (d.x, d.y, d.time, d.event, d.z)),
+                          z_names=d.z_names, z_ref=z_ref)
+        fits[arm] = fit_model(outcome, arm, basis, sub, start=starts.get(arm), robust=False, checks=False)
+    return fits
 
 
 def replicate_seeds(seed: int, n: int) -> list[np.random.SeedSequence]:

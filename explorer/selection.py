@@ -22,7 +22,7 @@ from .errors import FulcrumError
 from .models import fit_model
 from .models.base import Fitted, numerical_jacobian
 from .models.common import basis_names
-from .resampling import Progress, run_replicates
+from .resampling import ArmArrays, Progress, refit_arms, run_replicates
 from .results import measure_words
 from .spec import OutcomeSpec, SelectionSpec, Spec
 
@@ -661,7 +661,7 @@ class _ShiftJob:
     outcome: str
     index: str
     basis: object
-    rows: dict[str, np.ndarray]
+    arrays: dict[str, ArmArrays]
     grid: np.ndarray
     x_randomised: float
     x_all: float
@@ -672,37 +672,33 @@ class _ShiftJob:
 @dataclass
 class _ShiftPayload:
     spec: Spec
-    cohort: object
-    indices: dict
     strata: list[np.ndarray]
     randomised: np.ndarray
     jobs: list[_ShiftJob]
 
 
-def _nearest_root(pf: an.PairFit, grid: np.ndarray, margin: float, x0: float) -> float:
-    roots = an.grid_roots(grid, an.difference_fn(pf)(grid) - margin)
+def _nearest_root(fits: dict[str, Fitted], sign: float, grid: np.ndarray, margin: float, x0: float) -> float:
+    first, second = fits.values()
+    roots = an.grid_roots(grid, sign * (first.measure(grid) - second.measure(grid)) - margin)
     return float(roots[np.argmin(np.abs(roots - x0))]) if len(roots) else math.nan
 
 
 def _shift_replicate(payload: _ShiftPayload, rng: np.random.Generator) -> dict[tuple[str, str], float]:
     """Resample patients within arm x allocation strata; refit all-patient and randomised-only curves."""
     draw = np.sort(np.concatenate([rng.choice(s, size=len(s), replace=True) for s in payload.strata]))
+    rand = draw[payload.randomised[draw]]
     spec, out = payload.spec, {}
     for job in payload.jobs:
         outcome = spec.outcome(job.outcome)
-        every = {arm: draw[np.isin(draw, r)] for arm, r in job.rows.items()}
-        rand = {arm: r[payload.randomised[r]] for arm, r in every.items()}
         try:
-            pa = an.fit_pair(spec, payload.cohort, outcome, payload.indices[job.index], job.basis, rows=every,
-                             start=job.start_all)
-            pr = an.fit_pair(spec, payload.cohort, outcome, payload.indices[job.index], job.basis, rows=rand,
-                             start=job.start_randomised)
+            pa = refit_arms(outcome, job.basis, job.arrays, dict.fromkeys(job.arrays, draw), job.start_all)
+            pr = refit_arms(outcome, job.basis, job.arrays, dict.fromkeys(job.arrays, rand), job.start_randomised)
         except FIT_ERRORS:
             out[(job.outcome, job.index)] = math.nan
             continue
-        m = spec.analysis.margin
-        out[(job.outcome, job.index)] = (_nearest_root(pa, job.grid, m, job.x_all)
-                                         - _nearest_root(pr, job.grid, m, job.x_randomised))
+        m, sign = spec.analysis.margin, 1.0 if outcome.higher_is_better else -1.0
+        out[(job.outcome, job.index)] = (_nearest_root(pa, sign, job.grid, m, job.x_all)
+                                         - _nearest_root(pr, sign, job.grid, m, job.x_randomised))
     return out
 
 
@@ -718,12 +714,13 @@ def shift_bootstrap(fs: an.FitSet, pairs: dict[tuple[str, str], tuple[SelectionP
     jobs = []
     for (o, i), (sp, rb, ab) in pairs.items():
         grid = an.grid_for(sp.all, spec.analysis.grid)
-        jobs.append(_ShiftJob(o, i, sp.all.basis, sp.all.rows, grid, rb.x, ab.x,
+        arrays = {arm: ArmArrays.of(sp.all.data[arm], r, len(rand)) for arm, r in sp.all.rows.items()}
+        jobs.append(_ShiftJob(o, i, sp.all.basis, arrays, grid, rb.x, ab.x,
                               {a: f.params_ for a, f in sp.all.fits.items()},
                               {a: f.params_ for a, f in sp.randomised.fits.items()}))
     if not jobs or replicates <= 0:
         return {}
-    payload = _ShiftPayload(spec, fs.cohort, fs.indices, strata, rand, jobs)
+    payload = _ShiftPayload(spec, strata, rand, jobs)
     reps = run_replicates(functools.partial(_shift_replicate, payload), replicates, spec.analysis.seed,
                           workers=spec.analysis.workers, scheduler=spec.analysis.scheduler, progress=progress)
     return {key: np.array([rep[key] for rep in reps], float) for key in pairs}

@@ -39,6 +39,7 @@ MIN_PER_BAND = 10  # patients per arm a band must hold; smaller bands are merged
 ALPHA = 0.05
 HORIZONS = 12
 AT_RISK_SHARE, AT_RISK_MIN = 0.10, 20
+MIN_CLUSTERS = 20
 
 
 # ------------------------------------------------------------------------------------------
@@ -283,7 +284,7 @@ def sliding_windows(pf: an.PairFit, window: int = WINDOW, step: int = STEP, leve
     z = be.critical_value(level)
     dfn = an.difference_fn(pf)
     model = dfn(x)
-    out, warnings = [], [f"{pf.outcome.title} along {pf.index}: {n}" for n in notes]
+    out, empty, warnings = [], [], [f"{pf.outcome.title} along {pf.index}: {n}" for n in notes]
     for s in starts:
         idx = order[s:s + width]
         parts = [observed(pf.outcome, _subset(pf.data[a], np.sort(pos[idx][arm_of[idx] == i])), level)
@@ -297,11 +298,12 @@ def sliding_windows(pf: an.PairFit, window: int = WINDOW, step: int = STEP, leve
             se = math.sqrt(parts[0].var + parts[1].var)
             rec.update(difference=r6(diff), ci=[r6(diff - z * se), r6(diff + z * se)])
         else:
-            why = "; ".join(f"{a}: {p.note or 'too few patients'}" for a, p in zip(arms, parts)
-                            if p.value is None or p.var is None)
-            warnings.append(f"{pf.outcome.title} along {pf.index}, window {xs.min():.3g} to {xs.max():.3g}: "
-                            f"no difference ({why}).")
+            empty.append("; ".join(f"{a}: {p.note or 'too few patients'}" for a, p in zip(arms, parts)
+                                   if p.value is None or p.var is None))
         out.append(rec)
+    if empty:
+        warnings.append(f"{pf.outcome.title} along {pf.index}: {len(empty)} of {len(out)} windows have no "
+                        f"nonparametric difference (first: {empty[0]}).")
     at_median = dfn(np.array([rec["median"] for rec in out]))
     for rec, m in zip(out, at_median):
         rec["median"], rec["model_difference"] = r6(rec["median"]), r6(float(m))
@@ -420,13 +422,11 @@ def effect_modification(pf: an.PairFit, clustered: bool = False, index_label: st
     if not ok:
         notes.append(f"{o.title} along {index}: the model with a common index effect did not converge; the test "
                      "is unreliable.")
+    method = f"likelihood ratio: per-arm models against {restricted} and index terms common to both arms"
     if clustered:
-        notes.append(f"{o.title} along {index}: the likelihood-ratio test treats patients as independent; with "
-                     "clustered patients it may overstate the evidence.")
+        method += "; patients treated as independent (clusters ignored), so the evidence may be overstated"
     return {"statistic": r6(stat), "df": int(df), "p_value": r6(p), "weak_evidence": bool(weak),
-            "sentence": sentence, "method": f"likelihood ratio: per-arm models against {restricted} and "
-                                           "index terms common to both arms",
-            "converged": bool(ok), "warnings": notes}
+            "sentence": sentence, "method": method, "converged": bool(ok), "warnings": notes}
 
 
 # ------------------------------------------------------------------------------------------
@@ -534,6 +534,29 @@ def _discrete(iv: IndexValues | None) -> bool | None:
 def checks_rows(fs: an.FitSet, *, bands: int = BANDS, window: int = WINDOW, step: int = STEP) -> list[dict]:
     """The JSON `checks` rows: one per outcome x index (see pair_checks)."""
     return [pair_checks(fs, pf, bands=bands, window=window, step=step) for pf in fs.pairs.values()]
+
+
+def clustering(fs: an.FitSet) -> dict | None:
+    """Which clustered intervals the analysis used and over how many clusters; a warning below 20 clusters,
+    where sandwich variances and cluster bootstraps both run too narrow. None without a cluster column."""
+    spec = fs.spec
+    column = spec.cohort.cluster
+    if not column:
+        return None
+    f = fs.cohort.frame
+    arm = f[spec.cohort.arm].to_numpy()
+    labels = f[column]
+    k = int(labels.nunique())
+    method = ("bootstrap resampling whole clusters" if spec.analysis.interval == "bootstrap" else
+              "cluster-robust (sandwich) variances, scores summed within clusters (Lin & Wei, JASA 1989 for Cox)")
+    out = {"column": column, "clusters": k,
+           "clusters_per_arm": {a: int(labels[arm == a].nunique()) for a in spec.cohort.arms},
+           "method": method, "warnings": ["The checks (effect-modification tests, observed-versus-fitted bands, "
+                                          "sliding windows) treat patients as independent, ignoring the clusters."]}
+    if k < MIN_CLUSTERS:
+        out["warnings"].append(f"Only {k} clusters ('{column}'): with fewer than {MIN_CLUSTERS}, clustered "
+                               "intervals tend to be too narrow; read them as approximate.")
+    return out
 
 
 # ------------------------------------------------------------------------------------------

@@ -352,3 +352,12 @@ def test_fitted_values_use_each_patients_own_covariates():
     # statsmodels OLS fitted values of y on [1, x, u, v]
     ref = sm.OLS(y, np.column_stack([np.ones(300), x, z])).fit().fittedvalues
     np.testing.assert_allclose(ck.patient_fit(fit, d).measure(x), ref, atol=1e-10)
+
+
+def test_clustering_summary_counts_hospitals(demo_fits):
+    out = ck.clustering(demo_fits)
+    f = demo_fits.cohort.frame
+    # pandas count of distinct hospitals; the demo has 6, fewer than 20, so it warns
+    assert out["clusters"] == f.hospital.nunique() == 6
+    assert out["clusters_per_arm"] == f.groupby("arm").hospital.nunique().to_dict()
+    assert out["warnings"] and "sandwich" in out["method"]

@@ -105,7 +105,7 @@ def _structural(cohort: Cohort, outcome: OutcomeSpec) -> np.ndarray:
 
 def _columns(spec: Spec, cohort: Cohort, indices: dict[str, IndexValues]) -> pd.DataFrame:
     """The numeric matrix of the imputation model: outcomes (survival as event and Nelson-Aalen hazard),
-    index values and covariates, one column each."""
+    covariates and index values, one column each (an index that is a covariate column is not repeated)."""
     f = cohort.frame
     arm = f[spec.cohort.arm].to_numpy()
     cols: dict[str, np.ndarray] = {}
@@ -131,13 +131,14 @@ def _columns(spec: Spec, cohort: Cohort, indices: dict[str, IndexValues]) -> pd.
         if c in f.columns:
             cols.setdefault(c, f[c].to_numpy(float))
     for name, iv in indices.items():
-        cols[f"index:{name}"] = np.asarray(iv.values, float)
+        if iv.info.get("column") not in cols:
+            cols[f"index:{name}"] = np.asarray(iv.values, float)
     return pd.DataFrame(cols)
 
 
 def impute(fs: an.FitSet, m: int = M, seed: int | None = None) -> tuple[list[Imputed], dict[str, int]]:
     """m completed copies of the cohort (seeds drawn from the analysis seed) and the count of values
-    filled per column."""
+    filled per column (values missing by design, such as deaths for an outcome among survivors, stay missing)."""
     from sklearn.exceptions import ConvergenceWarning
     from sklearn.experimental import enable_iterative_imputer  # noqa: F401
     from sklearn.impute import IterativeImputer
@@ -162,6 +163,9 @@ def impute(fs: an.FitSet, m: int = M, seed: int | None = None) -> tuple[list[Imp
                 _warnings.simplefilter("ignore", ConvergenceWarning)
                 filled[rows] = imp.fit_transform(filled[rows])
         out.append(_completed(fs, table, filled))
+    for o in spec.outcomes:
+        if o.among_survivors and o.column in table.columns:
+            missing[:, table.columns.get_loc(o.column)] &= ~_structural(cohort, o)
     counts = {c: int(n) for c, n in zip(table.columns, missing.sum(axis=0)) if n and not c.startswith("hazard:")}
     return out, counts
 
@@ -192,7 +196,7 @@ def _completed(fs: an.FitSet, table: pd.DataFrame, filled: np.ndarray) -> Impute
             frame[c] = np.clip(np.round(values[c]), 0, 1) if binary else values[c]
     indices = {}
     for name, iv in fs.indices.items():
-        v = values[f"index:{name}"]
+        v = values.get(f"index:{name}", values.get(iv.info.get("column")))
         levels = iv.info.get("levels")
         if iv.info.get("discrete") and levels:
             lv = np.asarray(levels, float)
@@ -325,7 +329,7 @@ def imputed_break_evens(fs: an.FitSet, m: int = M) -> list[dict]:
     if m < 2:
         raise FulcrumError(f"multiple imputation needs at least 2 imputations; {m} were asked for.",
                            hint="Use m = 5 or more (20 or more when much is missing).")
-    completed, filled = impute(fs, m) if any(_imputed_counts(fs, pf) for pf in fs.pairs.values()) else ([], {})
+    completed, _ = impute(fs, m) if any(_imputed_counts(fs, pf) for pf in fs.pairs.values()) else ([], {})
     rows = []
     for pf in fs.pairs.values():
         cc = an.analytic_summary(pf, spec)

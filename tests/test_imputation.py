@@ -150,3 +150,4 @@ def test_demo_imputation_leaves_deaths_without_a_quality_of_life_value(_demo_mas
         assert g.days_home_180.between(0, 180).all()
         np.testing.assert_array_equal(g.days_followed, f.days_followed)
     assert counts["function_6m"] == f.function_6m.isna().sum()
+    assert counts["qol_6m"] == (f.qol_6m.isna() & ~dead).sum()

@@ -248,19 +248,20 @@ def outcomes_from_rows(rows: list[dict], base: Spec | None = None) -> list[dict]
         old = known.get(name, {})
         if old.get("kind") == kind:
             table.update({k: v for k, v in old.items() if k in _KIND_KEYS.get(kind, set())})
-        for key in ("column", "time", "event", "label"):
+        cells = ("time", "event", "label") if kind == "survival" else ("column", "label")
+        for key in cells:
             v = row.get(key)
             if not _blank(v):
                 table[key] = str(v).strip()
             elif key == "label":
                 table.pop("label", None)
-        if not _blank(row.get("horizon")):
+        if kind == "survival" and not _blank(row.get("horizon")):
             try:
                 table["horizon"] = float(row["horizon"])
             except (TypeError, ValueError):
                 raise FulcrumError(f"the horizon of outcome '{name}' is not a number: {row['horizon']!r}.",
                                    key=f"outcomes '{name}'.horizon", hint="Give the horizon as a number.") from None
-        if not _blank(row.get("levels")):
+        if kind == "ordinal" and not _blank(row.get("levels")):
             table["levels"] = [v.strip() for v in str(row["levels"]).split(",") if v.strip()]
             if "favourable" in table and not set(table["favourable"]) <= set(table["levels"]):
                 del table["favourable"]
@@ -336,6 +337,14 @@ def build_spec(cohort: dict[str, Any], outcomes: list[dict], indices: list[dict]
                 data["values"] = values
         if "selection" in old and table.get("allocation"):
             data["selection"] = old["selection"]
+        pairwise = old.get("pairwise")
+        if pairwise and set(pairwise.get("priority", [])) <= set(names):
+            data["pairwise"] = pairwise
+        index_names = {i["name"] for i in indices}
+        maps = [m for m in old.get("maps", []) if set(m["indices"]) <= index_names
+                and (m["target"] in names or (m["target"] == "composite" and "values" in data))]
+        if maps:
+            data["maps"] = maps
     return parse_spec(data, base_dir=base_dir or Path("."), source=APP_SOURCE)
 
 

@@ -244,13 +244,22 @@ def description(chart: Any) -> str | None:
     return text if isinstance(text, str) else None
 
 
+def show_chart(chart: Any) -> None:
+    """A chart as wide as its column, keeping its own plot height (titles and legends are added around it)."""
+    import altair as alt
+
+    chart = chart.copy(deep=False)
+    chart.autosize = alt.AutoSizeParams(type="fit-x", contains="padding")
+    st.altair_chart(chart, width="stretch")
+
+
 def altair(chart: Any, text: str | None = None) -> None:
     """A chart with the sentence that says the same thing beside it."""
     if text is None:
-        st.altair_chart(chart, width="stretch")
+        show_chart(chart)
         return
-    left, right = st.columns([3, 2], vertical_alignment="center")
+    left, right = st.columns([2, 1], vertical_alignment="center")
     with left:
-        st.altair_chart(chart, width="stretch")
+        show_chart(chart)
     with right:
         sentence(text)

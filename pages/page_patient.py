@@ -89,7 +89,7 @@ for p in preds:
         for col, arm in zip(icon_cols, arms):
             with col:
                 chart = charts.icon_array_chart(probs[arm], f"With {arm}", colours)
-                st.altair_chart(chart)
+                ui.show_chart(chart)
                 st.caption(aps.md_escape(ui.description(chart) or ""))
     table = [{"arm": a, "estimate": e.estimate, "interval": f"{e.lower:.3g} to {e.upper:.3g}"}
              for a, e in p.arms.items()]

@@ -31,11 +31,9 @@ with c2:
     if render_report is None:
         ui.not_available("The offline HTML report", "explorer/report")
     else:
-        html = ui.attempt(render_report, res)
-        if html is not None:
-            st.download_button("Offline report (.html, opens with no network)", data=html,
-                               file_name="fulcrum_report.html", mime="text/html", on_click="ignore",
-                               icon=":material/description:")
+        st.download_button("Offline report (.html, opens with no network)", data=lambda: render_report(res),
+                           file_name="fulcrum_report.html", mime="text/html", on_click="ignore",
+                           icon=":material/description:")
 st.caption(f"Data sha256 {doc['inputs']['data_sha256'][:16]}..., spec {doc['inputs']['spec_canonical_sha256'][:16]}..., "
            f"seed {doc['inputs']['seed']}, {doc['inputs']['interval']} intervals at {doc['inputs']['level']:.0%}.")
 

@@ -94,12 +94,13 @@ def test_editor_rows_rebuild_the_demo_spec_exactly(demo_spec) -> None:
 def test_a_bad_editor_row_names_the_problem(demo_spec) -> None:
     rows = aps.outcome_rows(demo_spec)
     rows[0]["horizon"] = "a year"
+    assert rows[0]["kind"] == "survival"
     with pytest.raises(FulcrumError, match="horizon") as err:
         aps.outcomes_from_rows(rows, demo_spec)
     assert err.value.hint
     rows = aps.outcome_rows(demo_spec)
-    rows[1]["kind"] = "ordinal"
-    rows[1]["levels"] = "independent"
+    ordinal = next(r for r in rows if r["kind"] == "ordinal")
+    ordinal["levels"] = "independent"
     c = demo_spec.cohort
     with pytest.raises(FulcrumError, match="two different levels"):
         aps.build_spec({"path": "x.csv", "arm": c.arm, "arms": list(c.arms)}, aps.outcomes_from_rows(rows),

@@ -9,13 +9,14 @@ from __future__ import annotations
 import math
 import re
 import textwrap
+import threading
 from functools import lru_cache, wraps
 from typing import Any, Callable, Iterable, Mapping, Sequence
 
 import altair as alt
 import numpy as np
 import pandas as pd
-from altair.utils.schemapi import debug_mode
+from altair.utils import schemapi
 
 # Okabe M, Ito K (2008). Color Universal Design: how to make figures and presentations friendly to colorblind people.
 OKABE_ITO = {
@@ -155,12 +156,32 @@ def _finish(chart: alt.TopLevelMixin, title: str, subtitle: str | list[str] | No
     return styled(chart) if style else chart
 
 
+_QUIET = threading.Lock()
+_quiet_depth = 0
+_saved_debug = True
+
+
 def _quick(fn: Callable) -> Callable:
-    """Build without Altair's per-object validation (specs are validated whole by to_dict when wanted)."""
+    """Build without Altair's per-object validation (specs are validated whole by to_dict when wanted).
+
+    Altair keeps the switch in a module global; a counter under a lock restores it only when the last of
+    several concurrent builds (app sessions run in threads) has finished.
+    """
     @wraps(fn)
     def run(*args: Any, **kwargs: Any) -> Any:
-        with debug_mode(False):
+        global _quiet_depth, _saved_debug
+        with _QUIET:
+            if _quiet_depth == 0:
+                _saved_debug = schemapi.DEBUG_MODE
+                schemapi.DEBUG_MODE = False
+            _quiet_depth += 1
+        try:
             return fn(*args, **kwargs)
+        finally:
+            with _QUIET:
+                _quiet_depth -= 1
+                if _quiet_depth == 0:
+                    schemapi.DEBUG_MODE = _saved_debug
     return run
 
 

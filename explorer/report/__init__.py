@@ -117,7 +117,7 @@ def _labelled(row: Mapping[str, Any], spec_doc: Mapping[str, Any]) -> dict:
 
 
 def _every(row: Mapping[str, Any]) -> int:
-    return max(1, len(row["curve"]) // (CURVE_TABLE_ROWS - 1))
+    return max(1, len(row.get("curve") or []) // (CURVE_TABLE_ROWS - 1))
 
 
 def _points(result: Any, row: Mapping[str, Any], n: int) -> pd.DataFrame | None:
@@ -208,11 +208,16 @@ def selection_sections(doc: Mapping[str, Any]) -> list[dict]:
                                "varies with the index (p)": r.get("varies_with_index_p"),
                                "randomised patients": r.get("n_randomised"), "chosen patients": r.get("n_chosen")}
                               for r in rows])
+        curve = pd.DataFrame([{"arm": r.get("arm"), "index": c["x"], "chosen minus randomised": c["effect"],
+                               "interval low": (c.get("ci") or [None, None])[0],
+                               "interval high": (c.get("ci") or [None, None])[1],
+                               "few randomised patients": "yes" if c.get("randomised_sparse") else ""}
+                              for r in rows for c in (r.get("curve") or [])[::_every(r)]])
         shift = rows[0].get("shift")
         out.append({"title": f"{rows[0].get('measure', outcome)} along {xt}",
                     "sentence": " ".join(ch.describe_selection(r) for r in rows),
                     "charts": [ch.selection_chart(rows, arms, index_title=xt)],
-                    "table": table_of(facts), "break_even": table_of(est),
+                    "table": table_of(facts), "break_even": table_of(est), "curve": table_of(curve),
                     "shift": None if shift is None else f"{ch.fmt(shift)} ({_pair(rows[0].get('shift_ci'))})",
                     "warnings": list(dict.fromkeys(w for r in rows for w in r.get("warnings") or []))})
     return out

@@ -9,6 +9,7 @@ import math
 import re
 
 import numpy as np
+import pandas as pd
 import pytest
 from scipy import stats
 
@@ -46,8 +47,6 @@ def test_survival_estimate_matches_lifelines(fs, view):
     p = view.prediction("alive", "cfs")
     for arm in fs.spec.cohort.arms:
         _, d = _arm_frame(fs, "alive", "cfs", arm)
-        import pandas as pd
-
         df = pd.DataFrame({"t": d.time, "e": d.event, "cfs": d.x})
         cph = CoxPHFitter().fit(df, "t", "e")  # Efron ties, Breslow baseline (lifelines documentation)
         ref = float(cph.predict_survival_function(pd.DataFrame({"cfs": [6.0]}), times=[o.horizon]).iloc[0, 0])

@@ -914,7 +914,10 @@ def cohort_points(fs: Any, outcome: str, index: str, *, max_points: int = 1500, 
             keep, y = np.ones(len(x), bool), np.isin(np.asarray(d.y), fav).astype(float)
         else:
             keep, y = np.ones(len(x), bool), np.asarray(d.y, float)
-        if spec.cohort.allocation:
+        randomised = getattr(fs.cohort, "randomised", None)
+        if randomised is not None:
+            alloc = np.where(np.asarray(randomised, bool)[rows], "randomised", "chosen")
+        elif spec.cohort.allocation:
             alloc = np.where(frame[spec.cohort.allocation].astype(str).to_numpy()[rows] == str(spec.cohort.randomised),
                              "randomised", "chosen")
         else:

@@ -156,3 +156,29 @@ def test_patient_page_places_a_cohort_row_and_offers_a_summary_without_identifie
     pid = ws.cohort.frame[ws.spec.cohort.id].iloc[0]
     assert pid not in texts(at)
     assert any(b.label.startswith("Printable summary") for b in at.get("download_button"))
+
+
+def test_the_bootstrap_runs_only_on_request_and_then_supplies_the_intervals() -> None:
+    at = visit(start(), "page_outcomes.py")
+    ws = workspace(at)
+    assert not ws.has_bootstrap()
+    assert {b["interval"] for r in ws.curve_rows() for b in r["break_even"]} <= {"fieller", "delta"}
+    next(n for n in at.number_input if n.label == "Replicates").set_value(20).run()
+    fits = workspace(at).n_fits
+    next(b for b in at.button if b.label.startswith("Run the bootstrap")).click().run()
+    assert not at.exception and not at.error, [e.value for e in at.error]
+    ws = workspace(at)
+    assert ws.has_bootstrap() and ws.n_fits == fits
+    assert {b["interval"] for r in ws.curve_rows() for b in r["break_even"]} == {"bootstrap-percentile"}
+    assert "bootstrap percentile" in texts(at)
+
+
+def test_confirming_the_demo_mapping_unchanged_keeps_the_same_analysis() -> None:
+    from explorer.spec import canonical_sha256
+
+    at = start()
+    ws = workspace(at)
+    button(at, "Check and use").click().run()
+    assert not at.exception and not at.error, [e.value for e in at.error]
+    again = workspace(at)
+    assert canonical_sha256(again.spec) == canonical_sha256(ws.spec) and again.data_sha256 == ws.data_sha256

@@ -352,14 +352,16 @@ def build_spec(cohort: dict[str, Any], outcomes: list[dict], indices: list[dict]
 # Settings that never refit: margin, level, bands, weights
 # ------------------------------------------------------------------------------------------
 def edit_spec(spec: Spec, changes: dict[str, dict[str, Any]]) -> Spec:
-    """Apply TOML-shaped changes section by section and re-check the whole spec through the parser."""
+    """Apply TOML-shaped changes section by section (None drops a key or a section) and re-check the whole
+    spec through the parser."""
     base_dir = spec.cohort.path.parent
     data = spec_to_dict(spec, relative_to=base_dir)
     for section, table in changes.items():
         if table is None:
             data.pop(section, None)
         else:
-            data[section] = {**data.get(section, {}), **table}
+            merged = {**data.get(section, {}), **table}
+            data[section] = {k: v for k, v in merged.items() if v is not None}
     return parse_spec(data, base_dir=base_dir, source=spec.source or APP_SOURCE)
 
 

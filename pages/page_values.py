@@ -68,22 +68,21 @@ with p1:
 if "preset_error" in st.session_state:
     ui.show_error(st.session_state.pop("preset_error"), "The weights are unchanged.")
 
+def to_custom() -> None:
+    st.session_state[ui.key("preset")] = CUSTOM
+
+
 cols = st.columns(min(len(levels), 5))
 weights = {}
 for i, lv in enumerate(levels):
     with cols[i % len(cols)]:
-        weights[lv] = st.slider(lv.replace("_", " "), -1.0, 1.0, step=0.01,
+        weights[lv] = st.slider(lv.replace("_", " "), -1.0, 1.0, step=0.01, on_change=to_custom,
                                 key=ui.seed(f"w:{lv}", float(v.weights.get(lv, 0.0))))
 
-changed = weights != v.weights or whose != v.whose or (preset != CUSTOM and preset != v.preset)
-if changed:
-    chosen = preset if preset != CUSTOM and values.preset_weights(preset, levels, acceptable) == weights else None
-    if ui.update_spec(lambda s: aps.edit_spec(s, {"values": {"weights": weights, "whose": whose,
-                                                             "acceptable": list(acceptable)}})):
-        if chosen is None and preset != CUSTOM:
-            st.session_state[ui.key("preset")] = CUSTOM
-        if chosen:
-            ui.update_spec(lambda s: aps.edit_spec(s, {"values": {"preset": chosen}}))
+chosen = None if preset == CUSTOM else preset
+if (weights, whose, chosen, tuple(acceptable)) != (v.weights, v.whose, v.preset, tuple(v.acceptable)):
+    ui.update_spec(lambda s: aps.edit_spec(s, {"values": {"weights": weights, "whose": whose, "preset": chosen,
+                                                          "acceptable": list(acceptable)}}))
     ws = ui.workspace()
     v = ws.spec.values
 

@@ -182,3 +182,17 @@ def test_confirming_the_demo_mapping_unchanged_keeps_the_same_analysis() -> None
     assert not at.exception and not at.error, [e.value for e in at.error]
     again = workspace(at)
     assert canonical_sha256(again.spec) == canonical_sha256(ws.spec) and again.data_sha256 == ws.data_sha256
+
+
+def test_a_preset_sets_the_weights_and_moving_one_makes_them_custom() -> None:
+    at = visit(start(), "page_values.py")
+    preset = next(s for s in at.selectbox if s.label == "Start from")
+    preset.set_value("survival_only").run()
+    assert not at.exception and not at.error, [e.value for e in at.error]
+    v = workspace(at).spec.values
+    # Fulcrum's 'only survival counts' preset: every living level 1, death 0 (explorer/values.py).
+    assert v.preset == "survival_only" and v.weights == {lv: (0.0 if lv == "dead" else 1.0) for lv in v.weights}
+    next(s for s in at.slider if s.label == "care home").set_value(0.5).run()
+    assert not at.exception and not at.error, [e.value for e in at.error]
+    v = workspace(at).spec.values
+    assert v.preset is None and v.weights["care_home"] == 0.5

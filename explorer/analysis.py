@@ -369,42 +369,59 @@ def grid_roots(grid: np.ndarray, y: np.ndarray) -> np.ndarray:
     return np.sort(np.concatenate([r, exact]))
 
 
-def bootstrap_summary(pf: PairFit, spec: Spec, curves: list[np.ndarray | None],
-                      firsts: list[np.ndarray], seconds: list[np.ndarray],
-                      base: be.CurveSummary | None = None) -> be.CurveSummary:
-    """Percentile intervals for the curves, the difference and each break-even point."""
+def nearest_grid_roots(grid: np.ndarray, Y: np.ndarray, x0: float) -> np.ndarray:
+    """For each row of Y, the grid_roots root nearest x0 (the lower of two equally near), NaN when none."""
+    s = np.sign(Y)
+    i, j = np.nonzero(s[:, :-1] * s[:, 1:] < 0)
+    zi, zj = np.nonzero(s == 0)
+    roots = np.concatenate([grid[j] - Y[i, j] * (grid[j + 1] - grid[j]) / (Y[i, j + 1] - Y[i, j]), grid[zj]])
+    rows = np.concatenate([i, zi])
+    order = np.lexsort((roots, np.abs(roots - x0), rows))
+    rows, roots = rows[order], roots[order]
+    first = np.r_[True, rows[1:] != rows[:-1]] if len(rows) else np.zeros(0, bool)
+    out = np.full(len(Y), np.nan)
+    out[rows[first]] = roots[first]
+    return out
+
+
+def bootstrap_summary(pf: PairFit, spec: Spec, curves: list[np.ndarray | None] | np.ndarray,
+                      firsts: list[np.ndarray] | np.ndarray, seconds: list[np.ndarray] | np.ndarray,
+                      base: be.CurveSummary | None = None, failed: int = 0) -> be.CurveSummary:
+    """Percentile intervals for the curves, the difference and each break-even point.
+
+    curves, firsts, seconds: one entry per replicate (None where it failed), or (R, grid) arrays of the
+    replicates that were fitted, with `failed` counting those left out.
+    """
     a = spec.analysis
     arms = _arms(pf)
     if base is None:
         base = analytic_summary(pf, spec)
-    ok = [i for i, c in enumerate(curves) if c is not None]
-    failed = len(curves) - len(ok)
-    D = np.array([curves[i] for i in ok], float)
-    F = np.array([firsts[i] for i in ok], float)
-    S = np.array([seconds[i] for i in ok], float)
+    if isinstance(curves, np.ndarray):
+        D, F, S = (np.asarray(M, float) for M in (curves, firsts, seconds))
+    else:
+        ok = [i for i, c in enumerate(curves) if c is not None]
+        failed = len(curves) - len(ok)
+        D = np.array([curves[i] for i in ok], float)
+        F = np.array([firsts[i] for i in ok], float)
+        S = np.array([seconds[i] for i in ok], float)
     qlo, qhi = 0.5 - a.level / 2, 0.5 + a.level / 2
     grid = base.grid
-    s = be.CurveSummary(grid, base.first, base.second, base.difference,
-                        np.quantile(D, qlo, axis=0), np.quantile(D, qhi, axis=0), band="pointwise",
-                        first_band=(np.quantile(F, qlo, axis=0), np.quantile(F, qhi, axis=0)),
-                        second_band=(np.quantile(S, qlo, axis=0), np.quantile(S, qhi, axis=0)))
+    (dlo, dhi), (flo, fhi), (slo, shi) = (np.quantile(M, [qlo, qhi], axis=0) for M in (D, F, S))
+    s = be.CurveSummary(grid, base.first, base.second, base.difference, dlo, dhi, band="pointwise",
+                        first_band=(flo, fhi), second_band=(slo, shi))
     if a.bands == "simultaneous":
         sd = np.maximum(D.std(axis=0, ddof=1), 1e-12)
         tmax = np.max(np.abs(D - base.difference) / sd, axis=1)
         crit = float(np.quantile(tmax, a.level))
         s.lower, s.upper, s.band = base.difference - crit * sd, base.difference + crit * sd, "simultaneous"
     s.clear_difference = be.regions(grid, s.lower, s.upper, a.margin, *arms)
+    Y = D - a.margin
+    favoured_first = np.mean(Y, axis=1) > 0
     for b in base.break_even:
-        draws = []
-        for d in D:
-            r = grid_roots(grid, d - a.margin)
-            if len(r):
-                draws.append(r[np.argmin(np.abs(r - b.x))])
-            else:
-                # no root: the break-even moved past the searched range on the side the replicate implies
-                favoured_first = np.mean(d - a.margin) > 0
-                draws.append(math.inf if favoured_first == (b.favours_below == arms[0]) else -math.inf)
-        draws = np.asarray(draws)
+        draws = nearest_grid_roots(grid, Y, b.x)
+        # no root: the break-even moved past the searched range on the side the replicate implies
+        past = np.where(favoured_first == (b.favours_below == arms[0]), math.inf, -math.inf)
+        draws = np.where(np.isnan(draws), past, draws)
         lo, hi = be.percentile_interval(draws, a.level)
         s.break_even.append(dataclasses.replace(b, ci=(lo, hi), interval="bootstrap-percentile",
                                                 interval_shape=be.shape_of(lo, hi),
@@ -412,7 +429,7 @@ def bootstrap_summary(pf: PairFit, spec: Spec, curves: list[np.ndarray | None],
     s.favours_throughout = base.favours_throughout
     s.warnings = list(base.warnings)
     if failed:
-        s.warnings.append(f"{pf.outcome.title}: {failed} of {len(curves)} bootstrap replicates could not be "
+        s.warnings.append(f"{pf.outcome.title}: {failed} of {len(D) + failed} bootstrap replicates could not be "
                           f"fitted and were left out.")
     return s
 

@@ -7,6 +7,7 @@ its delta-method covariance on the grid, so re-weighting is matrix products only
 """
 from __future__ import annotations
 
+import copy
 import dataclasses
 import math
 import re
@@ -189,6 +190,7 @@ class CompositeModel:
     notes: list[str] = field(default_factory=list)
     boot: list[np.ndarray] | None = None
     boot_ok: np.ndarray | None = None
+    cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def weighted(self) -> bool:
@@ -201,6 +203,21 @@ class CompositeModel:
     def difference(self, x: np.ndarray, w: np.ndarray) -> np.ndarray:
         L, _ = self.at(np.asarray(x, float).reshape(-1), False)
         return (L[0] - L[1]) @ w
+
+    def derived(self, name: str, sources: tuple, make: Callable[[], object]) -> object:
+        """A weight-free value computed from `sources` (objects this model holds), kept in `cache` until any
+        of them is replaced, so re-weighting does not redo it."""
+        hit = self.cache.get(name)
+        if hit is not None and len(hit[0]) == len(sources) and all(a is b for a, b in zip(hit[0], sources)):
+            return hit[1]
+        value = make()
+        self.cache[name] = (sources, value)
+        return value
+
+    def fitted_replicates(self) -> tuple[np.ndarray, np.ndarray]:
+        """Both arms' (R, G, K) replicate arrays without the replicates that failed."""
+        return self.derived("fitted_replicates", (*self.boot, self.boot_ok),
+                            lambda: (self.boot[0][self.boot_ok], self.boot[1][self.boot_ok]))
 
 
 @dataclass
@@ -548,26 +565,31 @@ def analytic_composite(cm: CompositeModel, w: np.ndarray, margin: float | None =
 def bootstrap_composite(cm: CompositeModel, w: np.ndarray, base: be.CurveSummary, margin: float | None = None
                         ) -> be.CurveSummary:
     """Percentile intervals from the replicates' composite curves (the replicates refitted every model used)."""
-    F, S = cm.boot[0] @ w, cm.boot[1] @ w
-    D = F - S
-    curves = [D[r] if ok else None for r, ok in enumerate(cm.boot_ok)]
-    firsts = [F[r] if ok else None for r, ok in enumerate(cm.boot_ok)]
-    seconds = [S[r] if ok else None for r, ok in enumerate(cm.boot_ok)]
+    B0, B1 = cm.fitted_replicates()
+    F, S = B0 @ w, B1 @ w
     spec = cm.spec
     m = _margin(cm, margin)
     if m != spec.analysis.margin:
         spec = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, margin=m))
-    return an.bootstrap_summary(cm.pair, spec, curves, firsts, seconds, base)
+    return an.bootstrap_summary(cm.pair, spec, F - S, F, S, base, failed=int(np.sum(~cm.boot_ok)))
 
 
 def summarise_composite(cm: CompositeModel, weights: dict[str, float] | Sequence[float] | None = None, *,
                         margin: float | None = None) -> be.CurveSummary:
     """The composite's CurveSummary for these weights: bootstrap intervals when replicates are attached."""
-    w = _weights_for(cm, weights)
-    s = analytic_composite(cm, w, margin)
-    if cm.boot is not None:
-        s = bootstrap_composite(cm, w, s, margin)
-    return s
+    return _summary(cm, _weights_for(cm, weights), margin)
+
+
+def _summary(cm: CompositeModel, w: np.ndarray, margin: float | None) -> be.CurveSummary:
+    """Analytic summary, with bootstrap intervals when replicates are attached. A composite without weights
+    gives the same summary whatever the weights, so it is made once per margin and copied out."""
+    def make() -> be.CurveSummary:
+        s = analytic_composite(cm, w, margin)
+        return bootstrap_composite(cm, w, s, margin) if cm.boot is not None else s
+    if cm.weighted:
+        return make()
+    sources = (cm.spec, *cm.L, *cm.C, *(cm.boot or ()), cm.boot_ok)
+    return copy.deepcopy(cm.derived(("summary", _margin(cm, margin)), sources, make))
 
 
 def reweight(prepared: dict[tuple[str, str], CompositeModel], weights: dict[str, float] | Sequence[float] | None
@@ -585,9 +607,7 @@ def reweight(prepared: dict[tuple[str, str], CompositeModel], weights: dict[str,
             continue
         v = values or cm.spec.values
         w = _weights_for(cm, weights if weights is not None else v.weights)
-        s = analytic_composite(cm, w, margin)
-        if cm.boot is not None:
-            s = bootstrap_composite(cm, w, s, margin)
+        s = _summary(cm, w, margin)
         info = CompositeInfo(cm.kind, cm.index, cm.measure,
                              dict(zip(cm.levels, map(float, w))) if cm.weighted else None, v.whose,
                              _notes(cm, w), model=cm)
@@ -650,7 +670,8 @@ def composite_rows(fs: an.FitSet, summaries: dict[tuple[str, str], tuple[be.Curv
 # ------------------------------------------------------------------------------------------
 def default_threshold_x(cm: CompositeModel) -> float:
     """The median index value of the patients behind the composite's anchor outcome."""
-    return float(np.median(np.concatenate([d.x for d in cm.pair.data.values()])))
+    return cm.derived("median_x", (cm.pair,),
+                      lambda: float(np.median(np.concatenate([d.x for d in cm.pair.data.values()]))))
 
 
 def _favours(cm: CompositeModel, d: float) -> str | None:
@@ -769,9 +790,9 @@ def acceptability(cm: CompositeModel, weights: dict[str, float] | Sequence[float
     else:
         xs = np.asarray(x, float).reshape(-1)
     if use_bootstrap and cm.boot is not None and cm.boot_ok.any():
-        B = _at_points((cm.boot[0] - cm.boot[1])[cm.boot_ok], cm.grid, xs)
-        r = np.arange(draws) % len(B)
-        D = np.einsum("dgk,dk->dg", B[r], W)
+        B = cm.derived(("draw_differences", xs.tobytes(), draws), (*cm.boot, cm.boot_ok),
+                       lambda: _draw_differences(cm, xs, draws))
+        D = np.einsum("dgk,dk->dg", B, W)
         p_first = np.mean(D > m, axis=0)
     else:
         if x is None:
@@ -787,6 +808,13 @@ def acceptability(cm: CompositeModel, weights: dict[str, float] | Sequence[float
         z = (mean - m) / np.where(sd > 0, sd, 1.0)
         p_first = np.where(sd > 0, special.ndtr(z), (mean > m).astype(float)).mean(axis=1)
     return [{"x": float(v), "first": float(p), "second": float(1.0 - p)} for v, p in zip(xs, p_first)]
+
+
+def _draw_differences(cm: CompositeModel, xs: np.ndarray, draws: int) -> np.ndarray:
+    """(draws, len(xs), K) first-minus-second replicate arrays at xs, weight draw d using replicate d mod R."""
+    B0, B1 = cm.fitted_replicates()
+    n = min(draws, len(B0))
+    return _at_points(B0[:n] - B1[:n], cm.grid, xs)[np.arange(draws) % n]
 
 
 def _at_points(B: np.ndarray, grid: np.ndarray, xs: np.ndarray) -> np.ndarray:

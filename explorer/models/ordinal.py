@@ -23,16 +23,18 @@ def _cell_terms(theta: np.ndarray, eta: np.ndarray, y: np.ndarray):
     """Per row, with a = theta_y - eta and b = theta_{y-1} - eta (infinite at the ends): F(a), F(b),
     their densities and the cell probability F(a) - F(b) = F(a) F(-b) (1 - exp(b - a)), which keeps
     full precision in both tails."""
-    up = np.r_[theta, np.inf][y] - eta
-    lo = np.r_[-np.inf, theta][y] - eta
+    cuts = np.concatenate(([-np.inf], theta, [np.inf]))
+    up = cuts[1:][y] - eta
+    lo = cuts[:-1][y] - eta
     Fa, Fnb = expit(up), expit(-lo)
     Fb = 1.0 - Fnb
-    gap = -np.expm1(-np.diff(np.r_[-np.inf, theta, np.inf]))
+    gap = -np.expm1(-np.diff(cuts))
     return Fa, Fb, Fa * (1 - Fa), Fb * Fnb, Fa * Fnb * gap[y]
 
 
 def ordinal_loglik(X: np.ndarray, y: np.ndarray, w: np.ndarray, K: int):
-    """fun(params) -> (loglik, gradient, Hessian) with params = (theta_1..theta_{K-1}, beta).
+    """fun(params) -> (loglik, gradient, Hessian) with params = (theta_1..theta_{K-1}, beta); the last
+    evaluation is kept, so checking a start value and starting Newton from it cost one pass.
 
     Terms of a missing cut (the top level has no upper cut, the bottom no lower one) are exactly 0,
     so per-level sums run over every row: bin y holds the upper cut theta_y, bin y - 1 the lower.
@@ -46,7 +48,15 @@ def ordinal_loglik(X: np.ndarray, y: np.ndarray, w: np.ndarray, K: int):
     def lower(v):
         return np.bincount(y, weights=v, minlength=K)[1:]
 
+    last: list = [None, None]
+
     def fun(params: np.ndarray):
+        if last[0] is not None and np.array_equal(last[0], params):
+            return last[1]
+        last[0], last[1] = np.array(params, float), _evaluate(params)
+        return last[1]
+
+    def _evaluate(params: np.ndarray):
         theta, beta = params[:m], params[m:]
         if np.any(np.diff(theta) <= 0):
             return -np.inf, None, None
@@ -59,7 +69,7 @@ def ordinal_loglik(X: np.ndarray, y: np.ndarray, w: np.ndarray, K: int):
         faa = fa * (1 - 2 * Fa) / p - da ** 2
         fbb = -fb * (1 - 2 * Fb) / p - db ** 2
         fab = -da * db
-        g = np.r_[upper(w * da) + lower(w * db), -(Xt @ (w * (da + db)))]
+        g = np.concatenate((upper(w * da) + lower(w * db), -(Xt @ (w * (da + db)))))
         H = np.zeros((len(g), len(g)))
         H[:m, :m] = np.diag(upper(w * faa) + lower(w * fbb))
         off = lower(w * fab)[:m - 1]

@@ -481,16 +481,22 @@ def summarise(fs: FitSet, replicates: list[dict] | None = None) -> dict[tuple[st
 
 
 def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | None = None,
-            progress: Progress | None = None, fitset: FitSet | None = None) -> Results:
-    """Run the analysis the spec describes; `progress(done, total)` reports resampling steps."""
+            progress: Progress | None = None, fitset: FitSet | None = None,
+            replicates: list[dict] | None = None) -> Results:
+    """Run the analysis the spec describes; `progress(done, total)` reports resampling steps.
+
+    `fitset` and `replicates` let a caller (the app) pass fits and bootstrap replicates it already has.
+    """
+    from . import checks as ck
+    from . import imputation as im
     from . import pairwise as pw
     from . import results as res
     from . import selection as sel
     from . import values as vl
 
     fs = fitset or fit_all(spec, cohort)
-    reps = None
-    if spec.analysis.interval == "bootstrap":
+    reps = replicates
+    if reps is None and spec.analysis.interval == "bootstrap":
         keep = (spec.values.outcome,) if spec.values else ()
         reps = run_bootstrap(fs, progress=progress, keep_distribution=keep)
     summaries = summarise(fs, reps)
@@ -508,8 +514,14 @@ def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | Non
     warnings = list(fs.cohort.warnings)
     for iv in fs.indices.values():
         warnings.extend(iv.warnings)
+    extra: dict[str, Any] = {"pairwise": pairwise, "checks": ck.checks_rows(fs) if spec.analysis.checks else [],
+                             "baseline": ck.baseline_table(fs.cohort) if spec.cohort.covariates else []}
+    clusters = ck.clustering(fs)
+    if clusters:
+        extra["clustering"] = clusters
+        warnings += clusters["warnings"]
+    extra["imputation"] = im.imputed_break_evens(fs, m=spec.analysis.imputations) if spec.analysis.imputations else []
     doc = res.document(spec, data_sha256=fs.cohort.sha256, spec_bytes=spec_bytes, rows=rows,
                        composite=vl.composite_rows(fs, composite) if composite else [],
-                       selection=selection.rows if selection else [], warnings=warnings,
-                       extra={"pairwise": pairwise})
+                       selection=selection.rows if selection else [], warnings=warnings, extra=extra)
     return Results(fs, summaries, doc, reps, composite, selection)

@@ -310,7 +310,7 @@ arm = "arm"
 arms = ["laparotomy", "non-operative"]
 allocation = "allocation"
 randomised = "randomised"
-cluster = "hospital"
+# cluster = "hospital" would give cluster-robust intervals, but six hospitals are too few clusters for them
 covariates = ["age", "sex", "cfs", "lactate", "albumin"]
 
 [[outcomes]]
@@ -423,7 +423,7 @@ others were treated as the clinician and patient chose.
 | column | meaning |
 |---|---|
 | pid | patient identifier (unique) |
-| hospital | hospital H1-H6 (the cluster) |
+| hospital | hospital H1-H6 (six are too few to serve as clusters for robust intervals, so the spec does not name a cluster column) |
 | allocation | `randomised` or `chosen` |
 | arm | `laparotomy` or `non-operative` |
 | age | years, 65-95 |

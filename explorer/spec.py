@@ -125,6 +125,8 @@ class AnalysisSpec:
     scheduler: str | None = None
     refit_index: bool = False
     grid: int = 200
+    checks: bool = True
+    imputations: int = 0
 
 
 @dataclass(frozen=True)
@@ -254,6 +256,9 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "scheduler": ("str", "tcp://host:port of an existing Dask scheduler (optional)."),
         "refit_index": ("bool", "Refit a prognostic index in each bootstrap replicate (default false)."),
         "grid": ("int", "Points along the index for curves (default 200)."),
+        "checks": ("bool", "Compute the trust checks: observed vs fitted, effect-modification test, horizon curve "
+                           "(default true)."),
+        "imputations": ("int", "Multiple imputations beside the complete-case analysis (0 = none, else 2-100)."),
     },
     "selection": {
         "covariates": ("list[str]", "Covariates of the propensity model for chosen patients."),
@@ -462,6 +467,7 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
         replicates=a.get("replicates", 1000), seed=a.get("seed", 1), shape=a.get("shape", "linear"),
         knots=a.get("knots", 4), bands=a.get("bands", "pointwise"), workers=a.get("workers", 1),
         scheduler=a.get("scheduler"), refit_index=a.get("refit_index", False), grid=a.get("grid", 200),
+        checks=a.get("checks", True), imputations=a.get("imputations", 0),
     )
     _choice(analysis.interval, INTERVALS, "analysis.interval", source)
     _choice(analysis.shape, SHAPES, "analysis.shape", source)
@@ -471,6 +477,9 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
     _range_check(analysis.replicates, 20, 100_000, "analysis.replicates", source)
     _range_check(analysis.workers, -1, 256, "analysis.workers", source)
     _range_check(analysis.grid, 20, 5000, "analysis.grid", source)
+    if analysis.imputations not in (0,) and not 2 <= analysis.imputations <= 100:
+        raise FulcrumError(f"'analysis.imputations' is {analysis.imputations}; use 0 (complete cases only) or 2 to "
+                           "100 imputations.", file=source, key="analysis.imputations", hint="For example 5 or 20.")
     if analysis.scheduler is not None and not analysis.scheduler.startswith("tcp://"):
         raise FulcrumError(f"'analysis.scheduler' should look like tcp://host:port, found '{analysis.scheduler}'.",
                            file=source, key="analysis.scheduler", hint="Give the Dask scheduler's address.")

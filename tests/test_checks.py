@@ -2,6 +2,8 @@
 the baseline table, checked against closed-form truths, statsmodels, lifelines, scipy and pandas."""
 from __future__ import annotations
 
+import dataclasses
+
 import json
 import math
 import warnings
@@ -354,9 +356,15 @@ def test_fitted_values_use_each_patients_own_covariates():
     np.testing.assert_allclose(ck.patient_fit(fit, d).measure(x), ref, atol=1e-10)
 
 
-def test_clustering_summary_counts_hospitals(demo_fits):
-    out = ck.clustering(demo_fits)
-    f = demo_fits.cohort.frame
+def test_clustering_summary_counts_hospitals(_demo_master):
+    spec = load_spec(_demo_master / "demo.toml")
+    spec = dataclasses.replace(spec, cohort=dataclasses.replace(spec.cohort, cluster="hospital"),
+                               outcomes=spec.outcomes[:1], indices=spec.indices[:1], values=None, selection=None)
+    fits = an.fit_all(spec)
+    no_cluster = dataclasses.replace(spec, cohort=dataclasses.replace(spec.cohort, cluster=None))
+    assert ck.clustering(an.fit_all(no_cluster)) is None
+    out = ck.clustering(fits)
+    f = fits.cohort.frame
     # pandas count of distinct hospitals; the demo has 6, fewer than 20, so it warns
     assert out["clusters"] == f.hospital.nunique() == 6
     assert out["clusters_per_arm"] == f.groupby("arm").hospital.nunique().to_dict()

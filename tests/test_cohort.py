@@ -389,7 +389,7 @@ def test_text_covariate_with_many_values_must_be_coded(write_case, text):
 
 
 def test_column_used_as_text_and_number(write_case, text):
-    err = _raise(write_case(text, edit=(('cluster = "hospital"', 'cluster = "sex"'),)))
+    err = _raise(write_case(text, edit=(('randomised = "randomised"\n', 'randomised = "randomised"\ncluster = "sex"\n'),)))
     assert "used both as text and as numbers" in str(err) and "cohort.cluster" in str(err)
 
 

@@ -673,20 +673,9 @@ def load_for(spec: Spec, data: bytes, filename: str):
 # ------------------------------------------------------------------------------------------
 def preview(data: bytes, filename: str, sheet: str | None = None) -> pd.DataFrame:
     """Every column of the file as text (the loader's own reader), so roles can be guessed before checking."""
-    from .cohort import FORMATS, _open
+    from .cohort import read_table
 
-    ext = Path(filename).suffix.lower()
-    if ext not in FORMATS:
-        raise FulcrumError(f"'{ext or 'no extension'}' files are not supported; Fulcrum reads {', '.join(FORMATS)}.",
-                           file=filename, hint="Save it as CSV (comma-separated), TSV, Excel .xlsx or Parquet.")
-    if not data:
-        raise FulcrumError("the file is empty (0 bytes).", file=filename,
-                           hint="Check that the file was saved or uploaded completely.")
-    header, read = _open(data, ext, filename, sheet)
-    import inspect
-
-    extra = (set(),) if len(inspect.signature(read).parameters) > 1 else ()
-    frame = pd.DataFrame(read(set(header), *extra))
+    frame = read_table(data, filename, sheet)
     if frame.empty:
         raise FulcrumError("the file has column names but no data rows.", file=filename,
                            hint="Add one row per patient under the header.")

@@ -139,6 +139,8 @@ def cmd_app(args: argparse.Namespace) -> int:
     if args.spec:
         cmd += ["--", "--spec", str(Path(args.spec).resolve())]
     env = dict(os.environ, STREAMLIT_BROWSER_GATHER_USAGE_STATS="false")
+    if os.name == "posix":  # become the server, so stopping `fulcrum app` stops Streamlit too
+        os.execve(sys.executable, cmd, env)
     return subprocess.call(cmd, env=env)
 
 

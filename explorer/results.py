@@ -69,7 +69,8 @@ def curve_row(pair, summary: CurveSummary, index_info: dict, n_points: int | Non
         "range": [r6(pair.x_range[0]), r6(pair.x_range[1])],
         "n": {arm: int(pair.fits[arm].n_) for arm in arms},
         "events": {arm: (None if pair.fits[arm].n_events_ is None else int(pair.fits[arm].n_events_)) for arm in arms},
-        "break_even": [b.to_json() for b in summary.break_even],
+        "break_even": [_with_percentile(b.to_json(), getattr(index_info, "cohort_values", None))
+                       for b in summary.break_even],
         "favours_throughout": summary.favours_throughout,
         "curve": pts,
         "clear_difference": [r.to_json() for r in summary.clear_difference],
@@ -81,14 +82,31 @@ def curve_row(pair, summary: CurveSummary, index_info: dict, n_points: int | Non
     }
 
 
-def index_info_json(iv) -> dict:
+class IndexInfo(dict):
+    """An index's JSON info that also carries the cohort's index values (not serialised), so curve_row
+    can place each break-even point as a cohort percentile."""
+
+    cohort_values: np.ndarray | None = None
+
+
+def index_info_json(iv) -> IndexInfo:
     info = dict(iv.info)
-    out = {"kind": info.get("kind"), "label": info.get("label"), "units": info.get("units"),
-           "discrete": bool(info.get("discrete", False)),
-           "percentiles": {str(k): r6(v) for k, v in (info.get("percentiles") or {}).items()}}
+    out = IndexInfo({"kind": info.get("kind"), "label": info.get("label"), "units": info.get("units"),
+                     "discrete": bool(info.get("discrete", False)),
+                     "percentiles": {str(k): r6(v) for k, v in (info.get("percentiles") or {}).items()}})
     if "prognostic" in info:
         out["prognostic"] = _jsonable(info["prognostic"])
+    out.cohort_values = np.asarray(iv.values, float)
     return out
+
+
+def _with_percentile(b: dict, cohort_values: np.ndarray | None) -> dict:
+    """The break-even JSON with `x_percentile`: the cohort percentile of its index value (ties count half)."""
+    if cohort_values is not None and b.get("x") is not None and np.isfinite(cohort_values).any():
+        from .indices import percentile_of
+
+        b["x_percentile"] = r6(percentile_of(cohort_values, b["x"]))
+    return b
 
 
 def _jsonable(obj: Any) -> Any:

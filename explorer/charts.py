@@ -963,13 +963,7 @@ def km_chart(fs: Any, outcome: str, *, index: str | None = None, between: tuple[
     colour = alt.Color("arm:N", scale=_arm_scale(arms), legend=ARM_LEGEND)
     unit = f" ({o.units})" if o.units else ""
     x = alt.X("time:Q", title=f"time{unit}")
-    layers = [_chart(df).mark_area(opacity=0.18, interpolate="step-after").encode(
-                  x=x, y=alt.Y("lower:Q", title="probability alive", scale=alt.Scale(domain=[0, 1])),
-                  y2=alt.Y2("upper"), color=colour),
-              _chart(df).mark_line(strokeWidth=3, interpolate="step-after").encode(
-                  x=x, y=alt.Y("survival:Q"), color=colour,
-                  tooltip=[alt.Tooltip("arm:N"), alt.Tooltip("time:Q", format=".4~g"),
-                           alt.Tooltip("survival:Q", format=".3f")])]
+    layers = _km_steps(df, x, colour, 3)
     if o.horizon:
         layers.append(_chart(pd.DataFrame([{"t": float(o.horizon)}])).mark_rule(color=INK, strokeDash=[5, 4])
                       .encode(x=alt.X("t:Q")))
@@ -1482,6 +1476,18 @@ def _km_rows(curves: Iterable[Mapping[str, Any]], band: str | None) -> list[Mapp
     return [c for c in curves if (c.get("band") or {}).get("label") == band]
 
 
+def _km_steps(steps: pd.DataFrame, x: alt.X, colour: alt.Color, width: float) -> list[alt.Chart]:
+    """Kaplan-Meier steps per arm (time, survival, lower, upper, arm): the interval band and the curve."""
+    return [_chart(steps).mark_area(opacity=0.18, interpolate="step-after").encode(
+                x=x, y=alt.Y("lower:Q", title="probability alive", scale=alt.Scale(domain=[0, 1])),
+                y2=alt.Y2("upper"), color=colour),
+            _chart(steps).mark_line(strokeWidth=width, interpolate="step-after").encode(
+                x=x, y=alt.Y("survival:Q"), color=colour,
+                tooltip=[alt.Tooltip("arm:N"), alt.Tooltip("time:Q", format=".4~g"),
+                         alt.Tooltip("survival:Q", format=".3f"), alt.Tooltip("lower:Q", format=".3f"),
+                         alt.Tooltip("upper:Q", format=".3f")])]
+
+
 def _km_panel(rows: Sequence[Mapping[str, Any]], arms: Sequence[str], *, units: str | None, horizon: float | None,
               size: tuple[float, float], title: str | None = None) -> alt.VConcatChart:
     """Kaplan-Meier steps with their bands, and the numbers at risk in rows beneath on the same time axis."""
@@ -1494,14 +1500,7 @@ def _km_panel(rows: Sequence[Mapping[str, Any]], arms: Sequence[str], *, units: 
     xs = alt.Scale(domain=[-0.05 * top_t, 1.02 * top_t], nice=False, zero=False)
     unit = f" ({units})" if units else ""
     x = alt.X("time:Q", scale=xs, title=None)
-    layers = [_chart(steps).mark_area(opacity=0.18, interpolate="step-after").encode(
-                  x=x, y=alt.Y("lower:Q", title="probability alive", scale=alt.Scale(domain=[0, 1])),
-                  y2=alt.Y2("upper"), color=colour),
-              _chart(steps).mark_line(strokeWidth=2.5, interpolate="step-after").encode(
-                  x=x, y=alt.Y("survival:Q"), color=colour,
-                  tooltip=[alt.Tooltip("arm:N"), alt.Tooltip("time:Q", format=".4~g"),
-                           alt.Tooltip("survival:Q", format=".3f"), alt.Tooltip("lower:Q", format=".3f"),
-                           alt.Tooltip("upper:Q", format=".3f")])]
+    layers = _km_steps(steps, x, colour, 2.5)
     if horizon:
         layers.append(_chart(pd.DataFrame([{"time": float(horizon)}])).mark_rule(color=INK, strokeDash=[5, 4])
                       .encode(x=alt.X("time:Q", scale=xs)))

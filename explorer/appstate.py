@@ -509,6 +509,7 @@ class Workspace:
     results: LRU = field(default_factory=lambda: LRU(12))
     replicates: LRU = field(default_factory=lambda: LRU(2))
     n_fits: int = 0
+    trust: LRU = field(default_factory=lambda: LRU(32))
 
     @property
     def data_sha256(self) -> str:
@@ -526,6 +527,7 @@ class Workspace:
             return dataclasses.replace(self, spec=spec, notes=[])
         new = Workspace.open(self.data, self.filename, spec, is_demo=self.is_demo)
         new.fits, new.results, new.replicates, new.n_fits = self.fits, self.results, self.replicates, self.n_fits
+        new.trust = self.trust
         return new
 
     def _key(self, *parts: Any) -> tuple:
@@ -570,9 +572,10 @@ class Workspace:
     def _reps(self, bootstrap: bool) -> list[dict] | None:
         return self.replicates.take(self.boot_key()) if bootstrap else None
 
-    def _cached(self, key: tuple, make: Callable[[], Any]) -> Any:
-        found = self.results.take(key)
-        return found if found is not None else self.results.put(key, make())
+    def _cached(self, key: tuple, make: Callable[[], Any], store: LRU | None = None) -> Any:
+        store = self.results if store is None else store
+        found = store.take(key)
+        return found if found is not None else store.put(key, make())
 
     # -- what the pages show -----------------------------------------------------------------
     def curve_rows(self, bootstrap: bool = True) -> list[dict]:
@@ -645,6 +648,56 @@ class Workspace:
             return analyse(spec, fitset=fs, **extra)
 
         return self._cached(key, make)
+
+    # -- can the curves be trusted? ------------------------------------------------------------
+    def checks(self) -> list[dict]:
+        """The JSON `checks` rows (observed vs fitted, calibration, sliding windows, effect modification,
+        break-even by horizon) for the current fits, margin and level; [] when the spec switches them off."""
+        from .checks import checks_rows
+
+        if not self.spec.analysis.checks:
+            return []
+        a = self.spec.analysis
+        key = self._key("checks", a.margin, a.level)
+        return self._cached(key, lambda: checks_rows(self.fitset()), self.trust)
+
+    def _unfitted(self):
+        """The cohort and its indices as a FitSet without fits, for what needs no model."""
+        from .analysis import FitSet
+
+        return FitSet(self.spec, self.cohort, self.index_values(), {})
+
+    def km_curves(self, outcome: str, index: str | None = None, bands: int = 5) -> list[dict]:
+        """Kaplan-Meier curves per arm, overall and (with an index) per band of it, with numbers at risk."""
+        from .checks import km_curves
+
+        key = self._key("km", outcome, index, bands, self.spec.analysis.level)
+        ivs = self.index_values()
+        return self._cached(key, lambda: km_curves(self.cohort, outcome, ivs[index] if index else None,
+                                                   bands=bands if index else None, level=self.spec.analysis.level),
+                            self.trust)
+
+    def baseline(self) -> list[dict]:
+        """The baseline table by arm and allocation with standardised mean differences ([] without covariates)."""
+        from .checks import baseline_table
+
+        if not self.spec.cohort.covariates:
+            return []
+        key = self._key("baseline")
+        return self._cached(key, lambda: baseline_table(self.cohort), self.trust)
+
+    def coverage(self, index: str) -> list[dict]:
+        """Patients per window of the index by arm and allocation ([] without an allocation column)."""
+        from .selection import randomised_coverage
+
+        key = self._key("coverage", index)
+        return self._cached(key, lambda: randomised_coverage(self._unfitted(), index), self.trust)
+
+    def clustering(self) -> dict | None:
+        """Which clustered intervals the analysis uses and over how many clusters (None without a cluster column)."""
+        from .checks import clustering
+
+        return clustering(self._unfitted())
 
 
 def _interval(spec: Spec, interval: str) -> Spec:

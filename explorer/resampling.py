@@ -119,11 +119,12 @@ def _run_dask(task, seeds, scheduler: str, progress: Progress | None) -> list[An
     try:
         n = len(seeds)
         blocks = [list(b) for b in np.array_split(np.arange(n), min(n, 64))]
-        futures = [client.submit(_run_block, task, [seeds[i] for i in b], pure=False) for b in blocks]
+        shared = client.scatter(task, broadcast=True, hash=False)
+        futures = [client.submit(_run_block, shared, [seeds[i] for i in b], pure=False) for b in blocks]
         order = {f.key: k for k, f in enumerate(futures)}
         results: list[list[Any] | None] = [None] * len(blocks)
         done = 0
-        for fut in as_completed(futures):
+        for fut in as_completed(futures, loop=client.loop):
             k = order[fut.key]
             results[k] = fut.result()
             done += len(blocks[k])

@@ -1,6 +1,7 @@
 """Two-index decision maps checked against statsmodels fits, closed-form truths and the one-index analysis."""
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 from pathlib import Path
@@ -280,3 +281,54 @@ def test_indices_on_one_line_are_refused(tmp_path):
     fs = _fitset(tmp_path, frame)
     with pytest.raises(FulcrumError, match="determined by the other terms|lie on one line"):
         maps.decision_map(fs, MapSpec(("a", "b"), "event"))
+
+
+def test_report_sections_carry_the_map_chart_sentence_and_coefficients(tmp_path):
+    # Reference: the report's own escaping (markupsafe, as Jinja autoescapes) of the map's sentence, and the
+    # coefficients of the fitted two-index models.
+    from markupsafe import escape
+
+    from explorer.report import render_report
+
+    rng = np.random.default_rng(6)
+    _fitset(tmp_path, _logit_cohort(rng, 300, {"alpha": (0.25, -0.25, 0.15), "beta": (-0.25, -0.05, 0.05)}))
+    spec = load_spec(tmp_path / "spec.toml")
+    spec = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, checks=False))
+    result = an.analyse(spec)
+    result.document["maps"] = maps.decision_maps(result.fitset, n=25)
+    sections = maps.map_sections(result.document)
+    assert len(sections) == 1
+    html = render_report(result, extra_sections=sections, points=0)
+    assert str(escape(sections[0]["title"])) in html
+    assert str(escape(maps.describe_map(result.document["maps"][0], ARMS))) in html
+    fit = maps.prepare_map(result.fitset, spec.maps[0]).anchor.fits["alpha"]
+    assert set(sections[0]["table"]["estimate"]) >= {round(float(v), 6) for v in fit.params_}
+
+
+# ------------------------------------------------------------------------------------------
+# The app page, driven by Streamlit's AppTest on the invented demo
+# ------------------------------------------------------------------------------------------
+def test_two_indices_page_runs_on_the_demo_and_shows_the_patient_placed_on_the_patient_page():
+    # Reference: the engine's own map for the same choice (explorer.maps.decision_map on the app's fits).
+    from streamlit.testing.v1 import AppTest
+
+    app = Path(__file__).resolve().parents[1] / "pages" / "app.py"
+    at = AppTest.from_file(str(app), default_timeout=240)
+    at.run()
+    at.switch_page("page_maps.py").run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert not at.error, [e.value for e in at.error]
+    ws = at.session_state["workspace"]
+    assert [s.value for s in at.selectbox[:3]] == ["cfs", "physiology", "composite"]
+    shown = "\n".join(str(m.value) for m in at.markdown)
+    row = maps.decision_map(ws.fitset(), MapSpec(("cfs", "physiology"), "composite"),
+                            weights=ws.spec.values.weights)
+    assert maps.describe_map(row, ws.spec.cohort.arms) in shown
+    at.switch_page("page_patient.py").run()
+    at.radio[0].set_value("Pick a patient from the cohort").run()
+    at.switch_page("page_maps.py").run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert "This patient" in "\n".join(str(m.value) for m in at.markdown)
+    at.checkbox[0].check().run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert "This patient" in "\n".join(str(m.value) for m in at.markdown)

@@ -9,6 +9,7 @@ import csv
 import difflib
 import hashlib
 import io
+import unicodedata
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -218,7 +219,7 @@ def _open_text(data: bytes, sep: str, file: str) -> tuple[list[str], Opener]:
         for other, word in found.items():
             if other != sep and other in header[0]:
                 expected = "tabs" if sep == "\t" else "commas"
-                raise FulcrumError(f"wrong delimiter: the first line has one column, '{header[0][:60]}', "
+                raise FulcrumError(f"wrong delimiter: the first line has one column, '{_cut(header[0], 60)}', "
                                    f"which looks like values separated by {word}, but a {file.rsplit('.', 1)[-1]} "
                                    f"file is read with {expected}.", file=file,
                                    hint="Save the file with commas as .csv, or with tabs as .tsv.")
@@ -303,8 +304,9 @@ def _arrow_text(col: pa.ChunkedArray, numeric: bool) -> pd.Series:
 
 
 def _cut(value: object, width: int = 40) -> str:
-    """A cell as shown in a message: long cells are cut, so one runaway cell cannot flood the message."""
-    text = str(value)
+    """A cell as shown in a message: control and format characters (terminal escapes, bidi overrides) are
+    spelled out, and long cells are cut, so a hostile cell can neither drive a terminal nor flood the message."""
+    text = "".join(f"\\u{ord(c):04x}" if unicodedata.category(c) in ("Cc", "Cf") else c for c in str(value))
     return text if len(text) <= width else text[:width - 3] + "..."
 
 
@@ -341,7 +343,7 @@ def _open_xlsx(data: bytes, file: str, sheet: str | None) -> tuple[list[str], Op
         close = difflib.get_close_matches(sheet, names, n=1, cutoff=0.4)
         raise FulcrumError(f"the workbook has no sheet '{sheet}'; its sheets are {', '.join(map(repr, names))}.",
                            file=file, key="cohort.sheet",
-                           hint=f"Did you mean '{close[0]}'?" if close else "Name one of the sheets listed.")
+                           hint=f"Did you mean '{_cut(close[0])}'?" if close else "Name one of the sheets listed.")
     rows = book[sheet or names[0]].iter_rows(values_only=True)
     first = next(rows, None)
     if first is None or all(v is None for v in first):
@@ -430,7 +432,7 @@ def _check_header(header: list[str], roles: dict[str, list[tuple[str, str]]], fi
                                                                                             cutoff=0.6)
             parts.append(f"'{c}' (named by {roles[c][0][1]})" +
                          (f" - did you mean {' or '.join(repr(x) for x in close)}?" if close else ""))
-        listed = ", ".join(list(seen)[:30]) + (" ..." if len(seen) > 30 else "")
+        listed = ", ".join(_cut(h) for h in list(seen)[:30]) + (" ..." if len(seen) > 30 else "")
         raise FulcrumError(f"the file has no column {'; no column '.join(parts)}.", file=file, column=absent[0],
                            key=roles[absent[0]][0][1],
                            hint=f"Correct the name in the spec or in the file. Columns in the file: {listed}.")
@@ -531,7 +533,8 @@ class _Checker:
                             hint="Code it as numbers (for example one 0/1 column per category) and name those "
                                  "columns in the spec.")
         zero, one = sorted(counts.index)
-        self.notes.append(f"covariate '{col}' is text with two values: coded '{one}' = 1, '{zero}' = 0.")
+        self.notes.append(f"covariate '{col}' is text with two values: coded '{_cut(one)}' = 1, "
+                          f"'{_cut(zero)}' = 0.")
         return s.map({zero: 0.0, one: 1.0}).astype(float)
 
     def zero_one(self, col: str, event: bool) -> pd.Series:
@@ -627,8 +630,9 @@ class _Checker:
         if not is_rand.any():
             close = [v for v in counts.index if str(v).strip().lower() == marker.lower()]
             if close:
-                raise self.fail(f"no cell reads '{marker}' exactly, but {counts[close[0]]} read '{close[0]}'.", col,
-                                hint=f'Set randomised = "{close[0]}" in [cohort], or correct the file.')
+                raise self.fail(f"no cell reads '{marker}' exactly, but {counts[close[0]]} read "
+                                f"'{_cut(close[0])}'.", col,
+                                hint=f'Set randomised = "{_cut(close[0])}" in [cohort], or correct the file.')
             self.warnings.append(f"no patient is marked '{marker}' in column '{col}', so every patient counts as "
                                  "chosen and randomised-only analyses are not possible.")
         return is_rand

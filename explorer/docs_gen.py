@@ -1,0 +1,680 @@
+"""Generate docs/spec-reference.md from the spec's own definitions and the results document's fields.
+
+    python -m explorer.docs_gen            # write docs/spec-reference.md
+    python -m explorer.docs_gen --check    # exit 1 when the committed file differs from the generated text
+    python -m explorer.docs_gen --images test-artefacts/screenshots   # crop the browser test's screenshots
+
+The spec part reads `explorer.spec.SCHEMA`, `REQUIRED` and the dataclass defaults; the results part walks
+`explorer/schema/results.schema.json` and describes every field from `RESULT_FIELDS`, so neither can drift.
+"""
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import sys
+from pathlib import Path
+from typing import Any, Iterable
+
+from . import results as res
+from . import spec as sp
+
+ROOT = Path(__file__).resolve().parents[1]
+DOCS = ROOT / "docs"
+REFERENCE = DOCS / "spec-reference.md"
+
+SECTION_CLASSES = {"cohort": sp.CohortSpec, "outcomes": sp.OutcomeSpec, "indices": sp.IndexSpec,
+                   "prognostic": sp.PrognosticSpec, "values": sp.ValuesSpec, "analysis": sp.AnalysisSpec,
+                   "selection": sp.SelectionSpec, "pairwise": sp.PairwiseSpec, "maps": sp.MapSpec}
+SECTION_HEADS = {
+    "cohort": ("[cohort]", "The cohort file and which columns hold the arm, the allocation and the patient."),
+    "outcomes": ("[[outcomes]]", "One table per outcome; each is fitted in each arm along every index."),
+    "indices": ("[[indices]]", "One table per index; give exactly one of column, formula or prognostic."),
+    "prognostic": ("prognostic = { ... } inside [[indices]]", "A cross-fitted prognostic index."),
+    "values": ("[values]", "Value weights for the states of an ordinal outcome, and the composites built from them."),
+    "analysis": ("[analysis]", "Margin, interval level and method, seed, curve shape and resampling."),
+    "selection": ("[selection]", "Randomised versus chosen patients (needs cohort.allocation)."),
+    "pairwise": ("[pairwise]", "The hierarchical pairwise comparison (win ratio, win odds, net benefit)."),
+    "maps": ("[[maps]]", "Two indices at once. Read and checked, but this version computes no maps from them."),
+}
+TYPE_WORDS = {"str": "text", "path": "file path", "float": "number", "int": "whole number", "bool": "true / false",
+              "list[str]": "list of texts", "list[float]": "list of numbers", "table[float]": "table of numbers",
+              "table[range]": "table of [low, high]", "table": "inline table"}
+
+# --------------------------------------------------------------------------------------------------
+# The results document: every field, by path. "[]" marks a list's items; "<arm>", "<level>" and the
+# like mark tables keyed by the analysis's own names. Paths listed in ALIASES share the description of
+# the path they map to (a composite row is shaped like a results row; break-evens look alike everywhere).
+# --------------------------------------------------------------------------------------------------
+RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
+    ("top", "The document", [
+        ("schema_version", "Version of this document's layout (1). Fields may be added, never renamed."),
+        ("tool", "Which program wrote the document."),
+        ("tool.name", "Always \"fulcrum\"."),
+        ("tool.version", "Fulcrum's version."),
+        ("tool.generated_at", "When the document was written (UTC, ISO 8601). The only field that differs "
+                              "between two runs of the same spec on the same data."),
+        ("inputs", "What went in, so a reader can check they hold the same inputs."),
+        ("inputs.spec_sha256", "SHA-256 of the spec file's bytes (or of the spec as written back to TOML when "
+                               "it came from the app)."),
+        ("inputs.data_sha256", "SHA-256 of the cohort file's bytes."),
+        ("inputs.spec_canonical_sha256", "SHA-256 of the parsed spec as sorted JSON, defaults filled in: a spec "
+                                         "saved by the app and the same spec typed by hand hash the same."),
+        ("inputs.seed", "The seed every random step starts from ([analysis] seed)."),
+        ("inputs.interval", "analytic or bootstrap ([analysis] interval)."),
+        ("inputs.level", "The interval level, e.g. 0.95."),
+        ("inputs.margin", "The margin the break-even points and clear-difference regions use."),
+        ("arms", "The two arm labels, first then second; every difference is first minus second."),
+        ("spec", "The spec as parsed, defaults filled in, as TOML-shaped data (see the spec reference above)."),
+        ("results", "One row per outcome x index (see Results rows)."),
+        ("composite", "One row per composite x index, shaped like a results row with a few more fields "
+                      "(see Composite rows). Empty without [values]."),
+        ("selection", "One row per outcome x index x arm comparing randomised and chosen patients (see Selection "
+                      "rows). Empty without an allocation column."),
+        ("pairwise", "Hierarchical pairwise comparison rows (see Pairwise rows). Empty without [pairwise]."),
+        ("checks", "One row of trust checks per outcome x index (see Checks rows). Empty when [analysis] "
+                   "checks = false."),
+        ("maps", "Reserved for two-index maps; this version does not write it."),
+        ("baseline", "Baseline table of the cohort covariates (see Baseline rows). Empty without cohort.covariates."),
+        ("clustering", "Present only with cohort.cluster: which clustered intervals were used and over how many "
+                       "clusters."),
+        ("clustering.column", "The cluster column."),
+        ("clustering.clusters", "Number of clusters."),
+        ("clustering.clusters_per_arm", "Clusters per arm, by arm label."),
+        ("clustering.method", "Cluster-robust (sandwich) variances with analytic intervals; whole clusters "
+                              "resampled with the bootstrap."),
+        ("clustering.warnings", "Sentences: the checks ignore the clusters; fewer than 20 clusters make clustered "
+                                "intervals too narrow."),
+        ("imputation", "Multiple-imputation rows (see Imputation rows). Empty when [analysis] imputations = 0."),
+        ("warnings", "Sentences about the cohort and the indices (missing values, rows left out, index notes)."),
+        ("cautions", "The cautions, shown with every estimate: a research and discussion aid, not a medical "
+                     "device."),
+    ]),
+    ("row", "Results rows (one outcome along one index)", [
+        ("results[].outcome", "The outcome's name in the spec."),
+        ("results[].index", "The index's name in the spec."),
+        ("results[].measure", "The measure compared, in words (e.g. probability alive at 365 days)."),
+        ("results[].kind", "The outcome kind: survival, ordinal, binary or continuous (for composites: ordinal, "
+                           "survival_function or quality_adjusted)."),
+        ("results[].higher_is_better", "Whether a higher measure is better; differences are oriented so that "
+                                       "above zero favours the first arm."),
+        ("results[].among_survivors", "True when the outcome is measured only in survivors."),
+        ("results[].range", "The observed index range [low, high] of the patients with this outcome."),
+        ("results[].n", "Patients fitted per arm (complete cases), by arm label."),
+        ("results[].events", "Events per arm for survival outcomes (null otherwise), by arm label."),
+        ("results[].break_even", "Every break-even point found (see Break-even points); empty when the arms "
+                                 "do not break even in the searched range."),
+        ("results[].favours_throughout", "With no break-even point, the arm favoured over the whole range; else "
+                                         "null."),
+        ("results[].curve", "The curves on the grid within the observed range (see Curve points)."),
+        ("results[].clear_difference", "Clear-difference regions (see Regions); the search grid runs 10% past "
+                                       "the observed range, so a region may start or end there."),
+        ("results[].regions_band", "pointwise or simultaneous: which band the regions (and difference_ci) use."),
+        ("results[].index_info", "About the index (see Index information)."),
+        ("results[].reference", "Values at which adjustment covariates are held in the curves, by covariate "
+                                "(empty without adjust)."),
+        ("results[].methods", "One sentence per arm naming the model fitted, by arm label."),
+        ("results[].warnings", "Sentences about this outcome along this index (patients left out, thin data, "
+                               "model doubts, extrapolation)."),
+    ]),
+    ("composite", "Composite rows (the extra fields; the rest as in results rows, outcome = \"composite\")", [
+        ("composite[].values_outcome", "The ordinal outcome whose states are weighted."),
+        ("composite[].weights", "The weight of each state, by level name."),
+        ("composite[].preset", "The preset the weights started from, or null for the user's own weights."),
+        ("composite[].preset_source", "Where the preset's weights come from, or null."),
+        ("composite[].whose", "Whose values the weights are: patient, proxy or team."),
+        ("composite[].notes", "Sentences: how the composite is built and its caveats (e.g. conditional on "
+                              "survival)."),
+        ("composite[].thresholds", "Threshold analysis at one index value (null when not computed)."),
+        ("composite[].thresholds.x", "The index value analysed (default: the median of the patients)."),
+        ("composite[].thresholds.difference", "The composite difference (first minus second) there."),
+        ("composite[].thresholds.margin", "The margin used."),
+        ("composite[].thresholds.favours", "The arm the current weights favour there."),
+        ("composite[].thresholds.states", "One entry per state."),
+        ("composite[].thresholds.states[].level", "The state."),
+        ("composite[].thresholds.states[].weight", "Its current weight."),
+        ("composite[].thresholds.states[].flip_weight", "The weight at which the favoured arm changes, others "
+                                                        "held fixed; null when no weight in [-1, 1] changes it."),
+        ("composite[].thresholds.states[].effect_per_unit", "How much the difference moves per unit of this "
+                                                            "weight."),
+        ("composite[].thresholds.states[].favours_above", "The arm favoured when the weight is above flip_weight."),
+        ("composite[].thresholds.states[].favours_below", "The arm favoured when the weight is below flip_weight."),
+        ("composite[].thresholds.states[].message", "The same in one sentence."),
+        ("composite[].acceptability", "Along the index, the share of weight draws (combined with model "
+                                      "uncertainty) under which each arm comes out ahead (null when not "
+                                      "computed)."),
+        ("composite[].acceptability[].x", "Index value."),
+        ("composite[].acceptability[].first", "Share of draws favouring the first arm."),
+        ("composite[].acceptability[].second", "Share of draws favouring the second arm."),
+    ]),
+    ("break_even", "Break-even points (the same fields wherever a break-even appears)", [
+        ("results[].break_even[].x", "The index value where first minus second equals the margin."),
+        ("results[].break_even[].x_percentile", "The cohort percentile of x (the share of the cohort's index "
+                                                "values below it, ties counted half)."),
+        ("results[].break_even[].ci", "Its interval [low, high]; null ends are unbounded. For two_rays the set "
+                                      "is everything up to low and everything from high."),
+        ("results[].break_even[].interval", "The method: fieller, delta or bootstrap-percentile (rubin-fieller or "
+                                            "rubin-delta in imputation rows)."),
+        ("results[].break_even[].interval_shape", "finite, unbounded_below, unbounded_above, unbounded or "
+                                                  "two_rays."),
+        ("results[].break_even[].extrapolated", "True when the point lies outside the observed index range."),
+        ("results[].break_even[].favours_below", "The arm favoured just below the point."),
+        ("results[].break_even[].favours_above", "The arm favoured just above the point."),
+        ("results[].break_even[].no_root_share", "Bootstrap only: share of replicates with no break-even near "
+                                                 "this one (counted as beyond the searched range); else null."),
+        ("results[].break_even[].coverage", "Coverage of this interval method measured by simulation, a "
+                                            "proportion, or null when not measured."),
+        ("results[].break_even[].coverage_n", "The simulated cohort size that coverage comes from."),
+        ("results[].break_even[].approximate", "True when the measured coverage lies outside 93.5-96.5%."),
+        ("results[].break_even[].df", "Imputation rows: degrees of freedom from Rubin's rules."),
+        ("results[].break_even[].missing_information", "Imputation rows: share of the variance due to missing "
+                                                       "data."),
+        ("results[].break_even[].per_imputation", "Imputation rows: the break-even point in each imputed "
+                                                  "cohort."),
+    ]),
+    ("curve", "Curve points", [
+        ("results[].curve[].x", "Index value."),
+        ("results[].curve[].first", "The first arm's measure (as the outcome defines it, not flipped)."),
+        ("results[].curve[].second", "The second arm's measure."),
+        ("results[].curve[].difference", "First minus second, oriented so that higher is better."),
+        ("results[].curve[].difference_ci", "Interval of the difference (the band named by regions_band)."),
+        ("results[].curve[].first_ci", "Pointwise interval of the first arm's measure."),
+        ("results[].curve[].second_ci", "Pointwise interval of the second arm's measure."),
+        ("results[].curve[].randomised_sparse", "True where randomised patients are few."),
+    ]),
+    ("region", "Regions", [
+        ("results[].clear_difference[].from", "Where the region starts on the index."),
+        ("results[].clear_difference[].to", "Where it ends."),
+        ("results[].clear_difference[].favours", "The arm the difference clearly favours there."),
+    ]),
+    ("index_info", "Index information", [
+        ("results[].index_info.kind", "column, formula or prognostic."),
+        ("results[].index_info.label", "The index's readable name."),
+        ("results[].index_info.units", "Its units, or null."),
+        ("results[].index_info.discrete", "True when the index takes whole levels only (e.g. a frailty scale)."),
+        ("results[].index_info.percentiles", "Cohort percentiles of the index, by percentile (5, 25, 50, 75, 95)."),
+        ("results[].index_info.prognostic", "Prognostic indices only: the cross-fitted model behind the index."),
+        ("results[].index_info.prognostic.outcome", "The outcome it predicts."),
+        ("results[].index_info.prognostic.model", "The model (Cox, proportional odds, logistic or linear)."),
+        ("results[].index_info.prognostic.scale", "The scale of the index (e.g. log hazard)."),
+        ("results[].index_info.prognostic.fit_on", "second (fitted on the second arm) or all."),
+        ("results[].index_info.prognostic.folds", "Number of cross-fitting folds."),
+        ("results[].index_info.prognostic.seed", "Seed of the fold assignment."),
+        ("results[].index_info.prognostic.n_fit", "Patients in the fitting set."),
+        ("results[].index_info.prognostic.n_events", "Events in the fitting set (survival), or null."),
+        ("results[].index_info.prognostic.coefficients", "The model's coefficients."),
+        ("results[].index_info.prognostic.coefficients[].name", "Covariate."),
+        ("results[].index_info.prognostic.coefficients[].estimate", "Coefficient."),
+        ("results[].index_info.prognostic.coefficients[].se", "Its standard error."),
+        ("results[].index_info.prognostic.coefficients[].ci", "Its interval."),
+        ("results[].index_info.prognostic.intercept", "The intercept, or null (Cox)."),
+        ("results[].index_info.prognostic.centre", "The covariate values the model is centred at, by covariate."),
+        ("results[].index_info.prognostic.orientation", "One sentence saying what a higher index means (higher = "
+                                                        "worse prognosis)."),
+        ("results[].index_info.prognostic.c_index", "Harrell's concordance of the out-of-fold index."),
+        ("results[].index_info.prognostic.c_index.estimate", "C."),
+        ("results[].index_info.prognostic.c_index.se", "Its standard error."),
+        ("results[].index_info.prognostic.c_index.ci", "Its interval."),
+        ("results[].index_info.prognostic.c_index.level", "The interval level."),
+        ("results[].index_info.prognostic.c_index.comparable_pairs", "Number of comparable pairs."),
+        ("results[].index_info.prognostic.c_index.method", "How it was computed."),
+        ("results[].index_info.prognostic.calibration_slope", "Calibration slope of the out-of-fold index."),
+        ("results[].index_info.prognostic.calibration_slope.estimate", "Slope (1 = well calibrated)."),
+        ("results[].index_info.prognostic.calibration_slope.se", "Its standard error."),
+        ("results[].index_info.prognostic.calibration_slope.ci", "Its interval."),
+        ("results[].index_info.prognostic.calibration_slope.level", "The interval level."),
+        ("results[].index_info.prognostic.calibration_slope.method", "How it was computed."),
+        ("results[].index_info.prognostic.converged", "Whether every fold model converged."),
+        ("results[].index_info.prognostic.method", "The model in one sentence."),
+    ]),
+    ("selection", "Selection rows (randomised versus chosen patients, one arm)", [
+        ("selection[].outcome", "The outcome's name."),
+        ("selection[].index", "The index's name."),
+        ("selection[].arm", "The arm compared within."),
+        ("selection[].measure", "The measure in words."),
+        ("selection[].effect", "Selection effect: chosen minus randomised measure in this arm, averaged over the "
+                               "index values of this arm's randomised patients."),
+        ("selection[].ci", "Its interval."),
+        ("selection[].p_value", "Wald test that it is zero."),
+        ("selection[].effect_interval", "delta, or bound (assumes perfectly correlated errors along the index, "
+                                        "so errs wide)."),
+        ("selection[].effect_over", "Which index values the effect is averaged over, in words."),
+        ("selection[].varies_with_index_p", "Likelihood-ratio test that the selection effect changes along the "
+                                            "index."),
+        ("selection[].varies_with_index", "That test's statistic and degrees of freedom."),
+        ("selection[].varies_with_index.statistic", "Likelihood-ratio statistic."),
+        ("selection[].varies_with_index.df", "Degrees of freedom."),
+        ("selection[].randomised_break_even", "Break-even points from randomised patients only."),
+        ("selection[].all_break_even", "Break-even points from all patients (the main analysis)."),
+        ("selection[].adjusted_break_even", "Break-even points from chosen patients weighted by the propensity "
+                                            "model (target: chosen patients)."),
+        ("selection[].shift", "All-patient minus randomised-only break-even point."),
+        ("selection[].shift_ci", "Its interval."),
+        ("selection[].shift_interval", "delta or bootstrap-percentile (null when there is no interval)."),
+        ("selection[].shift_replicates", "Bootstrap replicates behind shift_ci, or null."),
+        ("selection[].shift_no_root_share", "Share of replicates where a curve had no break-even, or null."),
+        ("selection[].n_randomised", "Randomised patients in this arm."),
+        ("selection[].n_chosen", "Chosen patients in this arm."),
+        ("selection[].balance", "Covariate balance of the chosen patients before and after weighting."),
+        ("selection[].balance[].covariate", "Covariate (text covariates as indicator columns)."),
+        ("selection[].balance[].smd_before", "Standardised mean difference between the arms before weighting."),
+        ("selection[].balance[].smd_after", "The same after weighting."),
+        ("selection[].balance[].flag_before", "True when |SMD| > 0.1 before weighting."),
+        ("selection[].balance[].flag_after", "True when |SMD| > 0.1 after weighting."),
+        ("selection[].adjusted", "The weighting behind adjusted_break_even."),
+        ("selection[].adjusted.target", "The population the weights stand for (chosen patients)."),
+        ("selection[].adjusted.method", "The weighting in one sentence."),
+        ("selection[].adjusted.covariates", "Covariates of the propensity model."),
+        ("selection[].adjusted.propensity", "The propensity model of receiving the first arm."),
+        ("selection[].adjusted.propensity.intercept", "Its intercept."),
+        ("selection[].adjusted.propensity.coefficients", "Its coefficients, by design column."),
+        ("selection[].adjusted.truncated_at", "The weights at the truncation percentiles [low, high]."),
+        ("selection[].adjusted.n_truncated", "Patients whose weight was truncated."),
+        ("selection[].adjusted.n", "Chosen patients weighted, by arm."),
+        ("selection[].adjusted.effective_n", "Effective sample size after weighting, by arm."),
+        ("selection[].adjusted.note", "What weighting can and cannot fix, in words."),
+        ("selection[].e_value", "E-value of the weighted comparison (null when it does not apply, e.g. RMST)."),
+        ("selection[].e_value.comparison", "What is compared."),
+        ("selection[].e_value.scale", "The scale of the estimate (risk ratio, or standardised difference)."),
+        ("selection[].e_value.estimate", "The weighted estimate on that scale, averaged over the chosen patients."),
+        ("selection[].e_value.ci", "Its interval."),
+        ("selection[].e_value.interval", "delta or bound."),
+        ("selection[].e_value.kind", "The conversion to a risk ratio (rr, or_common, hr_common, smd, ...)."),
+        ("selection[].e_value.rr", "The estimate as a risk ratio."),
+        ("selection[].e_value.rr_ci", "Its interval."),
+        ("selection[].e_value.e_value", "The E-value of the estimate."),
+        ("selection[].e_value.e_value_ci", "The E-value of the interval limit closest to 1 (1 when the interval "
+                                           "includes 1)."),
+        ("selection[].e_value.at", "The same at the quartiles of the chosen patients' index values."),
+        ("selection[].e_value.at[].x", "Index value."),
+        ("selection[].e_value.at[].quantile", "Its quantile (0.25, 0.5, 0.75)."),
+        ("selection[].e_value.at[].estimate", "Estimate there."),
+        ("selection[].e_value.at[].ci", "Its interval."),
+        ("selection[].e_value.at[].kind", "Conversion to a risk ratio."),
+        ("selection[].e_value.at[].rr", "As a risk ratio."),
+        ("selection[].e_value.at[].rr_ci", "Its interval."),
+        ("selection[].e_value.at[].e_value", "E-value of the estimate."),
+        ("selection[].e_value.at[].e_value_ci", "E-value of the limit closest to 1."),
+        ("selection[].e_value.note", "What an E-value means, in one sentence."),
+        ("selection[].curve", "The selection effect along the index."),
+        ("selection[].curve[].x", "Index value."),
+        ("selection[].curve[].effect", "Chosen minus randomised measure there."),
+        ("selection[].curve[].ci", "Its pointwise interval."),
+        ("selection[].curve[].randomised_sparse", "True where this arm has fewer randomised patients than "
+                                                  "[selection] min_per_window."),
+        ("selection[].warnings", "Sentences about this comparison."),
+    ]),
+    ("pairwise", "Pairwise rows (the whole cohort first, then windows along the index)", [
+        ("pairwise[].index", "The index the windows run along."),
+        ("pairwise[].window", "null for the whole cohort; else the window."),
+        ("pairwise[].window.from", "Lowest index value in the window."),
+        ("pairwise[].window.to", "Highest index value in the window."),
+        ("pairwise[].window.median", "Median index value in the window."),
+        ("pairwise[].window.n_first", "First-arm patients in the window."),
+        ("pairwise[].window.n_second", "Second-arm patients in the window."),
+        ("pairwise[].n_first", "First-arm patients compared."),
+        ("pairwise[].n_second", "Second-arm patients compared."),
+        ("pairwise[].priority", "Outcome names in priority order."),
+        ("pairwise[].interval", "bootstrap-percentile."),
+        ("pairwise[].replicates", "Bootstrap replicates."),
+        ("pairwise[].level", "Interval level."),
+        ("pairwise[].wins", "Pairs the first-arm patient wins."),
+        ("pairwise[].losses", "Pairs the first-arm patient loses."),
+        ("pairwise[].ties", "Pairs no outcome separates."),
+        ("pairwise[].pairs", "All pairs (first-arm patients x second-arm patients)."),
+        ("pairwise[].win_ratio", "Wins / losses."),
+        ("pairwise[].win_ratio_ci", "Its interval."),
+        ("pairwise[].win_odds", "(Wins + ties / 2) / (losses + ties / 2)."),
+        ("pairwise[].win_odds_ci", "Its interval."),
+        ("pairwise[].net_benefit", "(Wins - losses) / pairs."),
+        ("pairwise[].net_benefit_ci", "Its interval."),
+        ("pairwise[].favours", "The arm the net benefit's interval clearly favours, or null."),
+        ("pairwise[].by_level", "Wins and losses decided at each priority level."),
+        ("pairwise[].by_level[].outcome", "The outcome at this level."),
+        ("pairwise[].by_level[].kind", "Its kind."),
+        ("pairwise[].by_level[].rule", "How it separates two patients, in words."),
+        ("pairwise[].by_level[].wins", "Pairs won at this level."),
+        ("pairwise[].by_level[].losses", "Pairs lost at this level."),
+        ("pairwise[].by_level[].net_benefit", "Net benefit contributed by this level."),
+        ("pairwise[].by_level[].net_benefit_ci", "Its interval."),
+        ("pairwise[].by_level[].conditional_on_survival", "True when the outcome is compared only between "
+                                                          "survivors."),
+        ("pairwise[].warnings", "Sentences (missing values, windows without a difference)."),
+    ]),
+    ("checks", "Checks rows (can the curves be trusted?)", [
+        ("checks[].outcome", "The outcome's name."),
+        ("checks[].index", "The index's name."),
+        ("checks[].kind", "The outcome kind."),
+        ("checks[].measure", "The measure in words."),
+        ("checks[].observed_vs_fitted", "Per arm and band of the index: the observed measure beside the mean "
+                                        "fitted value."),
+        ("checks[].observed_vs_fitted[].arm", "Arm."),
+        ("checks[].observed_vs_fitted[].band_from", "Band start on the index."),
+        ("checks[].observed_vs_fitted[].band_to", "Band end."),
+        ("checks[].observed_vs_fitted[].n", "Patients in the band."),
+        ("checks[].observed_vs_fitted[].observed", "Observed measure (Kaplan-Meier at the horizon, a proportion "
+                                                   "or a mean)."),
+        ("checks[].observed_vs_fitted[].observed_ci", "Its interval."),
+        ("checks[].observed_vs_fitted[].fitted", "Mean fitted value of the same patients."),
+        ("checks[].observed_vs_fitted[].levels", "Ordinal outcomes: every level's observed and fitted share."),
+        ("checks[].observed_vs_fitted[].levels[].level", "Level."),
+        ("checks[].observed_vs_fitted[].levels[].observed", "Observed share."),
+        ("checks[].observed_vs_fitted[].levels[].fitted", "Fitted share."),
+        ("checks[].calibration", "Per arm: observed band values regressed on fitted ones, and a band chi-square."),
+        ("checks[].calibration[].arm", "Arm."),
+        ("checks[].calibration[].bands", "Number of bands."),
+        ("checks[].calibration[].slope", "Calibration slope (1 ideal)."),
+        ("checks[].calibration[].intercept", "Calibration intercept (0 ideal)."),
+        ("checks[].calibration[].chi2", "Band chi-square of observed against fitted."),
+        ("checks[].calibration[].df", "Its degrees of freedom."),
+        ("checks[].calibration[].p_value", "Its p-value."),
+        ("checks[].calibration[].max_abs_z", "Largest standardised band residual."),
+        ("checks[].calibration[].method", "How it was computed."),
+        ("checks[].sliding_window", "Model-free first-minus-second differences in overlapping windows of patients."),
+        ("checks[].sliding_window[].from", "Window start on the index."),
+        ("checks[].sliding_window[].to", "Window end."),
+        ("checks[].sliding_window[].median", "Median index value in the window."),
+        ("checks[].sliding_window[].n_first", "First-arm patients in the window."),
+        ("checks[].sliding_window[].n_second", "Second-arm patients in the window."),
+        ("checks[].sliding_window[].difference", "Observed difference (oriented)."),
+        ("checks[].sliding_window[].ci", "Its interval."),
+        ("checks[].sliding_window[].model_average", "The model's difference averaged over the window's patients."),
+        ("checks[].sliding_window[].model_difference", "The model's difference at the window's median."),
+        ("checks[].window", "Window settings."),
+        ("checks[].window.patients", "Patients per window."),
+        ("checks[].window.step", "Patients the window moves by."),
+        ("checks[].effect_modification", "Likelihood-ratio test that the index terms differ between the arms."),
+        ("checks[].effect_modification.statistic", "Likelihood-ratio statistic."),
+        ("checks[].effect_modification.df", "Degrees of freedom."),
+        ("checks[].effect_modification.p_value", "p-value."),
+        ("checks[].effect_modification.weak_evidence", "True when the evidence that the difference changes along "
+                                                       "the index is weak."),
+        ("checks[].effect_modification.sentence", "The result in words."),
+        ("checks[].effect_modification.method", "How it was computed."),
+        ("checks[].effect_modification.converged", "Whether the restricted model converged."),
+        ("checks[].horizon_curve", "Survival outcomes: the break-even point at a grid of horizons."),
+        ("checks[].horizon_curve[].horizon", "Horizon."),
+        ("checks[].horizon_curve[].break_even", "The break-even point there (the first, if several), or null."),
+        ("checks[].horizon_curve[].ci", "Its interval."),
+        ("checks[].horizon_curve[].interval", "Its method."),
+        ("checks[].horizon_curve[].break_evens", "Every break-even point there."),
+        ("checks[].horizon_curve[].favours_throughout", "With no break-even, the arm favoured throughout."),
+        ("checks[].horizon_curve[].at_risk_first", "First-arm patients still followed at the horizon."),
+        ("checks[].horizon_curve[].at_risk_second", "Second-arm patients still followed at the horizon."),
+        ("checks[].horizon_curve[].beyond_follow_up", "True where fewer than 10% of an arm (or fewer than 20 "
+                                                      "patients) remain at risk."),
+        ("checks[].horizon_curve[].spec_horizon", "True at the spec's own horizon."),
+        ("checks[].warnings", "Sentences (poor fit in a band, doubtful model assumptions)."),
+    ]),
+    ("baseline", "Baseline rows (one per cohort covariate)", [
+        ("baseline[].covariate", "Covariate."),
+        ("baseline[].binary", "True for a two-valued covariate (shown as a share)."),
+        ("baseline[].groups", "Summaries by arm and allocation."),
+        ("baseline[].groups[].arm", "Arm."),
+        ("baseline[].groups[].allocation", "all patients, randomised or chosen."),
+        ("baseline[].groups[].n", "Patients with a value."),
+        ("baseline[].groups[].missing", "Patients without a value."),
+        ("baseline[].groups[].mean", "Mean (or share)."),
+        ("baseline[].groups[].sd", "Standard deviation."),
+        ("baseline[].groups[].text", "The summary as shown, e.g. 75 (SD 6.5)."),
+        ("baseline[].smd", "Standardised mean differences."),
+        ("baseline[].smd[].compare", "What is compared (arm against arm, or chosen against randomised)."),
+        ("baseline[].smd[].among", "Among which patients."),
+        ("baseline[].smd[].smd", "The standardised mean difference."),
+        ("baseline[].smd[].imbalanced", "True when |SMD| > 0.1."),
+    ]),
+    ("imputation", "Imputation rows (complete cases beside multiple imputation)", [
+        ("imputation[].outcome", "The outcome's name."),
+        ("imputation[].index", "The index's name."),
+        ("imputation[].m", "Number of imputations."),
+        ("imputation[].seed", "Seed of the imputations."),
+        ("imputation[].imputed_values", "Values filled in, by column."),
+        ("imputation[].complete_case", "The complete-case analysis."),
+        ("imputation[].complete_case.n", "Patients per arm."),
+        ("imputation[].complete_case.break_even", "Its break-even points."),
+        ("imputation[].imputed", "The pooled multiply imputed analysis, or null when nothing was missing."),
+        ("imputation[].imputed.n", "Patients per arm."),
+        ("imputation[].imputed.break_even", "Pooled break-even points (Rubin's rules)."),
+        ("imputation[].imputed.curve", "Pooled curves (curve-point fields)."),
+        ("imputation[].note", "The missing-at-random assumption, in words."),
+        ("imputation[].method", "How the imputations were made and pooled."),
+        ("imputation[].warnings", "Sentences."),
+    ]),
+]
+RESULT_FIELDS: dict[str, str] = {path: text for _, _, rows in RESULT_SECTIONS for path, text in rows}
+BREAK_EVEN_LISTS = ("composite[].break_even[]", "selection[].randomised_break_even[]",
+                    "selection[].all_break_even[]", "selection[].adjusted_break_even[]",
+                    "checks[].horizon_curve[].break_evens[]", "imputation[].complete_case.break_even[]",
+                    "imputation[].imputed.break_even[]")
+ALIASES: dict[str, str] = {**{p: "results[].break_even[]" for p in BREAK_EVEN_LISTS},
+                           "imputation[].imputed.curve[]": "results[].curve[]"}
+KEYED = {"results[].n", "results[].events", "results[].methods", "results[].reference",
+         "results[].index_info.percentiles", "results[].index_info.prognostic.centre", "composite[].weights",
+         "selection[].adjusted.propensity.coefficients", "selection[].adjusted.n", "selection[].adjusted.effective_n",
+         "clustering.clusters_per_arm", "imputation[].imputed_values", "imputation[].complete_case.n",
+         "imputation[].imputed.n", "spec"}
+
+
+def canonical(path: str) -> str:
+    """The path whose description covers this one: composite rows read as results rows, break-evens alike."""
+    for prefix in sorted(ALIASES, key=len, reverse=True):
+        if path.startswith(prefix):
+            return ALIASES[prefix] + path[len(prefix):]
+    if path.startswith("composite[].") and path not in RESULT_FIELDS:
+        return "results[]." + path[len("composite[]."):]
+    return path
+
+
+def described(path: str) -> bool:
+    return canonical(path) in RESULT_FIELDS
+
+
+def document_paths(doc: Any, path: str = "") -> set[str]:
+    """Every field path in a results document (list items as '[]', tables keyed by names not descended)."""
+    out: set[str] = set()
+    if isinstance(doc, dict):
+        for k, v in doc.items():
+            p = f"{path}.{k}" if path else k
+            out.add(p)
+            if canonical(p) not in KEYED:
+                out |= document_paths(v, p)
+    elif isinstance(doc, list):
+        for v in doc:
+            out |= document_paths(v, path + "[]")
+    return out
+
+
+def schema_paths(schema: dict | None = None) -> dict[str, dict]:
+    """Every property path the results schema declares, with its definition ($refs followed)."""
+    schema = schema or res.schema()
+    defs = schema.get("$defs", {})
+    out: dict[str, dict] = {}
+
+    def resolve(node: dict) -> dict:
+        while "$ref" in node:
+            node = defs[node["$ref"].split("/")[-1]]
+        return node
+
+    def walk(node: dict, path: str) -> None:
+        node = resolve(node)
+        for name, sub in node.get("properties", {}).items():
+            p = f"{path}.{name}" if path else name
+            out[p] = {"required": name in node.get("required", ()), "node": resolve(sub)}
+            walk(sub, p)
+        if isinstance(node.get("items"), dict):
+            walk(node["items"], path + "[]")
+
+    walk(schema, "")
+    return out
+
+
+def _schema_type(node: dict) -> str:
+    if "const" in node:
+        return f"always {node['const']!r}".replace("'", '"')
+    if "enum" in node:
+        return " | ".join(str(v) for v in node["enum"])
+    t = node.get("type")
+    if isinstance(t, list):
+        return " or ".join(t)
+    if t == "array":
+        return "list"
+    if node.get("pattern") == "^[0-9a-f]{64}$":
+        return "64 hex digits"
+    return t or ""
+
+
+# --------------------------------------------------------------------------------------------------
+# Markdown
+# --------------------------------------------------------------------------------------------------
+def _cell(text: Any) -> str:
+    return str(text).replace("|", "\\|").replace("\n", " ")
+
+
+def _default(section: str, key: str) -> str:
+    cls = SECTION_CLASSES.get(section)
+    fields = {f.name: f for f in dataclasses.fields(cls)} if cls else {}
+    f = fields.get(key)
+    if f is None or key in sp.REQUIRED.get(section, ()):
+        return ""
+    if f.default is not dataclasses.MISSING:
+        value = f.default
+    elif f.default_factory is not dataclasses.MISSING:  # type: ignore[misc]
+        value = f.default_factory()  # type: ignore[misc]
+    else:
+        return ""
+    if value in (None, (), {}):
+        return ""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, tuple):
+        return "[" + ", ".join(f"{v:g}" if isinstance(v, float) else str(v) for v in value) + "]"
+    if isinstance(value, float):
+        return f"{value:g}"
+    return f'"{value}"' if isinstance(value, str) else str(value)
+
+
+def spec_markdown() -> str:
+    """The spec reference, section by section, from explorer.spec.SCHEMA."""
+    lines = ["## Part 1: the spec (TOML)", "",
+             "A spec is a TOML file. Paths inside it are relative to the spec file. Unknown keys are refused with "
+             "a suggestion; every error names the key and says what to do. Sections: "
+             + ", ".join(f"`{s}`" for s in sp.TOP_LEVEL) + ". `cohort`, `outcomes` and `indices` are required.", ""]
+    for section in list(sp.TOP_LEVEL[:3]) + ["prognostic"] + list(sp.TOP_LEVEL[3:]):
+        head, intro = SECTION_HEADS[section]
+        lines += [f"### {head}", "", intro, "", "| key | type | required | default | meaning |",
+                  "|---|---|---|---|---|"]
+        for key, (kind, text) in sp.SCHEMA[section].items():
+            required = "yes" if key in sp.REQUIRED.get(section, ()) else ""
+            lines.append(f"| `{key}` | {TYPE_WORDS.get(kind, kind)} | {required} | {_cell(_default(section, key))} "
+                         f"| {_cell(text)} |")
+        lines.append("")
+    lines += ["### Choices", "", "| key | options |", "|---|---|",
+              f"| outcomes `kind` | {', '.join(sp.OUTCOME_KINDS)} |",
+              f"| survival `measure` | {', '.join(sp.SURVIVAL_MEASURES)} |",
+              f"| survival `model` | {', '.join(sp.SURVIVAL_MODELS)} |",
+              f"| prognostic `fit_on` | {', '.join(sp.FIT_ON)} |",
+              f"| values `whose` | {', '.join(sp.WHOSE)} |",
+              f"| analysis `interval` | {', '.join(sp.INTERVALS)} |",
+              f"| analysis `shape` | {', '.join(sp.SHAPES)} |",
+              f"| analysis `bands` | {', '.join(sp.BANDS)} |", ""]
+    return "\n".join(lines)
+
+
+def results_markdown() -> str:
+    """Every field of the results document, from RESULT_FIELDS, marked with what the schema says of it."""
+    declared = schema_paths()
+    lines = ["## Part 2: the results document (JSON)", "",
+             "`fulcrum analyse SPEC --json OUT` and the app's Report page write this document; "
+             "`explorer/schema/results.schema.json` is its JSON Schema. `[]` marks the items of a list; "
+             "a table keyed by arm, level or covariate names is described once. Numbers are rounded to six "
+             "decimals; a missing or unbounded value is `null`. The schema column says `required` or `optional` "
+             "for fields the schema declares (with their allowed values) and is empty for fields it leaves open.",
+             ""]
+    for _, title, rows in RESULT_SECTIONS:
+        lines += [f"### {title}", "", "| field | schema | meaning |", "|---|---|---|"]
+        for path, text in rows:
+            info = declared.get(path)
+            mark = ""
+            if info is not None:
+                mark = "required" if info["required"] else "optional"
+                kind = _schema_type(info["node"])
+                mark += f" ({_cell(kind)})" if kind and kind not in ("object", "list") else ""
+            lines.append(f"| `{path}` | {mark} | {_cell(text)} |")
+        lines.append("")
+    return "\n".join(lines)
+
+
+def reference_markdown() -> str:
+    """The whole of docs/spec-reference.md."""
+    return "\n".join([
+        "# Fulcrum spec and results reference", "",
+        "<!-- Generated by `python -m explorer.docs_gen` from explorer/spec.py (SCHEMA) and "
+        "explorer/docs_gen.py (RESULT_FIELDS). Do not edit by hand: tests/test_docs.py checks it. -->", "",
+        "This page is generated from the code's own definitions, so it always matches the version it ships with. "
+        "For a walk-through see [the researcher's guide](researcher-guide.md).", "",
+        spec_markdown(), results_markdown()]).rstrip() + "\n"
+
+
+# --------------------------------------------------------------------------------------------------
+# Screenshots for the clinician's guide
+# --------------------------------------------------------------------------------------------------
+# name -> (screenshot written by tests/test_browser.py, crop box left, top, right, bottom in its pixels)
+SHOTS: dict[str, tuple[str, int, int, int, int]] = {
+    "cohort-load.png": ("cohort.png", 0, 0, 1400, 1240),
+    "cohort-checks.png": ("cohort.png", 400, 2150, 1340, 3560),
+    "outcomes-top.png": ("outcomes_by_index.png", 400, 140, 1340, 1540),
+    "outcomes-survival.png": ("outcomes_by_index.png", 400, 1540, 1340, 2420),
+    "outcomes-function.png": ("outcomes_by_index.png", 400, 3280, 1340, 4110),
+    "values-weights.png": ("values.png", 400, 480, 1340, 1180),
+    "values-composite.png": ("values.png", 400, 1330, 1340, 2060),
+    "values-acceptability.png": ("values.png", 400, 2200, 1340, 2880),
+    "values-bedbound-below-zero.png": ("values_after_weight_change.png", 400, 480, 1340, 2060),
+    "selection-coverage.png": ("randomised_vs_chosen.png", 400, 480, 1340, 1790),
+    "selection-effect.png": ("randomised_vs_chosen.png", 400, 1790, 1340, 2440),
+    "patient-where.png": ("patient.png", 400, 440, 1340, 1740),
+    "patient-icons.png": ("patient.png", 400, 1780, 1340, 2720),
+    "report-page.png": ("report.png", 400, 140, 1340, 1320),
+    "report-offline.png": ("report_offline.png", 120, 0, 1280, 1700),
+}
+SHOT_WIDTH = 940
+
+
+def write_images(source: Path, target: Path = DOCS / "images") -> list[Path]:
+    """Crop the browser test's full-page screenshots into small palette PNGs for the guides."""
+    from PIL import Image
+
+    target.mkdir(parents=True, exist_ok=True)
+    written = []
+    for name, (src, left, top, right, bottom) in SHOTS.items():
+        with Image.open(source / src) as im:
+            part = im.convert("RGB").crop((left, top, min(right, im.width), min(bottom, im.height)))
+        if part.width > SHOT_WIDTH:
+            part = part.resize((SHOT_WIDTH, round(part.height * SHOT_WIDTH / part.width)), Image.LANCZOS)
+        part.quantize(colors=128, method=Image.Quantize.MEDIANCUT, dither=Image.Dither.NONE).save(
+            target / name, optimize=True)
+        written.append(target / name)
+    return written
+
+
+def main(argv: Iterable[str] | None = None) -> int:
+    p = argparse.ArgumentParser(prog="python -m explorer.docs_gen", description=__doc__.splitlines()[0])
+    p.add_argument("--check", action="store_true", help="exit 1 when the reference on disk is out of date")
+    p.add_argument("--out", type=Path, default=REFERENCE, help="where the reference goes")
+    p.add_argument("--images", type=Path, metavar="SCREENSHOTS", help="crop these screenshots into docs/images")
+    args = p.parse_args(list(argv) if argv is not None else None)
+    if args.images:
+        for path in write_images(args.images):
+            print(f"wrote {path}")
+        return 0
+    text = reference_markdown()
+    if args.check:
+        same = args.out.exists() and args.out.read_text(encoding="utf-8") == text
+        print(f"{args.out} is " + ("up to date." if same else "out of date: run python -m explorer.docs_gen."))
+        return 0 if same else 1
+    args.out.parent.mkdir(parents=True, exist_ok=True)
+    args.out.write_text(text, encoding="utf-8")
+    print(f"wrote {args.out}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

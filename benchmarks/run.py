@@ -1,0 +1,375 @@
+"""Speed and scale benchmark: Fulcrum against a naive lifelines/statsmodels reference, measured in one run.
+
+    python benchmarks/run.py [--quick] [--json OUT] [--workdir DIR]
+
+(a) one per-arm Cox fit, (b) one proportional-odds fit, (c) the demo spec (3 outcomes x 2 indices) with
+bootstrap replicates, (d) re-weighting the composite, (e) peak memory of a 1M-row x 20-column analysis,
+(f) a 1M-row survival analysis end to end. Medians of repeated runs; targets are printed beside the
+measurements (DESIGN.md section 8) and are never asserted in tests. The data are the invented demo cohort.
+"""
+from __future__ import annotations
+
+import argparse
+import datetime as dt
+import json
+import os
+import platform
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+import tomllib
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+import pandas as pd
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path[:0] = [str(ROOT), str(Path(__file__).resolve().parent)]
+
+import reference as ref  # noqa: E402
+
+from explorer import analysis as an  # noqa: E402
+from explorer import demo  # noqa: E402
+from explorer import values as vl  # noqa: E402
+from explorer.cohort import load_cohort  # noqa: E402
+from explorer.models import fit_model  # noqa: E402
+from explorer.models.base import Basis, OutcomeData  # noqa: E402
+from explorer.spec import OutcomeSpec, parse_spec, to_toml  # noqa: E402
+
+SEED = 20261202
+FIRST = demo.ARMS[0]
+SURVIVAL = OutcomeSpec("alive", "survival", time="days_followed", event="died", horizon=365.0, measure="survival")
+FUNCTION = OutcomeSpec("function", "ordinal", column="function_6m", levels=demo.LEVELS, favourable=demo.FAVOURABLE)
+EXTRA = {"heart_rate": (92.0, 16.0), "systolic_bp": (128.0, 22.0), "creatinine": (95.0, 30.0),
+         "crp": (80.0, 45.0), "wcc": (12.0, 4.0), "urea": (8.0, 3.0)}  # invented admission values (mean, sd)
+
+SETTINGS = {
+    "full": dict(cox=(10_000, 100_000, 1_000_000), ordinal=(10_000, 100_000), boot_n=10_000, replicates=1000,
+                 ref_replicates=3, big=1_000_000, runs=5, ref_runs=3),
+    "quick": dict(cox=(10_000, 100_000), ordinal=(10_000, 50_000), boot_n=5_000, replicates=200,
+                  ref_replicates=1, big=200_000, runs=3, ref_runs=1),
+}
+TARGETS = {"cox_fit_ratio": (">=", 10.0), "bootstrap_seconds": ("<=", 60.0), "bootstrap_ratio": (">=", 20.0),
+           "reweight_ms": ("<=", 50.0), "peak_rss_mb": ("<=", 2500.0), "survival_1m_seconds": ("<=", 20.0)}
+
+
+# ------------------------------------------------------------------------------------------
+# Measuring
+# ------------------------------------------------------------------------------------------
+def timed(fn: Callable[[], Any], runs: int) -> tuple[float, Any]:
+    """Median wall time of `runs` calls, and the last call's value."""
+    times, value = [], None
+    for _ in range(runs):
+        t = time.perf_counter()
+        value = fn()
+        times.append(time.perf_counter() - t)
+    return float(np.median(times)), value
+
+
+def verdict(key: str, value: float | None) -> str:
+    if value is None or key not in TARGETS:
+        return ""
+    op, goal = TARGETS[key]
+    met = value >= goal if op == ">=" else value <= goal
+    return f"  [target {op} {goal:g}: {'met' if met else 'NOT MET'}]"
+
+
+def say(text: str) -> None:
+    print(text, flush=True)
+
+
+def machine() -> dict:
+    model = next((ln.split(":", 1)[1].strip() for ln in Path("/proc/cpuinfo").read_text().splitlines()
+                  if ln.startswith("model name")), platform.processor()) if Path("/proc/cpuinfo").exists() else ""
+    return {"nproc": os.cpu_count(), "cpu": model, "python": platform.python_version(),
+            "numpy": np.__version__, "platform": platform.platform()}
+
+
+# ------------------------------------------------------------------------------------------
+# Data
+# ------------------------------------------------------------------------------------------
+def arm_rows(frame: pd.DataFrame, n: int, column: str | None = None) -> pd.DataFrame:
+    """The first n patients of the first arm (with `column` known)."""
+    keep = frame.arm.to_numpy() == FIRST
+    if column:
+        keep &= frame[column].notna().to_numpy()
+    rows = frame[keep]
+    if len(rows) < n:
+        raise SystemExit(f"only {len(rows)} rows for a {n}-row fit; generate a larger cohort")
+    return rows.iloc[:n]
+
+
+def with_extra_columns(frame: pd.DataFrame, seed: int) -> pd.DataFrame:
+    """The demo columns plus six invented admission measurements: 20 columns in all."""
+    rng = np.random.default_rng(seed)
+    extra = {k: np.round(np.maximum(rng.normal(m, s, len(frame)), 0.1 * m), 1) for k, (m, s) in EXTRA.items()}
+    return frame.assign(**extra)
+
+
+def demo_raw(directory: Path) -> dict:
+    return tomllib.loads((directory / "demo.toml").read_text())
+
+
+def restricted_spec(directory: Path, replicates: int, workers: int):
+    """The demo spec with 3 outcomes x 2 indices, bootstrap intervals."""
+    raw = demo_raw(directory)
+    raw["outcomes"] = [o for o in raw["outcomes"] if o["name"] in ("alive", "function", "qol")]
+    raw["indices"] = [i for i in raw["indices"] if i["name"] in ("cfs", "age")]
+    raw["values"].pop("survival_outcome", None)
+    raw["analysis"].update(interval="bootstrap", replicates=replicates, workers=workers)
+    return parse_spec(raw, base_dir=directory)
+
+
+def write_big_specs(directory: Path, data_name: str) -> tuple[Path, Path]:
+    """(the demo spec as a registry would run it on the 20-column cohort: analytic, the six extra columns as
+    adjustment covariates, no allocation; a one-outcome survival spec on the same file)."""
+    raw = demo_raw(directory)
+    raw["cohort"]["path"] = data_name
+    raw["cohort"]["covariates"] += list(EXTRA)
+    for o in raw["outcomes"]:
+        if o["name"] in ("alive", "function"):
+            o["adjust"] = list(EXTRA)
+    raw["cohort"].pop("allocation")  # a registry: no randomised patients, so no selection analysis
+    raw.pop("selection")
+    full = directory / "big.toml"
+    full.write_text(to_toml(parse_spec(raw, base_dir=directory), relative_to=directory))
+    survival = {"cohort": {k: raw["cohort"][k] for k in ("path", "id", "arm", "arms")},
+                "outcomes": [o for o in raw["outcomes"] if o["name"] == "alive"],
+                "indices": [i for i in raw["indices"] if i["name"] == "cfs"], "analysis": {"interval": "analytic"}}
+    path = directory / "survival.toml"
+    path.write_text(to_toml(parse_spec(survival, base_dir=directory), relative_to=directory))
+    return full, path
+
+
+# ------------------------------------------------------------------------------------------
+# (a) Cox and (b) proportional odds: one per-arm fit
+# ------------------------------------------------------------------------------------------
+def cox_case(frame: pd.DataFrame, n: int, runs: int, ref_runs: int) -> dict:
+    a = arm_rows(frame, n)
+    x, t, e = (a[c].to_numpy(float) for c in ("cfs", "days_followed", "died"))
+    ours_s, fit = timed(lambda: fit_model(SURVIVAL, FIRST, Basis(), OutcomeData(x=x, time=t, event=e)), runs)
+    ref_s, rf = timed(lambda: ref.cox_fit(t, e, x[:, None]), ref_runs)
+    theirs = rf.params_.to_numpy()
+    rel = float(np.max(np.abs(fit.params_ - theirs) / np.abs(theirs)))
+    return {"rows": n, "ours_s": ours_s, "reference_s": ref_s, "ratio": ref_s / ours_s, "coef_rel_diff": rel,
+            "ours_runs": runs, "reference_runs": ref_runs}
+
+
+def ordinal_case(frame: pd.DataFrame, n: int, runs: int, ref_runs: int) -> dict:
+    a = arm_rows(frame, n, "function_6m")
+    x = a.cfs.to_numpy(float)
+    y = a.function_6m.map({lv: i for i, lv in enumerate(demo.LEVELS)}).to_numpy(float)
+    ours_s, fit = timed(lambda: fit_model(FUNCTION, FIRST, Basis(), OutcomeData(x=x, y=y)), runs)
+    ref_s, rf = timed(lambda: ref.ordinal_fit(y.astype(int), x[:, None]), ref_runs)
+    theirs = ref.ordinal_natural(np.asarray(rf.params), 1)
+    diff = float(np.max(np.abs(fit.params_ - theirs) / (1e-5 + 1e-5 * np.abs(theirs))))
+    return {"rows": n, "ours_s": ours_s, "reference_s": ref_s, "ratio": ref_s / ours_s,
+            "agreement_in_tolerances": diff, "ours_runs": runs, "reference_runs": ref_runs}
+
+
+def fit_lines(name: str, rows: list[dict], extra: Callable[[dict], str]) -> None:
+    for r in rows:
+        say(f"  {r['rows']:>9,} rows: ours {r['ours_s']:.3f} s (median of {r['ours_runs']}), reference "
+            f"{r['reference_s']:.3f} s (median of {r['reference_runs']}), ratio {r['ratio']:.1f}x; {extra(r)}"
+            + (verdict(name, r["ratio"]) if name == "cox_fit_ratio" and r["rows"] == 100_000 else ""))
+
+
+# ------------------------------------------------------------------------------------------
+# (c) bootstrap of the demo spec and (d) re-weighting
+# ------------------------------------------------------------------------------------------
+def reference_pairs(spec, frame: pd.DataFrame) -> list[ref.ReferencePair]:
+    """The reference's view of the spec: per outcome and index, complete-case rows per arm."""
+    arm = frame[spec.cohort.arm].to_numpy()
+    pairs = []
+    for ix in spec.indices:
+        x = pd.to_numeric(frame[ix.column], errors="coerce").to_numpy(float)
+        for o in spec.outcomes:
+            ok = frame[list(o.columns)].notna().all(axis=1).to_numpy() & np.isfinite(x)
+            rows = {a: np.flatnonzero(ok & (arm == a)) for a in spec.cohort.arms}
+            y = (frame[o.column].map({lv: i for i, lv in enumerate(o.levels)}).to_numpy(float)
+                 if o.kind == "ordinal" else None if o.kind == "survival" else frame[o.column].to_numpy(float))
+            t = frame[o.time].to_numpy(float) if o.kind == "survival" else None
+            e = frame[o.event].to_numpy(float) if o.kind == "survival" else None
+            grid = np.linspace(np.nanmin(x[ok]), np.nanmax(x[ok]), spec.analysis.grid)
+            pairs.append(ref.ReferencePair(o.kind, rows, x, y, t, e, o.horizon, len(o.favourable), grid))
+    return pairs
+
+
+def reference_bootstrap(spec, directory: Path, k: int) -> float:
+    """Median seconds of one naive replicate (lifelines/statsmodels refits), over k replicates."""
+    frame = pd.read_csv(spec.cohort.path)
+    pairs = reference_pairs(spec, frame)
+    arm = frame[spec.cohort.arm].to_numpy()
+    arm_rows_ = {a: np.flatnonzero(arm == a) for a in spec.cohort.arms}
+    clusters = None
+    if spec.cohort.cluster:
+        codes = pd.factorize(frame[spec.cohort.cluster].astype(str))[0]
+        clusters = [np.flatnonzero(codes == c) for c in range(codes.max() + 1)]
+    rngs = [np.random.default_rng(s) for s in np.random.SeedSequence(SEED).spawn(k)]
+    times = []
+    for rng in rngs:
+        t = time.perf_counter()
+        ref.reference_replicate(pairs, arm_rows_, clusters, rng)
+        times.append(time.perf_counter() - t)
+    return float(np.median(times))
+
+
+def bootstrap_case(directory: Path, replicates: int, ref_k: int) -> tuple[dict, an.Results]:
+    spec = restricted_spec(directory, replicates, workers=2)
+    t = time.perf_counter()
+    cohort = load_cohort(spec)
+    load_s = time.perf_counter() - t
+    t = time.perf_counter()
+    res = an.analyse(spec, cohort)  # first, so it pays for starting the worker processes
+    total_s = time.perf_counter() - t
+    t = time.perf_counter()
+    fs = an.fit_all(spec, cohort)
+    fit_s = time.perf_counter() - t
+    t = time.perf_counter()
+    an.run_bootstrap(fs, keep_distribution=(spec.values.outcome,))
+    models_s = time.perf_counter() - t
+    per_rep = reference_bootstrap(spec, directory, ref_k)
+    ref_serial = per_rep * replicates
+    out = {"patients": cohort.n, "replicates": replicates, "workers": 2, "load_s": load_s, "fit_all_s": fit_s,
+           "model_bootstrap_s": models_s, "analyse_s": total_s, "reference_per_replicate_s": per_rep,
+           "reference_replicates_measured": ref_k, "reference_serial_s_extrapolated": ref_serial,
+           "reference_two_cores_s_extrapolated": ref_serial / 2,
+           "ratio_vs_whole_analysis": ref_serial / 2 / total_s, "ratio_models_only": ref_serial / 2 / models_s}
+    return out, res
+
+
+def reweight_case(res: an.Results, changes: int = 21) -> dict:
+    """Milliseconds per weight change, as the values page re-weights (the composites of one index)."""
+    out = {}
+    levels = res.spec.outcome(res.spec.values.outcome).levels
+    index = res.spec.indices[0].name
+    for label, reps in (("bootstrap", res.replicates), ("analytic", None)):
+        prepared = vl.prepare_composites(res.fitset, replicates=reps)
+        here = {k: cm for k, cm in prepared.items() if k[1] == index}
+        base = dict(res.spec.values.weights)
+        times = []
+        for h in np.linspace(0.5, 0.95, changes):
+            w = dict(base, **{levels[1]: float(h)})
+            t = time.perf_counter()
+            vl.reweight(here, w)
+            times.append(time.perf_counter() - t)
+        out[label] = 1000 * float(np.median(times[1:]))
+        out[f"{label}_composites"] = len(here)
+    return out
+
+
+# ------------------------------------------------------------------------------------------
+# (e) and (f): a fresh process per analysis, through the command line
+# ------------------------------------------------------------------------------------------
+def cli_run(spec: Path, out: Path) -> dict:
+    """Run `fulcrum analyse SPEC --json OUT` in a child process: wall seconds and its peak RSS (MB)."""
+    cmd = [sys.executable, "-m", "explorer.cli", "analyse", str(spec), "--json", str(out), "--quiet"]
+    t = time.perf_counter()
+    proc = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    _, status, usage = os.wait4(proc.pid, 0)
+    seconds = time.perf_counter() - t
+    proc.returncode = os.waitstatus_to_exitcode(status)
+    err = proc.stderr.read().decode(errors="replace")
+    if proc.returncode != 0:
+        raise SystemExit(f"{' '.join(cmd)} failed ({proc.returncode}):\n{err}")
+    return {"seconds": seconds, "peak_rss_mb": usage.ru_maxrss / 1024}
+
+
+# ------------------------------------------------------------------------------------------
+# The run
+# ------------------------------------------------------------------------------------------
+def main(argv: list[str] | None = None) -> int:
+    p = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("--quick", action="store_true", help="smaller sizes, under 5 minutes")
+    p.add_argument("--json", metavar="OUT", help="write the measurements here")
+    p.add_argument("--workdir", help="keep generated data here (default: a temporary folder, removed)")
+    args = p.parse_args(argv)
+    mode = "quick" if args.quick else "full"
+    s = SETTINGS[mode]
+    work = Path(args.workdir) if args.workdir else Path(tempfile.mkdtemp(prefix="fulcrum-bench-"))
+    work.mkdir(parents=True, exist_ok=True)
+    started = time.perf_counter()
+    report: dict[str, Any] = {"mode": mode, "date": dt.datetime.now().isoformat(timespec="seconds"),
+                              "machine": machine(), "load_average_start": list(os.getloadavg()), "settings": s}
+    say(f"Fulcrum benchmark ({mode}) on {report['machine']['nproc']} x {report['machine']['cpu']}, load average "
+        f"{' '.join(f'{v:.2f}' for v in report['load_average_start'])}")
+    try:
+        run_all(report, s, work)
+    finally:
+        if not args.workdir:
+            shutil.rmtree(work, ignore_errors=True)
+    report["load_average_end"] = list(os.getloadavg())
+    report["total_s"] = time.perf_counter() - started
+    say(f"done in {report['total_s']:.0f} s; load average at the end "
+        f"{' '.join(f'{v:.2f}' for v in report['load_average_end'])}")
+    if args.json:
+        Path(args.json).write_text(json.dumps(report, indent=2) + "\n")
+    return 0
+
+
+def run_all(report: dict, s: dict, work: Path) -> None:
+    t = time.perf_counter()
+    frame, _ = demo.generate(int(2.2 * max(max(s["cox"]), s["big"])), seed=SEED)
+    say(f"invented cohort of {len(frame):,} patients generated in {time.perf_counter() - t:.0f} s")
+
+    say("(a) one per-arm Cox fit (Efron ties), ours (explorer.models.fit_model) vs lifelines CoxPHFitter")
+    report["cox_fit"] = [cox_case(frame, n, s["runs"] if n < 1_000_000 else 3, s["ref_runs"] if n < 1_000_000 else 1)
+                         for n in s["cox"]]
+    fit_lines("cox_fit_ratio", report["cox_fit"],
+              lambda r: f"coefficients agree to {r['coef_rel_diff']:.1e} relative [1e-6: "
+                        f"{'met' if r['coef_rel_diff'] <= 1e-6 else 'NOT MET'}]")
+    report["cox_fit_ratio"] = report["cox_fit"][-1]["ratio"]
+
+    say("(b) one proportional-odds fit, ours vs statsmodels OrderedModel (BFGS)")
+    report["ordinal_fit"] = [ordinal_case(frame, n, s["runs"], s["ref_runs"]) for n in s["ordinal"]]
+    fit_lines("ordinal_fit_ratio", report["ordinal_fit"],
+              lambda r: f"largest difference {r['agreement_in_tolerances']:.2f} x (1e-5 + 1e-5 |value|)")
+    report["ordinal_fit_ratio"] = report["ordinal_fit"][-1]["ratio"]
+
+    boot_dir = work / "boot"
+    demo.write_demo(boot_dir, n=s["boot_n"], seed=SEED)
+    say(f"(c) demo spec, {s['boot_n']:,} patients, 3 outcomes x 2 indices, {s['replicates']} bootstrap "
+        "replicates, workers = 2")
+    b, res = bootstrap_case(boot_dir, s["replicates"], s["ref_replicates"])
+    report["bootstrap"], report["bootstrap_seconds"] = b, b["analyse_s"]
+    report["bootstrap_ratio"] = b["ratio_vs_whole_analysis"]
+    say(f"  ours: whole analyse() {b['analyse_s']:.1f} s{verdict('bootstrap_seconds', b['analyse_s'])}; of which "
+        f"model bootstrap alone {b['model_bootstrap_s']:.1f} s (fit_all {b['fit_all_s']:.2f} s, load "
+        f"{b['load_s']:.2f} s)")
+    say(f"  reference: {b['reference_per_replicate_s']:.2f} s per replicate (median of "
+        f"{b['reference_replicates_measured']} measured), EXTRAPOLATED to {b['replicates']} replicates: "
+        f"{b['reference_serial_s_extrapolated']:.0f} s serial, {b['reference_two_cores_s_extrapolated']:.0f} s "
+        "if it used both cores perfectly")
+    say(f"  ratio (reference on both cores / our whole analysis) {b['ratio_vs_whole_analysis']:.1f}x"
+        f"{verdict('bootstrap_ratio', b['ratio_vs_whole_analysis'])}; models only "
+        f"{b['ratio_models_only']:.1f}x")
+
+    say("(d) re-weighting the composites of one index after a weight change (values.reweight)")
+    rw = reweight_case(res)
+    report["reweight"], report["reweight_ms"] = rw, rw["bootstrap"]
+    say(f"  with {s['replicates']} bootstrap replicates: {rw['bootstrap']:.1f} ms ({rw['bootstrap_composites']} "
+        f"composites){verdict('reweight_ms', rw['bootstrap'])}; analytic: {rw['analytic']:.1f} ms")
+
+    big = with_extra_columns(frame.iloc[:s["big"]], SEED)
+    big.to_parquet(boot_dir / "big.parquet", index=False)
+    full_spec, surv_spec = write_big_specs(boot_dir, "big.parquet")
+    say(f"(e) peak memory of the demo spec (analytic) on {len(big):,} rows x {big.shape[1]} columns (Parquet), "
+        "in a fresh process")
+    e = cli_run(full_spec, boot_dir / "big.json")
+    report["big_analysis"], report["peak_rss_mb"] = e, e["peak_rss_mb"]
+    say(f"  peak RSS {e['peak_rss_mb']:.0f} MB{verdict('peak_rss_mb', e['peak_rss_mb'])}; wall {e['seconds']:.1f} s")
+
+    say(f"(f) survival analysis end to end on {len(big):,} rows (Parquet load of 5 of {big.shape[1]} columns, "
+        "both arms, analytic intervals, fulcrum analyse in a fresh process)")
+    f = cli_run(surv_spec, boot_dir / "survival.json")
+    report["survival_analysis"] = f
+    report["survival_1m_seconds"] = f["seconds"] if len(big) >= 1_000_000 else None
+    say(f"  wall {f['seconds']:.1f} s (peak RSS {f['peak_rss_mb']:.0f} MB)"
+        + (verdict("survival_1m_seconds", f["seconds"]) if len(big) >= 1_000_000 else " [1M target: full run]"))
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -198,6 +198,14 @@ def _quantile_with_inf(v: np.ndarray, level: float) -> tuple[float, float]:
     return s[lo_i], s[hi_i]
 
 
+def contains(ci: tuple[float | None, float | None], shape: str, value: float) -> bool:
+    """Whether an interval of any shape holds value; two rays are (-inf, ci[0]] U [ci[1], inf)."""
+    lo, hi = ci
+    if shape == "two_rays":
+        return value <= lo or value >= hi
+    return (lo is None or lo <= value) and (hi is None or value <= hi)
+
+
 def shape_of(lo: float | None, hi: float | None) -> str:
     if lo is None and hi is None:
         return "unbounded"

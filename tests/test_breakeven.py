@@ -125,3 +125,10 @@ def test_percentile_interval_keeps_unbounded_ends():
     assert lo is not None and hi is None
     lo, hi = be.percentile_interval(np.linspace(0, 1, 101), 0.9)
     assert lo == pytest.approx(0.05) and hi == pytest.approx(0.95)
+
+
+def test_contains_reads_every_interval_shape():
+    assert be.contains((1.0, 2.0), "finite", 1.5) and not be.contains((1.0, 2.0), "finite", 2.5)
+    assert be.contains((None, 2.0), "unbounded_below", -1e9) and not be.contains((None, 2.0), "unbounded_below", 3)
+    assert be.contains((-1.0, 1.0), "two_rays", 5.0) and not be.contains((-1.0, 1.0), "two_rays", 0.0)
+    assert be.contains((None, None), "unbounded", 0.0)

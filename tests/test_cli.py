@@ -9,6 +9,7 @@ import sys
 import pytest
 
 from explorer import CAUTIONS, results
+from explorer.breakeven import contains
 from explorer.cli import main
 
 
@@ -48,7 +49,8 @@ def test_demo_survival_break_even_brackets_the_truth_in_randomised_patients(anal
     truth = json.loads((spec.parent / "truth.json").read_text())["break_even"]["survival_365"]
     rows = [r for r in doc["selection"] if r["outcome"] == "alive" and r["index"] == "cfs"]
     (be,) = rows[0]["randomised_break_even"]
-    assert be["ci"][0] <= truth <= be["ci"][1]
+    # with 318 randomised patients the Fieller set may be two rays; any shape must hold the truth
+    assert contains(be["ci"], be["interval_shape"], truth), be
 
 
 def test_summary_table_printed_with_cautions(tmp_path, capsys):

@@ -34,7 +34,8 @@ SECTION_HEADS = {
     "analysis": ("[analysis]", "Margin, interval level and method, seed, curve shape and resampling."),
     "selection": ("[selection]", "Randomised versus chosen patients (needs cohort.allocation)."),
     "pairwise": ("[pairwise]", "The hierarchical pairwise comparison (win ratio, win odds, net benefit)."),
-    "maps": ("[[maps]]", "Two indices at once. Read and checked, but this version computes no maps from them."),
+    "maps": ("[[maps]]", "Two-index maps: the arm favoured over the plane of two indices. The app's Two indices "
+                         "page opens on the first one."),
 }
 TYPE_WORDS = {"str": "text", "path": "file path", "float": "number", "int": "whole number", "bool": "true / false",
               "list[str]": "list of texts", "list[float]": "list of numbers", "table[float]": "table of numbers",
@@ -73,7 +74,7 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("pairwise", "Hierarchical pairwise comparison rows (see Pairwise rows). Empty without [pairwise]."),
         ("checks", "One row of trust checks per outcome x index (see Checks rows). Empty when [analysis] "
                    "checks = false."),
-        ("maps", "Reserved for two-index maps; this version does not write it."),
+        ("maps", "Two-index map rows, one per [[maps]] entry, when maps are computed (see Map rows)."),
         ("baseline", "Baseline table of the cohort covariates (see Baseline rows). Empty without cohort.covariates."),
         ("clustering", "Present only with cohort.cluster: which clustered intervals were used and over how many "
                        "clusters."),
@@ -422,6 +423,42 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("baseline[].smd[].smd", "The standardised mean difference."),
         ("baseline[].smd[].imbalanced", "True when |SMD| > 0.1."),
     ]),
+    ("maps", "Map rows (one outcome or composite over the plane of two indices)", [
+        ("maps[].indices", "The two index names: across (x), then up (y)."),
+        ("maps[].target", "The outcome's name, or \"composite\"."),
+        ("maps[].interaction", "True when each arm's model has the product of the two indices."),
+        ("maps[].kind", "The outcome kind, or the composite's kind."),
+        ("maps[].measure", "The measure in words."),
+        ("maps[].margin", "The margin used."),
+        ("maps[].level", "The interval level."),
+        ("maps[].band", "pointwise."),
+        ("maps[].index_info", "About each of the two indices (fields as in Index information)."),
+        ("maps[].grid", "The grid: x values (first index) and y values (second index)."),
+        ("maps[].grid.x", "Grid values of the first index."),
+        ("maps[].grid.y", "Grid values of the second index."),
+        ("maps[].difference", "First minus second minus the margin at each grid point, rows along y, columns "
+                              "along x; null where the map is blank (outside the patients' hull, or no patient of "
+                              "one arm near)."),
+        ("maps[].favoured", "The favoured arm at each grid point (null where blank)."),
+        ("maps[].clear", "The arm clearly favoured at each grid point (null where not clear or blank)."),
+        ("maps[].contour", "The break-even line(s) as lists of points."),
+        ("maps[].contour[][].x", "First index value."),
+        ("maps[].contour[][].y", "Second index value."),
+        ("maps[].n", "Patients per arm."),
+        ("maps[].weights", "The composite's weights by level, or null."),
+        ("maps[].coefficients", "Each arm's model terms (term, estimate, se), by outcome and arm."),
+        ("maps[].methods", "The models and intervals in one sentence."),
+        ("maps[].notes", "The composite's caveats."),
+        ("maps[].patient", "The patient's point, when one is placed."),
+        ("maps[].patient.x", "The patient's first index value."),
+        ("maps[].patient.y", "The patient's second index value."),
+        ("maps[].patient.difference", "The difference there."),
+        ("maps[].patient.ci", "Its interval."),
+        ("maps[].patient.favours", "The arm favoured there, or null."),
+        ("maps[].patient.clear", "The arm clearly favoured there, or null."),
+        ("maps[].patient.covered", "False where the map is blank at the patient's point."),
+        ("maps[].warnings", "Sentences (the share of the grid left blank, model notes)."),
+    ]),
     ("imputation", "Imputation rows (complete cases beside multiple imputation)", [
         ("imputation[].outcome", "The outcome's name."),
         ("imputation[].index", "The index's name."),
@@ -446,12 +483,13 @@ BREAK_EVEN_LISTS = ("composite[].break_even[]", "selection[].randomised_break_ev
                     "checks[].horizon_curve[].break_evens[]", "imputation[].complete_case.break_even[]",
                     "imputation[].imputed.break_even[]")
 ALIASES: dict[str, str] = {**{p: "results[].break_even[]" for p in BREAK_EVEN_LISTS},
-                           "imputation[].imputed.curve[]": "results[].curve[]"}
+                           "imputation[].imputed.curve[]": "results[].curve[]",
+                           "maps[].index_info[]": "results[].index_info"}
 KEYED = {"results[].n", "results[].events", "results[].methods", "results[].reference",
          "results[].index_info.percentiles", "results[].index_info.prognostic.centre", "composite[].weights",
          "selection[].adjusted.propensity.coefficients", "selection[].adjusted.n", "selection[].adjusted.effective_n",
          "clustering.clusters_per_arm", "imputation[].imputed_values", "imputation[].complete_case.n",
-         "imputation[].imputed.n", "spec"}
+         "imputation[].imputed.n", "maps[].n", "maps[].weights", "maps[].coefficients", "spec"}
 
 
 def canonical(path: str) -> str:

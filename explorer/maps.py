@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
+import pandas as pd
 from scipy.spatial import ConvexHull, QhullError, cKDTree
 
 from . import analysis as an
@@ -180,6 +181,7 @@ class PlaneModel:
 
     @property
     def anchor(self) -> an.PairFit:
+        """The outcome the map is drawn on (a composite's first part), whose patients cover the plane."""
         return next(iter(self.pairs.values()))
 
     def _weights(self, weights: Mapping[str, float] | Sequence[float] | None) -> np.ndarray:
@@ -214,12 +216,14 @@ class PlaneModel:
         return (diff - margin).reshape(shape), np.maximum(var, 0.0).reshape(shape)
 
     def methods(self) -> str:
+        """The methods sentence: which models, which terms, which intervals."""
         a, b = (i["label"] or n for i, n in zip(self.index_info, self.map.indices))
-        words = ", ".join(dict.fromkeys(_model_words(pf.outcome) for pf in self.pairs.values()))
-        return (f"Per arm, {words} with {a} and {b} as linear terms"
-                + (" and their product" if self.map.interaction else "")
-                + "; adjustment covariates held at their pooled means. Pointwise delta-method intervals; "
-                  "the two arms' models are independent.")
+        models = list(dict.fromkeys(_model_words(pf.outcome) for pf in self.pairs.values()))
+        adjusted = sorted({c for pf in self.pairs.values() for c in pf.outcome.adjust})
+        return (f"Per arm, {' and '.join(models)}{', each' if len(models) > 1 else ''} with {a} and {b} as linear "
+                "terms" + (" and their product" if self.map.interaction else "")
+                + (f", adjusted for {', '.join(adjusted)} (held at their pooled means)" if adjusted else "")
+                + ". Pointwise delta-method intervals, the two arms' models being independent.")
 
 
 def _model_words(outcome: OutcomeSpec) -> str:
@@ -256,7 +260,10 @@ def prepare_map(fs: an.FitSet, map_spec: MapSpec, *, kind: str = "ordinal") -> P
                                hint="Add [values] or target an outcome.")
         lazy = _PlanePairs(make)
         composite = vl.prepare_composite(dataclasses.replace(fs, pairs=lazy), kind, indices[0])
-        measure, what, pairs = composite.measure, kind, dict(lazy)
+        v = spec.values
+        used = [composite.pair.outcome.name] + {"survival_function": [v.survival_outcome],
+                                                  "quality_adjusted": [v.utility_outcome]}.get(kind, [])
+        measure, what, pairs = composite.measure, kind, {(o, indices[0]): lazy[(o, indices[0])] for o in used}
     else:
         try:
             outcome = spec.outcome(map_spec.target)
@@ -367,6 +374,15 @@ def _point(model: PlaneModel, x: float, y: float, z: float, weights, margin) -> 
             "clear": arms[0] if lo > 0 else arms[1] if hi < 0 else None, "covered": covered}
 
 
+def _composite_notes(model: PlaneModel, weights) -> list[str]:
+    """The composite's own caveats (e.g. the survival x function one), death's weight filled in."""
+    cm = model.composite
+    if cm is None:
+        return []
+    death = f"{model._weights(weights)[-1]:g}" if cm.weighted else "0"
+    return [n.replace("{death}", death) for n in cm.notes]
+
+
 def map_row(model: PlaneModel, *, weights: Mapping[str, float] | Sequence[float] | None = None,
             margin: float | None = None, level: float | None = None, n: int = GRID,
             patient: tuple[float, float] | None = None) -> dict:
@@ -408,6 +424,7 @@ def map_row(model: PlaneModel, *, weights: Mapping[str, float] | Sequence[float]
         dict(zip(model.composite.levels, map(float, model._weights(weights)))),
         "coefficients": {pf.outcome.name: _coefficients(pf) for pf in model.pairs.values()},
         "methods": model.methods(),
+        "notes": _composite_notes(model, weights),
         "warnings": list(dict.fromkeys(warnings)),
     }
     if patient is not None:
@@ -500,8 +517,6 @@ def describe_map(row: Mapping[str, Any], arms: Sequence[str]) -> str:
 
 def map_sections(doc: Mapping[str, Any]) -> list[dict]:
     """Report sections for the document's `maps` rows, in the shape explorer.report's extra_sections take."""
-    import pandas as pd
-
     from .charts import decision_map_chart
 
     arms = doc["arms"]
@@ -509,10 +524,17 @@ def map_sections(doc: Mapping[str, Any]) -> list[dict]:
     for row in doc.get("maps") or []:
         a, b = _labels(row)
         target = "Composite" if row["target"] == COMPOSITE else row.get("measure") or row["target"]
-        table = pd.DataFrame([{"outcome": o, "arm": arm, "term": c["term"], "estimate": c["estimate"], "se": c["se"]}
-                              for o, by_arm in (row.get("coefficients") or {}).items()
-                              for arm, cs in by_arm.items() for c in cs])
         out.append({"title": f"Two indices: {target} over {a} and {b}",
-                    "text": describe_map(row, arms), "chart": decision_map_chart(row, arms), "table": table,
-                    "notes": [row.get("methods") or ""] + list(row.get("warnings") or [])})
+                    "text": describe_map(row, arms), "chart": decision_map_chart(row, arms),
+                    "table": coefficient_table(row),
+                    "notes": [row.get("methods") or "", *(row.get("notes") or []), *(row.get("warnings") or [])]})
     return out
+
+
+def coefficient_table(row: Mapping[str, Any]) -> pd.DataFrame:
+    """Every fitted coefficient behind a map: outcome, arm, term, estimate, standard error."""
+    return pd.DataFrame([{"outcome": o, "arm": arm, "term": c["term"], "estimate": c["estimate"],
+                          "standard error": c["se"]}
+                         for o, by_arm in (row.get("coefficients") or {}).items()
+                         for arm, cs in by_arm.items() for c in cs],
+                        columns=["outcome", "arm", "term", "estimate", "standard error"])

@@ -1,7 +1,6 @@
 """Two indices: which arm is favoured over the plane of two indices, where the arms break even, the patient's point."""
 import json
 
-import pandas as pd
 import streamlit as st
 
 import fulcrum_ui as ui
@@ -117,9 +116,8 @@ for w in row["warnings"]:
     st.warning(aps.md_escape(w))
 with st.expander("The models behind the map"):
     ui.sentence(row["methods"])
-    st.dataframe(pd.DataFrame([{"outcome": o, "arm": arm, "term": c["term"], "estimate": c["estimate"],
-                                "standard error": c["se"]}
-                               for o, by_arm in row["coefficients"].items() for arm, cs in by_arm.items()
-                               for c in cs]), hide_index=True, width="stretch")
+    for note in row["notes"]:
+        ui.sentence(note)
+    st.dataframe(maps.coefficient_table(row), hide_index=True, width="stretch")
 st.download_button("This map (.json)", data=json.dumps(row, allow_nan=False), file_name=f"map_{first}_{second}.json",
                    mime="application/json", on_click="ignore", icon=":material/download:")

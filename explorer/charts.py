@@ -187,9 +187,13 @@ def _quick(fn: Callable) -> Callable:
 
 def _chart(data: pd.DataFrame) -> alt.Chart:
     """A chart over inline records (much faster to build and serialise than Altair's frame handling)."""
-    recs = [{k: (None if isinstance(v, float) and not math.isfinite(v) else _native(v)) for k, v in r.items()}
+    return alt.Chart(alt.InlineData(values=_records(data)))
+
+
+def _records(data: pd.DataFrame) -> list[dict]:
+    """A frame as JSON-ready records, non-finite numbers as null."""
+    return [{k: (None if isinstance(v, float) and not math.isfinite(v) else _native(v)) for k, v in r.items()}
             for r in data.to_dict("records")]
-    return alt.Chart(alt.InlineData(values=recs))
 
 
 def _native(v: Any) -> Any:
@@ -963,7 +967,7 @@ def km_chart(fs: Any, outcome: str, *, index: str | None = None, between: tuple[
     colour = alt.Color("arm:N", scale=_arm_scale(arms), legend=ARM_LEGEND)
     unit = f" ({o.units})" if o.units else ""
     x = alt.X("time:Q", title=f"time{unit}")
-    layers = _km_steps(df, x, colour, 3)
+    layers = _km_steps(_chart(df), x, colour, 3)
     if o.horizon:
         layers.append(_chart(pd.DataFrame([{"t": float(o.horizon)}])).mark_rule(color=INK, strokeDash=[5, 4])
                       .encode(x=alt.X("t:Q")))
@@ -1472,26 +1476,52 @@ def describe_horizon(check: Mapping[str, Any], index_label: str | None = None, u
     return "; ".join(parts) + "."
 
 
+KM_DRAW_TOLERANCE = 0.004
+
+
+def drawn_steps(steps: Sequence[Mapping[str, Any]], tolerance: float = KM_DRAW_TOLERANCE) -> list[Mapping[str, Any]]:
+    """The Kaplan-Meier steps worth drawing: a step is kept once the curve or an interval end has moved by
+    `tolerance` since the last kept one, so the drawn curve stays within it of the estimate with far fewer points."""
+    if len(steps) <= 2:
+        return list(steps)
+    kept = [steps[0]]
+    for s in steps[1:-1]:
+        last = kept[-1]
+        if any(abs((s[k] or 0.0) - (last[k] or 0.0)) >= tolerance for k in ("survival", "lower", "upper")):
+            kept.append(s)
+    kept.append(steps[-1])
+    return kept
+
+
 def _km_rows(curves: Iterable[Mapping[str, Any]], band: str | None) -> list[Mapping[str, Any]]:
     return [c for c in curves if (c.get("band") or {}).get("label") == band]
 
 
-def _km_steps(steps: pd.DataFrame, x: alt.X, colour: alt.Color, width: float) -> list[alt.Chart]:
-    """Kaplan-Meier steps per arm (time, survival, lower, upper, arm): the interval band and the curve."""
-    return [_chart(steps).mark_area(opacity=0.18, interpolate="step-after").encode(
+def _km_steps(steps: alt.Chart, x: alt.X, colour: alt.Color, width: float) -> list[alt.Chart]:
+    """Kaplan-Meier steps per arm (a chart over time, survival, lower, upper, arm): the interval band and the curve."""
+    return [steps.mark_area(opacity=0.18, interpolate="step-after").encode(
                 x=x, y=alt.Y("lower:Q", title="probability alive", scale=alt.Scale(domain=[0, 1])),
                 y2=alt.Y2("upper"), color=colour),
-            _chart(steps).mark_line(strokeWidth=width, interpolate="step-after").encode(
+            steps.mark_line(strokeWidth=width, interpolate="step-after").encode(
                 x=x, y=alt.Y("survival:Q"), color=colour,
                 tooltip=[alt.Tooltip("arm:N"), alt.Tooltip("time:Q", format=".4~g"),
                          alt.Tooltip("survival:Q", format=".3f"), alt.Tooltip("lower:Q", format=".3f"),
                          alt.Tooltip("upper:Q", format=".3f")])]
 
 
-def _km_panel(rows: Sequence[Mapping[str, Any]], arms: Sequence[str], *, units: str | None, horizon: float | None,
-              size: tuple[float, float], title: str | None = None) -> alt.VConcatChart:
+def _named(datasets: dict[str, list[dict]], data: pd.DataFrame) -> alt.Chart:
+    """A chart over records held once in `datasets` (set at the top level), so panels and layers are
+    composed without Altair copying the data each time."""
+    name = f"data_{len(datasets) + 1}"
+    datasets[name] = _records(data)
+    return alt.Chart(alt.NamedData(name=name))
+
+
+def _km_panel(rows: Sequence[Mapping[str, Any]], arms: Sequence[str], datasets: dict[str, list[dict]], *,
+              units: str | None, horizon: float | None, size: tuple[float, float],
+              title: str | None = None) -> alt.VConcatChart:
     """Kaplan-Meier steps with their bands, and the numbers at risk in rows beneath on the same time axis."""
-    steps = pd.DataFrame([{"arm": c["arm"], **s} for c in rows for s in c["steps"]],
+    steps = pd.DataFrame([{"arm": c["arm"], **s} for c in rows for s in drawn_steps(c["steps"])],
                          columns=["arm", "time", "survival", "lower", "upper"])
     risk = pd.DataFrame([{"arm": c["arm"], "time": a["time"], "n": a["n"]} for c in rows for a in c["at_risk"]],
                         columns=["arm", "time", "n"])
@@ -1500,14 +1530,14 @@ def _km_panel(rows: Sequence[Mapping[str, Any]], arms: Sequence[str], *, units: 
     xs = alt.Scale(domain=[-0.05 * top_t, 1.02 * top_t], nice=False, zero=False)
     unit = f" ({units})" if units else ""
     x = alt.X("time:Q", scale=xs, title=None)
-    layers = _km_steps(steps, x, colour, 2.5)
+    layers = _km_steps(_named(datasets, steps), x, colour, 2.5)
     if horizon:
-        layers.append(_chart(pd.DataFrame([{"time": float(horizon)}])).mark_rule(color=INK, strokeDash=[5, 4])
+        layers.append(_named(datasets, pd.DataFrame([{"time": float(horizon)}])).mark_rule(color=INK, strokeDash=[5, 4])
                       .encode(x=alt.X("time:Q", scale=xs)))
     curves = _sized(alt.layer(*layers), *size)
     if title:
         curves.title = alt.TitleParams(title, fontSize=FONT["subtitle"])
-    table = _chart(risk).mark_text(fontSize=FONT["text"] - 2).encode(
+    table = _named(datasets, risk).mark_text(fontSize=FONT["text"] - 2).encode(
         x=alt.X("time:Q", scale=xs, title=f"time{unit}"),
         y=alt.Y("arm:N", sort=list(arms), title="at risk", axis=alt.Axis(labelLimit=110)),
         text=alt.Text("n:Q"), color=alt.Color("arm:N", scale=_arm_scale(arms), legend=None))
@@ -1522,7 +1552,9 @@ def kaplan_meier_chart(curves: Sequence[Mapping[str, Any]], arms: Sequence[str],
     """Kaplan-Meier curves per arm (checks.km_curves rows; all patients, or one band of the index by its
     label) with numbers at risk beneath."""
     rows = _km_rows(curves, band)
-    chart = _km_panel(rows, arms, units=units, horizon=horizon, size=(WIDTH, HEIGHT * 0.8))
+    datasets: dict[str, list[dict]] = {}
+    chart = _km_panel(rows, arms, datasets, units=units, horizon=horizon, size=(WIDTH, HEIGHT * 0.8))
+    chart.datasets = datasets
     outcome = label or (rows[0]["outcome"] if rows else "")
     where = "all patients" if band is None else f"index band {band}"
     return _finish(chart, f"{outcome}: Kaplan-Meier by arm, {where}",
@@ -1536,10 +1568,12 @@ def kaplan_meier_bands_chart(curves: Sequence[Mapping[str, Any]], arms: Sequence
                              label: str | None = None, style: bool = True) -> alt.TopLevelMixin:
     """Kaplan-Meier curves per arm in each band of the index, one small panel per band with its numbers at risk."""
     bands = list(dict.fromkeys(c["band"]["label"] for c in curves if c.get("band")))
-    panels = [_km_panel(_km_rows(curves, b), arms, units=units, horizon=horizon, size=PANEL,
+    datasets: dict[str, list[dict]] = {}
+    panels = [_km_panel(_km_rows(curves, b), arms, datasets, units=units, horizon=horizon, size=PANEL,
                         title=f"{index_label} {b}") for b in bands]
-    chart = alt.concat(*panels, columns=columns, spacing=24) if panels else _km_panel([], arms, units=units,
-                                                                                      horizon=horizon, size=PANEL)
+    chart = (alt.concat(*panels, columns=columns, spacing=24) if panels
+             else _km_panel([], arms, datasets, units=units, horizon=horizon, size=PANEL))
+    chart.datasets = datasets
     outcome = label or (curves[0]["outcome"] if curves else "")
     desc = " ".join(f"{index_label} {b}: " + describe_km(_km_rows(curves, b), units=units, horizon=horizon)
                     for b in bands)

@@ -201,21 +201,48 @@ for note in cohort.notes:
 
 st.subheader("Patients by arm and allocation")
 st.table(cohort.counts())
+charts = ui.engine("charts")
+arms = list(ws.spec.cohort.arms)
 
-st.subheader("How each index is spread, by arm")
+st.subheader("Baseline characteristics by arm and allocation")
+baseline = ui.attempt(ws.baseline)
+if charts is None:
+    ui.not_available("The baseline table", "explorer/charts.py")
+elif baseline:
+    st.caption("Mean (SD), or share for yes/no characteristics, in each arm among all, randomised and chosen "
+               "patients; standardised mean differences (SMD) above 0.1 are flagged.")
+    st.dataframe(charts.baseline_frame(baseline), hide_index=True, width="stretch")
+    ui.altair(charts.smd_chart(baseline), charts.describe_baseline(baseline))
+elif baseline is not None:
+    st.caption("Name baseline covariates in the spec ([cohort] covariates = [...]) to compare the arms on them here.")
+clusters = ui.attempt(ws.clustering)
+if charts is not None:
+    st.caption(aps.md_escape(charts.describe_clustering(clusters)))
+for w in (clusters or {}).get("warnings", []):
+    st.caption("Note: " + aps.md_escape(w))
+
+st.subheader("How each index is spread, by arm, and where the randomised patients are")
 index_values = ui.attempt(ws.index_values)
-chart_fn = ui.part("charts", "index_distribution_chart")
-if index_values is not None and chart_fn is None:
+if index_values is not None and charts is None:
     ui.not_available("The index charts", "explorer/charts.py")
 elif index_values is not None:
     arm_col = cohort.frame[ws.spec.cohort.arm].astype(str).to_numpy()
     for ix in ws.spec.indices:
         iv = index_values[ix.name]
+        st.markdown(f"**{aps.md_escape(ix.title)}**")
         df = pd.DataFrame({"x": iv.values, "arm": arm_col})
-        chart = chart_fn(df, arms=list(ws.spec.cohort.arms), label=ix.title, discrete=iv.info.get("discrete"))
+        chart = charts.index_distribution_chart(df, arms=arms, label=ix.title, discrete=iv.info.get("discrete"))
         pct = iv.info.get("percentiles") or {}
-        text = (f"{ix.title}: " + ", ".join(f"{k}th percentile {v:.3g}" for k, v in pct.items()) + "."
+        units = iv.info.get("units")
+        text = (f"{ix.title}" + (f", in {units}" if units else "") + ": "
+                + ", ".join(f"{k}th percentile {charts.fmt(v)}" for k, v in pct.items()) + "."
                 if pct else ix.title)
         ui.altair(chart, text)
         for w in iv.warnings:
             st.caption(aps.md_escape(w))
+        coverage = ui.attempt(ws.coverage, ix.name)
+        if coverage:
+            ui.altair(charts.coverage_chart(coverage, arms, index_label=ix.title),
+                      charts.describe_coverage(coverage, arms, ix.title))
+            with st.expander(f"Patients per window of {ix.title}"):
+                st.dataframe(charts.coverage_frame(coverage, arms), hide_index=True, width="stretch")

@@ -55,7 +55,9 @@ with st.expander("Bootstrap intervals (run on request)", expanded=ws.has_bootstr
 rows = ui.curve_rows(ws, bootstrap=use_boot)
 if rows is None:
     st.stop()
-doc = {"arms": arms, "results": rows}
+with st.spinner("Checking the curves against the data..."):
+    checks = ui.attempt(ws.checks) or []
+doc = {"arms": arms, "results": rows, "checks": checks}
 charts = ui.engine("charts")
 
 # ------------------------------------------------------------------------------------------
@@ -65,11 +67,62 @@ st.header("All break-even points")
 if charts is None:
     ui.not_available("The break-even table", "explorer/charts.py")
 else:
-    st.dataframe(charts.breakeven_table(doc), hide_index=True, width="stretch")
+    st.caption("Each row first says whether the difference between the arms changes along the index at all "
+               "(likelihood-ratio test); where it does not clearly change, the break-even point rests on weak evidence.")
+    st.dataframe(charts.breakeven_summary_table(doc), hide_index=True, width="stretch")
+    clusters = ui.attempt(ws.clustering)
+    st.caption(aps.md_escape(charts.describe_clustering(clusters)))
+    for w in (clusters or {}).get("warnings", []):
+        st.caption("Note: " + aps.md_escape(w))
 
 # ------------------------------------------------------------------------------------------
-# One index at a time: a chart and its sentence per outcome
+# One index at a time: the effect-modification test, a chart and its sentence per outcome, the checks
 # ------------------------------------------------------------------------------------------
+def show_effect_modification(check: dict | None) -> None:
+    """The test of whether the effect changes along the index, said before any break-even point."""
+    em = (check or {}).get("effect_modification")
+    if not em:
+        return
+    text = "**Does the effect change along the index?** " + aps.md_escape(charts.describe_effect_modification(em))
+    (st.warning if em.get("weak_evidence") else st.success)(text)
+
+
+def show_checks(check: dict, row: dict, label: str) -> None:
+    """Observed against fitted, calibration, sliding windows and, for survival, Kaplan-Meier curves and the
+    break-even by horizon: each said in words, and drawn as a chart on request (charts are slow to send)."""
+    outcome = ws.spec.outcome(row["outcome"])
+    draw = st.toggle("Draw these checks as charts", key=ui.key(f"draw:{row['outcome']}:{row['index']}"))
+
+    def piece(make_chart, text: str) -> None:
+        if draw:
+            ui.altair(make_chart(), text)
+        else:
+            ui.sentence(text)
+
+    piece(lambda: charts.observed_fitted_chart(check, arms, row, index_label=label),
+          charts.describe_observed_fitted(check, label))
+    st.dataframe(charts.calibration_table(check), hide_index=True, width="stretch")
+    ui.sentence(charts.describe_calibration(check))
+    piece(lambda: charts.sliding_window_chart(check, arms, row, index_label=label),
+          charts.describe_sliding_window(check, arms, label))
+    if outcome.kind == "survival":
+        km = {"units": outcome.units, "horizon": outcome.horizon, "label": outcome.title}
+        overall = ui.attempt(ws.km_curves, outcome.name)
+        if overall:
+            piece(lambda: charts.kaplan_meier_chart(overall, arms, **km),
+                  charts.describe_km(overall, units=outcome.units, horizon=outcome.horizon))
+        banded = ui.attempt(ws.km_curves, outcome.name, row["index"]) if draw else None
+        if banded:
+            chart = charts.kaplan_meier_bands_chart(banded, arms, index_label=label, **km)
+            ui.altair(chart)
+            st.caption(aps.md_escape(ui.description(chart)))
+        if check.get("horizon_curve"):
+            piece(lambda: charts.horizon_chart(check, arms, row, index_label=label, units=outcome.units),
+                  charts.describe_horizon(check, label, outcome.units))
+    for w in check.get("warnings", []):
+        st.caption("Note: " + aps.md_escape(w))
+
+
 names = [ix.name for ix in ws.spec.indices]
 titles = {ix.name: ix.title for ix in ws.spec.indices}
 index = st.radio("Index", names, format_func=titles.get, horizontal=True, key=ui.seed("index", names[0]))
@@ -81,13 +134,19 @@ for row in [r for r in doc["results"] if r["index"] == index]:
     if charts is None:
         ui.not_available("Charts", "explorer/charts.py")
         continue
+    check = charts.check_for(checks, row["outcome"], index)
+    show_effect_modification(check)
     points = ui.attempt(charts.cohort_points, ws.fitset(), row["outcome"], index) if show_points else None
     ui.altair(charts.outcome_chart(row, arms, points, index_label=titles[index]),
-              charts.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin))
+              " ".join(t for t in (charts.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin),
+                                   charts.describe_percentiles(row, titles[index])) if t))
     with st.expander("The difference between the arms, and the numbers"):
         ui.altair(charts.difference_chart(row, arms, margin=ws.spec.analysis.margin, index_label=titles[index]))
         st.dataframe(charts.curve_table(row, arms, every=max(1, len(row["curve"]) // 25)), hide_index=True,
                      width="stretch")
+    if check is not None:
+        with st.expander("Can these curves be trusted?"):
+            show_checks(check, row, titles[index])
     for w in row.get("warnings", []):
         st.caption("Note: " + aps.md_escape(w))
 

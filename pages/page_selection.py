@@ -25,18 +25,12 @@ titles = {ix.name: ix.title for ix in ws.spec.indices}
 index = st.radio("Index", names, format_func=titles.get, horizontal=True, key=ui.seed("sindex", names[0]))
 
 st.header(f"Where the randomised patients are, along {titles[index]}")
-coverage = ui.attempt(selection.randomised_coverage, ws.fitset(), index)
-if coverage:
-    table = pd.DataFrame([{"from": c["from"], "to": c["to"],
-                           **{f"{arm} randomised": c["n"][arm]["randomised"] for arm in arms},
-                           **{f"{arm} chosen": c["n"][arm]["chosen"] for arm in arms},
-                           "few randomised": "yes" if c["sparse"] else ""} for c in coverage])
-    st.dataframe(table, hide_index=True, width="stretch")
-    sparse = [c for c in coverage if c["sparse"]]
-    if sparse:
-        ui.sentence("Randomised evidence is sparse from " + "; ".join(f"{c['from']:.3g} to {c['to']:.3g}"
-                                                                       for c in sparse)
-                    + f" on {titles[index]}: there the comparison rests mostly on chosen patients.")
+coverage = ui.attempt(ws.coverage, index)
+if coverage and charts is not None:
+    ui.altair(charts.coverage_chart(coverage, arms, index_label=titles[index]),
+              charts.describe_coverage(coverage, arms, titles[index]))
+    with st.expander(f"Patients per window of {titles[index]}"):
+        st.dataframe(charts.coverage_frame(coverage, arms), hide_index=True, width="stretch")
 
 with_shift = ws.has_selection(None)
 if not with_shift and st.button("Add intervals for the shift in break-even (bootstrap, takes a while)"):

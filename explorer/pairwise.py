@@ -11,6 +11,7 @@ and each replicate costs a matrix product, not a new comparison.
 from __future__ import annotations
 
 import functools
+import hashlib
 import math
 from dataclasses import dataclass
 from typing import Any, Sequence
@@ -31,6 +32,8 @@ MAX_PAIRS = 50_000_000
 MAX_WINDOWS = 100
 STEP_FRACTION = 0.5
 FEW = 10
+COUNTS_KEPT = 8
+_COUNTS: dict[tuple, tuple[np.ndarray, np.ndarray]] = {}
 
 
 @dataclass(frozen=True)
@@ -209,7 +212,8 @@ def bootstrap(groups: Sequence[np.ndarray], levels: int, replicates: int, seed: 
     """Per group (a decision matrix), replicate wins and losses by level, resampling patients within arm.
 
     Each replicate draws from its own seed (explorer.resampling), so it does not depend on chunking;
-    progress is reported in replicates, in proportion to the pairs done.
+    progress is reported in replicates, in proportion to the pairs done. Counts are kept for the last few
+    groups, so the whole-cohort group, the same along every index, is counted once.
     """
     sizes = [g.shape for g in groups]
     draws = run_replicates(functools.partial(resample_counts, sizes=sizes), replicates, seed)
@@ -217,9 +221,15 @@ def bootstrap(groups: Sequence[np.ndarray], levels: int, replicates: int, seed: 
     done = 0
     out = []
     for g, d in enumerate(groups):
-        a = np.stack([rep[g][0] for rep in draws])
-        b = np.stack([rep[g][1] for rep in draws])
-        out.append(weighted_counts(d, levels, a, b))
+        # a group's draws depend on the seed, its place in each replicate's stream and the sizes before it
+        key = (hashlib.sha1(d.tobytes()).hexdigest(), d.shape, levels, replicates, seed, tuple(sizes[:g]))
+        if key not in _COUNTS:
+            a = np.stack([rep[g][0] for rep in draws])
+            b = np.stack([rep[g][1] for rep in draws])
+            while len(_COUNTS) >= COUNTS_KEPT:
+                _COUNTS.pop(next(iter(_COUNTS)))
+            _COUNTS[key] = weighted_counts(d, levels, a, b)
+        out.append(tuple(v.copy() for v in _COUNTS[key]))
         done += d.size
         if progress:
             progress(replicates * done // total, replicates)

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import copy
 import dataclasses
+import threading
 from dataclasses import dataclass, field
 from typing import Any, Callable, Mapping, Sequence
 
@@ -178,6 +179,7 @@ class PlaneModel:
     index_info: list[dict]
     composite: vl.CompositeModel | None = None
     notes: list[str] = field(default_factory=list)
+    lock: threading.Lock = field(default_factory=threading.Lock, repr=False, compare=False)
 
     @property
     def anchor(self) -> an.PairFit:
@@ -198,6 +200,12 @@ class PlaneModel:
         shape = x.shape
         x, y = x.reshape(-1), y.reshape(-1)
         margin = self.spec.analysis.margin if margin is None else float(margin)
+        with self.lock:
+            diff, var = self._at(x, y, weights)
+        return (diff - margin).reshape(shape), np.maximum(var, 0.0).reshape(shape)
+
+    def _at(self, x: np.ndarray, y: np.ndarray, weights) -> tuple[np.ndarray, np.ndarray]:
+        """Difference and variance with the plane fits held at these second-index values (one caller at a time)."""
         keep = self.plane.y
         self.plane.y = y
         try:
@@ -213,7 +221,7 @@ class PlaneModel:
                 var = f1.measure_var(x) + f2.measure_var(x)
         finally:
             self.plane.y = keep
-        return (diff - margin).reshape(shape), np.maximum(var, 0.0).reshape(shape)
+        return diff, var
 
     def methods(self) -> str:
         """The methods sentence: which models, which terms, which intervals."""
@@ -222,7 +230,7 @@ class PlaneModel:
         adjusted = sorted({c for pf in self.pairs.values() for c in pf.outcome.adjust})
         return (f"Per arm, {' and '.join(models)}{', each' if len(models) > 1 else ''} with {a} and {b} as linear "
                 "terms" + (" and their product" if self.map.interaction else "")
-                + (f", adjusted for {', '.join(adjusted)} (held at their pooled means)" if adjusted else "")
+                + (f", adjusted for {', '.join(adjusted)} (each held at its pooled mean)" if adjusted else "")
                 + ". Pointwise delta-method intervals, the two arms' models being independent.")
 
 

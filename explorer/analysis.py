@@ -489,6 +489,7 @@ def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | Non
     """
     from . import checks as ck
     from . import imputation as im
+    from . import maps as mp
     from . import pairwise as pw
     from . import results as res
     from . import selection as sel
@@ -525,6 +526,7 @@ def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | Non
     if clusters:
         extra["clustering"] = clusters
         warnings += clusters["warnings"]
+    extra["maps"] = mp.decision_maps(fs)
     extra["imputation"] = im.imputed_break_evens(fs, m=spec.analysis.imputations) if spec.analysis.imputations else []
     doc = res.document(spec, data_sha256=fs.cohort.sha256, spec_bytes=spec_bytes, rows=rows,
                        composite=vl.composite_rows(fs, composite) if composite else [],

@@ -396,6 +396,10 @@ covariates = ["age", "sex", "cfs", "lactate", "albumin"]
 [pairwise]
 priority = ["alive", "function", "qol"]
 window = 400
+
+[[maps]]
+indices = ["cfs", "physiology"]
+target = "composite"
 """
 
 

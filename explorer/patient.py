@@ -9,7 +9,7 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import asdict, dataclass, field
-from typing import Any, Mapping
+from typing import Any, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -18,14 +18,18 @@ from scipy import stats
 from . import breakeven as be
 from .analysis import SPARSE_SHARE, STRETCHES, FitSet, PairFit
 from .charts import fmt, per_hundred, words
+from .conversation import WHO_SHORT, ValuesRecord
 from .errors import FulcrumError
 from .results import _jsonable
-from .spec import OutcomeSpec
+from .spec import OutcomeSpec, SelectionSpec
 
 WHOSE = {"patient": "the patient's", "proxy": "a proxy's", "team": "the treating team's"}
 CODED = re.compile(r"covariate '(.+)' is text with two values: coded '(.*)' = 1, '(.*)' = 0\.$")
-FIRM = 0.95
 LEANING = 0.80
+HORIZON_WORDS = {"days": {365: "one year", 366: "one year", 730: "two years", 182: "six months",
+                          183: "six months", 90: "three months", 91: "three months"},
+                 "months": {12: "one year", 6: "six months", 24: "two years", 3: "three months"},
+                 "years": {1: "one year", 2: "two years", 5: "five years"}}
 
 
 @dataclass
@@ -59,6 +63,17 @@ class ArmEstimate:
 
 
 @dataclass
+class LevelVerdict:
+    """The comparison at one whole level of a discrete index: the difference, its interval, who is ahead."""
+
+    level: int
+    difference: float
+    difference_ci: tuple[float, float]
+    favours: str | None
+    clear: bool
+
+
+@dataclass
 class Prediction:
     """One outcome along one index at the patient's value: both arms, the difference and the sentences."""
 
@@ -77,6 +92,10 @@ class Prediction:
     sentence: str
     uncertainty: str
     states_sentences: list[str] = field(default_factory=list)
+    horizon: float | None = None
+    units: str | None = None
+    by_level: list[LevelVerdict] | None = None
+    level_sentence: str | None = None
 
 
 @dataclass
@@ -96,6 +115,9 @@ class ValueJudgement:
     favours: str
     firmness: str
     sentence: str
+    detail: str = ""
+    by_level: list[LevelVerdict] | None = None
+    level_sentence: str | None = None
 
 
 @dataclass
@@ -111,6 +133,8 @@ class PatientView:
     judgements: list[ValueJudgement]
     limits: list[str]
     source: str
+    timing: str | None = None
+    record: ValuesRecord | None = None
 
     def prediction(self, outcome: str, index: str | None = None) -> Prediction:
         index = index or self.primary_index
@@ -119,14 +143,25 @@ class PatientView:
                 return p
         raise KeyError((outcome, index))
 
+    def place_sentence(self, index: str | None = None) -> str:
+        pl = self.placements[index or self.primary_index]
+        return f"These figures are for people like this patient: {_position(pl)}."
+
     def sentences(self, index: str | None = None) -> list[str]:
-        """The natural-frequency sentences along one index (the primary index by default)."""
+        """Everything said in words along one index (the primary by default): where the patient sits, the
+        natural-frequency sentences, the level-by-level statements, what the values favour, and the limits."""
         index = index or self.primary_index
-        out = []
+        out = [self.place_sentence(index)]
         for p in self.predictions:
             if p.index == index:
-                out.extend([p.sentence, *p.states_sentences, p.uncertainty])
-        out.extend(j.sentence for j in self.judgements if j.index == index)
+                out.extend([p.sentence, *p.states_sentences, p.uncertainty, *([p.level_sentence] if p.level_sentence
+                                                                               else [])])
+        for j in self.judgements:
+            if j.index == index:
+                out.extend([j.sentence, *([j.level_sentence] if j.level_sentence else [])])
+        out.extend(self.limits)
+        if self.timing:
+            out.append(self.timing)
         return out
 
     def to_json(self, identifiers: Mapping[str, Any] | None = None) -> dict:
@@ -135,7 +170,8 @@ class PatientView:
                "placements": {k: _jsonable(asdict(v)) for k, v in self.placements.items()},
                "predictions": [_jsonable(asdict(p)) for p in self.predictions],
                "judgements": [_jsonable(asdict(j)) for j in self.judgements],
-               "limits": list(self.limits)}
+               "limits": list(self.limits), "timing": self.timing,
+               "values_record": self.record.to_json() if self.record else None}
         if identifiers:
             doc["identifiers"] = {str(k): str(v) for k, v in identifiers.items()}
         return doc
@@ -251,37 +287,109 @@ def _arm_estimate(pf: PairFit, arm: str, x: float, z: float) -> ArmEstimate:
     return est
 
 
-def _where(pl: Placement) -> str:
+def _differences(pf: PairFit, xs: np.ndarray, z: float) -> tuple[np.ndarray, np.ndarray]:
+    """First minus second (oriented so that higher is better) at xs, and its standard error."""
+    arms = tuple(pf.fits)
+    raw = [np.asarray(pf.fits[arm].measure(xs), float) for arm in arms]
+    var = sum(np.asarray(pf.fits[arm].measure_var(xs), float) for arm in arms)
+    return pf.sign * (raw[0] - raw[1]), np.sqrt(np.maximum(var, 0.0))
+
+
+def _verdict(d: float, lo: float, hi: float, margin: float, arms: Sequence[str]) -> tuple[bool, str | None]:
+    """(clear, favoured arm) for a difference and its interval: ahead by the point estimate, clear when the
+    interval leaves out the margin."""
+    favours = arms[0] if d > margin else arms[1] if d < margin else None
+    return bool(lo > margin or hi < margin), favours
+
+
+def whole_levels(pl: Placement) -> np.ndarray:
+    """The whole levels of a discrete index within the cohort's range."""
+    lo, hi = pl.cohort_range
+    return np.arange(math.ceil(lo - 1e-9), math.floor(hi + 1e-9) + 1, dtype=float)
+
+
+def _by_level(xs: np.ndarray, d: np.ndarray, se: np.ndarray, z: float, margin: float, arms: Sequence[str]
+              ) -> list[LevelVerdict]:
+    out = []
+    for x, di, si in zip(xs, d, se):
+        lo, hi = float(di - z * si), float(di + z * si)
+        clear, fav = _verdict(float(di), lo, hi, margin, arms)
+        out.append(LevelVerdict(int(x), float(di), (lo, hi), fav, clear))
+    return out
+
+
+def level_runs(levels: Sequence[int]) -> str:
+    """'levels 1 to 3, 5 and 8 to 9' for sorted whole levels (runs of consecutive levels joined)."""
+    runs: list[list[int]] = []
+    for v in levels:
+        if runs and v == runs[-1][-1] + 1:
+            runs[-1].append(v)
+        else:
+            runs.append([v])
+    parts = [f"{r[0]}" if len(r) == 1 else f"{r[0]} to {r[-1]}" for r in runs]
+    head = "level " if len(levels) == 1 else "levels "
+    return head + (parts[0] if len(parts) == 1 else ", ".join(parts[:-1]) + " and " + parts[-1])
+
+
+def level_sentence(intro: str, verdicts: list[LevelVerdict], arms: Sequence[str]) -> str | None:
+    """Level-by-level words for a discrete index: where each arm is ahead and where the difference is clear."""
+    if not verdicts:
+        return None
+    ahead = [(arm, [v.level for v in verdicts if v.favours == arm]) for arm in arms]
+    parts = [f"{arm}{' is' if not k else ''} ahead at {level_runs(lv)}" for k, (arm, lv) in
+             enumerate([a for a in ahead if a[1]])]
+    even = [v.level for v in verdicts if v.favours is None]
+    if even:
+        parts.append(f"neither ahead at {level_runs(even)}")
+    head = f"{intro}, " + ", and ".join(parts) + "."
+    clear = [v.level for v in verdicts if v.clear]
+    tail = (f" The difference is clear at {level_runs(clear)}." if clear
+            else " At no level is the difference clear.")
+    return head + tail
+
+
+def horizon_words(horizon: float, units: str | None) -> str:
+    """A survival horizon as people say it ('one year' for 365 days), else the number and its units."""
+    named = HORIZON_WORDS.get((units or "").lower(), {}).get(horizon)
+    if named:
+        return named
+    return f"{horizon:g} {units}" if units else f"time {horizon:g}"
+
+
+def _position(pl: Placement) -> str:
     if pl.discrete:
-        return f"For people at level {int(pl.value)} on the {pl.label}"
+        return f"level {int(pl.value)} on the {pl.label}"
     unit = f" {pl.units}" if pl.units else ""
-    return f"For people with {pl.label} {fmt(pl.value)}{unit}"
+    return f"{pl.label} {fmt(pl.value)}{unit}"
 
 
 def _event_words(o: OutcomeSpec) -> str:
     if o.kind == "survival":
-        unit = f" {o.units}" if o.units else ""
-        return f"would be alive at {o.horizon:g}{unit}"
+        return f"would be alive at {horizon_words(o.horizon, o.units)}"
     if o.kind == "ordinal":
         fav = o.favourable or o.levels[:-1]
-        return "would be " + " or ".join(words(v) for v in fav) + f" ({o.title})"
-    return f"would have {o.title}"
+        return "would be " + " or ".join(words(v) for v in fav)
+    return f"would have this outcome ({o.title})"
 
 
-def _sentence(pf: PairFit, pl: Placement, ests: dict[str, ArmEstimate], arms: tuple[str, str]) -> str:
-    o = pf.outcome
-    a, b = (ests[arm] for arm in arms)
-    if is_probability(o):
-        return (f"{_where(pl)}, about {a.per_100} of 100 {_event_words(o)} with {arms[0]} (likely between "
-                f"{a.per_100_lower} and {a.per_100_upper}), and about {b.per_100} of 100 with {arms[1]} (likely "
-                f"between {b.per_100_lower} and {b.per_100_upper}).")
+def _sentence(o: OutcomeSpec, ests: dict[str, ArmEstimate], arms: tuple[str, str]) -> str:
+    """Each arm's estimate with its interval: natural frequencies for probabilities, else the average."""
+    out = []
     unit = f" {o.units}" if o.units else ""
-    if o.kind == "survival":
-        head = f"{_where(pl)}, people would live on average about {fmt(a.estimate)} of the first {o.horizon:g}{unit}"
-    else:
-        head = f"{_where(pl)}, the average {o.title} would be about {fmt(a.estimate)}{unit}"
-    return (f"{head} with {arms[0]} (likely between {fmt(a.lower)} and {fmt(a.upper)}), and about "
-            f"{fmt(b.estimate)} with {arms[1]} (likely between {fmt(b.lower)} and {fmt(b.upper)}).")
+    for i, arm in enumerate(arms):
+        e = ests[arm]
+        likely = (f"(likely between {e.per_100_lower} and {e.per_100_upper})" if is_probability(o)
+                  else f"(likely between {fmt(e.lower)} and {fmt(e.upper)})")
+        if is_probability(o):
+            who = "people like this " if i == 0 else ""
+            out.append(f"With {arm}, about {e.per_100} of 100 {who}{_event_words(o)} {likely}.")
+        elif o.kind == "survival":
+            out.append(f"With {arm}, people like this would live on average about {fmt(e.estimate)} of the first "
+                       f"{o.horizon:g}{unit} {likely}.")
+        else:
+            head = f"{o.title}: with {arm}, the average" if i == 0 else f"With {arm}, it"
+            out.append(f"{head} would be about {fmt(e.estimate)}{unit} {likely}.")
+    return " ".join(out)
 
 
 def _states_sentences(pf: PairFit, ests: dict[str, ArmEstimate], arms: tuple[str, str]) -> list[str]:
@@ -290,37 +398,37 @@ def _states_sentences(pf: PairFit, ests: dict[str, ArmEstimate], arms: tuple[str
         d = ests[arm].distribution_per_100
         if d:
             parts = [f"{n} {words(lv)}" for lv, n in d.items()]
-            out.append(f"With {arm}, of 100 people like this about " + ", ".join(parts[:-1]) + f" and {parts[-1]}"
-                       + f" ({pf.outcome.title}).")
+            out.append(f"With {arm}, of 100 people like this about " + ", ".join(parts[:-1]) + f" and {parts[-1]}.")
     return out
 
 
-def _uncertainty(pf: PairFit, clear: bool, favours: str | None) -> str:
+def _uncertainty(o: OutcomeSpec, clear: bool, favours: str | None) -> str:
     if clear:
-        return f"For people like this the difference in {pf.outcome.title} is clear: the data favour {favours}."
-    return (f"For people like this the difference in {pf.outcome.title} is not clear: its interval includes no "
-            "difference.")
+        return f"For {o.title}, the data clearly favour {favours} for people like this."
+    return f"For {o.title}, the data cannot tell which option is better for people like this."
 
 
 def predict(fs: FitSet, outcome: str, pl: Placement) -> Prediction:
     """One outcome at the patient's value of one index, from the fitted models."""
     a = fs.spec.analysis
     pf = fs.pair(outcome, pl.name)
+    o = pf.outcome
     arms = tuple(pf.fits)
     z = be.critical_value(a.level)
     ests = {arm: _arm_estimate(pf, arm, pl.value, z) for arm in arms}
-    xa = np.array([pl.value])
-    raw = [float(pf.fits[arm].measure(xa)[0]) for arm in arms]
-    var = sum(float(pf.fits[arm].measure_var(xa)[0]) for arm in arms)
-    d = pf.sign * (raw[0] - raw[1])
-    se = math.sqrt(max(var, 0.0))
+    d, se = (float(v[0]) for v in _differences(pf, np.array([pl.value]), z))
     ci = (d - z * se, d + z * se)
-    clear = ci[0] > a.margin or ci[1] < a.margin
-    favours = (arms[0] if d > a.margin else arms[1]) if clear else None
-    return Prediction(outcome, pf.outcome.title, pl.name, _measure(pf.outcome), pf.outcome.kind,
-                      is_probability(pf.outcome), pl.value, ests, d, ci, clear, favours,
-                      _sentence(pf, pl, ests, arms), _uncertainty(pf, clear, favours),
-                      _states_sentences(pf, ests, arms))
+    clear, favours = _verdict(d, *ci, a.margin, arms)
+    favours = favours if clear else None
+    by_level = sentence = None
+    if pl.discrete:
+        xs = whole_levels(pl)
+        by_level = _by_level(xs, *_differences(pf, xs, z), z, a.margin, arms)
+        sentence = level_sentence(f"For {o.title}", by_level, arms)
+    return Prediction(outcome, o.title, pl.name, _measure(o), o.kind, is_probability(o), pl.value, ests, d, ci,
+                      clear, favours, _sentence(o, ests, arms), _uncertainty(o, clear, favours),
+                      _states_sentences(pf, ests, arms), o.horizon if o.kind == "survival" else None, o.units,
+                      by_level, sentence)
 
 
 def _measure(o: OutcomeSpec) -> str:
@@ -329,21 +437,51 @@ def _measure(o: OutcomeSpec) -> str:
     return measure_words(o)
 
 
+def timing_sentence(outcomes: Sequence[OutcomeSpec]) -> str | None:
+    """The times the outcomes are counted at, said in words when they are not all the same known time."""
+    surv = [o for o in outcomes if o.kind == "survival"]
+    others = [o for o in outcomes if o.kind != "survival"]
+    if len({(o.horizon, o.units) for o in surv}) <= 1 and not others:
+        return None
+    text = ["The outcomes are not all counted at the same time."]
+    text += [f"{o.title} is counted at {o.horizon:g}{' ' + o.units if o.units else ''}." for o in surv]
+    if others:
+        text.append(f"The {'other outcomes are' if surv else 'outcomes are'} counted when the cohort recorded them, "
+                    "as their names say.")
+    return " ".join(text)
+
+
 # ------------------------------------------------------------------------------------------
 # Values: which arm the weights favour, and how firmly
 # ------------------------------------------------------------------------------------------
-def firmness(p_first: float, arms: tuple[str, str]) -> tuple[str, str]:
-    """(favoured arm, how firm in words) from the chance the first arm gives the higher value."""
+def firmness(p_first: float, arms: tuple[str, str], level: float = 0.95) -> tuple[str, str]:
+    """(favoured arm, how firm in words) from the chance the first arm gives the higher value: "firmly" exactly
+    when the two-sided interval at `level` leaves out the margin (chance above 0.5 + level / 2), so the words
+    agree with "the difference is clear"."""
     fav = arms[0] if p_first >= 0.5 else arms[1]
     p = max(p_first, 1 - p_first)
-    if p >= FIRM:
+    if p > 0.5 + level / 2:
         return fav, "firmly"
     if p >= LEANING:
         return fav, "leaning"
     return fav, "not clearly"
 
 
-def judge(fs: FitSet, pl: Placement, weights: Mapping[str, float] | None = None) -> list[ValueJudgement]:
+def _composite_words(fs: FitSet, kind: str, whose: str) -> str:
+    v = fs.spec.values
+    ordinal = fs.spec.outcome(v.outcome).title
+    who = WHO_SHORT.get(whose, whose)
+    if kind == "ordinal":
+        return f"Weighing the states of {ordinal} by {who} values"
+    if kind == "survival_function":
+        so = fs.spec.outcome(v.survival_outcome)
+        return (f"Weighing survival at {horizon_words(so.horizon, so.units)} and the states of {ordinal} "
+                f"by {who} values")
+    return "Counting time alive, weighted by quality of life"
+
+
+def judge(fs: FitSet, pl: Placement, weights: Mapping[str, float] | None = None, whose: str | None = None
+          ) -> list[ValueJudgement]:
     """Each composite of the spec at the patient's index value: the favoured arm and the chance it is ahead."""
     from . import values as val
 
@@ -352,27 +490,33 @@ def judge(fs: FitSet, pl: Placement, weights: Mapping[str, float] | None = None)
         return []
     out = []
     z = be.critical_value(spec.analysis.level)
-    whose = WHOSE.get(spec.values.whose, spec.values.whose)
+    margin = spec.analysis.margin
+    whose = whose or spec.values.whose
     for kind in val.default_kinds(spec):
         cm = val.prepare_composite(fs, kind, pl.name)
         w = val.check_weights(dict(weights) if weights is not None else spec.values.weights, cm.levels) \
             if cm.weighted else np.ones(1)
-        L, C = cm.at(np.array([pl.value]), True)
-        m = [float(L[i][0] @ w) for i in (0, 1)]
-        v = [float(w @ C[i][0] @ w) for i in (0, 1)]
-        d, se = m[0] - m[1], math.sqrt(max(v[0] + v[1], 0.0))
-        margin = spec.analysis.margin
+        xs = np.concatenate([[pl.value], whole_levels(pl) if pl.discrete else []])
+        L, C = cm.at(xs, True)
+        m = np.array([L[i] @ w for i in (0, 1)])
+        v = np.array([np.einsum("gij,i,j->g", C[i], w, w) for i in (0, 1)])
+        dd, ss = m[0] - m[1], np.sqrt(np.maximum(v[0] + v[1], 0.0))
+        d, se = float(dd[0]), float(ss[0])
         p_first = float(stats.norm.cdf((d - margin) / se)) if se > 0 else float(d > margin)
         arms = tuple(cm.arms)
-        fav, firm = firmness(p_first, arms)
-        per_arm = {arm: (m[i], m[i] - z * math.sqrt(max(v[i], 0)), m[i] + z * math.sqrt(max(v[i], 0)))
+        fav, firm = firmness(p_first, arms, spec.analysis.level)
+        sd = np.sqrt(np.maximum(v[:, 0], 0.0))
+        per_arm = {arm: (float(m[i, 0]), float(m[i, 0] - z * sd[i]), float(m[i, 0] + z * sd[i]))
                    for i, arm in enumerate(arms)}
         p_fav = p_first if fav == arms[0] else 1 - p_first
-        wd = dict(zip(cm.levels, map(float, w))) if cm.weighted else None
-        sentence = _judgement_sentence(kind, fav, firm, p_fav, d, (d - z * se, d + z * se), arms,
-                                       whose if cm.weighted else None)
-        out.append(ValueJudgement(kind, pl.name, pl.value, wd, spec.values.whose, cm.measure, per_arm, d,
-                                  (d - z * se, d + z * se), p_first, fav, firm, sentence))
+        ci = (d - z * se, d + z * se)
+        what = _composite_words(fs, kind, whose)
+        by_level = _by_level(xs[1:], dd[1:], ss[1:], z, margin, arms) if pl.discrete else None
+        lv_sentence = level_sentence("By this measure", by_level, arms) if by_level else None
+        out.append(ValueJudgement(kind, pl.name, pl.value, dict(zip(cm.levels, map(float, w))) if cm.weighted
+                                  else None, whose, cm.measure, per_arm, d, ci, p_first, fav, firm,
+                                  _judgement_sentence(what, fav, firm, p_fav), _judgement_detail(per_arm, d, ci, arms),
+                                  by_level, lv_sentence))
     return out
 
 
@@ -386,47 +530,73 @@ def chance_words(p: float) -> str:
     return f"about {n} in 100"
 
 
-def _judgement_sentence(kind: str, fav: str, firm: str, p_fav: float, d: float, ci: tuple[float, float],
-                        arms: tuple[str, str], whose: str | None) -> str:
-    what = f"With {whose} weights ({words(kind)} composite)" if whose else f"On {words(kind)} survival"
-    head = {"not clearly": f"{what}, neither option is clearly ahead",
-            "leaning": f"{what}, the balance leans towards {fav}",
-            "firmly": f"{what}, {fav} is firmly favoured"}[firm]
-    return (f"{head}: given the uncertainty in the models, the chance that {fav} gives the higher expected value "
-            f"is {chance_words(p_fav)} (difference {arms[0]} minus {arms[1]} {fmt(d)}, likely between "
+def _judgement_sentence(what: str, fav: str, firm: str, p_fav: float) -> str:
+    head = {"not clearly": f"{what}, neither option is clearly ahead.",
+            "leaning": f"{what}, the balance leans towards {fav}.",
+            "firmly": f"{what}, {fav} is clearly ahead."}[firm]
+    return f"{head} The chance that {fav} gives the better result is {chance_words(p_fav)}."
+
+
+def _judgement_detail(per_arm: dict[str, tuple[float, float, float]], d: float, ci: tuple[float, float],
+                      arms: tuple[str, str]) -> str:
+    each = "; ".join(f"with {arm} {fmt(e[0])} (likely between {fmt(e[1])} and {fmt(e[2])})"
+                     for arm, e in per_arm.items())
+    return (f"Expected value {each}. Difference, {arms[0]} minus {arms[1]}: {fmt(d)} (likely between "
             f"{fmt(ci[0])} and {fmt(ci[1])}).")
 
 
 # ------------------------------------------------------------------------------------------
 # Limits
 # ------------------------------------------------------------------------------------------
+def _stretch(fs: FitSet, pl: Placement) -> tuple[np.ndarray, str] | None:
+    """The cohort patients near this patient (at their whole level, or in their tenth of the index), and where."""
+    x = fs.indices[pl.name].values
+    ok = np.isfinite(x)
+    if pl.discrete:
+        return ok & (x == pl.value), f"At level {int(pl.value)} of the {pl.label}"
+    edges = np.unique(np.quantile(x[ok], np.linspace(0, 1, STRETCHES + 1)))
+    if len(edges) < 2:
+        return None
+    k = int(np.clip(np.searchsorted(edges, pl.value, side="right") - 1, 0, len(edges) - 2))
+    a, z = edges[k], edges[k + 1]
+    return ok & (x >= a) & (x <= z), f"Near this patient's {pl.label} ({fmt(a)} to {fmt(z)})"
+
+
 def _limits(fs: FitSet, pl: Placement) -> list[str]:
     out = []
     lo, hi = pl.cohort_range
     if pl.outside:
-        out.append(f"This patient's {pl.label} ({fmt(pl.value)}) lies outside the cohort's range ({fmt(lo)} to "
-                   f"{fmt(hi)}): every estimate along it is an extrapolation.")
+        out.append(f"This patient's {pl.label} ({fmt(pl.value)}) is outside the range seen in the cohort ({fmt(lo)} "
+                   f"to {fmt(hi)}). Every figure for it is a guess beyond the data.")
+    got = _stretch(fs, pl)
+    if got is None:
+        return out
+    inside, where = got
     arm_col = fs.cohort.frame[fs.spec.cohort.arm].to_numpy()
-    x = fs.indices[pl.name].values
-    ok = np.isfinite(x)
-    if pl.discrete:
-        a = z = pl.value
-        where = f"At level {int(pl.value)} of the {pl.label}"
-    else:
-        edges = np.unique(np.quantile(x[ok], np.linspace(0, 1, STRETCHES + 1)))
-        if len(edges) < 2:
-            return out
-        k = int(np.clip(np.searchsorted(edges, pl.value, side="right") - 1, 0, len(edges) - 2))
-        a, z = edges[k], edges[k + 1]
-        where = f"Near this patient's {pl.label} ({fmt(a)} to {fmt(z)})"
-    inside = ok & (x >= a) & (x <= z)
     total = int(inside.sum())
     for arm in fs.spec.cohort.arms:
         c = int((inside & (arm_col == arm)).sum())
         if total and c / total < SPARSE_SHARE:
-            out.append(f"{where}, {arm} has only {c} of {total} patients: the estimates there rest on the model "
+            out.append(f"{where}, only {c} of {total} patients had {arm}. The figures there rest on the model "
                        "more than on patients like this one.")
+    out.extend(_randomised_limits(fs, inside, where))
     return out
+
+
+def _randomised_limits(fs: FitSet, inside: np.ndarray, where: str) -> list[str]:
+    """Few randomised patients in either arm near the patient: the comparison there rests on chosen treatment."""
+    rand = fs.cohort.randomised
+    if rand is None:
+        return []
+    least = (fs.spec.selection or SelectionSpec()).min_per_window
+    arm_col = fs.cohort.frame[fs.spec.cohort.arm].to_numpy()
+    is_rand = rand.to_numpy(bool)
+    n = {arm: int((inside & is_rand & (arm_col == arm)).sum()) for arm in fs.spec.cohort.arms}
+    if all(c >= least for c in n.values()):
+        return []
+    counts = " and ".join(f"{c} had {arm}" for arm, c in n.items())
+    return [f"{where}, few patients were given their treatment at random: {counts} (fewer than {least} in an arm). "
+            "Where treatment was chosen, the people in each group may differ in ways the data do not show."]
 
 
 def _adjust_limits(fs: FitSet) -> list[str]:
@@ -436,7 +606,7 @@ def _adjust_limits(fs: FitSet) -> list[str]:
             pf = next(p for (on, _), p in fs.pairs.items() if on == o.name)
             fit = next(iter(pf.fits.values()))
             held = ", ".join(f"{n} = {fmt(v)}" for n, v in zip(getattr(fit, "z_names", ()), getattr(fit, "z_ref", ())))
-            out.append(f"{o.title}: the estimates hold {', '.join(o.adjust)} at the cohort's values ({held}), "
+            out.append(f"{o.title}: the figures hold {', '.join(o.adjust)} at the cohort's values ({held}), "
                        "not at this patient's own.")
     return out
 
@@ -445,12 +615,14 @@ def _adjust_limits(fs: FitSet) -> list[str]:
 # The view
 # ------------------------------------------------------------------------------------------
 def place_patient(fs: FitSet, values: Mapping[str, float] | None = None, *, row: int | None = None,
-                  weights: Mapping[str, float] | None = None, index: str | None = None) -> PatientView:
+                  weights: Mapping[str, float] | None = None, index: str | None = None,
+                  record: ValuesRecord | None = None) -> PatientView:
     """Place one patient on every index and outcome.
 
     values: index values by index name, or covariate values by column (each index computed by its own
     model); row: a cohort position (0-based) whose recorded index values fill what `values` leaves out.
-    weights: state weights for the composite (default: the spec's). index: the index to speak along first.
+    weights: state weights for the composite (default: the record's, else the spec's). index: the index to
+    speak along first. record: whose values the weights are, when given and where they came from.
     """
     values = dict(values or {})
     _check_row(fs, row)
@@ -458,6 +630,8 @@ def place_patient(fs: FitSet, values: Mapping[str, float] | None = None, *, row:
         raise FulcrumError("no values were given for the patient.",
                            hint="Give index values (e.g. {'cfs': 6}) or the covariates the indices use.")
     spec = fs.spec
+    if weights is None and record is not None:
+        weights = record.weights
     placements, limits = {}, []
     for ix in spec.indices:
         got = _index_value(fs, ix.name, values, row)
@@ -480,16 +654,16 @@ def place_patient(fs: FitSet, values: Mapping[str, float] | None = None, *, row:
     for name, pl in placements.items():
         limits.extend(_limits(fs, pl))
         preds.extend(predict(fs, o.name, pl) for o in spec.outcomes)
-        judgements.extend(judge(fs, pl, weights))
+        judgements.extend(judge(fs, pl, weights, record.whose if record else None))
     limits.extend(_adjust_limits(fs))
     source = "a cohort record" if row is not None and not values else \
         "entered values" if row is None else "a cohort record with entered values"
     return PatientView(tuple(spec.cohort.arms), spec.analysis.level, spec.analysis.margin, primary, placements,
-                       preds, judgements, list(dict.fromkeys(limits)), source)
+                       preds, judgements, list(dict.fromkeys(limits)), source, timing_sentence(spec.outcomes), record)
 
 
 # ------------------------------------------------------------------------------------------
-# The printable one-page summary
+# The printable summary (HTML here, PDF in patient_pdf.py): one plain content object for both
 # ------------------------------------------------------------------------------------------
 def icon_probabilities(p: Prediction) -> dict[str, dict[str, float]] | None:
     """Per arm, the state probabilities an icon array shows: ordinal levels, or alive / dead."""
@@ -504,39 +678,108 @@ def icon_probabilities(p: Prediction) -> dict[str, dict[str, float]] | None:
     return out
 
 
-def _icon_outcomes(view: PatientView) -> list[Prediction]:
+def _icon_outcomes(view: PatientView, spec_values: Any = None) -> list[Prediction]:
+    """The survival and the function outcome the icon arrays show: those the values combine (one horizon) when
+    the spec names them, else the first of each kind."""
     along = [p for p in view.predictions if p.index == view.primary_index]
-    ordinal = [p for p in along if p.kind == "ordinal"][:1]
-    survival = [p for p in along if p.kind == "survival" and p.probability][:1]
-    return survival + ordinal
+    want = {getattr(spec_values, "survival_outcome", None), getattr(spec_values, "outcome", None)} - {None}
+    ordinal = [p for p in along if p.kind == "ordinal"]
+    survival = [p for p in along if p.kind == "survival" and p.probability]
+    pick = [next((p for p in group if p.outcome in want), group[0]) for group in (survival, ordinal) if group]
+    return pick
 
 
-def patient_summary_html(view: PatientView, cautions: tuple[str, ...] | list[str], *,
-                         identifiers: Mapping[str, Any] | None = None) -> str:
-    """A printable one-page HTML summary: icon arrays per arm (inline SVG), values used, favoured arm, limits."""
-    from markupsafe import Markup
+def _cell(n: int | float, lo: int | float, hi: int | float, probability: bool) -> str:
+    if probability:
+        return f"{n} of 100 (likely {lo} to {hi})"
+    return f"{fmt(n)} (likely {fmt(lo)} to {fmt(hi)})"
 
-    from .charts import chart_to_svg, icon_array_chart, state_colours
-    from .report import render_template
+
+def outcome_table(p: Prediction, arms: Sequence[str]) -> list[list[str]]:
+    """Rows of [what, first arm, second arm]: each state's count of 100 with its interval (ordinal), else the
+    measure with its interval."""
+    if any(e.distribution for e in p.arms.values()):
+        levels = list(next(e.distribution for e in p.arms.values() if e.distribution))
+        return [[words(lv)] + [_cell(p.arms[a].distribution_per_100[lv], _count(p.arms[a].distribution[lv][1]),
+                                     _count(p.arms[a].distribution[lv][2]), True) for a in arms] for lv in levels]
+    return [[p.measure] + [_cell(*((p.arms[a].per_100, p.arms[a].per_100_lower, p.arms[a].per_100_upper)
+                                   if p.probability else (p.arms[a].estimate, p.arms[a].lower, p.arms[a].upper)),
+                                 p.probability) for a in arms]]
+
+
+@dataclass
+class IconArray:
+    """One outcome's icon arrays: per arm the state probabilities and counts of 100, with state colours."""
+
+    title: str
+    levels: list[str]
+    colours: dict[str, str]
+    probabilities: dict[str, dict[str, float]]
+    counts: dict[str, dict[str, int]]
+
+
+@dataclass
+class Summary:
+    """What the printable summary says, in order; the HTML template and the PDF writer both draw this."""
+
+    arms: tuple[str, str]
+    cautions: list[str]
+    identifiers: dict[str, str]
+    position: str
+    placements: list[Placement]
+    arrays: list[IconArray]
+    outcomes: list[dict]
+    values: list[str]
+    weights: dict[str, float] | None
+    judgements: list[ValueJudgement]
+    limits: list[str]
+
+
+def summary_content(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None,
+                    spec_values: Any = None) -> Summary:
+    """The summary's content along the primary index. spec_values: the spec's [values], to pick the outcomes
+    the icon arrays show (those the values combine, so they share a horizon)."""
+    from .charts import state_colours
 
     arrays = []
-    for p in _icon_outcomes(view):
+    for p in _icon_outcomes(view, spec_values):
         probs = icon_probabilities(p)
-        if not probs:
-            continue
-        levels = list(next(iter(probs.values())))
-        colours = state_colours(levels)
-        svgs = [(arm, Markup(chart_to_svg(icon_array_chart(probs[arm], "", colours, side=150, legend=None))))
-                for arm in view.arms]
-        counts = {arm: per_hundred(probs[arm]) for arm in view.arms}
-        rows = [(words(lv), colours[lv], [counts[arm][lv] for arm in view.arms]) for lv in levels]
-        arrays.append({"title": p.title, "svgs": svgs, "rows": rows})
-    pl = view.placements[view.primary_index]
+        if probs:
+            levels = list(next(iter(probs.values())))
+            arrays.append(IconArray(p.title, levels, state_colours(levels), probs,
+                                    {arm: per_hundred(probs[arm]) for arm in view.arms}))
+    along = [p for p in view.predictions if p.index == view.primary_index]
+    outcomes = [{"title": p.title, "rows": outcome_table(p, view.arms),
+                 "sentences": [p.sentence, p.uncertainty] + ([p.level_sentence] if p.level_sentence else [])}
+                for p in along]
     judgements = [j for j in view.judgements if j.index == view.primary_index]
-    weights = next((j for j in judgements if j.weights), None)
-    return render_template(
-        "patient.html", view=view, cautions=list(cautions), identifiers=dict(identifiers or {}), arrays=arrays,
-        primary=pl, placements=list(view.placements.values()),
-        sentences=[f"{p.sentence} {p.uncertainty}" for p in view.predictions if p.index == view.primary_index],
-        judgements=judgements, weights=weights, whose=WHOSE.get(weights.whose, weights.whose) if weights else "",
-        fmt=fmt, words=words)
+    record = view.record
+    weights = record.weights if record else next((j.weights for j in judgements if j.weights), None)
+    values = record.sentences() if record else []
+    limits = list(view.limits) + ([view.timing] if view.timing else [])
+    return Summary(view.arms, list(cautions), {str(k): str(v) for k, v in (identifiers or {}).items()},
+                   view.place_sentence(), list(view.placements.values()), arrays, outcomes, values, weights,
+                   judgements, limits)
+
+
+def patient_summary_html(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None,
+                         spec_values: Any = None) -> str:
+    """A printable HTML summary: position, icon arrays per arm (inline SVG), each arm's outcomes with intervals,
+    the values used and whose they are, the favoured arm and how firmly, the limits and the cautions."""
+    from markupsafe import Markup
+
+    from .charts import chart_to_svg, icon_array_chart
+    from .report import render_template
+
+    s = summary_content(view, cautions, identifiers=identifiers, spec_values=spec_values)
+    svgs = [[(arm, Markup(chart_to_svg(icon_array_chart(a.probabilities[arm], "", a.colours, side=150, legend=None))))
+             for arm in s.arms] for a in s.arrays]
+    return render_template("patient.html", s=s, svgs=svgs, fmt=fmt, words=words)
+
+
+def patient_summary_pdf(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None,
+                        spec_values: Any = None) -> bytes:
+    """The same summary as a PDF (drawn with reportlab, offline)."""
+    from .patient_pdf import summary_pdf
+
+    return summary_pdf(summary_content(view, cautions, identifiers=identifiers, spec_values=spec_values))

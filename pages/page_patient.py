@@ -1,4 +1,7 @@
-"""Patient: one patient's place along each index, each arm's predicted outcomes, and what the weights favour."""
+"""Patient: one patient's place along each index, a short values conversation, each arm's predicted outcomes,
+and what the values favour; a printable summary (HTML and PDF) for the meeting record."""
+import datetime as dt
+
 import streamlit as st
 
 import fulcrum_ui as ui
@@ -6,16 +9,24 @@ from explorer import CAUTIONS
 from explorer import appstate as aps
 
 ENTER, PICK = "Enter this patient's values", "Pick a patient from the cohort"
+RECORD = "values_record"
+WHOSE = {"patient": "The patient", "proxy": "Someone speaking for the patient", "team": "The treating team"}
 ws, patient = ui.page_head(
     "Patient",
     "Place one patient on the curves: where they sit on each index, what each arm predicts for people like "
-    "them, and which arm the stated values favour. Nothing is refitted.",
+    "them, and which arm their values favour. Nothing is refitted.",
     needs=("patient", "The patient view"))
+conv = ui.engine("conversation")
 arms = list(ws.spec.cohort.arms)
 charts = ui.engine("charts")
 fs = ui.fitted(ws)
 if fs is None:
     st.stop()
+
+
+def words(level: str) -> str:
+    return str(level).replace("_", " ")
+
 
 # ------------------------------------------------------------------------------------------
 # Who: entered values or a cohort row (its identifier is never shown or exported)
@@ -41,8 +52,100 @@ else:
 names = [ix.name for ix in ws.spec.indices]
 titles = {ix.name: ix.title for ix in ws.spec.indices}
 index = st.radio("Speak along", names, format_func=titles.get, horizontal=True, key=ui.seed("pindex", names[0]))
-weights = ws.spec.values.weights if ws.spec.values else None
-view = ui.attempt(patient.place_patient, fs, values, row=row, weights=weights, index=index)
+
+
+# ------------------------------------------------------------------------------------------
+# What matters to the patient: a short values conversation, turned into weights that stay editable
+# ------------------------------------------------------------------------------------------
+def keep_valid(key: str, options: list[str]) -> None:
+    """Drop choices that are no longer offered (a state moved to another answer)."""
+    if key in st.session_state:
+        st.session_state[key] = [o for o in st.session_state[key] if o in options]
+
+
+def conversation(levels: list[str], current) -> None:
+    """The guided questions; 'Use these values' applies the weights to the analysis and keeps the record."""
+    living = levels[:-1]
+    who = st.radio("Whose values are these?", list(WHOSE), format_func=WHOSE.get, horizontal=True,
+                   key=ui.seed("conv_whose", current.whose if current else "patient"))
+    q = conv.questions(who)
+    st.markdown(f"**1.** {aps.md_escape(q['acceptable'])} (Death is the fixed point of the scale, so it is not "
+                "asked about.)")
+    acceptable = st.multiselect("Acceptable states", living, format_func=words, key=ui.seed("conv_acceptable", []))
+    rest = [lv for lv in living if lv not in acceptable]
+    st.markdown(f"**2.** {aps.md_escape(q['worse'])}")
+    keep_valid(ui.key("conv_worse"), rest)
+    worse = st.multiselect("Worse than death", rest, format_func=words, key=ui.seed("conv_worse", []))
+    st.markdown(f"**3.** {aps.md_escape(q['ranking'])}")
+    order = st.multiselect("Order, best first (any left out follow in the list's order)", living, format_func=words,
+                           key=ui.seed("conv_order", living))
+    ratings = None
+    if st.checkbox(f"**4.** {q['ratings']} (optional)", key=ui.seed("conv_rate", False)):
+        base = ui.attempt(conv.weights_from_answers, levels, acceptable, worse, order)
+        if base is None:
+            return
+        ratings = {}
+        cols = st.columns(min(len(living), 4))
+        for i, lv in enumerate(living):
+            group = "acceptable" if lv in acceptable else "worse" if lv in worse else "neither"
+            with cols[i % len(cols)]:
+                ratings[lv] = st.number_input(f"{words(lv)} (0 = death, 100 = best)", min_value=-100, max_value=100,
+                                              step=5, key=ui.seed(f"conv_rating:{lv}:{group}",
+                                                                  int(round(100 * base[lv]))))
+    c1, c2, c3 = st.columns(3)
+    with c1:
+        day = st.date_input("Date", key=ui.seed("conv_date", dt.date.today()))
+    with c2:
+        clock = st.time_input("Time", key=ui.seed("conv_time", dt.datetime.now().time().replace(second=0,
+                                                                                              microsecond=0)))
+    with c3:
+        by = st.text_input("Recorded by (optional; shown in the summary)", key=ui.seed("conv_by", ""))
+    record = ui.attempt(conv.record_conversation, levels, acceptable, worse, order, ratings, whose=who,
+                        when=dt.datetime.combine(day, clock), recorded_by=by, keeping="The weights in use are kept.")
+    if record is None:
+        return
+    st.dataframe([{"state": words(lv), "weight": w} for lv, w in record.weights.items()], hide_index=True)
+    for note in record.notes:
+        st.caption(aps.md_escape(note))
+    if st.button("Use these values", type="primary", key=ui.key("conv_use")):
+        changed = ui.update_spec(lambda s: aps.edit_spec(s, {"values": {
+            "weights": record.weights, "whose": record.whose, "preset": None, "acceptable": list(acceptable)}}))
+        if changed or ws.spec.values.weights == record.weights:
+            st.session_state[ui.key(RECORD)] = record
+            for lv in levels:
+                st.session_state.pop(ui.key(f"pw:{lv}"), None)
+            st.rerun()
+
+
+def weights_in_use(levels: list[str]) -> None:
+    """The weights the judgements use, editable; a change marks the record as edited."""
+    v = ui.workspace().spec.values
+    cols = st.columns(min(len(levels), 5))
+    edited = {}
+    for i, lv in enumerate(levels):
+        with cols[i % len(cols)]:
+            edited[lv] = st.number_input(words(lv), min_value=-1.0, max_value=1.0, step=0.05, format="%.2f",
+                                         key=ui.seed(f"pw:{lv}", float(v.weights.get(lv, 0.0))))
+    if edited != dict(v.weights):
+        ui.update_spec(lambda s: aps.edit_spec(s, {"values": {"weights": edited, "preset": None}}))
+
+
+record = None
+if ws.spec.values is not None and conv is not None:
+    levels = list(ws.spec.outcome(ws.spec.values.outcome).levels)
+    st.header("What matters to the patient")
+    kept = st.session_state.get(ui.key(RECORD))
+    with st.expander("A short values conversation: the answers become the weights below", expanded=kept is None):
+        conversation(levels, kept)
+    st.subheader("Weights in use (death 0, best state 1; you can still change them)")
+    weights_in_use(levels)
+    ws = ui.workspace()
+    record = conv.current_record(st.session_state.get(ui.key(RECORD)), ws.spec.values)
+    for line in record.sentences():
+        ui.sentence(line)
+
+weights = record.weights if record else (ws.spec.values.weights if ws.spec.values else None)
+view = ui.attempt(patient.place_patient, fs, values, row=row, weights=weights, index=index, record=record)
 if view is None:
     st.stop()
 
@@ -50,12 +153,15 @@ if view is None:
 # Where the patient sits, and the limits of what the cohort can say
 # ------------------------------------------------------------------------------------------
 st.header("Where this patient sits")
+ui.sentence(view.place_sentence(index))
 st.dataframe([{"index": pl.label, "value": pl.value, "cohort percentile": round(pl.percentile),
                "cohort range": f"{pl.cohort_range[0]:.3g} to {pl.cohort_range[1]:.3g}",
                "inside the cohort's range": "no" if pl.outside else "yes", "from": pl.source}
               for pl in view.placements.values()], hide_index=True, width="stretch")
 for limit in view.limits:
     st.warning(aps.md_escape(limit))
+if view.timing:
+    st.info(aps.md_escape(view.timing))
 
 pl = view.placements.get(index)
 if pl is None:
@@ -67,9 +173,12 @@ marker = {"x": pl.value, "label": f"this patient ({pl.value:.3g}, percentile {pl
 # ------------------------------------------------------------------------------------------
 judgements = [j for j in view.judgements if j.index == index]
 if judgements:
-    st.header("What the stated values favour")
+    st.header("What these values favour")
     for j in judgements:
         st.info(aps.md_escape(j.sentence))
+        if j.level_sentence:
+            ui.sentence(j.level_sentence)
+        st.caption(aps.md_escape(j.detail))
 
 # ------------------------------------------------------------------------------------------
 # Each arm's predicted outcomes, in words, pictures and on the curves
@@ -79,33 +188,40 @@ preds = [p for p in view.predictions if p.index == index]
 curve_rows = {(r["outcome"], r["index"]): r for r in (ws.curve_rows() or [])}
 for p in preds:
     st.subheader(p.title)
-    for s in [p.sentence, *p.states_sentences, p.uncertainty]:
+    for s in [p.sentence, *p.states_sentences, p.uncertainty, *([p.level_sentence] if p.level_sentence else [])]:
         ui.sentence(s)
     probs = patient.icon_probabilities(p)
     if charts is not None and probs:
-        levels = list(next(iter(probs.values())))
-        colours = charts.state_colours(levels)
+        levels_p = list(next(iter(probs.values())))
+        colours = charts.state_colours(levels_p)
         icon_cols = st.columns(len(arms))
         for col, arm in zip(icon_cols, arms):
             with col:
                 chart = charts.icon_array_chart(probs[arm], f"With {arm}", colours)
                 ui.show_chart(chart)
                 st.caption(aps.md_escape(ui.description(chart) or ""))
-    table = [{"arm": a, "estimate": e.estimate, "interval": f"{e.lower:.3g} to {e.upper:.3g}"}
-             for a, e in p.arms.items()]
-    dist = [{"arm": a, "state": lv, "probability": v[0], "interval": f"{v[1]:.2f} to {v[2]:.2f}"}
-            for a, e in p.arms.items() for lv, v in (e.distribution or {}).items()]
     with st.expander("On the curve, and the numbers"):
         row_json = curve_rows.get((p.outcome, index))
         if charts is not None and row_json is not None:
             ui.altair(charts.outcome_chart(row_json, arms, patient=marker, index_label=titles[index]))
-        st.dataframe(dist or table, hide_index=True, width="stretch")
+        table = patient.outcome_table(p, arms)
+        st.dataframe([{"": r[0], **dict(zip(arms, r[1:]))} for r in table], hide_index=True, width="stretch")
 
 # ------------------------------------------------------------------------------------------
-# The one-page summary for the meeting record (no identifiers)
+# The summary for the meeting record (no identifiers unless added here)
 # ------------------------------------------------------------------------------------------
-st.header("One-page summary")
-html = ui.attempt(patient.patient_summary_html, view, CAUTIONS)
-if html is not None:
-    st.download_button("Printable summary (.html, no identifiers)", data=html, file_name="patient_summary.html",
-                       mime="text/html", on_click="ignore", icon=":material/print:")
+st.header("Summary for the meeting record")
+ident = st.text_input("Add a name or record number to the summary (optional; leave empty to keep it anonymous)",
+                      key=ui.seed("summary_ident", ""))
+identifiers = {"Patient": ident.strip()} if ident.strip() else None
+kwargs = {"identifiers": identifiers, "spec_values": ws.spec.values}
+note = "with the name or number added" if identifiers else "no identifiers"
+c1, c2 = st.columns(2)
+with c1:  # made when clicked, so moving a weight never waits for the files
+    st.download_button(f"Printable summary (.html, {note})", file_name="patient_summary.html", mime="text/html",
+                       data=lambda: patient.patient_summary_html(view, CAUTIONS, **kwargs), on_click="ignore",
+                       icon=":material/print:")
+with c2:
+    st.download_button(f"Summary as PDF ({note})", file_name="patient_summary.pdf", mime="application/pdf",
+                       data=lambda: patient.patient_summary_pdf(view, CAUTIONS, **kwargs), on_click="ignore",
+                       icon=":material/picture_as_pdf:")

@@ -161,10 +161,12 @@ def test_no_identifiers_unless_asked(fs):
 
 
 def test_outside_the_cohort_range_is_a_limit(fs, view):
-    assert not any("outside the cohort's range" in w for w in view.limits)
+    assert not any("outside the range seen" in w for w in view.limits)
     far = place_patient(fs, {"cfs": 9, "age": 101})
     assert far.placements["age"].outside and not far.placements["cfs"].outside
-    assert any("Age (101) lies outside the cohort's range" in w for w in far.limits)
+    age = fs.cohort.frame["age"]  # the cohort's own range, read with pandas
+    said = f"This patient's Age (101) is outside the range seen in the cohort ({age.min():g} to {age.max():g})."
+    assert any(w.startswith(said) for w in far.limits)
     assert any("could not be placed" in w for w in far.limits)
 
 
@@ -172,7 +174,77 @@ def test_discrete_index_speaks_by_whole_level(fs):
     v = place_patient(fs, {"cfs": 5.6})
     assert v.placements["cfs"].value == 6.0
     assert any("taken as level 6" in w for w in v.limits)
-    assert all("level 6 on the Clinical Frailty Scale" in p.sentence for p in v.predictions)
+    assert "level 6 on the Clinical Frailty Scale" in v.place_sentence("cfs")
+    said = " ".join(v.sentences("cfs"))
+    assert not re.search(r"\blevels? \d+\.\d", said)  # never a fractional level
+    for p in v.predictions:
+        assert (p.by_level is not None) == (p.index == "cfs")
+        if p.by_level:
+            assert [lv.level for lv in p.by_level] == list(range(1, 10))
+
+
+def _runs(text: str) -> set[int]:
+    """The whole levels named by 'level 3' / 'levels 1 to 3, 5 and 8 to 9'."""
+    out: set[int] = set()
+    for part in re.split(r",\s*|\s+and\s+", re.sub(r"^levels?\s+", "", text.strip())):
+        a, _, z = part.partition(" to ")
+        out |= set(range(int(a), int(z or a) + 1))
+    return out
+
+
+def test_level_statements_match_lifelines_at_each_whole_level(fs):
+    from lifelines import CoxPHFitter
+
+    o = fs.spec.outcome("alive")
+    arms = fs.spec.cohort.arms
+    p = place_patient(fs, {"cfs": 6}).prediction("alive", "cfs")
+    levels = np.arange(1.0, 10.0)
+    surv = {}
+    for arm in arms:
+        _, d = _arm_frame(fs, "alive", "cfs", arm)
+        cph = CoxPHFitter().fit(pd.DataFrame({"t": d.time, "e": d.event, "cfs": d.x}), "t", "e")  # lifelines
+        surv[arm] = cph.predict_survival_function(pd.DataFrame({"cfs": levels}), times=[o.horizon]).iloc[0].to_numpy()
+    diff = surv[arms[0]] - surv[arms[1]]
+    np.testing.assert_allclose([lv.difference for lv in p.by_level], diff, atol=1e-4)
+    for arm in arms:
+        ahead = {int(x) for x, d in zip(levels, diff) if (d > 0) == (arm == arms[0])}
+        m = re.search(rf"{re.escape(arm)}(?: is)? ahead at (levels? [\d ,toand]+?)(?:, and |\.)", p.level_sentence)
+        assert (_runs(m.group(1)) if m else set()) == ahead, (arm, p.level_sentence)
+    clear = {lv.level for lv in p.by_level if lv.clear}
+    m = re.search(r"clear at (levels? [\d ,toand]+)\.", p.level_sentence)
+    assert (_runs(m.group(1)) if m else set()) == clear
+    assert all(lv.clear == (lv.difference_ci[0] > 0 or lv.difference_ci[1] < 0) for lv in p.by_level)
+
+
+def test_firm_words_agree_with_a_clear_difference(fs):
+    """'clearly ahead' exactly when the interval for the composite difference leaves out the margin."""
+    for cfs in range(1, 10):
+        for j in place_patient(fs, {"cfs": cfs}).judgements:
+            clear = j.difference_ci[0] > 0 or j.difference_ci[1] < 0
+            assert (j.firmness == "firmly") == clear, (cfs, j.kind, j.difference_ci, j.probability_first_better)
+            assert (f"{j.favours} is clearly ahead" in j.sentence) == clear
+
+
+def test_differing_horizons_are_said_in_words(fs):
+    text = place_patient(fs, {"cfs": 6}).timing
+    for o in fs.spec.outcomes:  # the demo spec: survival at 365 and 182 days, the rest at six months
+        assert (f"{o.title} is counted at {o.horizon:g} days" in text) if o.kind == "survival" else True
+    assert "not all counted at the same time" in text and "other outcomes" in text
+    one = dataclasses.replace(fs.spec, outcomes=(fs.spec.outcome("alive"),), values=None)
+    from explorer.patient import timing_sentence
+
+    assert timing_sentence(one.outcomes) is None
+
+
+def test_icon_arrays_show_outcomes_at_one_horizon(fs, view):
+    from explorer.patient import summary_content
+
+    s = summary_content(view, CAUTIONS, spec_values=fs.spec.values)
+    v = fs.spec.values  # the survival outcome the composite combines with function, both at six months
+    assert [a.title for a in s.arrays] == [fs.spec.outcome(v.survival_outcome).title, fs.spec.outcome(v.outcome).title]
+    for a in s.arrays:
+        for arm in view.arms:
+            assert sum(a.counts[arm].values()) == 100
 
 
 def test_summary_page_is_escaped_and_carries_cautions(view):
@@ -182,6 +254,60 @@ def test_summary_page_is_escaped_and_carries_cautions(view):
     for caution in CAUTIONS:
         assert caution in html
     assert not re.search(r"""\b(?:src|href)\s*=\s*["']?\s*(?:https?:)?//""", html)
+
+
+def _pdf_text(data: bytes) -> str:
+    import io
+
+    from pypdf import PdfReader  # an outside PDF reader: what a viewer would find in the file
+
+    return " ".join(" ".join(page.extract_text() for page in PdfReader(io.BytesIO(data)).pages).split())
+
+
+def test_summary_pdf_says_what_the_view_says(fs):
+    import html as htmllib
+
+    from explorer.conversation import record_conversation
+    from explorer.patient import patient_summary_pdf
+
+    levels = fs.spec.outcome("function").levels
+    rec = record_conversation(levels, ["independent"], ["bedbound"], whose="proxy", when="2026-03-03T14:05",
+                              recorded_by="the ward registrar")
+    v = place_patient(fs, {"cfs": 9, "age": 101}, record=rec)
+    data = patient_summary_pdf(v, CAUTIONS, spec_values=fs.spec.values)
+    assert data.startswith(b"%PDF-")
+    text = _pdf_text(data)
+    flat = lambda t: " ".join(t.split())  # noqa: E731
+    for caution in CAUTIONS:
+        assert flat(caution) in text
+    for line in [v.place_sentence(), *v.limits, *rec.sentences(), *(j.sentence for j in v.judgements
+                                                                    if j.index == v.primary_index)]:
+        assert flat(line) in text, line
+    assert "outside the range seen in the cohort" in text and "on 3 March 2026 at 14:05" in text
+    for p in v.predictions:
+        if p.index == v.primary_index:
+            assert flat(p.sentence) in text
+    hostile = {"name": "<b>Ann</b> & <font size=40>x</font>"}
+    marked = _pdf_text(patient_summary_pdf(v, CAUTIONS, identifiers=hostile))
+    assert htmllib.unescape("&lt;b&gt;Ann&lt;/b&gt; &amp; &lt;font size=40&gt;x&lt;/font&gt;") in marked
+    assert "Ann" not in text
+
+
+def test_summary_carries_the_values_record(fs):
+    from explorer.conversation import record_conversation
+
+    levels = fs.spec.outcome("function").levels
+    rec = record_conversation(levels, ["independent", "home_with_help"], ["bedbound"], whose="patient",
+                              when="2026-03-03T14:05")
+    v = place_patient(fs, {"cfs": 6}, record=rec)
+    assert all(j.weights == rec.weights and j.whose == "patient" for j in v.judgements if j.weights)
+    assert all("by the patient's values" in j.sentence for j in v.judgements if j.weights)
+    doc = json.loads(json.dumps(v.to_json()))
+    assert doc["values_record"]["answers"]["worse_than_death"] == ["bedbound"]
+    assert doc["values_record"]["source"] == "conversation" and doc["values_record"]["when"] == "2026-03-03T14:05"
+    html = patient_summary_html(v, CAUTIONS, spec_values=fs.spec.values)
+    for line in rec.sentences():
+        assert line.replace("'", "&#39;") in html, line
 
 
 def test_a_stretch_where_one_arm_is_thin_is_a_limit(write_case):
@@ -194,14 +320,32 @@ def test_a_stretch_where_one_arm_is_thin_is_a_limit(write_case):
     # counted directly from the loaded cohort with numpy
     cfs = fs.cohort.frame["cfs"].to_numpy()
     at_9 = cfs == 9
-    limit = next(w for w in place_patient(fs, {"cfs": 9}).limits if "non-operative has only" in w)
-    assert limit.startswith(f"At level 9 of the Clinical Frailty Scale, non-operative has only "
-                            f"{np.sum(at_9 & (arm == 'non-operative'))} of {np.sum(at_9)} patients")
-    assert not any("has only" in w for w in place_patient(fs, {"cfs": 5}).limits)
+    limit = next(w for w in place_patient(fs, {"cfs": 9}).limits if "had non-operative." in w)
+    assert limit.startswith(f"At level 9 of the Clinical Frailty Scale, only "
+                            f"{np.sum(at_9 & (arm == 'non-operative'))} of {np.sum(at_9)} patients had non-operative")
+    assert not any("patients had" in w for w in place_patient(fs, {"cfs": 5}).limits)
     age = fs.cohort.frame["age"].to_numpy()
     for w in place_patient(fs, {"age": float(np.max(age))}).limits:
-        m = re.search(r"\((-?[\d.]+) to (-?[\d.]+)\), (\S+) has only (\d+) of (\d+)", w)
+        m = re.search(r"\((-?[\d.]+) to (-?[\d.]+)\), only (\d+) of (\d+) patients had (\S+)\.", w)
         if m:
             lo, hi = float(m.group(1)), float(m.group(2))
             inside = (age >= lo) & (age <= hi)
-            assert int(m.group(4)) == np.sum(inside & (arm == m.group(3))) and int(m.group(5)) == np.sum(inside)
+            assert int(m.group(3)) == np.sum(inside & (arm == m.group(5))) and int(m.group(4)) == np.sum(inside)
+
+
+def test_sparse_randomised_evidence_is_a_limit(write_case):
+    from explorer import demo
+
+    frame, _ = demo.generate(n=900, seed=3)
+    frame.loc[frame["cfs"] >= 8, "allocation"] = "chosen"
+    fs = fit_all(dataclasses.replace(write_case(frame), pairwise=None))
+    f = fs.cohort.frame
+    # counted directly from the loaded cohort with pandas
+    at = f[(f["cfs"] == 9) & (f["allocation"] == "randomised")]["arm"].value_counts()
+    limit = next(w for w in place_patient(fs, {"cfs": 9}).limits if "at random" in w)
+    assert limit.startswith("At level 9 of the Clinical Frailty Scale, few patients were given their treatment at "
+                            f"random: {at.get('laparotomy', 0)} had laparotomy and {at.get('non-operative', 0)} had "
+                            "non-operative (fewer than 10 in an arm)")
+    here = f[(f["cfs"] == 5) & (f["allocation"] == "randomised")]["arm"].value_counts()
+    said = any("at random" in w for w in place_patient(fs, {"cfs": 5}).limits)
+    assert said == (min(here.get("laparotomy", 0), here.get("non-operative", 0)) < 10)

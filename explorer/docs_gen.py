@@ -34,8 +34,8 @@ SECTION_HEADS = {
     "analysis": ("[analysis]", "Margin, interval level and method, seed, curve shape and resampling."),
     "selection": ("[selection]", "Randomised versus chosen patients (needs cohort.allocation)."),
     "pairwise": ("[pairwise]", "The hierarchical pairwise comparison (win ratio, win odds, net benefit)."),
-    "maps": ("[[maps]]", "Two-index maps: the arm favoured over the plane of two indices. The app's Two indices "
-                         "page opens on the first one."),
+    "maps": ("[[maps]]", "Two-index maps: the arm favoured over the plane of two indices, each one row of `maps` "
+                         "in the results. The app's Two indices page opens on the first one."),
 }
 TYPE_WORDS = {"str": "text", "path": "file path", "float": "number", "int": "whole number", "bool": "true / false",
               "list[str]": "list of texts", "list[float]": "list of numbers", "table[float]": "table of numbers",
@@ -74,7 +74,7 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("pairwise", "Hierarchical pairwise comparison rows (see Pairwise rows). Empty without [pairwise]."),
         ("checks", "One row of trust checks per outcome x index (see Checks rows). Empty when [analysis] "
                    "checks = false."),
-        ("maps", "Two-index map rows, one per [[maps]] entry, when maps are computed (see Map rows)."),
+        ("maps", "Two-index map rows, one per [[maps]] entry (see Map rows). Empty without [[maps]]."),
         ("baseline", "Baseline table of the cohort covariates (see Baseline rows). Empty without cohort.covariates."),
         ("clustering", "Present only with cohort.cluster: which clustered intervals were used and over how many "
                        "clusters."),
@@ -658,18 +658,21 @@ def reference_markdown() -> str:
 # name -> (screenshot written by tests/test_browser.py, crop box left, top, right, bottom in its pixels)
 SHOTS: dict[str, tuple[str, int, int, int, int]] = {
     "cohort-load.png": ("cohort.png", 0, 0, 1400, 1240),
-    "cohort-checks.png": ("cohort.png", 400, 2150, 1340, 3560),
-    "outcomes-top.png": ("outcomes_by_index.png", 400, 140, 1340, 1540),
-    "outcomes-survival.png": ("outcomes_by_index.png", 400, 1540, 1340, 2420),
-    "outcomes-function.png": ("outcomes_by_index.png", 400, 3280, 1340, 4110),
+    "cohort-checks.png": ("cohort.png", 400, 2150, 1340, 3360),
+    "cohort-spread.png": ("cohort.png", 400, 4090, 1340, 5380),
+    "outcomes-top.png": ("outcomes_by_index.png", 400, 140, 1340, 1660),
+    "outcomes-survival.png": ("outcomes_by_index.png", 400, 1655, 1340, 2820),
+    "outcomes-function.png": ("outcomes_by_index.png", 400, 3940, 1340, 5260),
     "values-weights.png": ("values.png", 400, 480, 1340, 1180),
     "values-composite.png": ("values.png", 400, 1330, 1340, 2060),
     "values-acceptability.png": ("values.png", 400, 2200, 1340, 2880),
     "values-bedbound-below-zero.png": ("values_after_weight_change.png", 400, 480, 1340, 2060),
-    "selection-coverage.png": ("randomised_vs_chosen.png", 400, 480, 1340, 1790),
-    "selection-effect.png": ("randomised_vs_chosen.png", 400, 1790, 1340, 2440),
-    "patient-where.png": ("patient.png", 400, 440, 1340, 1740),
-    "patient-icons.png": ("patient.png", 400, 1780, 1340, 2720),
+    "selection-coverage.png": ("randomised_vs_chosen.png", 400, 640, 1340, 2130),
+    "selection-effect.png": ("randomised_vs_chosen.png", 400, 2150, 1340, 2780),
+    "patient-conversation.png": ("patient.png", 400, 900, 1340, 2210),
+    "patient-where.png": ("patient.png", 400, 2230, 1340, 3560),
+    "patient-icons.png": ("patient.png", 400, 3980, 1340, 5040),
+    "patient-function.png": ("patient.png", 400, 5940, 1340, 7000),
     "report-page.png": ("report.png", 400, 140, 1340, 1320),
     "report-offline.png": ("report_offline.png", 120, 0, 1280, 1700),
 }

@@ -11,7 +11,7 @@ import pytest
 from explorer import cli, docs_gen, maps
 from explorer.analysis import analyse
 from explorer.demo import write_demo
-from explorer.spec import SCHEMA, load_spec, parse_spec_text
+from explorer.spec import SCHEMA, MapSpec, load_spec, parse_spec_text
 
 ROOT = Path(__file__).resolve().parents[1]
 DOCS = ROOT / "docs"
@@ -83,15 +83,18 @@ def test_every_field_of_a_real_document_is_described(tmp_path: Path) -> None:
     spec = dataclasses.replace(
         spec, cohort=dataclasses.replace(spec.cohort, cluster="hospital"),
         indices=tuple(ix for ix in spec.indices if ix.name in ("cfs", "risk")),
+        maps=(MapSpec(indices=("cfs", "risk"), target="composite"),),
         analysis=dataclasses.replace(spec.analysis, imputations=2, replicates=20))
     result = analyse(spec)
     doc = dict(result.document)
-    if not doc.get("maps"):  # the Two indices page writes the same rows (explorer.maps.map_row)
-        doc["maps"] = [maps.decision_map(result.fitset, maps.default_map(spec), weights=spec.values.weights,
-                                         patient=(5.0, 0.0))]
+    assert doc["maps"], "analyse() wrote no map row for [[maps]]"
+    # the Two indices page also writes a map row with the patient's point (explorer.maps.map_row)
+    doc["maps"] = doc["maps"] + [maps.decision_map(result.fitset, spec.maps[0], weights=spec.values.weights,
+                                                   patient=(5.0, 0.0))]
     paths = docs_gen.document_paths(doc)
     for part in ("clustering.clusters", "imputation[].imputed.break_even[].df", "selection[].e_value.e_value",
-                 "checks[].horizon_curve[].break_evens[].x", "pairwise[].by_level[].rule", "maps[].patient.covered"):
+                 "checks[].horizon_curve[].break_evens[].x", "pairwise[].by_level[].rule", "maps[].contour[][].x",
+                 "maps[].patient.covered"):
         assert part in paths, part
     missing = sorted(p for p in paths if not docs_gen.described(p))
     assert not missing, f"describe these in explorer/docs_gen.py RESULT_SECTIONS: {missing}"

@@ -664,7 +664,17 @@ def _values(raw: Any, outcomes: dict[str, OutcomeSpec], source: str | None) -> V
             raise FulcrumError(f"the weight of '{level}' is {w}, outside -1 to 1.", file=source,
                                key=f"values.weights.{level}", hint="Weights run from -1 (worst) through 0 (death) "
                                "to 1 (best state).")
-    full = default_weights(levels)
+    acceptable_early = r.get("acceptable", ())
+    preset = r.get("preset")
+    if preset is not None and not weights:
+        from .values import preset_weights  # local: values builds on the analysis modules
+
+        try:
+            full = preset_weights(preset, levels, acceptable_early)
+        except FulcrumError as exc:
+            raise FulcrumError(exc.what, file=source, key="values.preset", hint=exc.hint) from None
+    else:
+        full = default_weights(levels)
     full.update(weights)
     ranges = r.get("ranges", {})
     for level in ranges:

@@ -103,3 +103,13 @@ def test_toml_round_trip_and_canonical_hash(tmp_path):
 def test_missing_spec_file_message(tmp_path):
     with pytest.raises(FulcrumError, match="does not exist.*fulcrum demo"):
         load_spec(tmp_path / "nope.toml")
+
+
+def test_a_preset_without_weights_gives_the_preset(tmp_path):
+    # 'survival only': every living level 1, death 0 (explorer.values presets)
+    spec = parse(BASE.replace("weights = { well = 1.0, help = 0.7 }", 'preset = "survival_only"'), tmp_path)
+    assert spec.values.weights == {"well": 1.0, "help": 1.0, "bed": 1.0, "dead": 0.0}
+    assert spec.values.preset == "survival_only"
+    with pytest.raises(FulcrumError, match="no preset called 'nope'") as e:
+        parse(BASE.replace("weights = { well = 1.0, help = 0.7 }", 'preset = "nope"'), tmp_path)
+    assert e.value.key == "values.preset"

@@ -135,6 +135,7 @@ class PatientView:
     source: str
     timing: str | None = None
     record: ValuesRecord | None = None
+    combined: tuple[str, ...] = ()  # the survival and function outcomes the values combine (one horizon)
 
     def prediction(self, outcome: str, index: str | None = None) -> Prediction:
         index = index or self.primary_index
@@ -259,7 +260,8 @@ def is_probability(outcome: OutcomeSpec) -> bool:
     return outcome.kind in ("binary", "ordinal") or (outcome.kind == "survival" and outcome.measure != "rmst")
 
 
-def _count(p: float) -> int:
+def count_of_100(p: float) -> int:
+    """A probability as a whole count out of 100 (halves round up)."""
     return int(math.floor(100.0 * p + 0.5))
 
 
@@ -272,7 +274,7 @@ def _arm_estimate(pf: PairFit, arm: str, x: float, z: float) -> ArmEstimate:
     m = min(max(m, lo_b), hi_b)
     est = ArmEstimate(arm, m, max(m - z * se, lo_b), min(m + z * se, hi_b))
     if is_probability(pf.outcome):
-        est.per_100, est.per_100_lower, est.per_100_upper = _count(est.estimate), _count(est.lower), _count(est.upper)
+        est.per_100, est.per_100_lower, est.per_100_upper = count_of_100(est.estimate), count_of_100(est.lower), count_of_100(est.upper)
     P = fit.distribution(xa)
     if P is not None and pf.outcome.kind == "ordinal":
         P = np.clip(np.asarray(P, float)[0], 0.0, 1.0)
@@ -522,7 +524,7 @@ def judge(fs: FitSet, pl: Placement, weights: Mapping[str, float] | None = None,
 
 def chance_words(p: float) -> str:
     """A chance as 'about n in 100', never claiming certainty."""
-    n = _count(p)
+    n = count_of_100(p)
     if n >= 100:
         return "more than 99 in 100"
     if n <= 0:
@@ -658,128 +660,28 @@ def place_patient(fs: FitSet, values: Mapping[str, float] | None = None, *, row:
     limits.extend(_adjust_limits(fs))
     source = "a cohort record" if row is not None and not values else \
         "entered values" if row is None else "a cohort record with entered values"
+    v = spec.values
+    combined = tuple(n for n in ((v.survival_outcome, v.outcome) if v else ()) if n)
     return PatientView(tuple(spec.cohort.arms), spec.analysis.level, spec.analysis.margin, primary, placements,
-                       preds, judgements, list(dict.fromkeys(limits)), source, timing_sentence(spec.outcomes), record)
+                       preds, judgements, list(dict.fromkeys(limits)), source, timing_sentence(spec.outcomes), record,
+                       combined)
 
 
 # ------------------------------------------------------------------------------------------
-# The printable summary (HTML here, PDF in patient_pdf.py): one plain content object for both
+# The printable summary (explorer/patient_summary.py: content and HTML; explorer/patient_pdf.py: PDF)
 # ------------------------------------------------------------------------------------------
-def icon_probabilities(p: Prediction) -> dict[str, dict[str, float]] | None:
-    """Per arm, the state probabilities an icon array shows: ordinal levels, or alive / dead."""
-    out = {}
-    for arm, e in p.arms.items():
-        if e.distribution:
-            out[arm] = {lv: v[0] for lv, v in e.distribution.items()}
-        elif p.kind == "survival" and p.probability:
-            out[arm] = {"alive": e.estimate, "dead": 1.0 - e.estimate}
-        else:
-            return None
-    return out
+def patient_summary_html(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None
+                         ) -> str:
+    """The printable HTML summary (see patient_summary.summary_html)."""
+    from .patient_summary import summary_html
+
+    return summary_html(view, cautions, identifiers=identifiers)
 
 
-def _icon_outcomes(view: PatientView, spec_values: Any = None) -> list[Prediction]:
-    """The survival and the function outcome the icon arrays show: those the values combine (one horizon) when
-    the spec names them, else the first of each kind."""
-    along = [p for p in view.predictions if p.index == view.primary_index]
-    want = {getattr(spec_values, "survival_outcome", None), getattr(spec_values, "outcome", None)} - {None}
-    ordinal = [p for p in along if p.kind == "ordinal"]
-    survival = [p for p in along if p.kind == "survival" and p.probability]
-    pick = [next((p for p in group if p.outcome in want), group[0]) for group in (survival, ordinal) if group]
-    return pick
-
-
-def _cell(n: int | float, lo: int | float, hi: int | float, probability: bool) -> str:
-    if probability:
-        return f"{n} of 100 (likely {lo} to {hi})"
-    return f"{fmt(n)} (likely {fmt(lo)} to {fmt(hi)})"
-
-
-def outcome_table(p: Prediction, arms: Sequence[str]) -> list[list[str]]:
-    """Rows of [what, first arm, second arm]: each state's count of 100 with its interval (ordinal), else the
-    measure with its interval."""
-    if any(e.distribution for e in p.arms.values()):
-        levels = list(next(e.distribution for e in p.arms.values() if e.distribution))
-        return [[words(lv)] + [_cell(p.arms[a].distribution_per_100[lv], _count(p.arms[a].distribution[lv][1]),
-                                     _count(p.arms[a].distribution[lv][2]), True) for a in arms] for lv in levels]
-    return [[p.measure] + [_cell(*((p.arms[a].per_100, p.arms[a].per_100_lower, p.arms[a].per_100_upper)
-                                   if p.probability else (p.arms[a].estimate, p.arms[a].lower, p.arms[a].upper)),
-                                 p.probability) for a in arms]]
-
-
-@dataclass
-class IconArray:
-    """One outcome's icon arrays: per arm the state probabilities and counts of 100, with state colours."""
-
-    title: str
-    levels: list[str]
-    colours: dict[str, str]
-    probabilities: dict[str, dict[str, float]]
-    counts: dict[str, dict[str, int]]
-
-
-@dataclass
-class Summary:
-    """What the printable summary says, in order; the HTML template and the PDF writer both draw this."""
-
-    arms: tuple[str, str]
-    cautions: list[str]
-    identifiers: dict[str, str]
-    position: str
-    placements: list[Placement]
-    arrays: list[IconArray]
-    outcomes: list[dict]
-    values: list[str]
-    weights: dict[str, float] | None
-    judgements: list[ValueJudgement]
-    limits: list[str]
-
-
-def summary_content(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None,
-                    spec_values: Any = None) -> Summary:
-    """The summary's content along the primary index. spec_values: the spec's [values], to pick the outcomes
-    the icon arrays show (those the values combine, so they share a horizon)."""
-    from .charts import state_colours
-
-    arrays = []
-    for p in _icon_outcomes(view, spec_values):
-        probs = icon_probabilities(p)
-        if probs:
-            levels = list(next(iter(probs.values())))
-            arrays.append(IconArray(p.title, levels, state_colours(levels), probs,
-                                    {arm: per_hundred(probs[arm]) for arm in view.arms}))
-    along = [p for p in view.predictions if p.index == view.primary_index]
-    outcomes = [{"title": p.title, "rows": outcome_table(p, view.arms),
-                 "sentences": [p.sentence, p.uncertainty] + ([p.level_sentence] if p.level_sentence else [])}
-                for p in along]
-    judgements = [j for j in view.judgements if j.index == view.primary_index]
-    record = view.record
-    weights = record.weights if record else next((j.weights for j in judgements if j.weights), None)
-    values = record.sentences() if record else []
-    limits = list(view.limits) + ([view.timing] if view.timing else [])
-    return Summary(view.arms, list(cautions), {str(k): str(v) for k, v in (identifiers or {}).items()},
-                   view.place_sentence(), list(view.placements.values()), arrays, outcomes, values, weights,
-                   judgements, limits)
-
-
-def patient_summary_html(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None,
-                         spec_values: Any = None) -> str:
-    """A printable HTML summary: position, icon arrays per arm (inline SVG), each arm's outcomes with intervals,
-    the values used and whose they are, the favoured arm and how firmly, the limits and the cautions."""
-    from markupsafe import Markup
-
-    from .charts import chart_to_svg, icon_array_chart
-    from .report import render_template
-
-    s = summary_content(view, cautions, identifiers=identifiers, spec_values=spec_values)
-    svgs = [[(arm, Markup(chart_to_svg(icon_array_chart(a.probabilities[arm], "", a.colours, side=150, legend=None))))
-             for arm in s.arms] for a in s.arrays]
-    return render_template("patient.html", s=s, svgs=svgs, fmt=fmt, words=words)
-
-
-def patient_summary_pdf(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None,
-                        spec_values: Any = None) -> bytes:
+def patient_summary_pdf(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None
+                        ) -> bytes:
     """The same summary as a PDF (drawn with reportlab, offline)."""
     from .patient_pdf import summary_pdf
+    from .patient_summary import summary_content
 
-    return summary_pdf(summary_content(view, cautions, identifiers=identifiers, spec_values=spec_values))
+    return summary_pdf(summary_content(view, cautions, identifiers=identifiers))

@@ -20,7 +20,7 @@ from reportlab.platypus import (KeepTogether, ListFlowable, ListItem, Paragraph,
 
 from . import __version__
 from .charts import INK, fmt, words
-from .patient import IconArray, Summary
+from .patient_summary import IconArray, Summary
 
 FONT, BOLD = "Helvetica", "Helvetica-Bold"
 BODY = ParagraphStyle("body", fontName=FONT, fontSize=9, leading=11.5, alignment=TA_LEFT, spaceAfter=1.5)

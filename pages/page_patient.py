@@ -17,6 +17,7 @@ ws, patient = ui.page_head(
     "them, and which arm their values favour. Nothing is refitted.",
     needs=("patient", "The patient view"))
 conv = ui.engine("conversation")
+summary = ui.engine("patient_summary")
 arms = list(ws.spec.cohort.arms)
 charts = ui.engine("charts")
 fs = ui.fitted(ws)
@@ -104,6 +105,7 @@ def conversation(levels: list[str], current) -> None:
                         when=dt.datetime.combine(day, clock), recorded_by=by, keeping="The weights in use are kept.")
     if record is None:
         return
+    st.markdown("The weights these answers give (death 0, best state 1):")
     st.dataframe([{"state": words(lv), "weight": w} for lv, w in record.weights.items()], hide_index=True)
     for note in record.notes:
         st.caption(aps.md_escape(note))
@@ -190,7 +192,7 @@ for p in preds:
     st.subheader(p.title)
     for s in [p.sentence, *p.states_sentences, p.uncertainty, *([p.level_sentence] if p.level_sentence else [])]:
         ui.sentence(s)
-    probs = patient.icon_probabilities(p)
+    probs = summary.icon_probabilities(p)
     if charts is not None and probs:
         levels_p = list(next(iter(probs.values())))
         colours = charts.state_colours(levels_p)
@@ -204,7 +206,7 @@ for p in preds:
         row_json = curve_rows.get((p.outcome, index))
         if charts is not None and row_json is not None:
             ui.altair(charts.outcome_chart(row_json, arms, patient=marker, index_label=titles[index]))
-        table = patient.outcome_table(p, arms)
+        table = summary.outcome_table(p, arms)
         st.dataframe([{"": r[0], **dict(zip(arms, r[1:]))} for r in table], hide_index=True, width="stretch")
 
 # ------------------------------------------------------------------------------------------
@@ -214,7 +216,7 @@ st.header("Summary for the meeting record")
 ident = st.text_input("Add a name or record number to the summary (optional; leave empty to keep it anonymous)",
                       key=ui.seed("summary_ident", ""))
 identifiers = {"Patient": ident.strip()} if ident.strip() else None
-kwargs = {"identifiers": identifiers, "spec_values": ws.spec.values}
+kwargs = {"identifiers": identifiers}
 note = "with the name or number added" if identifiers else "no identifiers"
 c1, c2 = st.columns(2)
 with c1:  # made when clicked, so moving a weight never waits for the files

@@ -237,9 +237,9 @@ def test_differing_horizons_are_said_in_words(fs):
 
 
 def test_icon_arrays_show_outcomes_at_one_horizon(fs, view):
-    from explorer.patient import summary_content
+    from explorer.patient_summary import summary_content
 
-    s = summary_content(view, CAUTIONS, spec_values=fs.spec.values)
+    s = summary_content(view, CAUTIONS)
     v = fs.spec.values  # the survival outcome the composite combines with function, both at six months
     assert [a.title for a in s.arrays] == [fs.spec.outcome(v.survival_outcome).title, fs.spec.outcome(v.outcome).title]
     for a in s.arrays:
@@ -274,7 +274,7 @@ def test_summary_pdf_says_what_the_view_says(fs):
     rec = record_conversation(levels, ["independent"], ["bedbound"], whose="proxy", when="2026-03-03T14:05",
                               recorded_by="the ward registrar")
     v = place_patient(fs, {"cfs": 9, "age": 101}, record=rec)
-    data = patient_summary_pdf(v, CAUTIONS, spec_values=fs.spec.values)
+    data = patient_summary_pdf(v, CAUTIONS)
     assert data.startswith(b"%PDF-")
     text = _pdf_text(data)
     flat = lambda t: " ".join(t.split())  # noqa: E731
@@ -305,7 +305,7 @@ def test_summary_carries_the_values_record(fs):
     doc = json.loads(json.dumps(v.to_json()))
     assert doc["values_record"]["answers"]["worse_than_death"] == ["bedbound"]
     assert doc["values_record"]["source"] == "conversation" and doc["values_record"]["when"] == "2026-03-03T14:05"
-    html = patient_summary_html(v, CAUTIONS, spec_values=fs.spec.values)
+    html = patient_summary_html(v, CAUTIONS)
     for line in rec.sentences():
         assert line.replace("'", "&#39;") in html, line
 

@@ -1,6 +1,7 @@
 """Patient: one patient's place along each index, a short values conversation, each arm's predicted outcomes,
 and what the values favour; a printable summary (HTML and PDF) for the meeting record."""
 import datetime as dt
+import json
 
 import streamlit as st
 
@@ -218,7 +219,7 @@ ident = st.text_input("Add a name or record number to the summary (optional; lea
 identifiers = {"Patient": ident.strip()} if ident.strip() else None
 kwargs = {"identifiers": identifiers}
 note = "with the name or number added" if identifiers else "no identifiers"
-c1, c2 = st.columns(2)
+c1, c2, c3 = st.columns(3)
 with c1:  # made when clicked, so moving a weight never waits for the files
     st.download_button(f"Printable summary (.html, {note})", file_name="patient_summary.html", mime="text/html",
                        data=lambda: patient.patient_summary_html(view, CAUTIONS, **kwargs), on_click="ignore",
@@ -227,3 +228,7 @@ with c2:
     st.download_button(f"Summary as PDF ({note})", file_name="patient_summary.pdf", mime="application/pdf",
                        data=lambda: patient.patient_summary_pdf(view, CAUTIONS, **kwargs), on_click="ignore",
                        icon=":material/picture_as_pdf:")
+with c3:
+    st.download_button(f"Patient view (.json, {note})", file_name="patient_view.json", mime="application/json",
+                       data=lambda: json.dumps(view.to_json(identifiers), indent=1), on_click="ignore",
+                       icon=":material/data_object:")

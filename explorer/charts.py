@@ -190,10 +190,12 @@ def _chart(data: pd.DataFrame) -> alt.Chart:
     return alt.Chart(alt.InlineData(values=_records(data)))
 
 
-def _records(data: pd.DataFrame) -> list[dict]:
-    """A frame as JSON-ready records, non-finite numbers as null."""
-    return [{k: (None if isinstance(v, float) and not math.isfinite(v) else _native(v)) for k, v in r.items()}
-            for r in data.to_dict("records")]
+def _records(data: pd.DataFrame) -> tuple[dict, ...]:
+    """A frame as JSON-ready records, non-finite numbers as null. A tuple, because Altair copies lists record
+    by record each time charts are layered, concatenated or serialised but keeps a tuple as it is (and
+    writes it out as a list)."""
+    return tuple({k: (None if isinstance(v, float) and not math.isfinite(v) else _native(v)) for k, v in r.items()}
+                 for r in data.to_dict("records"))
 
 
 def _native(v: Any) -> Any:
@@ -1151,7 +1153,7 @@ def describe_effect_modification(em: Mapping[str, Any] | None) -> str:
     """The effect-modification test in words (the engine's sentence), with its method."""
     if not em:
         return "The test of effect modification was not run."
-    return f"{em['sentence']} ({em.get('method', 'likelihood ratio')})."
+    return f"{em['sentence']} Method: {em.get('method', 'likelihood ratio')}."
 
 
 def effect_modification_words(em: Mapping[str, Any] | None) -> str:
@@ -1497,52 +1499,62 @@ def _km_rows(curves: Iterable[Mapping[str, Any]], band: str | None) -> list[Mapp
     return [c for c in curves if (c.get("band") or {}).get("label") == band]
 
 
-def _km_steps(steps: alt.Chart, x: alt.X, colour: alt.Color, width: float) -> list[alt.Chart]:
+def _km_steps(steps: alt.Chart, x: alt.X, colour: alt.Color, width: float,
+              y_scale: alt.Scale | None = None) -> list[alt.Chart]:
     """Kaplan-Meier steps per arm (a chart over time, survival, lower, upper, arm): the interval band and the curve."""
+    y_scale = y_scale or alt.Scale(domain=[0, 1])
+    axis = alt.Axis(values=[0, 0.2, 0.4, 0.6, 0.8, 1.0])
     return [steps.mark_area(opacity=0.18, interpolate="step-after").encode(
-                x=x, y=alt.Y("lower:Q", title="probability alive", scale=alt.Scale(domain=[0, 1])),
+                x=x, y=alt.Y("lower:Q", title="probability alive", scale=y_scale, axis=axis),
                 y2=alt.Y2("upper"), color=colour),
             steps.mark_line(strokeWidth=width, interpolate="step-after").encode(
-                x=x, y=alt.Y("survival:Q"), color=colour,
+                x=x, y=alt.Y("survival:Q", scale=y_scale, axis=axis), color=colour,
                 tooltip=[alt.Tooltip("arm:N"), alt.Tooltip("time:Q", format=".4~g"),
                          alt.Tooltip("survival:Q", format=".3f"), alt.Tooltip("lower:Q", format=".3f"),
                          alt.Tooltip("upper:Q", format=".3f")])]
 
 
-def _named(datasets: dict[str, list[dict]], data: pd.DataFrame) -> alt.Chart:
-    """A chart over records held once in `datasets` (set at the top level), so panels and layers are
-    composed without Altair copying the data each time."""
-    name = f"data_{len(datasets) + 1}"
-    datasets[name] = _records(data)
-    return alt.Chart(alt.NamedData(name=name))
+AT_RISK_STEP = 0.12  # rows of numbers at risk sit beneath the curves, this far apart on the survival scale
 
 
-def _km_panel(rows: Sequence[Mapping[str, Any]], arms: Sequence[str], datasets: dict[str, list[dict]], *,
-              units: str | None, horizon: float | None, size: tuple[float, float],
-              title: str | None = None) -> alt.VConcatChart:
-    """Kaplan-Meier steps with their bands, and the numbers at risk in rows beneath on the same time axis."""
-    steps = pd.DataFrame([{"arm": c["arm"], **s} for c in rows for s in drawn_steps(c["steps"])],
-                         columns=["arm", "time", "survival", "lower", "upper"])
-    risk = pd.DataFrame([{"arm": c["arm"], "time": a["time"], "n": a["n"]} for c in rows for a in c["at_risk"]],
-                        columns=["arm", "time", "n"])
+def km_records(curves: Sequence[Mapping[str, Any]], arms: Sequence[str], horizon: float | None = None
+               ) -> tuple[dict, ...]:
+    """One table for a Kaplan-Meier chart: the drawn steps, the numbers at risk (with the row they sit in
+    beneath the curves), and each panel's horizon and baseline; `band` names the panel."""
+    recs: list[dict] = []
+    for c in curves:
+        band = (c.get("band") or {}).get("label") or "all patients"
+        recs += [{"kind": "step", "band": band, "arm": c["arm"], **s} for s in drawn_steps(c["steps"])]
+        row = -AT_RISK_STEP * (list(arms).index(c["arm"]) + 1)
+        recs += [{"kind": "risk", "band": band, "arm": c["arm"], "time": a["time"], "n": a["n"], "y": row}
+                 for a in c["at_risk"]]
+    for band in dict.fromkeys(r["band"] for r in recs):
+        recs.append({"kind": "base", "band": band, "time": 0.0, "y": 0.0})
+        if horizon:
+            recs.append({"kind": "horizon", "band": band, "time": float(horizon)})
+    return tuple(recs)
+
+
+def _km_layer(recs: Sequence[Mapping[str, Any]], arms: Sequence[str], *, units: str | None,
+              size: tuple[float, float]) -> alt.LayerChart:
+    """Kaplan-Meier steps with their bands, the numbers at risk in rows beneath the curves (arm colours, first
+    arm on top) and the horizon, as layers over one table (km_records), so panels can be faceted."""
+    times = [float(r["time"]) for r in recs] + [1.0]
+    top = max(times)
+    xs = alt.Scale(domain=[-0.05 * top, 1.02 * top], nice=False, zero=False)
+    ys = alt.Scale(domain=[-AT_RISK_STEP * (len(arms) + 0.6), 1.0], nice=False, zero=False)
+    x = alt.X("time:Q", scale=xs, title=f"time ({units})" if units else "time")
     colour = alt.Color("arm:N", scale=_arm_scale(arms), legend=ARM_LEGEND)
-    top_t = max([float(t) for t in risk["time"]] + [float(t) for t in steps["time"]] + [float(horizon or 0), 1.0])
-    xs = alt.Scale(domain=[-0.05 * top_t, 1.02 * top_t], nice=False, zero=False)
-    unit = f" ({units})" if units else ""
-    x = alt.X("time:Q", scale=xs, title=None)
-    layers = _km_steps(_named(datasets, steps), x, colour, 2.5)
-    if horizon:
-        layers.append(_named(datasets, pd.DataFrame([{"time": float(horizon)}])).mark_rule(color=INK, strokeDash=[5, 4])
-                      .encode(x=alt.X("time:Q", scale=xs)))
-    curves = _sized(alt.layer(*layers), *size)
-    if title:
-        curves.title = alt.TitleParams(title, fontSize=FONT["subtitle"])
-    table = _named(datasets, risk).mark_text(fontSize=FONT["text"] - 2).encode(
-        x=alt.X("time:Q", scale=xs, title=f"time{unit}"),
-        y=alt.Y("arm:N", sort=list(arms), title="at risk", axis=alt.Axis(labelLimit=110)),
-        text=alt.Text("n:Q"), color=alt.Color("arm:N", scale=_arm_scale(arms), legend=None))
-    table = _sized(table, size[0], AT_RISK_ROW * len(arms))
-    return alt.vconcat(curves, table, spacing=4)
+    base = alt.Chart()
+    of = lambda kind: base.transform_filter(alt.datum.kind == kind)  # noqa: E731
+    layers = _km_steps(of("step"), x, colour, 2.5, ys)
+    layers += [of("base").mark_rule(color=INK, strokeWidth=1).encode(y=alt.Y("y:Q", scale=ys)),
+               of("risk").mark_text(fontSize=FONT["text"] - 3).encode(
+                   x=x, y=alt.Y("y:Q", scale=ys), text=alt.Text("n:Q"), color=colour,
+                   tooltip=[alt.Tooltip("arm:N"), alt.Tooltip("time:Q", format=".4~g"),
+                            alt.Tooltip("n:Q", title="at risk")]),
+               of("horizon").mark_rule(color=INK, strokeDash=[5, 4]).encode(x=x)]
+    return _sized(alt.layer(*layers), *size)
 
 
 @_quick
@@ -1552,14 +1564,14 @@ def kaplan_meier_chart(curves: Sequence[Mapping[str, Any]], arms: Sequence[str],
     """Kaplan-Meier curves per arm (checks.km_curves rows; all patients, or one band of the index by its
     label) with numbers at risk beneath."""
     rows = _km_rows(curves, band)
-    datasets: dict[str, list[dict]] = {}
-    chart = _km_panel(rows, arms, datasets, units=units, horizon=horizon, size=(WIDTH, HEIGHT * 0.8))
-    chart.datasets = datasets
+    recs = km_records(rows, arms, horizon)
+    chart = _km_layer(recs, arms, units=units, size=(WIDTH, HEIGHT))
+    chart.data = alt.InlineData(values=recs)
     outcome = label or (rows[0]["outcome"] if rows else "")
     where = "all patients" if band is None else f"index band {band}"
     return _finish(chart, f"{outcome}: Kaplan-Meier by arm, {where}",
-                   "numbers at risk beneath; dashed line: the horizon" if horizon else "numbers at risk beneath",
-                   describe_km(rows, units=units, horizon=horizon), style)
+                   "numbers at risk beneath the curves; dashed line: the horizon" if horizon
+                   else "numbers at risk beneath the curves", describe_km(rows, units=units, horizon=horizon), style)
 
 
 @_quick
@@ -1567,18 +1579,17 @@ def kaplan_meier_bands_chart(curves: Sequence[Mapping[str, Any]], arms: Sequence
                              units: str | None = None, horizon: float | None = None, columns: int = 2,
                              label: str | None = None, style: bool = True) -> alt.TopLevelMixin:
     """Kaplan-Meier curves per arm in each band of the index, one small panel per band with its numbers at risk."""
-    bands = list(dict.fromkeys(c["band"]["label"] for c in curves if c.get("band")))
-    datasets: dict[str, list[dict]] = {}
-    panels = [_km_panel(_km_rows(curves, b), arms, datasets, units=units, horizon=horizon, size=PANEL,
-                        title=f"{index_label} {b}") for b in bands]
-    chart = (alt.concat(*panels, columns=columns, spacing=24) if panels
-             else _km_panel([], arms, datasets, units=units, horizon=horizon, size=PANEL))
-    chart.datasets = datasets
+    banded = [c for c in curves if c.get("band")]
+    bands = list(dict.fromkeys(c["band"]["label"] for c in banded))
+    recs = km_records(banded, arms, horizon)
+    chart = _km_layer(recs, arms, units=units, size=PANEL).facet(
+        facet=alt.Facet("band:N", sort=bands, title=index_label, header=alt.Header(labelFontSize=FONT["text"], titleFontSize=FONT["axis_title"])),
+        columns=columns, data=alt.InlineData(values=recs), spacing=20)
     outcome = label or (curves[0]["outcome"] if curves else "")
     desc = " ".join(f"{index_label} {b}: " + describe_km(_km_rows(curves, b), units=units, horizon=horizon)
                     for b in bands)
     return _finish(chart, f"{outcome}: Kaplan-Meier by arm in bands of {index_label}",
-                   "numbers at risk beneath each panel", desc or "No bands.", style)
+                   "numbers at risk beneath the curves in each panel", desc or "No bands.", style)
 
 
 def describe_km(rows: Sequence[Mapping[str, Any]], *, units: str | None = None, horizon: float | None = None) -> str:

@@ -130,21 +130,126 @@ def _points(result: Any, row: Mapping[str, Any], n: int) -> pd.DataFrame | None:
 
 
 def outcome_sections(result: Any, doc: Mapping[str, Any], points: int) -> list[dict]:
+    """Per outcome x index: the effect-modification test first, then the break-even in words (and as a cohort
+    percentile), the charts and numbers, and the checks of whether the curves can be trusted."""
     arms, margin = doc["arms"], float(doc.get("inputs", {}).get("margin") or 0.0)
     out = []
     for raw in doc.get("results", []):
         row = _labelled(raw, doc.get("spec", {}))
         pts = _points(result, row, points)
+        check = ch.check_for(doc.get("checks"), row["outcome"], row["index"])
+        em = (check or {}).get("effect_modification")
         out.append({
             "title": f"{ch._cap(ch._outcome_title(row))} along {ch.index_label_of(row)}",
+            "effect_modification": ch.describe_effect_modification(em) if em else "",
+            "weak_evidence": bool(em and em.get("weak_evidence")),
             "sentence": ch.describe_row(row, arms, margin=margin),
+            "percentiles": ch.describe_percentiles(row),
             "charts": [ch.outcome_chart(row, arms, pts), ch.difference_chart(row, arms, margin=margin)],
             "table": table_of(ch.curve_table(row, arms, every=_every(row))),
             "counts": _counts(row, arms),
             "methods": row.get("methods") or {},
+            "checks": check_blocks(result, doc, row, check) if check else [],
             "warnings": row.get("warnings") or [],
         })
     return out
+
+
+def check_blocks(result: Any, doc: Mapping[str, Any], row: Mapping[str, Any], check: Mapping[str, Any]) -> list[dict]:
+    """The checks of one outcome x index as blocks (title, sentence, charts, table): observed against fitted,
+    calibration, sliding windows and, for survival, Kaplan-Meier curves by index band and the horizon curve."""
+    arms, label = doc["arms"], ch.index_label_of(row)
+    ovf = ch.observed_frame(check, arms).drop(columns=["x", "from", "to"])
+    blocks = [
+        {"title": "Observed against fitted", "sentence": ch.describe_observed_fitted(check, label),
+         "charts": [ch.observed_fitted_chart(check, arms, row)], "table": table_of(ovf)},
+        {"title": "Calibration", "sentence": ch.describe_calibration(check), "charts": [],
+         "table": table_of(ch.calibration_table(check)), "open": True},
+        {"title": "Sliding windows", "sentence": ch.describe_sliding_window(check, arms, label),
+         "charts": [ch.sliding_window_chart(check, arms, row)],
+         "table": table_of(ch.windows_frame(check).drop(columns=["x"]).rename(
+             columns={"n_first": f"{arms[0]} patients", "n_second": f"{arms[1]} patients",
+                      "model": "model difference"}))},
+    ]
+    outcome = _spec_outcome(doc, row["outcome"])
+    fs = getattr(result, "fitset", None)
+    if row.get("kind") == "survival" and fs is not None and row["index"] in fs.indices:
+        from ..checks import km_curves
+
+        curves = km_curves(fs.cohort, row["outcome"], fs.indices[row["index"]], bands=5,
+                           level=float(doc.get("inputs", {}).get("level") or 0.95))
+        chart = ch.kaplan_meier_bands_chart(curves, arms, index_label=label, units=outcome.get("units"),
+                                            horizon=outcome.get("horizon"), label=ch._outcome_title(row))
+        blocks.append({"title": f"Kaplan-Meier curves in bands of {label}", "sentence": chart.description,
+                       "charts": [chart], "table": None})
+    if check.get("horizon_curve"):
+        hz = ch.horizon_frame(check).drop(columns=["lower_drawn", "upper_drawn"]).rename(
+            columns={"at_risk_first": f"{arms[0]} at risk", "at_risk_second": f"{arms[1]} at risk",
+                     "follow_up": "follow-up", "spec_horizon": "the spec's horizon"}).replace(
+            {"the spec's horizon": {True: "yes", False: ""}})
+        blocks.append({"title": "The break-even point by horizon",
+                       "sentence": ch.describe_horizon(check, label, outcome.get("units")),
+                       "charts": [ch.horizon_chart(check, arms, row, units=outcome.get("units"))],
+                       "table": table_of(hz)})
+    return blocks
+
+
+def _spec_outcome(doc: Mapping[str, Any], name: str) -> dict:
+    return next((o for o in doc.get("spec", {}).get("outcomes", []) if o.get("name") == name), {})
+
+
+def baseline_section(doc: Mapping[str, Any]) -> list[dict]:
+    """The baseline table by arm and allocation with standardised mean differences (none without covariates)."""
+    table = doc.get("baseline") or []
+    if not table:
+        return []
+    return [{"title": "Baseline characteristics by arm and allocation", "sentence": ch.describe_baseline(table),
+             "charts": [ch.smd_chart(table)], "table": table_of(ch.baseline_frame(table))}]
+
+
+def coverage_sections(result: Any, doc: Mapping[str, Any]) -> list[dict]:
+    """Per index: patients per window by arm and allocation, so readers see where the evidence is randomised."""
+    fs = getattr(result, "fitset", None)
+    if fs is None or fs.cohort.randomised is None:
+        return []
+    from ..selection import randomised_coverage
+
+    arms, labels = doc["arms"], _index_labels(doc)
+    out = []
+    for index in fs.indices:
+        coverage = randomised_coverage(fs, index)
+        label = labels.get(index, index)
+        out.append({"title": label, "sentence": ch.describe_coverage(coverage, arms, label),
+                    "charts": [ch.coverage_chart(coverage, arms, index_label=label)],
+                    "table": table_of(ch.coverage_frame(coverage, arms))})
+    return out
+
+
+def survival_sections(result: Any, doc: Mapping[str, Any]) -> list[dict]:
+    """Kaplan-Meier curves per arm, all patients, with numbers at risk: one per survival outcome."""
+    fs = getattr(result, "fitset", None)
+    if fs is None:
+        return []
+    from ..checks import km_curves
+
+    arms, out = doc["arms"], []
+    for o in fs.spec.outcomes:
+        if o.kind != "survival":
+            continue
+        curves = km_curves(fs.cohort, o, level=float(doc.get("inputs", {}).get("level") or 0.95))
+        out.append({"title": o.title, "sentence": ch.describe_km(curves, units=o.units, horizon=o.horizon),
+                    "charts": [ch.kaplan_meier_chart(curves, arms, units=o.units, horizon=o.horizon, label=o.title)]})
+    return out
+
+
+def missing_data(doc: Mapping[str, Any]) -> dict:
+    """The clustering note and, when multiple imputation was asked for, the side-by-side break-evens."""
+    clusters = doc.get("clustering")
+    rows = doc.get("imputation") or []
+    return {"clustering": ch.describe_clustering(clusters), "clustering_warnings": (clusters or {}).get("warnings", []),
+            "imputation": table_of(ch.imputation_frame(rows, _index_labels(doc))) if rows else None,
+            "imputation_notes": list(dict.fromkeys([r["note"] for r in rows] + [r["method"] for r in rows])),
+            "imputation_warnings": list(dict.fromkeys(w for r in rows for w in r.get("warnings") or []))}
 
 
 def _counts(row: Mapping[str, Any], arms: Sequence[str]) -> str:
@@ -339,9 +444,10 @@ def render_template(name: str, **context: Any) -> str:
     return _environment().get_template(name).render(**context)
 
 
-def _number_charts(sections: list[list[dict]]) -> list[dict]:
-    """Give every chart an id and its spec; return the list to embed."""
-    specs = []
+def _number_charts(sections: list[list[dict]], specs: list[dict] | None = None) -> list[dict]:
+    """Give every chart an id and its spec, in document order (a section's checks after its own charts);
+    return the list to embed."""
+    specs = [] if specs is None else specs
     for group in sections:
         for sec in group:
             sec["chart_ids"] = []
@@ -350,6 +456,7 @@ def _number_charts(sections: list[list[dict]]) -> list[dict]:
                 spec = _clean_nan(ch.chart_spec(chart))
                 specs.append({"id": cid, "spec": spec, "description": spec.get("description", "")})
                 sec["chart_ids"].append((cid, spec.get("description", "")))
+            _number_charts([sec.get("checks") or []], specs)
     return specs
 
 
@@ -361,12 +468,15 @@ def render_report(result: Any, *, extra_sections: Iterable[Section | Mapping[str
     doc = result.document
     arms = doc["arms"]
     inputs = doc.get("inputs", {})
+    baseline = baseline_section(doc)
+    coverage = coverage_sections(result, doc)
     outcomes = outcome_sections(result, doc, points)
+    survival = survival_sections(result, doc)
     composites = composite_sections(doc)
     selection = selection_sections(doc)
     pairwise = pairwise_sections(doc)
     extras = _extra(extra_sections)
-    specs = _number_charts([outcomes, composites, selection, pairwise, extras])
+    specs = _number_charts([baseline, coverage, outcomes, survival, composites, selection, pairwise, extras])
     spec_obj = getattr(result, "spec", None)
     context = {
         "title": f"Fulcrum report: {arms[0]} versus {arms[1]}",
@@ -378,8 +488,12 @@ def render_report(result: Any, *, extra_sections: Iterable[Section | Mapping[str
         "generated_at": doc.get("tool", {}).get("generated_at", ""),
         "versions": versions(),
         "spec_toml": to_toml(spec_obj) if spec_obj is not None else json.dumps(doc.get("spec", {}), indent=1),
-        "breakeven": table_of(ch.breakeven_table(doc)),
+        "breakeven": table_of(ch.breakeven_summary_table(doc)),
+        "baseline": baseline,
+        "coverage": coverage,
         "outcomes": outcomes,
+        "survival": survival,
+        "missing": missing_data(doc),
         "composites": composites,
         "selection": selection,
         "pairwise": pairwise,

@@ -3,19 +3,22 @@
     python -m explorer.validation [--replicates 500] [--sizes 300 1000 3000] [--boot 200] [--workers 2]
     fulcrum check-methods ...
 
-Writes docs/validation.json (rows: scenario, method, n, replicates, coverage, bias, rmse,
-median_width, no_root_share, not_finite_share, default) and docs/validation.md. Truths are in
-closed form (or exact roots of closed-form curves).
+Each study runs the tool's own code (per-arm models, analysis.analytic_summary, analysis.bootstrap_summary,
+values.analytic_composite / bootstrap_composite, selection.selection_effect / varies_with_index) on
+invented data whose truth is known in closed form. Writes docs/validation.json and docs/validation.md.
 """
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import datetime as _dt
 import functools
 import json
 import math
+import os
 import platform
-from dataclasses import dataclass, replace
+import time
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
@@ -23,333 +26,655 @@ import numpy as np
 from scipy import optimize
 from scipy.special import expit
 
+from . import analysis as an
 from . import breakeven as be
-from .analysis import PairFit, analytic_summary, grid_for, grid_roots
+from . import selection as sel
+from . import values as vl
 from .models import fit_model
 from .models.base import Basis, OutcomeData
 from .resampling import run_replicates
-from .spec import AnalysisSpec, OutcomeSpec
+from .spec import AnalysisSpec, CohortSpec, OutcomeSpec, Spec
 
 X_RANGE = (0.0, 10.0)
 TARGET = (0.935, 0.965)
+ARMS = ("first", "second")
+FIT_ERRORS = sel.FIT_ERRORS
+ANALYTIC = ("fieller", "delta")
+BOOT = "bootstrap-percentile"
+INTERVALS = (*ANALYTIC, BOOT)
+INVERTED = "inverted band (investigation)"
 
 
 @dataclass(frozen=True)
 class Scenario:
+    """One outcome kind with a closed-form truth; simulate(rng, n, arm) draws one arm (0 first, 1 second)."""
+
     name: str
     outcome: OutcomeSpec
-    simulate: Callable[[np.random.Generator, int, int], OutcomeData]  # (rng, n, arm 0|1)
+    simulate: Callable[[np.random.Generator, int, int], OutcomeData]
     truth: float
-    composite_weights: tuple[float, ...] | None = None
+    weights: tuple[float, ...] | None = None
 
 
-# ---- closed-form scenarios: every truth crosses at x = 5 or is solved exactly below ----------------
-def _x(rng, n):
+# ---- closed-form scenarios: the truths cross at x = 5 (the composite's is solved exactly) --------------
+def _x(rng: np.random.Generator, n: int) -> np.ndarray:
     return rng.uniform(*X_RANGE, n)
 
 
-def _sim_continuous(rng, n, arm):
-    x = _x(rng, n)
-    a, b, s = ((1.0, 0.5, 2.0), (3.0, 0.1, 1.5))[arm]
-    return OutcomeData(x=x, y=a + b * x + rng.normal(0, s, n))
-
-
-def _sim_binary(rng, n, arm):
-    x = _x(rng, n)
-    a, b = ((1.0, -0.3), (-0.5, 0.0))[arm]
-    return OutcomeData(x=x, y=(rng.uniform(size=n) < expit(a + b * x)).astype(float))
-
-
-ORD_THETA = ((2.0, 3.0, 4.0), (0.5, 1.5, 2.5))
+CONT = ((1.0, 0.5, 2.0), (3.0, 0.1, 1.5))  # intercept, slope, residual SD: 1 + 0.5x = 3 + 0.1x at x = 5
+BIN = ((1.0, -0.3), (-0.5, 0.0))  # logit: 1 - 0.3x = -0.5 at x = 5
+ORD_THETA = ((2.0, 3.0, 4.0), (0.5, 1.5, 2.5))  # P(level <= b) = expit(theta_2 - beta x): 3 - 0.4x = 1.5 - 0.1x
 ORD_BETA = (0.4, 0.1)
+SURV = ((-3.0, 0.3), (-2.0, 0.1))  # log hazard: -3 + 0.3x = -2 + 0.1x at x = 5, so S(horizon) cross there too
+HORIZON = 2.0
+CENSOR = (1.0, 6.0)  # censoring uniform on this range
 COMP_THETA = ((1.0, 2.0, 3.0, 4.0), (0.2, 0.8, 1.4, 3.5))
 COMP_BETA = (0.35, 0.15)
 COMP_WEIGHTS = (1.0, 0.7, 0.3, 0.1, 0.0)
 
 
-def _po_probs(x, theta, beta):
-    cum = expit(np.asarray(theta)[None, :] - beta * np.asarray(x)[:, None])
-    cum = np.column_stack([cum, np.ones(len(cum))])
-    return np.diff(np.column_stack([np.zeros(len(cum)), cum]), axis=1)
+def sim_continuous(rng, n, arm):
+    x = _x(rng, n)
+    a, b, s = CONT[arm]
+    return OutcomeData(x=x, y=a + b * x + rng.normal(0, s, n))
+
+
+def sim_binary(rng, n, arm):
+    x = _x(rng, n)
+    a, b = BIN[arm]
+    return OutcomeData(x=x, y=(rng.uniform(size=n) < expit(a + b * x)).astype(float))
+
+
+def po_probs(x: np.ndarray, theta, beta: float) -> np.ndarray:
+    """Level probabilities (len(x), K) of the proportional odds model logit P(Y <= k) = theta_k - beta x."""
+    cum = expit(np.asarray(theta)[None, :] - beta * np.asarray(x, float)[:, None])
+    cum = np.column_stack([np.zeros(len(cum)), cum, np.ones(len(cum))])
+    return np.diff(cum, axis=1)
 
 
 def _sim_po(rng, n, theta, beta):
     x = _x(rng, n)
-    p = _po_probs(x, theta, beta)
+    p = po_probs(x, theta, beta)
     u = rng.uniform(size=n)[:, None]
     y = (u > np.cumsum(p, axis=1)).sum(axis=1)
     return OutcomeData(x=x, y=np.minimum(y, p.shape[1] - 1).astype(float))
 
 
-def _sim_ordinal(rng, n, arm):
+def sim_ordinal(rng, n, arm):
     return _sim_po(rng, n, ORD_THETA[arm], ORD_BETA[arm])
 
 
-def _sim_composite(rng, n, arm):
+def sim_composite(rng, n, arm):
     return _sim_po(rng, n, COMP_THETA[arm], COMP_BETA[arm])
 
 
-SURV = ((-3.0, 0.3), (-2.0, 0.1))
-HORIZON = 2.0
-
-
-def _sim_survival(rng, n, arm):
+def sim_survival(rng, n, arm):
     x = _x(rng, n)
     a, b = SURV[arm]
     t = rng.exponential(1.0 / np.exp(a + b * x))
-    c = rng.uniform(1.0, 6.0, n)
+    c = rng.uniform(*CENSOR, n)
     return OutcomeData(x=x, time=np.minimum(t, c), event=(t <= c).astype(float))
 
 
-def _composite_truth() -> float:
+def sim_same(sim: Callable, rng, n, arm):
+    """Both arms drawn from the first arm's model: no difference at any index value."""
+    return sim(rng, n, 0)
+
+
+def composite_truth() -> float:
+    """The index value where the arms' expected weights are equal (the only sign change on 0-10)."""
     w = np.asarray(COMP_WEIGHTS)
 
     def diff(x):
-        p1 = _po_probs(np.array([x]), COMP_THETA[0], COMP_BETA[0])[0]
-        p2 = _po_probs(np.array([x]), COMP_THETA[1], COMP_BETA[1])[0]
-        return float(p1 @ w - p2 @ w)
+        return float(po_probs(np.array([x]), COMP_THETA[0], COMP_BETA[0])[0] @ w
+                     - po_probs(np.array([x]), COMP_THETA[1], COMP_BETA[1])[0] @ w)
 
-    return float(optimize.brentq(diff, *X_RANGE, xtol=1e-12))
+    return float(optimize.brentq(diff, *X_RANGE, xtol=1e-13))
+
+
+LV4 = ("a", "b", "c", "d")
+LV5 = ("well", "help", "care", "bed", "dead")
+OUTCOMES = {
+    "continuous": OutcomeSpec(name="y", kind="continuous", column="y"),
+    "binary": OutcomeSpec(name="y", kind="binary", column="y"),
+    "ordinal": OutcomeSpec(name="y", kind="ordinal", column="y", levels=LV4, favourable=LV4[:2]),
+    "survival": OutcomeSpec(name="y", kind="survival", time="t", event="e", horizon=HORIZON, measure="survival",
+                            model="cox"),
+    "composite": OutcomeSpec(name="y", kind="ordinal", column="y", levels=LV5, favourable=LV5[:-1]),
+}
+SIMULATORS = {"continuous": sim_continuous, "binary": sim_binary, "ordinal": sim_ordinal, "survival": sim_survival,
+              "composite": sim_composite}
 
 
 def scenarios() -> list[Scenario]:
-    lv4 = ("a", "b", "c", "d")
-    lv5 = ("well", "help", "care", "bed", "dead")
-    return [
-        Scenario("continuous", OutcomeSpec(name="y", kind="continuous", column="y", measure="mean"),
-                 _sim_continuous, 5.0),
-        Scenario("binary", OutcomeSpec(name="y", kind="binary", column="y", measure="probability"), _sim_binary, 5.0),
-        Scenario("ordinal", OutcomeSpec(name="y", kind="ordinal", column="y", levels=lv4, favourable=lv4[:2],
-                                        measure="favourable"), _sim_ordinal, 5.0),
-        Scenario("survival", OutcomeSpec(name="y", kind="survival", time="t", event="e", horizon=HORIZON,
-                                         measure="survival", model="cox"), _sim_survival, 5.0),
-        Scenario("composite", OutcomeSpec(name="y", kind="ordinal", column="y", levels=lv5, favourable=lv5[:-1],
-                                          measure="favourable"), _sim_composite, _composite_truth(),
-                 composite_weights=COMP_WEIGHTS),
-    ]
+    out = [Scenario(k, OUTCOMES[k], SIMULATORS[k], 5.0) for k in ("continuous", "binary", "ordinal", "survival")]
+    return out + [Scenario("composite", OUTCOMES["composite"], sim_composite, composite_truth(), COMP_WEIGHTS)]
+
+
+def null_scenarios() -> list[Scenario]:
+    """Identical arms for every kind: any clear-difference region is a false one."""
+    return [Scenario(k, OUTCOMES[k], functools.partial(sim_same, SIMULATORS[k]), math.nan,
+                     COMP_WEIGHTS if k == "composite" else None) for k in SIMULATORS]
+
+
+def study_spec(sc: Scenario, analysis: AnalysisSpec | None = None) -> Spec:
+    """The smallest Spec the analysis code reads: two arms, one outcome, one index."""
+    return Spec(cohort=CohortSpec(path=Path("simulated.csv"), arm="arm", arms=ARMS), outcomes=(sc.outcome,),
+                indices=(), analysis=analysis or AnalysisSpec())
 
 
 # ---- one simulated study ------------------------------------------------------------------------
-class _WeightedPair:
-    """A PairFit view whose measure is the composite E[w] (for the composite scenario)."""
-
-    def __init__(self, fitted, weights):
-        self._f, self._w = fitted, np.asarray(weights, float)
-        self.arm, self.params_, self.cov_ = fitted.arm, fitted.params_, fitted.cov_
-        self.n_, self.n_events_, self.converged_, self.warnings_ = fitted.n_, None, fitted.converged_, []
-
-    def measure(self, x):
-        return self._f.distribution(x) @ self._w
-
-    def measure_var(self, x):
-        J = np.einsum("nkp,k->np", self._f.distribution_jacobian(x), self._w)
-        return np.einsum("np,pq,nq->n", J, self._f.cov_, J)
-
-    def distribution(self, x):
-        return None
-
-    def distribution_jacobian(self, x):
-        return None
-
-    def linear_terms(self):
-        return None
+def fit_arms(sc: Scenario, data: dict[str, OutcomeData], basis: Basis, starts: dict | None = None) -> dict:
+    return {arm: fit_model(sc.outcome, arm, basis, d, start=None if starts is None else starts[arm], checks=False)
+            for arm, d in data.items()}
 
 
-def _fit_pair(sc: Scenario, data: tuple[OutcomeData, OutcomeData], basis: Basis) -> PairFit:
-    fits = {}
-    for arm, d in zip(("first", "second"), data):
-        f = fit_model(sc.outcome, arm, basis, d)
-        fits[arm] = _WeightedPair(f, sc.composite_weights) if sc.composite_weights else f
-    xs = np.concatenate([d.x for d in data])
-    return PairFit(sc.outcome, "x", basis, fits, dict(zip(("first", "second"), data)), {},
-                   (float(xs.min()), float(xs.max())))
+def pair_of(sc: Scenario, data: dict[str, OutcomeData], basis: Basis = Basis("linear")) -> an.PairFit:
+    xs = np.concatenate([d.x for d in data.values()])
+    return an.PairFit(sc.outcome, "x", basis, fit_arms(sc, data, basis), data, {},
+                      (float(xs.min()), float(xs.max())))
 
 
-def _resample(d: OutcomeData, idx: np.ndarray) -> OutcomeData:
+def composite_model(pf: an.PairFit, spec: Spec) -> vl.CompositeModel:
+    """The tool's ordinal composite (expected state weight) built from a fitted pair, as values.prepare_composite does."""
+    at = vl._ordinal_evaluator(pf)
+    grid = an.grid_for(pf, spec.analysis.grid)
+    L, C = at(grid, True)
+    return vl.CompositeModel("ordinal", "x", pf.outcome.levels, ARMS, pf, spec, grid, L, C, at, "expected weight")
+
+
+def analytic(sc: Scenario, pf: an.PairFit, spec: Spec) -> tuple[be.CurveSummary, vl.CompositeModel | None]:
+    if sc.weights is None:
+        return an.analytic_summary(pf, spec), None
+    cm = composite_model(pf, spec)
+    return vl.analytic_composite(cm, np.asarray(sc.weights)), cm
+
+
+def delta_interval(pf: an.PairFit, b: be.BreakEven, level: float) -> tuple:
+    """The delta-method interval the tool uses when Fieller does not apply, for the same root."""
+    v = sum(float(f.measure_var(np.array([b.x]))[0]) for f in pf.fits.values())
+    lo, hi, shape = be.delta_root_interval(b.x, v, b.slope, be.critical_value(level))
+    return lo, hi, shape
+
+
+def inverted_band(s: be.CurveSummary, x0: float) -> tuple:
+    """Investigation only (not offered by the tool): the stretch around the root where the pointwise band of the
+    difference holds zero, i.e. the delta-method test inverted; ends by linear interpolation on the grid."""
+    g, lo, hi = s.grid, s.lower, s.upper
+    holds = (lo <= 0) & (hi >= 0)
+    i = int(np.argmin(np.abs(g - x0)))
+    if not holds[i]:
+        j = int(np.clip(np.searchsorted(g, x0) - 1, 0, len(g) - 2))
+        return float(g[j]), float(g[j + 1]), "finite"
+    a, b = i, i
+    while a > 0 and holds[a - 1]:
+        a -= 1
+    while b < len(g) - 1 and holds[b + 1]:
+        b += 1
+
+    def cross(j, k):
+        y = lo if lo[k] > 0 else hi
+        return float(g[j] + (g[k] - g[j]) * (0 - y[j]) / (y[k] - y[j]))
+
+    left = None if a == 0 else cross(a, a - 1)
+    right = None if b == len(g) - 1 else cross(b, b + 1)
+    return left, right, be.shape_of(left, right)
+
+
+def resample(d: OutcomeData, idx: np.ndarray) -> OutcomeData:
     take = lambda a: None if a is None else a[idx]  # noqa: E731
     return OutcomeData(x=d.x[idx], y=take(d.y), time=take(d.time), event=take(d.event))
 
 
-def one_study(sc: Scenario, n: int, boot: int, analysis: AnalysisSpec, rng: np.random.Generator) -> dict:
-    """Simulate n patients per study (half per arm), estimate, and record each method's interval."""
-    data = (sc.simulate(rng, n // 2, 0), sc.simulate(rng, n - n // 2, 1))
-    basis = Basis("linear")
-    out: dict = {}
+def bootstrap(sc: Scenario, pf: an.PairFit, spec: Spec, base: be.CurveSummary, cm: vl.CompositeModel | None,
+              boot: int, rng: np.random.Generator) -> be.CurveSummary:
+    """Resample patients within each arm, refit from the fitted values, and summarise as the tool does."""
+    starts = {arm: f.params_ for arm, f in pf.fits.items()}
+    grid = base.grid
+    firsts, seconds, dists = [], [], []
+    for _ in range(boot):
+        data = {arm: resample(d, rng.integers(0, len(d), len(d))) for arm, d in pf.data.items()}
+        try:
+            fits = fit_arms(sc, data, pf.basis, starts)
+        except FIT_ERRORS:
+            for kept in (firsts, seconds, dists):
+                kept.append(None)
+            continue
+        f, s = (fits[a] for a in ARMS)
+        firsts.append(f.measure(grid).astype(np.float32))
+        seconds.append(s.measure(grid).astype(np.float32))
+        dists.append((f.distribution(grid), s.distribution(grid)) if cm is not None else None)
+    if cm is not None:
+        ok = np.array([d is not None for d in dists])
+        G, K = cm.L[0].shape
+        cm.boot = [np.stack([d[j] if d is not None else np.full((G, K), np.nan) for d in dists]) for j in (0, 1)]
+        cm.boot_ok = ok
+        return vl.bootstrap_composite(cm, np.asarray(sc.weights), base)
+    diffs = [None if f is None else pf.sign * (f.astype(float) - s.astype(float)) for f, s in zip(firsts, seconds)]
+    return an.bootstrap_summary(pf, spec, diffs, firsts, seconds, base)
+
+
+def _record(b: be.BreakEven, ci: tuple | None = None) -> tuple:
+    lo, hi, shape = ci if ci is not None else (*b.ci, b.interval_shape)
+    return (float(b.x), lo, hi, shape)
+
+
+def one_study(sc: Scenario, n: int, boot: int, spec: Spec, rng: np.random.Generator) -> dict:
+    """Simulate n patients (half per arm), estimate, and record each method's interval around the truth."""
+    data = {"first": sc.simulate(rng, n // 2, 0), "second": sc.simulate(rng, n - n // 2, 1)}
     try:
-        pf = _fit_pair(sc, data, basis)
-        s = analytic_summary(pf, replace(analysis, bands="pointwise"))
-    except Exception:  # noqa: BLE001 - a study whose fit fails is counted, not hidden
-        return {"failed": True}
-    roots = [b for b in s.break_even]
-    est = min(roots, key=lambda b: abs(b.x - sc.truth)) if roots else None
-    out["analytic"] = None if est is None else (est.x, est.ci, est.interval, est.interval_shape)
-    out["clear_any"] = bool(s.clear_difference)
+        pf = pair_of(sc, data)
+        s, cm = analytic(sc, pf, spec)
+    except FIT_ERRORS as exc:
+        return {"failed": f"{type(exc).__name__}: {exc}"}
+    out: dict = {"converged": all(f.converged_ for f in pf.fits.values())}
+    if not s.break_even:
+        return {**out, **{m: None for m in (*INTERVALS, INVERTED)}, "analytic_method": None}
+    i = int(np.argmin([abs(b.x - sc.truth) for b in s.break_even]))
+    est = s.break_even[i]
+    out["analytic_method"] = est.interval
+    out[est.interval] = _record(est)
+    if est.interval == "fieller":
+        out["delta"] = _record(est, delta_interval(pf, est, spec.analysis.level))
+    out[INVERTED] = _record(est, inverted_band(s, est.x))
     if boot:
-        grid = grid_for(pf, analysis.grid)
-        draws = []
-        for _ in range(boot):
-            rs = tuple(_resample(d, rng.integers(0, len(d), len(d))) for d in data)
-            try:
-                bp = _fit_pair(sc, rs, basis)
-            except Exception:  # noqa: BLE001
-                continue
-            d = bp.sign * (bp.fits["first"].measure(grid) - bp.fits["second"].measure(grid))
-            r = grid_roots(grid, d)
-            if est is not None and len(r):
-                draws.append(r[np.argmin(np.abs(r - est.x))])
-            elif est is not None:
-                draws.append(math.inf if (np.mean(d) > 0) == (est.favours_below == "first") else -math.inf)
-        if est is None or not draws:
-            out["bootstrap"] = None
-        else:
-            ci = be.percentile_interval(np.asarray(draws), analysis.level)
-            out["bootstrap"] = (est.x, ci, "bootstrap-percentile", be.shape_of(*ci))
+        bs = bootstrap(sc, pf, spec, s, cm, boot, rng)
+        out[BOOT] = _record(bs.break_even[i])
     return out
 
 
-def _null_study(n: int, analysis: AnalysisSpec, rng: np.random.Generator) -> dict:
-    """Both arms identical (no effect at any index value): does any clear-difference region appear?"""
-    out = {}
-    sc = Scenario("null", OutcomeSpec(name="y", kind="continuous", column="y", measure="mean"), None, math.nan)
-
-    def sim(m):
-        x = _x(rng, m)
-        return OutcomeData(x=x, y=1.0 + 0.2 * x + rng.normal(0, 1.0, m))
-
-    data = (sim(n // 2), sim(n - n // 2))
-    pf = _fit_pair(sc, data, Basis("linear"))
-    for band in ("pointwise", "simultaneous"):
-        out[band] = bool(analytic_summary(pf, replace(analysis, bands=band)).clear_difference)
+def null_study(sc: Scenario, n: int, spec: Spec, rng: np.random.Generator) -> dict:
+    """Identical arms: does the tool show any clear-difference region, with pointwise and simultaneous bands?"""
+    data = {"first": sc.simulate(rng, n // 2, 0), "second": sc.simulate(rng, n - n // 2, 1)}
+    try:
+        pf = pair_of(sc, data)
+        out = {}
+        for band in ("pointwise", "simultaneous"):
+            sp = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, bands=band))
+            out[band] = bool(analytic(sc, pf, sp)[0].clear_difference)
+    except FIT_ERRORS as exc:
+        return {"failed": f"{type(exc).__name__}: {exc}"}
     return out
+
+
+# ---- selection effect: randomised and chosen patients in a comprehensive cohort ------------------------
+RANDOMISED_SHARE = 0.25
+SELECTION_SHIFT = (0.0, 0.1)  # the set effect: chosen first-arm patients' linear predictor + 0.1 x
+SELECTION_KINDS = ("continuous", "binary")
+
+
+def _selection_arm(kind: str, x: np.ndarray, arm: int, shift: np.ndarray, rng) -> np.ndarray:
+    if kind == "continuous":
+        a, b, s = CONT[arm]
+        return a + b * x + shift + rng.normal(0, s, len(x))
+    a, b = BIN[arm]
+    return (rng.uniform(size=len(x)) < expit(a + b * x + shift)).astype(float)
+
+
+def selection_study(kind: str, n: int, effect: bool, spec: Spec, rng: np.random.Generator) -> dict:
+    """A cohort where a quarter are randomised and the rest choose (the frail more often the second arm).
+
+    Without effect, chosen and randomised patients share each arm's outcome model; with it, chosen first-arm
+    patients' linear predictor rises by 0.1 x. Returns the first arm's p-values of the averaged
+    selection effect (Wald) and of its variation along the index (likelihood ratio)."""
+    x = _x(rng, n)
+    rand = rng.uniform(size=n) < RANDOMISED_SHARE
+    first = np.where(rand, rng.uniform(size=n) < 0.5, rng.uniform(size=n) < expit(1.0 - 0.2 * x))
+    shift = np.where(effect & ~rand & first, SELECTION_SHIFT[0] + SELECTION_SHIFT[1] * x, 0.0)
+    y = np.empty(n)
+    for arm, mask in ((0, first), (1, ~first)):
+        y[mask] = _selection_arm(kind, x[mask], arm, shift[mask], rng)
+    sc = Scenario(kind, OUTCOMES[kind], sim_continuous, math.nan)
+    masks = {"first": first, "second": ~first}
+    try:
+        pairs = {who: pair_of(sc, {arm: OutcomeData(x=x[m & keep], y=y[m & keep]) for arm, m in masks.items()})
+                 for who, keep in (("all", np.ones(n, bool)), ("randomised", rand), ("chosen", ~rand))}
+        sp = sel.SelectionPair(sc.outcome, "x", pairs["all"], pairs["randomised"], pairs["chosen"], None, None, {},
+                               {}, sel.window_edges(x))
+        eff = sel.selection_effect(sp, "first", spec)
+        lr = sel.varies_with_index(pairs["all"], "first", ~rand[first])
+    except FIT_ERRORS as exc:
+        return {"failed": f"{type(exc).__name__}: {exc}"}
+    return {"wald": eff.p_value, "lr": lr[2], "method": eff.method}
 
 
 # ---- summaries ------------------------------------------------------------------------------------
+def covers(rec: tuple, truth: float) -> bool:
+    """Whether an interval (or two-ray / unbounded set, per docs 2b) contains the truth."""
+    _, lo, hi, shape = rec
+    if shape == "two_rays":
+        return truth <= lo or truth >= hi
+    return (lo is None or lo <= truth) and (hi is None or hi >= truth)
+
+
 def summarise_method(records: list, truth: float) -> dict:
+    """Coverage over all studies (no root counts as a miss); bias and RMSE over studies with a root."""
     n = len(records)
     est = [r for r in records if r is not None]
-    xs = np.array([r[0] for r in est]) if est else np.array([])
-    covers = 0
-    widths = []
-    not_finite = 0
-    for _, (lo, hi), _, shape in est:
-        if shape == "two_rays":  # (-inf, lo] U [hi, inf)
-            covers += int(truth <= lo or truth >= hi)
-            not_finite += 1
-            continue
-        covers += int((lo is None or lo <= truth) and (hi is None or hi >= truth))
-        if lo is None or hi is None:
-            not_finite += 1
-        else:
-            widths.append(hi - lo)
-    return {"coverage": covers / n if n else None,
+    xs = np.array([r[0] for r in est], float)
+    finite = [r for r in est if r[3] == "finite"]
+    widths = [r[2] - r[1] for r in finite]
+    return {"coverage": sum(covers(r, truth) for r in est) / n if n else None,
             "bias": float(np.mean(xs - truth)) if len(xs) else None,
             "rmse": float(np.sqrt(np.mean((xs - truth) ** 2))) if len(xs) else None,
             "median_width": float(np.median(widths)) if widths else None,
             "no_root_share": 1 - len(est) / n if n else None,
-            "not_finite_share": not_finite / n if n else None}
-
-
-def run(replicates: int = 500, sizes=(300, 1000, 3000), boot: int = 200, workers: int = 1, seed: int = 20261201,
-        names: tuple[str, ...] | None = None, progress=None) -> list[dict]:
-    analysis = AnalysisSpec()
-    rows = []
-    for sc in scenarios():
-        if names and sc.name not in names:
-            continue
-        for n in sizes:
-            task = functools.partial(one_study, sc, n, boot, analysis)
-            recs = run_replicates(task, replicates, seed + n, workers=workers, progress=progress)
-            ok = [r for r in recs if not r.get("failed")]
-            methods = ["analytic"] + (["bootstrap"] if boot else [])
-            for m in methods:
-                label = {"analytic": _analytic_label(ok), "bootstrap": "bootstrap-percentile"}[m]
-                summ = summarise_method([r[m] for r in ok], sc.truth)
-                rows.append({"scenario": sc.name, "method": label, "n": n, "replicates": len(ok),
-                             "failed": len(recs) - len(ok), **{k: _round(v) for k, v in summ.items()}})
-    for n in sizes:
-        if names and "null" not in names:
-            break
-        recs = run_replicates(functools.partial(_null_study, n, analysis), replicates, seed + 7 * n, workers=workers)
-        for band in ("pointwise", "simultaneous"):
-            rows.append({"scenario": "no effect modification", "method": f"{band} band", "n": n,
-                         "replicates": len(recs), "false_clear_difference_rate":
-                         _round(float(np.mean([r[band] for r in recs])))})
-    mark_defaults(rows)
-    return rows
-
-
-def _analytic_label(recs) -> str:
-    methods = {r["analytic"][2] for r in recs if r.get("analytic")}
-    return "fieller" if methods == {"fieller"} else "delta" if methods == {"delta"} else "/".join(sorted(methods))
+            "not_finite_share": (len(est) - len(finite)) / n if n else None}
 
 
 def _round(v):
     return None if v is None else round(float(v), 4)
 
 
-def mark_defaults(rows: list[dict]) -> None:
-    """The default method per scenario is the analytic one unless it misses the target at n >= 1000."""
-    by_scenario: dict[str, list[dict]] = {}
+def coverage_rows(sc: Scenario, n: int, recs: list[dict], boot: int, seconds: float) -> list[dict]:
+    ok = [r for r in recs if "failed" not in r]
+    failed = len(recs) - len(ok)
+    methods = sorted({r["analytic_method"] for r in ok if r.get("analytic_method")})
+    if "fieller" in methods:
+        methods.append("delta")
+    if not boot:
+        methods.append(INVERTED)
+    if boot:
+        methods.append(BOOT)
+    rows = []
+    for m in dict.fromkeys(methods):
+        summ = summarise_method([r.get(m) for r in ok], sc.truth)
+        rows.append({"scenario": sc.name, "kind": sc.name, "method": m, "n": n, "replicates": len(ok),
+                     "failed": failed, "not_converged": sum(not r.get("converged", True) for r in ok),
+                     "bootstrap_resamples": boot if m == BOOT else None, "truth": _round(sc.truth),
+                     **{k: _round(v) for k, v in summ.items()}, "seconds": round(seconds, 1)})
+    return rows
+
+
+def logged(task: Callable, path: str, key: dict, rng: np.random.Generator) -> dict:
+    """Run one study and append its record to a JSON-lines file, so a long run can be stopped and still used."""
+    rec = task(rng)
+    ss = rng.bit_generator.seed_seq
+    line = json.dumps({**key, "seed": int(ss.entropy), "study": int(ss.spawn_key[-1]), "rec": rec})
+    with open(path, "a", encoding="utf-8") as fh:
+        fh.write(line + "\n")
+    return rec
+
+
+def rows_from_records(paths: list[str]) -> list[dict]:
+    """Coverage rows from record files: studies pooled across runs and seeds, each (seed, study) counted once."""
+    groups: dict[tuple, dict] = {}
+    for path in paths:
+        for line in Path(path).read_text(encoding="utf-8").splitlines():
+            if not line.strip():
+                continue
+            try:
+                d = json.loads(line)
+            except json.JSONDecodeError:  # a line cut short when a run was stopped
+                continue
+            groups.setdefault((d["scenario"], d["n"], d["boot"]), {})[(d["seed"], d["study"])] = d["rec"]
+    by_name = {sc.name: sc for sc in scenarios()}
+    rows = []
+    for (name, n, boot), recs in groups.items():
+        part = [r if r is None or "failed" in r else
+                {k: (tuple(x) if isinstance(x, list) else x) for k, x in r.items()} for r in recs.values()]
+        rows += [r for r in coverage_rows(by_name[name], n, part, boot, 0.0) if (r["method"] == BOOT) == bool(boot)]
     for r in rows:
-        if "coverage" in r:
-            by_scenario.setdefault(r["scenario"], []).append(r)
-    for sc, rs in by_scenario.items():
-        def meets(method):
-            big = [r for r in rs if r["method"] == method and r["n"] >= 1000]
-            return bool(big) and all(r["coverage"] is not None and TARGET[0] <= r["coverage"] <= TARGET[1]
-                                     for r in big)
-        analytic = next((r["method"] for r in rs if r["method"] != "bootstrap-percentile"), None)
-        default = analytic if analytic and meets(analytic) else \
-            ("bootstrap-percentile" if meets("bootstrap-percentile") else analytic)
+        r.pop("seconds", None)
+    return rows
+
+
+def run(replicates: int = 500, sizes=(300, 1000, 3000), boot: int = 200, workers: int = 1, seed: int = 20261201,
+        names: tuple[str, ...] | None = None, boot_replicates: int | None = None,
+        parts=("analytic", "bootstrap", "null", "selection"), progress=None,
+        log: Callable[[str], None] | None = None, records: str | None = None) -> list[dict]:
+    """Every coverage, false-region and selection-test row. boot_replicates: studies with a bootstrap (the
+    first ones of the analytic studies, same seeds; default: as many as the analytic ones)."""
+    spec0 = AnalysisSpec()
+    rows: list[dict] = []
+    say = log or (lambda s: None)
+    nb = replicates if boot_replicates is None else boot_replicates
+    for k, sc in enumerate(scenarios()):
+        if names and sc.name not in names:
+            continue
+        spec = study_spec(sc, spec0)
+        for n in sizes:
+            s = seed + 100_003 * k + n
+            for part, b, reps in (("analytic", 0, replicates), ("bootstrap", boot, nb)):
+                if part not in parts or not reps or (part == "bootstrap" and not boot):
+                    continue
+                t0 = time.monotonic()
+                task = functools.partial(one_study, sc, n, b, spec)
+                if records:
+                    task = functools.partial(logged, task, records, {"scenario": sc.name, "n": n, "boot": b})
+                recs = run_replicates(task, reps, s, workers=workers, progress=progress)
+                rows += [r for r in coverage_rows(sc, n, recs, b, time.monotonic() - t0)
+                         if (r["method"] == BOOT) == (part == "bootstrap")]
+                say(f"{sc.name} n={n}: {part} {time.monotonic() - t0:.0f}s")
+    if "null" in parts:
+        for k, sc in enumerate(null_scenarios()):
+            if names and sc.name not in names:
+                continue
+            for n in sizes:
+                recs = run_replicates(functools.partial(null_study, sc, n, study_spec(sc, spec0)), replicates,
+                                      seed + 7 * n + 31 * k, workers=workers)
+                ok = [r for r in recs if "failed" not in r]
+                for band in ("pointwise", "simultaneous"):
+                    rows.append({"scenario": "no effect modification", "kind": sc.name, "method": f"{band} band",
+                                 "n": n, "replicates": len(ok), "failed": len(recs) - len(ok),
+                                 "false_clear_difference_rate": _round(np.mean([r[band] for r in ok]))})
+                say(f"null {sc.name} n={n} done")
+    if "selection" in parts:
+        for k, kind in enumerate(SELECTION_KINDS):
+            spec = study_spec(Scenario(kind, OUTCOMES[kind], sim_continuous, math.nan), spec0)
+            for n in sizes:
+                for effect in (False, True):
+                    recs = run_replicates(functools.partial(selection_study, kind, n, effect, spec), replicates,
+                                          seed + 13 * n + 101 * k + int(effect), workers=workers)
+                    ok = [r for r in recs if "failed" not in r]
+                    for test in ("wald", "lr"):
+                        rows.append({"scenario": "selection effect", "kind": kind, "method": {
+                            "wald": "averaged effect (Wald)", "lr": "varies with index (likelihood ratio)"}[test],
+                            "n": n, "replicates": len(ok), "failed": len(recs) - len(ok),
+                            "selection": "set effect" if effect else "none",
+                            "rejection_rate": _round(np.mean([r[test] < 0.05 for r in ok]))})
+                say(f"selection {kind} n={n} done")
+    mark_defaults(rows)
+    return rows
+
+
+def meets_target(rows: list[dict], scenario: str, method: str) -> bool:
+    """Whether the method was measured at every size >= 1,000 the scenario was run at, within the target."""
+    rs = [r for r in rows if r.get("scenario") == scenario and "coverage" in r and r["n"] >= 1000]
+    sizes = {r["n"] for r in rs}
+    own = {r["n"]: r["coverage"] for r in rs if r["method"] == method}
+    return bool(sizes) and set(own) == sizes and all(c is not None and TARGET[0] <= c <= TARGET[1]
+                                                     for c in own.values())
+
+
+def mark_defaults(rows: list[dict]) -> None:
+    """The default per scenario: the analytic method the tool picks, unless it misses the target at n >= 1,000
+    and the bootstrap meets it (then the bootstrap)."""
+    for sc in dict.fromkeys(r["scenario"] for r in rows if "coverage" in r):
+        rs = [r for r in rows if r["scenario"] == sc and "coverage" in r]
+        own = "fieller" if any(r["method"] == "fieller" for r in rs) else "delta"
+        default = own if meets_target(rs, sc, own) or not meets_target(rs, sc, BOOT) else BOOT
         for r in rs:
             r["default"] = r["method"] == default
 
 
-def write_outputs(rows: list[dict], out_dir: Path, settings: dict) -> None:
-    out_dir.mkdir(parents=True, exist_ok=True)
-    (out_dir / "validation.json").write_text(json.dumps(rows, indent=1) + "\n")
-    lines = ["# Measured coverage of Fulcrum's intervals", "",
-             f"Run on {_dt.date.today().isoformat()} on {platform.machine()} ({platform.processor() or 'cpu'}), "
-             f"Python {platform.python_version()}. Settings: {json.dumps(settings)}.", "",
-             "Each scenario simulates two arms along an index uniform on 0-10 with a break-even point known in "
-             "closed form. Coverage counts an unbounded or two-ray set as covering when it contains the truth; "
-             "replicates with no estimated root count as not covering. Target for the default method at "
-             "n >= 1,000: 93.5-96.5%.", "",
-             "| scenario | method | n | replicates | coverage | bias | RMSE | median width | no root | not finite "
-             "| default |", "|---|---|---|---|---|---|---|---|---|---|---|"]
-    for r in rows:
-        if "coverage" in r:
-            lines.append(f"| {r['scenario']} | {r['method']} | {r['n']} | {r['replicates']} | {_pct(r['coverage'])} "
-                         f"| {r['bias']} | {r['rmse']} | {r['median_width']} | {_pct(r['no_root_share'])} | "
-                         f"{_pct(r['not_finite_share'])} | {'yes' if r.get('default') else ''} |")
-    lines += ["", "False clear-difference regions where both arms are identical at every index value:", "",
-              "| band | n | replicates | share of studies with any clear-difference region |", "|---|---|---|---|"]
-    for r in rows:
-        if "false_clear_difference_rate" in r:
-            lines.append(f"| {r['method']} | {r['n']} | {r['replicates']} | {_pct(r['false_clear_difference_rate'])} |")
-    (out_dir / "validation.md").write_text("\n".join(lines) + "\n")
-
-
+# ---- outputs ------------------------------------------------------------------------------------------
 def _pct(v):
     return "" if v is None else f"{100 * v:.1f}%"
 
 
+def _num(v):
+    return "" if v is None else f"{v:.3f}"
+
+
+SCENARIO_WORDS = (
+    "Each scenario simulates two arms of equal size along an index uniform on 0 to 10, with a break-even point "
+    "known in closed form (x = 5; the composite's is solved exactly, x = 5.675). Continuous: linear means; binary: "
+    "logistic; ordinal: per-arm proportional odds (4 levels, favourable = the best two); survival: exponential "
+    "event times with censoring uniform on 1 to 6, per-arm Cox models, survival at 2; composite: expected state "
+    "weight over 5 levels (weights 1, 0.7, 0.3, 0.1, 0) from per-arm proportional odds models. The index enters "
+    "linearly, margin 0, level 95%. Coverage counts an unbounded or two-ray set as covering when it contains the "
+    "truth; studies with no estimated root count as misses. Bias and RMSE are over studies with a root; the "
+    "median width is over finite intervals. Where a study has several roots, the one nearest the truth is scored. "
+    "Bootstrap: patients resampled within each arm, models refitted from the study's estimates, percentile "
+    "intervals by the tool's own summary code; bootstrap studies are the first ones of the analytic studies "
+    "(same simulated cohorts). Monte Carlo standard error of a coverage near 95% from R studies: about "
+    "0.22 / sqrt(R) (0.5 points at 2,000 studies, 1.5 at 200).")
+
+
+def _coverage_table(rows: list[dict]) -> list[str]:
+    out = ["| scenario | method | n | studies | coverage | bias | RMSE | median width | no root | not finite "
+           "| default |", "|---|---|---|---|---|---|---|---|---|---|---|"]
+    for r in rows:
+        boot = f" ({r['bootstrap_resamples']} resamples)" if r.get("bootstrap_resamples") else ""
+        out.append(f"| {r['scenario']} | {r['method']}{boot} | {r['n']:,} | {r['replicates']} | "
+                   f"{_pct(r['coverage'])} | {_num(r['bias'])} | {_num(r['rmse'])} | {_num(r['median_width'])} "
+                   f"| {_pct(r['no_root_share'])} | {_pct(r['not_finite_share'])} | "
+                   f"{'yes' if r.get('default') else ''} |")
+    return out
+
+
+def summary_lines(rows: list[dict]) -> list[str]:
+    """Per scenario: the default method and whether it meets the target; every method outside it, by size."""
+    cov_rows = [r for r in rows if r.get("method") in INTERVALS and "coverage" in r]
+    out = []
+    for sc in dict.fromkeys(r["scenario"] for r in cov_rows):
+        rs = [r for r in cov_rows if r["scenario"] == sc]
+        default = next((r["method"] for r in rs if r.get("default")), None)
+        big = ", ".join(f"{_pct(r['coverage'])} at {r['n']:,}" for r in rs if r["method"] == default
+                        and r["n"] >= 1000)
+        ok = "meets" if meets_target(rs, sc, default) else "misses"
+        missing = [f"{r['method']} {_pct(r['coverage'])} at {r['n']:,}" for r in rs
+                   if not TARGET[0] <= r["coverage"] <= TARGET[1]]
+        out.append(f"- **{sc}**: default {default} ({big}; {ok} the target)."
+                   + (f" Outside 93.5-96.5% (labelled approximate at that size): {'; '.join(missing)}."
+                      if missing else ""))
+    return out
+
+
+def markdown(rows: list[dict], settings: dict, notes: str = "") -> str:
+    cpu = platform.processor() or platform.machine()
+    tool = [r for r in rows if r.get("method") in INTERVALS and "coverage" in r]
+    probe = [r for r in rows if r.get("method") == INVERTED]
+    lines = ["# Measured coverage of Fulcrum's intervals", "",
+             f"Run on {settings.get('date', _dt.date.today().isoformat())}: {cpu}, {os.cpu_count()} cores "
+             f"(shared with other work), Python {platform.python_version()}, {platform.system()}.", "",
+             f"Settings: `{json.dumps({k: v for k, v in settings.items() if k != 'date'})}`.", "",
+             "Made by `python -m explorer.validation` (also `fulcrum check-methods`); every row is in "
+             "`validation.json`, and the interval rows ship as `explorer/validation_results.json`, from which the "
+             "tool labels each break-even interval with its measured coverage (`explorer/coverage.py`).", ""]
+    if notes:
+        lines += [notes.strip(), ""]
+    lines += ["## Summary", "", "Target: the default method's coverage within 93.5-96.5% at n >= 1,000.", ""]
+    lines += summary_lines(rows)
+    lines += ["", "## Break-even intervals", "", SCENARIO_WORDS, ""] + _coverage_table(tool)
+    if probe:
+        lines += ["", "### Investigation: the delta interval inverted", "",
+                  "Not a method the tool offers. The set of index values around the root where the pointwise "
+                  "(delta-method) band of the difference holds zero, read off the tool's own band on its grid (ends "
+                  "interpolated; 'not finite' here means the set reaches the end of the searched range). Where "
+                  "Fieller applies on a linear scale it is the same idea; it shows whether a miss of the delta "
+                  "interval comes from the variance of the difference or from linearising the root.", ""]
+        lines += _coverage_table(probe)
+    lines += ["", "## False clear-difference regions", "",
+              "Both arms drawn from the first arm's model, so the true difference is zero at every index value. "
+              "The rate is the share of studies showing any clear-difference region anywhere on the searched range "
+              "(analytic bands: Johnson-Neyman on the linear scale where Fieller applies, else delta; "
+              "simultaneous bands use the Scheffe-type critical value).", "",
+              "| outcome | band | n | studies | studies with a false region |", "|---|---|---|---|---|"]
+    lines += [f"| {r['kind']} | {r['method']} | {r['n']:,} | {r['replicates']} | "
+              f"{_pct(r['false_clear_difference_rate'])} |" for r in rows if "false_clear_difference_rate" in r]
+    lines += ["", "## Selection-effect tests", "",
+              f"A quarter of patients randomised (half to each arm); the rest choose, the frail more often the "
+              f"second arm. 'none': chosen and randomised patients share each arm's outcome model (the rate is the "
+              f"test's size). 'set effect': chosen first-arm patients' linear predictor (mean, or log odds) rises by "
+              f"{SELECTION_SHIFT[1]} x (the rate is the power). Tests of the first arm at the 5% level, by "
+              f"explorer.selection: the selection effect averaged over the randomised patients' index values "
+              f"(Wald), and its variation along the index (likelihood ratio).", "",
+              "| outcome | test | selection | n | studies | rejected at 5% |", "|---|---|---|---|---|---|"]
+    lines += [f"| {r['kind']} | {r['method']} | {r['selection']} | {r['n']:,} | {r['replicates']} | "
+              f"{_pct(r['rejection_rate'])} |" for r in rows if "rejection_rate" in r]
+    return "\n".join(lines) + "\n"
+
+
+def json_rows(rows: list[dict]) -> list[dict]:
+    """Every row, the contract's fields first; interval rows are the ones the tool reads (explorer/coverage.py)."""
+    keys = ("scenario", "kind", "method", "n", "replicates", "coverage", "bias", "rmse", "median_width",
+            "no_root_share", "not_finite_share", "default")
+    return [{**{k: r.get(k) for k in keys if k in r}, **{k: v for k, v in r.items() if k not in keys}}
+            for r in rows]
+
+
+def write_outputs(rows: list[dict], out_dir: Path, settings: dict, packaged: Path | None = None,
+                  notes: str = "") -> None:
+    out_dir.mkdir(parents=True, exist_ok=True)
+    doc = json_rows(rows)
+    (out_dir / "validation.json").write_text(json.dumps(doc, indent=1) + "\n")
+    (out_dir / "validation.md").write_text(markdown(rows, settings, notes))
+    if packaged is not None:
+        packaged.write_text(json.dumps([r for r in doc if r["method"] in INTERVALS], indent=1) + "\n")
+
+
+_SECTION = {"no effect modification": 1, "selection effect": 2}
+_KIND = {k: i for i, k in enumerate(SIMULATORS)}
+
+
+def merge_runs(runs: list[dict]) -> tuple[list[dict], dict]:
+    """Rows of several runs in one list (defaults marked afresh) and their settings side by side. Where runs
+    measured the same thing, the row with more studies is kept (the later run's on a tie)."""
+    best: dict[tuple, dict] = {}
+    for r in (r for run_ in runs for r in run_["rows"]):
+        key = (r["scenario"], r.get("kind"), r["method"], r["n"], r.get("selection"))
+        if key not in best or r["replicates"] >= best[key]["replicates"]:
+            best[key] = r
+    order = {m: i for i, m in enumerate((*ANALYTIC, BOOT, INVERTED))}
+    rows = sorted(best.values(), key=lambda r: (_SECTION.get(r["scenario"], 0), _KIND.get(r.get("kind"), 9),
+                                                r["n"], order.get(r["method"], 9), r.get("selection") or ""))
+    mark_defaults(rows)
+    settings = {"date": max(run_["settings"]["date"] for run_ in runs), "runs": [run_["settings"] for run_ in runs]}
+    return rows, settings
+
+
 def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(prog="fulcrum check-methods", description=__doc__.splitlines()[0])
-    p.add_argument("--replicates", type=int, default=500)
+    p.add_argument("--replicates", type=int, default=500, help="studies per scenario and size")
+    p.add_argument("--boot-replicates", type=int, default=None, help="studies with a bootstrap (default: all)")
     p.add_argument("--sizes", type=int, nargs="+", default=[300, 1000, 3000])
-    p.add_argument("--boot", type=int, default=200, help="bootstrap replicates per study (0: analytic only)")
+    p.add_argument("--boot", type=int, default=200, help="bootstrap resamples per study (0: analytic only)")
     p.add_argument("--workers", type=int, default=-1)
     p.add_argument("--seed", type=int, default=20261201)
     p.add_argument("--scenarios", nargs="*", default=None)
+    p.add_argument("--parts", nargs="*", default=["analytic", "bootstrap", "null", "selection"])
     p.add_argument("--out", default="docs")
+    p.add_argument("--rows", help="write the raw rows and settings here as well (JSON), to merge runs later")
+    p.add_argument("--merge", nargs="+", help="write the outputs from these --rows files instead of running")
+    p.add_argument("--notes", help="a Markdown file whose text goes under the header of validation.md")
+    p.add_argument("--records", help="append every study's record to this JSON-lines file while running")
+    p.add_argument("--from-records", nargs="+", default=[],
+                   help="with --merge: coverage rows pooled from these record files (they win over --rows rows)")
+    p.add_argument("--packaged", help="also write the coverage rows the tool reads (explorer/validation_results.json)")
     a = p.parse_args(argv)
+    notes = Path(a.notes).read_text() if a.notes else ""
+    if a.merge:
+        runs = [json.loads(Path(f).read_text()) for f in a.merge]
+        if a.from_records:
+            runs.append({"settings": {"date": _dt.date.today().isoformat(), "records": a.from_records},
+                         "rows": rows_from_records(a.from_records)})
+        rows, settings = merge_runs(runs)
+        write_outputs(rows, Path(a.out), settings, Path(a.packaged) if a.packaged else None, notes)
+        print((Path(a.out) / "validation.md").read_text())
+        return 0
     from .cli import ProgressBar
 
     rows = run(a.replicates, tuple(a.sizes), a.boot, a.workers, a.seed,
-               tuple(a.scenarios) if a.scenarios else None, progress=ProgressBar("studies"))
-    write_outputs(rows, Path(a.out), {"replicates": a.replicates, "sizes": a.sizes, "boot": a.boot,
-                                      "seed": a.seed, "level": 0.95})
+               tuple(a.scenarios) if a.scenarios else None, a.boot_replicates, tuple(a.parts),
+               progress=ProgressBar("studies"), log=lambda s: print(s, flush=True), records=a.records)
+    settings = {"date": _dt.date.today().isoformat(), "replicates": a.replicates,
+                "bootstrap_studies": a.boot_replicates or a.replicates, "sizes": a.sizes,
+                "bootstrap_resamples": a.boot, "seed": a.seed, "level": 0.95, "workers": a.workers}
+    if a.rows:
+        Path(a.rows).write_text(json.dumps({"settings": settings, "rows": rows}, indent=1) + "\n")
+    write_outputs(rows, Path(a.out), settings, Path(a.packaged) if a.packaged else None, notes)
     print((Path(a.out) / "validation.md").read_text())
     return 0
 

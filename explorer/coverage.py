@@ -1,0 +1,80 @@
+"""Measured coverage of each interval method, read from the simulation results that ship with the tool.
+
+explorer/validation_results.json holds the coverage rows of docs/validation.json (made by
+`python -m explorer.validation`). A break-even interval is labelled with the coverage measured for its
+outcome kind and method at the simulated size nearest its cohort, and called approximate when that
+coverage lies outside 93.5-96.5%.
+"""
+from __future__ import annotations
+
+import functools
+import json
+import math
+from importlib import resources
+
+from .spec import AnalysisSpec, OutcomeSpec
+
+TARGET = (0.935, 0.965)
+RESULTS = "validation_results.json"
+
+
+@functools.lru_cache(maxsize=1)
+def _rows() -> tuple[dict, ...]:
+    text = resources.files("explorer").joinpath(RESULTS).read_text(encoding="utf-8")
+    return tuple(r for r in json.loads(text) if r.get("coverage") is not None)
+
+
+def measured(kind: str, method: str, n: int) -> dict | None:
+    """The simulation row for this scenario kind and interval method at the simulated size nearest n (on the
+    log scale), or None when that pair was never simulated. kind: continuous, binary, ordinal, survival or
+    composite; method: fieller, delta or bootstrap-percentile."""
+    rows = [r for r in _rows() if r["scenario"] == kind and r["method"] == method]
+    if not rows or not n or n <= 0:
+        return None
+    return dict(min(rows, key=lambda r: (abs(math.log(r["n"] / n)), -r["n"])))
+
+
+def default_method(kind: str) -> str:
+    """The method the tool should use by default for this kind: the one marked default in the simulations
+    (the analytic method unless it misses 93.5-96.5% at n >= 1,000); 'analytic' for kinds never simulated."""
+    for r in _rows():
+        if r["scenario"] == kind and r.get("default"):
+            return r["method"]
+    return "analytic"
+
+
+def default_interval(kind: str) -> str:
+    """The spec's `interval` setting ("analytic" | "bootstrap") that gives default_method(kind)."""
+    return "bootstrap" if default_method(kind) == "bootstrap-percentile" else "analytic"
+
+
+def scenario_for(outcome: OutcomeSpec, analysis: AnalysisSpec, composite_kind: str | None = None) -> str | None:
+    """The simulated scenario that matches this analysis, or None when none does (spline shape, adjustment,
+    a margin, another level, RMST or Weibull, or a composite other than the ordinal one). For a composite row
+    pass the [values] outcome and the row's kind."""
+    if analysis.shape != "linear" or analysis.margin != 0.0 or abs(analysis.level - 0.95) > 1e-12 or outcome.adjust:
+        return None
+    if composite_kind is not None:
+        return "composite" if composite_kind == "ordinal" and outcome.kind == "ordinal" else None
+    if outcome.kind == "survival":
+        return "survival" if (outcome.model or "cox") == "cox" and (outcome.measure or "survival") == "survival" \
+            else None
+    return outcome.kind if outcome.kind in ("continuous", "binary", "ordinal") else None
+
+
+def label(break_even_json: dict, kind: str | None, n: int) -> dict:
+    """Fill `coverage` (measured, a proportion, or None) and `approximate` in one break-even JSON dict, in place
+    and returned; also `coverage_n`, the simulated size the coverage comes from."""
+    row = measured(kind, break_even_json.get("interval", ""), n) if kind else None
+    break_even_json["coverage"] = None if row is None else row["coverage"]
+    break_even_json["coverage_n"] = None if row is None else row["n"]
+    break_even_json["approximate"] = row is not None and not TARGET[0] <= row["coverage"] <= TARGET[1]
+    return break_even_json
+
+
+def label_row(row: dict, kind: str | None) -> dict:
+    """Label every break-even of a results (or composite) row; n is the row's patients in both arms."""
+    n = sum(v for v in (row.get("n") or {}).values() if v)
+    for b in row.get("break_even", []):
+        label(b, kind, n)
+    return row

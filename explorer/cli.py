@@ -34,6 +34,13 @@ def _fmt(v: float | None) -> str:
     return "open" if v is None else f"{v:.3g}"
 
 
+def _interval_words(b: dict) -> str:
+    lo, hi = b["ci"]
+    if b.get("interval_shape") == "two_rays":
+        return f"[below {_fmt(lo)} or above {_fmt(hi)}]"
+    return f"[{_fmt(lo)}, {_fmt(hi)}]"
+
+
 def summary_table(doc: dict) -> str:
     """The readable table `fulcrum analyse` prints: one line per outcome x index (and composite)."""
     arms = doc["arms"]
@@ -41,7 +48,7 @@ def summary_table(doc: dict) -> str:
     lines = []
     for row in doc["results"] + doc.get("composite", []):
         if row["break_even"]:
-            be = "; ".join(f"{b['x']:.3g} [{_fmt(b['ci'][0])}, {_fmt(b['ci'][1])}] {b['interval']}"
+            be = "; ".join(f"{b['x']:.3g} {_interval_words(b)} {b['interval']}"
                            + (" (extrapolated)" if b["extrapolated"] else "") for b in row["break_even"])
             fav = "; ".join(f"{b['favours_below']} / {b['favours_above']}" for b in row["break_even"])
         else:
@@ -182,15 +189,20 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--spec", help="open on this spec instead of the demo")
     s.set_defaults(func=cmd_app)
 
-    c = sub.add_parser("check-methods", help="measure interval coverage by simulation (writes docs/validation.*)")
-    c.add_argument("rest", nargs=argparse.REMAINDER)
+    c = sub.add_parser("check-methods", add_help=False,
+                       help="measure interval coverage by simulation (writes docs/validation.*); "
+                            "'fulcrum check-methods --help' lists its options")
     c.set_defaults(func=cmd_check_methods)
     return p
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    args, rest = parser.parse_known_args(argv)
+    if args.command == "check-methods":
+        args.rest = rest
+    elif rest:
+        parser.error(f"unrecognized arguments: {' '.join(rest)}")
     try:
         return args.func(args)
     except FulcrumError as exc:

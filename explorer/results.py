@@ -73,7 +73,7 @@ def curve_row(pair, summary: CurveSummary, index_info: dict, n_points: int | Non
                        for b in summary.break_even],
         "favours_throughout": summary.favours_throughout,
         "curve": pts,
-        "clear_difference": [r.to_json() for r in summary.clear_difference],
+        "clear_difference": [r.to_json() for r in clip_regions(summary.clear_difference, pair.x_range)],
         "regions_band": summary.band,
         "index_info": index_info,
         "reference": ref,
@@ -87,6 +87,19 @@ class IndexInfo(dict):
     can place each break-even point as a cohort percentile."""
 
     cohort_values: np.ndarray | None = None
+
+
+def clip_regions(regions: list, x_range: tuple[float, float]) -> list:
+    """Clear-difference regions cut to the observed index range (the search grid reaches 10% beyond it)."""
+    import dataclasses
+
+    lo, hi = x_range
+    out = []
+    for r in regions:
+        start, stop = max(r.start, lo), min(r.stop, hi)
+        if start <= stop:
+            out.append(dataclasses.replace(r, start=start, stop=stop))
+    return out
 
 
 def index_info_json(iv) -> IndexInfo:

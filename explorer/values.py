@@ -397,7 +397,7 @@ def prepare_composite(fs: an.FitSet, kind: str, index: str, replicates: list[dic
         levels = ordinal.levels
         anchor, at = pf_ord, _ordinal_evaluator(pf_ord)
         parts = [pf_ord]
-        measure = f"expected value of the state weights ({ordinal.title})"
+        measure = f"expected weight of {ordinal.title}"
         notes.append(f"Each arm's composite is the expected weight over the levels of {ordinal.title}, from its "
                      "fitted level probabilities; the weights are those of " + whose.get(values.whose, values.whose)
                      + ".")
@@ -410,8 +410,7 @@ def prepare_composite(fs: an.FitSet, kind: str, index: str, replicates: list[dic
         levels = ordinal.levels
         anchor, at = pf_ord, _survival_function_evaluator(pf_ord, pf_surv)
         parts = [pf_ord, pf_surv]
-        measure = (f"probability alive at {_horizon_words(so)} x expected weight among survivors "
-                   f"({ordinal.title})")
+        measure = f"alive at {_horizon_words(so)} x expected weight of survivors' states"
         notes.append(f"P(alive at {_horizon_words(so)}) from '{so.title}' times the expected weight among survivors "
                      f"from '{ordinal.title}' (its probabilities over the levels other than '{levels[-1]}', taken as "
                      f"death); death counts with weight {{death}}. This is the law of total expectation: both models "
@@ -428,8 +427,7 @@ def prepare_composite(fs: an.FitSet, kind: str, index: str, replicates: list[dic
         levels = ("quality-adjusted survival",)
         anchor, at = pf_surv, _quality_adjusted_evaluator(pf_surv, pf_util)
         parts = [pf_surv, pf_util]
-        measure = (f"quality-adjusted survival to {_horizon_words(so)}: restricted mean survival x mean of "
-                   f"{conditional_label(uo)}")
+        measure = f"quality-adjusted survival to {_horizon_words(so)} (RMST x {conditional_label(uo)})"
         notes.append(f"Quality-adjusted survival is approximated as restricted mean survival to {_horizon_words(so)} "
                      f"times the mean {uo.title} of survivors at that index value: this assumes quality of life is "
                      "constant over the period and the same, while alive, in those who died as in the survivors "

@@ -373,8 +373,9 @@ def test_composite_rows_have_the_results_row_shape_and_validate(big):
     from explorer import results as res
 
     summaries = vl.composite_summaries(big, WEIGHT_SETS["equal"])
-    fs = an.FitSet(big.spec, None, {"frailty": type("IV", (), {"info": {"kind": "column", "label": "frailty"}})()},
-                   big.pairs)
+    frailty = np.concatenate([d.x for d in next(iter(big.pairs.values())).data.values()])
+    iv = type("IV", (), {"info": {"kind": "column", "label": "frailty"}, "values": frailty})()
+    fs = an.FitSet(big.spec, None, {"frailty": iv}, big.pairs)
     rows = vl.composite_rows(fs, summaries)
     assert {r["kind"] for r in rows} == {"ordinal", "survival_function"}
     for r in rows:

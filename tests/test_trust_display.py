@@ -260,3 +260,25 @@ def test_outcomes_page_shows_the_test_and_the_checks(doc):
 
 def ws_outcomes(at: AppTest) -> list:
     return list(at.session_state["workspace"].spec.outcomes)
+
+
+def test_imputation_comparison_sits_beside_the_complete_cases(result):
+    from explorer import imputation as im
+    from explorer.report import missing_data
+
+    fs = result.fitset
+    cut = dataclasses.replace(fs, pairs={k: p for k, p in fs.pairs.items() if k[1] == "cfs"})
+    rows = im.imputed_break_evens(cut, m=2)
+    table = ch.imputation_frame(rows)
+    assert len(table) == len(rows)
+    for row, rec in zip(rows, table.to_dict("records")):
+        for b in row["complete_case"]["break_even"]:
+            assert ch.fmt(b["x"]) in rec["complete cases"]
+        if row["imputed"]:
+            for b in row["imputed"]["break_even"]:
+                assert ch.fmt(b["x"]) in rec["imputed"]
+        else:
+            assert rec["imputed"] == "nothing to impute"
+    shown = missing_data({"imputation": rows, "results": []})
+    assert shown["imputation"]["rows"] and im.NOTE in shown["imputation_notes"]
+    assert "non-informative" in " ".join(shown["imputation_notes"])

@@ -51,10 +51,10 @@ def test_two_cli_processes_and_analyse_give_the_same_document(demo_spec_path, tm
 
 def _bootstrap(spec_path: Path, workers: int, seed: int = 1) -> dict:
     """The demo along the Clinical Frailty Scale with a 20-replicate bootstrap on `workers` joblib workers
-    (pairwise left out: it runs serially); the document as JSON would give it."""
+    (pairwise left out: it runs serially; maps left out: they need two indices); the document as JSON gives it."""
     spec = load_spec(spec_path)
-    spec = dataclasses.replace(spec, indices=(spec.index("cfs"),), pairwise=None, analysis=dataclasses.replace(
-        spec.analysis, interval="bootstrap", replicates=20, workers=workers, seed=seed))
+    analysis = dataclasses.replace(spec.analysis, interval="bootstrap", replicates=20, workers=workers, seed=seed)
+    spec = dataclasses.replace(spec, indices=(spec.index("cfs"),), maps=(), pairwise=None, analysis=analysis)
     return json.loads(results.dumps(analyse(spec).document))
 
 

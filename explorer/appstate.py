@@ -630,6 +630,11 @@ class Workspace:
             self.spec, self.cohort, index, ivs.get(index) if index else None,
             replicates=min(self.spec.analysis.replicates, 200), progress=progress))
 
+    def results_spec(self, bootstrap: bool = True) -> Spec:
+        """The spec the results are made with: its interval says whether the bootstrap's intervals are in them,
+        so the saved spec reproduces the results with `fulcrum analyse`."""
+        return _interval(self.spec, "bootstrap" if bootstrap and self.has_bootstrap() else "analytic")
+
     def result(self, bootstrap: bool = True, progress: Callable[[int, int], None] | None = None):
         """The whole analysis as the engine's orchestrator makes it (for the report and the JSON)."""
         from .analysis import analyse
@@ -638,9 +643,9 @@ class Workspace:
         key = ("result", *result_key(self.data_sha256, self.spec, boot))
 
         def make():
-            spec = _interval(self.spec, "bootstrap" if boot else "analytic")
+            spec = self.results_spec(bootstrap)
             fs = dataclasses.replace(self.fitset(), spec=spec)
-            extra: dict[str, Any] = {"spec_bytes": spec_text(self.spec).encode()}
+            extra: dict[str, Any] = {"spec_bytes": spec_text(spec).encode()}
             if boot and _takes_replicates():
                 extra["replicates"] = self._reps(True)
             elif boot:

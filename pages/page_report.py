@@ -13,7 +13,7 @@ ws, _ = ui.page_head(
 arms = list(ws.spec.cohort.arms)
 
 st.header("Save the settings")
-st.download_button("Spec with the current weights, indices and margin (.toml)", data=aps.spec_text(ws.spec),
+st.download_button("Spec with the current weights, indices and margin (.toml)", data=aps.spec_text(ws.results_spec()),
                    file_name="fulcrum_spec.toml", mime="application/toml", on_click="ignore", icon=":material/save:")
 
 res = ui.result(ws, bootstrap=True)

@@ -67,10 +67,11 @@ class CurveSummary:
     warnings: list[str] = field(default_factory=list)
 
 
-def _r(v: float | None, digits: int = 6) -> float | None:
+def _r(v: float | None) -> float | None:
+    """Ten significant digits (stable JSON without flattening small-scale indices); non-finite -> None."""
     if v is None or not np.isfinite(v):
         return None
-    return float(round(float(v), digits))
+    return float(f"{float(v):.10g}")
 
 
 def critical_value(level: float) -> float:
@@ -89,13 +90,13 @@ def find_roots(f: Callable[[np.ndarray], np.ndarray], lo: float, hi: float, n: i
         if not (np.isfinite(a) and np.isfinite(b)):
             continue
         if a == 0.0:
-            if not roots or abs(roots[-1] - xs[i]) > 1e-12:
+            if i == 0 or ys[i - 1] != 0.0:  # a run of exact zeros (identical arms) counts once, at its start
                 roots.append(float(xs[i]))
             continue
         if a * b < 0:
             g = lambda t: float(np.asarray(f(np.array([t])), float)[0])  # noqa: E731
             roots.append(float(optimize.brentq(g, xs[i], xs[i + 1], xtol=1e-10, rtol=1e-12)))
-    if ys[-1] == 0.0 and (not roots or abs(roots[-1] - xs[-1]) > 1e-12):
+    if ys[-1] == 0.0 and ys[-2] != 0.0:
         roots.append(float(xs[-1]))
     return roots
 

@@ -11,7 +11,7 @@ from importlib import resources
 from pathlib import Path
 
 from . import CAUTIONS, __version__
-from .errors import FulcrumError
+from .errors import FulcrumError, printable
 
 
 class ProgressBar:
@@ -56,8 +56,9 @@ def summary_table(doc: dict) -> str:
             fav = f"{row['favours_throughout']} throughout"
         clear = "; ".join(f"{r['from']:.3g}-{r['to']:.3g} {r['favours']}" for r in row["clear_difference"]) or "none"
         lines.append([row["outcome"], row["index"], row["measure"], be, fav, clear])
+    lines = [[printable(c) for c in line] for line in lines]
     widths = [max(len(str(x)) for x in col) for col in zip(head, *lines)]
-    out = [f"Arms: {arms[0]} (first) minus {arms[1]} (second); higher is better.",
+    out = [f"Arms: {printable(arms[0])} (first) minus {printable(arms[1])} (second); higher is better.",
            "  ".join(h.ljust(w) for h, w in zip(head, widths)),
            "  ".join("-" * w for w in widths)]
     out += ["  ".join(str(c).ljust(w) for c, w in zip(r, widths)) for r in lines]
@@ -91,7 +92,7 @@ def cmd_analyse(args: argparse.Namespace) -> int:
     if not args.quiet:
         print(summary_table(result.document))
         for w in result.document["warnings"]:
-            print(f"warning: {w}")
+            print(f"warning: {printable(w)}")
     return 0
 
 

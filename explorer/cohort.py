@@ -9,7 +9,6 @@ import csv
 import difflib
 import hashlib
 import io
-import unicodedata
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -19,7 +18,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from .errors import FulcrumError
+from .errors import FulcrumError, printable
 from .spec import OutcomeSpec, Spec
 
 FORMATS = (".csv", ".tsv", ".xlsx", ".parquet")
@@ -304,10 +303,8 @@ def _arrow_text(col: pa.ChunkedArray, numeric: bool) -> pd.Series:
 
 
 def _cut(value: object, width: int = 40) -> str:
-    """A cell as shown in a message: control and format characters (terminal escapes, bidi overrides) are
-    spelled out, and long cells are cut, so a hostile cell can neither drive a terminal nor flood the message."""
-    text = "".join(f"\\u{ord(c):04x}" if unicodedata.category(c) in ("Cc", "Cf") else c for c in str(value))
-    return text if len(text) <= width else text[:width - 3] + "..."
+    """A cell as shown in a message (errors.printable: control characters spelled out, cut to width)."""
+    return printable(value, width)
 
 
 NUMBER = r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$"

@@ -64,3 +64,12 @@ def format_rows(rows: Sequence[int], total: int | None = None, first: int = 5) -
     word = "row" if total == 1 else "rows"
     more = total - min(first, len(rows))
     return f"{word} {shown}" + (f" and {more} more" if more > 0 else "")
+
+
+def printable(text: object, width: int | None = None) -> str:
+    """Text safe to show: control and format characters (terminal escapes, bidi overrides) spelled out,
+    long text cut, so a hostile cell or label can neither drive a terminal nor flood a message."""
+    import unicodedata
+
+    out = "".join(f"\\u{ord(c):04x}" if unicodedata.category(c) in ("Cc", "Cf") else c for c in str(text))
+    return out if width is None or len(out) <= width else out[:width - 3] + "..."

@@ -18,11 +18,11 @@ SCHEMA_VERSION = 1
 
 
 def r6(v: Any) -> Any:
-    """Round floats for JSON (stable across platforms), map non-finite to null."""
+    """Floats to ten significant digits for JSON (stable, and small scales keep their values); non-finite -> null."""
     if v is None:
         return None
     if isinstance(v, (float, np.floating)):
-        return float(round(float(v), 6)) if np.isfinite(v) else None
+        return float(f"{float(v):.10g}") if np.isfinite(v) else None
     if isinstance(v, (int, np.integer)) and not isinstance(v, bool):
         return int(v)
     return v

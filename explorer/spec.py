@@ -742,9 +742,16 @@ def spec_to_dict(spec: Spec, relative_to: Path | None = None) -> dict[str, Any]:
     return out
 
 
+EXECUTION_ONLY = ("workers", "scheduler")  # how the work is spread, not what is computed
+
+
 def canonical_sha256(spec: Spec) -> str:
-    """Hash of the parsed spec as sorted JSON: the same analysis typed differently hashes the same."""
-    text = json.dumps(spec_to_dict(spec), sort_keys=True, separators=(",", ":"), default=str)
+    """Hash of the parsed spec as sorted JSON: the same analysis typed differently, or run on other workers,
+    hashes the same."""
+    data = spec_to_dict(spec)
+    for key in EXECUTION_ONLY:
+        data.get("analysis", {}).pop(key, None)
+    text = json.dumps(data, sort_keys=True, separators=(",", ":"), default=str)
     return hashlib.sha256(text.encode()).hexdigest()
 
 

@@ -40,7 +40,7 @@ def go(page, name: str) -> None:
 
 def change_a_weight(page) -> None:
     """Move one state's weight with the keyboard; the composite's sentence must change with it."""
-    sentence = re.compile(r"Expected value of the state weights.*")
+    sentence = re.compile(r"Expected weight of .*")
     before = sentence.findall(main_text(page))
     thumb = page.get_by_role("slider", name="bedbound")
     thumb.focus()

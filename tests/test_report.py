@@ -25,7 +25,7 @@ ATTACK = "<script>alert(1)</script>"
 def result(_demo_master):
     spec = load_spec(_demo_master / "demo.toml")
     keep = tuple(ix for ix in spec.indices if ix.name in ("cfs", "age"))
-    return analyse(dataclasses.replace(spec, indices=keep, pairwise=None))
+    return analyse(dataclasses.replace(spec, indices=keep, pairwise=None, maps=()))
 
 
 @pytest.fixture(scope="module")

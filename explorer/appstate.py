@@ -796,3 +796,10 @@ def patient_fields(spec: Spec, index_values: dict, frame: pd.DataFrame) -> list[
                 fields[col] = {"key": col, "label": col, "numeric": False, "options": options,
                                "default": options[0] if options else ""}
     return list(fields.values())
+
+
+def breakeven_table(doc: dict) -> pd.DataFrame:
+    """The table of every break-even point (results and composites) for spreadsheet downloads."""
+    from .charts import breakeven_summary_table
+
+    return breakeven_summary_table(doc)

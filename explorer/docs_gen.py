@@ -92,6 +92,7 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
     ]),
     ("row", "Results rows (one outcome along one index)", [
         ("results[].outcome", "The outcome's name in the spec."),
+        ("results[].label", "The outcome's readable label (the spec's label, else its name)."),
         ("results[].index", "The index's name in the spec."),
         ("results[].measure", "The measure compared, in words (e.g. probability alive at 365 days)."),
         ("results[].kind", "The outcome kind: survival, ordinal, binary or continuous (for composites: ordinal, "

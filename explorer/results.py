@@ -61,6 +61,7 @@ def curve_row(pair, summary: CurveSummary, index_info: dict, n_points: int | Non
             ref = {n: r6(v) for n, v in zip(f.z_names, f.z_ref)}
     return {
         "outcome": pair.outcome.name,
+        "label": pair.outcome.title,
         "index": pair.index,
         "measure": measure_words(pair.outcome),
         "kind": pair.outcome.kind,

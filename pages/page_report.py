@@ -4,7 +4,7 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
-from explorer import results
+from explorer import exports, results
 
 ws, _ = ui.page_head(
     "Report",
@@ -34,6 +34,18 @@ with c2:
         st.download_button("Offline report (.html, opens with no network)", data=lambda: render_report(res),
                            file_name="fulcrum_report.html", mime="text/html", on_click="ignore",
                            icon=":material/description:")
+table = aps.breakeven_table(doc)
+c3, c4 = st.columns(2)
+with c3:
+    st.download_button("Break-even table (.csv)", data=lambda: exports.to_csv_safe(table),
+                       file_name="fulcrum_break_evens.csv", mime="text/csv", on_click="ignore",
+                       icon=":material/table:")
+with c4:
+    st.download_button("Break-even table (.xlsx)", data=lambda: exports.to_xlsx_safe(table),
+                       file_name="fulcrum_break_evens.xlsx", on_click="ignore", icon=":material/table:",
+                       mime="application/vnd.openxmlformats-officedocument.spreadsheetml.sheet")
+st.caption("Spreadsheet cells that begin with =, +, -, @ or a control character are written as plain text, so "
+           "no label from the data can run as a formula.")
 st.caption(f"Data sha256 {doc['inputs']['data_sha256'][:16]}..., spec {doc['inputs']['spec_canonical_sha256'][:16]}..., "
            f"seed {doc['inputs']['seed']}, {doc['inputs']['interval']} intervals at {doc['inputs']['level']:.0%}.")
 

@@ -14,6 +14,7 @@ from contextlib import nullcontext
 from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 
 from ..errors import FulcrumError
 from .base import Basis, OutcomeData
@@ -103,7 +104,7 @@ def prepare(basis: Basis, data: OutcomeData, arm: str, outcome: str) -> Prepared
         z_ref = (w @ z) / w.sum()
     cluster = None
     if data.cluster is not None:
-        cluster = np.unique(np.asarray(data.cluster), return_inverse=True)[1].reshape(-1)
+        cluster = pd.factorize(np.asarray(data.cluster).reshape(-1), sort=True)[0]  # np.unique's codes, by hashing
     return Prepared(np.column_stack([B, z]), w, basis_names(basis) + z_names, z_ref, z_names, cluster, weighted)
 
 

@@ -118,6 +118,7 @@ def restricted_spec(directory: Path, replicates: int, workers: int):
     raw = demo_raw(directory)
     raw["outcomes"] = [o for o in raw["outcomes"] if o["name"] in ("alive", "function", "qol")]
     raw["indices"] = [i for i in raw["indices"] if i["name"] in ("cfs", "age")]
+    raw["maps"] = [m for m in raw.get("maps", []) if set(m["indices"]) <= {"cfs", "age"}]
     raw["values"].pop("survival_outcome", None)
     raw["analysis"].update(interval="bootstrap", replicates=replicates, workers=workers)
     return parse_spec(raw, base_dir=directory)

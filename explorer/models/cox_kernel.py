@@ -26,12 +26,14 @@ class CoxKernel:
 
     def __init__(self, time: np.ndarray, event: np.ndarray, X: np.ndarray, w: np.ndarray) -> None:
         self.n = len(time)
-        kept = np.flatnonzero(w > 0)
-        time, event, X, w = time[kept], event[kept], X[kept], w[kept]
+        positive = w > 0
+        kept = None if positive.all() else np.flatnonzero(positive)
+        if kept is not None:
+            time, event, X, w = time[kept], event[kept], X[kept], w[kept]
         d = event > 0
-        first_events = np.r_[np.flatnonzero(d), np.flatnonzero(~d)]
+        first_events = np.concatenate((np.flatnonzero(d), np.flatnonzero(~d)))
         order = first_events[np.argsort(time[first_events], kind="stable")]
-        self.order = kept[order]
+        self.order = order if kept is None else kept[order]
         t = time[order]
         self.w = w[order]
         self.mean = (w @ X) / w.sum()

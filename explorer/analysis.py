@@ -517,9 +517,7 @@ def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | Non
         warnings.extend(iv.warnings)
     if reps is not None and any(ix.prognostic for ix in spec.indices):
         warnings.append("The bootstrap held each cross-fitted prognostic index fixed at its out-of-fold values; "
-                        "its intervals do not include the uncertainty of fitting the index"
-                        + (" (analysis.refit_index asks for refitting, which is not yet available)."
-                           if spec.analysis.refit_index else "."))
+                        "its intervals do not include the uncertainty of fitting the index.")
     extra: dict[str, Any] = {"pairwise": pairwise, "checks": ck.checks_rows(fs) if spec.analysis.checks else [],
                              "baseline": ck.baseline_table(fs.cohort) if spec.cohort.covariates else []}
     clusters = ck.clustering(fs)

@@ -22,7 +22,7 @@ import pandas as pd
 from .breakeven import percentile_interval
 from .errors import FulcrumError, format_rows
 from .models.common import one_blas_thread
-from .resampling import Progress, run_replicates
+from .resampling import Progress, run_blocks, run_replicates
 from .results import r6
 from .spec import OutcomeSpec, Spec
 
@@ -33,6 +33,7 @@ MAX_WINDOWS = 100
 STEP_FRACTION = 0.5
 FEW = 10
 COUNTS_KEPT = 8
+KEEP_PAIRS = 1_000_000
 _COUNTS: dict[tuple, tuple[np.ndarray, np.ndarray]] = {}
 
 
@@ -208,32 +209,56 @@ def weighted_counts(d: np.ndarray, levels: int, a: np.ndarray, b: np.ndarray) ->
 
 
 def bootstrap(groups: Sequence[np.ndarray], levels: int, replicates: int, seed: int,
-              progress: Progress | None = None) -> list[tuple[np.ndarray, np.ndarray]]:
+              progress: Progress | None = None, workers: int = 1,
+              scheduler: str | None = None) -> list[tuple[np.ndarray, np.ndarray]]:
     """Per group (a decision matrix), replicate wins and losses by level, resampling patients within arm.
 
-    Each replicate draws from its own seed (explorer.resampling), so it does not depend on chunking;
-    progress is reported in replicates, in proportion to the pairs done. Counts are kept for the last few
-    groups, so the whole-cohort group, the same along every index, is counted once.
+    Each replicate draws from its own seed (explorer.resampling) and the counts are exact, so the answer does
+    not depend on chunking, workers or backend; with workers (or a Dask scheduler) blocks of replicates run in
+    parallel. Counts are kept for the last few groups, so the whole-cohort group, the same along every index,
+    is counted once (groups of at least KEEP_PAIRS pairs are kept).
     """
     sizes = [g.shape for g in groups]
-    draws = run_replicates(functools.partial(resample_counts, sizes=sizes), replicates, seed)
-    total = max(1, sum(g.size for g in groups))
-    done = 0
-    out = []
-    for g, d in enumerate(groups):
-        # a group's draws depend on the seed, its place in each replicate's stream and the sizes before it
-        key = (hashlib.sha1(d.tobytes()).hexdigest(), d.shape, levels, replicates, seed, tuple(sizes[:g]))
-        if key not in _COUNTS:
-            a = np.stack([rep[g][0] for rep in draws])
-            b = np.stack([rep[g][1] for rep in draws])
+    # a group's draws depend on the seed, its place in each replicate's stream and the sizes before it
+    keys = [(hashlib.sha1(d.tobytes()).hexdigest(), d.shape, levels, replicates, seed, tuple(sizes[:g]))
+            if d.size >= KEEP_PAIRS else None for g, d in enumerate(groups)]
+    out: dict[int, tuple[np.ndarray, np.ndarray]] = {g: _COUNTS[k] for g, k in enumerate(keys) if k in _COUNTS}
+    todo = [g for g in range(len(groups)) if g not in out]
+    if workers == 1 and not scheduler:
+        draws = run_replicates(functools.partial(resample_counts, sizes=sizes), replicates, seed)
+        total, done = max(1, sum(groups[g].size for g in todo)), 0
+        for g in todo:
+            out[g] = _count_group(groups[g], g, levels, draws)
+            done += groups[g].size
+            if progress:
+                progress(replicates * done // total, replicates)
+    elif todo:
+        task = functools.partial(_count_block, groups=[groups[g] for g in todo], places=todo, sizes=sizes,
+                                 levels=levels)
+        per_rep = run_blocks(task, replicates, seed, workers=workers, scheduler=scheduler, progress=progress,
+                             blocks_per_worker=2, blocks=8 if scheduler else None)
+        for j, g in enumerate(todo):
+            out[g] = tuple(np.stack([rep[j][side] for rep in per_rep]) for side in (0, 1))
+    for g in todo:
+        if keys[g] is not None:
             while len(_COUNTS) >= COUNTS_KEPT:
                 _COUNTS.pop(next(iter(_COUNTS)))
-            _COUNTS[key] = weighted_counts(d, levels, a, b)
-        out.append(tuple(v.copy() for v in _COUNTS[key]))
-        done += d.size
-        if progress:
-            progress(replicates * done // total, replicates)
-    return out
+            _COUNTS[keys[g]] = out[g]
+    return [tuple(v.copy() for v in out[g]) for g in range(len(groups))]
+
+
+def _count_group(d: np.ndarray, g: int, levels: int, draws: list) -> tuple[np.ndarray, np.ndarray]:
+    a = np.stack([rep[g][0] for rep in draws])
+    b = np.stack([rep[g][1] for rep in draws])
+    return weighted_counts(d, levels, a, b)
+
+
+def _count_block(seeds: Sequence[np.random.SeedSequence], groups: list[np.ndarray], places: list[int],
+                 sizes: list[tuple[int, int]], levels: int) -> list[list[tuple[np.ndarray, np.ndarray]]]:
+    """One block of replicates: per replicate, per group, (wins, losses) by level."""
+    draws = [resample_counts(np.random.default_rng(s), sizes) for s in seeds]
+    counts = [_count_group(d, g, levels, draws) for d, g in zip(groups, places)]
+    return [[(w[r], lo[r]) for w, lo in counts] for r in range(len(seeds))]
 
 
 # ------------------------------------------------------------------------------------------
@@ -470,7 +495,8 @@ def pairwise_rows(spec: Spec, cohort: Any, index_name: str | None = None, index_
         if len(g.first) and len(g.second):
             g.d = decisions(g.first, g.second, rules)
     ready = [g for g in groups if g.d is not None]
-    boots = bootstrap([g.d for g in ready], len(rules), replicates, seed, progress) if replicates else None
+    boots = (bootstrap([g.d for g in ready], len(rules), replicates, seed, progress, workers=spec.analysis.workers,
+                       scheduler=spec.analysis.scheduler) if replicates else None)
     by_group = {id(g): b for g, b in zip(ready, boots)} if boots else {}
     return [_row(g, rules, arms, index_name, by_group.get(id(g)), level, replicates) for g in groups]
 

@@ -5,6 +5,7 @@ answer is identical whatever the backend or the number of workers.
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 from typing import Any, Callable, Sequence
 
@@ -67,6 +68,9 @@ def _run_block(task: Callable[[np.random.Generator], Any], seeds: Sequence[np.ra
     return [task(np.random.default_rng(s)) for s in seeds]
 
 
+BlockTask = Callable[[Sequence[np.random.SeedSequence]], list[Any]]
+
+
 def run_replicates(task: Callable[[np.random.Generator], Any], n: int, seed: int, *, workers: int = 1,
                    scheduler: str | None = None, progress: Progress | None = None,
                    blocks_per_worker: int = 8) -> list[Any]:
@@ -75,36 +79,40 @@ def run_replicates(task: Callable[[np.random.Generator], Any], n: int, seed: int
     `task` must be picklable (a module-level function or a functools.partial of one) when
     workers != 1 or a scheduler is given.
     """
+    return run_blocks(functools.partial(_run_block, task), n, seed, workers=workers, scheduler=scheduler,
+                      progress=progress, blocks_per_worker=blocks_per_worker)
+
+
+def run_blocks(block_task: BlockTask, n: int, seed: int, *, workers: int = 1, scheduler: str | None = None,
+               progress: Progress | None = None, blocks_per_worker: int = 8, blocks: int | None = None) -> list[Any]:
+    """Run `block_task(seeds)` (one result per seed, in order) over blocks of the n replicate seeds.
+
+    For tasks that share work across the replicates of a block; the answer must not depend on how the
+    replicates are blocked. blocks: how many (default: 50 when serial, workers x blocks_per_worker).
+    """
     seeds = replicate_seeds(seed, n)
     if n == 0:
         return []
     if scheduler:
-        return _run_dask(task, seeds, scheduler, progress)
-    if workers == 1:
-        out = []
-        step = max(1, n // 50)
-        for i, s in enumerate(seeds):
-            out.append(task(np.random.default_rng(s)))
-            if progress and ((i + 1) % step == 0 or i + 1 == n):
-                progress(i + 1, n)
-        return out
+        return _run_dask(block_task, seeds, scheduler, progress, min(n, blocks or 64))
     from joblib import Parallel, delayed, effective_n_jobs
 
-    n_workers = effective_n_jobs(workers)
-    n_blocks = min(n, max(1, n_workers * blocks_per_worker))
-    blocks = [list(b) for b in np.array_split(np.arange(n), n_blocks)]
+    n_workers = 1 if workers == 1 else effective_n_jobs(workers)
+    n_blocks = min(n, blocks or (50 if n_workers == 1 else n_workers * blocks_per_worker))
+    parts = [[seeds[i] for i in b] for b in np.array_split(np.arange(n), n_blocks)]
+    if n_workers == 1:
+        results = (block_task(p) for p in parts)
+    else:
+        results = Parallel(n_jobs=workers, return_as="generator")(delayed(block_task)(p) for p in parts)
     out: list[Any] = []
-    done = 0
-    parallel = Parallel(n_jobs=workers, return_as="generator")
-    for block_result in parallel(delayed(_run_block)(task, [seeds[i] for i in b]) for b in blocks):
+    for block_result in results:
         out.extend(block_result)
-        done += len(block_result)
         if progress:
-            progress(done, n)
+            progress(len(out), n)
     return out
 
 
-def _run_dask(task, seeds, scheduler: str, progress: Progress | None) -> list[Any]:
+def _run_dask(block_task: BlockTask, seeds, scheduler: str, progress: Progress | None, n_blocks: int) -> list[Any]:
     try:
         from dask.distributed import Client, as_completed
     except ImportError:
@@ -118,9 +126,9 @@ def _run_dask(task, seeds, scheduler: str, progress: Progress | None) -> list[An
                            hint="Check the address and that the scheduler is running.") from None
     try:
         n = len(seeds)
-        blocks = [list(b) for b in np.array_split(np.arange(n), min(n, 64))]
-        shared = client.scatter(task, broadcast=True, hash=False)
-        futures = [client.submit(_run_block, shared, [seeds[i] for i in b], pure=False) for b in blocks]
+        blocks = [list(b) for b in np.array_split(np.arange(n), n_blocks)]
+        shared = client.scatter(block_task, broadcast=True, hash=False)
+        futures = [client.submit(_call, shared, [seeds[i] for i in b], pure=False) for b in blocks]
         order = {f.key: k for k, f in enumerate(futures)}
         results: list[list[Any] | None] = [None] * len(blocks)
         done = 0
@@ -133,3 +141,7 @@ def _run_dask(task, seeds, scheduler: str, progress: Progress | None) -> list[An
         return [r for block in results for r in block]  # type: ignore[union-attr]
     finally:
         client.close()
+
+
+def _call(block_task: BlockTask, seeds: Sequence[np.random.SeedSequence]) -> list[Any]:
+    return block_task(seeds)

@@ -28,8 +28,8 @@ TIGHT = dict(precision=1e-12, r_precision=1e-15, max_steps=200)
 
 @pytest.fixture(scope="module")
 def small_spec(tmp_path_factory):
-    """The demo spec on 600 invented patients, 3 outcomes x 2 indices, 20 bootstrap replicates (the model
-    bootstrap and the selection-shift bootstrap both go through the backend)."""
+    """The demo spec on 600 invented patients, 3 outcomes x 2 indices, 20 bootstrap replicates (the model,
+    selection-shift and pairwise bootstraps all go through the backend)."""
     d = tmp_path_factory.mktemp("scale")
     demo.write_demo(d, n=600)
     raw = tomllib.loads((d / "demo.toml").read_text())
@@ -38,7 +38,6 @@ def small_spec(tmp_path_factory):
     raw["maps"] = [m for m in raw.get("maps", []) if set(m["indices"]) <= {"cfs", "age"}]
     raw["values"].pop("survival_outcome", None)
     raw["analysis"].update(interval="bootstrap", replicates=20, seed=7, checks=False)
-    raw.pop("pairwise")  # its replicates are drawn in the calling process whatever the backend
     return parse_spec(raw, base_dir=d)
 
 

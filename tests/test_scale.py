@@ -57,8 +57,16 @@ def _comparable(doc: dict) -> dict:
     return doc
 
 
-def test_serial_joblib_and_dask_give_identical_results(small_spec):
+def test_serial_joblib_and_dask_give_identical_results(small_spec, monkeypatch):
+    import sys
+
     from dask.distributed import LocalCluster
+
+    # Worker processes are spawned, and spawn re-runs the parent's __main__ file; an AppTest run earlier in
+    # this pytest worker may have left the app's script there, which cannot run outside Streamlit.
+    main = sys.modules["__main__"]
+    monkeypatch.setattr(main, "__spec__", None, raising=False)
+    monkeypatch.delattr(main, "__file__", raising=False)
 
     serial = _comparable(an.analyse(_with(small_spec, workers=1)).document)
     # the bootstrap really ran: its intervals are percentile intervals from the replicates

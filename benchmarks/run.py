@@ -69,6 +69,20 @@ def timed(fn: Callable[[], Any], runs: int) -> tuple[float, Any]:
     return float(np.median(times)), value
 
 
+def cpu_seconds() -> float:
+    """CPU seconds of this process and its live children (joblib's worker processes), user plus system."""
+    import psutil
+
+    own = psutil.Process()
+    total = sum(own.cpu_times()[:2])
+    for child in own.children(recursive=True):
+        try:
+            total += sum(child.cpu_times()[:2])
+        except psutil.Error:
+            pass
+    return total
+
+
 def verdict(key: str, value: float | None) -> str:
     if value is None or key not in TARGETS:
         return ""
@@ -199,8 +213,8 @@ def reference_pairs(spec, frame: pd.DataFrame) -> list[ref.ReferencePair]:
     return pairs
 
 
-def reference_bootstrap(spec, directory: Path, k: int) -> float:
-    """Median seconds of one naive replicate (lifelines/statsmodels refits), over k replicates."""
+def reference_bootstrap(spec, directory: Path, k: int) -> tuple[float, float]:
+    """Median wall and CPU seconds of one naive replicate (lifelines/statsmodels refits), over k replicates."""
     frame = pd.read_csv(spec.cohort.path)
     pairs = reference_pairs(spec, frame)
     arm = frame[spec.cohort.arm].to_numpy()
@@ -210,12 +224,13 @@ def reference_bootstrap(spec, directory: Path, k: int) -> float:
         codes = pd.factorize(frame[spec.cohort.cluster].astype(str))[0]
         clusters = [np.flatnonzero(codes == c) for c in range(codes.max() + 1)]
     rngs = [np.random.default_rng(s) for s in np.random.SeedSequence(SEED).spawn(k)]
-    times = []
+    times, cpu = [], []
     for rng in rngs:
-        t = time.perf_counter()
+        t, c = time.perf_counter(), time.process_time()
         ref.reference_replicate(pairs, arm_rows_, clusters, rng)
         times.append(time.perf_counter() - t)
-    return float(np.median(times))
+        cpu.append(time.process_time() - c)
+    return float(np.median(times)), float(np.median(cpu))
 
 
 def bootstrap_case(directory: Path, replicates: int, ref_k: int) -> tuple[dict, an.Results]:
@@ -223,22 +238,25 @@ def bootstrap_case(directory: Path, replicates: int, ref_k: int) -> tuple[dict, 
     t = time.perf_counter()
     cohort = load_cohort(spec)
     load_s = time.perf_counter() - t
-    t = time.perf_counter()
+    t, c = time.perf_counter(), cpu_seconds()
     res = an.analyse(spec, cohort)  # first, so it pays for starting the worker processes
-    total_s = time.perf_counter() - t
+    total_s, total_cpu = time.perf_counter() - t, cpu_seconds() - c
     t = time.perf_counter()
     fs = an.fit_all(spec, cohort)
     fit_s = time.perf_counter() - t
-    t = time.perf_counter()
+    t, c = time.perf_counter(), cpu_seconds()
     an.run_bootstrap(fs, keep_distribution=(spec.values.outcome,))
-    models_s = time.perf_counter() - t
-    per_rep = reference_bootstrap(spec, directory, ref_k)
+    models_s, models_cpu = time.perf_counter() - t, cpu_seconds() - c
+    per_rep, per_rep_cpu = reference_bootstrap(spec, directory, ref_k)
     ref_serial = per_rep * replicates
     out = {"patients": cohort.n, "replicates": replicates, "workers": 2, "load_s": load_s, "fit_all_s": fit_s,
            "model_bootstrap_s": models_s, "analyse_s": total_s, "reference_per_replicate_s": per_rep,
            "reference_replicates_measured": ref_k, "reference_serial_s_extrapolated": ref_serial,
            "reference_two_cores_s_extrapolated": ref_serial / 2, "ratio": ref_serial / total_s,
-           "ratio_reference_on_two_cores": ref_serial / 2 / total_s, "ratio_models_only": ref_serial / models_s}
+           "ratio_reference_on_two_cores": ref_serial / 2 / total_s, "ratio_models_only": ref_serial / models_s,
+           "analyse_cpu_s": total_cpu, "model_bootstrap_cpu_s": models_cpu,
+           "reference_per_replicate_cpu_s": per_rep_cpu, "reference_cpu_s_extrapolated": per_rep_cpu * replicates,
+           "cpu_ratio": per_rep_cpu * replicates / total_cpu}
     return out, res
 
 
@@ -364,6 +382,10 @@ def run_all(report: dict, s: dict, work: Path) -> None:
     say(f"  ratio (naive serial reference / our whole analysis) {b['ratio']:.1f}x"
         f"{verdict('bootstrap_ratio', b['ratio'])}; if the reference used both cores perfectly "
         f"{b['ratio_reference_on_two_cores']:.1f}x; against our model bootstrap alone {b['ratio_models_only']:.1f}x")
+    say(f"  CPU seconds (load-free): ours {b['analyse_cpu_s']:.0f} s (main process and workers; "
+        f"{b['analyse_cpu_s'] / 2:.0f} s on two free cores), model bootstrap alone {b['model_bootstrap_cpu_s']:.0f} s; "
+        f"reference {b['reference_per_replicate_cpu_s']:.2f} s per replicate, "
+        f"{b['reference_cpu_s_extrapolated']:.0f} s extrapolated; CPU ratio {b['cpu_ratio']:.1f}x")
 
     say("(d) re-weighting the composites of one index after a weight change (values.reweight)")
     rw = reweight_case(res)

@@ -3,9 +3,14 @@
 A model of the chosen outcome on the chosen covariates is fitted on the second arm
 (fit_on = "second") or on everyone without an arm term (fit_on = "all"), by K-fold
 cross-fitting: each patient in the fitting set gets the linear predictor of the fold model that
-did not see them; everyone else (the first arm, patients without the outcome) and any new
-patient gets the mean of the K fold models. An index fitted in-sample would carry each fitting
-patient's own noise and fake effect modification along the index.
+did not see them; everyone else in the cohort (the first arm, patients without the outcome) gets
+the value of one fold model assigned at random (folds used equally), so both arms' index values
+carry the same kind of estimation noise; a new patient gets the mean of the K fold models. Every
+fold model shares the whole fitting set's intercept, so folds differ only in their slopes. An
+index fitted in-sample would carry each fitting patient's own noise and fake effect modification
+along the index; giving the other arm the smoother mean of the fold models would fake a little
+too (their index would be less attenuated), and so would fold-specific intercepts (a fold's
+intercept comes from the other folds' outcomes, so it moves against that fold's own mean).
 
 Orientation: higher = worse prognosis. Cox: log hazard. Proportional odds: log odds of a worse
 level. Logistic: log odds of the outcome, negated when higher_is_better (so log odds of 0).
@@ -36,8 +41,9 @@ EVENTS_PER_COVARIATE = 10  # common practice
 class PrognosticModel:
     """The K fold models of a cross-fitted index; `compute` gives a new patient the mean of them.
 
-    fold_of: per cohort row, the fold whose model left that row out (-1: not in the fitting set,
-    valued by the mean of the fold models). fold_models[k] was fitted without the rows of fold k.
+    fold_of: per cohort row, the fold whose model left that row out (-1: not in the fitting set).
+    value_fold: per cohort row, the fold model whose value the row takes (fold_of in the fitting set,
+    assigned at random outside it; -1: no index value). fold_models[k] was fitted without fold k.
     """
 
     outcome: str
@@ -48,6 +54,7 @@ class PrognosticModel:
     fold_models: list[LinearPredictor]
     full: LinearPredictor
     fold_of: np.ndarray
+    value_fold: np.ndarray | None = None
     key: str | None = None
     report: dict = field(default_factory=dict)
 
@@ -90,18 +97,23 @@ def cross_fitted_index(index: IndexSpec, frame: pd.DataFrame, spec: Spec, *, key
     Xc = np.where(complete[:, None], X - center, 0.0)
     _check_rank(Xc[fit], p.covariates, f"{key}.prognostic.covariates")
     sign = -1.0 if outcome.kind in ("binary", "continuous") and outcome.higher_is_better else 1.0
+    full = fit_linear_predictor(Xc[fit], target.take(fit))
     fold_of = np.full(len(frame), -1)
-    models, lp = [], np.full(len(frame), np.nan)
+    models = []
     for k, (train, held) in enumerate(_folds(fit, p.folds, seed, groups)):
         m = fit_linear_predictor(Xc[train], target.take(train))
+        m.intercept = full.intercept
         models.append(m)
         fold_of[held] = k
-        lp[held] = m(Xc[held])
+    value_fold = fold_of.copy()
     others = np.flatnonzero(complete & (fold_of < 0))
-    lp[others] = np.mean([m(Xc[others]) for m in models], axis=0)
-    full = fit_linear_predictor(Xc[fit], target.take(fit))
+    value_fold[others] = _assign_folds(others, len(models), seed, groups)
+    lp = np.full(len(frame), np.nan)
+    for k, m in enumerate(models):
+        rows = np.flatnonzero(value_fold == k)
+        lp[rows] = m(Xc[rows])
     model = PrognosticModel(outcome.name, outcome.kind, tuple(p.covariates), center, sign, models, full, fold_of,
-                            key=key)
+                            value_fold, key=key)
     model.report = _report(index, outcome, model, Xc[fit], lp[fit], target.take(fit), seed, level)
     missing = describe_missing(dict(zip(p.covariates, X.T)))
     warnings = _warnings(index, outcome, complete, has_outcome, in_arm, model, missing)
@@ -197,6 +209,16 @@ def _folds(fit: np.ndarray, k: int, seed: int, groups: np.ndarray | None):
         yield fit[~held], fit[held]
 
 
+def _assign_folds(rows: np.ndarray, k: int, seed: int, groups: np.ndarray | None) -> np.ndarray:
+    """A fold model for each row outside the fitting set: a seeded random permutation of 0..k-1 repeated, so
+    every fold model is used about equally; copies of one patient (same group) share it."""
+    rng = np.random.default_rng([seed, 1])
+    if groups is None:
+        return rng.permutation(np.arange(len(rows)) % k)
+    unique, member = np.unique(np.asarray(groups)[rows], return_inverse=True)
+    return rng.permutation(np.arange(len(unique)) % k)[member.reshape(-1)]
+
+
 def _check_size(fit: np.ndarray, target: Target, folds: int, p: int, outcome: OutcomeSpec, fit_on: str,
                 spec: Spec, key: str) -> None:
     where = f"the {spec.second} arm" if fit_on == "second" else "the cohort"
@@ -253,9 +275,10 @@ def _report(index: IndexSpec, outcome: OutcomeSpec, model: PrognosticModel, X: n
         "method": (f"{MODEL_OF_KIND[outcome.kind]} model of {outcome.title} on {', '.join(model.covariates)}, "
                    f"fitted on {'the second arm' if p.fit_on == 'second' else 'all patients without an arm term'} "
                    f"by {p.folds}-fold cross-fitting (seed {seed}): patients in the fitting set take the value of "
-                   "the fold model that did not see them, everyone else (and a new patient) the mean of the "
-                   f"{p.folds} fold models. Coefficients are from the fit on the whole fitting set, covariates "
-                   "centred at its means."),
+                   "the fold model that did not see them, everyone else in the cohort the value of a fold model "
+                   "assigned at random (each used equally), and a new patient the mean of the "
+                   f"{p.folds} fold models; every fold model keeps the whole fitting set's intercept. "
+                   "Coefficients are from the fit on the whole fitting set, covariates centred at its means."),
     }
 
 
@@ -298,7 +321,7 @@ def _warnings(index: IndexSpec, outcome: OutcomeSpec, complete: np.ndarray, has_
     no_outcome = valued & in_arm & ~has_outcome
     if no_outcome.any():
         out.append(f"Index '{name}': {int(no_outcome.sum())} patients without '{outcome.name}' were left out of "
-                   f"the fitting and take the mean of the {p.folds} fold models.")
+                   f"the fitting and take the value of a fold model assigned at random.")
     events = model.report["n_events"]
     if outcome.kind == "binary":
         events = min(events, model.report["n_fit"] - events)

@@ -39,7 +39,8 @@ FONT = {"title": 22, "subtitle": 16, "axis_title": 18, "axis_label": 16, "legend
         "text": 15}
 ARM_LEGEND = alt.Legend(title="arm", symbolType="stroke", symbolStrokeWidth=5, symbolOpacity=1)
 DEATH_WORDS = ("dead", "death", "died", "deceased")
-METHOD_WORDS = {"fieller": "Fieller", "delta": "delta method", "bootstrap-percentile": "bootstrap percentile"}
+METHOD_WORDS = {"fieller": "Fieller", "delta": "delta method", "test-inversion": "test inversion",
+                "bootstrap-percentile": "bootstrap percentile"}
 
 
 # ------------------------------------------------------------------------------------------

@@ -22,6 +22,7 @@ from .cohort import Cohort
 from .errors import FulcrumError
 from .indices import MAX_DISCRETE_LEVELS, IndexValues
 from .km import kaplan_meier, km_json, nice_ticks, normal_quantile
+from .models.base import OutcomeData
 from .models.common import newton, prepare
 from .models.cox import CoxFit, survival_arrays
 from .models.cox_kernel import CoxKernel
@@ -148,13 +149,10 @@ def favourable(outcome: OutcomeSpec) -> tuple[str, ...]:
 
 
 def _subset(d, keep: np.ndarray):
-    """The same OutcomeData restricted to the rows in `keep`."""
-    out = copy.copy(d)
-    for name in ("x", "y", "time", "event", "z", "weights", "cluster"):
-        v = getattr(d, name)
-        if v is not None:
-            setattr(out, name, np.asarray(v)[keep])
-    return out
+    """The index and outcome values of the rows in `keep`: all that `observed` reads (covariates,
+    weights and clusters are left out, so large cohorts copy little)."""
+    return OutcomeData(**{name: np.asarray(v)[keep] for name in ("x", "y", "time", "event")
+                          if (v := getattr(d, name)) is not None})
 
 
 def patient_fit(fit, d):
@@ -277,22 +275,23 @@ def sliding_windows(pf: an.PairFit, window: int = WINDOW, step: int = STEP, leve
     arms = list(pf.fits)
     x = np.concatenate([pf.data[a].x for a in arms])
     rows = np.concatenate([pf.rows[a] for a in arms])
-    arm_of = np.concatenate([np.full(len(pf.data[a].x), i) for i, a in enumerate(arms)])
-    pos = np.concatenate([np.arange(len(pf.data[a].x)) for a in arms])
     order = np.lexsort((rows, x))
+    arm_of = np.concatenate([np.full(len(pf.data[a].x), i) for i, a in enumerate(arms)])[order]
+    pos = np.concatenate([np.arange(len(pf.data[a].x)) for a in arms])[order]
+    x = x[order]
     starts, width, _, notes = window_starts(len(x), window, step)
     z = be.critical_value(level)
     dfn = an.difference_fn(pf)
-    model = dfn(x)
+    model = _at_each(dfn, x)
     out, empty, warnings = [], [], [f"{pf.outcome.title} along {pf.index}: {n}" for n in notes]
     for s in starts:
-        idx = order[s:s + width]
-        parts = [observed(pf.outcome, _subset(pf.data[a], np.sort(pos[idx][arm_of[idx] == i])), level)
+        window_arm, window_pos = arm_of[s:s + width], pos[s:s + width]
+        parts = [observed(pf.outcome, _subset(pf.data[a], np.sort(window_pos[window_arm == i])), level)
                  for i, a in enumerate(arms)]
-        xs = x[idx]
+        xs = x[s:s + width]
         rec = {"from": r6(xs.min()), "to": r6(xs.max()), "median": float(np.median(xs)), "n_first": parts[0].n,
                "n_second": parts[1].n, "difference": None, "ci": [None, None],
-               "model_average": r6(float(np.mean(model[idx])))}
+               "model_average": r6(float(np.mean(model[s:s + width])))}
         if all(p.value is not None and p.var is not None for p in parts):
             diff = pf.sign * (parts[0].value - parts[1].value)
             se = math.sqrt(parts[0].var + parts[1].var)
@@ -308,6 +307,12 @@ def sliding_windows(pf: an.PairFit, window: int = WINDOW, step: int = STEP, leve
     for rec, m in zip(out, at_median):
         rec["median"], rec["model_difference"] = r6(rec["median"]), r6(float(m))
     return out, warnings
+
+
+def _at_each(fn: Callable[[np.ndarray], np.ndarray], x_sorted: np.ndarray) -> np.ndarray:
+    """fn at every value of a sorted array, evaluated once per distinct value (a discrete index has few)."""
+    new = np.r_[True, x_sorted[1:] != x_sorted[:-1]] if len(x_sorted) else np.zeros(0, bool)
+    return fn(x_sorted[new])[np.cumsum(new) - 1]
 
 
 # ------------------------------------------------------------------------------------------
@@ -339,17 +344,20 @@ def _gaussian_loglik(D: np.ndarray, y: np.ndarray, w: np.ndarray):
     return fun
 
 
-def arm_likelihood(outcome: OutcomeSpec, fit, d) -> ArmLikelihood:
-    """The log-likelihood each per-arm model maximised, rebuilt from its data, at its fitted parameters."""
-    prep = prepare(fit.basis, d, fit.arm, outcome.name)
+def arm_likelihood(outcome: OutcomeSpec, fit, d, kernel: CoxKernel | None = None) -> ArmLikelihood:
+    """The log-likelihood each per-arm model maximised, rebuilt from its data (a Cox model's from `kernel`
+    when given), at its fitted parameters."""
     q = fit.basis.n_columns
+    if kernel is not None:
+        return ArmLikelihood(kernel.evaluate, fit.params_, np.arange(q))
+    prep = prepare(fit.basis, d, fit.arm, outcome.name)
     X, w = prep.X, prep.w
+    if outcome.kind == "survival" and (outcome.model or "cox") == "cox":
+        return ArmLikelihood(cox_kernel(fit, d).evaluate, fit.params_, np.arange(q))
     D = np.column_stack([np.ones(len(w)), X])
     if outcome.kind == "survival":
         t, e = survival_arrays(d, fit.arm, outcome.name)
-        if (outcome.model or "cox") == "weibull":
-            return ArmLikelihood(weibull_loglik(D, np.log(t), e, w), fit.params_, np.arange(1, q + 1))
-        return ArmLikelihood(CoxKernel(t, e, X, w).evaluate, fit.params_, np.arange(q))
+        return ArmLikelihood(weibull_loglik(D, np.log(t), e, w), fit.params_, np.arange(1, q + 1))
     if outcome.kind == "ordinal":
         yk = np.searchsorted(fit.observed_, np.asarray(d.y, float).astype(int))
         m = len(fit.observed_) - 1
@@ -362,9 +370,14 @@ def arm_likelihood(outcome: OutcomeSpec, fit, d) -> ArmLikelihood:
                          np.arange(1, q + 1))
 
 
-def common_slope_fit(parts: list[ArmLikelihood]) -> tuple[float, np.ndarray, bool]:
+def common_slope_fit(parts: list[ArmLikelihood], at_params: list[tuple] | None = None
+                     ) -> tuple[float, np.ndarray, bool]:
     """Maximise the sum of the arms' log-likelihoods with the index terms shared and everything else
-    (intercepts, cut-points, Cox baselines, covariate terms, scales) arm-specific."""
+    (intercepts, cut-points, Cox baselines, covariate terms, scales) arm-specific.
+
+    at_params: each arm's (loglik, gradient, Hessian) at its own parameters; Newton then starts from the
+    maximum of their quadratic expansions, next to the answer, instead of the arms' averaged index terms.
+    """
     q = len(parts[0].shared)
     own = [np.setdiff1d(np.arange(len(p.params)), p.shared) for p in parts]
     sizes = [len(o) for o in own]
@@ -389,11 +402,33 @@ def common_slope_fit(parts: list[ArmLikelihood]) -> tuple[float, np.ndarray, boo
             ll, g, H = ll + li, g + P.T @ gi, H + P.T @ Hi @ P
         return ll, g, H
 
+    if at_params is not None:
+        near = _quadratic_start(maps, [p.params for p in parts], at_params)
+        if near is not None:
+            try:
+                theta, ll, _, _, _, ok = newton(fun, near)
+                if ok:
+                    return ll, theta, ok
+            except ValueError:
+                pass
     theta, ll, _, _, _, ok = newton(fun, start)
     return ll, theta, ok
 
 
-def effect_modification(pf: an.PairFit, clustered: bool = False, index_label: str | None = None) -> dict:
+def _quadratic_start(maps: list[np.ndarray], params: list[np.ndarray], at_params: list[tuple]
+                     ) -> np.ndarray | None:
+    """The maximiser of the sum of each arm's second-order expansion about its own fit, or None."""
+    A = sum(P.T @ -H @ P for P, (_, _, H) in zip(maps, at_params))
+    b = sum(P.T @ (-H @ p + g) for P, p, (_, g, H) in zip(maps, params, at_params))
+    try:
+        theta = np.linalg.solve(A, b)
+    except np.linalg.LinAlgError:
+        return None
+    return theta if np.all(np.isfinite(theta)) else None
+
+
+def effect_modification(pf: an.PairFit, clustered: bool = False, index_label: str | None = None,
+                        kernels: dict[str, CoxKernel] | None = None) -> dict:
     """Likelihood-ratio test that the index terms differ between the arms (df = index basis columns).
 
     Unrestricted: the two per-arm fits (their log-likelihoods add). Restricted: shared index terms with
@@ -401,9 +436,12 @@ def effect_modification(pf: an.PairFit, clustered: bool = False, index_label: st
     arm-specific baseline hazards (stratified by arm).
     """
     o, arms = pf.outcome, list(pf.fits)
-    parts = [arm_likelihood(o, pf.fits[a], pf.data[a]) for a in arms]
-    ll_u = sum(p.fun(p.params)[0] for p in parts)
-    ll_r, _, ok = common_slope_fit(parts)
+    kernels = kernels or {}
+    parts = [arm_likelihood(o, pf.fits[a], pf.data[a], kernels.get(a)) for a in arms]
+    at_params = [p.fun(p.params) for p in parts]
+    ll_u = sum(v[0] for v in at_params)
+    usable = all(np.isfinite(v[0]) and v[1] is not None for v in at_params)
+    ll_r, _, ok = common_slope_fit(parts, at_params if usable else None)
     df = pf.basis.n_columns
     stat = max(2.0 * (ll_u - ll_r), 0.0)
     p = float(stats.chi2.sf(stat, df))
@@ -442,15 +480,16 @@ def horizon_grid(pf: an.PairFit, horizons: int = HORIZONS) -> np.ndarray:
     return np.unique(np.r_[grid, float(pf.outcome.horizon)])
 
 
-def at_horizon(fit, d, horizon: float, kernel: CoxKernel | None = None):
+def at_horizon(fit, d, horizon: float, kernel: CoxKernel | None = None, baseline: tuple | None = None):
     """The same fitted model read at another horizon, without refitting: the coefficients do not depend
-    on the horizon; a Cox model takes its Breslow baseline up to the new horizon from `kernel`."""
+    on the horizon; a Cox model takes its Breslow baseline up to the new horizon from `baseline` (the
+    whole of CoxKernel.baseline at its coefficients, which serves every horizon) or from `kernel`."""
     view = copy.copy(fit)
     view.horizon = float(horizon)
     if isinstance(fit, CoxFit):
-        if kernel is None:
-            kernel = cox_kernel(fit, d)
-        view._baseline(kernel, fit.params_)
+        if baseline is None:
+            baseline = (kernel or cox_kernel(fit, d)).baseline(fit.params_)
+        view._set_baseline(*baseline)
     return view
 
 
@@ -461,25 +500,36 @@ def cox_kernel(fit, d) -> CoxKernel:
     return CoxKernel(t, e, prep.X, prep.w)
 
 
-def at_pair_horizon(pf: an.PairFit, horizon: float, kernels: dict | None = None) -> an.PairFit:
+def pair_kernels(pf: an.PairFit) -> dict[str, CoxKernel]:
+    """Each Cox arm's kernel, built once and shared by the effect-modification test and the horizon curve."""
+    return {a: cox_kernel(f, pf.data[a]) for a, f in pf.fits.items() if isinstance(f, CoxFit)}
+
+
+def at_pair_horizon(pf: an.PairFit, horizon: float, kernels: dict | None = None,
+                    baselines: dict | None = None) -> an.PairFit:
     """Both arms' fits read at another horizon (see at_horizon)."""
-    kernels = kernels or {}
-    fits = {a: at_horizon(f, pf.data[a], horizon, kernels.get(a)) for a, f in pf.fits.items()}
+    kernels, baselines = kernels or {}, baselines or {}
+    fits = {a: at_horizon(f, pf.data[a], horizon, kernels.get(a), baselines.get(a)) for a, f in pf.fits.items()}
     return dataclasses.replace(pf, outcome=dataclasses.replace(pf.outcome, horizon=float(horizon)), fits=fits,
                                warnings=[])
 
 
-def horizon_curve(fs: an.FitSet, pf: an.PairFit, horizons: int = HORIZONS) -> tuple[list[dict], list[str]]:
+def horizon_curve(fs: an.FitSet, pf: an.PairFit, horizons: int = HORIZONS,
+                  kernels: dict[str, CoxKernel] | None = None) -> tuple[list[dict], list[str]]:
     """Break-even point (with its interval) at a grid of horizons, and numbers at risk there; horizons
-    where fewer than 10% of an arm (or fewer than 20 patients) remain at risk are flagged."""
+    where fewer than 10% of an arm (or fewer than 20 patients) remain at risk are flagged.
+
+    Every horizon reads the same fits: each Cox arm's baseline is computed once, over all event times."""
     spec, arms = fs.spec, list(pf.fits)
     main = an.analytic_summary(pf, spec).break_even
     target = main[0].x if main else None
-    kernels = {a: cox_kernel(f, pf.data[a]) for a, f in pf.fits.items() if isinstance(f, CoxFit)}
+    kernels = pair_kernels(pf) if kernels is None else kernels
+    baselines = {a: k.baseline(pf.fits[a].params_) for a, k in kernels.items()}
+    times = {a: np.sort(pf.data[a].time) for a in arms}
     out, flagged = [], []
     for h in horizon_grid(pf, horizons):
-        s = an.analytic_summary(at_pair_horizon(pf, h, kernels), spec)
-        risk = [int((pf.data[a].time >= h).sum()) for a in arms]
+        s = an.analytic_summary(at_pair_horizon(pf, h, kernels, baselines), spec)
+        risk = [len(times[a]) - int(np.searchsorted(times[a], h, side="left")) for a in arms]
         beyond = any(r < max(AT_RISK_MIN, AT_RISK_SHARE * len(pf.data[a].time)) for r, a in zip(risk, arms))
         pick = None
         if s.break_even:
@@ -513,15 +563,16 @@ def pair_checks(fs: an.FitSet, pf: an.PairFit, *, bands: int = BANDS, window: in
     iv = fs.indices.get(pf.index)
     ovf, calib, w1 = observed_vs_fitted(pf, bands, level, _discrete(iv))
     windows, w2 = sliding_windows(pf, window, step, level)
+    kernels = pair_kernels(pf)
     em = effect_modification(pf, clustered=bool(fs.spec.cohort.cluster),
-                             index_label=None if iv is None else iv.info.get("label"))
+                             index_label=None if iv is None else iv.info.get("label"), kernels=kernels)
     row = {"outcome": o.name, "index": pf.index, "kind": o.kind, "measure": measure_words(o),
            "observed_vs_fitted": ovf, "calibration": calib, "sliding_window": windows,
            "window": {"patients": window, "step": step},
            "effect_modification": {k: v for k, v in em.items() if k != "warnings"}}
     warnings = w1 + w2 + em["warnings"]
     if o.kind == "survival":
-        row["horizon_curve"], w3 = horizon_curve(fs, pf)
+        row["horizon_curve"], w3 = horizon_curve(fs, pf, kernels=kernels)
         warnings += w3
     row["warnings"] = list(dict.fromkeys(warnings))
     return row

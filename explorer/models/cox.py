@@ -92,13 +92,16 @@ class CoxFit(ArmFit):
                         f"at {self.horizon:g}.")
 
     def _baseline(self, k: CoxKernel, beta: np.ndarray) -> None:
-        times, dH, v, xbar = k.baseline(beta)
+        self._set_baseline(*k.baseline(beta))
+
+    def _set_baseline(self, times: np.ndarray, dH: np.ndarray, v: np.ndarray, xbar: np.ndarray) -> None:
+        """Keep the Breslow increments (CoxKernel.baseline) up to the horizon, and the whole cumulative hazard."""
         keep = times <= self.horizon
         self.event_times_, self.dH_, self.dH_var_, self.xbar_ = times[keep], dH[keep], v[keep], xbar[keep]
         self.baseline_times_, self.baseline_cumhaz_ = times, np.cumsum(dH)
         self.H0h_ = float(self.dH_.sum())
         self.Vh_ = float(self.dH_var_.sum())
-        self.Qh_ = self.dH_ @ self.xbar_ if len(self.dH_) else np.zeros(len(beta))
+        self.Qh_ = self.dH_ @ self.xbar_ if len(self.dH_) else np.zeros(xbar.shape[1])
 
     def _horizon_warnings(self, t: np.ndarray, w: np.ndarray) -> None:
         if self.horizon > t.max():

@@ -77,12 +77,34 @@ def outcome_data(spec: Spec, cohort: Cohort, outcome: OutcomeSpec, x: np.ndarray
     else:
         d.y = f[outcome.column].to_numpy(float)[rows]
     if outcome.adjust:
-        d.z = f[list(outcome.adjust)].to_numpy(float)[rows]
+        d.z = adjustment_rows(f, outcome, rows)
         d.z_names = tuple(outcome.adjust)
         d.z_ref = z_ref
     if spec.cohort.cluster:
         d.cluster = f[spec.cohort.cluster].astype(str).to_numpy()[rows]
     return d
+
+
+def adjustment_rows(frame: pd.DataFrame, outcome: OutcomeSpec, rows: np.ndarray) -> np.ndarray:
+    """The adjustment covariates of the given rows, (rows x covariates), built column by column so a large
+    cohort is never copied whole."""
+    z = np.empty((len(rows), len(outcome.adjust)))
+    for j, c in enumerate(outcome.adjust):
+        z[:, j] = frame[c].to_numpy(float)[rows]
+    return z
+
+
+@dataclass
+class SharedData:
+    """One outcome's arrays per arm, kept by fit_all so the pairs of every index share them: only the
+    index column differs between indices (rows must match: an index with missing values drops others)."""
+
+    rows: dict[str, np.ndarray]
+    data: dict[str, OutcomeData]
+    z_ref: np.ndarray | None
+
+    def matches(self, rows: dict[str, np.ndarray]) -> bool:
+        return set(rows) == set(self.rows) and all(np.array_equal(rows[a], self.rows[a]) for a in rows)
 
 
 def _robust(spec: Spec, outcome: OutcomeSpec) -> bool:
@@ -92,11 +114,12 @@ def _robust(spec: Spec, outcome: OutcomeSpec) -> bool:
 def fit_pair(spec: Spec, cohort: Cohort, outcome: OutcomeSpec, index: IndexValues, basis: Basis,
              rows: dict[str, np.ndarray] | None = None, weights: dict[str, np.ndarray] | None = None,
              start: dict[str, np.ndarray] | None = None, robust: bool | None = None,
-             checks: bool = True) -> PairFit:
+             checks: bool = True, shared: dict[str, SharedData] | None = None) -> PairFit:
     """Fit one outcome in each arm along one index (complete cases, counted in warnings).
 
     robust=None picks sandwich variances where the spec calls for them (clusters, bounded counts);
-    checks=False skips model diagnostics (bootstrap replicates and subset fits do not need them).
+    checks=False skips model diagnostics (bootstrap replicates and subset fits do not need them);
+    `shared` (outcome name -> SharedData) lets the pairs of several indices share the outcome's arrays.
     """
     f = cohort.frame
     x = np.asarray(index.values, float)
@@ -110,13 +133,19 @@ def fit_pair(spec: Spec, cohort: Cohort, outcome: OutcomeSpec, index: IndexValue
             warnings.append(f"{outcome.title} along {index.info.get('label', index.name)}: "
                             + ", ".join(f"{n} {arm} patients" for arm, n in dropped.items() if n)
                             + " left out for missing values (complete cases).")
-    z_ref = None
-    if outcome.adjust:
+    known = shared.get(outcome.name) if shared is not None and weights is None else None
+    if known is not None and not known.matches(rows):
+        known = None
+    z_ref = None if known is None else known.z_ref
+    if outcome.adjust and known is None:
         all_rows = np.concatenate([rows[a] for a in spec.cohort.arms])
-        z_ref = f[list(outcome.adjust)].to_numpy(float)[all_rows].mean(axis=0)
+        z_ref = adjustment_rows(f, outcome, all_rows).mean(axis=0)
     fits, data = {}, {}
     for arm in spec.cohort.arms:
-        d = outcome_data(spec, cohort, outcome, x, rows[arm], z_ref)
+        if known is not None:
+            d = dataclasses.replace(known.data[arm], x=np.asarray(x[rows[arm]], float))
+        else:
+            d = outcome_data(spec, cohort, outcome, x, rows[arm], z_ref)
         if weights is not None:
             d.weights = weights[arm]
         data[arm] = d
@@ -127,6 +156,8 @@ def fit_pair(spec: Spec, cohort: Cohort, outcome: OutcomeSpec, index: IndexValue
         fits[arm] = fit_model(outcome, arm, basis, d, start=None if start is None else start.get(arm),
                               robust=_robust(spec, outcome) if robust is None else robust, checks=checks)
         warnings.extend(f"{arm}, {outcome.title}: {w}" for w in fits[arm].warnings_)
+    if shared is not None and weights is None and known is None:
+        shared[outcome.name] = SharedData(rows, data, z_ref)
     xs = x[np.concatenate(list(rows.values()))]
     pf = PairFit(outcome, index.name, basis, fits, data, rows, (float(np.min(xs)), float(np.max(xs))), warnings)
     pf.warnings.extend(sparse_stretches(pf, spec))
@@ -158,11 +189,12 @@ def fit_all(spec: Spec, cohort: Cohort | None = None, *, indices: dict[str, Inde
     pairs = {}
     total = len(spec.outcomes) * len(spec.indices)
     k = 0
+    shared: dict[str, SharedData] = {}
     for ix in spec.indices:
         iv = indices[ix.name]
         basis = Basis.from_index(iv.values, spec.analysis.shape, spec.analysis.knots)
         for outcome in spec.outcomes:
-            pairs[(outcome.name, ix.name)] = fit_pair(spec, cohort, outcome, iv, basis)
+            pairs[(outcome.name, ix.name)] = fit_pair(spec, cohort, outcome, iv, basis, shared=shared)
             k += 1
             if progress:
                 progress(k, total)

@@ -30,6 +30,7 @@ MISSING_WORDS = ("na", "n/a", "nan", "null", "none")
 TEXT_ROLES = ("arm", "id", "allocation", "cluster", "ordinal")
 SHOWN = 20
 MAX_MAGNITUDE = 1e12
+PROBE = 10_000  # cells read to judge whether a text column has few distinct values
 
 Raw = dict[str, pd.Series]
 Opener = Callable[[set[str], set[str]], Raw]
@@ -59,7 +60,10 @@ class Cohort:
         absent = [c for c in cols if c not in self.frame.columns]
         if absent:
             raise KeyError(f"columns {absent} were not loaded; pass them to load_cohort(extra_columns=...)")
-        return self.frame[cols].notna().all(axis=1).to_numpy()
+        ok = np.ones(len(self.frame), bool)
+        for c in cols:
+            ok &= self.frame[c].notna().to_numpy()
+        return ok
 
     def counts(self) -> pd.DataFrame:
         """Patients by arm (rows, in the spec's order) and allocation (randomised, chosen, total)."""
@@ -298,7 +302,19 @@ def _arrow_text(col: pa.ChunkedArray, numeric: bool) -> pd.Series:
         else:
             if not np.isinf(values).any() and np.isnan(values).sum() == col.null_count:
                 return pd.Series(values)
-    return pd.Series(col.to_numpy(zero_copy_only=False), dtype=object)
+    return pd.Series(_text_values(col), dtype=object)
+
+
+def _text_values(col: pa.ChunkedArray | pa.Array) -> np.ndarray:
+    """The cells as an object array of str (None when empty). A long column with few distinct values (an
+    arm, an allocation) points at one str per value instead of making a str per cell, which at a million
+    rows saves most of the time and memory of reading it."""
+    head = col.slice(0, PROBE)
+    if len(col) <= PROBE or pc.count_distinct(head).as_py() > PROBE // 10:
+        return col.to_numpy(zero_copy_only=False)
+    distinct = pc.drop_null(pc.unique(col))
+    codes = pc.fill_null(pc.index_in(col, value_set=distinct), -1).to_numpy(zero_copy_only=False)
+    return np.array(distinct.to_pylist() + [None], dtype=object)[codes]
 
 
 
@@ -385,7 +401,7 @@ def _open_parquet(data: bytes, file: str) -> tuple[list[str], Opener]:
     import pyarrow.parquet as pq
 
     try:
-        pf = pq.ParquetFile(io.BytesIO(data))
+        pf = pq.ParquetFile(pa.BufferReader(data))  # reads the bytes in place
     except Exception as exc:  # pyarrow raises ArrowInvalid, OSError... for damaged files
         raise FulcrumError(f"the Parquet file could not be read ({exc}).", file=file,
                            hint="Write the file again, or export CSV UTF-8.") from None
@@ -481,7 +497,7 @@ class _Checker:
 
     def sized(self, col: str, s: pd.Series) -> pd.Series:
         """Refuse numbers too large for the models to fit reliably, naming the rows."""
-        size = np.abs(s.to_numpy(dtype=float, na_value=np.nan))
+        size = np.abs(s.to_numpy(dtype=float) if s.dtype == float else s.to_numpy(dtype=float, na_value=np.nan))
         big = size > MAX_MAGNITUDE
         if big.any():
             raise self.fail(f"{big.sum()} value(s) are larger than {MAX_MAGNITUDE:g} in size (the largest is "
@@ -639,7 +655,7 @@ def _build(spec: Spec, raw: Raw, roles: dict[str, list[tuple[str, str]]], path: 
            file: str, sha: str) -> Cohort:
     chk = _Checker(spec, raw, roles, file)
     c = spec.cohort
-    frame = pd.DataFrame({col: chk.column(col) for col in raw})
+    frame = pd.DataFrame({col: chk.column(col) for col in raw}, copy=False)  # the columns are new: no copy
     missing = {col: int(frame[col].isna().sum()) for col in frame.columns}
     for col, what in ((c.arm, "an arm"), (c.id, "an identifier"), (c.allocation, "an allocation"),
                       (c.cluster, "a cluster")):

@@ -901,13 +901,18 @@ def cohort_points(fs: Any, outcome: str, index: str, *, max_points: int = 1500, 
 
     Survival: 1 alive at the horizon, 0 died before it (censored earlier left out; RMST: time capped at the
     horizon). Ordinal: 1 in a favourable level. 0/1 outcomes are jittered a little so they can be seen.
+    Above `max_points` patients a seeded sample is drawn, each arm keeping its share (sampling.plot_sample),
+    and attrs["sample_note"] holds the sentence to show beside the chart; the models use every patient.
     """
+    from .sampling import plot_sample, sample_note
+
     spec = fs.spec
     pf = fs.pair(outcome, index)
     o = pf.outcome
     frame = fs.cohort.frame
-    recs = []
-    for arm, rows in pf.rows.items():
+    arms = list(pf.rows)
+    xs, ys, codes, positions = [], [], [], []
+    for k, (arm, rows) in enumerate(pf.rows.items()):
         d = pf.data[arm]
         x = np.asarray(d.x, float)
         if o.kind == "survival":
@@ -921,25 +926,32 @@ def cohort_points(fs: Any, outcome: str, index: str, *, max_points: int = 1500, 
             keep, y = np.ones(len(x), bool), np.isin(np.asarray(d.y), fav).astype(float)
         else:
             keep, y = np.ones(len(x), bool), np.asarray(d.y, float)
-        randomised = getattr(fs.cohort, "randomised", None)
-        if randomised is not None:
-            alloc = np.where(np.asarray(randomised, bool)[rows], "randomised", "chosen")
-        elif spec.cohort.allocation:
-            alloc = np.where(frame[spec.cohort.allocation].astype(str).to_numpy()[rows] == str(spec.cohort.randomised),
-                             "randomised", "chosen")
-        else:
-            alloc = np.full(len(x), "randomised")
-        recs.append(pd.DataFrame({"x": x[keep], "y": y[keep], "arm": arm, "allocation": alloc[keep]}))
-    df = pd.concat(recs, ignore_index=True)
+        xs.append(x[keep])
+        ys.append(y[keep])
+        codes.append(np.full(int(keep.sum()), k))
+        positions.append(np.asarray(rows)[keep])
+    every = pd.DataFrame({"x": np.concatenate(xs), "y": np.concatenate(ys),
+                          "arm": pd.Categorical.from_codes(np.concatenate(codes), categories=arms),
+                          "row": np.concatenate(positions)})
+    df = plot_sample(every, max_points, seed=seed, by="arm").reset_index(drop=True)
+    rows = df.pop("row").to_numpy()
+    df["arm"] = df["arm"].astype(str).astype(object)
+    randomised = getattr(fs.cohort, "randomised", None)
+    if randomised is not None:
+        df["allocation"] = np.where(np.asarray(randomised, bool)[rows], "randomised", "chosen")
+    elif spec.cohort.allocation:
+        df["allocation"] = np.where(frame[spec.cohort.allocation].iloc[rows].astype(str).to_numpy()
+                                    == str(spec.cohort.randomised), "randomised", "chosen")
+    else:
+        df["allocation"] = "randomised"
     rng = np.random.default_rng(seed)
-    if len(df) > max_points:
-        df = df.iloc[np.sort(rng.choice(len(df), max_points, replace=False))].reset_index(drop=True)
     binary = o.kind in ("binary", "ordinal") or (o.kind == "survival" and o.measure != "rmst")
     if binary:
         df["y"] = df["y"] + np.where(df["y"] > 0.5, -1, 1) * rng.uniform(0, 0.04, len(df))
     ix = fs.indices[index]
     if bool((ix.info or {}).get("discrete")):
         df["x"] = df["x"] + rng.uniform(-0.2, 0.2, len(df))
+    df.attrs["sample_note"] = sample_note(len(every), len(df), seed)
     return df
 
 

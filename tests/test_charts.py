@@ -289,3 +289,24 @@ def test_png_and_svg_export(doc):
     assert png[:8] == b"\x89PNG\r\n\x1a\n"
     svg = ch.chart_to_svg(chart)
     assert svg.lstrip().startswith("<svg") and "</svg>" in svg
+
+
+def test_cohort_points_sample_large_cohorts_by_arm_and_say_so(result):
+    fs = result.fitset
+    pf = fs.pair("function", "age")
+    # every patient with the outcome is a point; the arm shares come from pandas on the cohort itself
+    frame = fs.cohort.frame
+    rows = np.concatenate(list(pf.rows.values()))
+    share = frame[fs.spec.cohort.arm].iloc[rows].value_counts(normalize=True)
+    whole = ch.cohort_points(fs, "function", "age", max_points=len(rows) + 1)
+    assert len(whole) == len(rows) and whole.attrs["sample_note"] is None
+    shown = ch.cohort_points(fs, "function", "age", max_points=500, seed=4)
+    assert len(shown) == 500
+    counts = shown["arm"].value_counts()
+    for arm, p in share.items():
+        assert abs(counts[arm] - 500 * p) < 1  # largest remainders: each arm within one point of its share
+    assert f"500 of {len(rows):,} patients" in shown.attrs["sample_note"]
+    assert "seed 4" in shown.attrs["sample_note"]
+    # the sampled points are patients of the cohort: their (unjittered, continuous) ages are cohort ages
+    assert set(shown["x"]) <= set(frame["age"].iloc[rows])
+    assert shown.equals(ch.cohort_points(fs, "function", "age", max_points=500, seed=4))

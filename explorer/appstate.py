@@ -582,6 +582,7 @@ class Workspace:
         """The `results` rows (outcome x index) for the current margin, level and bands."""
         from . import results as res
         from .analysis import summarise
+        from .coverage import label_results
 
         boot = bootstrap and self.has_bootstrap()
 
@@ -590,7 +591,8 @@ class Workspace:
             if boot:
                 fs = dataclasses.replace(fs, spec=_interval(self.spec, "bootstrap"))
             summaries = summarise(fs, self._reps(boot))
-            return [res.curve_row(fs.pairs[k], s, res.index_info_json(fs.indices[k[1]])) for k, s in summaries.items()]
+            return label_results([res.curve_row(fs.pairs[k], s, res.index_info_json(fs.indices[k[1]]))
+                                  for k, s in summaries.items()], fs.spec)
 
         return self._cached(("rows", *result_key(self.data_sha256, self.spec, boot)), make)
 

@@ -12,7 +12,7 @@ import json
 import math
 from importlib import resources
 
-from .spec import AnalysisSpec, OutcomeSpec
+from .spec import AnalysisSpec, OutcomeSpec, Spec
 
 TARGET = (0.935, 0.965)
 RESULTS = "validation_results.json"
@@ -27,11 +27,13 @@ def _rows() -> tuple[dict, ...]:
 def measured(kind: str, method: str, n: int) -> dict | None:
     """The simulation row for this scenario kind and interval method at the simulated size nearest n (on the
     log scale), or None when that pair was never simulated. kind: continuous, binary, ordinal, survival or
-    composite; method: fieller, delta or bootstrap-percentile."""
+    composite; method: fieller, delta, test-inversion or bootstrap-percentile (where several resample counts
+    were run, the largest, closest to the tool's own default)."""
     rows = [r for r in _rows() if r["scenario"] == kind and r["method"] == method]
     if not rows or not n or n <= 0:
         return None
-    return dict(min(rows, key=lambda r: (abs(math.log(r["n"] / n)), -r["n"])))
+    return dict(min(rows, key=lambda r: (abs(math.log(r["n"] / n)), -r["n"], -(r.get("bootstrap_resamples") or 0),
+                                         -r["replicates"])))
 
 
 def default_method(kind: str) -> str:
@@ -48,11 +50,14 @@ def default_interval(kind: str) -> str:
     return "bootstrap" if default_method(kind) == "bootstrap-percentile" else "analytic"
 
 
-def scenario_for(outcome: OutcomeSpec, analysis: AnalysisSpec, composite_kind: str | None = None) -> str | None:
+def scenario_for(outcome: OutcomeSpec, analysis: AnalysisSpec, composite_kind: str | None = None,
+                 clustered: bool = False) -> str | None:
     """The simulated scenario that matches this analysis, or None when none does (spline shape, adjustment,
-    a margin, another level, RMST or Weibull, or a composite other than the ordinal one). For a composite row
-    pass the [values] outcome and the row's kind."""
+    a margin, another level, RMST or Weibull, a bounded outcome or clusters (robust variances), or a composite
+    other than the ordinal one). For a composite row pass the [values] outcome and the row's kind."""
     if analysis.shape != "linear" or analysis.margin != 0.0 or abs(analysis.level - 0.95) > 1e-12 or outcome.adjust:
+        return None
+    if clustered or (outcome.kind == "continuous" and outcome.bounds is not None):
         return None
     if composite_kind is not None:
         return "composite" if composite_kind == "ordinal" and outcome.kind == "ordinal" else None
@@ -78,3 +83,47 @@ def label_row(row: dict, kind: str | None) -> dict:
     for b in row.get("break_even", []):
         label(b, kind, n)
     return row
+
+
+def note(break_even_json: dict) -> str | None:
+    """A sentence for warnings and cautions when a labelled interval is approximate, else None."""
+    if not break_even_json.get("approximate"):
+        return None
+    n = break_even_json.get("coverage_n")
+    return (f"The {break_even_json['interval']} interval of the break-even point {break_even_json.get('x', 0):.3g} "
+            f"is approximate: in simulations like this analysis (n = {n:,}) it covered the true point in "
+            f"{100 * break_even_json['coverage']:.1f}% of studies, against a target of 93.5-96.5%.")
+
+
+def label_results(rows: list[dict], spec: Spec) -> list[dict]:
+    """Label the break-evens of `results` rows (outcome x index) for this spec's analysis settings."""
+    for row in rows:
+        try:
+            outcome = spec.outcome(row["outcome"])
+        except KeyError:
+            continue
+        label_row(row, scenario_for(outcome, spec.analysis, clustered=bool(spec.cohort.cluster)))
+    return rows
+
+
+def label_composites(rows: list[dict], spec: Spec) -> list[dict]:
+    """Label the break-evens of `composite` rows; only the ordinal composite was simulated."""
+    for row in rows:
+        try:
+            outcome = spec.outcome(row.get("values_outcome") or (spec.values.outcome if spec.values else ""))
+        except KeyError:
+            outcome = None
+        label_row(row, None if outcome is None else scenario_for(outcome, spec.analysis, row.get("kind"),
+                                                                  bool(spec.cohort.cluster)))
+    return rows
+
+
+def notes(rows: list[dict]) -> list[str]:
+    """One sentence per approximate interval among these rows, naming the outcome and index."""
+    out = []
+    for row in rows:
+        for b in row.get("break_even", []):
+            text = note(b)
+            if text:
+                out.append(f"{row.get('label') or row.get('outcome')} along {row.get('index')}: {text}")
+    return out

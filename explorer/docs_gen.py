@@ -154,8 +154,9 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
                                                 "values below it, ties counted half)."),
         ("results[].break_even[].ci", "Its interval [low, high]; null ends are unbounded. For two_rays the set "
                                       "is everything up to low and everything from high."),
-        ("results[].break_even[].interval", "The method: fieller, delta or bootstrap-percentile (rubin-fieller or "
-                                            "rubin-delta in imputation rows)."),
+        ("results[].break_even[].interval", "The method: fieller, delta, test-inversion (composites) or "
+                                            "bootstrap-percentile (rubin-fieller or rubin-delta in imputation "
+                                            "rows)."),
         ("results[].break_even[].interval_shape", "finite, unbounded_below, unbounded_above, unbounded or "
                                                   "two_rays."),
         ("results[].break_even[].extrapolated", "True when the point lies outside the observed index range."),

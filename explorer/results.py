@@ -135,8 +135,13 @@ def _jsonable(obj: Any) -> Any:
 
 def document(spec: Spec, *, data_sha256: str, spec_bytes: bytes | None, rows: list[dict], composite: list[dict],
              selection: list[dict], warnings: list[str], extra: dict | None = None) -> dict:
+    from . import coverage
+
     if spec_bytes is None:
         spec_bytes = to_toml(spec).encode()
+    coverage.label_results(rows, spec)
+    coverage.label_composites(composite, spec)
+    warnings = [*warnings, *coverage.notes(rows), *coverage.notes(composite)]
     doc = {
         "schema_version": SCHEMA_VERSION,
         "tool": {"name": "fulcrum", "version": __version__,

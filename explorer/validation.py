@@ -39,7 +39,7 @@ X_RANGE = (0.0, 10.0)
 TARGET = (0.935, 0.965)
 ARMS = ("first", "second")
 FIT_ERRORS = sel.FIT_ERRORS
-ANALYTIC = ("fieller", "delta")
+ANALYTIC = ("fieller", "test-inversion", "delta")
 BOOT = "bootstrap-percentile"
 INTERVALS = (*ANALYTIC, BOOT)
 INVERTED = "inverted band (investigation)"
@@ -197,28 +197,43 @@ def delta_interval(pf: an.PairFit, b: be.BreakEven, level: float) -> tuple:
     return lo, hi, shape
 
 
-def inverted_band(s: be.CurveSummary, x0: float) -> tuple:
-    """Investigation only (not offered by the tool): the stretch around the root where the pointwise band of the
-    difference holds zero, i.e. the delta-method test inverted; ends by linear interpolation on the grid."""
-    g, lo, hi = s.grid, s.lower, s.upper
-    holds = (lo <= 0) & (hi >= 0)
-    i = int(np.argmin(np.abs(g - x0)))
-    if not holds[i]:
-        j = int(np.clip(np.searchsorted(g, x0) - 1, 0, len(g) - 2))
-        return float(g[j]), float(g[j + 1]), "finite"
+def composite_delta_interval(cm: vl.CompositeModel, w: np.ndarray, b: be.BreakEven, level: float) -> tuple:
+    """The delta-method interval the tool used for composites before test inversion, for the same root."""
+    _, C = cm.at(np.array([b.x]), True)
+    v = float(w @ (C[0][0] + C[1][0]) @ w)
+    return be.delta_root_interval(b.x, v, b.slope, be.critical_value(level))
+
+
+def inverted_interval(diff: Callable, var: Callable, x0: float, margin: float, crit: float, lo: float, hi: float,
+                      n: int = 801) -> tuple:
+    """Investigation only (not offered by the tool): the stretch around the root x0 where the pointwise test of
+    difference = margin does not reject, {x : (d(x) - margin)^2 <= crit^2 var(x)}, ends refined by Brent's method;
+    a side reaching the searched range [lo, hi] is open. With a linear predictor and its covariance this is Fieller."""
+    def g(x):
+        x = np.atleast_1d(np.asarray(x, float))
+        return (np.asarray(diff(x), float) - margin) ** 2 - crit ** 2 * np.asarray(var(x), float)
+
+    xs = np.linspace(lo, hi, n)
+    inside = g(xs) <= 0
+    i = int(np.argmin(np.abs(xs - x0)))
+    if not inside[i]:
+        return x0, x0, "finite"
     a, b = i, i
-    while a > 0 and holds[a - 1]:
+    while a > 0 and inside[a - 1]:
         a -= 1
-    while b < len(g) - 1 and holds[b + 1]:
+    while b < n - 1 and inside[b + 1]:
         b += 1
-
-    def cross(j, k):
-        y = lo if lo[k] > 0 else hi
-        return float(g[j] + (g[k] - g[j]) * (0 - y[j]) / (y[k] - y[j]))
-
-    left = None if a == 0 else cross(a, a - 1)
-    right = None if b == len(g) - 1 else cross(b, b + 1)
+    f = lambda t: float(g(t)[0])  # noqa: E731
+    left = None if a == 0 else float(optimize.brentq(f, xs[a - 1], xs[a], xtol=1e-10))
+    right = None if b == n - 1 else float(optimize.brentq(f, xs[b], xs[b + 1], xtol=1e-10))
     return left, right, be.shape_of(left, right)
+
+
+def _inverted(pf: an.PairFit, spec: Spec, x0: float) -> tuple:
+    diff = an.difference_fn(pf)
+    var = lambda x: sum(f.measure_var(x) for f in pf.fits.values())  # noqa: E731
+    lo, hi = be.search_range(*pf.x_range)
+    return inverted_interval(diff, var, x0, spec.analysis.margin, be.critical_value(spec.analysis.level), lo, hi)
 
 
 def resample(d: OutcomeData, idx: np.ndarray) -> OutcomeData:
@@ -276,7 +291,10 @@ def one_study(sc: Scenario, n: int, boot: int, spec: Spec, rng: np.random.Genera
     out[est.interval] = _record(est)
     if est.interval == "fieller":
         out["delta"] = _record(est, delta_interval(pf, est, spec.analysis.level))
-    out[INVERTED] = _record(est, inverted_band(s, est.x))
+    if cm is not None:
+        out["delta"] = _record(est, composite_delta_interval(cm, np.asarray(sc.weights), est, spec.analysis.level))
+    else:
+        out[INVERTED] = _record(est, _inverted(pf, spec, est.x))
     if boot:
         bs = bootstrap(sc, pf, spec, s, cm, boot, rng)
         out[BOOT] = _record(bs.break_even[i])
@@ -370,9 +388,9 @@ def coverage_rows(sc: Scenario, n: int, recs: list[dict], boot: int, seconds: fl
     ok = [r for r in recs if "failed" not in r]
     failed = len(recs) - len(ok)
     methods = sorted({r["analytic_method"] for r in ok if r.get("analytic_method")})
-    if "fieller" in methods:
+    if "fieller" in methods or "test-inversion" in methods:
         methods.append("delta")
-    if not boot:
+    if not boot and any(r.get(INVERTED) for r in ok):
         methods.append(INVERTED)
     if boot:
         methods.append(BOOT)
@@ -478,11 +496,22 @@ def run(replicates: int = 500, sizes=(300, 1000, 3000), boot: int = 200, workers
     return rows
 
 
+def best_rows(rows: list[dict], scenario: str, method: str) -> dict[int, dict]:
+    """The method's row at each size; where several, the one with the most bootstrap resamples, then studies
+    (closest to the tool's own default of 1,000 replicates)."""
+    out: dict[int, dict] = {}
+    for r in rows:
+        if r.get("scenario") == scenario and r.get("method") == method and "coverage" in r:
+            rank = (r.get("bootstrap_resamples") or 0, r["replicates"])
+            if r["n"] not in out or rank >= (out[r["n"]].get("bootstrap_resamples") or 0, out[r["n"]]["replicates"]):
+                out[r["n"]] = r
+    return out
+
+
 def meets_target(rows: list[dict], scenario: str, method: str) -> bool:
     """Whether the method was measured at every size >= 1,000 the scenario was run at, within the target."""
-    rs = [r for r in rows if r.get("scenario") == scenario and "coverage" in r and r["n"] >= 1000]
-    sizes = {r["n"] for r in rs}
-    own = {r["n"]: r["coverage"] for r in rs if r["method"] == method}
+    sizes = {r["n"] for r in rows if r.get("scenario") == scenario and "coverage" in r and r["n"] >= 1000}
+    own = {n: r["coverage"] for n, r in best_rows(rows, scenario, method).items() if n >= 1000}
     return bool(sizes) and set(own) == sizes and all(c is not None and TARGET[0] <= c <= TARGET[1]
                                                      for c in own.values())
 
@@ -492,10 +521,11 @@ def mark_defaults(rows: list[dict]) -> None:
     and the bootstrap meets it (then the bootstrap)."""
     for sc in dict.fromkeys(r["scenario"] for r in rows if "coverage" in r):
         rs = [r for r in rows if r["scenario"] == sc and "coverage" in r]
-        own = "fieller" if any(r["method"] == "fieller" for r in rs) else "delta"
+        own = next((m for m in ANALYTIC if any(r["method"] == m for r in rs)), "delta")
         default = own if meets_target(rs, sc, own) or not meets_target(rs, sc, BOOT) else BOOT
+        chosen = {id(r) for r in best_rows(rs, sc, default).values()}
         for r in rs:
-            r["default"] = r["method"] == default
+            r["default"] = id(r) in chosen
 
 
 # ---- outputs ------------------------------------------------------------------------------------------
@@ -518,7 +548,7 @@ SCENARIO_WORDS = (
     "median width is over finite intervals. Where a study has several roots, the one nearest the truth is scored. "
     "Bootstrap: patients resampled within each arm, models refitted from the study's estimates, percentile "
     "intervals by the tool's own summary code; bootstrap studies are the first ones of the analytic studies "
-    "(same simulated cohorts). Monte Carlo standard error of a coverage near 95% from R studies: about "
+    "(same simulated cohorts) unless the notes above say otherwise. Monte Carlo standard error of a coverage near 95% from R studies: about "
     "0.22 / sqrt(R) (0.5 points at 2,000 studies, 1.5 at 200).")
 
 
@@ -526,12 +556,15 @@ def _coverage_table(rows: list[dict]) -> list[str]:
     out = ["| scenario | method | n | studies | coverage | bias | RMSE | median width | no root | not finite "
            "| default |", "|---|---|---|---|---|---|---|---|---|---|---|"]
     for r in rows:
-        boot = f" ({r['bootstrap_resamples']} resamples)" if r.get("bootstrap_resamples") else ""
-        out.append(f"| {r['scenario']} | {r['method']}{boot} | {r['n']:,} | {r['replicates']} | "
+        out.append(f"| {r['scenario']} | {_label(r)} | {r['n']:,} | {r['replicates']} | "
                    f"{_pct(r['coverage'])} | {_num(r['bias'])} | {_num(r['rmse'])} | {_num(r['median_width'])} "
                    f"| {_pct(r['no_root_share'])} | {_pct(r['not_finite_share'])} | "
                    f"{'yes' if r.get('default') else ''} |")
     return out
+
+
+def _label(r: dict) -> str:
+    return r["method"] + (f" ({r['bootstrap_resamples']} resamples)" if r.get("bootstrap_resamples") else "")
 
 
 def summary_lines(rows: list[dict]) -> list[str]:
@@ -541,14 +574,13 @@ def summary_lines(rows: list[dict]) -> list[str]:
     for sc in dict.fromkeys(r["scenario"] for r in cov_rows):
         rs = [r for r in cov_rows if r["scenario"] == sc]
         default = next((r["method"] for r in rs if r.get("default")), None)
-        big = ", ".join(f"{_pct(r['coverage'])} at {r['n']:,}" for r in rs if r["method"] == default
-                        and r["n"] >= 1000)
+        big = ", ".join(f"{_pct(r['coverage'])} at {n:,}" for n, r in sorted(best_rows(rs, sc, default).items())
+                        if n >= 1000)
         ok = "meets" if meets_target(rs, sc, default) else "misses"
-        missing = [f"{r['method']} {_pct(r['coverage'])} at {r['n']:,}" for r in rs
+        missing = [f"{_label(r)} {_pct(r['coverage'])} at {r['n']:,}" for r in rs
                    if not TARGET[0] <= r["coverage"] <= TARGET[1]]
         out.append(f"- **{sc}**: default {default} ({big}; {ok} the target)."
-                   + (f" Outside 93.5-96.5% (labelled approximate at that size): {'; '.join(missing)}."
-                      if missing else ""))
+                   + (f" Outside 93.5-96.5%: {'; '.join(missing)}." if missing else ""))
     return out
 
 
@@ -569,12 +601,14 @@ def markdown(rows: list[dict], settings: dict, notes: str = "") -> str:
     lines += summary_lines(rows)
     lines += ["", "## Break-even intervals", "", SCENARIO_WORDS, ""] + _coverage_table(tool)
     if probe:
-        lines += ["", "### Investigation: the delta interval inverted", "",
-                  "Not a method the tool offers. The set of index values around the root where the pointwise "
-                  "(delta-method) band of the difference holds zero, read off the tool's own band on its grid (ends "
-                  "interpolated; 'not finite' here means the set reaches the end of the searched range). Where "
-                  "Fieller applies on a linear scale it is the same idea; it shows whether a miss of the delta "
-                  "interval comes from the variance of the difference or from linearising the root.", ""]
+        lines += ["", "### Investigation: the pointwise test inverted", "",
+                  "The tool uses this interval for composites (method test-inversion above); here it is computed for "
+                  "the other outcomes too, for comparison only. It is the set of index values around the root where "
+                  "the pointwise (delta-method) test of a zero difference does not reject, found on 801 points of the "
+                  "searched range with its ends refined by Brent's method ('not finite': the set reaches the end of "
+                  "the range). Where Fieller applies on a linear scale it is Fieller's set; it shows whether a miss "
+                  "of the delta interval comes from the variance of the difference or from linearising the root.",
+                  ""]
         lines += _coverage_table(probe)
     lines += ["", "## False clear-difference regions", "",
               "Both arms drawn from the first arm's model, so the true difference is zero at every index value. "
@@ -624,7 +658,7 @@ def merge_runs(runs: list[dict]) -> tuple[list[dict], dict]:
     measured the same thing, the row with more studies is kept (the later run's on a tie)."""
     best: dict[tuple, dict] = {}
     for r in (r for run_ in runs for r in run_["rows"]):
-        key = (r["scenario"], r.get("kind"), r["method"], r["n"], r.get("selection"))
+        key = (r["scenario"], r.get("kind"), r["method"], r["n"], r.get("selection"), r.get("bootstrap_resamples"))
         if key not in best or r["replicates"] >= best[key]["replicates"]:
             best[key] = r
     order = {m: i for i, m in enumerate((*ANALYTIC, BOOT, INVERTED))}

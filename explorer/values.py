@@ -461,14 +461,14 @@ def _attach_replicates(cm: CompositeModel, fs: an.FitSet, values: ValuesSpec, re
         so = spec.outcome(values.survival_outcome)
         if so.measure != "survival":
             cm.notes.append("The bootstrap replicates hold restricted mean survival, not survival at the horizon, "
-                            "so this composite's interval uses the delta method.")
+                            "so this composite's interval is the analytic (test-inversion) one.")
             return
         surv_grid = an.grid_for(fs.pair(so.name, index), n)
     if cm.kind == "quality_adjusted":
         so = _survival_outcome(spec)
         if so.measure != "rmst":
             cm.notes.append("The bootstrap replicates hold survival at the horizon, not restricted mean survival, "
-                            "so this composite's interval uses the delta method.")
+                            "so this composite's interval is the analytic (test-inversion) one.")
             return
         surv_grid = an.grid_for(fs.pair(so.name, index), n)
         util = values.utility_outcome
@@ -529,7 +529,8 @@ def _margin(cm: CompositeModel, margin: float | None) -> float:
 
 
 def analytic_composite(cm: CompositeModel, w: np.ndarray, margin: float | None = None) -> be.CurveSummary:
-    """Composite curves with delta-method bands, break-even points with delta intervals, regions."""
+    """Composite curves with delta-method bands, break-even points with test-inversion intervals (the stretch
+    around each root where the pointwise band holds the margin), regions."""
     a = cm.spec.analysis
     margin = _margin(cm, margin)
     m1, m2 = cm.L[0] @ w, cm.L[1] @ w
@@ -550,14 +551,25 @@ def analytic_composite(cm: CompositeModel, w: np.ndarray, margin: float | None =
     for x0 in be.find_roots(lambda x: dfn(x) - margin, lo, hi):
         below, above = be.favoured_side(dfn, x0, margin, step, *cm.arms)
         slope = float((dfn(np.array([x0 + step])) - dfn(np.array([x0 - step])))[0] / (2 * step))
-        _, C = cm.at(np.array([x0]), True)
-        var0 = float(w @ (C[0][0] + C[1][0]) @ w)
-        ci_lo, ci_hi, shape = be.delta_root_interval(x0, var0, slope, z)
-        s.break_even.append(be.BreakEven(x0, (ci_lo, ci_hi), "delta", shape, not an._inside(cm.pair, x0), below,
-                                         above, slope=slope))
+        ci_lo, ci_hi, shape = be.inverted_test_interval(_test_statistic(cm, w, margin, z), x0,
+                                                        np.linspace(lo, hi, INVERSION_GRID))
+        s.break_even.append(be.BreakEven(x0, (ci_lo, ci_hi), "test-inversion", shape,
+                                         not an._inside(cm.pair, x0), below, above, slope=slope))
     s.clear_difference = be.regions(cm.grid, s.lower, s.upper, margin, *cm.arms)
     an._finish(cm.pair, s)
     return s
+
+
+INVERSION_GRID = 401  # points on the searched range where the test-inversion interval's ends are bracketed
+
+
+def _test_statistic(cm: CompositeModel, w: np.ndarray, margin: float, crit: float) -> Callable:
+    """x -> (composite difference - margin)^2 - crit^2 var: not above 0 where the pointwise test does not reject."""
+    def g(x: np.ndarray) -> np.ndarray:
+        L, C = cm.at(np.asarray(x, float).reshape(-1), True)
+        d = (L[0] - L[1]) @ w - margin
+        return d * d - crit * crit * np.maximum(_quad(C[0], w) + _quad(C[1], w), 0.0)
+    return g
 
 
 def bootstrap_composite(cm: CompositeModel, w: np.ndarray, base: be.CurveSummary, margin: float | None = None
@@ -660,7 +672,9 @@ def composite_rows(fs: an.FitSet, summaries: dict[tuple[str, str], tuple[be.Curv
                     "acceptability": res._jsonable(info.acceptability)})
         row["methods"] = {"composite": " ".join(info.notes)}
         rows.append(row)
-    return rows
+    from .coverage import label_composites
+
+    return label_composites(rows, fs.spec)
 
 
 # ------------------------------------------------------------------------------------------

@@ -189,7 +189,12 @@ def test_ordinal_composite_break_even_within_015_of_closed_form_truth(big, name)
     assert len(s.break_even) == 1
     b = s.break_even[0]
     assert abs(b.x - true_break_even(w)) < 0.15
-    assert b.interval == "delta" and b.ci[0] < b.x < b.ci[1]
+    assert b.interval == "test-inversion" and b.ci[0] < b.x < b.ci[1]
+    # test inversion: the interval's ends are where the pointwise band of the difference reaches zero (common
+    # practice: a confidence set for a root is the set where the test of a zero difference does not reject)
+    for end in b.ci:
+        touching = min(abs(np.interp(end, s.grid, s.lower)), abs(np.interp(end, s.grid, s.upper)))
+        assert touching < 0.01 * np.ptp(s.difference), (end, touching)
     assert b.favours_below == ARMS[0]
     assert info.weights == pytest.approx(dict(zip(LEVELS, w)))
 
@@ -540,7 +545,7 @@ def test_rmst_measure_gives_the_same_composites_and_bootstraps_quality_adjusted(
     boot = vl.composite_summaries(fs_r, w, replicates=reps_r)
     assert boot[("quality_adjusted", "frailty")][0].break_even[0].interval == "bootstrap-percentile"
     s, info = boot[("survival_function", "frailty")]
-    assert s.break_even[0].interval == "delta" and any("delta method" in n for n in info.notes)
+    assert s.break_even[0].interval == "test-inversion" and any("analytic (test-inversion)" in n for n in info.notes)
 
 
 def test_equal_weights_give_no_break_even_and_say_why(big):

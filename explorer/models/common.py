@@ -141,7 +141,8 @@ def check_rank(X: np.ndarray, names: tuple[str, ...], arm: str, outcome: str, w:
         raise FulcrumError(f"outcome '{outcome}', arm '{arm}': {n_used} rows are too few for {p} model terms.",
                            hint="Use fewer adjustment covariates or a linear shape for the index.")
     m = (w @ X) / w.sum()
-    G = ((X - m).T * w) @ (X - m)
+    Xc = X - m
+    G = (Xc.T * w if np.any(w != 1.0) else Xc.T) @ Xc  # unweighted rows: the same products, one copy fewer
     sd = np.sqrt(np.clip(np.diag(G), 0.0, None))
     for j in range(p):
         resid = 1.0

@@ -61,6 +61,14 @@ class CoxKernel:
         self.k = np.searchsorted(self.event_times, t, side="right")
         self.Xd = self.Xt[:, dth]
         self.wXd = self.Xd @ self.w[dth]
+        self._work: np.ndarray | None = None
+
+    def _scaled(self, v: np.ndarray) -> np.ndarray:
+        """Xt * v in one work array kept between evaluations: Newton makes many, and at a million rows fresh
+        (terms x rows) arrays cost more in page faults than the arithmetic."""
+        if self._work is None:
+            self._work = np.empty_like(self.Xt)
+        return np.multiply(self.Xt, v, out=self._work)
 
     def _tied(self, v: np.ndarray) -> np.ndarray:
         """Sums of v over each time's tied events (events sort first within a time)."""
@@ -73,7 +81,7 @@ class CoxKernel:
         eta = beta @ self.Xt
         shift = float(eta.max())
         wr = self.w * np.exp(eta - shift)
-        wrx = self.Xt * wr
+        wrx = self._scaled(wr)
         R, R1 = _tail_sums(wr, self.risk_row), _tail_sums(wrx, self.risk_row)
         T, T1 = self._tied(wr), self._tied(wrx)
         phi = R[self.inv] - self.c * T[self.inv]
@@ -94,13 +102,13 @@ class CoxKernel:
         coef[self.deaths] -= B[self.row_group]
         E0, E1, E2 = self._group(e), self._group(e * c), self._group(e * c * c)
         cross = (R1 * E1) @ T1.T
-        info = ((self.Xt * (wr * coef)) @ self.Xt.T - (R1 * E0) @ R1.T + cross + cross.T - (T1 * E2) @ T1.T)
+        info = (self._scaled(wr * coef) @ self.Xt.T - (R1 * E0) @ R1.T + cross + cross.T - (T1 * E2) @ T1.T)
         return ll, g, -(info + info.T) / 2.0
 
     def baseline(self, beta: np.ndarray):
         """Breslow increments at the centred design (X = mean): times, dH, var(dH), mean covariates per time."""
         wr = self.w * np.exp(beta @ self.Xt)
-        R, R1 = _tail_sums(wr, self.risk_row), _tail_sums(self.Xt * wr, self.risk_row)
+        R, R1 = _tail_sums(wr, self.risk_row), _tail_sums(self._scaled(wr), self.risk_row)
         return self.event_times, self.wd / R, self.wd / R ** 2, (R1 / R).T
 
     def _weighted_means(self, R1: np.ndarray, T1: np.ndarray, phi: np.ndarray, f: np.ndarray) -> np.ndarray:

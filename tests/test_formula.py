@@ -1,6 +1,8 @@
 """The formula evaluator: refusals with pointed messages, numpy-exact results, and fuzzing."""
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -102,6 +104,15 @@ def test_unknown_column_suggests_close_names() -> None:
 def test_huge_power_is_refused_before_anything_runs() -> None:
     err = refusal("9**9**9**9")
     assert err.rows is None
+
+
+@pytest.mark.parametrize("text, at, near", [("lactate - albumin /", 19, "'/'"), ("lactate >=", 9, "'>='"),
+                                             ("lactate **", 9, "'**'"), ("log(lactate,", 12, "','")])
+def test_a_dangling_operator_is_pointed_at_not_the_start(text: str, at: int, near: str) -> None:
+    """Python's parser reports a trailing operator at the start of the expression; the message must point at the
+    operator itself (1-based characters)."""
+    with pytest.raises(FulcrumError, match=re.escape(f"near character {at} ({near}): it ends with {near}")):
+        parse_formula(text, ["lactate", "albumin"])
 
 
 def test_position_counts_characters_not_bytes() -> None:

@@ -4,8 +4,8 @@ Every session (its own Playwright context on Debian's Chromium) uploads a differ
 spec, and reads its break-even points back from the Outcomes page; they must be the engine's own numbers for that
 file, with no error on any page. The server's memory (RSS of it and its children, read with psutil) is measured
 after a warm-up session and after each of three rounds of ten sessions, once the closed sessions have been let go.
-Streamlit keeps a closed tab's session for `server.disconnectedSessionTTL` seconds (120 by default) in case it
-reconnects; the server here gets a short one through Streamlit's environment variable so a round can be let go.
+Streamlit keeps a closed tab's session for `server.disconnectedSessionTTL` seconds (Streamlit's default 120,
+Fulcrum's 30) in case it reconnects; the server here gets a shorter one through Streamlit's environment variable so a round can be let go.
 Timings, CPU seconds and memory go to test-artefacts/load.json.
 """
 from __future__ import annotations
@@ -34,7 +34,7 @@ ROOT = Path(__file__).resolve().parents[1]
 SESSIONS = 10
 ROUNDS = 3
 STAGGER = 4  # sessions busy at once (all ten stay open); the server has two cores
-TTL = 2  # seconds Streamlit keeps a closed tab's session for reconnecting (its default, 120 s, set lower here)
+TTL = 2  # seconds Streamlit keeps a closed tab's session for reconnecting (Fulcrum's setting is 30 s)
 WAIT_MS = 300_000  # the longest wait for any one thing on a page, in milliseconds
 BOUND = 1200.0  # the whole test stops by itself after this many seconds, whatever happens
 INDEX = "cfs"

@@ -86,5 +86,7 @@ def test_settings_become_flags_with_defaults_and_overrides():
     assert "--server.address=127.0.0.1" in flags
     assert "--server.enableXsrfProtection=true" in flags
     assert any(f.startswith("--server.maxUploadSize=") for f in flags)
+    # closed tabs' cohorts leave memory after 30 s (Streamlit's own default keeps them 120 s); no file watching
+    assert "--server.disconnectedSessionTTL=30" in flags and "--server.fileWatcherType=none" in flags
     over = streamlit_flags("0.0.0.0", 8600)
     assert over[-2:] == ["--server.address=0.0.0.0", "--server.port=8600"]

@@ -178,6 +178,12 @@ def _parse(source: str, bare: Formula, offset: int) -> ast.Expression:
         if "null bytes" in detail or e.offset is None:
             raise bare.refuse(None, f"the formula is not a valid expression ({detail})") from None
         at = min(max(int(e.offset), 1), len(source) + 1)
+        tail = source.rstrip()
+        if tail and tail[-1] in "+-*/%<>=!,(":  # Python places a dangling operator's error at the start
+            at = len(tail)
+            while at > 1 and tail[at - 2] in "+-*/%<>=!" and tail[-1] not in ",(":
+                at -= 1
+            detail = f"it ends with '{tail[at - 1:]}', so something is missing after it"
         near = bare.text[offset + at - 1:offset + at + 9].strip() or "the end"
         raise bare.refuse(None, f"the formula is not a valid expression near character {at + offset} "
                                 f"('{near}'): {detail}",

@@ -551,16 +551,13 @@ def analytic_composite(cm: CompositeModel, w: np.ndarray, margin: float | None =
     for x0 in be.find_roots(lambda x: dfn(x) - margin, lo, hi):
         below, above = be.favoured_side(dfn, x0, margin, step, *cm.arms)
         slope = float((dfn(np.array([x0 + step])) - dfn(np.array([x0 - step])))[0] / (2 * step))
-        ci_lo, ci_hi, shape = be.inverted_test_interval(_test_statistic(cm, w, margin, z), x0,
-                                                        np.linspace(lo, hi, INVERSION_GRID))
+        ci_lo, ci_hi, shape = be.inverted_test_interval(_test_statistic(cm, w, margin, z), x0, cm.grid,
+                                                        (diff - margin) ** 2 - z * z * (v1 + v2))
         s.break_even.append(be.BreakEven(x0, (ci_lo, ci_hi), "test-inversion", shape,
                                          not an._inside(cm.pair, x0), below, above, slope=slope))
     s.clear_difference = be.regions(cm.grid, s.lower, s.upper, margin, *cm.arms)
     an._finish(cm.pair, s)
     return s
-
-
-INVERSION_GRID = 401  # points on the searched range where the test-inversion interval's ends are bracketed
 
 
 def _test_statistic(cm: CompositeModel, w: np.ndarray, margin: float, crit: float) -> Callable:

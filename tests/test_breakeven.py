@@ -132,3 +132,23 @@ def test_contains_reads_every_interval_shape():
     assert be.contains((None, 2.0), "unbounded_below", -1e9) and not be.contains((None, 2.0), "unbounded_below", 3)
     assert be.contains((-1.0, 1.0), "two_rays", 5.0) and not be.contains((-1.0, 1.0), "two_rays", 0.0)
     assert be.contains((None, None), "unbounded", 0.0)
+
+
+@pytest.mark.parametrize("a, b, cov", [(-2.0, 0.5, np.array([[0.09, -0.01], [-0.01, 0.004]])),  # inside the grid
+                                       (-2.0, 0.5, np.array([[0.09, -0.01], [-0.01, 0.06]])),  # ends past it
+                                       (-2.0, 0.5, np.array([[0.09, -0.01], [-0.01, 0.08]]))])  # two rays
+def test_test_inversion_is_fiellers_set_for_a_straight_line(a, b, cov):
+    """Inverting the pointwise test of a + b x = 0 gives Fieller's set (Fieller, J R Stat Soc B 1954):
+    {x : (a + b x)^2 <= z^2 var(a + b x)}, here found on a coarse grid and refined, against the quadratic's roots;
+    a side that passes the end of the searched grid is reported open."""
+    z = 1.959963984540054
+    g = lambda x: (a + b * x) ** 2 - z * z * (cov[0, 0] + 2 * x * cov[0, 1] + x * x * cov[1, 1])  # noqa: E731
+    lo, hi, shape = be.fieller_set(a, b, cov, z)
+    grid = np.linspace(-20.0, 40.0, 61)
+    got = be.inverted_test_interval(g, -a / b, grid)
+    if shape == "finite" and hi < grid[-1]:
+        assert got[2] == "finite" and got[:2] == pytest.approx((lo, hi), abs=1e-8)
+    elif shape == "finite":
+        assert got[2] == "unbounded_above" and got[0] == pytest.approx(lo, abs=1e-8)
+    else:  # two rays: the stretch around the root is the upper ray
+        assert shape == "two_rays" and got[2] == "unbounded_above" and got[0] == pytest.approx(hi, abs=1e-8)

@@ -139,7 +139,7 @@ def fit_pair(spec: Spec, cohort: Cohort, outcome: OutcomeSpec, index: IndexValue
     z_ref = None if known is None else known.z_ref
     if outcome.adjust and known is None:
         all_rows = np.concatenate([rows[a] for a in spec.cohort.arms])
-        z_ref = adjustment_rows(f, outcome, all_rows).mean(axis=0)
+        z_ref = np.array([f[c].to_numpy(float)[all_rows].mean() for c in outcome.adjust])
     fits, data = {}, {}
     for arm in spec.cohort.arms:
         if known is not None:

@@ -497,7 +497,10 @@ class _Checker:
 
     def sized(self, col: str, s: pd.Series) -> pd.Series:
         """Refuse numbers too large for the models to fit reliably, naming the rows."""
-        size = np.abs(s.to_numpy(dtype=float) if s.dtype == float else s.to_numpy(dtype=float, na_value=np.nan))
+        v = s.to_numpy(dtype=float) if s.dtype == float else s.to_numpy(dtype=float, na_value=np.nan)
+        if not len(v) or max(np.fmax.reduce(v), -np.fmin.reduce(v)) <= MAX_MAGNITUDE or np.isnan(v).all():
+            return s
+        size = np.abs(v)
         big = size > MAX_MAGNITUDE
         if big.any():
             raise self.fail(f"{big.sum()} value(s) are larger than {MAX_MAGNITUDE:g} in size (the largest is "
@@ -508,7 +511,7 @@ class _Checker:
     def number(self, col: str, coding: bool = False) -> pd.Series:
         s = self.raw[col]
         if s.dtype != object:
-            s = s.astype(float)
+            s = s.astype(float, copy=False)
             inf = np.isinf(s.to_numpy())
             if inf.any():
                 raise self.fail(f"{inf.sum()} entries are infinite.", col, inf, hint="Enter finite numbers only.")

@@ -415,6 +415,14 @@ def common_slope_fit(parts: list[ArmLikelihood], at_params: list[tuple] | None =
     return ll, theta, ok
 
 
+def _at_own_params(fit, part: ArmLikelihood, same_kernel: bool) -> tuple:
+    """(loglik, gradient, Hessian) of an arm at its own fit: a Cox fit kept them from the last Newton step
+    on the same kernel, so they need no new pass over the rows; any other model is evaluated."""
+    if same_kernel and isinstance(fit, CoxFit) and getattr(fit, "hessian_", None) is not None:
+        return fit.loglik_, fit.score_, fit.hessian_
+    return part.fun(part.params)
+
+
 def _quadratic_start(maps: list[np.ndarray], params: list[np.ndarray], at_params: list[tuple]
                      ) -> np.ndarray | None:
     """The maximiser of the sum of each arm's second-order expansion about its own fit, or None."""
@@ -438,7 +446,7 @@ def effect_modification(pf: an.PairFit, clustered: bool = False, index_label: st
     o, arms = pf.outcome, list(pf.fits)
     kernels = kernels or {}
     parts = [arm_likelihood(o, pf.fits[a], pf.data[a], kernels.get(a)) for a in arms]
-    at_params = [p.fun(p.params) for p in parts]
+    at_params = [_at_own_params(pf.fits[a], p, a in kernels) for a, p in zip(arms, parts)]
     ll_u = sum(v[0] for v in at_params)
     usable = all(np.isfinite(v[0]) and v[1] is not None for v in at_params)
     ll_r, _, ok = common_slope_fit(parts, at_params if usable else None)

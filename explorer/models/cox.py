@@ -72,6 +72,7 @@ class CoxFit(ArmFit):
         except ValueError:
             beta, ll, g, H, it, ok = newton(k.evaluate, np.zeros(p))
         self.params_, self.loglik_, self.iterations_, self.converged_ = beta, ll, it, ok
+        self.score_, self.hessian_ = g, H  # at params_: the effect-modification test starts from them
         model_cov = inverse(-H)
         self.cov_ = model_cov
         if robust:

@@ -557,7 +557,8 @@ def describe_row(row: Mapping[str, Any], arms: Sequence[str], index_label: str |
 def _row_interval(b: Mapping[str, Any]) -> str:
     text = _interval_words(b)
     if b.get("coverage") is not None:
-        text += f", measured coverage {fmt(b['coverage'])}"
+        n = f" of {b['coverage_n']:,} patients" if b.get("coverage_n") else ""
+        text += f" (covered the truth in {100 * b['coverage']:.1f}% of simulated cohorts{n})"
     if b.get("no_root_share"):
         text += f", {fmt(100 * b['no_root_share'])}% of replicates without a root"
     return text
@@ -578,11 +579,11 @@ def breakeven_table(doc: Mapping[str, Any]) -> pd.DataFrame:
             be_txt, interval = "none in range", ""
             below = above = f"{row.get('favours_throughout')} throughout"
         clear = "; ".join(_region_words(r, is_discrete(row)) for r in clear_regions(row)) or "none"
-        recs.append({"outcome": name, "index": index_label_of(row), "measure": row["measure"], "break-even": be_txt,
-                     "interval": interval, "favoured below": below, "favoured above": above,
-                     "clear difference": clear})
-    return pd.DataFrame(recs, columns=["outcome", "index", "measure", "break-even", "interval", "favoured below",
-                                       "favoured above", "clear difference"])
+        recs.append({"outcome": name, "index": index_label_of(row), "break-even": be_txt, "interval": interval,
+                     "favoured below": below, "favoured above": above, "clear difference": clear,
+                     "measure": row["measure"]})
+    return pd.DataFrame(recs, columns=["outcome", "index", "break-even", "interval", "favoured below",
+                                       "favoured above", "clear difference", "measure"])
 
 
 def curve_table(row: Mapping[str, Any], arms: Sequence[str], every: int = 1) -> pd.DataFrame:

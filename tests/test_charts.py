@@ -255,8 +255,8 @@ def test_no_break_even_says_who_is_favoured_throughout():
 def test_breakeven_table_has_one_row_per_outcome_index_and_composite(doc):
     table = ch.breakeven_table(doc)
     assert len(table) == len(doc["results"]) + len(doc["composite"])
-    assert list(table.columns) == ["outcome", "index", "measure", "break-even", "interval", "favoured below",
-                                   "favoured above", "clear difference"]
+    assert list(table.columns) == ["outcome", "index", "break-even", "interval", "favoured below",
+                                   "favoured above", "clear difference", "measure"]
     for (_, t), row in zip(table.iterrows(), doc["results"] + doc["composite"]):
         if row["break_even"]:
             assert t["break-even"].split(";")[0].split(" ")[0] == ch.fmt(row["break_even"][0]["x"])

@@ -408,9 +408,9 @@ def _open_parquet(data: bytes, file: str) -> tuple[list[str], Opener]:
     names = list(pf.schema_arrow.names)
 
     def read(wanted: set[str], numeric: set[str]) -> Raw:
-        chosen = [n for n in names if n.strip() in wanted]
-        table = pf.read(columns=chosen)
-        return {name.strip(): _arrow_column(col, name.strip() in numeric) for name, col in zip(chosen, table.columns)}
+        # one column at a time, so only one column's Arrow buffers are held beside the converted ones
+        return {name.strip(): _arrow_column(pf.read(columns=[name]).column(0), name.strip() in numeric)
+                for name in names if name.strip() in wanted}
 
     return [n.strip() for n in names], read
 

@@ -140,6 +140,8 @@ for row in [r for r in doc["results"] if r["index"] == index]:
     ui.altair(charts.outcome_chart(row, arms, points, index_label=titles[index]),
               " ".join(t for t in (charts.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin),
                                    charts.describe_percentiles(row, titles[index])) if t))
+    if points is not None and points.attrs.get("sample_note"):
+        st.caption(aps.md_escape(points.attrs["sample_note"]))
     with st.expander("The difference between the arms, and the numbers"):
         ui.altair(charts.difference_chart(row, arms, margin=ws.spec.analysis.margin, index_label=titles[index]))
         st.dataframe(charts.curve_table(row, arms, every=max(1, len(row["curve"]) // 25)), hide_index=True,

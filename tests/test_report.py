@@ -210,3 +210,19 @@ def test_every_chart_draws_offline_in_chromium(report_path, html):
             browser.close()
     assert drawn == expected
     assert not refused and not problems, (refused, problems)
+
+
+def test_sampled_points_are_said_beside_each_outcome_chart(result):
+    """Above the point cap the report draws a seeded sample per arm and says so in the chart's sentence
+    (explorer.sampling.sample_note); the curves still come from every patient."""
+    from explorer.report import outcome_sections
+
+    rows = result.document["results"]
+    sections = outcome_sections(result, result.document, points=200)
+    assert len(sections) == len(rows)
+    for section, row in zip(sections, rows):
+        found = re.search(r"The chart shows 200 of ([\d,]+) patients", section["sentence"])
+        # every patient with a value to draw (survival: those censored before the horizon have none)
+        assert found and 200 < int(found.group(1).replace(",", "")) <= sum(row["n"].values())
+    every = outcome_sections(result, result.document, points=10_000)
+    assert not any("The chart shows" in s["sentence"] for s in every)

@@ -25,7 +25,6 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from scipy import stats
-from sklearn.model_selection import KFold
 
 from ..errors import FulcrumError
 from ..spec import IndexSpec, OutcomeSpec, Spec
@@ -198,6 +197,8 @@ def _arm_mask(frame: pd.DataFrame, spec: Spec, arm: str) -> np.ndarray:
 
 def _folds(fit: np.ndarray, k: int, seed: int, groups: np.ndarray | None):
     """(train rows, held-out rows) per fold; copies of one patient (same group) share a fold."""
+    from sklearn.model_selection import KFold  # imported here: scikit-learn takes a second to load
+
     splitter = KFold(n_splits=k, shuffle=True, random_state=seed)
     if groups is None:
         for train, held in splitter.split(fit):

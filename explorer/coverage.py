@@ -16,6 +16,8 @@ from .spec import AnalysisSpec, OutcomeSpec, Spec
 
 TARGET = (0.935, 0.965)
 RESULTS = "validation_results.json"
+METHOD_NAMES = {"fieller": "Fieller", "delta": "delta-method", "test-inversion": "test-inversion",
+                "bootstrap-percentile": "bootstrap percentile"}
 
 
 @functools.lru_cache(maxsize=1)
@@ -90,7 +92,8 @@ def note(break_even_json: dict) -> str | None:
     if not break_even_json.get("approximate"):
         return None
     n = break_even_json.get("coverage_n")
-    return (f"The {break_even_json['interval']} interval of the break-even point {break_even_json.get('x', 0):.3g} "
+    method = METHOD_NAMES.get(break_even_json["interval"], break_even_json["interval"])
+    return (f"The {method} interval of the break-even point {break_even_json.get('x', 0):.3g} "
             f"is approximate: in simulations like this analysis (n = {n:,}) it covered the true point in "
             f"{100 * break_even_json['coverage']:.1f}% of studies, against a target of 93.5-96.5%.")
 

@@ -206,27 +206,13 @@ def composite_delta_interval(cm: vl.CompositeModel, w: np.ndarray, b: be.BreakEv
 
 def inverted_interval(diff: Callable, var: Callable, x0: float, margin: float, crit: float, lo: float, hi: float,
                       n: int = 801) -> tuple:
-    """Investigation only (not offered by the tool): the stretch around the root x0 where the pointwise test of
-    difference = margin does not reject, {x : (d(x) - margin)^2 <= crit^2 var(x)}, ends refined by Brent's method;
-    a side reaching the searched range [lo, hi] is open. With a linear predictor and its covariance this is Fieller."""
+    """The tool's test-inversion interval (breakeven.inverted_test_interval, used for composites) applied to any
+    outcome's difference, on n points of the searched range [lo, hi]; with a linear predictor it is Fieller's set."""
     def g(x):
         x = np.atleast_1d(np.asarray(x, float))
         return (np.asarray(diff(x), float) - margin) ** 2 - crit ** 2 * np.asarray(var(x), float)
 
-    xs = np.linspace(lo, hi, n)
-    inside = g(xs) <= 0
-    i = int(np.argmin(np.abs(xs - x0)))
-    if not inside[i]:
-        return x0, x0, "finite"
-    a, b = i, i
-    while a > 0 and inside[a - 1]:
-        a -= 1
-    while b < n - 1 and inside[b + 1]:
-        b += 1
-    f = lambda t: float(g(t)[0])  # noqa: E731
-    left = None if a == 0 else float(optimize.brentq(f, xs[a - 1], xs[a], xtol=1e-10))
-    right = None if b == n - 1 else float(optimize.brentq(f, xs[b], xs[b + 1], xtol=1e-10))
-    return left, right, be.shape_of(left, right)
+    return be.inverted_test_interval(g, x0, np.linspace(lo, hi, n))
 
 
 def _inverted(pf: an.PairFit, spec: Spec, x0: float) -> tuple:

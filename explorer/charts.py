@@ -821,6 +821,20 @@ def selection_break_even_chart(row: Mapping[str, Any], *, index_title: str | Non
     return _finish(chart, title, None, desc, style)
 
 
+PAIRWISE_INTERVALS = {"u-statistic": "large-sample U-statistic variances", "bootstrap-percentile": "percentile bootstrap"}
+
+
+def pairwise_interval_words(rows: Sequence[Mapping[str, Any]]) -> str | None:
+    """How the pairwise rows' intervals were made, in words (None when they have none)."""
+    row = next((r for r in rows if r.get("interval")), None)
+    if row is None:
+        return None
+    how = PAIRWISE_INTERVALS.get(row["interval"], str(row["interval"]))
+    if row["interval"] == "bootstrap-percentile":
+        how += f", {row.get('replicates')} replicates resampling patients within arm"
+    return f"{fmt(100 * row.get('level', 0.95))}% intervals by {how}"
+
+
 @_quick
 def pairwise_chart(rows: Sequence[Mapping[str, Any]], arms: Sequence[str], *, index_title: str | None = None,
                    style: bool = True) -> alt.TopLevelMixin:
@@ -853,8 +867,11 @@ def pairwise_chart(rows: Sequence[Mapping[str, Any]], arms: Sequence[str], *, in
             + (f"; whole cohort {fmt(overall['net_benefit'])}" if overall is not None else "") + ": "
             + "; ".join(f"{fmt(r['from'])} to {fmt(r['to'])}: {fmt(r['net_benefit'])}" for r in df.to_dict("records"))
             + ".")
-    return _finish(chart, f"Pairwise comparison along {xt}", "above zero favours " + arms[0] + "; dashed: whole cohort",
-                   desc, style)
+    how = pairwise_interval_words(windows)
+    bars = f"; bars: {how}" if how and len(df.dropna(subset=["lo", "hi"])) else ""
+    return _finish(chart, f"Pairwise comparison along {xt}",
+                   "above zero favours " + arms[0] + "; dashed: whole cohort" + bars, desc + (f" {how}." if bars else ""),
+                   style)
 
 
 def _runs(df: pd.DataFrame, flag: str) -> list[tuple[float, float]]:

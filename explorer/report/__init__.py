@@ -350,11 +350,16 @@ def pairwise_sections(doc: Mapping[str, Any]) -> list[dict]:
         out.append({"title": f"Pairwise comparison along {xt}",
                     "sentence": f"Outcomes in priority order: {priority}. Each {arms[0]} patient meets each "
                                 f"{arms[1]} patient in the same window; the first outcome that separates them "
-                                "decides the pair.",
+                                "decides the pair." + _pairwise_intervals(rows),
                     "charts": [ch.pairwise_chart(rows, arms, index_title=xt)] if index else [],
                     "table": table_of(table),
                     "warnings": list(dict.fromkeys(w for r in rows for w in r.get("warnings") or []))})
     return out
+
+
+def _pairwise_intervals(rows: list[dict]) -> str:
+    how = ch.pairwise_interval_words(rows)
+    return f" {how[0].upper()}{how[1:]}." if how else " No intervals were computed."
 
 
 def _fact(v: Any) -> str:

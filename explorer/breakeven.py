@@ -84,18 +84,16 @@ def find_roots(f: Callable[[np.ndarray], np.ndarray], lo: float, hi: float, n: i
         return []
     xs = np.linspace(lo, hi, n)
     ys = np.asarray(f(xs), float)
+    a, b = ys[:-1], ys[1:]
+    finite = np.isfinite(a) & np.isfinite(b)
+    # a run of exact zeros (identical arms) counts once, at its start
+    starts = finite & (a == 0.0) & np.r_[True, ys[:-2] != 0.0]
+    crosses = finite & (a != 0.0) & (a * b < 0)
+    g = lambda t: float(np.asarray(f(np.array([t])), float)[0])  # noqa: E731
     roots: list[float] = []
-    for i in range(n - 1):
-        a, b = ys[i], ys[i + 1]
-        if not (np.isfinite(a) and np.isfinite(b)):
-            continue
-        if a == 0.0:
-            if i == 0 or ys[i - 1] != 0.0:  # a run of exact zeros (identical arms) counts once, at its start
-                roots.append(float(xs[i]))
-            continue
-        if a * b < 0:
-            g = lambda t: float(np.asarray(f(np.array([t])), float)[0])  # noqa: E731
-            roots.append(float(optimize.brentq(g, xs[i], xs[i + 1], xtol=1e-10, rtol=1e-12)))
+    for i in np.flatnonzero(starts | crosses):
+        roots.append(float(xs[i]) if starts[i] else
+                     float(optimize.brentq(g, xs[i], xs[i + 1], xtol=1e-10, rtol=1e-12)))
     if ys[-1] == 0.0 and ys[-2] != 0.0:
         roots.append(float(xs[-1]))
     return roots

@@ -4,6 +4,7 @@ from __future__ import annotations
 import datetime as _dt
 import hashlib
 import json
+import math
 from importlib import resources
 from pathlib import Path
 from typing import Any
@@ -28,6 +29,11 @@ def r6(v: Any) -> Any:
     return v
 
 
+def r6_list(values: np.ndarray) -> list:
+    """r6 over a float array at once (the same numbers, without a Python call per value)."""
+    return [float(f"{v:.10g}") if math.isfinite(v) else None for v in np.asarray(values, float).tolist()]
+
+
 def measure_words(outcome) -> str:
     if outcome.kind == "survival":
         unit = f" {outcome.units}" if outcome.units else ""
@@ -44,15 +50,16 @@ def curve_row(pair, summary: CurveSummary, index_info: dict, n_points: int | Non
     from .analysis import in_range
 
     keep = in_range(pair, summary.grid)
-    pts = []
     fb, sb = summary.first_band, summary.second_band
-    for i in np.flatnonzero(keep):
-        p = {"x": r6(summary.grid[i]), "first": r6(summary.first[i]), "second": r6(summary.second[i]),
-             "difference": r6(summary.difference[i]), "difference_ci": [r6(summary.lower[i]), r6(summary.upper[i])]}
-        if fb is not None:
-            p["first_ci"] = [r6(fb[0][i]), r6(fb[1][i])]
-            p["second_ci"] = [r6(sb[0][i]), r6(sb[1][i])]
-        pts.append(p)
+    x, first, second, diff, lo, hi = (r6_list(np.asarray(a)[keep]) for a in (
+        summary.grid, summary.first, summary.second, summary.difference, summary.lower, summary.upper))
+    pts = [{"x": x[i], "first": first[i], "second": second[i], "difference": diff[i],
+            "difference_ci": [lo[i], hi[i]]} for i in range(len(x))]
+    if fb is not None:
+        f0, f1, s0, s1 = (r6_list(np.asarray(a)[keep]) for a in (fb[0], fb[1], sb[0], sb[1]))
+        for i, p in enumerate(pts):
+            p["first_ci"] = [f0[i], f1[i]]
+            p["second_ci"] = [s0[i], s1[i]]
     arms = list(pair.fits)
     ref = {}
     for arm in arms[:1]:

@@ -92,3 +92,27 @@ def test_unknown_spec_key_is_refused_with_a_suggestion(tmp_path, capsys):
     assert main(["analyse", str(spec)]) == 2
     err = capsys.readouterr().err
     assert "unknown key 'sead'" in err and "Did you mean 'seed'" in err
+
+
+def test_app_becomes_streamlit_with_the_projects_settings_and_two_malloc_arenas(monkeypatch):
+    """`fulcrum app` replaces itself with Streamlit (stopping it stops the server); the environment turns off
+    Streamlit's usage statistics and caps glibc's per-thread memory arenas (common practice for threaded Python
+    servers, whose memory otherwise creeps up with every session) unless the user set the cap."""
+    import os
+
+    seen = {}
+
+    def fake_execve(path, argv, env):
+        seen.update(path=path, argv=argv, env=env)
+        raise SystemExit(0)
+
+    monkeypatch.setattr(os, "execve", fake_execve)
+    monkeypatch.delenv("MALLOC_ARENA_MAX", raising=False)
+    with pytest.raises(SystemExit):
+        main(["app", "--port", "8599"])
+    assert seen["argv"][1:4] == ["-m", "streamlit", "run"] and "--server.port=8599" in seen["argv"]
+    assert seen["env"]["MALLOC_ARENA_MAX"] == "2" and seen["env"]["STREAMLIT_BROWSER_GATHER_USAGE_STATS"] == "false"
+    monkeypatch.setenv("MALLOC_ARENA_MAX", "4")
+    with pytest.raises(SystemExit):
+        main(["app"])
+    assert seen["env"]["MALLOC_ARENA_MAX"] == "4"

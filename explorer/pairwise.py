@@ -44,6 +44,13 @@ _COUNTS: dict[tuple, tuple[np.ndarray, np.ndarray]] = {}
 _SHARES: dict[tuple, tuple[np.ndarray, np.ndarray]] = {}
 
 
+def _keep(cache: dict, key: tuple, value: Any) -> None:
+    """Store a large group's counts, forgetting the oldest beyond COUNTS_KEPT."""
+    while len(cache) >= COUNTS_KEPT:
+        cache.pop(next(iter(cache)))
+    cache[key] = value
+
+
 @dataclass(frozen=True)
 class Rule:
     """One priority level: which outcome, how it separates two patients, and when it cannot."""
@@ -342,9 +349,7 @@ def bootstrap(groups: Sequence[np.ndarray], levels: int, replicates: int, seed: 
             out[g] = tuple(np.stack([rep[j][side] for rep in per_rep]) for side in (0, 1))
     for g in todo:
         if keys[g] is not None:
-            while len(_COUNTS) >= COUNTS_KEPT:
-                _COUNTS.pop(next(iter(_COUNTS)))
-            _COUNTS[keys[g]] = out[g]
+            _keep(_COUNTS, keys[g], out[g])
     return [tuple(v.copy() for v in out[g]) for g in range(len(groups))]
 
 
@@ -654,9 +659,7 @@ def _shares(group: _Group, rules: Sequence[Rule]) -> tuple[np.ndarray, np.ndarra
             return _SHARES[key]
     out = patient_counts(decisions(group.first, group.second, rules), len(rules))
     if key is not None:
-        while len(_SHARES) >= COUNTS_KEPT:
-            _SHARES.pop(next(iter(_SHARES)))
-        _SHARES[key] = out
+        _keep(_SHARES, key, out)
     return out
 
 

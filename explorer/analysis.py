@@ -239,41 +239,69 @@ def difference_fn(pf: PairFit) -> Callable[[np.ndarray], np.ndarray]:
     return lambda x: pf.sign * (first.measure(x) - second.measure(x))
 
 
+def diff_span(pf: PairFit) -> float | None:
+    """The half-width of the range the difference can take (1 for two probabilities), or None: unbounded."""
+    links = {f.measure_link() for f in pf.fits.values()}
+    if len(links) != 1:
+        return None
+    link, span = links.pop()
+    return None if link == "identity" else span
+
+
+def variance_fn(pf: PairFit) -> Callable[[np.ndarray], np.ndarray]:
+    first, second = (pf.fits[a] for a in _arms(pf))
+    return lambda x: first.measure_var(x) + second.measure_var(x)
+
+
 def analytic_summary(pf: PairFit, spec: Spec) -> be.CurveSummary:
+    """Curves, bands, break-evens and clear-difference regions from the fitted models (no resampling).
+
+    Bands: each arm's on its link scale, the difference's on atanh(d / span), so neither leaves the measure's
+    range. Break-even intervals: Fieller where the difference is a straight line on the model's scale with a zero
+    margin (there Fieller is the test inversion), else by default the test inversion itself (the stretch where the
+    pointwise band holds the margin, unbounded when the band never leaves it); `curved_interval = "delta"` gives
+    the delta method instead, labelled so."""
     a = spec.analysis
+    margin = spec.margin_for(pf.outcome)
     arms = _arms(pf)
     first, second = pf.fits[arms[0]], pf.fits[arms[1]]
     grid = grid_for(pf, a.grid)
     m1, m2 = first.measure(grid), second.measure(grid)
     v1, v2 = first.measure_var(grid), second.measure_var(grid)
     diff = pf.sign * (m1 - m2)
-    se = np.sqrt(np.maximum(v1 + v2, 0.0))
     z = be.critical_value(a.level)
     crit = z if a.bands == "pointwise" else simultaneous_critical(pf, a.level)
-    s = be.CurveSummary(grid, m1, m2, diff, diff - crit * se, diff + crit * se, band=a.bands,
-                        first_band=(m1 - z * np.sqrt(v1), m1 + z * np.sqrt(v1)),
-                        second_band=(m2 - z * np.sqrt(v2), m2 + z * np.sqrt(v2)))
-    terms = fieller_terms(pf, a.margin)
-    dfn = difference_fn(pf)
+    span = diff_span(pf)
+    s = be.CurveSummary(grid, m1, m2, diff, *be.diff_band(diff, v1 + v2, crit, span), band=a.bands,
+                        first_band=be.link_band(m1, v1, z, *first.measure_link()),
+                        second_band=be.link_band(m2, v2, z, *second.measure_link()), margin=margin)
+    terms = fieller_terms(pf, margin)
+    dfn, vfn = difference_fn(pf), variance_fn(pf)
+    g = be.inversion_statistic(dfn, vfn, margin, z, span)
+    g_grid = None
     lo, hi = be.search_range(*pf.x_range)
     step = 1e-4 * (hi - lo)
-    for x0 in be.find_roots(lambda x: dfn(x) - a.margin, lo, hi):
-        below, above = be.favoured_side(dfn, x0, a.margin, step, *arms)
+    for x0 in be.find_roots(lambda x: dfn(x) - margin, lo, hi):
+        below, above = be.favoured_side(dfn, x0, margin, step, *arms)
         slope = float((dfn(np.array([x0 + step])) - dfn(np.array([x0 - step])))[0] / (2 * step))
         if terms is not None:
             ci_lo, ci_hi, shape = be.fieller_set(terms[0], terms[1], terms[2], z)
             method = "fieller"
-        else:
-            var0 = float(first.measure_var(np.array([x0]))[0] + second.measure_var(np.array([x0]))[0])
-            ci_lo, ci_hi, shape = be.delta_root_interval(x0, var0, slope, z)
+        elif a.curved_interval == "delta":
+            ci_lo, ci_hi, shape = be.delta_root_interval(x0, float(vfn(np.array([x0]))[0]), slope, z)
             method = "delta"
+        else:
+            if g_grid is None:
+                g_grid = be.inversion_statistic(lambda x: diff, lambda x: v1 + v2, margin, z, span)(grid)
+            ci_lo, ci_hi, shape = be.inverted_test_interval(g, x0, grid, on_grid=g_grid)
+            method = "test-inversion"
         s.break_even.append(be.BreakEven(x0, (ci_lo, ci_hi), method, shape, not _inside(pf, x0), below, above,
                                          slope=slope))
     if terms is not None:
         s.clear_difference = be.regions_from_linear(grid, terms[0], terms[1], terms[2], crit,
                                                     _linear_sign(pf), *arms)
     else:
-        s.clear_difference = be.regions(grid, s.lower, s.upper, a.margin, *arms)
+        s.clear_difference = be.regions(grid, s.lower, s.upper, margin, *arms)
     _finish(pf, s)
     return s
 
@@ -310,9 +338,9 @@ def _finish(pf: PairFit, s: be.CurveSummary) -> None:
             s.warnings.append(f"{pf.outcome.title}: the break-even point {b.x:.3g} lies outside the observed "
                               f"{pf.index} range ({pf.x_range[0]:.3g} to {pf.x_range[1]:.3g}); it is an "
                               f"extrapolation.")
-    if not s.break_even:
+    if not s.break_even:  # no root of (difference - margin) in the searched range: one side of the margin throughout
         mid = s.difference[in_range(pf, s.grid)]
-        s.favours_throughout = arms[0] if np.nanmean(mid) - 0 > 0 else arms[1]
+        s.favours_throughout = arms[0] if np.nanmean(mid) - s.margin > 0 else arms[1]
 
 
 # ------------------------------------------------------------------------------------------
@@ -418,11 +446,13 @@ def nearest_grid_roots(grid: np.ndarray, Y: np.ndarray, x0: float) -> np.ndarray
 
 def bootstrap_summary(pf: PairFit, spec: Spec, curves: list[np.ndarray | None] | np.ndarray,
                       firsts: list[np.ndarray] | np.ndarray, seconds: list[np.ndarray] | np.ndarray,
-                      base: be.CurveSummary | None = None, failed: int = 0) -> be.CurveSummary:
+                      base: be.CurveSummary | None = None, failed: int = 0, margin: float | None = None
+                      ) -> be.CurveSummary:
     """Percentile intervals for the curves, the difference and each break-even point.
 
     curves, firsts, seconds: one entry per replicate (None where it failed), or (R, grid) arrays of the
-    replicates that were fitted, with `failed` counting those left out.
+    replicates that were fitted, with `failed` counting those left out. margin: the outcome's own by default
+    (a composite passes its own).
     """
     a = spec.analysis
     arms = _arms(pf)
@@ -439,15 +469,16 @@ def bootstrap_summary(pf: PairFit, spec: Spec, curves: list[np.ndarray | None] |
     qlo, qhi = 0.5 - a.level / 2, 0.5 + a.level / 2
     grid = base.grid
     (dlo, dhi), (flo, fhi), (slo, shi) = (np.quantile(M, [qlo, qhi], axis=0) for M in (D, F, S))
+    margin = spec.margin_for(pf.outcome) if margin is None else float(margin)
     s = be.CurveSummary(grid, base.first, base.second, base.difference, dlo, dhi, band="pointwise",
-                        first_band=(flo, fhi), second_band=(slo, shi))
+                        first_band=(flo, fhi), second_band=(slo, shi), margin=margin)
     if a.bands == "simultaneous":
         sd = np.maximum(D.std(axis=0, ddof=1), 1e-12)
         tmax = np.max(np.abs(D - base.difference) / sd, axis=1)
         crit = float(np.quantile(tmax, a.level))
         s.lower, s.upper, s.band = base.difference - crit * sd, base.difference + crit * sd, "simultaneous"
-    s.clear_difference = be.regions(grid, s.lower, s.upper, a.margin, *arms)
-    Y = D - a.margin
+    s.clear_difference = be.regions(grid, s.lower, s.upper, margin, *arms)
+    Y = D - margin
     favoured_first = np.mean(Y, axis=1) > 0
     for b in base.break_even:
         draws = nearest_grid_roots(grid, Y, b.x)

@@ -65,6 +65,7 @@ class CurveSummary:
     first_band: tuple[np.ndarray, np.ndarray] | None = None
     second_band: tuple[np.ndarray, np.ndarray] | None = None
     warnings: list[str] = field(default_factory=list)
+    margin: float = 0.0
 
 
 def _r(v: float | None) -> float | None:
@@ -174,6 +175,73 @@ def _refine(g: Callable[[np.ndarray], np.ndarray], a: float, b: float, points: i
     else:
         return float(a - ga * (b - a) / (gb - ga)) if gb != ga else float(a)
     return float((a + b) / 2)
+
+
+# ---- bounded scales: bands built where the estimate is close to normal, then mapped back -----------------
+_EDGE = 1e-12
+
+
+def to_link(m: np.ndarray, link: str, span: float | None) -> tuple[np.ndarray, np.ndarray]:
+    """(g(m), g'(m)) for a measure m on [0, span]: logit of m / span, or log(-log m) for a survival probability
+    (log cumulative hazard, the scale of the Cox and Weibull models); identity otherwise."""
+    m = np.asarray(m, float)
+    if link == "identity" or span is None:
+        return m, np.ones_like(m)
+    u = np.clip(m / span, _EDGE, 1 - _EDGE)
+    if link == "cloglog":
+        lu = np.log(u)
+        return np.log(-lu), 1.0 / (span * u * lu)
+    return np.log(u) - np.log1p(-u), 1.0 / (span * u * (1 - u))
+
+
+def from_link(v: np.ndarray, link: str, span: float | None) -> np.ndarray:
+    v = np.asarray(v, float)
+    if link == "identity" or span is None:
+        return v
+    with np.errstate(over="ignore"):
+        return span * (np.exp(-np.exp(v)) if link == "cloglog" else 1.0 / (1.0 + np.exp(-v)))
+
+
+def link_band(m: np.ndarray, var: np.ndarray, crit: float, link: str, span: float | None
+              ) -> tuple[np.ndarray, np.ndarray]:
+    """One arm's band built on its link scale (delta-method SE there) and transformed back, so a probability's
+    band stays inside [0, 1] (and RMST's inside [0, horizon]). Ordered low, high whatever the link's direction."""
+    g, dg = to_link(m, link, span)
+    se = np.sqrt(np.maximum(var, 0.0)) * np.abs(dg)
+    a, b = from_link(g - crit * se, link, span), from_link(g + crit * se, link, span)
+    return np.minimum(a, b), np.maximum(a, b)
+
+
+def diff_scale(d: np.ndarray, span: float | None) -> tuple[np.ndarray, np.ndarray]:
+    """(T(d), T'(d)) for a difference of two measures on [0, span]: T = atanh(d / span), which maps [-span, span]
+    onto the line (Fisher's transform of a bounded difference); identity when unbounded."""
+    d = np.asarray(d, float)
+    if span is None:
+        return d, np.ones_like(d)
+    u = np.clip(d / span, -1 + _EDGE, 1 - _EDGE)
+    return np.arctanh(u), 1.0 / (span * (1 - u * u))
+
+
+def diff_band(d: np.ndarray, var: np.ndarray, crit: float, span: float | None) -> tuple[np.ndarray, np.ndarray]:
+    """The band of a difference built on diff_scale and mapped back: inside [-span, span]."""
+    t, dt = diff_scale(d, span)
+    se = np.sqrt(np.maximum(var, 0.0)) * dt
+    if span is None:
+        return t - crit * se, t + crit * se
+    return span * np.tanh(t - crit * se), span * np.tanh(t + crit * se)
+
+
+def inversion_statistic(diff: Callable[[np.ndarray], np.ndarray], var: Callable[[np.ndarray], np.ndarray],
+                        margin: float, crit: float, span: float | None) -> Callable[[np.ndarray], np.ndarray]:
+    """g(x) = (T(d(x)) - T(margin))^2 - crit^2 var(T(d(x))): <= 0 exactly where diff_band holds the margin, so
+    inverted_test_interval(g, ...) is the set of index values the band cannot tell from the break-even."""
+    tm = float(diff_scale(np.array([margin]), span)[0][0])
+
+    def g(x: np.ndarray) -> np.ndarray:
+        x = np.atleast_1d(np.asarray(x, float))
+        t, dt = diff_scale(diff(x), span)
+        return (t - tm) ** 2 - crit * crit * np.maximum(np.asarray(var(x), float), 0.0) * dt * dt
+    return g
 
 
 def regions(grid: np.ndarray, lower: np.ndarray, upper: np.ndarray, margin: float,

@@ -18,6 +18,8 @@ import numpy as np
 import pandas as pd
 from altair.utils import schemapi
 
+from .margins import side_words
+
 # Okabe M, Ito K (2008). Color Universal Design: how to make figures and presentations friendly to colorblind people.
 OKABE_ITO = {
     "black": "#000000", "orange": "#E69F00", "sky_blue": "#56B4E9", "bluish_green": "#009E73",
@@ -232,7 +234,9 @@ def difference_frame(row: Mapping[str, Any]) -> pd.DataFrame:
     return pd.DataFrame(recs, columns=["x", "difference", "lower", "upper"])
 
 
-def _region_label(arm: str) -> str:
+def _region_label(arm: str, arms: Sequence[str] = (), margin: float = 0.0) -> str:
+    if margin:
+        return f"clear: {side_words(arm, arms, margin)}"
     return f"clear difference, favours {arm}"
 
 
@@ -252,8 +256,10 @@ def _shading(row: Mapping[str, Any], arms: Sequence[str]) -> alt.Chart | None:
     if not regions:
         return None
     c = arm_colours(arms)
-    df = pd.DataFrame([{"from": r["from"], "to": r["to"], "region": _region_label(r["favours"])} for r in regions])
-    labels = [_region_label(a) for a in arms]
+    m = float(row.get("margin") or 0.0)
+    df = pd.DataFrame([{"from": r["from"], "to": r["to"], "region": _region_label(r["favours"], arms, m)}
+                       for r in regions])
+    labels = [_region_label(a, arms, m) for a in arms]
     return _chart(df).mark_rect(opacity=0.13).encode(
         x=alt.X("from:Q"), x2=alt.X2("to"),
         fill=alt.Fill("region:N", scale=alt.Scale(domain=labels, range=[c[a] for a in arms]),
@@ -423,7 +429,9 @@ def _x_axis(row: Mapping[str, Any], override: str | None = None) -> alt.X:
 @_quick
 def difference_chart(row: Mapping[str, Any], arms: Sequence[str], *, margin: float = 0.0,
                      index_label: str | None = None, style: bool = True) -> alt.TopLevelMixin:
-    """The difference (first minus second, oriented so above zero favours the first arm) with its band."""
+    """The difference (first minus second, oriented so above zero favours the first arm) with its band; the row's
+    own margin (results rows carry it) wins over the `margin` passed."""
+    margin = float(row["margin"]) if row.get("margin") is not None else margin
     domain = _domain(row)
     df = difference_frame(row)
     ytitle = f"{arms[0]} minus {arms[1]}"
@@ -450,7 +458,8 @@ def difference_chart(row: Mapping[str, Any], arms: Sequence[str], *, margin: flo
     chart = _sized(alt.layer(*layers), WIDTH, HEIGHT)
     band = row.get("regions_band", "pointwise")
     title = f"Difference in {_outcome_title(row)} along {index_label_of(row, index_label)}"
-    subtitle = f"above zero favours {arms[0]}, below favours {arms[1]}; grey band: {band} interval"
+    subtitle = (f"above zero favours {arms[0]}, below favours {arms[1]}" if not margin else
+                f"above the dashed line {side_words(arms[0], arms, margin)}") + f"; grey band: {band} interval"
     return _finish(chart, title, subtitle, describe_row(row, arms, index_label, margin=margin), style)
 
 
@@ -500,37 +509,41 @@ def _level_span(a: int, z: int) -> str:
     return f"level {a}" if a == z else f"levels {a} to {z}"
 
 
-def _break_even_words(b: Mapping[str, Any], discrete: bool, margin: float) -> str:
+def _break_even_words(b: Mapping[str, Any], discrete: bool, margin: float, arms: Sequence[str] = ()) -> str:
     x = float(b["x"])
     meet = "break even" if not margin else "differ by the margin"
+    lo_w, hi_w = (side_words(b["favours_below"], arms, margin), side_words(b.get("favours_above"), arms, margin))
+    fav = "" if margin else " is favoured"
     if discrete:
         below, above = math.floor(x), math.ceil(x)
         if below == above:
             place = f"the arms {meet} at level {below}"
-            sides = (f"below it {b['favours_below']} is favoured, above it {b['favours_above']}")
+            sides = f"below it {lo_w}{fav}, above it {hi_w}"
         else:
             place = f"the arms {meet} between levels {below} and {above} (at {fmt(x)})"
-            sides = (f"at levels up to {below} {b['favours_below']} is favoured, "
-                     f"from level {above} {b['favours_above']}")
+            sides = f"at levels up to {below} {lo_w}{fav}, from level {above} {hi_w}"
     else:
         place = f"the arms {meet} at {fmt(x)}"
-        sides = f"below it {b['favours_below']} is favoured, above it {b['favours_above']}"
+        sides = f"below it {lo_w}{fav}, above it {hi_w}"
     extra = "; this lies beyond the observed range, an extrapolation" if b.get("extrapolated") else ""
     return f"{place} (interval {_interval_words(b)}){extra}; {sides}"
 
 
-def _region_words(r: Mapping[str, Any], discrete: bool) -> str:
+def _region_words(r: Mapping[str, Any], discrete: bool, arms: Sequence[str] = (), margin: float = 0.0) -> str:
+    who = f"favouring {r['favours']}" if not margin else f"where {side_words(r['favours'], arms, margin)}"
     if discrete:
         levels = _levels_within(float(r["from"]), float(r["to"]))
         if levels is None:
-            return f"between {fmt(r['from'])} and {fmt(r['to'])}, at no whole level, favouring {r['favours']}"
-        return f"at {_level_span(*levels)}, favouring {r['favours']}"
-    return f"from {fmt(r['from'])} to {fmt(r['to'])}, favouring {r['favours']}"
+            return f"between {fmt(r['from'])} and {fmt(r['to'])}, at no whole level, {who}"
+        return f"at {_level_span(*levels)}, {who}"
+    return f"from {fmt(r['from'])} to {fmt(r['to'])}, {who}"
 
 
 def describe_row(row: Mapping[str, Any], arms: Sequence[str], index_label: str | None = None, *,
                  margin: float = 0.0) -> str:
-    """The chart in words: where the arms break even, the interval, who is favoured where, where it is clear."""
+    """The chart in words: where the arms break even, the interval, who is favoured where, where it is clear.
+    The row's own margin (results rows carry it) wins over the `margin` passed."""
+    margin = float(row["margin"]) if row.get("margin") is not None else margin
     label = index_label_of(row, index_label)
     discrete = is_discrete(row)
     lo, hi = row["range"]
@@ -538,16 +551,17 @@ def describe_row(row: Mapping[str, Any], arms: Sequence[str], index_label: str |
     head = f"{_measure_title(row)}{named} along {label}, {arms[0]} against {arms[1]}: "
     bes = row.get("break_even") or []
     if bes:
-        body = "; and ".join(_break_even_words(b, discrete, margin) for b in bes) + "."
+        body = "; and ".join(_break_even_words(b, discrete, margin, arms) for b in bes) + "."
     else:
-        fav = row.get("favours_throughout") or "neither arm"
+        fav = side_words(row.get("favours_throughout"), arms, margin)
         span = _level_span(*_levels_within(lo, hi)) if discrete and _levels_within(lo, hi) else \
             f"{fmt(lo)} to {fmt(hi)}"
-        body = f"{fav} is favoured throughout the observed range ({span}); the arms do not break even there."
+        body = (f"{fav}{'' if margin else ' is favoured'} throughout the observed range ({span}); the arms do not "
+                f"{'break even' if not margin else 'differ by the margin'} there.")
     none = "no difference" if not margin else "the margin"
     regions = clear_regions(row)
     if regions:
-        clear = (" The difference is clear " + "; and ".join(_region_words(r, discrete) for r in regions)
+        clear = (" The difference is clear " + "; and ".join(_region_words(r, discrete, arms, margin) for r in regions)
                  + f"; elsewhere its interval includes {none}.")
     else:
         clear = f" Nowhere in the observed range is the difference clear: its interval includes {none} throughout."
@@ -569,16 +583,17 @@ def breakeven_table(doc: Mapping[str, Any]) -> pd.DataFrame:
     recs = []
     for row in list(doc.get("results", [])) + list(doc.get("composite", [])):
         name = _outcome_title(row) + (" (composite)" if "weights" in row else "")
+        arms, m = doc.get("arms") or (), float(row.get("margin") or 0.0)
         bes = row.get("break_even") or []
         if bes:
             be_txt = "; ".join(fmt(b["x"]) + (" (extrapolated)" if b.get("extrapolated") else "") for b in bes)
             interval = "; ".join(_row_interval(b) for b in bes)
-            below = "; ".join(b["favours_below"] for b in bes)
-            above = "; ".join(b.get("favours_above", "") for b in bes)
+            below = "; ".join(side_words(b["favours_below"], arms, m) for b in bes)
+            above = "; ".join(side_words(b.get("favours_above", ""), arms, m) for b in bes)
         else:
             be_txt, interval = "none in range", ""
-            below = above = f"{row.get('favours_throughout')} throughout"
-        clear = "; ".join(_region_words(r, is_discrete(row)) for r in clear_regions(row)) or "none"
+            below = above = f"{side_words(row.get('favours_throughout'), arms, m)} throughout"
+        clear = "; ".join(_region_words(r, is_discrete(row), arms, m) for r in clear_regions(row)) or "none"
         recs.append({"outcome": name, "index": index_label_of(row), "break-even": be_txt, "interval": interval,
                      "favoured below": below, "favoured above": above, "clear difference": clear,
                      "measure": row["measure"]})

@@ -12,6 +12,7 @@ from pathlib import Path
 
 from . import CAUTIONS, __version__
 from .errors import FulcrumError, printable
+from .margins import side_words
 
 
 class ProgressBar:
@@ -47,14 +48,17 @@ def summary_table(doc: dict) -> str:
     head = ["outcome", "index", "measure", "break-even [interval]", "favoured below / above", "clear difference"]
     lines = []
     for row in doc["results"] + doc.get("composite", []):
+        m = float(row.get("margin") or 0.0)
         if row["break_even"]:
             be = "; ".join(f"{b['x']:.3g} {_interval_words(b)} {b['interval']}"
                            + (" (extrapolated)" if b["extrapolated"] else "") for b in row["break_even"])
-            fav = "; ".join(f"{b['favours_below']} / {b['favours_above']}" for b in row["break_even"])
+            fav = "; ".join(f"{side_words(b['favours_below'], arms, m)} / {side_words(b['favours_above'], arms, m)}"
+                            for b in row["break_even"])
         else:
             be = "none in range"
-            fav = f"{row['favours_throughout']} throughout"
-        clear = "; ".join(f"{r['from']:.3g}-{r['to']:.3g} {r['favours']}" for r in row["clear_difference"]) or "none"
+            fav = f"{side_words(row['favours_throughout'], arms, m)} throughout"
+        clear = "; ".join(f"{r['from']:.3g}-{r['to']:.3g} {side_words(r['favours'], arms, m)}"
+                          for r in row["clear_difference"]) or "none"
         lines.append([row["outcome"], row["index"], row["measure"], be, fav, clear])
     lines = [[printable(c) for c in line] for line in lines]
     widths = [max(len(str(x)) for x in col) for col in zip(head, *lines)]

@@ -15,6 +15,7 @@ from importlib import resources
 from .spec import AnalysisSpec, OutcomeSpec, Spec
 
 TARGET = (0.935, 0.965)
+CURVED = ("binary spline", "survival spline", "binary margin", "survival margin", "survival adjusted")
 RESULTS = "validation_results.json"
 METHOD_NAMES = {"fieller": "Fieller", "delta": "delta-method", "test-inversion": "test-inversion",
                 "bootstrap-percentile": "bootstrap percentile"}
@@ -28,8 +29,8 @@ def _rows() -> tuple[dict, ...]:
 
 def measured(kind: str, method: str, n: int) -> dict | None:
     """The simulation row for this scenario kind and interval method at the simulated size nearest n (on the
-    log scale), or None when that pair was never simulated. kind: continuous, binary, ordinal, survival or
-    composite; method: fieller, delta, test-inversion or bootstrap-percentile (where several resample counts
+    log scale), or None when that pair was never simulated. kind: continuous, binary, ordinal, survival,
+    composite or one of CURVED; method: fieller, delta, test-inversion or bootstrap-percentile (where several resample counts
     were run, the largest, closest to the tool's own default)."""
     rows = [r for r in _rows() if r["scenario"] == kind and r["method"] == method]
     if not rows or not n or n <= 0:
@@ -53,20 +54,33 @@ def default_interval(kind: str) -> str:
 
 
 def scenario_for(outcome: OutcomeSpec, analysis: AnalysisSpec, composite_kind: str | None = None,
-                 clustered: bool = False) -> str | None:
-    """The simulated scenario that matches this analysis, or None when none does (spline shape, adjustment,
-    a margin, another level, RMST or Weibull, a bounded outcome or clusters (robust variances), or a composite
-    other than the ordinal one). For a composite row pass the [values] outcome and the row's kind."""
-    if analysis.shape != "linear" or analysis.margin != 0.0 or abs(analysis.level - 0.95) > 1e-12 or outcome.adjust:
+                 clustered: bool = False, margin: float | None = None) -> str | None:
+    """The simulated scenario that matches this analysis, or None when none does. margin: the outcome's own
+    (Spec.margin_for; default analysis.margin). Simulated beyond the straight-line, zero-margin kinds: a spline
+    shape, a non-zero margin (simulated at 0.05 on a probability) and adjustment covariates, for binary outcomes
+    and Cox survival probabilities as explorer/validation_curved.py lists them, one departure at a time. Not
+    simulated: another level, RMST or Weibull, a bounded outcome or clusters (robust variances), a composite
+    other than the ordinal one, or two departures together. For a composite row pass the [values] outcome and
+    the row's kind."""
+    margin = analysis.margin if margin is None else margin
+    if abs(analysis.level - 0.95) > 1e-12 or clustered or (outcome.kind == "continuous" and outcome.bounds):
         return None
-    if clustered or (outcome.kind == "continuous" and outcome.bounds is not None):
-        return None
+    departures = [d for d, on in (("spline", analysis.shape != "linear"), ("margin", margin != 0.0),
+                                  ("adjusted", bool(outcome.adjust))) if on]
     if composite_kind is not None:
-        return "composite" if composite_kind == "ordinal" and outcome.kind == "ordinal" else None
+        return "composite" if composite_kind == "ordinal" and outcome.kind == "ordinal" and not departures else None
     if outcome.kind == "survival":
-        return "survival" if (outcome.model or "cox") == "cox" and (outcome.measure or "survival") == "survival" \
-            else None
-    return outcome.kind if outcome.kind in ("continuous", "binary", "ordinal") else None
+        if (outcome.model or "cox") != "cox" or (outcome.measure or "survival") != "survival":
+            return None
+        kind = "survival"
+    else:
+        kind = outcome.kind if outcome.kind in ("continuous", "binary", "ordinal") else None
+    if kind is None or len(departures) > 1:
+        return None
+    if not departures:
+        return kind
+    name = f"{kind} {departures[0]}"
+    return name if name in CURVED else None
 
 
 def label(break_even_json: dict, kind: str | None, n: int) -> dict:
@@ -105,7 +119,8 @@ def label_results(rows: list[dict], spec: Spec) -> list[dict]:
             outcome = spec.outcome(row["outcome"])
         except KeyError:
             continue
-        label_row(row, scenario_for(outcome, spec.analysis, clustered=bool(spec.cohort.cluster)))
+        label_row(row, scenario_for(outcome, spec.analysis, clustered=bool(spec.cohort.cluster),
+                                    margin=spec.margin_for(outcome)))
     return rows
 
 

@@ -63,7 +63,8 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("inputs.seed", "The seed every random step starts from ([analysis] seed)."),
         ("inputs.interval", "analytic or bootstrap ([analysis] interval)."),
         ("inputs.level", "The interval level, e.g. 0.95."),
-        ("inputs.margin", "The margin the break-even points and clear-difference regions use."),
+        ("inputs.margin", "The analysis-level margin ([analysis] margin): the default for outcomes measured as a "
+                          "probability and for composites; each row's own margin is results[].margin."),
         ("arms", "The two arm labels, first then second; every difference is first minus second."),
         ("spec", "The spec as parsed, defaults filled in, as TOML-shaped data (see the spec reference above)."),
         ("results", "One row per outcome x index (see Results rows)."),
@@ -106,7 +107,13 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("results[].break_even", "Every break-even point found (see Break-even points); empty when the arms "
                                  "do not break even in the searched range."),
         ("results[].favours_throughout", "With no break-even point, the arm favoured over the whole range; else "
-                                         "null."),
+                                         "null. With a margin it compares the difference with the margin: the "
+                                         "first arm where it is better by more than the margin, else the second "
+                                         "(the first is not better by more than the margin)."),
+        ("results[].margin", "The margin this row uses, in the outcome's own units ([[outcomes]] margin, else "
+                             "[analysis] margin for a probability or composite, else 0). With a non-zero margin "
+                             "an arm named in favours_* fields means: the first arm better by more than the "
+                             "margin (first arm named) or not (second arm named)."),
         ("results[].curve", "The curves on the grid within the observed range (see Curve points)."),
         ("results[].clear_difference", "Clear-difference regions (see Regions); the search grid runs 10% past "
                                        "the observed range, so a region may start or end there."),
@@ -154,9 +161,11 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
                                                 "values below it, ties counted half)."),
         ("results[].break_even[].ci", "Its interval [low, high]; null ends are unbounded. For two_rays the set "
                                       "is everything up to low and everything from high."),
-        ("results[].break_even[].interval", "The method: fieller, delta, test-inversion (composites) or "
-                                            "bootstrap-percentile (rubin-fieller or rubin-delta in imputation "
-                                            "rows)."),
+        ("results[].break_even[].interval", "The method: fieller (a straight line on the model's scale, zero "
+                                            "margin), test-inversion (every other analytic case: the stretch where "
+                                            "the pointwise band holds the margin), delta (only when [analysis] "
+                                            "curved_interval = \"delta\") or bootstrap-percentile (rubin-fieller "
+                                            "or rubin-delta in imputation rows)."),
         ("results[].break_even[].interval_shape", "finite, unbounded_below, unbounded_above, unbounded or "
                                                   "two_rays."),
         ("results[].break_even[].extrapolated", "True when the point lies outside the observed index range."),

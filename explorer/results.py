@@ -80,6 +80,7 @@ def curve_row(pair, summary: CurveSummary, index_info: dict, n_points: int | Non
         "break_even": [_with_percentile(b.to_json(), getattr(index_info, "cohort_values", None))
                        for b in summary.break_even],
         "favours_throughout": summary.favours_throughout,
+        "margin": r6(summary.margin),
         "curve": pts,
         "clear_difference": [r.to_json() for r in clip_regions(summary.clear_difference, pair.x_range)],
         "regions_band": summary.band,

@@ -696,7 +696,7 @@ def _shift_replicate(payload: _ShiftPayload, rng: np.random.Generator) -> dict[t
         except FIT_ERRORS:
             out[(job.outcome, job.index)] = math.nan
             continue
-        m, sign = spec.analysis.margin, 1.0 if outcome.higher_is_better else -1.0
+        m, sign = spec.margin_for(outcome), 1.0 if outcome.higher_is_better else -1.0
         out[(job.outcome, job.index)] = (_nearest_root(pa, sign, job.grid, m, job.x_all)
                                          - _nearest_root(pr, sign, job.grid, m, job.x_randomised))
     return out

@@ -15,10 +15,13 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from . import margins
 from .errors import FulcrumError
+from .toml_write import toml_value as _toml_value
 
 OUTCOME_KINDS = ("continuous", "binary", "ordinal", "survival")
 INTERVALS = ("analytic", "bootstrap")
+CURVED_INTERVALS = ("test-inversion", "delta")
 SHAPES = ("linear", "spline")
 BANDS = ("pointwise", "simultaneous")
 SURVIVAL_MEASURES = ("survival", "rmst")
@@ -58,6 +61,7 @@ class OutcomeSpec:
     units: str | None = None
     among_survivors: bool = False
     bounds: tuple[float, float] | None = None
+    margin: float | None = None
 
     @property
     def title(self) -> str:
@@ -127,6 +131,7 @@ class AnalysisSpec:
     grid: int = 200
     checks: bool = True
     imputations: int = 0
+    curved_interval: str = "test-inversion"
 
 
 @dataclass(frozen=True)
@@ -160,6 +165,9 @@ class Spec:
     pairwise: PairwiseSpec | None = None
     maps: tuple[MapSpec, ...] = ()
     source: str | None = None
+
+    def margin_for(self, outcome: OutcomeSpec) -> float:
+        return margins.margin_for(self, outcome)
 
     def outcome(self, name: str) -> OutcomeSpec:
         for o in self.outcomes:
@@ -215,6 +223,8 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "units": ("str", "Units of the outcome (e.g. days, years)."),
         "among_survivors": ("bool", "The outcome is measured only in survivors (conditional on survival)."),
         "bounds": ("list[float]", "Continuous: the outcome's possible range, e.g. [0, 180] days."),
+        "margin": ("float", "Smallest difference worth having, in the outcome's own units (probability, RMST time, "
+                            "mean); default analysis.margin for probabilities, else 0."),
     },
     "indices": {
         "name": ("str", "A short unique name for the index."),
@@ -244,7 +254,8 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "draws": ("int", "Monte Carlo draws for the weight-uncertainty analysis."),
     },
     "analysis": {
-        "margin": ("float", "The smallest difference worth having (default 0)."),
+        "margin": ("float", "Default margin (-1 to 1) for probability outcomes and composites (default 0)."),
+        "curved_interval": ("str", "test-inversion | delta: break-even interval off a straight line (see methods)."),
         "level": ("float", "Interval level (default 0.95)."),
         "interval": ("str", "analytic | bootstrap."),
         "replicates": ("int", "Bootstrap replicates (default 1000)."),
@@ -449,7 +460,8 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
         covariates=c.get("covariates", ()),
     )
 
-    outcomes = tuple(_outcome(o, i, source) for i, o in enumerate(_array(data["outcomes"], "outcomes", source)))
+    outcomes = tuple(margins.check_outcome(_outcome(o, i, source), source)
+                     for i, o in enumerate(_array(data["outcomes"], "outcomes", source)))
     if not outcomes:
         raise FulcrumError("the spec lists no outcomes.", file=source, key="outcomes",
                            hint="Add at least one [[outcomes]] table.")
@@ -469,7 +481,9 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
         knots=a.get("knots", 4), bands=a.get("bands", "pointwise"), workers=a.get("workers", 1),
         scheduler=a.get("scheduler"), refit_index=a.get("refit_index", False), grid=a.get("grid", 200),
         checks=a.get("checks", True), imputations=a.get("imputations", 0),
-    )
+        curved_interval=a.get("curved_interval", "test-inversion"))
+    _choice(analysis.curved_interval, CURVED_INTERVALS, "analysis.curved_interval", source)
+    margins.check(analysis.margin, 1.0, "analysis.margin", "probabilities or composites", source)
     _choice(analysis.interval, INTERVALS, "analysis.interval", source)
     _choice(analysis.shape, SHAPES, "analysis.shape", source)
     _choice(analysis.bands, BANDS, "analysis.bands", source)
@@ -574,7 +588,7 @@ def _outcome(raw: Any, i: int, source: str | None) -> OutcomeSpec:
                                    key=f"{where}.{key}", hint=f"Remove '{key}' from outcome '{name}'.")
 
     common = dict(name=name, kind=kind, label=r.get("label"), units=r.get("units"), adjust=r.get("adjust", ()),
-                  among_survivors=r.get("among_survivors", False))
+                  among_survivors=r.get("among_survivors", False), margin=r.get("margin"))
     if kind == "survival":
         refuse(("column", "levels", "favourable", "bounds"))
         horizon = need("horizon", "the time at which survival is compared")
@@ -778,21 +792,3 @@ def to_toml(spec: Spec, relative_to: Path | None = None) -> str:
             lines.extend(f"{k} = {_toml_value(v)}" for k, v in value.items())
             lines.append("")
     return "\n".join(lines)
-
-
-def _toml_value(v: Any) -> str:
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, (int, float)):
-        return repr(v)
-    if isinstance(v, str):
-        return json.dumps(v, ensure_ascii=False)
-    if isinstance(v, list):
-        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
-    if isinstance(v, dict):
-        return "{ " + ", ".join(f"{_toml_key(k)} = {_toml_value(x)}" for k, x in v.items()) + " }"
-    raise TypeError(type(v))
-
-
-def _toml_key(k: str) -> str:
-    return k if k.replace("_", "").replace("-", "").isalnum() and k.isascii() else json.dumps(k)

@@ -34,6 +34,7 @@ from .models import fit_model
 from .models.base import Basis, OutcomeData
 from .resampling import run_replicates
 from .spec import AnalysisSpec, CohortSpec, OutcomeSpec, Spec
+from .validation_curved import curved_scenarios
 
 X_RANGE = (0.0, 10.0)
 TARGET = (0.935, 0.965)
@@ -54,6 +55,7 @@ class Scenario:
     simulate: Callable[[np.random.Generator, int, int], OutcomeData]
     truth: float
     weights: tuple[float, ...] | None = None
+    shape: str = "linear"
 
 
 # ---- closed-form scenarios: the truths cross at x = 5 (the composite's is solved exactly) --------------
@@ -148,7 +150,8 @@ SIMULATORS = {"continuous": sim_continuous, "binary": sim_binary, "ordinal": sim
 
 def scenarios() -> list[Scenario]:
     out = [Scenario(k, OUTCOMES[k], SIMULATORS[k], 5.0) for k in ("continuous", "binary", "ordinal", "survival")]
-    return out + [Scenario("composite", OUTCOMES["composite"], sim_composite, composite_truth(), COMP_WEIGHTS)]
+    out += [Scenario("composite", OUTCOMES["composite"], sim_composite, composite_truth(), COMP_WEIGHTS)]
+    return out + [Scenario(c.name, c.outcome, c.simulate, c.truth, shape=c.shape) for c in curved_scenarios()]
 
 
 def null_scenarios() -> list[Scenario]:
@@ -169,8 +172,15 @@ def fit_arms(sc: Scenario, data: dict[str, OutcomeData], basis: Basis, starts: d
             for arm, d in data.items()}
 
 
-def pair_of(sc: Scenario, data: dict[str, OutcomeData], basis: Basis = Basis("linear")) -> an.PairFit:
+def pair_of(sc: Scenario, data: dict[str, OutcomeData], basis: Basis | None = None) -> an.PairFit:
+    """Both arms fitted on the scenario's shape (spline knots from the pooled index, as the tool places them),
+    adjustment covariates held at their pooled mean (as analysis.fit_pair holds them)."""
     xs = np.concatenate([d.x for d in data.values()])
+    basis = basis or Basis.from_index(xs, sc.shape)
+    if any(d.z is not None for d in data.values()):
+        z_ref = np.concatenate([d.z for d in data.values()]).mean(axis=0)
+        for d in data.values():
+            d.z_ref = z_ref
     return an.PairFit(sc.outcome, "x", basis, fit_arms(sc, data, basis), data, {},
                       (float(xs.min()), float(xs.max())))
 
@@ -219,12 +229,13 @@ def _inverted(pf: an.PairFit, spec: Spec, x0: float) -> tuple:
     diff = an.difference_fn(pf)
     var = lambda x: sum(f.measure_var(x) for f in pf.fits.values())  # noqa: E731
     lo, hi = be.search_range(*pf.x_range)
-    return inverted_interval(diff, var, x0, spec.analysis.margin, be.critical_value(spec.analysis.level), lo, hi)
+    return inverted_interval(diff, var, x0, spec.margin_for(pf.outcome), be.critical_value(spec.analysis.level), lo, hi)
 
 
 def resample(d: OutcomeData, idx: np.ndarray) -> OutcomeData:
     take = lambda a: None if a is None else a[idx]  # noqa: E731
-    return OutcomeData(x=d.x[idx], y=take(d.y), time=take(d.time), event=take(d.event))
+    return OutcomeData(x=d.x[idx], y=take(d.y), time=take(d.time), event=take(d.event), z=take(d.z),
+                       z_names=d.z_names, z_ref=d.z_ref)
 
 
 def bootstrap(sc: Scenario, pf: an.PairFit, spec: Spec, base: be.CurveSummary, cm: vl.CompositeModel | None,
@@ -275,7 +286,7 @@ def one_study(sc: Scenario, n: int, boot: int, spec: Spec, rng: np.random.Genera
     est = s.break_even[i]
     out["analytic_method"] = est.interval
     out[est.interval] = _record(est)
-    if est.interval == "fieller":
+    if est.interval in ("fieller", "test-inversion"):
         out["delta"] = _record(est, delta_interval(pf, est, spec.analysis.level))
     if cm is not None:
         out["delta"] = _record(est, composite_delta_interval(cm, np.asarray(sc.weights), est, spec.analysis.level))

@@ -541,7 +541,7 @@ def analytic_composite(cm: CompositeModel, w: np.ndarray, margin: float | None =
     crit = z if a.bands == "pointwise" else an.simultaneous_critical(cm.pair, a.level)
     s = be.CurveSummary(cm.grid, m1, m2, diff, diff - crit * se, diff + crit * se, band=a.bands,
                         first_band=(m1 - z * np.sqrt(v1), m1 + z * np.sqrt(v1)),
-                        second_band=(m2 - z * np.sqrt(v2), m2 + z * np.sqrt(v2)))
+                        second_band=(m2 - z * np.sqrt(v2), m2 + z * np.sqrt(v2)), margin=margin)
     if cm.weighted and np.ptp(w) == 0.0:
         s.warnings.append("Every state carries the same weight, so the arms cannot differ on this composite.")
         return s
@@ -575,10 +575,8 @@ def bootstrap_composite(cm: CompositeModel, w: np.ndarray, base: be.CurveSummary
     B0, B1 = cm.fitted_replicates()
     F, S = B0 @ w, B1 @ w
     spec = cm.spec
-    m = _margin(cm, margin)
-    if m != spec.analysis.margin:
-        spec = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, margin=m))
-    return an.bootstrap_summary(cm.pair, spec, F - S, F, S, base, failed=int(np.sum(~cm.boot_ok)))
+    return an.bootstrap_summary(cm.pair, spec, F - S, F, S, base, failed=int(np.sum(~cm.boot_ok)),
+                                margin=_margin(cm, margin))
 
 
 def summarise_composite(cm: CompositeModel, weights: dict[str, float] | Sequence[float] | None = None, *,

@@ -94,6 +94,8 @@ class Fitted(Protocol):
     measure_var(x): its sampling variance at each x (model-based; cluster-robust when fitted so).
     distribution(x): level probabilities (len(x), K) for ordinal outcomes, else None.
     distribution_jacobian(x): d distribution / d params_, (len(x), K, len(params_)); ordinal only.
+    measure_link(): (link, span): the measure lies in [0, span] (span None: unbounded) and its bands are built on
+    the link scale ("identity" | "logit" | "cloglog") and transformed back.
     linear_terms(): (coef, cov) of c0 + c1 x, a linear predictor on which the measure is a strictly
     monotone map of the same form in both arms, when the basis is linear and Fieller applies; else None.
     """
@@ -115,6 +117,8 @@ class Fitted(Protocol):
     def distribution_jacobian(self, x: np.ndarray) -> np.ndarray | None: ...
 
     def linear_terms(self) -> tuple[np.ndarray, np.ndarray] | None: ...
+
+    def measure_link(self) -> tuple[str, float | None]: ...
 
 
 def numerical_jacobian(f, params: np.ndarray, x: np.ndarray, rel: float = 1e-6) -> np.ndarray:

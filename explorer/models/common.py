@@ -311,6 +311,11 @@ class ArmFit:
     def linear_terms(self) -> tuple[np.ndarray, np.ndarray] | None:
         return None
 
+    def measure_link(self) -> tuple[str, float | None]:
+        """(link, span): the measure lies in [0, span] and its band is built on this link scale (see
+        breakeven.link_band); ("identity", None) for an unbounded measure such as a mean."""
+        return ("identity", None)
+
     def summary(self) -> list[tuple[str, float, float]]:
         """(name, estimate, standard error) for every parameter."""
         se = np.sqrt(np.diag(self.cov_))

@@ -106,6 +106,9 @@ class LogisticFit(_GlmFit):
     def measure(self, x: np.ndarray) -> np.ndarray:
         return expit(self._eta(x)[0])
 
+    def measure_link(self) -> tuple[str, float | None]:
+        return ("logit", 1.0)
+
     def measure_var(self, x: np.ndarray) -> np.ndarray:
         eta, D = self._eta(x)
         p = expit(eta)

@@ -243,6 +243,9 @@ class OrdinalFit(ArmFit):
     def measure(self, x: np.ndarray) -> np.ndarray:
         return self.distribution(x)[:, self.favourable_mask_].sum(axis=1)
 
+    def measure_link(self) -> tuple[str, float | None]:
+        return ("logit", 1.0)
+
     def measure_var(self, x: np.ndarray) -> np.ndarray:
         G = self.distribution_jacobian(x)[:, self.favourable_mask_, :].sum(axis=1)
         return quad_form(G, self.cov_)

@@ -125,6 +125,10 @@ class WeibullFit(ArmFit):
             return self._rmst_value(np.asarray(x, float), self.params_)
         return np.exp(-self.cumulative_hazard(x))
 
+    def measure_link(self) -> tuple[str, float | None]:
+        """Survival on the log cumulative hazard scale (the model's own); RMST as a share of the horizon, logit."""
+        return ("logit", self.horizon) if self.measure_name == "rmst" else ("cloglog", 1.0)
+
     def measure_var(self, x: np.ndarray) -> np.ndarray:
         if self.measure_name == "rmst":
             return self.rmst(x)[1]

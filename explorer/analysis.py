@@ -239,6 +239,14 @@ def difference_fn(pf: PairFit) -> Callable[[np.ndarray], np.ndarray]:
     return lambda x: pf.sign * (first.measure(x) - second.measure(x))
 
 
+def margin_of(spec: Spec, pf: PairFit) -> float:
+    """The pair's margin as `spec` sets it now (the app reuses fits when only margins change)."""
+    try:
+        return spec.margin_for(spec.outcome(pf.outcome.name))
+    except KeyError:
+        return spec.margin_for(pf.outcome)
+
+
 def diff_span(pf: PairFit) -> float | None:
     """The half-width of the range the difference can take (1 for two probabilities), or None: unbounded."""
     links = {f.measure_link() for f in pf.fits.values()}
@@ -262,7 +270,7 @@ def analytic_summary(pf: PairFit, spec: Spec) -> be.CurveSummary:
     pointwise band holds the margin, unbounded when the band never leaves it); `curved_interval = "delta"` gives
     the delta method instead, labelled so."""
     a = spec.analysis
-    margin = spec.margin_for(pf.outcome)
+    margin = margin_of(spec, pf)
     arms = _arms(pf)
     first, second = pf.fits[arms[0]], pf.fits[arms[1]]
     grid = grid_for(pf, a.grid)
@@ -469,7 +477,7 @@ def bootstrap_summary(pf: PairFit, spec: Spec, curves: list[np.ndarray | None] |
     qlo, qhi = 0.5 - a.level / 2, 0.5 + a.level / 2
     grid = base.grid
     (dlo, dhi), (flo, fhi), (slo, shi) = (np.quantile(M, [qlo, qhi], axis=0) for M in (D, F, S))
-    margin = spec.margin_for(pf.outcome) if margin is None else float(margin)
+    margin = margin_of(spec, pf) if margin is None else float(margin)
     s = be.CurveSummary(grid, base.first, base.second, base.difference, dlo, dhi, band="pointwise",
                         first_band=(flo, fhi), second_band=(slo, shi), margin=margin)
     if a.bands == "simultaneous":

@@ -405,7 +405,8 @@ def fit_spec(spec: Spec) -> Spec:
     a = spec.analysis
     neutral = dataclasses.replace(a, margin=0.0, interval="analytic", bands="pointwise", replicates=1000,
                                   workers=1, scheduler=None)
-    return dataclasses.replace(spec, analysis=neutral, values=None, pairwise=None, maps=(), source=None)
+    return dataclasses.replace(spec, analysis=neutral, values=None, pairwise=None, maps=(), source=None,
+                               outcomes=tuple(dataclasses.replace(o, margin=None) for o in spec.outcomes))
 
 
 def fit_key(data_hash: str, spec: Spec) -> tuple[str, str]:

@@ -64,3 +64,21 @@ def side_words(arm: str | None, arms: Any, margin: float) -> str:
         return str(arm)
     first = arms[0]
     return f"{first} {'better' if arm == first else 'not better'} by more than the margin ({margin:.3g})"
+
+
+def with_margins(spec: Any, margins: dict[str, float | None]) -> Any:
+    """The spec with these outcomes' own margins set (None: back to the default), each checked against its
+    measure's range; the app's per-outcome margin inputs use it (nothing is refitted)."""
+    import dataclasses
+
+    outcomes = tuple(check_outcome(dataclasses.replace(o, margin=None if margins[o.name] is None
+                                                       else float(margins[o.name])), spec.source)
+                     if o.name in margins else o for o in spec.outcomes)
+    return dataclasses.replace(spec, outcomes=outcomes)
+
+
+def units_words(outcome: Any) -> str:
+    """The units a margin is given in, for labels: 'probability', or the outcome's own units."""
+    if on_probability_scale(outcome):
+        return "probability, e.g. 0.05"
+    return outcome.units or ("time units" if outcome.kind == "survival" else "the outcome's units")

@@ -3,6 +3,7 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
+from explorer import margins
 
 LEVELS = [0.8, 0.9, 0.95, 0.99]
 ws, _ = ui.page_head(
@@ -20,7 +21,7 @@ a = ws.spec.analysis
 levels = sorted(set(LEVELS) | {a.level})
 c1, c2, c3 = st.columns(3)
 with c1:
-    margin = st.number_input("Margin: the smallest difference worth having (in each outcome's own units)",
+    margin = st.number_input("Margin: the smallest difference worth having (default for probabilities and composites)",
                              step=0.01, format="%.3f", key=ui.seed("margin", float(a.margin)))
 with c2:
     level = st.selectbox("Interval level", levels, format_func=lambda v: f"{v:.0%}", key=ui.seed("level", a.level))
@@ -31,6 +32,14 @@ with c3:
 if (margin, level, bands) != (a.margin, a.level, a.bands):
     ui.update_spec(lambda s: aps.with_settings(s, margin=margin, level=level, bands=bands))
     ws = ui.workspace()
+with st.expander("Margin per outcome (each in its own units; the margin above is the default for probabilities)"):
+    own = {o.name: st.number_input(f"{o.title} ({margins.units_words(o)})", format="%.3f",
+                                   step=0.01 if margins.on_probability_scale(o) else 1.0,
+                                   key=ui.seed(f"margin:{o.name}:{ws.spec.analysis.margin}", ws.spec.margin_for(o)))
+           for o in ws.spec.outcomes}
+    changed = {n: v for n, v in own.items() if v != ws.spec.margin_for(ws.spec.outcome(n))}
+    if changed and ui.update_spec(lambda s: margins.with_margins(s, changed)):
+        ws = ui.workspace()
 
 with st.expander("Bootstrap intervals (run on request)", expanded=ws.has_bootstrap()):
     st.markdown("Analytic intervals are shown by default. The bootstrap refits every model on resampled "

@@ -162,7 +162,7 @@ def test_the_bootstrap_runs_only_on_request_and_then_supplies_the_intervals() ->
     at = visit(start(), "page_outcomes.py")
     ws = workspace(at)
     assert not ws.has_bootstrap()
-    assert {b["interval"] for r in ws.curve_rows() for b in r["break_even"]} <= {"fieller", "delta"}
+    assert {b["interval"] for r in ws.curve_rows() for b in r["break_even"]} <= {"fieller", "test-inversion"}
     next(n for n in at.number_input if n.label == "Replicates").set_value(20).run()
     fits = workspace(at).n_fits
     next(b for b in at.button if b.label.startswith("Run the bootstrap")).click().run()

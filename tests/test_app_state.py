@@ -138,7 +138,7 @@ def test_changed_settings_save_reload_and_reproduce_with_fulcrum_analyse(ward, t
 
     # the JSON is the command line's, whole, apart from the clock (issue 10 item 6)
     doc = fulcrum_analyse(saved, ward[0], tmp_path / "analytic")
-    assert {b["interval"] for r in app_doc["results"] for b in r["break_even"]} <= {"fieller", "delta"}
+    assert {b["interval"] for r in app_doc["results"] for b in r["break_even"]} <= {"fieller", "test-inversion"}
     assert app_doc["spec"]["analysis"]["margin"] == 0.04 and app_doc["composite"]
     assert without_clock(app_doc) == without_clock(doc)
 

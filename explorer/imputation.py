@@ -220,13 +220,6 @@ def _imputed_counts(fs: an.FitSet, pf: an.PairFit) -> dict[str, int]:
     return {k: v for k, v in out.items() if v}
 
 
-def _root_variance(pf: an.PairFit, b: be.BreakEven) -> float:
-    """Delta-method variance of a break-even point: var(difference at the root) / slope^2."""
-    x = np.array([b.x])
-    v = sum(float(f.measure_var(x)[0]) for f in pf.fits.values())
-    return v / b.slope ** 2 if np.isfinite(b.slope) and b.slope != 0 else math.inf
-
-
 def _pooled_fieller(pf: an.PairFit, terms: list, level: float) -> list[dict]:
     """Pool the linear difference a + b x by Rubin's rules (mean, W + (1 + 1/m) B as 2x2 matrices) and take
     Fieller's set at the t critical value with Rubin's degrees of freedom for a + b x at the pooled root."""
@@ -252,36 +245,24 @@ def _pooled_fieller(pf: an.PairFit, terms: list, level: float) -> list[dict]:
              "per_imputation": [r6(-t[0] / t[1]) if t[1] else None for t in terms]}]
 
 
-def _pooled_delta(pf: an.PairFit, fits: list[an.PairFit], summaries: list, roots: np.ndarray,
-                  level: float) -> tuple[list[dict], list[str]]:
-    """Per root of the pooled difference curve: each imputation's nearest break-even with its delta-method
-    variance, combined by Rubin's rules."""
-    bes, warnings = [], []
+def _pooled_inversion(grid: np.ndarray, diff: Pooled, margin: float, roots: np.ndarray, level: float
+                      ) -> list[dict]:
+    """Per root of the pooled difference curve: the stretch around it where the pooled band (Rubin's total
+    variance, t at Rubin's degrees of freedom) holds the margin, the test inversion the complete-case analysis
+    uses; open where the band never leaves the margin. Between grid points the band is interpolated linearly."""
+    lo, hi = diff.interval(level)
+    outside = np.maximum(lo - margin, margin - hi)  # <= 0 exactly where the band holds the margin
+    bes = []
     for r in roots:
-        xs, vs = [], []
-        for p, s in zip(fits, summaries):
-            if s.break_even:
-                b = min(s.break_even, key=lambda b: abs(b.x - r))
-                xs.append(b.x)
-                vs.append(_root_variance(p, b))
-        lost = len(fits) - len(xs)
-        if lost:
-            warnings.append(f"{pf.outcome.title} along {pf.index}: {lost} of {len(fits)} imputed cohorts gave no "
-                            f"break-even point near {r:.3g}; the pooled one uses the others.")
-        if len(xs) < 2 or not np.all(np.isfinite(vs)):
-            continue
-        pr = rubin(np.array(xs), np.array(vs))
-        lo, hi = pr.interval(level)
-        bes.append({"x": r6(float(pr.estimate)), "ci": [r6(float(lo)), r6(float(hi))], "interval": "rubin-delta",
-                    "interval_shape": "finite", "df": r6(float(pr.df)),
-                    "missing_information": r6(float(pr.missing_information)),
-                    "per_imputation": [r6(x) for x in xs]})
-    return bes, warnings
+        a, b, shape = be.inverted_test_interval(lambda x: np.interp(x, grid, outside), float(r), grid, outside)
+        bes.append({"x": r6(float(r)), "ci": [r6(a), r6(b)], "interval": "rubin-test-inversion",
+                    "interval_shape": shape})
+    return bes
 
 
 def pooled_pair(fs: an.FitSet, pf: an.PairFit, completed: list[Imputed]) -> dict:
     """Refit one outcome x index on every completed cohort; pool the curves and break-evens by Rubin's rules."""
-    spec, level, margin = fs.spec, fs.spec.analysis.level, fs.spec.analysis.margin
+    spec, level, margin = fs.spec, fs.spec.analysis.level, an.margin_of(fs.spec, pf)
     arms = list(pf.fits)
     grid = an.grid_for(pf, spec.analysis.grid)
     fits, curves = [], {k: ([], []) for k in ("first", "second", "difference")}
@@ -300,8 +281,8 @@ def pooled_pair(fs: an.FitSet, pf: an.PairFit, completed: list[Imputed]) -> dict
     if all(t is not None for t in terms):
         bes, warnings = _pooled_fieller(pf, terms, level), []
     else:
-        bes, warnings = _pooled_delta(pf, fits, [an.analytic_summary(p, spec) for p in fits],
-                                      an.grid_roots(grid, dbar - margin), level)
+        bes, warnings = _pooled_inversion(grid, pooled["difference"], margin, an.grid_roots(grid, dbar - margin),
+                                          level), []
     for b in bes:
         below, above = (float(np.interp(b["x"] + d, grid, dbar)) - margin for d in (-1e-3, 1e-3))
         b["favours_below"] = arms[0] if below > 0 else arms[1]

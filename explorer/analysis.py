@@ -485,6 +485,8 @@ def bootstrap_summary(pf: PairFit, spec: Spec, curves: list[np.ndarray | None] |
         tmax = np.max(np.abs(D - base.difference) / sd, axis=1)
         crit = float(np.quantile(tmax, a.level))
         s.lower, s.upper, s.band = base.difference - crit * sd, base.difference + crit * sd, "simultaneous"
+        if (span := diff_span(pf)) is not None:  # a difference of bounded measures cannot leave [-span, span]
+            s.lower, s.upper = np.clip(s.lower, -span, span), np.clip(s.upper, -span, span)
     s.clear_difference = be.regions(grid, s.lower, s.upper, margin, *arms)
     Y = D - margin
     favoured_first = np.mean(Y, axis=1) > 0

@@ -20,6 +20,7 @@ from .analysis import SPARSE_SHARE, STRETCHES, FitSet, PairFit
 from .charts import fmt, per_hundred, words
 from .conversation import WHO_SHORT, ValuesRecord
 from .errors import FulcrumError
+from .margins import on_probability_scale
 from .results import _jsonable
 from .spec import OutcomeSpec, SelectionSpec
 
@@ -257,7 +258,7 @@ def measure_bounds(outcome: OutcomeSpec) -> tuple[float, float]:
 
 
 def is_probability(outcome: OutcomeSpec) -> bool:
-    return outcome.kind in ("binary", "ordinal") or (outcome.kind == "survival" and outcome.measure != "rmst")
+    return on_probability_scale(outcome)
 
 
 def count_of_100(p: float) -> int:
@@ -420,12 +421,13 @@ def predict(fs: FitSet, outcome: str, pl: Placement) -> Prediction:
     ests = {arm: _arm_estimate(pf, arm, pl.value, z) for arm in arms}
     d, se = (float(v[0]) for v in _differences(pf, np.array([pl.value]), z))
     ci = (d - z * se, d + z * se)
-    clear, favours = _verdict(d, *ci, a.margin, arms)
+    margin = fs.spec.margin_for(fs.spec.outcome(outcome))  # the outcome's own margin, in its own units
+    clear, favours = _verdict(d, *ci, margin, arms)
     favours = favours if clear else None
     by_level = sentence = None
     if pl.discrete:
         xs = whole_levels(pl)
-        by_level = _by_level(xs, *_differences(pf, xs, z), z, a.margin, arms)
+        by_level = _by_level(xs, *_differences(pf, xs, z), z, margin, arms)
         sentence = level_sentence(f"For {o.title}", by_level, arms)
     return Prediction(outcome, o.title, pl.name, _measure(o), o.kind, is_probability(o), pl.value, ests, d, ci,
                       clear, favours, _sentence(o, ests, arms), _uncertainty(o, clear, favours),

@@ -322,6 +322,8 @@ def test_spec_missing_a_required_key(write_case, text):
      "should be a whole number"),
     ('column = "cfs"', 'column = "cfs"\n\n[analysis]\nmargin = "0.1"', "analysis.margin", "should be a finite number"),
     ('column = "cfs"', 'column = "cfs"\n\n[analysis]\nlevel = 1.5', "analysis.level", "is 1.5, outside 0.5 to 0.999"),
+    ('horizon = 365', 'horizon = 365\nmargin = 1.2', "outcomes 'alive'.margin",
+     "the difference of probabilities cannot reach 1"),
 ])
 def test_spec_values_of_the_wrong_type_or_range(write_case, text, old, new, key, words):
     err = refused(write_case, text, spec_text("alive").replace(old, new, 1))

@@ -809,10 +809,13 @@ def chart_catalogue(doc: dict, index_titles: dict[str, str], outcome_titles: dic
     return out
 
 
-def patient_fields(spec: Spec, index_values: dict, frame: pd.DataFrame) -> list[dict]:
+def patient_fields(spec: Spec, index_values: dict, frame: pd.DataFrame,
+                   codings: dict[str, dict[str, float]] | None = None) -> list[dict]:
     """What the Patient page asks for: each column index's value, and the columns a formula or prognostic
-    index reads; each with a default (the cohort median, or the commonest value of a text column)."""
+    index reads; each with a default (the cohort median, or the commonest value of a text column). A text
+    column the cohort coded 0/1 (codings, from patient.text_codings) is asked by the file's own labels."""
     fields: dict[str, dict] = {}
+    codings = codings or {}
     for ix in spec.indices:
         iv = index_values[ix.name]
         if ix.column:
@@ -827,7 +830,13 @@ def patient_fields(spec: Spec, index_values: dict, frame: pd.DataFrame) -> list[
                 continue
             s = frame[col].dropna()
             nums = pd.to_numeric(s, errors="coerce")
-            if len(s) and nums.notna().all():
+            if codings.get(col):
+                by_code = {v: k for k, v in codings[col].items()}
+                counts = nums.value_counts()
+                options = [by_code[c] for c in counts.index if c in by_code] or list(codings[col])
+                fields[col] = {"key": col, "label": col, "numeric": False, "options": options,
+                               "default": options[0]}
+            elif len(s) and nums.notna().all():
                 whole = bool(np.all(np.mod(nums, 1) == 0))
                 fields[col] = {"key": col, "label": col, "numeric": True, "discrete": whole,
                                "default": float(np.median(nums)), "min": float(nums.min()), "max": float(nums.max())}
@@ -836,6 +845,48 @@ def patient_fields(spec: Spec, index_values: dict, frame: pd.DataFrame) -> list[
                 fields[col] = {"key": col, "label": col, "numeric": False, "options": options,
                                "default": options[0] if options else ""}
     return list(fields.values())
+
+
+@dataclass
+class PatientChoice:
+    """The one patient in hand for the whole session: entered values, or a cohort row, and the values record
+    (whose values the weights are). Every page reads it; only the user's own edits or a reset change it."""
+
+    how: str = "entered"  # "entered" | "row"
+    values: dict[str, Any] = field(default_factory=dict)
+    row: int | None = None
+    record: Any = None  # conversation.ValuesRecord from the values conversation, when one was held
+
+    def fitted_to(self, fields: list[dict], n_rows: int) -> "PatientChoice":
+        """The same patient for a (possibly new) cohort: entered values kept where the field still exists and
+        its value is still allowed, every other field at the cohort's default; a row beyond the cohort dropped."""
+        values = {}
+        for f in fields:
+            v = self.values.get(f["key"])
+            ok = v is not None and (f["numeric"] and isinstance(v, (int, float)) and math.isfinite(v)
+                                    or not f["numeric"] and v in f["options"])
+            values[f["key"]] = v if ok else f["default"]
+        row = self.row if self.row is not None and 0 <= self.row < n_rows else 0
+        return dataclasses.replace(self, how="row" if self.how == "row" else "entered", values=values, row=row)
+
+    def inputs(self) -> tuple[dict[str, Any], int | None]:
+        """(values, row) as patient.place_patient takes them."""
+        return ({}, int(self.row or 0)) if self.how == "row" else (dict(self.values), None)
+
+    def describe(self, fields: list[dict], whose: str | None = None) -> str:
+        """One line for the sidebar and the printouts: who the patient is and whose values are in use."""
+        if self.how == "row":
+            text = f"cohort row {int(self.row or 0) + 1:,}"
+        else:
+            labels = {f["key"]: f["label"] for f in fields}
+            text = ", ".join(f"{labels.get(k, k)} {_short(v)}" for k, v in self.values.items()) or "no values"
+        return text + (f"; values: {whose}" if whose else "")
+
+
+def _short(v: Any) -> str:
+    if isinstance(v, float):
+        return f"{v:.0f}" if float(v).is_integer() else f"{v:.3g}"
+    return str(v)
 
 
 def breakeven_table(doc: dict) -> pd.DataFrame:

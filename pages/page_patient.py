@@ -58,7 +58,7 @@ else:
 new_choice = dataclasses.replace(choice, how="row" if how == PICK else "entered", values=entered, row=position)
 if new_choice != choice:
     ui.set_patient(new_choice)
-    choice = new_choice
+    st.rerun()  # so the sidebar, drawn before this page, shows the patient just entered
 
 names = [ix.name for ix in ws.spec.indices]
 titles = {ix.name: ix.title for ix in ws.spec.indices}

@@ -85,7 +85,7 @@ def test_a_researcher_uploads_their_own_file_with_the_demo_open_and_takes_the_re
     assert not errors, errors
 
 
-def test_a_clinician_places_a_patient_who_stays_on_every_page_and_prints_the_meeting_view(app) -> None:
+def test_a_clinician_keeps_a_patient_on_every_page_prints_the_meeting_view_then_a_family_sets_values(app) -> None:
     page, errors = open_app(app)
     go(page, "Patient")
     set_number(page, "Clinical Frailty Scale", "7")
@@ -107,10 +107,11 @@ def test_a_clinician_places_a_patient_who_stays_on_every_page_and_prints_the_mee
     settle(page)
     assert "Clinical Frailty Scale 7, Age 82" not in sidebar(page)
     assert not errors, errors
+    family_conference(page, errors)  # the same session: the demo is fitted once for both journeys
 
 
-def test_a_family_conference_sets_the_weights_and_the_patient_view_and_summary_follow(app) -> None:
-    page, errors = open_app(app)
+def family_conference(page, errors: list[str]) -> None:
+    """A family conference: the values conversation sets the weights; the patient view and summary follow."""
     go(page, "Patient")
     set_number(page, "Clinical Frailty Scale", "6")
     page.get_by_role("button", name="Use these values").click()

@@ -4,7 +4,9 @@
 
 (a) one per-arm Cox fit, (b) one proportional-odds fit, (c) the demo spec (3 outcomes x 2 indices) with
 bootstrap replicates, (d) re-weighting the composite, (e) peak memory of a 1M-row x 20-column analysis,
-(f) a 1M-row survival analysis end to end, (g) the whole demo spec with analytic intervals at 10k patients.
+(f) a 1M-row survival analysis end to end, (g) the whole demo spec with analytic intervals at 10k patients,
+(h) the app in Debian's Chromium on the demo (first page, page switches, a control change) and the offline
+report's size and opening time (benchmarks/app_speed.py; `--only-app` runs just this).
 Medians of repeated runs; targets are printed beside the
 measurements (DESIGN.md section 8) and are never asserted in tests. The data are the invented demo cohort.
 """
@@ -358,6 +360,7 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--quick", action="store_true", help="smaller sizes, under 5 minutes")
     p.add_argument("--json", metavar="OUT", help="write the measurements here")
     p.add_argument("--workdir", help="keep generated data here (default: a temporary folder, removed)")
+    p.add_argument("--only-app", action="store_true", help="run only (h), the app and report in Chromium")
     args = p.parse_args(argv)
     mode = "quick" if args.quick else "full"
     s = SETTINGS[mode]
@@ -369,7 +372,9 @@ def main(argv: list[str] | None = None) -> int:
     say(f"Fulcrum benchmark ({mode}) on {report['machine']['nproc']} x {report['machine']['cpu']}, load average "
         f"{' '.join(f'{v:.2f}' for v in report['load_average_start'])}")
     try:
-        run_all(report, s, work)
+        if not args.only_app:
+            run_all(report, s, work)
+        app_all(report, work)
     finally:
         if not args.workdir:
             shutil.rmtree(work, ignore_errors=True)
@@ -457,6 +462,17 @@ def run_all(report: dict, s: dict, work: Path) -> None:
     say(f"  wall {f['seconds']:.1f} s (CPU {f['cpu_seconds']:.1f} s: user {f['user_seconds']:.1f}, system "
         f"{f['system_seconds']:.1f}; peak RSS {f['peak_rss_mb']:.0f} MB, load average {f['load_average'][0]:.1f})"
         + (verdict("survival_1m_seconds", f["seconds"]) if len(big) >= 1_000_000 else " [1M target: full run]"))
+
+
+def app_all(report: dict, work: Path) -> None:
+    import app_speed
+
+    say("(h) the app in Debian's Chromium on the demo, and the demo's offline report")
+    (work / "app").mkdir(exist_ok=True)
+    h = {**app_speed.app_case(work / "app"), **app_speed.report_case(work)}
+    report["app"] = h
+    for line in app_speed.lines(h):
+        say(line)
 
 
 if __name__ == "__main__":

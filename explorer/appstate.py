@@ -31,6 +31,14 @@ NAME_HINTS: dict[str, tuple[str, ...]] = {
     "index": ("cfs", "frail", "frailty", "age", "score", "index", "risk", "asa", "lactate", "albumin", "karno",
               "karnofsky", "ecog", "performance", "apache", "sofa", "charlson", "bmi"),
 }
+# Words that mark a column as something measured after treatment (an outcome), not a baseline covariate.
+OUTCOME_WORDS = ("alive", "dead", "death", "died", "mortality", "survived", "outcome", "response", "recovered",
+                 "recovery", "complication", "complications", "readmitted", "readmission", "discharged",
+                 "discharge", "home", "function", "rankin", "mrs", "gos", "qol", "eq5d", "utility", "los", "stay",
+                 "success", "cure", "cured", "improved", "result", "rating", "adl", "barthel", "pain", "disability")
+TIMEPOINT = re.compile(r"(^|[^a-z0-9])\d+\s*(d|w|m|y|day|days|wk|week|weeks|mo|month|months|yr|year|years)"
+                       r"($|[^a-z])")
+YES_NO = ({"yes", "no"}, {"y", "n"}, {"true", "false"}, {"alive", "dead"}, {"present", "absent"})
 DEATH_WORDS = ("dead", "death", "died", "deceased")
 RANDOM_WORDS = ("random", "rct", "trial")
 MAX_LEVELS = 12
@@ -56,6 +64,8 @@ class Guess:
     binary: tuple[str, ...] = ()
     continuous: tuple[str, ...] = ()
     indices: tuple[str, ...] = ()
+    covariates: tuple[str, ...] = ()
+    continuous_outcomes: tuple[str, ...] = ()
 
 
 def _words(name: str) -> set[str]:
@@ -143,21 +153,46 @@ def guess_roles(frame: pd.DataFrame) -> Guess:
     if g.cluster:
         taken.add(g.cluster)
     rest = [c for c in frame.columns if c not in taken]
+    outcome_named = {c for c in rest if is_outcome_name(c)}
     g.ordinal = {c: guess_levels(frame[c]) for c in rest
-                 if not _is_numeric(frame[c]) and 3 <= len(_values(frame[c])) <= MAX_LEVELS
-                 and _hint(c, "cluster") == 0}
-    g.binary = tuple(c for c in rest if _is_binary01(frame[c]))
-    numeric = [c for c in rest if _is_numeric(frame[c]) and c not in g.binary]
-    hinted = sorted((c for c in numeric if _hint(c, "index")), key=lambda c: -_hint(c, "index"))
+                 if 3 <= len(_values(frame[c])) <= MAX_LEVELS and _hint(c, "cluster") == 0
+                 and (not _is_numeric(frame[c]) or (c in outcome_named and _is_whole(frame[c])))}
+    two = [c for c in rest if c not in g.ordinal and (_is_binary01(frame[c]) or _is_yes_no(frame[c]))]
+    g.binary = tuple(c for c in two if c in outcome_named)
+    numeric = [c for c in rest if _is_numeric(frame[c]) and c not in two and c not in g.ordinal]
+    hinted = sorted((c for c in numeric if _hint(c, "index") and c not in outcome_named),
+                    key=lambda c: -_hint(c, "index"))
     g.indices = tuple(hinted)
     g.continuous = tuple(c for c in numeric if c not in hinted)
+    g.continuous_outcomes = tuple(c for c in g.continuous if c in outcome_named)
+    g.covariates = tuple(c for c in rest if c not in outcome_named and c not in g.ordinal
+                         and (c in numeric or len(_values(frame[c])) == 2))
     return g
+
+
+def is_outcome_name(name: str) -> bool:
+    """Whether a column's name reads as an outcome: an outcome word, or a time point such as `_6m` or `30d`."""
+    low = str(name).lower()
+    return bool(_words(name) & set(OUTCOME_WORDS)) or bool(TIMEPOINT.search(low))
+
+
+def _is_whole(s: pd.Series) -> bool:
+    x = _numbers(s).dropna()
+    return bool(len(x)) and bool(np.all(np.mod(x, 1) == 0))
+
+
+def _is_yes_no(s: pd.Series) -> bool:
+    values = {v.strip().lower() for v in _values(s)}
+    return len(values) == 2 and any(values == pair for pair in YES_NO)
 
 
 def guess_levels(s: pd.Series) -> tuple[str, ...]:
     """Level order guess, best first: an ordered categorical's order, else by frequency, death last."""
     if isinstance(s.dtype, pd.CategoricalDtype) and s.dtype.ordered:
         levels = [str(v) for v in s.dtype.categories]
+    elif _is_numeric(s):  # numbered levels (a 1-5 rating, a 0-6 scale) keep their numeric order
+        nums = _numbers(s).dropna()
+        levels = [str(v) for _, v in sorted({float(n): str(o) for n, o in zip(nums, s.dropna())}.items())]
     else:
         counts = s.dropna().astype(str).value_counts()
         levels = list(counts.index)
@@ -214,6 +249,9 @@ def outcome_rows(spec: Spec | None, guess: Guess | None = None) -> list[dict]:
                      "horizon": None, "levels": ", ".join(levels), "label": ""})
     for col in g.binary:
         rows.append({"name": _name(col), "kind": "binary", "column": col, "time": "", "event": "",
+                     "horizon": None, "levels": "", "label": ""})
+    for col in g.continuous_outcomes:
+        rows.append({"name": _name(col), "kind": "continuous", "column": col, "time": "", "event": "",
                      "horizon": None, "levels": "", "label": ""})
     return rows
 
@@ -772,10 +810,13 @@ def chart_catalogue(doc: dict, index_titles: dict[str, str], outcome_titles: dic
     return out
 
 
-def patient_fields(spec: Spec, index_values: dict, frame: pd.DataFrame) -> list[dict]:
+def patient_fields(spec: Spec, index_values: dict, frame: pd.DataFrame,
+                   codings: dict[str, dict[str, float]] | None = None) -> list[dict]:
     """What the Patient page asks for: each column index's value, and the columns a formula or prognostic
-    index reads; each with a default (the cohort median, or the commonest value of a text column)."""
+    index reads; each with a default (the cohort median, or the commonest value of a text column). A text
+    column the cohort coded 0/1 (codings, from patient.text_codings) is asked by the file's own labels."""
     fields: dict[str, dict] = {}
+    codings = codings or {}
     for ix in spec.indices:
         iv = index_values[ix.name]
         if ix.column:
@@ -790,7 +831,13 @@ def patient_fields(spec: Spec, index_values: dict, frame: pd.DataFrame) -> list[
                 continue
             s = frame[col].dropna()
             nums = pd.to_numeric(s, errors="coerce")
-            if len(s) and nums.notna().all():
+            if codings.get(col):
+                by_code = {v: k for k, v in codings[col].items()}
+                counts = nums.value_counts()
+                options = [by_code[c] for c in counts.index if c in by_code] or list(codings[col])
+                fields[col] = {"key": col, "label": col, "numeric": False, "options": options,
+                               "default": options[0]}
+            elif len(s) and nums.notna().all():
                 whole = bool(np.all(np.mod(nums, 1) == 0))
                 fields[col] = {"key": col, "label": col, "numeric": True, "discrete": whole,
                                "default": float(np.median(nums)), "min": float(nums.min()), "max": float(nums.max())}
@@ -799,6 +846,48 @@ def patient_fields(spec: Spec, index_values: dict, frame: pd.DataFrame) -> list[
                 fields[col] = {"key": col, "label": col, "numeric": False, "options": options,
                                "default": options[0] if options else ""}
     return list(fields.values())
+
+
+@dataclass
+class PatientChoice:
+    """The one patient in hand for the whole session: entered values, or a cohort row, and the values record
+    (whose values the weights are). Every page reads it; only the user's own edits or a reset change it."""
+
+    how: str = "entered"  # "entered" | "row"
+    values: dict[str, Any] = field(default_factory=dict)
+    row: int | None = None
+    record: Any = None  # conversation.ValuesRecord from the values conversation, when one was held
+
+    def fitted_to(self, fields: list[dict], n_rows: int) -> "PatientChoice":
+        """The same patient for a (possibly new) cohort: entered values kept where the field still exists and
+        its value is still allowed, every other field at the cohort's default; a row beyond the cohort dropped."""
+        values = {}
+        for f in fields:
+            v = self.values.get(f["key"])
+            ok = v is not None and (f["numeric"] and isinstance(v, (int, float)) and math.isfinite(v)
+                                    or not f["numeric"] and v in f["options"])
+            values[f["key"]] = v if ok else f["default"]
+        row = self.row if self.row is not None and 0 <= self.row < n_rows else 0
+        return dataclasses.replace(self, how="row" if self.how == "row" else "entered", values=values, row=row)
+
+    def inputs(self) -> tuple[dict[str, Any], int | None]:
+        """(values, row) as patient.place_patient takes them."""
+        return ({}, int(self.row or 0)) if self.how == "row" else (dict(self.values), None)
+
+    def describe(self, fields: list[dict], whose: str | None = None) -> str:
+        """One line for the sidebar and the printouts: who the patient is and whose values are in use."""
+        if self.how == "row":
+            text = f"cohort row {int(self.row or 0) + 1:,}"
+        else:
+            labels = {f["key"]: f["label"] for f in fields}
+            text = ", ".join(f"{labels.get(k, k)} {_short(v)}" for k, v in self.values.items()) or "no values"
+        return text + (f"; values: {whose}" if whose else "")
+
+
+def _short(v: Any) -> str:
+    if isinstance(v, float):
+        return f"{v:.0f}" if float(v).is_integer() else f"{v:.3g}"
+    return str(v)
 
 
 def breakeven_table(doc: dict) -> pd.DataFrame:

@@ -354,8 +354,10 @@ def _points_layers(points: pd.DataFrame | None, arms: Sequence[str]) -> list[alt
     if points is None or len(points) == 0:
         return []
     df = points.loc[:, [c for c in ("x", "y", "arm", "allocation") if c in points.columns]].copy()
-    if "allocation" not in df.columns:
-        df["allocation"] = "randomised"
+    if "allocation" not in df.columns:  # allocation unknown: plain small dots, no randomised/chosen legend
+        return [_chart(df).mark_point(filled=True, opacity=0.35, strokeWidth=0, size=ALLOCATION_SIZES["chosen"])
+                .encode(x=alt.X("x:Q"), y=alt.Y("y:Q"),
+                        color=alt.Color("arm:N", scale=_arm_scale(arms), legend=ARM_LEGEND))]
     domain = list(ALLOCATION_SHAPES)
     shape = alt.Shape("allocation:N", scale=alt.Scale(domain=domain, range=[ALLOCATION_SHAPES[d] for d in domain]),
                       legend=alt.Legend(title="patients", symbolFillColor="#666666", symbolStrokeColor="#666666",
@@ -975,9 +977,7 @@ def cohort_points(fs: Any, outcome: str, index: str, *, max_points: int = 1500, 
     elif spec.cohort.allocation:
         df["allocation"] = np.where(frame[spec.cohort.allocation].iloc[rows].astype(str).to_numpy()
                                     == str(spec.cohort.randomised), "randomised", "chosen")
-    else:
-        df["allocation"] = "randomised"
-    rng = np.random.default_rng(seed)
+    rng = np.random.default_rng(seed)  # without an allocation column nobody is drawn as randomised
     binary = o.kind in ("binary", "ordinal") or (o.kind == "survival" and o.measure != "rmst")
     if binary:
         df["y"] = df["y"] + np.where(df["y"] > 0.5, -1, 1) * rng.uniform(0, 0.04, len(df))

@@ -538,7 +538,8 @@ def _judgement_sentence(what: str, fav: str, firm: str, p_fav: float) -> str:
     head = {"not clearly": f"{what}, neither option is clearly ahead.",
             "leaning": f"{what}, the balance leans towards {fav}.",
             "firmly": f"{what}, {fav} is clearly ahead."}[firm]
-    return f"{head} The chance that {fav} gives the better result is {chance_words(p_fav)}."
+    return (f"{head} How sure: {fav} comes out ahead on these values in {chance_words(p_fav)} plausible versions "
+            "of the estimates (a measure of certainty, not a chance of survival).")
 
 
 def _judgement_detail(per_arm: dict[str, tuple[float, float, float]], d: float, ci: tuple[float, float],

@@ -4,15 +4,19 @@ import streamlit as st
 import fulcrum_ui as ui
 
 ui.setup()
+# The pages in the order the sidebar lists them: (file, title, url path). Add a page with one line here.
 PAGES = [
-    st.Page("page_cohort.py", title="Cohort", url_path="cohort", default=True),
-    st.Page("page_outcomes.py", title="Outcomes by index", url_path="outcomes"),
-    st.Page("page_values.py", title="Values", url_path="values"),
-    st.Page("page_selection.py", title="Randomised vs chosen", url_path="selection"),
-    st.Page("page_patient.py", title="Patient", url_path="patient"),
-    st.Page("page_maps.py", title="Two indices", url_path="maps"),
-    st.Page("page_report.py", title="Report", url_path="report"),
+    ("page_cohort.py", "Cohort", "cohort"),
+    ("page_outcomes.py", "Outcomes by index", "outcomes"),
+    ("page_values.py", "Values", "values"),
+    ("page_selection.py", "Randomised vs chosen", "selection"),
+    ("page_patient.py", "Patient", "patient"),
+    ("page_meeting.py", "Meeting view", "meeting"),
+    ("page_maps.py", "Two indices", "maps"),
+    ("page_report.py", "Report", "report"),
 ]
-page = st.navigation(PAGES)
+page = st.navigation([st.Page(file, title=title, url_path=path, default=i == 0)
+                      for i, (file, title, path) in enumerate(PAGES)])
+ui.header()  # the app's header (pages/ui_theme.py draws it when present)
 ui.sidebar(ui.workspace())
 page.run()

@@ -32,6 +32,9 @@ html, body, [data-testid="stAppViewContainer"] { font-size: 19px; }
 """
 WS = "workspace"
 GEN = "generation"
+PATIENT = "patient"  # the one patient in hand (appstate.PatientChoice), kept across pages and cohorts
+PATIENT_VERSION = "patient_version"  # bumped by a reset, so the patient's widgets start again
+WHOSE_WORDS = {"patient": "the patient's own", "proxy": "a proxy's, for the patient", "team": "the treating team's"}
 
 
 def setup() -> None:
@@ -201,8 +204,83 @@ def result(ws: aps.Workspace, bootstrap: bool = True):
 
 
 # ------------------------------------------------------------------------------------------
+# The patient in hand: one object for every page
+# ------------------------------------------------------------------------------------------
+def patient_fields(ws: aps.Workspace) -> list[dict]:
+    """The patient's inputs; text covariates the cohort coded 0/1 are asked by the file's own labels."""
+    from types import SimpleNamespace
+
+    mod = engine("patient")
+    codings = mod.text_codings(SimpleNamespace(cohort=ws.cohort)) if mod is not None else {}
+    return aps.patient_fields(ws.spec, ws.index_values(), ws.cohort.frame, codings)
+
+
+def patient(ws: aps.Workspace) -> aps.PatientChoice:
+    """The session's patient, fitted to the loaded cohort (values kept where they still apply)."""
+    current = st.session_state.get(PATIENT) or aps.PatientChoice()
+    fitted_ = current.fitted_to(patient_fields(ws), ws.cohort.n)
+    if fitted_ != current:
+        st.session_state[PATIENT] = fitted_
+    return fitted_
+
+
+def set_patient(choice: aps.PatientChoice) -> None:
+    st.session_state[PATIENT] = choice
+
+
+def reset_patient() -> None:
+    """Forget the patient (on request only): the cohort's typical values again, no values record."""
+    st.session_state.pop(PATIENT, None)
+    st.session_state[PATIENT_VERSION] = st.session_state.get(PATIENT_VERSION, 0) + 1
+
+
+def pkey(name: str, value: Any) -> str:
+    """A widget key for the patient's inputs, seeded from the patient object; new after a reset or a new cohort."""
+    k = f"{name}@{st.session_state.get(GEN, 0)}#{st.session_state.get(PATIENT_VERSION, 0)}"
+    if k not in st.session_state:
+        st.session_state[k] = value
+    return k
+
+
+def whose_words(ws: aps.Workspace, choice: aps.PatientChoice | None = None) -> str | None:
+    """Whose values the weights in use are: the values record's, else the spec's."""
+    who = ws.spec.values.whose if ws.spec.values else None
+    return WHOSE_WORDS.get(who, who) if who else None
+
+
+def patient_view(ws: aps.Workspace, fs: Any, index: str | None = None, keeping: str | None = None):
+    """The engine's view of the session's patient (nothing computed here), or None with the reason shown."""
+    mod = engine("patient")
+    if mod is None:
+        return None
+    choice = patient(ws)
+    values, row = choice.inputs()
+    record = current_record(ws, choice)
+    weights = record.weights if record is not None else None
+    return attempt(mod.place_patient, fs, values, row=row, weights=weights, index=index, record=record,
+                   keeping=keeping)
+
+
+def current_record(ws: aps.Workspace, choice: aps.PatientChoice):
+    """The values record of the weights now in use (the conversation's while its weights stand)."""
+    conv = engine("conversation")
+    return conv.current_record(choice.record, ws.spec.values) if conv is not None else None
+
+
+# ------------------------------------------------------------------------------------------
 # Small pieces of screen
 # ------------------------------------------------------------------------------------------
+def header() -> None:
+    """The app's header, drawn once per run above every page (pages/ui_theme.py provides it when present)."""
+    try:
+        theme = importlib.import_module("ui_theme")
+    except ModuleNotFoundError:
+        return
+    draw = getattr(theme, "header", None)
+    if draw is not None:
+        draw()
+
+
 def sidebar(ws: aps.Workspace) -> None:
     with st.sidebar:
         name = aps.md_escape(ws.filename)
@@ -210,6 +288,12 @@ def sidebar(ws: aps.Workspace) -> None:
                     + ("  \n_Invented demo data: no real patient._" if ws.is_demo else ""))
         arms = ws.spec.cohort.arms
         st.markdown(f"**Arms:** {aps.md_escape(arms[0])} (first) and {aps.md_escape(arms[1])} (second)")
+        choice = attempt(patient, ws, keeping=None)
+        if choice is not None:
+            fields = attempt(patient_fields, ws, keeping=None) or []
+            st.markdown("**Patient in hand:** " + aps.md_escape(choice.describe(fields, whose_words(ws, choice))))
+            st.button("Reset the patient", on_click=reset_patient, key="reset_patient",
+                      help="Back to the cohort's typical values; forgets the values conversation.")
         st.caption(" ".join(CAUTIONS))
 
 

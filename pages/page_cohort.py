@@ -140,6 +140,14 @@ if frame is not None:
         if alloc != NONE:
             randomised = choose("Its value for randomised patients", f"randomised:{alloc}", values_of(alloc) or ["?"],
                                 current.randomised if current else guess.randomised)
+        else:
+            st.caption("No allocation column: every patient counts as chosen-or-unknown, and the randomised vs "
+                       "chosen page stays empty.")
+    numeric_or_two = [c for c in cols if c not in {arm, pid, cluster, alloc}]
+    cov_default = list(current.covariates) if current else list(guess.covariates)
+    cov_key = ui.seed(f"covariates:{tag}", [c for c in cov_default if c in numeric_or_two])
+    covariates = st.multiselect("Baseline covariates (described by arm and allocation; numbers or two-valued "
+                                "text)", numeric_or_two, key=cov_key)
 
     st.subheader("Outcomes")
     st.caption("Kinds: survival (time and event columns, a horizon), ordinal (levels best first, separated by "
@@ -169,10 +177,12 @@ if frame is not None:
     def apply() -> aps.Workspace:
         cohort = {"path": source["filename"], "arm": arm, "arms": [first, second], "id": pid, "cluster": cluster,
                   "allocation": alloc, "randomised": randomised, "sheet": source.get("sheet")}
-        spec = aps.build_spec({k: (None if v == NONE else v) for k, v in cohort.items()},
-                              aps.outcomes_from_rows(outcomes.to_dict("records"), ws.spec),
-                              aps.indices_from_rows(indices.to_dict("records"), ws.spec, keep),
-                              base=ws.spec, base_dir=Path(".") if fresh else ws.spec.cohort.path.parent)
+        base = None if fresh else ws.spec  # a new file starts from a fresh spec: nothing of the old one carries over
+        table = {k: (None if v == NONE else v) for k, v in cohort.items()}
+        table["covariates"] = [c for c in covariates if c not in {arm, pid, cluster, alloc}]
+        spec = aps.build_spec(table, aps.outcomes_from_rows(outcomes.to_dict("records"), base),
+                              aps.indices_from_rows(indices.to_dict("records"), base, keep),
+                              base=base, base_dir=Path(".") if fresh else ws.spec.cohort.path.parent)
         if fresh:
             return aps.Workspace.open(source["data"], source["filename"], spec)
         return ws.with_spec(spec)
@@ -221,7 +231,7 @@ if charts is not None:
 for w in (clusters or {}).get("warnings", []):
     st.caption("Note: " + aps.md_escape(w))
 
-st.subheader("How each index is spread, by arm, and where the randomised patients are")
+st.subheader("How each index is spread, by arm" + (", and where the randomised patients are" if ws.cohort.randomised is not None else ""))
 index_values = ui.attempt(ws.index_values)
 if index_values is not None and charts is None:
     ui.not_available("The index charts", "explorer/charts.py")

@@ -8,7 +8,6 @@ from explorer import appstate as aps
 from explorer.spec import MapSpec
 
 MODELS = "map_models"
-PLACED = "map_patient"
 KINDS = {"ordinal": "states of function", "survival_function": "survival x function among survivors"}
 ws, maps = ui.page_head(
     "Two indices",
@@ -75,29 +74,12 @@ if model is None:
 
 
 # ------------------------------------------------------------------------------------------
-# The patient placed on the Patient page (its inputs, kept here once seen)
+# The session's patient (the one in the sidebar)
 # ------------------------------------------------------------------------------------------
-def placed() -> tuple[dict, int | None] | None:
-    state = st.session_state
-    gen = ui.key("")
-    how = state.get(ui.key("patient_how"))
-    if how is not None:
-        if "cohort" in str(how).lower():
-            found = ({}, int(state.get(ui.key("patient_row"), 1)) - 1)
-        else:
-            found = ({k[3:-len(gen)]: val for k, val in state.items() if k.startswith("pv:") and k.endswith(gen)}, None)
-        if found[0] or found[1] is not None:
-            state[PLACED] = (gen, found)
-    saved = state.get(PLACED)
-    return saved[1] if saved and saved[0] == gen else None
-
-
 point = None
-who = placed()
-if who is not None and patient is not None:
-    view = ui.attempt(patient.place_patient, fs, who[0], row=who[1], keeping=None)
-    if view is not None and first in view.placements and second in view.placements:
-        point = (view.placements[first].value, view.placements[second].value)
+view = ui.patient_view(ws, fs) if patient is not None else None
+if view is not None and first in view.placements and second in view.placements:
+    point = (view.placements[first].value, view.placements[second].value)
 
 # ------------------------------------------------------------------------------------------
 # The map, in a picture and in words
@@ -111,7 +93,7 @@ if charts is not None:
 else:
     ui.sentence(text)
 if point is None:
-    st.caption("Place a patient on the Patient page to see their point on the map.")
+    st.caption("The patient in hand could not be placed on both indices; set their values on the Patient page.")
 for w in row["warnings"]:
     st.warning(aps.md_escape(w))
 with st.expander("The models behind the map"):

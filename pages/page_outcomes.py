@@ -135,7 +135,8 @@ def show_checks(check: dict, row: dict, label: str) -> None:
 names = [ix.name for ix in ws.spec.indices]
 titles = {ix.name: ix.title for ix in ws.spec.indices}
 index = st.radio("Index", names, format_func=titles.get, horizontal=True, key=ui.seed("index", names[0]))
-show_points = st.checkbox("Show each patient beneath the curves (triangles: randomised, dots: chosen)",
+show_points = st.checkbox("Show each patient beneath the curves" + (" (triangles: randomised, dots: chosen)"
+                                                                     if ws.cohort.randomised is not None else ""),
                           value=True, key=ui.key("points"))
 st.header(f"Outcomes along {titles[index]}")
 for row in [r for r in doc["results"] if r["index"] == index]:

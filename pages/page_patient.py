@@ -1,5 +1,6 @@
 """Patient: one patient's place along each index, a short values conversation, each arm's predicted outcomes,
 and what the values favour; a printable summary (HTML and PDF) for the meeting record."""
+import dataclasses
 import datetime as dt
 import json
 
@@ -10,7 +11,6 @@ from explorer import CAUTIONS
 from explorer import appstate as aps
 
 ENTER, PICK = "Enter this patient's values", "Pick a patient from the cohort"
-RECORD = "values_record"
 WHOSE = {"patient": "The patient", "proxy": "Someone speaking for the patient", "team": "The treating team"}
 ws, patient = ui.page_head(
     "Patient",
@@ -33,23 +33,32 @@ def words(level: str) -> str:
 # ------------------------------------------------------------------------------------------
 # Who: entered values or a cohort row (its identifier is never shown or exported)
 # ------------------------------------------------------------------------------------------
-how = st.radio("Patient", [ENTER, PICK], horizontal=True, key=ui.seed("patient_how", ENTER))
-values, row = {}, None
+choice = ui.patient(ws)
+how = st.radio("Patient", [ENTER, PICK], horizontal=True,
+               key=ui.pkey("patient_how", PICK if choice.how == "row" else ENTER))
+position = choice.row
+entered = dict(choice.values)
 if how == PICK:
-    position = st.number_input(f"Cohort row (1 to {ws.cohort.n:,}; no identifiers are shown)", min_value=1,
-                               max_value=ws.cohort.n, step=1, key=ui.seed("patient_row", 1))
-    row = int(position) - 1
+    position = int(st.number_input(f"Cohort row (1 to {ws.cohort.n:,}; no identifiers are shown)", min_value=1,
+                                   max_value=ws.cohort.n, step=1,
+                                   key=ui.pkey("patient_row", int(choice.row or 0) + 1))) - 1
 else:
-    fields = aps.patient_fields(ws.spec, ws.index_values(), ws.cohort.frame)
+    fields = ui.patient_fields(ws)
     cols = st.columns(min(len(fields), 4) or 1)
     for i, f in enumerate(fields):
         with cols[i % len(cols)]:
             if f["numeric"]:
                 step = 1.0 if f["discrete"] else max((f["max"] - f["min"]) / 100, 0.01)
-                values[f["key"]] = st.number_input(f["label"], step=step, key=ui.seed(f"pv:{f['key']}", f["default"]),
-                                                   help=f"Cohort range {f['min']:.3g} to {f['max']:.3g}")
+                entered[f["key"]] = st.number_input(f["label"], step=step,
+                                                    key=ui.pkey(f"pv:{f['key']}", float(choice.values[f["key"]])),
+                                                    help=f"Cohort range {f['min']:.3g} to {f['max']:.3g}")
             else:
-                values[f["key"]] = st.selectbox(f["label"], f["options"], key=ui.seed(f"pv:{f['key']}", f["default"]))
+                entered[f["key"]] = st.selectbox(f["label"], f["options"],
+                                                 key=ui.pkey(f"pv:{f['key']}", choice.values[f["key"]]))
+new_choice = dataclasses.replace(choice, how="row" if how == PICK else "entered", values=entered, row=position)
+if new_choice != choice:
+    ui.set_patient(new_choice)
+    st.rerun()  # so the sidebar, drawn before this page, shows the patient just entered
 
 names = [ix.name for ix in ws.spec.indices]
 titles = {ix.name: ix.title for ix in ws.spec.indices}
@@ -114,7 +123,7 @@ def conversation(levels: list[str], current) -> None:
         changed = ui.update_spec(lambda s: aps.edit_spec(s, {"values": {
             "weights": record.weights, "whose": record.whose, "preset": None, "acceptable": list(acceptable)}}))
         if changed or ws.spec.values.weights == record.weights:
-            st.session_state[ui.key(RECORD)] = record
+            ui.set_patient(dataclasses.replace(ui.patient(ui.workspace()), record=record))
             for lv in levels:
                 st.session_state.pop(ui.key(f"pw:{lv}"), None)
             st.rerun()
@@ -137,18 +146,17 @@ record = None
 if ws.spec.values is not None and conv is not None:
     levels = list(ws.spec.outcome(ws.spec.values.outcome).levels)
     st.header("What matters to the patient")
-    kept = st.session_state.get(ui.key(RECORD))
+    kept = choice.record
     with st.expander("A short values conversation: the answers become the weights below", expanded=kept is None):
         conversation(levels, kept)
     st.subheader("Weights in use (death 0, best state 1; you can still change them)")
     weights_in_use(levels)
     ws = ui.workspace()
-    record = conv.current_record(st.session_state.get(ui.key(RECORD)), ws.spec.values)
+    record = ui.current_record(ws, ui.patient(ws))
     for line in record.sentences():
         ui.sentence(line)
 
-weights = record.weights if record else (ws.spec.values.weights if ws.spec.values else None)
-view = ui.attempt(patient.place_patient, fs, values, row=row, weights=weights, index=index, record=record)
+view = ui.patient_view(ws, fs, index=index)
 if view is None:
     st.stop()
 

@@ -196,3 +196,20 @@ def test_a_preset_sets_the_weights_and_moving_one_makes_them_custom() -> None:
     assert not at.exception and not at.error, [e.value for e in at.error]
     v = workspace(at).spec.values
     assert v.preset is None and v.weights["care_home"] == 0.5
+
+
+def test_a_new_file_with_other_columns_starts_from_a_fresh_spec_while_the_demo_is_open() -> None:
+    other, _ = demo.generate(n=300, seed=5)
+    other = other.drop(columns=["age", "allocation", "lactate", "albumin"]).rename(columns={"cfs": "frailty"})
+    at = start()
+    at.file_uploader[0].set_value(("ward.csv", demo.to_csv_bytes(other), "text/csv")).run()
+    assert not at.error, [e.value for e in at.error]
+    cov = next(m for m in at.multiselect if m.label.startswith("Baseline covariates"))
+    assert "age" not in cov.options and set(cov.value) <= set(other.columns)
+    button(at, "Check and use").click().run()
+    assert not at.exception and not at.error, [e.value for e in at.error]
+    spec = workspace(at).spec
+    assert workspace(at).filename == "ward.csv" and "age" not in spec.cohort.covariates
+    assert spec.cohort.allocation is None and workspace(at).cohort.randomised is None
+    assert spec.values is None and {o.kind for o in spec.outcomes} >= {"survival", "ordinal"}
+    assert [i.column for i in spec.indices][:1] == ["frailty"]

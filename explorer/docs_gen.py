@@ -86,6 +86,8 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("clustering.warnings", "Sentences: the checks ignore the clusters; fewer than 20 clusters make clustered "
                                 "intervals too narrow."),
         ("imputation", "Multiple-imputation rows (see Imputation rows). Empty when [analysis] imputations = 0."),
+        ("population", "The headline population: population (all, randomised, all_adjusted, all_weighted), words, "
+                       "chosen_by (spec or default), reason, adjust (covariates added for all_adjusted)."),
         ("warnings", "Sentences about the cohort and the indices (missing values, rows left out, index notes)."),
         ("cautions", "The cautions, shown with every estimate: a research and discussion aid, not a medical "
                      "device."),
@@ -94,6 +96,10 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("results[].outcome", "The outcome's name in the spec."),
         ("results[].label", "The outcome's readable label (the spec's label, else its name)."),
         ("results[].index", "The index's name in the spec."),
+        ("results[].population", "The patients the row rests on: all, randomised, all_adjusted or all_weighted "
+                                 "(analysis.population; see the top-level population)."),
+        ("results[].randomised_break_even", "Only where the headline is not randomised-only and chosen patients "
+                                            "differ for this outcome: the randomised-only break-even points."),
         ("results[].measure", "The measure compared, in words (e.g. probability alive at 365 days)."),
         ("results[].kind", "The outcome kind: survival, ordinal, binary or continuous (for composites: ordinal, "
                            "survival_function or quality_adjusted)."),

@@ -91,9 +91,24 @@ def cmd_analyse(args: argparse.Namespace) -> int:
         write_report(result, args.html)
     if not args.quiet:
         print(summary_table(result.document))
-        for w in result.document["warnings"]:
-            print(f"warning: {printable(w)}")
+        for line in warning_lines(result.document):
+            print(line)
     return 0
+
+
+def warning_lines(doc: dict) -> list[str]:
+    """The population the headline rests on, then every warning: the document's, each row's and each check's."""
+    pop = doc.get("population")
+    out = [] if not pop else [f"population: the headline rows rest on {pop['words']} ({pop['reason']})."]
+    seen = set(doc["warnings"])
+    out += [f"warning: {printable(w)}" for w in doc["warnings"]]
+    for group, tag in ((doc["results"] + doc.get("composite", []), "warning"), (doc.get("checks", []), "check")):
+        for row in group:
+            for w in row.get("warnings", []):
+                if w not in seen:
+                    seen.add(w)
+                    out.append(f"{tag}: {printable(w)}")
+    return out
 
 
 def cmd_validate(args: argparse.Namespace) -> int:

@@ -86,8 +86,12 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("clustering.warnings", "Sentences: the checks ignore the clusters; fewer than 20 clusters make clustered "
                                 "intervals too narrow."),
         ("imputation", "Multiple-imputation rows (see Imputation rows). Empty when [analysis] imputations = 0."),
-        ("population", "The headline population: population (all, randomised, all_adjusted, all_weighted), words, "
-                       "chosen_by (spec or default), reason, adjust (covariates added for all_adjusted)."),
+        ("population", "The patients the headline rows rest on (see docs/methods.md, section 6)."),
+        ("population.population", "all, randomised, all_adjusted or all_weighted."),
+        ("population.words", "The same in words."),
+        ("population.chosen_by", "spec (analysis.population) or default (chosen from the data)."),
+        ("population.reason", "Why this population carries the headline."),
+        ("population.adjust", "all_adjusted: the covariates added to each outcome model."),
         ("warnings", "Sentences about the cohort and the indices (missing values, rows left out, index notes)."),
         ("cautions", "The cautions, shown with every estimate: a research and discussion aid, not a medical "
                      "device."),
@@ -492,7 +496,8 @@ RESULT_FIELDS: dict[str, str] = {path: text for _, _, rows in RESULT_SECTIONS fo
 BREAK_EVEN_LISTS = ("composite[].break_even[]", "selection[].randomised_break_even[]",
                     "selection[].all_break_even[]", "selection[].adjusted_break_even[]",
                     "checks[].horizon_curve[].break_evens[]", "imputation[].complete_case.break_even[]",
-                    "imputation[].imputed.break_even[]")
+                    "imputation[].imputed.break_even[]", "results[].randomised_break_even[]",
+                    "composite[].randomised_break_even[]")
 ALIASES: dict[str, str] = {**{p: "results[].break_even[]" for p in BREAK_EVEN_LISTS},
                            "imputation[].imputed.curve[]": "results[].curve[]",
                            "maps[].index_info[]": "results[].index_info"}

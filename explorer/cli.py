@@ -1,4 +1,4 @@
-"""fulcrum analyse | validate | demo | app | check-methods: a thin shell over the engine."""
+"""fulcrum analyse | validate | demo | app | check-methods | patient: a thin shell over the engine."""
 from __future__ import annotations
 
 import argparse
@@ -111,6 +111,37 @@ def warning_lines(doc: dict) -> list[str]:
     return out
 
 
+def cmd_patient(args: argparse.Namespace) -> int:
+    from .analysis import fit_all
+    from .patient import patient_document, patient_lines, place_patient
+    from .spec import load_spec
+
+    spec = load_spec(args.spec)
+    values = {}
+    for item in args.at or []:
+        name, sep, text = item.partition("=")
+        try:
+            values[name.strip()] = float(text)
+        except ValueError:
+            raise FulcrumError(f"--at {item!r} should be NAME=NUMBER.", hint="For example --at cfs=6 --at age=82.")
+        if not sep or not name.strip():
+            raise FulcrumError(f"--at {item!r} should be NAME=NUMBER.", hint="For example --at cfs=6 --at age=82.")
+    fs = fit_all(spec)
+    doc = patient_document(fs, place_patient(fs, values), CAUTIONS)
+    if args.json:
+        write_json(doc, args.json)
+    for line in patient_lines(doc):
+        print(printable(line))
+    return 0
+
+
+def write_json(doc: dict, path: str) -> None:
+    """Write a JSON document (one place, so the safe writer can replace it)."""
+    from . import results as res
+
+    res.write(doc, path)
+
+
 def cmd_validate(args: argparse.Namespace) -> int:
     from .cohort import load_cohort
     from .indices import compute_index, needed_columns
@@ -191,6 +222,13 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--scheduler", metavar="tcp://HOST:PORT", help="send bootstrap replicates to a Dask cluster")
     a.add_argument("--quiet", action="store_true", help="print nothing but errors")
     a.set_defaults(func=cmd_analyse)
+
+    pt = sub.add_parser("patient", help="one patient's predictions, verdicts and cautions from the command line")
+    pt.add_argument("spec")
+    pt.add_argument("--at", action="append", metavar="NAME=VALUE",
+                    help="an index value or a covariate an index uses, e.g. --at cfs=6 (repeat for more)")
+    pt.add_argument("--json", metavar="OUT", help="write the patient document here")
+    pt.set_defaults(func=cmd_patient)
 
     v = sub.add_parser("validate", help="check a spec and its cohort, print the report")
     v.add_argument("spec")

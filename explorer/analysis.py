@@ -601,7 +601,8 @@ def _analyse(spec: Spec, fs: FitSet, spec_bytes: bytes | None, progress: Progres
     if reps is not None and any(ix.prognostic for ix in spec.indices):
         warnings.append("The bootstrap held each cross-fitted prognostic index fixed at its out-of-fold values; "
                         "its intervals do not include the uncertainty of fitting the index.")
-    extra: dict[str, Any] = {"population": hl.population_json(fs), "pairwise": pairwise, "checks": ck.checks_rows(fs) if spec.analysis.checks else [],
+    extra: dict[str, Any] = {"population": hl.population_json(fs), "pairwise": pairwise,
+                             "checks": ck.checks_rows(fs) if spec.analysis.checks else [],
                              "baseline": ck.baseline_table(fs.cohort) if spec.cohort.covariates else []}
     clusters = ck.clustering(fs)
     if clusters:

@@ -60,13 +60,13 @@ def annotate(fs: an.FitSet, rows: list[dict], selection: list[dict]) -> None:
             if pop == "randomised":
                 row["warnings"].append(
                     f"Chosen patients differ from randomised ones for this outcome ({'; '.join(why)}). The headline "
-                    f"rests on randomised patients only; all patients pooled would give {_words(sel[0]['all_break_even'])}"
-                    ", which chosen patients' differences may bias.")
+                    "rests on randomised patients only; all patients pooled would give "
+                    f"{_words(sel[0]['all_break_even'])}, which chosen patients' differences may bias.")
             else:
                 row["randomised_break_even"] = sel[0]["randomised_break_even"]
                 row["warnings"].append(
-                    f"Chosen patients differ from randomised ones for this outcome ({'; '.join(why)}), and this headline "
-                    f"rests on {_population_words(fs)}. Randomised patients only give "
+                    f"Chosen patients differ from randomised ones for this outcome ({'; '.join(why)}), and this "
+                    f"headline rests on {_population_words(fs)}. Randomised patients only give "
                     f"{_words(sel[0]['randomised_break_even'])}; read the two together.")
         far = fs.indices[row["index"]].info.get("far_out_rows")
         if far:

@@ -77,10 +77,10 @@ def resolve(spec: Spec, cohort: Cohort) -> Population:
         arm = cohort.frame[spec.cohort.arm].to_numpy()
         counts = {a: int((rand & (arm == a)).sum()) for a in spec.cohort.arms}
         if min(counts.values()) >= MIN_RANDOMISED:
+            each = ", ".join(f"{n} {a}" for a, n in counts.items())
             return Population("randomised", "default", "the cohort holds chosen patients and each arm has at least "
-                              f"{MIN_RANDOMISED} randomised patients ({', '.join(f'{n} {a}' for a, n in counts.items())})"
-                              "; randomisation balances unmeasured prognosis, which adjustment and weighting cannot",
-                              keep=rand)
+                              f"{MIN_RANDOMISED} randomised patients ({each}); randomisation balances unmeasured "
+                              "prognosis, which adjustment and weighting cannot", keep=rand)
         few = (f"too few randomised patients for the headline ({', '.join(f'{n} {a}' for a, n in counts.items())}; "
                f"at least {MIN_RANDOMISED} per arm are needed)")
         if covs and spec.analysis.interval == "analytic":

@@ -46,7 +46,8 @@ def _spec(write_case, frame, favourable=None):
     return write_case(frame, text, name="strep.csv")
 
 
-@pytest.mark.filterwarnings("ignore::statsmodels.tools.sm_exceptions.ConvergenceWarning")  # gtol 1e-10 is stricter than it can report
+# statsmodels reports non-convergence at gtol 1e-10, stricter than BFGS reaches; the estimates agree to 2e-4
+@pytest.mark.filterwarnings("ignore::statsmodels.tools.sm_exceptions.ConvergenceWarning")
 def test_four_deaths_in_one_arm_still_fit_and_match_statsmodels(strep, write_case):
     from statsmodels.miscmodels.ordinal_model import OrderedModel
 

@@ -4,6 +4,9 @@ from __future__ import annotations
 
 import dataclasses
 import json
+from importlib import resources
+
+import jsonschema
 
 import numpy as np
 import pytest
@@ -30,6 +33,8 @@ def test_patient_command_prints_and_writes_the_app_numbers(demo_small, tmp_path,
     out = tmp_path / "patient.json"
     assert cli.main(["patient", "ignored.toml", "--at", "cfs=6", "--at", "age=82", "--json", str(out)]) == 0
     doc = json.loads(out.read_text())
+    schema = json.loads(resources.files("explorer.schema").joinpath("patient.schema.json").read_text())
+    jsonschema.validate(doc, schema)
     # the engine function the patient page calls, on the same fits
     view = place_patient(an.fit_all(demo_small), {"cfs": 6, "age": 82})
     assert doc["cautions"] == list(CAUTIONS)

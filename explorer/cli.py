@@ -113,6 +113,7 @@ def warning_lines(doc: dict) -> list[str]:
 
 def cmd_patient(args: argparse.Namespace) -> int:
     from .analysis import fit_all
+    from .numeric import captured
     from .patient import patient_document, patient_lines, place_patient
     from .spec import load_spec
 
@@ -127,7 +128,10 @@ def cmd_patient(args: argparse.Namespace) -> int:
         if not sep or not name.strip():
             raise FulcrumError(f"--at {item!r} should be NAME=NUMBER.", hint="For example --at cfs=6 --at age=82.")
     fs = fit_all(spec)
-    doc = patient_document(fs, place_patient(fs, values), CAUTIONS)
+    numeric: list[str] = []
+    with captured(numeric, "placing the patient"):
+        view = place_patient(fs, values)
+    doc = patient_document(fs, view, CAUTIONS, numeric)
     if args.json:
         write_json(doc, args.json)
     for line in patient_lines(doc):

@@ -709,13 +709,14 @@ def _death_sources(fs: FitSet, preds: list[Prediction]) -> list[str]:
     return out
 
 
-def patient_document(fs: FitSet, view: PatientView, cautions: Sequence[str]) -> dict:
+def patient_document(fs: FitSet, view: PatientView, cautions: Sequence[str], notes: Sequence[str] = ()) -> dict:
     """What `fulcrum patient --json` writes: the cautions, the population and model behind each number, and
     the patient's predictions, verdicts and judgements (the same numbers as the app's patient view)."""
     doc = view.to_json()
     pop = fs.population
     doc["cautions"] = list(cautions)
     doc["population"] = None if pop is None else pop.to_json()
+    doc["warnings"] = list(dict.fromkeys([*fs.notes, *notes]))
     for p in doc["predictions"]:
         pf = fs.pair(p["outcome"], p["index"])
         p["population"] = pf.population
@@ -744,6 +745,7 @@ def patient_lines(doc: dict) -> list[str]:
                    f"{p['population']} patients")
         out.extend(f"  model, {arm}: {m}" for arm, m in p["models"].items())
     out.extend(f"note: {n}" for n in doc["limits"])
+    out.extend(f"warning: {w}" for w in doc.get("warnings", []))
     out.append("Caution: " + " ".join(doc["cautions"]))
     return out
 

@@ -98,7 +98,12 @@ def resolve(spec: Spec, cohort: Cohort) -> Population:
         if rand is None:
             raise FulcrumError("analysis.population = \"randomised\" needs the allocation column.",
                                key="analysis.population", hint="Set cohort.allocation, or population = \"all\".")
-        return Population("randomised", chosen_by, why, keep=rand)
+        arms = cohort.frame[spec.cohort.arm].to_numpy()
+        thin = {a: int((rand & (arms == a)).sum()) for a in spec.cohort.arms}
+        each = ", ".join(f"{n} {a}" for a, n in thin.items())
+        note = [f"The headline rests on few randomised patients ({each}; fewer than {MIN_RANDOMISED} in an arm): "
+                "expect wide intervals."] if min(thin.values()) < MIN_RANDOMISED else []
+        return Population("randomised", chosen_by, why, keep=rand, warnings=note)
     frame = cohort.frame
     if asked == "all_adjusted":
         used = _index_columns(spec)

@@ -110,6 +110,7 @@ def test_population_randomised_fits_only_randomised_patients_and_names_them(smal
     expected = small_text[small_text["allocation"] == "randomised"].groupby("arm").size().to_dict()
     assert row["n"] == {a: expected[a] for a in spec.cohort.arms}
     assert res.document["population"]["population"] == "randomised"
+    assert any("few randomised patients" in w for w in res.document["warnings"])  # under 50 in an arm
     # the same break-even as the selection analysis's randomised-only fit of the same patients
     sel = next(r for r in res.document["selection"] if r["outcome"] == "alive")
     assert [b["x"] for b in row["break_even"]] == [b["x"] for b in sel["randomised_break_even"]]
@@ -159,3 +160,66 @@ def test_a_pooled_headline_carries_the_randomised_break_even_where_chosen_patien
     assert sel["varies_with_index_p"] < 0.05 or sel["p_value"] < 0.05
     assert row["randomised_break_even"] == sel["randomised_break_even"]
     assert any("Chosen patients differ" in w and "Randomised patients only give" in w for w in row["warnings"])
+
+
+BINARY = """\
+[cohort]
+path = "cohort.csv"
+arm = "arm"
+arms = ["laparotomy", "non-operative"]
+allocation = "allocation"
+
+[[outcomes]]
+name = "died"
+kind = "binary"
+column = "died"
+
+[[indices]]
+name = "cfs"
+column = "cfs"
+
+[selection]
+covariates = ["age", "albumin"]
+
+[analysis]
+population = "{population}"
+"""
+
+
+def _numbers(small_text):
+    return small_text.assign(**{c: small_text[c].astype(float) for c in ("cfs", "age", "albumin", "died")})
+
+
+def test_all_weighted_fits_match_statsmodels_weighted_glm_with_sandwich(small_text, write_case):
+    import statsmodels.api as sm
+
+    from explorer.selection import propensity_weights
+
+    spec = write_case(small_text, BINARY.format(population="all_weighted"))
+    fs = an.fit_all(spec)
+    pf = fs.pair("died", "cfs")
+    assert pf.population == "all_weighted"
+    d = _numbers(small_text)
+    wt = propensity_weights(d[["age", "albumin"]], ("age", "albumin"), (d["arm"] == "laparotomy").to_numpy())
+    for arm in spec.cohort.arms:
+        m = (d["arm"] == arm).to_numpy()
+        # Reference: statsmodels GLM Binomial with the same stabilised weights as var_weights, HC0 sandwich
+        ref = sm.GLM(d.loc[m, "died"], sm.add_constant(d.loc[m, "cfs"]), family=sm.families.Binomial(),
+                     var_weights=wt.weights[m]).fit(cov_type="HC0", tol=1e-12)
+        assert pf.fits[arm].params_ == pytest.approx(ref.params.to_numpy(), abs=1e-5, rel=1e-5)
+        assert np.sqrt(np.diag(pf.fits[arm].cov_)) == pytest.approx(ref.bse.to_numpy(), rel=1e-4)
+
+
+def test_all_adjusted_fits_match_statsmodels_logit_with_the_covariates(small_text, write_case):
+    import statsmodels.api as sm
+
+    spec = write_case(small_text, BINARY.format(population="all_adjusted"))
+    fs = an.fit_all(spec)
+    pf = fs.pair("died", "cfs")
+    assert pf.population == "all_adjusted" and pf.outcome.adjust == ("age", "albumin")
+    d = _numbers(small_text)
+    for arm in spec.cohort.arms:
+        m = (d["arm"] == arm).to_numpy()
+        # Reference: statsmodels Logit of died on cfs, age and albumin in the arm
+        ref = sm.Logit(d.loc[m, "died"], sm.add_constant(d.loc[m, ["cfs", "age", "albumin"]])).fit(disp=0, tol=1e-12)
+        assert pf.fits[arm].params_ == pytest.approx(ref.params.to_numpy(), abs=1e-5, rel=1e-5)

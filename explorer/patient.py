@@ -644,6 +644,10 @@ def place_patient(fs: FitSet, values: Mapping[str, float] | None = None, *, row:
         if not math.isfinite(value):
             limits.append(f"{ix.title} could not be placed: its value is missing.")
             continue
+        if ix.bounds is not None and not ix.bounds[0] <= value <= ix.bounds[1]:
+            raise FulcrumError(f"the patient's {ix.title} is {fmt(value)}, outside the index's bounds {fmt(ix.bounds[0])} "
+                               f"to {fmt(ix.bounds[1])}.", key=f"indices '{ix.name}'.bounds",
+                               hint="Check the value entered for this patient.")
         pl = _placement(fs, ix.name, value, source)
         if pl.discrete and pl.value != value:
             limits.append(f"{pl.label} takes whole levels; {fmt(value)} was taken as level {int(pl.value)}.")

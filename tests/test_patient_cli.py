@@ -51,6 +51,13 @@ def test_patient_command_prints_and_writes_the_app_numbers(demo_small, tmp_path,
     assert "Caution:" in printed and "rests on" in printed and "model, " in printed
 
 
+def test_a_patient_value_outside_the_index_bounds_is_refused(demo_small, capsys, monkeypatch):
+    monkeypatch.setattr("explorer.spec.load_spec", lambda path: demo_small)
+    assert cli.main(["patient", "ignored.toml", "--at", "cfs=99"]) == 2
+    err = capsys.readouterr().err
+    assert "outside the index's bounds 1 to 9" in err and "bounds" in err
+
+
 def test_two_death_figures_are_explained_and_disagreeing_indices_are_shown(demo_small):
     view = place_patient(an.fit_all(demo_small), {"cfs": 6, "age": 82})
     deaths = [s for s in view.limits if s.startswith("Deaths by")]

@@ -79,6 +79,7 @@ def test_without_bounds_a_far_out_value_is_named_with_the_break_even_without_it(
     assert not [w for w in caught if issubclass(w.category, RuntimeWarning)]
     assert "RuntimeWarning" not in capfd.readouterr().err
     doc = res.document
+    assert any(w.startswith("Numerical warning") and "overflow" in w for w in doc["warnings"])  # caught, reported
     assert any("row 5" in w and "far outside the bulk" in w and "Tukey" in w for w in doc["warnings"])
     row = doc["results"][0]
     said = [w for w in row["warnings"] if "without them" in w]

@@ -20,6 +20,8 @@ from .errors import FulcrumError
 from .indices import IndexValues, compute_index, needed_columns
 from .models import fit_model
 from .models.base import Basis, Fitted, OutcomeData
+from .numeric import captured
+from .population import Population, resolve
 from .resampling import ArmArrays, Progress, refit_arms, run_replicates
 from .spec import OutcomeSpec, Spec
 
@@ -39,6 +41,7 @@ class PairFit:
     rows: dict[str, np.ndarray]  # cohort row positions used per arm
     x_range: tuple[float, float]
     warnings: list[str] = field(default_factory=list)
+    population: str = "all"  # the patients the fits rest on (explorer.population)
 
     @property
     def sign(self) -> float:
@@ -52,9 +55,22 @@ class FitSet:
     indices: dict[str, IndexValues]
     pairs: dict[tuple[str, str], PairFit]
     n_fits: int = 0
+    population: Population | None = None
+    notes: list[str] = field(default_factory=list)  # population notes and numerical warnings from fitting
+    _everyone: dict[tuple[str, str], PairFit] = field(default_factory=dict)
 
     def pair(self, outcome: str, index: str) -> PairFit:
         return self.pairs[(outcome, index)]
+
+    def everyone(self, outcome: str, index: str) -> PairFit:
+        """The all-patient fit of one pair (the headline fit itself when the headline rests on all patients)."""
+        pf = self.pairs[(outcome, index)]
+        if self.population is None or self.population.name == "all":
+            return pf
+        if (outcome, index) not in self._everyone:
+            self._everyone[(outcome, index)] = fit_pair(self.spec, self.cohort, self.spec.outcome(outcome),
+                                                        self.indices[index], pf.basis)
+        return self._everyone[(outcome, index)]
 
 
 # ------------------------------------------------------------------------------------------
@@ -114,25 +130,34 @@ def _robust(spec: Spec, outcome: OutcomeSpec) -> bool:
 def fit_pair(spec: Spec, cohort: Cohort, outcome: OutcomeSpec, index: IndexValues, basis: Basis,
              rows: dict[str, np.ndarray] | None = None, weights: dict[str, np.ndarray] | None = None,
              start: dict[str, np.ndarray] | None = None, robust: bool | None = None,
-             checks: bool = True, shared: dict[str, SharedData] | None = None) -> PairFit:
+             checks: bool = True, shared: dict[str, SharedData] | None = None,
+             population: Population | None = None) -> PairFit:
     """Fit one outcome in each arm along one index (complete cases, counted in warnings).
 
     robust=None picks sandwich variances where the spec calls for them (clusters, bounded counts);
     checks=False skips model diagnostics (bootstrap replicates and subset fits do not need them);
-    `shared` (outcome name -> SharedData) lets the pairs of several indices share the outcome's arrays.
+    `shared` (outcome name -> SharedData) lets the pairs of several indices share the outcome's arrays;
+    `population` restricts, weights or adjusts the fits as the headline population says (explorer.population).
     """
     f = cohort.frame
     x = np.asarray(index.values, float)
     arm_col = f[spec.cohort.arm].to_numpy()
     ok = cohort.complete(outcome) & np.isfinite(x)
     warnings: list[str] = []
+    keep = True if population is None or population.keep is None else population.keep
+    if population is not None and population.name != "all":
+        outcome = population.outcome(outcome)
+        ok = ok & cohort.complete(outcome)
     if rows is None:
-        rows = {arm: np.flatnonzero(ok & (arm_col == arm)) for arm in spec.cohort.arms}
-        dropped = {arm: int(((arm_col == arm) & ~ok).sum()) for arm in spec.cohort.arms}
+        rows = {arm: np.flatnonzero(ok & keep & (arm_col == arm)) for arm in spec.cohort.arms}
+        dropped = {arm: int(((arm_col == arm) & keep & ~ok).sum()) for arm in spec.cohort.arms}
         if any(dropped.values()):
             warnings.append(f"{outcome.title} along {index.info.get('label', index.name)}: "
                             + ", ".join(f"{n} {arm} patients" for arm, n in dropped.items() if n)
                             + " left out for missing values (complete cases).")
+    if population is not None and population.weights is not None and weights is None:
+        weights = {arm: population.weights[r] for arm, r in rows.items()}
+        robust = True  # propensity weights: sandwich variances (weights as probability weights)
     known = shared.get(outcome.name) if shared is not None and weights is None else None
     if known is not None and not known.matches(rows):
         known = None
@@ -159,7 +184,8 @@ def fit_pair(spec: Spec, cohort: Cohort, outcome: OutcomeSpec, index: IndexValue
     if shared is not None and weights is None and known is None:
         shared[outcome.name] = SharedData(rows, data, z_ref)
     xs = x[np.concatenate(list(rows.values()))]
-    pf = PairFit(outcome, index.name, basis, fits, data, rows, (float(np.min(xs)), float(np.max(xs))), warnings)
+    pf = PairFit(outcome, index.name, basis, fits, data, rows, (float(np.min(xs)), float(np.max(xs))), warnings,
+                 population="all" if population is None else population.name)
     pf.warnings.extend(sparse_stretches(pf, spec))
     return pf
 
@@ -182,10 +208,21 @@ def sparse_stretches(pf: PairFit, spec: Spec) -> list[str]:
 
 def fit_all(spec: Spec, cohort: Cohort | None = None, *, indices: dict[str, IndexValues] | None = None,
             progress: Progress | None = None) -> FitSet:
+    """Both arms' fits of every outcome along every index, on the headline population (explorer.population)."""
     if cohort is None:
         cohort = load_cohort(spec, extra_columns=needed_columns(spec))
-    if indices is None:
-        indices = compute_indices(spec, cohort)
+    notes: list[str] = []
+    with captured(notes, "fitting the models"):
+        if indices is None:
+            indices = compute_indices(spec, cohort)
+        population = resolve(spec, cohort)
+        pairs = _fit_pairs(spec, cohort, indices, population, progress)
+    return FitSet(spec, cohort, indices, pairs, n_fits=2 * len(pairs), population=population,
+                  notes=population.warnings + notes)
+
+
+def _fit_pairs(spec: Spec, cohort: Cohort, indices: dict[str, IndexValues], population: Population,
+               progress: Progress | None) -> dict[tuple[str, str], PairFit]:
     pairs = {}
     total = len(spec.outcomes) * len(spec.indices)
     k = 0
@@ -194,11 +231,12 @@ def fit_all(spec: Spec, cohort: Cohort | None = None, *, indices: dict[str, Inde
         iv = indices[ix.name]
         basis = Basis.from_index(iv.values, spec.analysis.shape, spec.analysis.knots)
         for outcome in spec.outcomes:
-            pairs[(outcome.name, ix.name)] = fit_pair(spec, cohort, outcome, iv, basis, shared=shared)
+            pairs[(outcome.name, ix.name)] = fit_pair(spec, cohort, outcome, iv, basis, shared=shared,
+                                                      population=population)
             k += 1
             if progress:
                 progress(k, total)
-    return FitSet(spec, cohort, indices, pairs, n_fits=2 * total)
+    return pairs
 
 
 # ------------------------------------------------------------------------------------------
@@ -373,7 +411,8 @@ def boot_payload(fs: FitSet, keep_distribution: tuple[str, ...] = ()) -> BootPay
     extra["arm_data"][pair][arm] each fit's arrays (resampling.ArmArrays), so replicates skip the frame."""
     spec = fs.spec
     arm_col = fs.cohort.frame[spec.cohort.arm].to_numpy()
-    arm_rows = {arm: np.flatnonzero(arm_col == arm) for arm in spec.cohort.arms}
+    keep = True if fs.population is None or fs.population.keep is None else fs.population.keep
+    arm_rows = {arm: np.flatnonzero(keep & (arm_col == arm)) for arm in spec.cohort.arms}
     pairs, arm_data = {}, {}
     for key, pf in fs.pairs.items():
         starts = {arm: f.params_ for arm, f in pf.fits.items()}
@@ -559,8 +598,20 @@ def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | Non
     """Run the analysis the spec describes; `progress(done, total)` reports resampling steps.
 
     `fitset` and `replicates` let a caller (the app) pass fits and bootstrap replicates it already has.
+    Numerical warnings (overflow and the like) become result warnings instead of reaching the terminal.
     """
+    fs = fitset or fit_all(spec, cohort)
+    numeric: list[str] = []
+    with captured(numeric, "summarising the fits"):
+        out = _analyse(spec, fs, spec_bytes, progress, replicates)
+    out.document["warnings"] = list(dict.fromkeys(out.document["warnings"] + numeric))
+    return out
+
+
+def _analyse(spec: Spec, fs: FitSet, spec_bytes: bytes | None, progress: Progress | None,
+             replicates: list[dict] | None) -> Results:
     from . import checks as ck
+    from . import headline as hl
     from . import imputation as im
     from . import maps as mp
     from . import pairwise as pw
@@ -568,7 +619,6 @@ def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | Non
     from . import selection as sel
     from . import values as vl
 
-    fs = fitset or fit_all(spec, cohort)
     reps = replicates
     if reps is None and spec.analysis.interval == "bootstrap":
         keep = (spec.values.outcome,) if spec.values else ()
@@ -585,13 +635,15 @@ def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | Non
         for ix in spec.indices:
             pairwise += pw.pairwise_rows(spec, fs.cohort, ix.name, fs.indices[ix.name].values,
                                          seed=spec.analysis.seed, progress=progress, interval=spec.analysis.interval)
-    warnings = list(fs.cohort.warnings)
+    hl.annotate(fs, rows, selection.rows if selection else [])
+    warnings = list(fs.cohort.warnings) + fs.notes
     for iv in fs.indices.values():
         warnings.extend(iv.warnings)
     if reps is not None and any(ix.prognostic for ix in spec.indices):
         warnings.append("The bootstrap held each cross-fitted prognostic index fixed at its out-of-fold values; "
                         "its intervals do not include the uncertainty of fitting the index.")
-    extra: dict[str, Any] = {"pairwise": pairwise, "checks": ck.checks_rows(fs) if spec.analysis.checks else [],
+    extra: dict[str, Any] = {"population": hl.population_json(fs), "pairwise": pairwise,
+                             "checks": ck.checks_rows(fs) if spec.analysis.checks else [],
                              "baseline": ck.baseline_table(fs.cohort) if spec.cohort.covariates else []}
     clusters = ck.clustering(fs)
     if clusters:

@@ -622,6 +622,7 @@ class Workspace:
         from . import results as res
         from .analysis import summarise
         from .coverage import label_results
+        from .headline import annotate
 
         boot = bootstrap and self.has_bootstrap()
 
@@ -630,8 +631,9 @@ class Workspace:
             if boot:
                 fs = dataclasses.replace(fs, spec=_interval(self.spec, "bootstrap"))
             summaries = summarise(fs, self._reps(boot))
-            return label_results([res.curve_row(fs.pairs[k], s, res.index_info_json(fs.indices[k[1]]))
-                                  for k, s in summaries.items()], fs.spec)
+            rows = [res.curve_row(fs.pairs[k], s, res.index_info_json(fs.indices[k[1]])) for k, s in summaries.items()]
+            annotate(fs, rows, self.selection().rows if self.has_selection(0) else [])  # far-out values, selection
+            return label_results(rows, fs.spec)
 
         return self._cached(("rows", *result_key(self.data_sha256, self.spec, boot)), make)
 

@@ -203,7 +203,18 @@ def observed_vs_fitted(pf: an.PairFit, bands: int = BANDS, level: float = 0.95, 
             obs.append(ob)
             fits.append(f)
         calib.append({"arm": arm, **calibration(o, obs, fits, pf.basis.n_columns + 1)})
+        warnings.extend(misfit_words(o, arm, pf.index, calib[-1], level))
     return rows, calib, warnings
+
+
+def misfit_words(o: OutcomeSpec, arm: str, index: str, calib: dict, level: float) -> list[str]:
+    """A warning when the band chi-square rejects the fitted curve at the analysis level."""
+    p = calib.get("p_value")
+    if p is None or p >= 1.0 - level:
+        return []
+    return [f"{o.title}, {arm}, along {index}: the fitted curve misses the observed band values (band chi-square "
+            f"{calib['chi2']:.3g} on {calib['df']} df, p = {p:.2g}); the model's shape along the index may be wrong "
+            "for this arm. Look at the observed-versus-fitted table, or try shape = \"spline\"."]
 
 
 def calibration(outcome: OutcomeSpec, obs: list[Observed], fitted: list[float | None], n_params: int) -> dict:

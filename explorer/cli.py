@@ -1,4 +1,4 @@
-"""fulcrum analyse | validate | demo | app | check-methods: a thin shell over the engine."""
+"""fulcrum analyse | validate | demo | app | check-methods | patient: a thin shell over the engine."""
 from __future__ import annotations
 
 import argparse
@@ -95,9 +95,59 @@ def cmd_analyse(args: argparse.Namespace) -> int:
         write_report(result, args.html)
     if not args.quiet:
         print(summary_table(result.document))
-        for w in result.document["warnings"]:
-            print(f"warning: {printable(w)}")
+        for line in warning_lines(result.document):
+            print(line)
     return 0
+
+
+def warning_lines(doc: dict) -> list[str]:
+    """The population the headline rests on, then every warning: the document's, each row's and each check's."""
+    pop = doc.get("population")
+    out = [] if not pop else [f"population: the headline rows rest on {pop['words']} ({pop['reason']})."]
+    seen = set(doc["warnings"])
+    out += [f"warning: {printable(w)}" for w in doc["warnings"]]
+    for group, tag in ((doc["results"] + doc.get("composite", []), "warning"), (doc.get("checks", []), "check")):
+        for row in group:
+            for w in row.get("warnings", []):
+                if w not in seen:
+                    seen.add(w)
+                    out.append(f"{tag}: {printable(w)}")
+    return out
+
+
+def cmd_patient(args: argparse.Namespace) -> int:
+    from .analysis import fit_all
+    from .numeric import captured
+    from .patient import patient_document, patient_lines, place_patient
+    from .spec import load_spec
+
+    spec = load_spec(args.spec)
+    values = {}
+    for item in args.at or []:
+        name, sep, text = item.partition("=")
+        try:
+            values[name.strip()] = float(text)
+        except ValueError:
+            raise FulcrumError(f"--at {item!r} should be NAME=NUMBER.", hint="For example --at cfs=6 --at age=82.")
+        if not sep or not name.strip():
+            raise FulcrumError(f"--at {item!r} should be NAME=NUMBER.", hint="For example --at cfs=6 --at age=82.")
+    fs = fit_all(spec)
+    numeric: list[str] = []
+    with captured(numeric, "placing the patient"):
+        view = place_patient(fs, values)
+    doc = patient_document(fs, view, CAUTIONS, numeric)
+    if args.json:
+        write_json(doc, args.json)
+    for line in patient_lines(doc):
+        print(printable(line))
+    return 0
+
+
+def write_json(doc: dict, path: str) -> None:
+    """Write a JSON document (one place, so the safe writer can replace it)."""
+    from . import results as res
+
+    res.write(doc, path)
 
 
 def cmd_validate(args: argparse.Namespace) -> int:
@@ -180,6 +230,13 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--scheduler", metavar="tcp://HOST:PORT", help="send bootstrap replicates to a Dask cluster")
     a.add_argument("--quiet", action="store_true", help="print nothing but errors")
     a.set_defaults(func=cmd_analyse)
+
+    pt = sub.add_parser("patient", help="one patient's predictions, verdicts and cautions from the command line")
+    pt.add_argument("spec")
+    pt.add_argument("--at", action="append", metavar="NAME=VALUE",
+                    help="an index value or a covariate an index uses, e.g. --at cfs=6 (repeat for more)")
+    pt.add_argument("--json", metavar="OUT", help="write the patient document here")
+    pt.set_defaults(func=cmd_patient)
 
     v = sub.add_parser("validate", help="check a spec and its cohort, print the report")
     v.add_argument("spec")

@@ -715,6 +715,8 @@ def _outcome_checks(cohort: Cohort, outcome: OutcomeSpec, index_cols: list[str],
         rows = ok & in_arm[a]
         n, events, word = _events(frame, outcome, rows)
         label = f"outcome '{outcome.name}' in arm '{a}'"
+        if outcome.kind == "ordinal" and _ordinal_checks(cohort, outcome, frame[outcome.column][rows], label, file):
+            continue
         if events < REFUSE_EVENTS:
             raise FulcrumError(f"{label} has only {events} {word} among {n} patients with data; at least "
                                f"{REFUSE_EVENTS} are needed, so this analysis is refused.", file=file,
@@ -726,6 +728,48 @@ def _outcome_checks(cohort: Cohort, outcome: OutcomeSpec, index_cols: list[str],
         elif events < MIN_EVENTS and word != "patients":
             cohort.warnings.append(f"{label} has only {events} {word} (fewer than {MIN_EVENTS}); its curve will "
                                    "be very uncertain.")
+
+
+def _ordinal_checks(cohort: Cohort, outcome: OutcomeSpec, y: pd.Series, label: str, file: str) -> bool:
+    """Ordinal outcomes: the proportional-odds model is fitted whenever its levels support it (at least
+    REFUSE_EVENTS patients outside the most common level); only P(favourable) is refused, when one side of the
+    favourable split is empty, and a thin side is a warning. Every refusal names the key that fixes it."""
+    n = len(y)
+    counts = y.value_counts()
+    key = f"outcomes '{outcome.name}'"
+    if n - (int(counts.max()) if len(counts) else 0) < REFUSE_EVENTS:
+        raise FulcrumError(f"{label}: only {n - (int(counts.max()) if len(counts) else 0)} of {n} patients are "
+                           f"outside the most common level, too few for the proportional-odds model (at least "
+                           f"{REFUSE_EVENTS} are needed).", file=file, column=outcome.column, key=f"{key}.levels",
+                           hint="Combine rare levels in `levels` (and the data), or use a larger cohort.")
+    fav = int(y.isin(outcome.favourable).sum())
+    side = min(fav, n - fav)
+    if side == 0:
+        best = _suggest_split(outcome, y)
+        raise FulcrumError(f"{label}: every patient is on the {'favourable' if fav else 'unfavourable'} side of "
+                           f"the favourable split, so P({' or '.join(outcome.favourable)}) cannot be estimated.",
+                           file=file, column=outcome.column, key=f"{key}.favourable",
+                           hint="Set `favourable` to a split with patients on both sides"
+                                + (f", e.g. favourable = {list(best)}." if best else "."))
+    if side < MIN_EVENTS:
+        cohort.warnings.append(f"{label} has only {side} patients on the {'un' if fav > n - fav else ''}favourable "
+                               f"side of the favourable split; the proportional-odds model uses every level, but "
+                               "P(favourable) there is very uncertain. `favourable` moves the split.")
+    elif n < MIN_PATIENTS:
+        cohort.warnings.append(f"{label} has only {n} patients with data (fewer than {MIN_PATIENTS}); its "
+                               "curve will be very uncertain.")
+    return True
+
+
+def _suggest_split(outcome: OutcomeSpec, y: pd.Series) -> tuple[str, ...]:
+    """The best-first run of levels that leaves the most patients on the smaller side (empty when none does)."""
+    best, most = (), 0
+    for k in range(1, len(outcome.levels)):
+        head = outcome.levels[:k]
+        inside = int(y.isin(head).sum())
+        if min(inside, len(y) - inside) > most:
+            best, most = head, min(inside, len(y) - inside)
+    return best
 
 
 def _events(frame: pd.DataFrame, outcome: OutcomeSpec, rows: np.ndarray) -> tuple[int, int, str]:

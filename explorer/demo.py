@@ -360,6 +360,7 @@ units = "days"
 name = "cfs"
 column = "cfs"
 discrete = true
+bounds = [1, 9]
 label = "Clinical Frailty Scale"
 
 [[indices]]
@@ -367,6 +368,7 @@ name = "age"
 column = "age"
 label = "Age"
 units = "years"
+bounds = [18, 110]
 
 [[indices]]
 name = "physiology"

@@ -87,6 +87,12 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("clustering.warnings", "Sentences: the checks ignore the clusters; fewer than 20 clusters make clustered "
                                 "intervals too narrow."),
         ("imputation", "Multiple-imputation rows (see Imputation rows). Empty when [analysis] imputations = 0."),
+        ("population", "The patients the headline rows rest on (see docs/methods.md, section 6)."),
+        ("population.population", "all, randomised, all_adjusted or all_weighted."),
+        ("population.words", "The same in words."),
+        ("population.chosen_by", "spec (analysis.population) or default (chosen from the data)."),
+        ("population.reason", "Why this population carries the headline."),
+        ("population.adjust", "all_adjusted: the covariates added to each outcome model."),
         ("warnings", "Sentences about the cohort and the indices (missing values, rows left out, index notes)."),
         ("cautions", "The cautions, shown with every estimate: a research and discussion aid, not a medical "
                      "device."),
@@ -95,6 +101,10 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("results[].outcome", "The outcome's name in the spec."),
         ("results[].label", "The outcome's readable label (the spec's label, else its name)."),
         ("results[].index", "The index's name in the spec."),
+        ("results[].population", "The patients the row rests on: all, randomised, all_adjusted or all_weighted "
+                                 "(analysis.population; see the top-level population)."),
+        ("results[].randomised_break_even", "Only where the headline is not randomised-only and chosen patients "
+                                            "differ for this outcome: the randomised-only break-even points."),
         ("results[].measure", "The measure compared, in words (e.g. probability alive at 365 days)."),
         ("results[].kind", "The outcome kind: survival, ordinal, binary or continuous (for composites: ordinal, "
                            "survival_function or quality_adjusted)."),
@@ -495,7 +505,8 @@ RESULT_FIELDS: dict[str, str] = {path: text for _, _, rows in RESULT_SECTIONS fo
 BREAK_EVEN_LISTS = ("composite[].break_even[]", "selection[].randomised_break_even[]",
                     "selection[].all_break_even[]", "selection[].adjusted_break_even[]",
                     "checks[].horizon_curve[].break_evens[]", "imputation[].complete_case.break_even[]",
-                    "imputation[].imputed.break_even[]")
+                    "imputation[].imputed.break_even[]", "results[].randomised_break_even[]",
+                    "composite[].randomised_break_even[]")
 ALIASES: dict[str, str] = {**{p: "results[].break_even[]" for p in BREAK_EVEN_LISTS},
                            "imputation[].imputed.curve[]": "results[].curve[]",
                            "maps[].index_info[]": "results[].index_info"}

@@ -267,7 +267,8 @@ def pooled_pair(fs: an.FitSet, pf: an.PairFit, completed: list[Imputed]) -> dict
     grid = an.grid_for(pf, spec.analysis.grid)
     fits, curves = [], {k: ([], []) for k in ("first", "second", "difference")}
     for c in completed:
-        p = an.fit_pair(spec, c.cohort, pf.outcome, c.indices[pf.index], pf.basis, checks=False)
+        p = an.fit_pair(spec, c.cohort, pf.outcome, c.indices[pf.index], pf.basis, checks=False,
+                        population=fs.population)  # the headline's patients, as the complete-case fit
         fits.append(p)
         m = [p.fits[a].measure(grid) for a in arms]
         v = [p.fits[a].measure_var(grid) for a in arms]

@@ -66,8 +66,9 @@ def _used_rows(fs: an.FitSet, outcome: OutcomeSpec, a: np.ndarray, b: np.ndarray
     spec = fs.spec
     arm_col = fs.cohort.frame[spec.cohort.arm].to_numpy()
     ok = fs.cohort.complete(outcome) & np.isfinite(a) & np.isfinite(b)
-    rows = {arm: np.flatnonzero(ok & (arm_col == arm)) for arm in spec.cohort.arms}
-    dropped = {arm: int(((arm_col == arm) & ~ok).sum()) for arm in spec.cohort.arms}
+    keep = True if fs.population is None or fs.population.keep is None else fs.population.keep  # headline's patients
+    rows = {arm: np.flatnonzero(ok & keep & (arm_col == arm)) for arm in spec.cohort.arms}
+    dropped = {arm: int(((arm_col == arm) & keep & ~ok).sum()) for arm in spec.cohort.arms}
     warnings = []
     if any(dropped.values()):
         warnings.append(f"{outcome.title} over {names[0]} and {names[1]}: "

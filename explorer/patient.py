@@ -647,6 +647,10 @@ def place_patient(fs: FitSet, values: Mapping[str, float] | None = None, *, row:
         if not math.isfinite(value):
             limits.append(f"{ix.title} could not be placed: its value is missing.")
             continue
+        if ix.bounds is not None and not ix.bounds[0] <= value <= ix.bounds[1]:
+            raise FulcrumError(f"the patient's {ix.title} is {fmt(value)}, outside the index's bounds {fmt(ix.bounds[0])} "
+                               f"to {fmt(ix.bounds[1])}.", key=f"indices '{ix.name}'.bounds",
+                               hint="Check the value entered for this patient.")
         pl = _placement(fs, ix.name, value, source)
         if pl.discrete and pl.value != value:
             limits.append(f"{pl.label} takes whole levels; {fmt(value)} was taken as level {int(pl.value)}.")
@@ -661,6 +665,8 @@ def place_patient(fs: FitSet, values: Mapping[str, float] | None = None, *, row:
         preds.extend(predict(fs, o.name, pl) for o in spec.outcomes)
         judgements.extend(judge(fs, pl, weights, record.whose if record else None))
     limits.extend(_adjust_limits(fs))
+    limits.extend(_disagreements(fs, preds, placements))
+    limits.extend(_death_sources(fs, preds))
     source = "a cohort record" if row is not None and not values else \
         "entered values" if row is None else "a cohort record with entered values"
     v = spec.values
@@ -668,6 +674,87 @@ def place_patient(fs: FitSet, values: Mapping[str, float] | None = None, *, row:
     return PatientView(tuple(spec.cohort.arms), spec.analysis.level, spec.analysis.margin, primary, placements,
                        preds, judgements, list(dict.fromkeys(limits)), source, timing_sentence(spec.outcomes), record,
                        combined)
+
+
+def _disagreements(fs: FitSet, preds: list[Prediction], placements: dict[str, Placement]) -> list[str]:
+    """One sentence per outcome whose verdict for this patient differs between indices, showing each."""
+    out = []
+    for o in fs.spec.outcomes:
+        mine = [p for p in preds if p.outcome == o.name]
+        said = {(p.clear, p.favours if p.clear else None) for p in mine}
+        if len(mine) > 1 and len(said) > 1:
+            each = "; ".join(f"along {placements[p.index].label}, "
+                             + (f"{p.favours} clearly ahead" if p.clear else "neither clearly ahead") for p in mine)
+            out.append(f"The indices disagree for this patient on {o.title}: {each}. Each index orders patients "
+                       "differently; read both, and the one nearer the clinical question first.")
+    return out
+
+
+def _death_sources(fs: FitSet, preds: list[Prediction]) -> list[str]:
+    """Deaths by the horizon come from the survival outcome the values name; when the function outcome's last
+    level (death) gives another figure, say where each comes from and why they differ."""
+    v = fs.spec.values
+    if v is None or not v.survival_outcome:
+        return []
+    out = []
+    last = fs.spec.outcome(v.outcome).levels[-1]
+    for ps in (p for p in preds if p.outcome == v.survival_outcome):
+        pf = next((p for p in preds if p.outcome == v.outcome and p.index == ps.index), None)
+        if pf is None:
+            continue
+        pairs = [(arm, 100 - (ps.arms[arm].per_100 or 0), (pf.arms[arm].distribution_per_100 or {}).get(last))
+                 for arm in fs.spec.cohort.arms]
+        if all(b is None or a == b for _, a, b in pairs):
+            continue
+        each = "; ".join(f"{arm}: {a} in 100 from the survival model, {b} in 100 from the {pf.title} model"
+                         for arm, a, b in pairs)
+        out.append(f"Deaths by {horizon_words(ps.horizon, ps.units)} along {ps.index} ({each}). The survival model "
+                   f"({ps.title}) is the source for death: it uses every patient's follow-up, and the composite "
+                   f"takes death from it, with the {pf.title} model describing survivors. The '{last}' level of "
+                   f"{pf.title} comes from a separate proportional-odds model of the state at one time, so the two "
+                   "differ by model error.")
+    return out
+
+
+def patient_document(fs: FitSet, view: PatientView, cautions: Sequence[str], notes: Sequence[str] = ()) -> dict:
+    """What `fulcrum patient --json` writes: the cautions, the population and model behind each number, and
+    the patient's predictions, verdicts and judgements (the same numbers as the app's patient view)."""
+    doc = view.to_json()
+    pop = fs.population
+    doc["cautions"] = list(cautions)
+    doc["population"] = None if pop is None else pop.to_json()
+    doc["warnings"] = list(dict.fromkeys([*fs.notes, *notes]))
+    for p in doc["predictions"]:
+        pf = fs.pair(p["outcome"], p["index"])
+        p["population"] = pf.population
+        p["models"] = {arm: getattr(f, "method_", "") for arm, f in pf.fits.items()}
+    return doc
+
+
+def patient_lines(doc: dict) -> list[str]:
+    """The patient view as printed lines: per index and outcome, each arm's prediction with its interval and
+    per-100 counts by state, the verdict, the population and models, then the limits and the cautions."""
+    out = [f"Patient placed from {doc['source']}; headline population: "
+           f"{(doc.get('population') or {}).get('words', 'all patients')}."]
+    for p in doc["predictions"]:
+        pl = doc["placements"][p["index"]]
+        out.append(f"{p['title']} along {pl['label']} = {fmt(pl['value'])} (cohort percentile {pl['percentile']:.0f}):")
+        for arm, e in p["arms"].items():
+            line = f"  {arm}: {fmt(e['estimate'])} [{fmt(e['lower'])}, {fmt(e['upper'])}]"
+            if e.get("per_100") is not None:
+                line += f"; {e['per_100']} in 100 ({e['per_100_lower']} to {e['per_100_upper']})"
+            if e.get("distribution_per_100"):
+                line += "; per 100: " + ", ".join(f"{k} {v}" for k, v in e["distribution_per_100"].items())
+            out.append(line)
+        lo, hi = p["difference_ci"]
+        verdict = f"{p['favours']} clearly ahead" if p["clear"] else "neither clearly ahead"
+        out.append(f"  difference {fmt(p['difference'])} [{fmt(lo)}, {fmt(hi)}]: {verdict}; rests on "
+                   f"{p['population']} patients")
+        out.extend(f"  model, {arm}: {m}" for arm, m in p["models"].items())
+    out.extend(f"note: {n}" for n in doc["limits"])
+    out.extend(f"warning: {w}" for w in doc.get("warnings", []))
+    out.append("Caution: " + " ".join(doc["cautions"]))
+    return out
 
 
 # ------------------------------------------------------------------------------------------

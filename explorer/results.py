@@ -70,6 +70,7 @@ def curve_row(pair, summary: CurveSummary, index_info: dict, n_points: int | Non
         "outcome": pair.outcome.name,
         "label": pair.outcome.title,
         "index": pair.index,
+        "population": getattr(pair, "population", "all"),
         "measure": measure_words(pair.outcome),
         "kind": pair.outcome.kind,
         "higher_is_better": pair.outcome.higher_is_better,

@@ -539,7 +539,7 @@ def fit_selection(fs: an.FitSet, outcome: str, index: str, cache: dict | None = 
     if fs.cohort.randomised is None:
         raise FulcrumError("the selection analysis needs an allocation column.", key="cohort.allocation",
                            hint='Add allocation = "column" to [cohort].')
-    pf = fs.pair(outcome, index)
+    pf = fs.everyone(outcome, index)
     rand = fs.cohort.randomised.to_numpy(bool)
     r_rows = {arm: rows[rand[rows]] for arm, rows in pf.rows.items()}
     c_rows = {arm: rows[~rand[rows]] for arm, rows in pf.rows.items()}

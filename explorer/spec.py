@@ -5,7 +5,6 @@ suggestions, the TOML writer and the generated spec reference all read the same 
 """
 from __future__ import annotations
 
-import dataclasses
 import difflib
 import hashlib
 import json
@@ -17,7 +16,7 @@ from typing import Any
 
 from . import margins
 from .errors import FulcrumError
-from .toml_write import toml_value as _toml_value
+from .tomlwrite import plain, toml_value as _toml_value
 
 OUTCOME_KINDS = ("continuous", "binary", "ordinal", "survival")
 INTERVALS = ("analytic", "bootstrap")
@@ -28,6 +27,7 @@ SURVIVAL_MEASURES = ("survival", "rmst")
 SURVIVAL_MODELS = ("cox", "weibull")
 FIT_ON = ("second", "all")
 WHOSE = ("patient", "proxy", "team")
+POPULATIONS = ("all", "randomised", "all_adjusted", "all_weighted")
 
 
 @dataclass(frozen=True)
@@ -91,6 +91,7 @@ class IndexSpec:
     label: str | None = None
     units: str | None = None
     discrete: bool | None = None
+    bounds: tuple[float, float] | None = None
 
     @property
     def kind(self) -> str:
@@ -132,6 +133,7 @@ class AnalysisSpec:
     checks: bool = True
     imputations: int = 0
     curved_interval: str = "test-inversion"
+    population: str | None = None  # None: chosen from the data (analysis.headline_population)
 
 
 @dataclass(frozen=True)
@@ -234,6 +236,8 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "label": ("str", "A readable name for charts and sentences."),
         "units": ("str", "Units of the index."),
         "discrete": ("bool", "Whether the index takes whole levels only (default: guessed from the data)."),
+        "bounds": ("list[float]", "[low, high]: the values the index can take (e.g. [1, 9] for a 1-9 scale); a "
+                                  "value outside is refused with its rows."),
     },
     "prognostic": {
         "outcome": ("str", "The outcome the prognostic model predicts."),
@@ -271,6 +275,9 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "checks": ("bool", "Compute the trust checks: observed vs fitted, effect-modification test, horizon curve "
                            "(default true)."),
         "imputations": ("int", "Multiple imputations beside the complete-case analysis (0 = none, else 2-100)."),
+        "population": ("str", "The patients the headline rows rest on: all | randomised | all_adjusted (all, "
+                              "adjusted for the selection covariates) | all_weighted (all, propensity weights). "
+                              "Default: randomised when each arm has enough randomised patients, see docs/methods.md."),
     },
     "selection": {
         "covariates": ("list[str]", "Covariates of the propensity model for chosen patients."),
@@ -481,12 +488,12 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
         knots=a.get("knots", 4), bands=a.get("bands", "pointwise"), workers=a.get("workers", 1),
         scheduler=a.get("scheduler"), refit_index=a.get("refit_index", False), grid=a.get("grid", 200),
         checks=a.get("checks", True), imputations=a.get("imputations", 0),
-        curved_interval=a.get("curved_interval", "test-inversion"))
-    _choice(analysis.curved_interval, CURVED_INTERVALS, "analysis.curved_interval", source)
+        curved_interval=a.get("curved_interval", "test-inversion"), population=a.get("population"),
+    )
+    for key, options in (("interval", INTERVALS), ("shape", SHAPES), ("bands", BANDS), ("population", POPULATIONS),
+                         ("curved_interval", CURVED_INTERVALS)):
+        _choice(getattr(analysis, key), options, f"analysis.{key}", source)
     margins.check(analysis.margin, 1.0, "analysis.margin", "probabilities or composites", source)
-    _choice(analysis.interval, INTERVALS, "analysis.interval", source)
-    _choice(analysis.shape, SHAPES, "analysis.shape", source)
-    _choice(analysis.bands, BANDS, "analysis.bands", source)
     _range_check(analysis.level, 0.5, 0.999, "analysis.level", source)
     _range_check(analysis.knots, 3, 5, "analysis.knots", source)
     _range_check(analysis.replicates, 20, 100_000, "analysis.replicates", source)
@@ -504,6 +511,7 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
                            file=source, key="analysis.scheduler", hint="Give the Dask scheduler's address.")
 
     values = _values(data["values"], by_name, source) if "values" in data else None
+    _population_needs(analysis, cohort, data.get("selection", {}), source)
 
     selection = None
     if "selection" in data:
@@ -659,8 +667,26 @@ def _index(raw: Any, i: int, outcomes: dict[str, OutcomeSpec], source: str | Non
             raise FulcrumError("a prognostic index needs at least one covariate.", file=source,
                                key=f"{where}.prognostic.covariates", hint='For example covariates = ["age", "cfs"].')
         prognostic = PrognosticSpec(outcome=outcome, covariates=covariates, fit_on=fit_on, folds=folds)
+    bounds = r.get("bounds")
+    if bounds is not None and (len(bounds) != 2 or not bounds[0] < bounds[1]):
+        raise FulcrumError(f"'{where}.bounds' should be [low, high] with low below high, found {list(bounds)}.",
+                           file=source, key=f"{where}.bounds", hint="For example bounds = [1, 9] for a 1-9 scale.")
     return IndexSpec(name=name, column=r.get("column"), formula=r.get("formula"), prognostic=prognostic,
-                     label=r.get("label"), units=r.get("units"), discrete=r.get("discrete"))
+                     label=r.get("label"), units=r.get("units"), discrete=r.get("discrete"),
+                     bounds=None if bounds is None else (float(bounds[0]), float(bounds[1])))
+
+
+def _population_needs(a: AnalysisSpec, cohort: CohortSpec, selection: Any, source: str | None) -> None:
+    """A headline population other than all needs the allocation column or the selection covariates."""
+    need = {"randomised": cohort.allocation, "all_adjusted": isinstance(selection, dict) and selection.get(
+        "covariates"), "all_weighted": isinstance(selection, dict) and selection.get("covariates")}
+    if a.population in need and not need[a.population]:
+        what = "cohort.allocation" if a.population == "randomised" else "selection.covariates"
+        raise FulcrumError(f"'analysis.population = \"{a.population}\"' needs {what}.", file=source,
+                           key="analysis.population", hint=f"Set {what}, or population = \"all\".")
+    if a.population == "all_weighted" and a.interval == "bootstrap":
+        raise FulcrumError("'analysis.population = \"all_weighted\"' has analytic (sandwich) intervals only.",
+                           file=source, key="analysis.population", hint='Use interval = "analytic" with it.')
 
 
 def _values(raw: Any, outcomes: dict[str, OutcomeSpec], source: str | None) -> ValuesSpec:
@@ -736,24 +762,7 @@ def default_weights(levels: tuple[str, ...]) -> dict[str, float]:
 def spec_to_dict(spec: Spec, relative_to: Path | None = None) -> dict[str, Any]:
     """The spec as TOML-shaped data, defaults filled in, empty optional keys left out."""
 
-    def clean(obj: Any) -> Any:
-        if dataclasses.is_dataclass(obj):
-            return {f.name: clean(getattr(obj, f.name)) for f in dataclasses.fields(obj)
-                    if getattr(obj, f.name) not in (None, (), {}) and f.name != "source"}
-        if isinstance(obj, Path):
-            if relative_to is not None:
-                try:
-                    return obj.resolve().relative_to(relative_to.resolve()).as_posix()
-                except ValueError:
-                    return obj.resolve().as_posix()
-            return obj.name
-        if isinstance(obj, (list, tuple)):
-            return [clean(v) for v in obj]
-        if isinstance(obj, dict):
-            return {str(k): clean(v) for k, v in obj.items()}
-        return obj
-
-    out = clean(spec)
+    out = plain(spec, relative_to)
     for key in ("outcomes", "indices", "maps"):
         out.setdefault(key, [])
     if not out["maps"]:

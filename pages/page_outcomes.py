@@ -128,8 +128,6 @@ def show_checks(check: dict, row: dict, label: str) -> None:
         if check.get("horizon_curve"):
             piece(lambda: charts.horizon_chart(check, arms, row, index_label=label, units=outcome.units),
                   charts.describe_horizon(check, label, outcome.units))
-    for w in check.get("warnings", []):
-        st.caption("Note: " + aps.md_escape(w))
 
 
 names = [ix.name for ix in ws.spec.indices]
@@ -139,6 +137,8 @@ show_points = st.checkbox("Show each patient beneath the curves" + (" (triangles
                                                                      if ws.cohort.randomised is not None else ""),
                           value=True, key=ui.key("points"))
 st.header(f"Outcomes along {titles[index]}")
+if ws.fitset().population is not None:
+    st.caption(aps.md_escape(f"These curves rest on {ws.fitset().population.words} ({ws.fitset().population.reason})."))
 for row in [r for r in doc["results"] if r["index"] == index]:
     st.subheader(ws.spec.outcome(row["outcome"]).title)
     if charts is None:
@@ -159,7 +159,7 @@ for row in [r for r in doc["results"] if r["index"] == index]:
     if check is not None:
         with st.expander("Can these curves be trusted?"):
             show_checks(check, row, titles[index])
-    for w in row.get("warnings", []):
+    for w in row.get("warnings", []) + (check or {}).get("warnings", []):
         st.caption("Note: " + aps.md_escape(w))
 
 notes = list(ws.cohort.warnings) + [w for iv in ws.index_values().values() for w in iv.warnings]

@@ -424,12 +424,18 @@ def test_fewer_than_five_events_is_refused(write_case, text):
     assert "refused" in str(err) and "Remove this outcome" in err.hint
 
 
-def test_ordinal_events_are_the_smaller_group(write_case, text):
+def test_a_thin_favourable_side_warns_and_an_empty_one_refuses_naming_favourable(write_case, text):
+    # The proportional-odds model uses every level, so three favourable patients are a warning, not a refusal;
+    # only an empty side makes P(favourable) inestimable, and the refusal names the key that fixes it.
     lap = text.index[text["arm"] == "laparotomy"]
     fav = lap[text.loc[lap, "function_6m"].isin(["independent", "home_with_help"])]
     text.loc[fav[3:], "function_6m"] = "care_home"
+    cohort = load_cohort(write_case(text))
+    assert any("outcome 'function' in arm 'laparotomy' has only 3 patients on the favourable side" in w
+               and "`favourable`" in w for w in cohort.warnings)
+    text.loc[fav, "function_6m"] = "care_home"
     err = _raise(write_case(text))
-    assert "outcome 'function' in arm 'laparotomy' has only 3 patients in the smaller of the favourable" in str(err)
+    assert "cannot be estimated" in err.what and err.key.endswith(".favourable") and "`favourable`" in err.hint
 
 
 

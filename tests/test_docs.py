@@ -152,7 +152,7 @@ def test_every_command_shown_parses() -> None:
                 commands.append((name, words[1:]))
     assert len(commands) >= 5
     parser = cli.build_parser()
-    subcommands = {"analyse", "analyze", "validate", "demo", "app", "check-methods"}
+    subcommands = {"analyse", "analyze", "validate", "demo", "app", "check-methods", "patient"}
     for name, args in commands:
         if not args[0].startswith("-"):
             assert args[0] in subcommands, f"{name}: 'fulcrum {args[0]}' is no subcommand"

@@ -110,7 +110,12 @@ def test_formula_index_matches_numpy_and_counts_missing_inputs() -> None:
     expected = frame["lactate"] - frame["age"] / 10 + (frame["cfs"] >= 7)  # pandas is the reference
     np.testing.assert_allclose(iv.values, expected.to_numpy(), rtol=1e-14)
     assert iv.info["columns"] == ["lactate", "age", "cfs"] and iv.info["discrete"] is False
-    assert iv.warnings == ["Index 'phys': 2 of 400 patients have no value (missing: lactate 2)."]
+    assert iv.warnings[0] == "Index 'phys': 2 of 400 patients have no value (missing: lactate 2)."
+    # any other warning names values beyond Tukey's far-out fences (lactate's long right tail)
+    q1, q3 = np.nanpercentile(expected, [25, 75])
+    far = np.flatnonzero((expected < q1 - 3 * (q3 - q1)) | (expected > q3 + 3 * (q3 - q1)))
+    assert iv.info.get("far_out_rows", []) == list(far)
+    assert len(iv.warnings) == 1 + bool(len(far))
 
 
 def test_a_bad_formula_names_its_key() -> None:

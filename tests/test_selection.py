@@ -34,7 +34,7 @@ def _fitset(frame: pd.DataFrame, outcome: dict, *, covariates: tuple[str, ...] =
         "cohort": {"path": "cohort.csv", "arm": "arm", "arms": list(ARMS), "allocation": "allocation"},
         "outcomes": [{"name": "y", **outcome}],
         "indices": [{"name": "x", "column": "x"}],
-        "analysis": {"seed": 3, **analysis},
+        "analysis": {"seed": 3, "population": "all", **analysis},  # the all-patient pairs these tests examine
         "selection": {"covariates": list(covariates)},
     })
     cohort = load_cohort(spec, data=frame.to_csv(index=False).encode(), filename="cohort.csv")

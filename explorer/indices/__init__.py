@@ -22,6 +22,7 @@ from .prognostic import PrognosticModel, cross_fitted_index
 
 PERCENTILES = (5, 25, 50, 75, 95)
 MAX_DISCRETE_LEVELS = 12
+FAR_OUT = 3.0  # Tukey's "far out" fences: beyond the quartiles by 3 interquartile ranges (Tukey 1977, EDA, ch. 2)
 
 __all__ = ["IndexValues", "ColumnIndex", "Formula", "PrognosticModel", "compute_index", "percentile_of",
            "needed_columns", "parse_formula", "formula_columns"]
@@ -95,11 +96,67 @@ def compute_index(spec_index: IndexSpec, frame: pd.DataFrame, *, spec: Spec, see
         info["prognostic"] = model.report
         info["units"] = spec_index.units or _prognostic_units(spec, model)
         missing = ""
+    _check_bounds(spec_index, values, spec, key, model)
+    if spec_index.bounds is None:
+        far = far_out_rows(values)
+        if len(far):
+            info["far_out_rows"] = [int(r) for r in far]
+            warnings.append(f"Index '{spec_index.title}': {_rows_words(far)} far outside the bulk of the cohort "
+                            f"({', '.join(f'{v:.6g}' for v in values[far][:5])}; Tukey's far-out fences, quartiles "
+                            f"+/- {FAR_OUT:g} interquartile ranges: {_fences(values)}). A typing slip there can move "
+                            "the break-even; each result says what it is without them. Declare bounds = [low, high] "
+                            "for this index to refuse impossible values.")
     if missing:
         warnings.insert(0, f"Index '{spec_index.title}': {int(np.isnan(values).sum())} of {len(values)} patients "
                            f"have no value (missing: {missing}).")
     info.update(_describe(spec_index, values, key))
     return IndexValues(spec_index.name, values, info, warnings, model)
+
+
+def far_out_rows(values: np.ndarray) -> np.ndarray:
+    """Row positions whose value lies beyond Tukey's far-out fences (Q1 - 3 IQR, Q3 + 3 IQR); none when the
+    interquartile range is zero (a scale with one dominant value has no bulk to measure distance from)."""
+    v = np.asarray(values, float)
+    finite = v[np.isfinite(v)]
+    if len(finite) < 4:
+        return np.zeros(0, int)
+    q1, q3 = np.percentile(finite, [25, 75])
+    iqr = q3 - q1
+    if iqr <= 0:
+        return np.zeros(0, int)
+    with np.errstate(invalid="ignore"):
+        return np.flatnonzero((v < q1 - FAR_OUT * iqr) | (v > q3 + FAR_OUT * iqr))
+
+
+def _fences(values: np.ndarray) -> str:
+    q1, q3 = np.nanpercentile(values, [25, 75])
+    return f"{q1 - FAR_OUT * (q3 - q1):.4g} to {q3 + FAR_OUT * (q3 - q1):.4g}"
+
+
+def _rows_words(positions: np.ndarray) -> str:
+    from ..errors import format_rows
+
+    n = len(positions)
+    return f"{n} patient{'s' if n != 1 else ''} ({format_rows([int(p) + 1 for p in positions], n)}) lie" + \
+        ("s" if n == 1 else "")
+
+
+def _check_bounds(spec_index: IndexSpec, values: np.ndarray, spec: Spec, key: str, model: Any) -> None:
+    """Refuse index values outside the declared bounds, naming the file, column(s) and rows."""
+    if spec_index.bounds is None:
+        return
+    lo, hi = spec_index.bounds
+    with np.errstate(invalid="ignore"):
+        bad = np.flatnonzero((values < lo) | (values > hi))
+    if len(bad):
+        cols = getattr(model, "columns", ()) or (spec_index.column,)
+        shown = ", ".join(f"{v:.6g}" for v in values[bad][:5])
+        raise FulcrumError(f"index '{spec_index.title}' has {len(bad)} value{'s' if len(bad) != 1 else ''} outside "
+                           f"its bounds {lo:g} to {hi:g} ({shown}).", file=spec.cohort.path.name,
+                           column=", ".join(str(c) for c in cols), rows=[int(r) + 1 for r in bad[:5]],
+                           n_rows=len(bad), key=f"{key}.bounds",
+                           hint="Correct these entries in the cohort file (or mark them missing), or widen the "
+                                "index's bounds if such values are possible.")
 
 
 def percentile_of(index_values: IndexValues | np.ndarray, value: float | np.ndarray) -> float | np.ndarray:

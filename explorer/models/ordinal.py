@@ -118,7 +118,7 @@ class OrdinalFit(ArmFit):
         if len(self.observed_) < 2:
             raise FulcrumError(f"outcome '{outcome}': every patient in arm '{arm}' is in the same level "
                                f"('{levels[self.observed_[0]]}'), so no model can be fitted.",
-                               hint="Check the level coding, or leave this outcome out for this comparison.")
+                               hint="Check the level coding and `levels`, or leave this outcome out for this comparison.")
         missing = [levels[k] for k in range(K) if not present[k]]
         if missing:
             self.warnings_.append(f"No patient in arm '{arm}' is in level(s) {', '.join(missing)}; the model uses "

@@ -12,6 +12,7 @@ import json
 import math
 from importlib import resources
 
+from .indices.prognostic import about_index
 from .spec import AnalysisSpec, OutcomeSpec, Spec
 
 TARGET = (0.935, 0.965)
@@ -52,11 +53,31 @@ def default_interval(kind: str) -> str:
     return "bootstrap" if default_method(kind) == "bootstrap-percentile" else "analytic"
 
 
+FITTED_KINDS = ("survival", "binary")
+
+
+def fitted_scenario(kind: str, refitted: bool = False) -> str:
+    """The name of the simulated scenario of an outcome kind along a fitted (cross-fitted prognostic) index,
+    holding the index fixed or (refitted) refitting it in every bootstrap replicate (explorer.validation_fitted)."""
+    return f"{kind}, fitted index" + (", refitted" if refitted else "")
+
+
 def scenario_for(outcome: OutcomeSpec, analysis: AnalysisSpec, composite_kind: str | None = None,
-                 clustered: bool = False) -> str | None:
+                 clustered: bool = False, fitted_index: bool = False) -> str | None:
     """The simulated scenario that matches this analysis, or None when none does (spline shape, adjustment,
     a margin, another level, RMST or Weibull, a bounded outcome or clusters (robust variances), or a composite
-    other than the ordinal one). For a composite row pass the [values] outcome and the row's kind."""
+    other than the ordinal one). For a composite row pass the [values] outcome and the row's kind.
+    fitted_index: the row's index is a cross-fitted prognostic index (simulated for survival and binary only)."""
+    kind = _scenario_for(outcome, analysis, composite_kind, clustered)
+    if not fitted_index or kind is None:
+        return kind
+    if kind not in FITTED_KINDS:
+        return None
+    return fitted_scenario(kind, analysis.interval == "bootstrap" and analysis.refit_index)
+
+
+def _scenario_for(outcome: OutcomeSpec, analysis: AnalysisSpec, composite_kind: str | None,
+                  clustered: bool) -> str | None:
     if analysis.shape != "linear" or analysis.margin != 0.0 or abs(analysis.level - 0.95) > 1e-12 or outcome.adjust:
         return None
     if clustered or (outcome.kind == "continuous" and outcome.bounds is not None):
@@ -105,8 +126,18 @@ def label_results(rows: list[dict], spec: Spec) -> list[dict]:
             outcome = spec.outcome(row["outcome"])
         except KeyError:
             continue
-        label_row(row, scenario_for(outcome, spec.analysis, clustered=bool(spec.cohort.cluster)))
+        fitted = _fitted(row)
+        label_row(row, scenario_for(outcome, spec.analysis, clustered=bool(spec.cohort.cluster), fitted_index=fitted))
+        if fitted:
+            row["index_info"]["about"] = about_index(row["index_info"].get("label") or row.get("index", ""),
+                                                     row["index_info"]["prognostic"], spec.analysis.interval,
+                                                     spec.analysis.refit_index)
     return rows
+
+
+def _fitted(row: dict) -> bool:
+    info = row.get("index_info")
+    return isinstance(info, dict) and info.get("kind") == "prognostic" and isinstance(info.get("prognostic"), dict)
 
 
 def label_composites(rows: list[dict], spec: Spec) -> list[dict]:
@@ -116,8 +147,13 @@ def label_composites(rows: list[dict], spec: Spec) -> list[dict]:
             outcome = spec.outcome(row.get("values_outcome") or (spec.values.outcome if spec.values else ""))
         except KeyError:
             outcome = None
-        label_row(row, None if outcome is None else scenario_for(outcome, spec.analysis, row.get("kind"),
-                                                                  bool(spec.cohort.cluster)))
+        label_row(row, None if outcome is None or _fitted(row) else scenario_for(outcome, spec.analysis,
+                                                                                  row.get("kind"),
+                                                                                  bool(spec.cohort.cluster)))
+        if _fitted(row):
+            row["index_info"]["about"] = about_index(row["index_info"].get("label") or row.get("index", ""),
+                                                     row["index_info"]["prognostic"], spec.analysis.interval,
+                                                     spec.analysis.refit_index)
     return rows
 
 

@@ -570,9 +570,10 @@ def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | Non
     warnings = list(fs.cohort.warnings)
     for iv in fs.indices.values():
         warnings.extend(iv.warnings)
-    if reps is not None and any(ix.prognostic for ix in spec.indices):
+    if reps is not None and any(ix.prognostic for ix in spec.indices) and not spec.analysis.refit_index:
         warnings.append("The bootstrap held each cross-fitted prognostic index fixed at its out-of-fold values; "
-                        "its intervals do not include the uncertainty of fitting the index.")
+                        "its intervals do not include the uncertainty of fitting the index (refit_index = true "
+                        "refits it in every replicate).")
     extra: dict[str, Any] = {"pairwise": pairwise, "checks": ck.checks_rows(fs) if spec.analysis.checks else [],
                              "baseline": ck.baseline_table(fs.cohort) if spec.cohort.covariates else []}
     clusters = ck.clustering(fs)

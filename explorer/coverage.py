@@ -129,10 +129,27 @@ def label_results(rows: list[dict], spec: Spec) -> list[dict]:
         fitted = _fitted(row)
         label_row(row, scenario_for(outcome, spec.analysis, clustered=bool(spec.cohort.cluster), fitted_index=fitted))
         if fitted:
-            row["index_info"]["about"] = about_index(row["index_info"].get("label") or row.get("index", ""),
-                                                     row["index_info"]["prognostic"], spec.analysis.interval,
-                                                     spec.analysis.refit_index)
+            about = about_index(row["index_info"].get("label") or row.get("index", ""),
+                                row["index_info"]["prognostic"], spec.analysis.interval, spec.analysis.refit_index)
+            row["index_info"]["about"] = " ".join([about, *dict.fromkeys(
+                fitted_reason(b) for b in row.get("break_even", []) if b.get("approximate"))])
     return rows
+
+
+def fitted_reason(b: dict) -> str:
+    """Why an interval along a fitted index is approximate, from its measured coverage and method."""
+    pct = f"{100 * b['coverage']:.1f}%"
+    if b.get("interval") == "bootstrap-percentile":
+        return (f"In simulations of such a score this bootstrap interval covered the true point in {pct} of studies "
+                f"(target 93.5-96.5%), measured with fewer resamples per study than an analysis uses, which narrows "
+                f"percentile intervals a little.")
+    if b["coverage"] > TARGET[1]:
+        return (f"In simulations of such a score this interval covered the true point in {pct} of studies, more "
+                "than the 95% it aims at: it treats the score as known, yet the score and the curve of the arm it was "
+                "fitted on come from the same patients, so on the predicted-risk scale their errors partly cancel "
+                "and the interval is wider than it needs to be.")
+    return (f"In simulations of such a score this interval covered the true point in {pct} of studies, less than "
+            "the 95% it aims at, because it treats the fitted score as known.")
 
 
 def _fitted(row: dict) -> bool:

@@ -199,14 +199,15 @@ def run(studies: int = 1000, boot_studies: int = 500, boot: int = 100, n: int = 
     return rows
 
 
-def run_backwards(studies: int, n: int, seed: int, kinds, records: str) -> None:
-    """Analytic-only studies from the last one down, kinds in turn, logged to `records`: run beside run() with the
-    same seed, the two meet in the middle and every study is one cohort (an interrupted run still covers both)."""
+def run_backwards(studies: int, n: int, seed: int, kinds, records: str, boot: int = 0) -> None:
+    """Studies from the last one down, kinds in turn, logged to `records` (with boot > 0 every study runs the
+    bootstrap): run beside run() with the same seed, the two meet in the middle and every study is one cohort, so
+    an interrupted pair of runs still covers both kinds and rows_from_records counts each study once."""
     seeds = {kind: np.random.SeedSequence(seed + KINDS.index(kind)).spawn(studies) for kind in kinds}
     for i in reversed(range(studies)):
         for kind in kinds:
-            _logged(functools.partial(_task, kind, n, 0, 0), records, {"kind": kind, "n": n, "boot": 0},
-                    np.random.default_rng(seeds[kind][i]))
+            _logged(functools.partial(_task, kind, n, studies if boot else 0, boot), records,
+                    {"kind": kind, "n": n, "boot": boot}, np.random.default_rng(seeds[kind][i]))
 
 
 def _logged(task, path: str, key: dict, rng: np.random.Generator) -> dict:
@@ -259,13 +260,14 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--kinds", nargs="*", default=list(KINDS))
     p.add_argument("--records", help="append every study's record to this JSON-lines file while running")
     p.add_argument("--from-records", nargs="+", help="make the rows from these record files instead of running")
-    p.add_argument("--backwards", action="store_true", help="analytic studies only, last first (see run_backwards)")
+    p.add_argument("--backwards", action="store_true",
+                   help="studies last first (see run_backwards); analytic only when --boot-studies is 0")
     p.add_argument("--rows", required=True, help="write the rows and settings here (JSON), for validation --merge")
     a = p.parse_args(argv)
     settings = {"date": _dt.date.today().isoformat(), "fitted_index": True, "studies": a.studies,
                 "bootstrap_studies": a.boot_studies, "bootstrap_resamples": a.boot, "n": a.n, "seed": a.seed}
     if a.backwards:
-        run_backwards(a.studies, a.n, a.seed, tuple(a.kinds), a.records)
+        run_backwards(a.studies, a.n, a.seed, tuple(a.kinds), a.records, a.boot if a.boot_studies else 0)
         return 0
     if a.from_records:
         rows = rows_from_records(a.from_records, a.boot)

@@ -100,3 +100,22 @@ def reference_replicate(pairs: list[ReferencePair], arm_rows: dict[str, np.ndarr
         every = np.sort(np.concatenate([cluster_rows[k] for k in picked]))
         drawn = {arm: every[np.isin(every, r)] for arm, r in arm_rows.items()}
     return [reference_curves(p, drawn) for p in pairs]
+
+
+def cross_fit_replicate(X: np.ndarray, time: np.ndarray, event: np.ndarray, fit: np.ndarray, folds: int,
+                        seed: int, rng: np.random.Generator) -> np.ndarray:
+    """One replicate of a cross-fitted Cox index written the usual way: draw patients, scikit-learn's KFold over
+    the drawn fitting set, lifelines on the whole set and on each fold's complement; out-of-fold linear
+    predictors of the drawn fitting set."""
+    from sklearn.model_selection import KFold
+
+    drawn = np.sort(rng.choice(len(X), size=len(X), replace=True))
+    rows = drawn[fit[drawn]]
+    cox_fit(time[rows], event[rows], X[rows])
+    unique = np.unique(rows)
+    lp = np.empty(len(rows))
+    for train_u, held_u in KFold(folds, shuffle=True, random_state=seed).split(unique):
+        held = np.isin(rows, unique[held_u])
+        model = cox_fit(time[rows[~held]], event[rows[~held]], X[rows[~held]])
+        lp[held] = X[rows[held]] @ model.params_.to_numpy()
+    return lp

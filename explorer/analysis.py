@@ -423,8 +423,27 @@ def boot_payload(fs: FitSet, keep_distribution: tuple[str, ...] = ()) -> BootPay
         codes, _ = pd.factorize(fs.cohort.frame[spec.cohort.cluster].astype(str))
         order = np.argsort(codes, kind="stable")
         cluster_rows = np.split(order, np.flatnonzero(np.diff(codes[order])) + 1)
+    refit = {}
+    if spec.analysis.refit_index:
+        refit = {name: iv.model.refitter for name, iv in fs.indices.items()
+                 if getattr(iv.model, "refitter", None) is not None}
     return BootPayload(spec, fs.cohort, fs.indices, pairs, arm_rows, keep_distribution, cluster_rows=cluster_rows,
-                       extra={"arm_data": arm_data})
+                       extra={"arm_data": arm_data, "refit": refit})
+
+
+INDEX_KEY = "@index"  # replicate records of a refitted index sit under (INDEX_KEY, index name)
+
+
+def refit_indices(payload: BootPayload, draw: dict[str, np.ndarray]) -> dict[str, tuple[np.ndarray, dict] | None]:
+    """Each refitted prognostic index on one draw (None where its model could not be fitted)."""
+    drawn = np.sort(np.concatenate(list(draw.values())))
+    out: dict[str, tuple[np.ndarray, dict] | None] = {}
+    for name, refitter in payload.extra.get("refit", {}).items():
+        try:
+            out[name] = refitter.values(drawn)
+        except (FulcrumError, np.linalg.LinAlgError, ValueError, FloatingPointError):
+            out[name] = None
+    return out
 
 
 def draw_rows(payload: BootPayload, rng: np.random.Generator) -> dict[str, np.ndarray]:
@@ -439,11 +458,15 @@ def draw_rows(payload: BootPayload, rng: np.random.Generator) -> dict[str, np.nd
 def boot_replicate(payload: BootPayload, rng: np.random.Generator) -> dict[tuple[str, str], dict[str, np.ndarray]]:
     """Resample patients within each arm (or whole clusters), refit every model, return curves on the grid."""
     draw = draw_rows(payload, rng)
-    out = {}
+    refitted = refit_indices(payload, draw)
+    out: dict = {(INDEX_KEY, name): ({"failed": np.array(True)} if r is None else r[1]) for name, r in refitted.items()}
     for (oname, iname), (basis, rows, starts, grid) in payload.pairs.items():
         outcome = payload.spec.outcome(oname)
         try:
-            fits = refit_arms(outcome, basis, payload.extra["arm_data"][(oname, iname)], draw, starts)
+            if iname in refitted and refitted[iname] is None:
+                raise FloatingPointError("the index could not be refitted")
+            x = refitted[iname][0] if iname in refitted else None
+            fits = refit_arms(outcome, basis, payload.extra["arm_data"][(oname, iname)], draw, starts, x)
         except (FulcrumError, np.linalg.LinAlgError, ValueError, FloatingPointError):
             out[(oname, iname)] = {"failed": np.array(True)}
             continue
@@ -639,9 +662,10 @@ def _analyse(spec: Spec, fs: FitSet, spec_bytes: bytes | None, progress: Progres
     warnings = list(fs.cohort.warnings) + fs.notes
     for iv in fs.indices.values():
         warnings.extend(iv.warnings)
-    if reps is not None and any(ix.prognostic for ix in spec.indices):
+    if reps is not None and any(ix.prognostic for ix in spec.indices) and not spec.analysis.refit_index:
         warnings.append("The bootstrap held each cross-fitted prognostic index fixed at its out-of-fold values; "
-                        "its intervals do not include the uncertainty of fitting the index.")
+                        "its intervals do not include the uncertainty of fitting the index (refit_index = true "
+                        "refits it in every replicate).")
     extra: dict[str, Any] = {"population": hl.population_json(fs), "pairwise": pairwise,
                              "checks": ck.checks_rows(fs) if spec.analysis.checks else [],
                              "baseline": ck.baseline_table(fs.cohort) if spec.cohort.covariates else []}

@@ -567,7 +567,8 @@ def describe_row(row: Mapping[str, Any], arms: Sequence[str], index_label: str |
                  + f"; elsewhere its interval includes {none}.")
     else:
         clear = f" Nowhere in the observed range is the difference clear: its interval includes {none} throughout."
-    return head + body + clear
+    about = (row.get("index_info") or {}).get("about")
+    return head + body + clear + (f" {about}" if about else "")
 
 
 def _row_interval(b: Mapping[str, Any]) -> str:

@@ -66,6 +66,8 @@ def summary_table(doc: dict) -> str:
            "  ".join(h.ljust(w) for h, w in zip(head, widths)),
            "  ".join("-" * w for w in widths)]
     out += ["  ".join(str(c).ljust(w) for c, w in zip(r, widths)) for r in lines]
+    abouts = dict.fromkeys((r.get("index_info") or {}).get("about") for r in doc["results"] + doc.get("composite", []))
+    out += ["", *(f"Index: {printable(a)}" for a in abouts if a)]
     out.append("")
     out.append("Caution: " + " ".join(CAUTIONS))
     return "\n".join(out)

@@ -12,6 +12,7 @@ import json
 import math
 from importlib import resources
 
+from .indices.prognostic import about_index
 from .spec import AnalysisSpec, OutcomeSpec, Spec
 
 TARGET = (0.935, 0.965)
@@ -53,15 +54,35 @@ def default_interval(kind: str) -> str:
     return "bootstrap" if default_method(kind) == "bootstrap-percentile" else "analytic"
 
 
+FITTED_KINDS = ("survival", "binary")
+
+
+def fitted_scenario(kind: str, refitted: bool = False) -> str:
+    """The name of the simulated scenario of an outcome kind along a fitted (cross-fitted prognostic) index,
+    holding the index fixed or (refitted) refitting it in every bootstrap replicate (explorer.validation_fitted)."""
+    return f"{kind}, fitted index" + (", refitted" if refitted else "")
+
+
 def scenario_for(outcome: OutcomeSpec, analysis: AnalysisSpec, composite_kind: str | None = None,
-                 clustered: bool = False, margin: float | None = None) -> str | None:
+                 clustered: bool = False, margin: float | None = None, fitted_index: bool = False) -> str | None:
     """The simulated scenario that matches this analysis, or None when none does. margin: the outcome's own
     (Spec.margin_for; default analysis.margin). Simulated beyond the straight-line, zero-margin kinds: a spline
     shape, a non-zero margin (simulated at 0.05 on a probability) and adjustment covariates, for binary outcomes
     and Cox survival probabilities as explorer/validation_curved.py lists them, one departure at a time. Not
     simulated: another level, RMST or Weibull, a bounded outcome or clusters (robust variances), a composite
     other than the ordinal one, or two departures together. For a composite row pass the [values] outcome and
-    the row's kind."""
+    the row's kind. fitted_index: the row's index is a cross-fitted prognostic index (simulated for straight-line,
+    zero-margin survival and binary outcomes only)."""
+    kind = _scenario_for(outcome, analysis, composite_kind, clustered, margin)
+    if not fitted_index or kind is None:
+        return kind
+    if kind not in FITTED_KINDS:
+        return None
+    return fitted_scenario(kind, analysis.interval == "bootstrap" and analysis.refit_index)
+
+
+def _scenario_for(outcome: OutcomeSpec, analysis: AnalysisSpec, composite_kind: str | None, clustered: bool,
+                  margin: float | None) -> str | None:
     margin = analysis.margin if margin is None else margin
     if abs(analysis.level - 0.95) > 1e-12 or clustered or (outcome.kind == "continuous" and outcome.bounds):
         return None
@@ -119,9 +140,36 @@ def label_results(rows: list[dict], spec: Spec) -> list[dict]:
             outcome = spec.outcome(row["outcome"])
         except KeyError:
             continue
+        fitted = _fitted(row)
         label_row(row, scenario_for(outcome, spec.analysis, clustered=bool(spec.cohort.cluster),
-                                    margin=spec.margin_for(outcome)))
+                                    margin=spec.margin_for(outcome), fitted_index=fitted))
+        if fitted:
+            about = about_index(row["index_info"].get("label") or row.get("index", ""),
+                                row["index_info"]["prognostic"], spec.analysis.interval, spec.analysis.refit_index)
+            row["index_info"]["about"] = " ".join([about, *dict.fromkeys(
+                fitted_reason(b) for b in row.get("break_even", []) if b.get("approximate"))])
     return rows
+
+
+def fitted_reason(b: dict) -> str:
+    """Why an interval along a fitted index is approximate, from its measured coverage and method."""
+    pct = f"{100 * b['coverage']:.1f}%"
+    if b.get("interval") == "bootstrap-percentile":
+        return (f"In simulations of such a score this bootstrap interval covered the true point in {pct} of studies "
+                f"(target 93.5-96.5%), measured with fewer resamples per study than an analysis uses, which narrows "
+                f"percentile intervals a little.")
+    if b["coverage"] > TARGET[1]:
+        return (f"In simulations of such a score this interval covered the true point in {pct} of studies, more "
+                "than the 95% it aims at: it treats the score as known, yet the score and the curve of the arm it was "
+                "fitted on come from the same patients, so on the predicted-risk scale their errors partly cancel "
+                "and the interval is wider than it needs to be.")
+    return (f"In simulations of such a score this interval covered the true point in {pct} of studies, less than "
+            "the 95% it aims at, because it treats the fitted score as known.")
+
+
+def _fitted(row: dict) -> bool:
+    info = row.get("index_info")
+    return isinstance(info, dict) and info.get("kind") == "prognostic" and isinstance(info.get("prognostic"), dict)
 
 
 def label_composites(rows: list[dict], spec: Spec) -> list[dict]:
@@ -131,8 +179,13 @@ def label_composites(rows: list[dict], spec: Spec) -> list[dict]:
             outcome = spec.outcome(row.get("values_outcome") or (spec.values.outcome if spec.values else ""))
         except KeyError:
             outcome = None
-        label_row(row, None if outcome is None else scenario_for(outcome, spec.analysis, row.get("kind"),
-                                                                  bool(spec.cohort.cluster)))
+        label_row(row, None if outcome is None or _fitted(row) else scenario_for(outcome, spec.analysis,
+                                                                                  row.get("kind"),
+                                                                                  bool(spec.cohort.cluster)))
+        if _fitted(row):
+            row["index_info"]["about"] = about_index(row["index_info"].get("label") or row.get("index", ""),
+                                                     row["index_info"]["prognostic"], spec.analysis.interval,
+                                                     spec.analysis.refit_index)
     return rows
 
 

@@ -215,6 +215,9 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("results[].index_info.discrete", "True when the index takes whole levels only (e.g. a frailty scale)."),
         ("results[].index_info.percentiles", "Cohort percentiles of the index, by percentile (5, 25, 50, 75, 95)."),
         ("results[].index_info.prognostic", "Prognostic indices only: the cross-fitted model behind the index."),
+        ("results[].index_info.about", "Prognostic indices only: one sentence saying the index is a score fitted from "
+         "named measurements and whether the intervals include the uncertainty of fitting it (only bootstrap "
+         "intervals with refit_index = true do)."),
         ("results[].index_info.prognostic.outcome", "The outcome it predicts."),
         ("results[].index_info.prognostic.model", "The model (Cox, proportional odds, logistic or linear)."),
         ("results[].index_info.prognostic.scale", "The scale of the index (e.g. log hazard)."),

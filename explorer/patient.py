@@ -21,6 +21,7 @@ from .charts import fmt, per_hundred, words
 from .conversation import WHO_SHORT, ValuesRecord
 from .errors import FulcrumError
 from .margins import on_probability_scale
+from .indices.prognostic import about_index
 from .results import _jsonable
 from .spec import OutcomeSpec, SelectionSpec
 
@@ -569,6 +570,10 @@ def _stretch(fs: FitSet, pl: Placement) -> tuple[np.ndarray, str] | None:
 
 def _limits(fs: FitSet, pl: Placement) -> list[str]:
     out = []
+    info = fs.indices[pl.name].info
+    if "prognostic" in info:
+        a = fs.spec.analysis
+        out.append(about_index(pl.label, info["prognostic"], a.interval, a.refit_index))
     lo, hi = pl.cohort_range
     if pl.outside:
         out.append(f"This patient's {pl.label} ({fmt(pl.value)}) is outside the range seen in the cohort ({fmt(lo)} "

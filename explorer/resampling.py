@@ -40,11 +40,16 @@ class ArmArrays:
         p = self.where[drawn]
         return p[p >= 0]
 
+    def rows(self, drawn: np.ndarray) -> np.ndarray:
+        """The drawn cohort rows that are complete cases here, in the order of `positions`."""
+        return drawn[self.where[drawn] >= 0]
+
 
 def refit_arms(outcome: OutcomeSpec, basis: Basis, arrays: dict[str, ArmArrays], drawn: dict[str, np.ndarray],
-               starts: dict[str, np.ndarray]) -> dict[str, Fitted]:
+               starts: dict[str, np.ndarray], x: np.ndarray | None = None) -> dict[str, Fitted]:
     """Refit each arm on the drawn cohort rows, as fit_pair would (complete cases, z held at the pooled mean
-    of the drawn rows), without diagnostics or sandwich variances, which a replicate's curves do not use."""
+    of the drawn rows), without diagnostics or sandwich variances, which a replicate's curves do not use.
+    x: the replicate's own index value per cohort row (an index refitted on the draw), else the fit's."""
     pos = {arm: a.positions(drawn[arm]) for arm, a in arrays.items()}
     z_ref = None
     if outcome.adjust:
@@ -56,6 +61,8 @@ def refit_arms(outcome: OutcomeSpec, basis: Basis, arrays: dict[str, ArmArrays],
         d = a.data
         sub = OutcomeData(*(None if v is None else v[pos[arm]] for v in (d.x, d.y, d.time, d.event, d.z)),
                           z_names=d.z_names, z_ref=z_ref)
+        if x is not None:
+            sub.x = x[a.rows(drawn[arm])]
         fits[arm] = fit_model(outcome, arm, basis, sub, start=starts.get(arm), robust=False, checks=False)
     return fits
 

@@ -269,8 +269,9 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "bands": ("str", "pointwise | simultaneous: which band the clear-difference regions use."),
         "workers": ("int", "Parallel workers for the bootstrap (default 1)."),
         "scheduler": ("str", "tcp://host:port of an existing Dask scheduler (optional)."),
-        "refit_index": ("bool", "Refit a prognostic index in each bootstrap replicate; not available yet, so only "
-                                "false is accepted (the bootstrap holds the index fixed and says so)."),
+        "refit_index": ("bool", "With interval = \"bootstrap\": refit each cross-fitted prognostic index in every "
+                                "replicate (same folds rule and seed), so the intervals include the index's own "
+                                "estimation (default false: the index is held fixed and the results say so)."),
         "grid": ("int", "Points along the index for curves (default 200)."),
         "checks": ("bool", "Compute the trust checks: observed vs fitted, effect-modification test, horizon curve "
                            "(default true)."),
@@ -502,10 +503,6 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
     if analysis.imputations not in (0,) and not 2 <= analysis.imputations <= 100:
         raise FulcrumError(f"'analysis.imputations' is {analysis.imputations}; use 0 (complete cases only) or 2 to "
                            "100 imputations.", file=source, key="analysis.imputations", hint="For example 5 or 20.")
-    if analysis.refit_index:
-        raise FulcrumError("'analysis.refit_index = true' is not available yet: the bootstrap holds a cross-fitted "
-                           "prognostic index fixed at its out-of-fold values and says so in the warnings.",
-                           file=source, key="analysis.refit_index", hint="Remove the key or set it to false.")
     if analysis.scheduler is not None and not analysis.scheduler.startswith("tcp://"):
         raise FulcrumError(f"'analysis.scheduler' should look like tcp://host:port, found '{analysis.scheduler}'.",
                            file=source, key="analysis.scheduler", hint="Give the Dask scheduler's address.")

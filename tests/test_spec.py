@@ -73,7 +73,6 @@ def test_paths_resolve_relative_to_spec_file(tmp_path):
     (BASE.replace("help = 0.7", "help = 1.7"), "values.weights.help", "outside -1 to 1"),
     (BASE.replace('time = "t"\n', ""), "time", "needs 'time'"),
     (BASE + '\n[analysis]\ninterval = "bootstrp"\n', "analysis.interval", "Did you mean 'bootstrap'"),
-    (BASE + '\n[analysis]\nrefit_index = true\n', "analysis.refit_index", "not available yet"),
     (BASE.replace('outcome = "function"', 'outcome = "alive"'), "values.outcome", "must be an ordinal outcome"),
     (BASE + '\n[[maps]]\nindices = ["cfs", "age"]\ntarget = "alive"\n', "maps[1].indices", "'age'"),
     (BASE.replace('column = "cfs"', 'column = "cfs"\nformula = "cfs*2"'), "indices", "exactly one of"),

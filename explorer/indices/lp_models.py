@@ -53,27 +53,31 @@ class Target:
         return Target(self.kind, pick(self.y), pick(self.time), pick(self.event))
 
 
-def fit_linear_predictor(X: np.ndarray, target: Target) -> LinearPredictor:
-    """Fit the model for the target's kind on covariates X (n x p, finite)."""
+def fit_linear_predictor(X: np.ndarray, target: Target, start: np.ndarray | None = None) -> LinearPredictor:
+    """Fit the model for the target's kind on covariates X (n x p, finite); start: coefficients to start
+    Newton's method from (a bootstrap replicate starts from the cohort's fit)."""
     X = np.asarray(X, float).reshape(len(X), -1)
     fit = {"survival": _cox, "binary": _logistic, "ordinal": _proportional_odds, "continuous": _linear}[target.kind]
-    return fit(X, target)
+    return fit(X, target, None if start is None or np.shape(start) != (X.shape[1],) else np.asarray(start, float))
 
 
-def _cox(X: np.ndarray, t: Target) -> LinearPredictor:
+def _cox(X: np.ndarray, t: Target, start: np.ndarray | None) -> LinearPredictor:
     kernel = CoxKernel(np.asarray(t.time, float), np.asarray(t.event, float), X, np.ones(len(X)))
-    beta, _, _, H, _, ok = newton(kernel.evaluate, np.zeros(X.shape[1]))
+    beta, _, _, H, _, ok = newton(kernel.evaluate, np.zeros(X.shape[1]) if start is None else start)
     return LinearPredictor(beta, inverse(-H), 0.0, bool(ok))
 
 
-def _logistic(X: np.ndarray, t: Target) -> LinearPredictor:
-    beta, _, H, _, ok, separated = fit_logistic(np.column_stack([np.ones(len(X)), X]), np.asarray(t.y, float),
-                                                np.ones(len(X)))
+def _logistic(X: np.ndarray, t: Target, start: np.ndarray | None) -> LinearPredictor:
+    y = np.asarray(t.y, float)
+    if start is not None:
+        ybar = np.clip(np.mean(y), 1e-6, 1 - 1e-6)
+        start = np.r_[np.log(ybar / (1 - ybar)) - np.mean(X @ start), start]
+    beta, _, H, _, ok, separated = fit_logistic(np.column_stack([np.ones(len(X)), X]), y, np.ones(len(X)), start)
     cov = inverse(-H)
     return LinearPredictor(beta[1:], cov[1:, 1:], float(beta[0]), bool(ok and not separated))
 
 
-def _linear(X: np.ndarray, t: Target) -> LinearPredictor:
+def _linear(X: np.ndarray, t: Target, start: np.ndarray | None = None) -> LinearPredictor:
     Z = np.column_stack([np.ones(len(X)), X])
     y = np.asarray(t.y, float)
     b, *_ = np.linalg.lstsq(Z, y, rcond=None)
@@ -83,12 +87,12 @@ def _linear(X: np.ndarray, t: Target) -> LinearPredictor:
     return LinearPredictor(b[1:], cov[1:, 1:], float(b[0]), True, {"sigma": np.sqrt(sigma2)})
 
 
-def _proportional_odds(X: np.ndarray, t: Target) -> LinearPredictor:
+def _proportional_odds(X: np.ndarray, t: Target, start: np.ndarray | None = None) -> LinearPredictor:
     observed, code = np.unique(np.asarray(t.y, float), return_inverse=True)
     code = code.reshape(-1)
     m = len(observed) - 1
     cum = np.clip(np.cumsum(np.bincount(code, minlength=m + 1))[:-1] / len(code), 1e-6, 1 - 1e-6)
-    start = np.r_[np.log(cum / (1 - cum)), np.zeros(X.shape[1])]
+    start = np.r_[np.log(cum / (1 - cum)), np.zeros(X.shape[1]) if start is None else start]
     params, _, _, H, _, ok = newton(ordinal_loglik(X, code, np.ones(len(X)), m + 1), start)
     cov = inverse(-H)
     return LinearPredictor(params[m:], cov[m:, m:], 0.0, bool(ok), {"cuts": params[:m]})

@@ -18,6 +18,7 @@ Linear: the predicted outcome, negated when higher_is_better.
 """
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
@@ -56,6 +57,7 @@ class PrognosticModel:
     value_fold: np.ndarray | None = None
     key: str | None = None
     report: dict = field(default_factory=dict)
+    refitter: "Refitter | None" = field(default=None, repr=False)
 
     @property
     def columns(self) -> tuple[str, ...]:
@@ -96,27 +98,96 @@ def cross_fitted_index(index: IndexSpec, frame: pd.DataFrame, spec: Spec, *, key
     Xc = np.where(complete[:, None], X - center, 0.0)
     _check_rank(Xc[fit], p.covariates, f"{key}.prognostic.covariates")
     sign = -1.0 if outcome.kind in ("binary", "continuous") and outcome.higher_is_better else 1.0
-    full = fit_linear_predictor(Xc[fit], target.take(fit))
-    fold_of = np.full(len(frame), -1)
+    full, models, fold_of, value_fold, lp = cross_fit(Xc, target, fit, complete, p.folds, seed, groups)
+    model = PrognosticModel(outcome.name, outcome.kind, tuple(p.covariates), center, sign, models, full, fold_of,
+                            value_fold, key=key)
+    horizon = outcome.horizon if outcome.kind == "survival" else None
+    model.refitter = Refitter(Xc, complete, complete & has_outcome & in_arm, target, p.folds, seed, sign, horizon,
+                              anchor(full, Xc[fit], target.take(fit), horizon), full.coef)
+    model.report = _report(index, outcome, model, Xc[fit], lp[fit], target.take(fit), seed, level)
+    missing = describe_missing(dict(zip(p.covariates, X.T)))
+    warnings = _warnings(index, outcome, complete, has_outcome, in_arm, model, missing)
+    return sign * lp, model, warnings
+
+
+def cross_fit(Xc: np.ndarray, target: Target, fit: np.ndarray, complete: np.ndarray, folds: int, seed: int,
+              groups: np.ndarray | None, start: np.ndarray | None = None):
+    """K-fold cross-fitting on rows `fit` of (Xc, target): (full model, fold models, fold_of, value_fold,
+    linear predictor per row, NaN where a covariate is missing). start: warm start for every fit."""
+    full = fit_linear_predictor(Xc[fit], target.take(fit), start)
+    fold_of = np.full(len(Xc), -1)
     models = []
-    for k, (train, held) in enumerate(_folds(fit, p.folds, seed, groups)):
-        m = fit_linear_predictor(Xc[train], target.take(train))
+    for k, (train, held) in enumerate(_folds(fit, folds, seed, groups)):
+        m = fit_linear_predictor(Xc[train], target.take(train), full.coef)
         m.intercept = full.intercept
         models.append(m)
         fold_of[held] = k
     value_fold = fold_of.copy()
     others = np.flatnonzero(complete & (fold_of < 0))
     value_fold[others] = _assign_folds(others, len(models), seed, groups)
-    lp = np.full(len(frame), np.nan)
+    lp = np.full(len(Xc), np.nan)
     for k, m in enumerate(models):
         rows = np.flatnonzero(value_fold == k)
         lp[rows] = m(Xc[rows])
-    model = PrognosticModel(outcome.name, outcome.kind, tuple(p.covariates), center, sign, models, full, fold_of,
-                            value_fold, key=key)
-    model.report = _report(index, outcome, model, Xc[fit], lp[fit], target.take(fit), seed, level)
-    missing = describe_missing(dict(zip(p.covariates, X.T)))
-    warnings = _warnings(index, outcome, complete, has_outcome, in_arm, model, missing)
-    return sign * lp, model, warnings
+    return full, models, fold_of, value_fold, lp
+
+
+def anchor(full: LinearPredictor, Xc: np.ndarray, target: Target, horizon: float | None) -> float:
+    """What turns the (relative) linear predictor into the model's absolute prediction: lp + anchor is the
+    log cumulative hazard at the horizon (Cox, Breslow baseline at the centre), the log odds of a level worse
+    than the best (proportional odds), and the linear predictor itself (logistic, linear: intercept included)."""
+    if target.kind == "survival":
+        time, event = np.asarray(target.time, float), np.asarray(target.event, float)
+        if horizon is None:
+            horizon = float(np.median(time[event > 0])) if (event > 0).any() else float(np.median(time))
+        order = np.argsort(time, kind="stable")
+        t = time[order]
+        risk = np.cumsum(np.exp(full(Xc[order]))[::-1])[::-1]
+        at_risk = risk[np.searchsorted(t, t, side="left")]
+        hit = (event[order] > 0) & (t <= horizon)
+        h0 = float(np.sum(1.0 / at_risk[hit]))
+        return math.log(max(h0, 1e-300))
+    if target.kind == "ordinal":
+        return -float(full.extra["cuts"][0])
+    return 0.0
+
+
+@dataclass
+class Refitter:
+    """The cohort arrays of a cross-fitted index, kept so a bootstrap replicate can refit it from rows.
+
+    `values(drawn)` refits the index on the drawn rows (duplicates kept as rows; copies of one patient share a
+    fold) by the same folds rule and seed, and returns each drawn row's value on the common scale: the
+    replicate's oriented index shifted so that equal values mean equal absolute predictions (see `anchor`),
+    which puts every replicate's break-even on the original index's scale.
+    """
+
+    Xc: np.ndarray
+    complete: np.ndarray
+    fit_mask: np.ndarray
+    target: Target
+    folds: int
+    seed: int
+    sign: float
+    horizon: float | None
+    offset: float
+    start: np.ndarray
+
+    def values(self, drawn: np.ndarray) -> tuple[np.ndarray, dict]:
+        """Cohort-length index values (NaN outside the draw) and the replicate's model (coef, fold coefs,
+        intercept, shift)."""
+        drawn = np.asarray(drawn)
+        Xc, target = self.Xc[drawn], self.target.take(drawn)
+        fit = np.flatnonzero(self.fit_mask[drawn])
+        full, models, _, _, lp = cross_fit(Xc, target, fit, self.complete[drawn], self.folds, self.seed, drawn,
+                                           self.start)
+        if not (full.converged and all(m.converged for m in models)):
+            raise FloatingPointError("the prognostic model did not converge in this replicate")
+        shift = self.sign * (anchor(full, Xc[fit], target.take(fit), self.horizon) - self.offset)
+        x = np.full(len(self.Xc), np.nan)
+        x[drawn] = self.sign * lp + shift
+        return x, {"coef": full.coef, "fold_coef": np.vstack([m.coef for m in models]),
+                   "intercept": full.intercept, "shift": shift}
 
 
 def outcome_target(outcome: OutcomeSpec, frame: pd.DataFrame, key: str) -> tuple[Target, np.ndarray]:
@@ -195,19 +266,30 @@ def _arm_mask(frame: pd.DataFrame, spec: Spec, arm: str) -> np.ndarray:
     return mask
 
 
+def _split(n: int, k: int, seed: int):
+    """Shuffled K-fold test sets of 0..n-1: a RandomState(seed) shuffle cut into k runs, the first n % k one
+    longer (the rule of scikit-learn's KFold(shuffle=True), whose folds these equal; written out so a bootstrap
+    replicate does not pay for scikit-learn's checks)."""
+    order = np.arange(n)
+    np.random.RandomState(seed).shuffle(order)
+    return np.array_split(order, k)
+
+
 def _folds(fit: np.ndarray, k: int, seed: int, groups: np.ndarray | None):
     """(train rows, held-out rows) per fold; copies of one patient (same group) share a fold."""
-    from sklearn.model_selection import KFold  # imported here: scikit-learn takes a second to load
-
-    splitter = KFold(n_splits=k, shuffle=True, random_state=seed)
     if groups is None:
-        for train, held in splitter.split(fit):
-            yield fit[train], fit[held]
+        for held in _split(len(fit), k, seed):
+            mask = np.zeros(len(fit), bool)
+            mask[held] = True
+            yield fit[~mask], fit[held]
         return
     unique, member = np.unique(np.asarray(groups)[fit], return_inverse=True)
-    for _, held_groups in splitter.split(unique):
-        held = np.isin(member.reshape(-1), held_groups)
-        yield fit[~held], fit[held]
+    fold = np.empty(len(unique), np.int64)
+    for j, held_groups in enumerate(_split(len(unique), k, seed)):
+        fold[held_groups] = j
+    of_row = fold[member.reshape(-1)]
+    for j in range(k):
+        yield fit[of_row != j], fit[of_row == j]
 
 
 def _assign_folds(rows: np.ndarray, k: int, seed: int, groups: np.ndarray | None) -> np.ndarray:
@@ -288,6 +370,23 @@ def _events(target: Target) -> int | None:
     if target.kind == "survival":
         return int(np.sum(target.event))
     return int(np.sum(target.y)) if target.kind == "binary" else None
+
+
+def about_index(label: str, report: Mapping[str, Any], interval: str, refit: bool) -> str:
+    """One plain sentence for every break-even along a fitted index: what the score is fitted from, and whether
+    the intervals include the uncertainty of fitting it."""
+    names = [c["name"] for c in report.get("coefficients") or []]
+    named = names[0] if len(names) < 2 else ", ".join(names[:-1]) + f" and {names[-1]}"
+    head = (f"'{label}' is a score fitted from {named} ({report.get('model')} model of "
+            f"{report.get('outcome')}, {report.get('folds')}-fold cross-fitting), not a measurement; ")
+    if interval == "bootstrap" and refit:
+        return head + "its intervals include the uncertainty of fitting it (the bootstrap refits the score in every " \
+                      "replicate and compares replicates on the score's predicted-outcome scale)."
+    if interval == "bootstrap":
+        return head + "its intervals do not include the uncertainty of fitting it (the bootstrap held the score " \
+                      "fixed; bootstrap intervals with refit_index = true include it)."
+    return head + "its intervals do not include the uncertainty of fitting it (analytic intervals treat the score " \
+                  "as known; only bootstrap intervals with refit_index = true include it)."
 
 
 def orientation(outcome: OutcomeSpec) -> str:

@@ -15,7 +15,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from .errors import FulcrumError
+from .errors import FulcrumError, nfc
+from .settings import check_analysis
 
 OUTCOME_KINDS = ("continuous", "binary", "ordinal", "survival")
 INTERVALS = ("analytic", "bootstrap")
@@ -247,13 +248,13 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "margin": ("float", "The smallest difference worth having (default 0)."),
         "level": ("float", "Interval level (default 0.95)."),
         "interval": ("str", "analytic | bootstrap."),
-        "replicates": ("int", "Bootstrap replicates (default 1000)."),
-        "seed": ("int", "Seed for every random step (default 1)."),
+        "replicates": ("int", "Bootstrap replicates, 20 to 100,000 (default 1000; 1000 or more for reported intervals)."),
+        "seed": ("int", "Seed for every random step, a whole number from 0 (default 1)."),
         "shape": ("str", "linear | spline (restricted cubic spline in the index)."),
         "knots": ("int", "Spline knots, 3 to 5 (default 4)."),
         "bands": ("str", "pointwise | simultaneous: which band the clear-difference regions use."),
-        "workers": ("int", "Parallel workers for the bootstrap (default 1)."),
-        "scheduler": ("str", "tcp://host:port of an existing Dask scheduler (optional)."),
+        "workers": ("int", "Parallel workers for the bootstrap (default 1; -1 = one per core); never more than the machine's "
+                              "cores, with a warning. A Dask cluster is named on the command line only (--scheduler)."),
         "refit_index": ("bool", "Refit a prognostic index in each bootstrap replicate; not available yet, so only "
                                 "false is accepted (the bootstrap holds the index fixed and says so)."),
         "grid": ("int", "Points along the index for curves (default 200)."),
@@ -329,7 +330,7 @@ def _coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
     if kind in ("str", "path"):
         if not isinstance(value, str) or not value.strip():
             raise bad("non-empty text in quotes")
-        return value
+        return value if kind == "path" else nfc(value)
     if kind == "bool":
         if not isinstance(value, bool):
             raise bad("true or false")
@@ -345,7 +346,7 @@ def _coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
     if kind == "list[str]":
         if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
             raise bad('a list of texts, e.g. ["a", "b"]')
-        return tuple(value)
+        return tuple(nfc(v) for v in value)
     if kind == "list[float]":
         if not isinstance(value, list) or not all(
                 isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in value):
@@ -359,7 +360,7 @@ def _coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
             if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
                 raise FulcrumError(f"'{path}.{k}' should be a finite number, found {v!r}.",
                                    file=source, key=f"{path}.{k}", hint="Give each weight as a number.")
-            out[str(k)] = float(v)
+            out[nfc(str(k))] = float(v)
         return out
     if kind == "table[range]":
         if not isinstance(value, dict):
@@ -370,7 +371,7 @@ def _coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
             if len(pair) != 2 or pair[0] > pair[1]:
                 raise FulcrumError(f"'{path}.{k}' should be [low, high] with low <= high, found {v!r}.",
                                    file=source, key=f"{path}.{k}", hint="Give two numbers, the lower first.")
-            out[str(k)] = (pair[0], pair[1])
+            out[nfc(str(k))] = (pair[0], pair[1])
         return out
     if kind == "table":
         return value
@@ -462,32 +463,27 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
                            hint="Add at least one [[indices]] table, e.g. name = \"cfs\", column = \"cfs\".")
     _unique([x.name for x in indices], "indices", source)
 
+    if isinstance(data.get("analysis"), dict) and "scheduler" in data["analysis"]:  # DESIGN.md 2a
+        raise FulcrumError("a spec may not name a Dask scheduler: a file received from someone else must never "
+                           "make Fulcrum connect anywhere.", file=source, key="analysis.scheduler",
+                           hint="Remove the key; to use a cluster, run fulcrum analyse SPEC --scheduler "
+                                "tcp://host:port.")
     a = _Reader(data.get("analysis", {}), "analysis", "analysis", source)
     analysis = AnalysisSpec(
         margin=a.get("margin", 0.0), level=a.get("level", 0.95), interval=a.get("interval", "analytic"),
         replicates=a.get("replicates", 1000), seed=a.get("seed", 1), shape=a.get("shape", "linear"),
         knots=a.get("knots", 4), bands=a.get("bands", "pointwise"), workers=a.get("workers", 1),
-        scheduler=a.get("scheduler"), refit_index=a.get("refit_index", False), grid=a.get("grid", 200),
+        refit_index=a.get("refit_index", False), grid=a.get("grid", 200),
         checks=a.get("checks", True), imputations=a.get("imputations", 0),
     )
     _choice(analysis.interval, INTERVALS, "analysis.interval", source)
     _choice(analysis.shape, SHAPES, "analysis.shape", source)
     _choice(analysis.bands, BANDS, "analysis.bands", source)
-    _range_check(analysis.level, 0.5, 0.999, "analysis.level", source)
-    _range_check(analysis.knots, 3, 5, "analysis.knots", source)
-    _range_check(analysis.replicates, 20, 100_000, "analysis.replicates", source)
-    _range_check(analysis.workers, -1, 256, "analysis.workers", source)
-    _range_check(analysis.grid, 20, 5000, "analysis.grid", source)
-    if analysis.imputations not in (0,) and not 2 <= analysis.imputations <= 100:
-        raise FulcrumError(f"'analysis.imputations' is {analysis.imputations}; use 0 (complete cases only) or 2 to "
-                           "100 imputations.", file=source, key="analysis.imputations", hint="For example 5 or 20.")
+    check_analysis(analysis, source=source)
     if analysis.refit_index:
         raise FulcrumError("'analysis.refit_index = true' is not available yet: the bootstrap holds a cross-fitted "
                            "prognostic index fixed at its out-of-fold values and says so in the warnings.",
                            file=source, key="analysis.refit_index", hint="Remove the key or set it to false.")
-    if analysis.scheduler is not None and not analysis.scheduler.startswith("tcp://"):
-        raise FulcrumError(f"'analysis.scheduler' should look like tcp://host:port, found '{analysis.scheduler}'.",
-                           file=source, key="analysis.scheduler", hint="Give the Dask scheduler's address.")
 
     values = _values(data["values"], by_name, source) if "values" in data else None
 
@@ -740,6 +736,7 @@ def spec_to_dict(spec: Spec, relative_to: Path | None = None) -> dict[str, Any]:
         return obj
 
     out = clean(spec)
+    out.get("analysis", {}).pop("scheduler", None)  # set on the command line only, never written to a spec
     for key in ("outcomes", "indices", "maps"):
         out.setdefault(key, [])
     if not out["maps"]:

@@ -7,12 +7,14 @@ FULCRUM_MAX_UNPACKED_MB for both the command line and the app.
 """
 from __future__ import annotations
 
+import contextlib
 import io
 import os
 import re
 import stat
 import unicodedata
 import zipfile
+from collections.abc import Iterator
 from pathlib import Path
 
 import pandas as pd
@@ -24,10 +26,12 @@ MAX_ENTRIES = 10_000
 ENV_LIMIT = "FULCRUM_MAX_UNPACKED_MB"
 
 
-def read_file(path: Path, shown: str, key: str, what: str = "cohort") -> bytes:
+def read_file(path: Path, shown: str, key: str | None, what: str = "cohort") -> bytes:
     """The bytes of an input file; a missing file, a folder, a FIFO or device, or a read error is a located
-    FulcrumError (nothing is read from a pipe or device, which could block or never end)."""
-    hint = f"Check {key} in the spec; it is read relative to the spec file's folder."
+    FulcrumError (nothing is read from a pipe or device, which could block or never end). key: the spec key
+    that names the file (None for the spec itself)."""
+    hint = f"Check {key} in the spec; it is read relative to the spec file's folder." if key else \
+        "Check the path, or write a demo spec with 'fulcrum demo DIR'."
     try:
         st = path.stat()
     except FileNotFoundError:
@@ -124,3 +128,31 @@ def nfc_series(s: pd.Series) -> tuple[pd.Series, int]:
         return s, 0
     n = int(s.isin(list(changed)).sum())
     return s.map(lambda v: changed.get(v, v) if isinstance(v, str) else v).astype(object), n
+
+
+def release_memory() -> None:
+    """Hand the memory a large upload's reading left behind back to the system: Python's cycles, Arrow's pool
+    and glibc's free lists (the server otherwise keeps its peak size for every later session)."""
+    import ctypes
+    import gc
+
+    gc.collect()
+    try:
+        import pyarrow as pa
+
+        pa.default_memory_pool().release_unused()
+    except (ImportError, AttributeError):
+        pass
+    try:
+        ctypes.CDLL("libc.so.6").malloc_trim(0)
+    except (OSError, AttributeError):  # not glibc (macOS, Windows, musl): nothing to trim
+        pass
+
+
+@contextlib.contextmanager
+def releasing_memory() -> Iterator[None]:
+    """Run a large read, then release what it left behind, whether it succeeded or was refused."""
+    try:
+        yield
+    finally:
+        release_memory()

@@ -36,6 +36,9 @@ def check_setting(key: str, value: Any, *, source: str | None = None, flags: dic
     if key == "workers" and value == 0:
         raise FulcrumError(f"{name} is 0; no work could be done.", file=None if via_flag else source,
                            key=None if via_flag else f"analysis.{key}", hint=hint)
+    if value < lo and hi > 2**62:
+        raise FulcrumError(f"{name} is {value}; it must be {lo} or more.", file=None if via_flag else source,
+                           key=None if via_flag else f"analysis.{key}", hint=hint)
     if not lo <= value <= hi:
         lo_s, hi_s = (f"{v:,}" if isinstance(v, int) and abs(v) < 1e9 else f"{v:g}" for v in (lo, hi))
         raise FulcrumError(f"{name} is {value}, outside {lo_s} to {hi_s}.", file=None if via_flag else source,

@@ -396,19 +396,14 @@ def _unique(names: list[str], what: str, source: str | None) -> None:
 
 def load_spec(path: str | Path) -> Spec:
     """Read and check a spec file; paths inside it resolve relative to its folder."""
+    from .intake import read_file
+
     path = Path(path)
-    if not path.is_file():
-        raise FulcrumError("the spec file does not exist." if not path.exists() else
-                           "the spec path is a folder, not a file.", file=str(path),
-                           hint="Check the path, or write a demo spec with 'fulcrum demo DIR'.")
     try:
-        text = path.read_text(encoding="utf-8")
+        text = read_file(path, str(path), None, what="spec").decode("utf-8")
     except UnicodeDecodeError as exc:
         raise FulcrumError(f"the spec is not UTF-8 text (byte {exc.start}).", file=str(path),
                            hint="Save the spec as UTF-8 text.") from None
-    except OSError as exc:
-        raise FulcrumError(f"the spec file could not be read ({exc.strerror or exc}).", file=str(path),
-                           hint="Check that the file is readable by you.") from None
     return parse_spec_text(text, base_dir=path.resolve().parent, source=str(path))
 
 

@@ -765,8 +765,10 @@ def load_for(spec: Spec, data: bytes, filename: str):
     """Read and check the cohort bytes against the spec (the engine's loader, nothing of our own)."""
     from .cohort import load_cohort
     from .indices import needed_columns
+    from .intake import releasing_memory
 
-    return load_cohort(spec, data=data, filename=filename, extra_columns=needed_columns(spec))
+    with releasing_memory():
+        return load_cohort(spec, data=data, filename=filename, extra_columns=needed_columns(spec))
 
 
 # ------------------------------------------------------------------------------------------
@@ -775,8 +777,10 @@ def load_for(spec: Spec, data: bytes, filename: str):
 def preview(data: bytes, filename: str, sheet: str | None = None) -> pd.DataFrame:
     """Every column of the file as text (the loader's own reader), so roles can be guessed before checking."""
     from .cohort import read_table
+    from .intake import releasing_memory
 
-    frame = read_table(data, filename, sheet)
+    with releasing_memory():
+        frame = read_table(data, filename, sheet)
     if frame.empty:
         raise FulcrumError("the file has column names but no data rows.", file=filename,
                            hint="Add one row per patient under the header.")

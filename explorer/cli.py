@@ -73,28 +73,54 @@ def summary_table(doc: dict) -> str:
     return "\n".join(out)
 
 
+def with_flags(spec, args: argparse.Namespace, flags: dict[str, str]):
+    """The spec with the settings given on the command line, checked by the same rules as the spec's own
+    (explorer.settings); flags maps each setting to its flag, e.g. {"replicates": "--replicates"}."""
+    import dataclasses
+
+    from .settings import check_analysis
+
+    given = {key: getattr(args, key) for key in flags if getattr(args, key, None) is not None}
+    if not given:
+        return spec
+    analysis = dataclasses.replace(spec.analysis, **given)
+    check_analysis(analysis, source=spec.source, flags={k: flags[k] for k in given})
+    return dataclasses.replace(spec, analysis=analysis)
+
+
+def say_warnings(spec) -> list[str]:
+    """Warnings about allowed but weak settings (too many workers, few replicates)."""
+    from .settings import advice
+
+    return advice(spec.analysis)
+
+
 def cmd_analyse(args: argparse.Namespace) -> int:
     from . import results as res
     from .analysis import analyse
+    from .outputs import input_paths
     from .spec import load_spec
 
     spec = load_spec(args.spec)
-    if args.replicates:
-        import dataclasses
-
-        spec = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, replicates=args.replicates))
-    if args.scheduler:
-        import dataclasses
-
-        spec = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, scheduler=args.scheduler))
+    spec = with_flags(spec, args, {"replicates": "--replicates", "scheduler": "--scheduler"})
+    plan = args.plan.inputs_from(args.spec, *input_paths(spec))
+    json_out, html_out = plan.add("--json", args.json), plan.add("--html", args.html)
+    spec_bytes = read_input(args.spec)
+    early = say_warnings(spec)
+    if not args.quiet:
+        for w in early:
+            print(f"warning: {printable(w)}", file=sys.stderr)
     bar = ProgressBar("bootstrap") if spec.analysis.interval == "bootstrap" and not args.quiet else None
-    result = analyse(spec, spec_bytes=Path(args.spec).read_bytes(), progress=bar)
-    if args.json:
-        res.write(result.document, args.json)
-    if args.html:
-        from .report import write_report
+    result = analyse(spec, spec_bytes=spec_bytes, progress=bar)
+    # both documents are made before either is written, so a failure leaves no half set of files
+    json_text = res.dumps(result.document) + "\n" if json_out else None
+    html_text = None
+    if html_out:
+        from .report import render_report
 
-        write_report(result, args.html)
+        html_text = render_report(result)
+    plan.write(json_out, json_text)
+    plan.write(html_out, html_text)
     if not args.quiet:
         print(summary_table(result.document))
         for line in warning_lines(result.document):
@@ -118,12 +144,15 @@ def warning_lines(doc: dict) -> list[str]:
 
 
 def cmd_patient(args: argparse.Namespace) -> int:
+    from . import results as res
     from .analysis import fit_all
     from .numeric import captured
+    from .outputs import input_paths
     from .patient import patient_document, patient_lines, place_patient
     from .spec import load_spec
 
     spec = load_spec(args.spec)
+    json_out = args.plan.inputs_from(args.spec, *input_paths(spec)).add("--json", args.json)
     values = {}
     for item in args.at or []:
         name, sep, text = item.partition("=")
@@ -138,18 +167,20 @@ def cmd_patient(args: argparse.Namespace) -> int:
     with captured(numeric, "placing the patient"):
         view = place_patient(fs, values)
     doc = patient_document(fs, view, CAUTIONS, numeric)
-    if args.json:
-        write_json(doc, args.json)
+    args.plan.write(json_out, res.dumps(doc) + "\n" if json_out else None)
     for line in patient_lines(doc):
         print(printable(line))
     return 0
 
 
-def write_json(doc: dict, path: str) -> None:
-    """Write a JSON document (one place, so the safe writer can replace it)."""
-    from . import results as res
+def read_input(path: str | Path) -> bytes:
+    """An input file's bytes; an unreadable file becomes a located FulcrumError."""
+    from .outputs import os_error
 
-    res.write(doc, path)
+    try:
+        return Path(path).read_bytes()
+    except OSError as exc:
+        raise os_error(exc, path, "read the file") from None
 
 
 def cmd_validate(args: argparse.Namespace) -> int:
@@ -159,24 +190,29 @@ def cmd_validate(args: argparse.Namespace) -> int:
 
     spec = load_spec(args.spec)
     cohort = load_cohort(spec, extra_columns=needed_columns(spec))
-    warnings = list(cohort.warnings)
+    warnings = say_warnings(spec) + list(cohort.warnings)
     for ix in spec.indices:
         warnings.extend(compute_index(ix, cohort.frame, spec=spec).warnings)
-    print(f"{spec.cohort.path.name}: {len(cohort.frame)} patients, sha256 {cohort.sha256[:12]}...")
+    print(f"{printable(spec.cohort.path.name)}: {len(cohort.frame)} patients, sha256 {cohort.sha256[:12]}...")
     print(cohort.counts().to_string())
     for n in cohort.notes:
-        print(f"note: {n}")
+        print(f"note: {printable(n)}")
     for w in warnings:
-        print(f"warning: {w}")
+        print(f"warning: {printable(w)}")
     print("The spec and cohort passed every check" + (" (with warnings)." if warnings else "."))
     return 0
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
-    from .demo import write_demo
+    from .demo import SEED, write_demo
+    from .settings import check_setting
 
-    path = write_demo(Path(args.dir), n=args.n, seed=args.seed) if args.seed is not None else \
-        write_demo(Path(args.dir), n=args.n)
+    if not 20 <= args.n <= 1_000_000:
+        raise FulcrumError(f"--n is {args.n}; the demo needs 20 to 1,000,000 patients.",
+                           hint="For example --n 2400 (the default).")
+    seed = SEED if args.seed is None else args.seed
+    check_setting("seed", seed, flags={"seed": "--seed"})
+    path = write_demo(Path(args.dir), n=args.n, seed=seed)
     print(f"Wrote the invented demo cohort and its spec: {path}")
     print(f"Next: fulcrum analyse {path} --json results.json --html report.html")
     return 0
@@ -228,8 +264,9 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("spec")
     a.add_argument("--json", metavar="OUT", help="write the results document here")
     a.add_argument("--html", metavar="OUT", help="write the offline HTML report here")
-    a.add_argument("--replicates", type=int, help="override analysis.replicates")
-    a.add_argument("--scheduler", metavar="tcp://HOST:PORT", help="send bootstrap replicates to a Dask cluster")
+    a.add_argument("--replicates", type=int, help="override analysis.replicates (20 to 100,000)")
+    a.add_argument("--scheduler", metavar="tcp://HOST:PORT",
+                   help="send bootstrap replicates to this Dask cluster (a spec can never name one)")
     a.add_argument("--quiet", action="store_true", help="print nothing but errors")
     a.set_defaults(func=cmd_analyse)
 
@@ -264,21 +301,45 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
+    """Run one command. Exit 0 on success, 2 with one located message on bad input or an operating-system
+    error, 130 when stopped; a closed pipe (`fulcrum validate spec.toml | head -1`) ends quietly. A command
+    that writes files plans them on `args.plan` (explorer.outputs.OutputPlan), so a stopped or failed run says
+    what it wrote."""
+    from .outputs import OutputPlan, os_error
+
     parser = build_parser()
     args, rest = parser.parse_known_args(argv)
     if args.command == "check-methods":
         args.rest = rest
     elif rest:
         parser.error(f"unrecognized arguments: {' '.join(rest)}")
+    args.plan = OutputPlan()
     try:
-        return args.func(args)
+        try:
+            code = args.func(args)
+            sys.stdout.flush()
+            return code
+        except OSError as exc:
+            if isinstance(exc, BrokenPipeError):
+                raise
+            if args.debug:
+                raise
+            raise os_error(exc, exc.filename or "(unnamed file)", "read or write a file") from None
+    except BrokenPipeError:
+        # the reader of our output has gone (e.g. `| head -1`): stop quietly, and keep Python from
+        # complaining when it flushes stdout at exit
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 0
     except FulcrumError as exc:
         if args.debug:
             raise
         print(f"fulcrum: {exc}", file=sys.stderr)
+        if args.plan.written:
+            print(f"fulcrum: {args.plan.summary()}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
-        print("fulcrum: stopped.", file=sys.stderr)
+        print("fulcrum: stopped." + (f" {args.plan.summary()}" if args.plan.planned else ""), file=sys.stderr)
         return 130
 
 

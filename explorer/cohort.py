@@ -18,7 +18,8 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from .errors import FulcrumError, printable
+from .errors import FulcrumError, nfc, printable
+from .intake import check_archive, hidden_rows, nfc_series, read_file
 from .spec import OutcomeSpec, Spec
 
 FORMATS = (".csv", ".tsv", ".xlsx", ".parquet")
@@ -133,28 +134,26 @@ def load_cohort(spec: Spec, *, data: bytes | None = None, filename: str | None =
     name = filename or (path.name if path else Path(spec.cohort.path).name)
     shown = str(path) if path else name
     if path is not None:
-        if not path.is_file():
-            raise FulcrumError("the cohort file does not exist." if not path.exists() else
-                               "the cohort path is a folder, not a file.", file=shown, key="cohort.path",
-                               hint="Check cohort.path in the spec; it is read relative to the spec file's folder.")
-        data = path.read_bytes()
+        data = read_file(path, shown, "cohort.path")
     assert data is not None
     roles = column_roles(spec, extra_columns)
     numeric = {col for col, rs in roles.items() if not {r for r, _ in rs} & set(TEXT_ROLES)}
-    header, raw = _read(data, name, shown, spec.cohort.sheet, roles, numeric)
+    notes: list[str] = []
+    header, raw = _read(data, name, shown, spec.cohort.sheet, roles, numeric, notes)
     raw = {h: raw[h] for h in header if h in roles}
-    return _build(spec, raw, roles, path, name, shown, hashlib.sha256(data).hexdigest())
+    return _build(spec, raw, roles, path, name, shown, hashlib.sha256(data).hexdigest(), notes)
 
 
 def read_table(data: bytes, filename: str, sheet: str | None = None) -> pd.DataFrame:
     """Every column of a cohort file as its literal text (None = empty cell), e.g. for a preview."""
-    header, raw = _read(data, filename, filename, sheet, {}, set())
+    header, raw = _read(data, filename, filename, sheet, {}, set(), [])
     return pd.DataFrame({h: raw[h] for h in header if h in raw})
 
 
 def _read(data: bytes, name: str, shown: str, sheet: str | None, roles: dict[str, list[tuple[str, str]]],
-          numeric: set[str]) -> tuple[list[str], Raw]:
-    """Check the format, open the file, check the header, read the wanted columns (all when roles is empty)."""
+          numeric: set[str], notes: list[str]) -> tuple[list[str], Raw]:
+    """Check the format, open the file, check the header, read the wanted columns (all when roles is empty).
+    What was noticed on the way (rows left out, a setting that does not apply) is added to notes."""
     ext = Path(name).suffix.lower()
     if ext not in FORMATS:
         hint = "Save it as .xlsx (Excel 2007 or later) or .csv." if ext == ".xls" else \
@@ -164,18 +163,37 @@ def _read(data: bytes, name: str, shown: str, sheet: str | None, roles: dict[str
     if not data:
         raise FulcrumError("the file is empty (0 bytes).", file=shown, hint="Check that the file was saved or "
                            "uploaded completely.")
-    header, read = _open(data, ext, shown, sheet)
+    if sheet is not None and ext != ".xlsx":
+        notes.append(f"cohort.sheet = '{_cut(sheet)}' was ignored: a {ext} file has no sheets.")
+    header, read = _open(data, ext, shown, sheet, notes)
     _check_header(header, roles, shown)
-    raw = read(set(roles) or {h for h in header if h}, numeric)
+    raw = _drop_trailing_empty(read(set(roles) or {h for h in header if h}, numeric), notes)
     if not raw or not len(next(iter(raw.values()))):
         raise FulcrumError("the file has column names but no data rows.", file=shown,
                            hint="Add one row per patient under the header.")
     return header, raw
 
 
-def _open(data: bytes, ext: str, file: str, sheet: str | None) -> tuple[list[str], Opener]:
+def _drop_trailing_empty(raw: Raw, notes: list[str]) -> Raw:
+    """Rows at the end with every read cell empty (',,,,' lines, formatted but empty spreadsheet rows) are not
+    patients: they are left out with a note. Empty rows among the patients stay, so row numbers keep counting."""
+    if not raw:
+        return raw
+    n = len(next(iter(raw.values())))
+    filled = np.zeros(n, bool)
+    for s in raw.values():
+        filled |= s.notna().to_numpy()
+    last = int(np.flatnonzero(filled)[-1]) + 1 if filled.any() else 0
+    if last == n:
+        return raw
+    notes.append(f"{n - last} empty row(s) at the end of the file (data rows {last + 1} to {n}) are not patients "
+                 "and were left out.")
+    return {h: s.iloc[:last].reset_index(drop=True) for h, s in raw.items()}
+
+
+def _open(data: bytes, ext: str, file: str, sheet: str | None, notes: list[str]) -> tuple[list[str], Opener]:
     if ext == ".xlsx":
-        return _open_xlsx(data, file, sheet)
+        return _open_xlsx(data, file, sheet, notes)
     if ext == ".parquet":
         return _open_parquet(data, file)
     return _open_text(data, "\t" if ext == ".tsv" else ",", file)
@@ -216,7 +234,7 @@ def _open_text(data: bytes, sep: str, file: str) -> tuple[list[str], Opener]:
     raw_header = next((r for _, _, r in records if any(x.strip() for x in r)), [])
     if raw_header:
         raw_header[0] = raw_header[0].removeprefix("\ufeff")
-    header = [h.strip() for h in raw_header]
+    header = [nfc(h.strip()) for h in raw_header]
     if len(header) == 1:
         found = {";": "semicolons", "\t": "tabs", ",": "commas"}
         for other, word in found.items():
@@ -248,7 +266,8 @@ def _open_text(data: bytes, sep: str, file: str) -> tuple[list[str], Opener]:
                 table = parse(len(data) + 1)  # a record longer than Arrow's block: read the file as one block
         except pa.ArrowInvalid as exc:
             raise _ragged(text, sep, len(raw_header), file, exc) from None
-        return {h.strip(): _arrow_text(col, h.strip() in numeric) for h, col in zip(table.column_names, table.columns)}
+        named = dict(zip(raw_header, header))
+        return {named[h]: _arrow_text(col, named[h] in numeric) for h, col in zip(table.column_names, table.columns)}
 
     return header, read
 
@@ -336,13 +355,14 @@ def _floats(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     return np.where(bad, np.nan, values), bad
 
 
-def _open_xlsx(data: bytes, file: str, sheet: str | None) -> tuple[list[str], Opener]:
+def _open_xlsx(data: bytes, file: str, sheet: str | None, notes: list[str]) -> tuple[list[str], Opener]:
     if not data.startswith(b"PK\x03\x04"):
         old = data.startswith(b"\xd0\xcf\x11\xe0")
         raise FulcrumError("this is an old Excel .xls workbook." if old else "this is not an Excel .xlsx workbook.",
                            file=file, hint="Open it in Excel and save it as .xlsx, or export CSV UTF-8.")
     import openpyxl
 
+    archive = check_archive(data, file)  # before anything is unpacked
     try:
         book = openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=True)
     except Exception as exc:  # openpyxl raises many types for damaged workbooks
@@ -357,19 +377,23 @@ def _open_xlsx(data: bytes, file: str, sheet: str | None) -> tuple[list[str], Op
         raise FulcrumError(f"the workbook has no sheet '{sheet}'; its sheets are {', '.join(map(repr, names))}.",
                            file=file, key="cohort.sheet",
                            hint=f"Did you mean '{_cut(close[0])}'?" if close else "Name one of the sheets listed.")
-    rows = book[sheet or names[0]].iter_rows(values_only=True)
+    ws = book[sheet or names[0]]
+    rows = ws.iter_rows(values_only=True)
     first = next(rows, None)
     if first is None or all(v is None for v in first):
         raise FulcrumError("the sheet is empty or its first row has no column names.", file=file,
                            hint="Put the column names in the first row.")
-    header = [(_cell_text(v) or "") for v in first]
+    header = [nfc(_cell_text(v) or "") for v in first]
+    hidden = hidden_rows(archive, getattr(ws, "_worksheet_path", ""))
+    if hidden:
+        notes.append(f"{len(hidden)} row(s) of the sheet are hidden in the workbook (spreadsheet rows "
+                     f"{', '.join(map(str, hidden[:10]))}{' ...' if len(hidden) > 10 else ''}); they are read "
+                     "and analysed like every other row. Delete them from the file if they are not patients.")
 
     def read(wanted: set[str], numeric: set[str]) -> Raw:
         keep = [i for i, h in enumerate(header) if h in wanted]
         cols: dict[str, list] = {header[i]: [] for i in keep}
-        for row in rows:
-            if all(v is None or v == "" for v in row):
-                continue
+        for row in rows:  # empty rows stay (row numbers keep matching the sheet); trailing ones are dropped later
             for i in keep:
                 cols[header[i]].append(_cell_text(row[i]) if i < len(row) else None)
         book.close()
@@ -409,10 +433,10 @@ def _open_parquet(data: bytes, file: str) -> tuple[list[str], Opener]:
 
     def read(wanted: set[str], numeric: set[str]) -> Raw:
         # one column at a time, so only one column's Arrow buffers are held beside the converted ones
-        return {name.strip(): _arrow_column(pf.read(columns=[name]).column(0), name.strip() in numeric)
-                for name in names if name.strip() in wanted}
+        return {nfc(name.strip()): _arrow_column(pf.read(columns=[name]).column(0), nfc(name.strip()) in numeric)
+                for name in names if nfc(name.strip()) in wanted}
 
-    return [n.strip() for n in names], read
+    return [nfc(n.strip()) for n in names], read
 
 
 def _arrow_column(col: pa.ChunkedArray, numeric: bool) -> pd.Series:
@@ -464,13 +488,19 @@ class _Checker:
 
     def fail(self, what: str, column: str, mask: np.ndarray | None = None, hint: str | None = None) -> FulcrumError:
         rows = np.flatnonzero(mask) + 1 if mask is not None else None
-        return FulcrumError(what, file=self.file, column=column, key=self.roles[column][0][1],
+        keys = [k for r, k in self.roles[column] if r == "index"] or [k for _, k in self.roles[column]]
+        return FulcrumError(what, file=self.file, column=column, key=keys[0],
                             rows=None if rows is None else rows[:SHOWN],
                             n_rows=None if rows is None else len(rows), hint=hint)
 
     def text(self, col: str) -> pd.Series:
-        """A text-role column: every reader returns these as stripped strings, None for empty cells."""
-        return self.raw[col]
+        """A text-role column: every reader returns these as stripped strings, None for empty cells; labels are
+        put in one Unicode form (NFC), as the spec's are, so labels that look the same are the same."""
+        s, changed = nfc_series(self.raw[col])
+        if changed:
+            self.notes.append(f"column '{col}': {changed} cell(s) were written in a decomposed Unicode form "
+                              "(e.g. e + accent) and were read as the composed form, matching the spec.")
+        return s
 
     def required(self, s: pd.Series, col: str, what: str) -> None:
         empty = s.isna().to_numpy()
@@ -493,7 +523,7 @@ class _Checker:
             return self.zero_one(col, "event" in kinds)
         if "time" in kinds:
             return self.sized(col, self.time(col))
-        return self.sized(col, self.number(col, coding="covariate" in kinds))
+        return self.sized(col, self.number(col, coding="covariate" in kinds and "index" not in kinds))
 
     def sized(self, col: str, s: pd.Series) -> pd.Series:
         """Refuse numbers too large for the models to fit reliably, naming the rows."""
@@ -535,11 +565,12 @@ class _Checker:
         if coding and not (present & ~bad).any():
             return self.code(col, s)
         offenders = ", ".join(f"'{_cut(v)}'" for v in dict.fromkeys(s[bad].head(5)))
-        comma = s[bad].str.fullmatch(r"-?\d+,\d+").any()
-        hint = ("Use a point as the decimal mark (2.5, not 2,5)." if comma else
-                "Enter numbers only; leave a cell empty when the value is missing.")
-        raise self.fail(f"{bad.sum()} entr{'y is' if bad.sum() == 1 else 'ies are'} not numbers: {offenders}.",
-                        col, bad, hint=hint)
+        raise self.fail(f"{bad.sum()} entr{'y is' if bad.sum() == 1 else 'ies are'} not numbers: {offenders}"
+                        + (" (an index must be numbers)." if self.is_index(col) else "."), col, bad,
+                        hint=_number_hint(s[bad], self.is_index(col)))
+
+    def is_index(self, col: str) -> bool:
+        return any(r == "index" for r, _ in self.roles[col])
 
     def code(self, col: str, s: pd.Series) -> pd.Series:
         counts = s.value_counts()
@@ -559,7 +590,7 @@ class _Checker:
         if s.dtype != object:
             out = s.astype(float)
             bad = out.notna().to_numpy() & ~out.isin([0.0, 1.0]).to_numpy()
-            found = out[bad]
+            found = out[bad].map(_cell_text)  # as written in the file: 2, not 2.0
         else:
             low = s.str.lower()
             out = low.map(ONE_WORDS).astype(float)
@@ -585,7 +616,7 @@ class _Checker:
                             hint="Fill in the time from the start of follow-up to the event or censoring.")
         low = (t <= 0).to_numpy()
         if low.any():
-            shown = ", ".join(f"{v:g}" for v in t[low].head(5))
+            shown = ", ".join(_cell_text(float(v)) or "" for v in t[low].head(5))
             raise self.fail(f"follow-up times must be positive; found {shown}.", col, low,
                             hint="A patient who died or left on day 0 can be given a small positive time "
                                  "(e.g. 0.5 days).")
@@ -654,9 +685,24 @@ class _Checker:
         return is_rand
 
 
+def _number_hint(bad: pd.Series, index: bool) -> str:
+    """What to do about cells that are not numbers: thousands separators, decimal commas, text in an index."""
+    if bad.str.fullmatch(r"[+-]?\d{1,3}(,\d{3})+(\.\d+)?").any():
+        example = bad[bad.str.fullmatch(r"[+-]?\d{1,3}(,\d{3})+(\.\d+)?")].iloc[0]
+        return (f"'{_cut(example)}' looks like a number with a thousands separator: write it without one "
+                f"({_cut(example.replace(',', ''))}). Only if the comma is a decimal mark, use a point instead.")
+    if bad.str.fullmatch(r"[+-]?\d+,\d+").any():
+        return "Use a point as the decimal mark (2.5, not 2,5)."
+    if index:
+        return ("An index orders patients by a number (a score, an age): enter numbers only (code categories as "
+                "numbers), leave a cell empty when the value is missing, or name a numeric column as the index.")
+    return "Enter numbers only; leave a cell empty when the value is missing."
+
+
 def _build(spec: Spec, raw: Raw, roles: dict[str, list[tuple[str, str]]], path: Path | None, name: str,
-           file: str, sha: str) -> Cohort:
+           file: str, sha: str, notes: Sequence[str] = ()) -> Cohort:
     chk = _Checker(spec, raw, roles, file)
+    chk.notes.extend(notes)
     c = spec.cohort
     frame = pd.DataFrame({col: chk.column(col) for col in raw}, copy=False)  # the columns are new: no copy
     missing = {col: int(frame[col].isna().sum()) for col in frame.columns}
@@ -672,9 +718,15 @@ def _build(spec: Spec, raw: Raw, roles: dict[str, list[tuple[str, str]]], path: 
         if o.bounds:
             out = ((frame[o.column] < o.bounds[0]) | (frame[o.column] > o.bounds[1])).to_numpy()
             if out.any():
-                shown = ", ".join(f"{v:g}" for v in frame[o.column][out].head(5))
+                shown = ", ".join(_cell_text(float(v)) or "" for v in frame[o.column][out].head(5))
                 raise chk.fail(f"{out.sum()} value(s) lie outside the declared bounds {list(o.bounds)}: {shown}.",
                                o.column, out, hint=f"Correct the values, or the bounds of outcome '{o.name}'.")
+    for col, k in missing.items():
+        needed = [key for _, key in roles[col] if key != "cohort.covariates"]
+        if k and k == len(frame) and needed:
+            raise FulcrumError(f"every cell of the column is empty, so no patient has a value for {needed[0]}.",
+                               file=file, column=col, key=needed[0],
+                               hint="Fill in the column, or name the column that holds these values in the spec.")
     empties = [f"{col} {k}" for col, k in missing.items() if k]
     if empties:
         chk.notes.append("empty cells per column: " + ", ".join(empties) + ".")

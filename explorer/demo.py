@@ -287,14 +287,15 @@ def to_csv_bytes(frame: pd.DataFrame) -> bytes:
 
 def write_demo(directory: str | Path, n: int = N, seed: int = SEED) -> Path:
     """Write the demo cohort, its spec, dictionary and truth into directory; returns the spec path."""
-    directory = Path(directory)
-    directory.mkdir(parents=True, exist_ok=True)
+    from .outputs import make_folder, write_atomic
+
+    directory = make_folder(directory)
     frame, true = generate(n, seed)
-    (directory / "demo_cohort.csv").write_bytes(to_csv_bytes(frame))
-    (directory / "truth.json").write_text(json.dumps(true, indent=2) + "\n", encoding="utf-8")
-    (directory / "DICTIONARY.md").write_text(dictionary(true, n, seed), encoding="utf-8")
+    write_atomic(directory / "demo_cohort.csv", to_csv_bytes(frame))
+    write_atomic(directory / "truth.json", json.dumps(true, indent=2) + "\n")
+    write_atomic(directory / "DICTIONARY.md", dictionary(true, n, seed))
     spec = directory / "demo.toml"
-    spec.write_text(SPEC_TOML.format(seed=seed, n=n), encoding="utf-8")
+    write_atomic(spec, SPEC_TOML.format(seed=seed, n=n))
     return spec
 
 

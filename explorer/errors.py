@@ -57,13 +57,15 @@ class FulcrumError(Exception):
 
 
 def format_rows(rows: Sequence[int], total: int | None = None, first: int = 5) -> str:
-    """'row 4' or 'rows 4, 9, 12 and 30 more' (rows are 1-based data rows)."""
+    """'data row 4' or 'data rows 4, 9, 12 and 30 more', saying how to find them in a spreadsheet (rows are
+    1-based data rows: the header is not counted, so spreadsheet row = data row + 1)."""
     rows = list(rows)
     total = len(rows) if total is None else total
     shown = ", ".join(str(r) for r in rows[:first])
     word = "row" if total == 1 else "rows"
     more = total - min(first, len(rows))
-    return f"{word} {shown}" + (f" and {more} more" if more > 0 else "")
+    return f"data {word} {shown}" + (f" and {more} more" if more > 0 else "") + \
+        " (counted below the header: spreadsheet row = data row + 1)"
 
 
 def printable(text: object, width: int | None = None) -> str:
@@ -73,3 +75,11 @@ def printable(text: object, width: int | None = None) -> str:
 
     out = "".join(f"\\u{ord(c):04x}" if unicodedata.category(c) in ("Cc", "Cf") else c for c in str(text))
     return out if width is None or len(out) <= width else out[:width - 3] + "..."
+
+
+def nfc(text: str) -> str:
+    """A label in Unicode's composed form (NFC), so 'é' typed as one character or as e + accent is one label
+    (labels are normalised on reading, in the spec and in the cohort file alike)."""
+    import unicodedata
+
+    return text if text.isascii() else unicodedata.normalize("NFC", text)

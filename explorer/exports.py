@@ -1,11 +1,13 @@
 """CSV and Excel exports that a spreadsheet cannot turn into formulas (CSV injection, OWASP guidance).
 
 A text cell whose first character is =, +, -, @, a tab or a carriage return (also after leading spaces) gets a
-single quote in front, so spreadsheet programs show it as text and never run it. Numbers stay numbers, and text
+single quote in front, so spreadsheet programs show it as text and never run it; CSV text cells are quoted, so no
+separator inside a cell (comma, semicolon, tab) can split it into a new cell. Numbers stay numbers, and text
 that is only a plain number (such as "-3.5") is left as it is, since a spreadsheet reads it as that number.
 """
 from __future__ import annotations
 
+import csv
 import io
 import math
 import re
@@ -53,8 +55,12 @@ def safe_frame(frame: pd.DataFrame) -> pd.DataFrame:
 
 
 def to_csv_safe(frame: pd.DataFrame) -> bytes:
-    """UTF-8 CSV (with a byte-order mark, so Excel reads the accents) of a neutralised frame, no row index."""
-    return safe_frame(frame).to_csv(index=False, lineterminator="\r\n").encode("utf-8-sig")
+    """UTF-8 CSV (with a byte-order mark, so Excel reads the accents) of a neutralised frame, no row index.
+
+    Every text cell is in quotes, so a spreadsheet that splits on semicolons or tabs (as in many European
+    locales) keeps a cell such as 'lap;=cmd|...' whole instead of making '=cmd|...' a cell of its own."""
+    return safe_frame(frame).to_csv(index=False, lineterminator="\r\n",
+                                    quoting=csv.QUOTE_NONNUMERIC).encode("utf-8-sig")
 
 
 def to_xlsx_safe(frame: pd.DataFrame, sheet: str = "results") -> bytes:

@@ -14,6 +14,7 @@ import numpy as np
 from .errors import FulcrumError
 from .models import fit_model
 from .models.base import Basis, Fitted, OutcomeData
+from .settings import cap_workers
 from .spec import OutcomeSpec
 
 Progress = Callable[[int, int], None]
@@ -104,6 +105,7 @@ def run_blocks(block_task: BlockTask, n: int, seed: int, *, workers: int = 1, sc
         return _run_dask(block_task, seeds, scheduler, progress, min(n, blocks or 64))
     from joblib import Parallel, delayed, effective_n_jobs
 
+    workers = cap_workers(workers)[0]  # never more processes than cores (the callers print the warning)
     n_workers = 1 if workers == 1 else effective_n_jobs(workers)
     n_blocks = min(n, blocks or (50 if n_workers == 1 else n_workers * blocks_per_worker))
     parts = [[seeds[i] for i in b] for b in np.array_split(np.arange(n), n_blocks)]

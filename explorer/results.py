@@ -188,4 +188,7 @@ def validate(doc: dict) -> None:
 
 
 def write(doc: dict, path: str | Path) -> None:
-    Path(path).write_text(dumps(doc) + "\n", encoding="utf-8")
+    """Write the document whole (a temporary file renamed into place: never a half-written file)."""
+    from .outputs import write_atomic
+
+    write_atomic(path, dumps(doc) + "\n")

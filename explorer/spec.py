@@ -15,7 +15,8 @@ from pathlib import Path
 from typing import Any
 
 from . import margins
-from .errors import FulcrumError
+from .errors import FulcrumError, nfc
+from .settings import check_analysis
 from .tomlwrite import plain, toml_value as _toml_value
 
 OUTCOME_KINDS = ("continuous", "binary", "ordinal", "survival")
@@ -262,13 +263,14 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "curved_interval": ("str", "test-inversion | delta: break-even interval off a straight line (see methods)."),
         "level": ("float", "Interval level (default 0.95)."),
         "interval": ("str", "analytic | bootstrap."),
-        "replicates": ("int", "Bootstrap replicates (default 1000)."),
-        "seed": ("int", "Seed for every random step (default 1)."),
+        "replicates": ("int", "Bootstrap replicates, 20 to 100,000 (default 1000; 1000 or more for reported intervals)."),
+        "seed": ("int", "Seed for every random step, a whole number from 0 (default 1)."),
         "shape": ("str", "linear | spline (restricted cubic spline in the index)."),
         "knots": ("int", "Spline knots, 3 to 5 (default 4)."),
         "bands": ("str", "pointwise | simultaneous: which band the clear-difference regions use."),
-        "workers": ("int", "Parallel workers for the bootstrap (default 1)."),
-        "scheduler": ("str", "tcp://host:port of an existing Dask scheduler (optional)."),
+        "workers": ("int", "Parallel workers for the bootstrap (default 1; -1 = one per core); never more than the "
+                           "machine's cores, with a warning. A Dask cluster is named on the command line only "
+                           "(--scheduler)."),
         "refit_index": ("bool", "With interval = \"bootstrap\": refit each cross-fitted prognostic index in every "
                                 "replicate (same folds rule and seed), so the intervals include the index's own "
                                 "estimation (default false: the index is held fixed and the results say so)."),
@@ -348,7 +350,7 @@ def _coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
     if kind in ("str", "path"):
         if not isinstance(value, str) or not value.strip():
             raise bad("non-empty text in quotes")
-        return value
+        return value if kind == "path" else nfc(value)
     if kind == "bool":
         if not isinstance(value, bool):
             raise bad("true or false")
@@ -364,7 +366,7 @@ def _coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
     if kind == "list[str]":
         if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
             raise bad('a list of texts, e.g. ["a", "b"]')
-        return tuple(value)
+        return tuple(nfc(v) for v in value)
     if kind == "list[float]":
         if not isinstance(value, list) or not all(
                 isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in value):
@@ -378,7 +380,7 @@ def _coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
             if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
                 raise FulcrumError(f"'{path}.{k}' should be a finite number, found {v!r}.",
                                    file=source, key=f"{path}.{k}", hint="Give each weight as a number.")
-            out[str(k)] = float(v)
+            out[nfc(str(k))] = float(v)
         return out
     if kind == "table[range]":
         if not isinstance(value, dict):
@@ -389,7 +391,7 @@ def _coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
             if len(pair) != 2 or pair[0] > pair[1]:
                 raise FulcrumError(f"'{path}.{k}' should be [low, high] with low <= high, found {v!r}.",
                                    file=source, key=f"{path}.{k}", hint="Give two numbers, the lower first.")
-            out[str(k)] = (pair[0], pair[1])
+            out[nfc(str(k))] = (pair[0], pair[1])
         return out
     if kind == "table":
         return value
@@ -414,19 +416,14 @@ def _unique(names: list[str], what: str, source: str | None) -> None:
 
 def load_spec(path: str | Path) -> Spec:
     """Read and check a spec file; paths inside it resolve relative to its folder."""
+    from .intake import read_file
+
     path = Path(path)
-    if not path.is_file():
-        raise FulcrumError("the spec file does not exist." if not path.exists() else
-                           "the spec path is a folder, not a file.", file=str(path),
-                           hint="Check the path, or write a demo spec with 'fulcrum demo DIR'.")
     try:
-        text = path.read_text(encoding="utf-8")
+        text = read_file(path, str(path), None, what="spec").decode("utf-8")
     except UnicodeDecodeError as exc:
         raise FulcrumError(f"the spec is not UTF-8 text (byte {exc.start}).", file=str(path),
                            hint="Save the spec as UTF-8 text.") from None
-    except OSError as exc:
-        raise FulcrumError(f"the spec file could not be read ({exc.strerror or exc}).", file=str(path),
-                           hint="Check that the file is readable by you.") from None
     return parse_spec_text(text, base_dir=path.resolve().parent, source=str(path))
 
 
@@ -482,12 +479,17 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
                            hint="Add at least one [[indices]] table, e.g. name = \"cfs\", column = \"cfs\".")
     _unique([x.name for x in indices], "indices", source)
 
+    if isinstance(data.get("analysis"), dict) and "scheduler" in data["analysis"]:  # DESIGN.md 2a
+        raise FulcrumError("a spec may not name a Dask scheduler: a file received from someone else must never "
+                           "make Fulcrum connect anywhere.", file=source, key="analysis.scheduler",
+                           hint="Remove the key; to use a cluster, run fulcrum analyse SPEC --scheduler "
+                                "tcp://host:port.")
     a = _Reader(data.get("analysis", {}), "analysis", "analysis", source)
     analysis = AnalysisSpec(
         margin=a.get("margin", 0.0), level=a.get("level", 0.95), interval=a.get("interval", "analytic"),
         replicates=a.get("replicates", 1000), seed=a.get("seed", 1), shape=a.get("shape", "linear"),
         knots=a.get("knots", 4), bands=a.get("bands", "pointwise"), workers=a.get("workers", 1),
-        scheduler=a.get("scheduler"), refit_index=a.get("refit_index", False), grid=a.get("grid", 200),
+        refit_index=a.get("refit_index", False), grid=a.get("grid", 200),
         checks=a.get("checks", True), imputations=a.get("imputations", 0),
         curved_interval=a.get("curved_interval", "test-inversion"), population=a.get("population"),
     )
@@ -495,17 +497,7 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
                          ("curved_interval", CURVED_INTERVALS)):
         _choice(getattr(analysis, key), options, f"analysis.{key}", source)
     margins.check(analysis.margin, 1.0, "analysis.margin", "probabilities or composites", source)
-    _range_check(analysis.level, 0.5, 0.999, "analysis.level", source)
-    _range_check(analysis.knots, 3, 5, "analysis.knots", source)
-    _range_check(analysis.replicates, 20, 100_000, "analysis.replicates", source)
-    _range_check(analysis.workers, -1, 256, "analysis.workers", source)
-    _range_check(analysis.grid, 20, 5000, "analysis.grid", source)
-    if analysis.imputations not in (0,) and not 2 <= analysis.imputations <= 100:
-        raise FulcrumError(f"'analysis.imputations' is {analysis.imputations}; use 0 (complete cases only) or 2 to "
-                           "100 imputations.", file=source, key="analysis.imputations", hint="For example 5 or 20.")
-    if analysis.scheduler is not None and not analysis.scheduler.startswith("tcp://"):
-        raise FulcrumError(f"'analysis.scheduler' should look like tcp://host:port, found '{analysis.scheduler}'.",
-                           file=source, key="analysis.scheduler", hint="Give the Dask scheduler's address.")
+    check_analysis(analysis, source=source)
 
     values = _values(data["values"], by_name, source) if "values" in data else None
     _population_needs(analysis, cohort, data.get("selection", {}), source)
@@ -760,6 +752,7 @@ def spec_to_dict(spec: Spec, relative_to: Path | None = None) -> dict[str, Any]:
     """The spec as TOML-shaped data, defaults filled in, empty optional keys left out."""
 
     out = plain(spec, relative_to)
+    out.get("analysis", {}).pop("scheduler", None)  # set on the command line only, never written to a spec
     for key in ("outcomes", "indices", "maps"):
         out.setdefault(key, [])
     if not out["maps"]:

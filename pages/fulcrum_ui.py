@@ -102,11 +102,12 @@ def demo_spec_path() -> str:
 
 
 def open_spec_file(path: str | Path, is_demo: bool) -> aps.Workspace:
+    from explorer.intake import read_file
     from explorer.spec import load_spec
 
     spec = load_spec(path)
-    return aps.Workspace.open(Path(spec.cohort.path).read_bytes(), Path(spec.cohort.path).name, spec,
-                              is_demo=is_demo)
+    data = read_file(Path(spec.cohort.path), str(spec.cohort.path), "cohort.path")  # located errors, no FIFO
+    return aps.Workspace.open(data, Path(spec.cohort.path).name, spec, is_demo=is_demo)
 
 
 def open_demo() -> aps.Workspace:

@@ -9,12 +9,16 @@ invented demo data (conftest.small_text), edited case by case.
 from __future__ import annotations
 
 import csv
+import io
 import json
+import os
 
 import numpy as np
 import openpyxl
 import pandas as pd
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from explorer import results
 from explorer.analysis import analyse
@@ -578,3 +582,443 @@ def test_bootstrap_with_few_events_in_an_arm_warns_and_stays_finite(write_case, 
     assert "has only 5 patients in the rarer outcome group for 1 model terms (fewer than 10 per term)" in " ".join(
         warnings)
     assert doc["inputs"]["interval"] == "bootstrap"
+
+
+# ================================================================= outputs never destroy inputs (issue 19)
+SMALL = spec_text("alive") + '\n[analysis]\nchecks = false\n'
+
+
+@pytest.fixture
+def case(write_case, text, tmp_path):
+    """(spec path, cohort path, their bytes) of a one-outcome case, for the command line."""
+    write_case(text, SMALL)
+    spec, cohort = tmp_path / "spec.toml", tmp_path / "cohort.csv"
+    return spec, cohort, {spec: spec.read_bytes(), cohort: cohort.read_bytes()}
+
+
+def no_analysis(monkeypatch):
+    """Make any analysis fail the test: refusals of outputs must come before the long work."""
+    import explorer.analysis
+
+    def boom(*a, **k):
+        raise AssertionError("the analysis ran before the outputs were checked")
+
+    monkeypatch.setattr(explorer.analysis, "analyse", boom)
+
+
+def cli(argv, capsys) -> tuple[int, str, str]:
+    capsys.readouterr()
+    code = main([str(a) for a in argv])
+    out, err = capsys.readouterr()
+    assert "Traceback" not in err
+    return code, out, err
+
+
+@pytest.mark.parametrize("flag,target", [("--json", "cohort"), ("--html", "spec"), ("--json", "link"),
+                                         ("--html", "hardlink")])
+def test_an_output_naming_an_input_is_refused_before_analysing(case, capsys, monkeypatch, tmp_path, flag, target):
+    spec, cohort, before = case
+    path = {"cohort": cohort, "spec": spec, "link": tmp_path / "link.csv", "hardlink": tmp_path / "same.toml"}[target]
+    if target == "link":
+        path.symlink_to(cohort)
+    if target == "hardlink":
+        os.link(spec, path)
+    no_analysis(monkeypatch)
+    code, _, err = cli(["analyse", spec, flag, path, "--quiet"], capsys)
+    assert code == 2 and "one of the input files" in err and flag in err
+    assert {p: p.read_bytes() for p in before} == before  # the inputs are untouched
+
+
+def test_two_outputs_naming_one_file_are_refused(case, capsys, monkeypatch, tmp_path):
+    spec, _, _ = case
+    no_analysis(monkeypatch)
+    code, _, err = cli(["analyse", spec, "--json", tmp_path / "out", "--html", tmp_path / "x" / ".." / "out"], capsys)
+    assert code == 2 and "--html and --json name the same file" in err
+    assert not (tmp_path / "out").exists()
+
+
+@pytest.mark.parametrize("kind,words", [("missing folder", "does not exist"), ("folder", "is a folder"),
+                                        ("fifo", "named pipe (FIFO)"), ("device", "a device"),
+                                        ("file as folder", "not a folder")])
+def test_outputs_that_cannot_take_a_file_are_refused_before_analysing(case, capsys, monkeypatch, tmp_path, kind,
+                                                                       words):
+    spec, _, _ = case
+    target = {"missing folder": tmp_path / "nowhere" / "r.json", "folder": tmp_path,
+              "fifo": tmp_path / "pipe", "device": tmp_path / "dev", "file as folder": spec / "r.json"}[kind]
+    if kind == "fifo":
+        os.mkfifo(target)
+    if kind == "device":
+        target.symlink_to(os.devnull)
+    no_analysis(monkeypatch)
+    code, _, err = cli(["analyse", spec, "--json", target], capsys)
+    assert code == 2 and words in err and err.startswith("fulcrum: ") and "What to do" in err
+
+
+@pytest.mark.skipif(os.geteuid() == 0, reason="root may write anywhere, so a read-only folder cannot be made")
+def test_an_unwritable_folder_is_refused_before_analysing(case, capsys, monkeypatch, tmp_path):
+    spec, _, _ = case
+    locked = tmp_path / "locked"
+    locked.mkdir(mode=0o500)
+    no_analysis(monkeypatch)
+    code, _, err = cli(["analyse", spec, "--json", locked / "r.json"], capsys)
+    assert code == 2 and "permission denied" in err
+
+
+def _no_temporary_files(folder) -> None:
+    assert not [p.name for p in folder.iterdir() if p.name.endswith((".part", ".check"))]
+
+
+def test_a_full_disk_leaves_the_old_file_whole_and_names_the_file(tmp_path, monkeypatch):
+    import errno
+
+    from explorer import outputs
+
+    target = tmp_path / "results.json"
+    target.write_text('{"old": true}\n')
+
+    def full(fd):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(outputs.os, "fsync", full)
+    err = refused(outputs.write_atomic, target, "x" * 10_000, "--json")
+    assert "the disk is full" in str(err) and err.file == str(target) and "--json" in str(err)
+    assert target.read_text() == '{"old": true}\n'
+    _no_temporary_files(tmp_path)
+
+
+def test_an_interrupted_write_leaves_no_partial_file(tmp_path, monkeypatch):
+    from explorer import outputs
+
+    target = tmp_path / "report.html"
+
+    def stopped(src, dst):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(outputs.os, "replace", stopped)
+    with pytest.raises(KeyboardInterrupt):
+        outputs.write_atomic(target, "<html>" * 1000)
+    assert not target.exists()
+    _no_temporary_files(tmp_path)
+
+
+def test_a_failure_after_the_first_output_says_what_was_written(case, capsys, monkeypatch, tmp_path):
+    import errno
+
+    from explorer import outputs
+
+    spec, _, _ = case
+    real = outputs.write_atomic
+
+    def html_fails(path, data, flag=None):
+        if str(path).endswith(".html"):
+            raise outputs.os_error(OSError(errno.ENOSPC, "full"), path, "write the file", flag)
+        return real(path, data, flag)
+
+    monkeypatch.setattr(outputs, "write_atomic", html_fails)
+    import explorer.report
+
+    monkeypatch.setattr(explorer.report, "render_report", lambda result: "<html>the report</html>")  # speed only
+    code, _, err = cli(["analyse", spec, "--json", tmp_path / "r.json", "--html", tmp_path / "r.html", "--quiet"],
+                       capsys)
+    assert code == 2 and "the disk is full" in err and f"Written: {tmp_path / 'r.json'}" in err
+    json.loads((tmp_path / "r.json").read_text())  # the file written is whole
+    assert not (tmp_path / "r.html").exists()
+
+
+def test_a_closed_pipe_ends_quietly(case, capsys, monkeypatch):
+    """`fulcrum validate spec.toml | head -1`: the reader goes away; no traceback, no complaint."""
+    import sys
+
+    spec, _, _ = case
+    read_end, write_end = os.pipe()
+    os.close(read_end)
+    saved = os.dup(1)
+    pipe = os.fdopen(write_end, "w", buffering=1)
+    monkeypatch.setattr(sys, "stdout", pipe)
+    try:
+        code = main(["validate", str(spec)])
+    finally:
+        os.dup2(saved, 1)
+        os.close(saved)
+    assert code == 0
+    assert "Traceback" not in capsys.readouterr().err
+
+
+# ============================================================ every setting checked once (issue 19)
+@pytest.mark.parametrize("value", ["1", "-3", "0", "19", "100001"])
+def test_replicates_on_the_command_line_meet_the_spec_limits(case, capsys, monkeypatch, value):
+    spec, _, _ = case
+    no_analysis(monkeypatch)
+    code, _, err = cli(["analyse", spec, "--replicates", value], capsys)
+    assert code == 2 and f"--replicates is {value}, outside 20 to 100,000" in err
+
+
+def test_replicates_in_the_spec_and_in_the_app_give_the_same_words(write_case, text):
+    from explorer import appstate as aps
+
+    err = refused(write_case, text, SMALL.replace("checks = false", "checks = false\nreplicates = 1"))
+    assert "'analysis.replicates' is 1, outside 20 to 100,000" in str(err) and err.key == "analysis.replicates"
+    spec = write_case(text, SMALL)
+    err = refused(aps.with_settings, spec, replicates=1)
+    assert "'analysis.replicates' is 1, outside 20 to 100,000" in str(err)
+
+
+@pytest.mark.parametrize("line,words", [("seed = -1", "'analysis.seed' is -1; it must be 0 or more"), ("workers = 0", "'analysis.workers' is 0"),
+                                        ("workers = -2", "'analysis.workers' is -2")])
+def test_negative_seeds_and_impossible_workers_fail_validate(write_case, text, tmp_path, capsys, line, words):
+    write_case(text, SMALL)
+    spec = tmp_path / "spec.toml"
+    spec.write_text(spec.read_text().replace("checks = false", "checks = false\n" + line))
+    code, _, err = cli(["validate", spec], capsys)
+    assert code == 2 and words in err
+
+
+def test_workers_beyond_the_cores_are_capped_with_a_warning(write_case, text, tmp_path, capsys, monkeypatch):
+    from explorer import resampling, settings
+
+    monkeypatch.setattr(settings, "cores", lambda: 1)
+    write_case(text, SMALL.replace("checks = false", "checks = false\nworkers = 256"))
+    code, out, _ = cli(["validate", tmp_path / "spec.toml"], capsys)
+    assert code == 0 and "asks for 256 parallel workers but this machine has 1 core(s); 1 are used" in out
+    seen = []  # with one core the replicates run in this process, where the list is visible
+
+    def task(rng):
+        seen.append(1)
+        return rng.random()
+
+    assert len(resampling.run_replicates(task, 5, 1, workers=256)) == 5 and len(seen) == 5
+
+
+@pytest.mark.parametrize("argv,words", [(["--n", "5"], "--n is 5"), (["--seed", "-4"], "--seed is -4")])
+def test_demo_settings_are_checked(tmp_path, capsys, argv, words):
+    code, _, err = cli(["demo", tmp_path / "d", *argv], capsys)
+    assert code == 2 and words in err and not (tmp_path / "d").exists()
+
+
+def test_demo_into_a_file_is_refused(tmp_path, capsys):
+    (tmp_path / "taken").write_text("mine")
+    code, _, err = cli(["demo", tmp_path / "taken", "--n", "40"], capsys)
+    assert code == 2 and "taken by a file" in err and (tmp_path / "taken").read_text() == "mine"
+
+
+# ====================================================================== bounded resources (issue 19)
+def _workbook_with_long_texts(text_frame, path) -> None:
+    frame = text_frame.copy()
+    frame["hospital"] = [f"{i:05d}" + "x" * 30_000 if i < 50 else "H1" for i in range(len(frame))]  # packs small
+    frame.to_excel(path, index=False)
+
+
+@pytest.mark.parametrize("where", ["command line", "app"])
+def test_a_workbook_that_unpacks_beyond_the_limit_is_refused_unread(write_case, text, tmp_path, monkeypatch, where):
+    import zipfile
+
+    from explorer import appstate as aps
+
+    monkeypatch.setenv("FULCRUM_MAX_UNPACKED_MB", "1")
+    write_case(text.iloc[:5], SMALL.replace('path = "demo_cohort.csv"', 'path = "cohort.xlsx"'), name="cohort.xlsx")
+    path = tmp_path / "cohort.xlsx"
+    _workbook_with_long_texts(text, path)
+    total = sum(i.file_size for i in zipfile.ZipFile(path).infolist())  # zipfile: the reference sizes
+    assert path.stat().st_size < 300_000 and total > 1_000_000
+    fn = (lambda: load_cohort(load_spec(tmp_path / "spec.toml"))) if where == "command line" else \
+        (lambda: aps.preview(path.read_bytes(), "cohort.xlsx"))
+    err = refused(fn)
+    assert f"would unpack to {total / 1e6:,.0f} MB" in str(err) and "limit of 1 MB" in str(err)
+    assert "FULCRUM_MAX_UNPACKED_MB" in err.hint
+    if where == "app":
+        monkeypatch.setenv("FULCRUM_MAX_UNPACKED_MB", "50")  # raised: the same workbook is read
+        assert len(aps.preview(path.read_bytes(), "cohort.xlsx")) == len(text)
+
+
+@pytest.mark.parametrize("kind,words", [("fifo", "named pipe (FIFO)"), ("device", "a device"),
+                                        ("folder", "a folder")])
+def test_a_cohort_path_that_is_no_ordinary_file_is_named_as_such(write_case, text, tmp_path, kind, words):
+    spec = write_case(text, SMALL)
+    path = tmp_path / "cohort.csv"
+    path.unlink()
+    {"fifo": lambda: os.mkfifo(path), "device": lambda: path.symlink_to(os.devnull),
+     "folder": lambda: path.mkdir()}[kind]()
+    err = refused(load_cohort, spec)  # returns at once: nothing is read from a pipe
+    assert words in str(err) and err.key == "cohort.path" and err.file == str(path)
+
+
+def test_an_unreadable_cohort_file_gets_a_located_message(write_case, text, monkeypatch):
+    from pathlib import Path
+
+    spec = write_case(text, SMALL)
+    real = Path.read_bytes
+
+    def denied(self):
+        if self.name == "cohort.csv":
+            raise PermissionError(13, "Permission denied")
+        return real(self)
+
+    monkeypatch.setattr(Path, "read_bytes", denied)
+    err = refused(load_cohort, spec)
+    assert "could not be read (Permission denied)" in str(err) and err.key == "cohort.path"
+
+
+# ======================================================= no network from a received file (issue 19)
+def test_a_spec_naming_a_scheduler_is_refused_before_any_connection(write_case, text, tmp_path, capsys):
+    write_case(text, SMALL)
+    spec = tmp_path / "spec.toml"
+    spec.write_text(spec.read_text() + 'scheduler = "tcp://203.0.113.9:8786"\n')
+    for command in ("validate", "analyse"):
+        code, _, err = cli([command, spec], capsys)
+        assert code == 2 and "may not name a Dask scheduler" in err and "--scheduler" in err
+
+
+# ================================================================ messages that lead to the fix (issue 19)
+def test_a_thousands_separator_is_not_called_a_decimal_comma(write_case, text):
+    text.loc[3, "days_followed"] = "1,095"
+    err = refused(load_cohort, write_case(text, SMALL))
+    assert "thousands separator" in err.hint and "(1095)" in err.hint and err.rows == [4]
+    text.loc[3, "days_followed"] = "2,5"
+    assert "decimal mark" in refused(load_cohort, write_case(text, SMALL)).hint
+
+
+def test_text_in_an_index_column_is_called_an_index_not_a_covariate(write_case, text):
+    text.loc[[2, 9], "cfs"] = ["frail", "fit"]
+    err = refused(load_cohort, write_case(text, SMALL))
+    assert "an index must be numbers" in str(err) and "covariate" not in str(err)
+    assert err.key == "indices 'cfs'.column" and err.rows == rows_where(text["cfs"].isin(["frail", "fit"]))
+
+
+def test_an_all_empty_index_column_is_blamed_on_the_index(write_case, text):
+    text["cfs"] = ""
+    err = refused(load_cohort, write_case(text, SMALL))
+    assert err.column == "cfs" and err.key == "indices 'cfs'.column" and "every cell of the column is empty" in str(err)
+
+
+def test_labels_differing_only_in_unicode_form_are_one_label(write_case, text):
+    import unicodedata
+
+    composed = "op\u00e9ration"
+    decomposed = unicodedata.normalize("NFD", composed)
+    assert composed != decomposed
+    text["arm"] = text["arm"].replace({"laparotomy": decomposed})
+    cohort = load_cohort(write_case(text, SMALL.replace('"laparotomy"', f'"{composed}"')))
+    assert cohort.counts().loc[composed].sum() == (text["arm"] == decomposed).sum()
+    assert any("decomposed Unicode form" in n for n in cohort.notes)
+
+
+def test_row_numbers_say_they_count_data_rows(write_case, text):
+    text.loc[6, "died"] = "2"
+    err = refused(load_cohort, write_case(text, SMALL))
+    assert "data row 7 (counted below the header: spreadsheet row = data row + 1)" in str(err)
+    assert "found '2' (1)" in str(err)  # echoed as written in the file, not '2.0'
+
+
+def test_formula_messages_name_the_column_and_the_index_as_the_spec_does(write_case, text):
+    text = text.rename(columns={"lactate": "lactate mmol"})
+    index = '[[indices]]\nname = "phys"\nformula = "`lactate mmol`(2) + 1"\n'
+    err = refused(load_cohort, write_case(text, spec_text("alive", index=index)))
+    assert "'lactate mmol' is a column, not a function" in str(err) and err.key == "indices 'phys'.formula"
+    assert "double underscore" not in str(err)
+
+
+# ========================================================================== odd files (issue 19)
+def test_trailing_empty_rows_are_not_patients(write_case, text, tmp_path):
+    data = text.to_csv(index=False) + ("," * (len(text.columns) - 1) + "\n") * 3
+    cohort = load_cohort(write_case(data, SMALL))
+    assert cohort.n == len(text)
+    assert any(f"3 empty row(s) at the end of the file (data rows {len(text) + 1} to {len(text) + 3})" in n
+               for n in cohort.notes)
+
+
+def test_hidden_spreadsheet_rows_are_noted(write_case, text, tmp_path):
+    spec = write_case(text, SMALL.replace('path = "demo_cohort.csv"', 'path = "cohort.xlsx"'), name="cohort.xlsx")
+    book = openpyxl.load_workbook(tmp_path / "cohort.xlsx")
+    for r in (5, 9):
+        book.active.row_dimensions[r].hidden = True
+    book.save(tmp_path / "cohort.xlsx")
+    cohort = load_cohort(spec)
+    assert cohort.n == len(text)
+    assert any("2 row(s) of the sheet are hidden" in n and "spreadsheet rows 5, 9" in n for n in cohort.notes)
+
+
+def test_a_sheet_named_for_a_csv_is_noted(write_case, text):
+    cohort = load_cohort(write_case(text, SMALL.replace('arm = "arm"', 'arm = "arm"\nsheet = "cohort"')))
+    assert any("cohort.sheet = 'cohort' was ignored" in n for n in cohort.notes)
+
+
+def test_csv_exports_keep_semicolon_cells_whole(text):
+    from explorer.exports import to_csv_safe
+
+    payload = "lap;=cmd|' /C calc'!A0"
+    frame = pd.DataFrame({"arm": [payload, "non-operative"], "difference": [0.1, -0.2]})
+    data = to_csv_safe(frame).decode("utf-8-sig")
+    for sep in (",", ";"):  # a spreadsheet in a semicolon locale splits on ';' (Python's csv module, reference)
+        cells = [c for row in csv.reader(io.StringIO(data, newline=""), delimiter=sep) for c in row]
+        assert not any(c.lstrip().startswith(("=", "+", "@")) for c in cells), (sep, cells)
+    assert next(csv.reader(io.StringIO(data.splitlines()[1]), delimiter=";"))[0].startswith("lap;=cmd")
+
+
+# ========================================================= property: command-line flags end cleanly (issue 19)
+HOSTILE_TOKENS = ["", " ", "--", "-x", "--jso", "--replicates=abc", "--replicates", "\x00", "caf\u00e9", "--quiet=1",
+                  "--scheduler=", "--html"]
+PLACES = ["new", "other", "spec", "cohort", "folder", "missing", "fifo", "device", "empty", "link", "nested"]
+
+
+@pytest.fixture(scope="module")
+def flag_case(tmp_path_factory, small_text):
+    """A folder with a one-outcome spec and its cohort, a FIFO, a link to a device and a link to the cohort, and
+    the real results of the spec (so each example is quick: the property is about the flags, not the fit)."""
+    folder = tmp_path_factory.mktemp("flags")
+    t = small_text.copy()
+    t.to_csv(folder / "cohort.csv", index=False)
+    (folder / "spec.toml").write_text(SMALL.replace('path = "demo_cohort.csv"', 'path = "cohort.csv"'))
+    os.mkfifo(folder / "fifo")
+    (folder / "device").symlink_to(os.devnull)
+    (folder / "link").symlink_to(folder / "cohort.csv")
+    (folder / "folder").mkdir()
+    return folder, analyse(load_spec(folder / "spec.toml"))
+
+
+def _place(folder, name: str) -> str:
+    return {"new": folder / "out.json", "other": folder / "out.html", "spec": folder / "spec.toml",
+            "cohort": folder / "cohort.csv", "folder": folder / "folder", "missing": folder / "no" / "r.json",
+            "fifo": folder / "fifo", "device": folder / "device", "empty": "", "link": folder / "link",
+            "nested": folder / "folder" / ".." / "out.json"}[name].__str__()
+
+
+@pytest.mark.slow
+@settings(max_examples=35, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(command=st.sampled_from(["analyse", "analyse", "validate"]),
+       json_to=st.none() | st.sampled_from(PLACES), html_to=st.none() | st.sampled_from(PLACES),
+       replicates=st.none() | st.integers(-10**12, 10**12) | st.sampled_from(["0", "1", "20", "1e3", "x"]),
+       scheduler=st.none() | st.sampled_from(["", "tcp://", "udp://h:1", "tcp://127.0.0.1:9", "http://x"]),
+       quiet=st.booleans(), junk=st.lists(st.sampled_from(HOSTILE_TOKENS), max_size=2))
+def test_command_line_flags_only_end_cleanly(flag_case, monkeypatch, capsys, command, json_to, html_to, replicates,
+                                             scheduler, quiet, junk):
+    """Any mix of flags ends in exit 0, or exit 2 with a message; never a traceback, never a changed input."""
+    import explorer.analysis
+    import explorer.report
+
+    folder, result = flag_case
+    monkeypatch.setattr(explorer.analysis, "analyse", lambda spec, **kw: result)  # no connection is ever made
+    monkeypatch.setattr(explorer.report, "render_report", lambda r: "<html>the report</html>")
+    inputs = {p: p.read_bytes() for p in (folder / "spec.toml", folder / "cohort.csv")}
+    argv = [command, str(folder / "spec.toml")]
+    if command == "analyse":
+        for flag, value in (("--json", json_to), ("--html", html_to)):
+            if value is not None:
+                argv += [flag, _place(folder, value)]
+        if replicates is not None:
+            argv += ["--replicates", str(replicates)]
+        if scheduler is not None:
+            argv += ["--scheduler", scheduler]
+        argv += ["--quiet"] * quiet
+    argv += junk
+    capsys.readouterr()
+    try:
+        code = main(argv)
+    except SystemExit as exc:  # argparse's own refusals (a usage line and exit 2) or --help (exit 0)
+        code = exc.code
+    err = capsys.readouterr().err
+    assert code in (0, 2), (argv, code, err)
+    assert "Traceback" not in err, argv
+    if code == 2:
+        assert err.startswith(("fulcrum: ", "usage: ")) and err.strip(), (argv, err)
+    assert {p: p.read_bytes() for p in inputs} == inputs, argv
+    assert (folder / "fifo").is_fifo() and (folder / "device").is_symlink()

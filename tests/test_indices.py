@@ -89,7 +89,7 @@ def test_a_constant_index_is_refused() -> None:
                                                                                             formula="flat * 2")])
     with pytest.raises(FulcrumError, match="index 'flat' does not vary: every patient with a value has 6") as info:
         compute_index(spec.indices[1], frame, spec=spec)
-    assert info.value.key == "indices[1]"
+    assert info.value.key == "indices 'flat'"  # the spec parser's form: by name
 
 
 def test_text_in_an_index_column_names_the_rows() -> None:
@@ -98,7 +98,7 @@ def test_text_in_an_index_column_names_the_rows() -> None:
     spec = make_spec([OUTCOMES["survival"]], [IndexSpec(name="cfs", column="cfs")])
     with pytest.raises(FulcrumError) as info:
         compute_index(spec.indices[0], frame, spec=spec)
-    assert info.value.rows == [5] and info.value.column == "cfs" and info.value.key == "indices[0].column"
+    assert info.value.rows == [5] and info.value.column == "cfs" and info.value.key == "indices 'cfs'.column"
 
 
 def test_formula_index_matches_numpy_and_counts_missing_inputs() -> None:
@@ -123,7 +123,7 @@ def test_a_bad_formula_names_its_key() -> None:
                                              IndexSpec(name="bad", formula="agee + 1")])
     with pytest.raises(FulcrumError, match="'agee' is not a column") as info:
         compute_index(spec.indices[1], cohort(), spec=spec)
-    assert info.value.key == "indices[1].formula" and info.value.hint == "Did you mean 'age'?"
+    assert info.value.key == "indices 'bad'.formula" and info.value.hint == "Did you mean 'age'?"
 
 
 def test_percentile_of_matches_scipy() -> None:
@@ -384,7 +384,7 @@ def test_prognostic_errors_name_the_problem() -> None:
     spec, index = prognostic_spec("continuous", covariates=("age", "flat"))
     with pytest.raises(FulcrumError, match="covariate 'flat' is constant") as info:
         compute_index(index, frame.assign(flat=1.0), spec=spec)
-    assert info.value.key == "indices[0].prognostic.covariates"
+    assert info.value.key == "indices 'risk'.prognostic.covariates"
     spec, index = prognostic_spec("binary")
     with pytest.raises(FulcrumError, match="every patient in the conservative arm has the same value of 'dead90'"):
         compute_index(index, frame.assign(dead90=0.0), spec=spec)

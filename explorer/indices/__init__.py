@@ -192,11 +192,8 @@ def needed_columns(spec: Spec) -> list[str]:
 
 
 def index_key(spec: Spec, spec_index: IndexSpec) -> str:
-    """The spec key path of an index, e.g. 'indices[2]' (0-based as in the spec parser's messages)."""
-    for i, ix in enumerate(spec.indices):
-        if ix is spec_index or ix.name == spec_index.name:
-            return f"indices[{i}]"
-    return f"indices.{spec_index.name}"
+    """The spec key path of an index as the spec parser and the cohort loader write it: indices 'name'."""
+    return f"indices '{spec_index.name}'"
 
 
 def _describe(spec_index: IndexSpec, values: np.ndarray, key: str) -> dict[str, Any]:

@@ -343,6 +343,9 @@ class _Checker:
             self.check(node.func)
             raise f.refuse(node.func, "only the listed functions can be called")
         ident = node.func.id
+        if ident in f._names:  # a `quoted column` followed by brackets
+            raise f.refuse(node.func, f"'{f._names[ident]}' is a column, not a function",
+                           "Put an operator between a column and a bracket, e.g. `days followed` * (2).")
         if ident.startswith("__") or ident.endswith("__"):
             raise f.refuse(node.func, "names with double underscores are not allowed",
                            "Use column names and the listed functions only.")

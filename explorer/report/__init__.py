@@ -520,6 +520,6 @@ def render_report(result: Any, *, extra_sections: Iterable[Section | Mapping[str
 
 def write_report(result: Any, path: str | Path, **kwargs: Any) -> Path:
     """Write the report to `path` (UTF-8) and return the path."""
-    path = Path(path)
-    path.write_text(render_report(result, **kwargs), encoding="utf-8")
-    return path
+    from ..outputs import write_atomic
+
+    return write_atomic(Path(path), render_report(result, **kwargs))

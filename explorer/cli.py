@@ -82,7 +82,7 @@ def cmd_analyse(args: argparse.Namespace) -> int:
 
         spec = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, scheduler=args.scheduler))
     bar = ProgressBar("bootstrap") if spec.analysis.interval == "bootstrap" and not args.quiet else None
-    result = analyse(spec, spec_bytes=Path(args.spec).read_bytes(), progress=bar)
+    result = analyse(spec, _load(spec, args), spec_bytes=Path(args.spec).read_bytes(), progress=bar)
     if args.json:
         res.write(result.document, args.json)
     if args.html:
@@ -96,17 +96,24 @@ def cmd_analyse(args: argparse.Namespace) -> int:
     return 0
 
 
-def cmd_validate(args: argparse.Namespace) -> int:
+def _load(spec, args: argparse.Namespace):
+    """The spec's cohort; a database server is contacted only with --allow-connect."""
     from .cohort import load_cohort
-    from .indices import compute_index, needed_columns
+    from .indices import needed_columns
+
+    return load_cohort(spec, extra_columns=needed_columns(spec), allow_connect=args.allow_connect)
+
+
+def cmd_validate(args: argparse.Namespace) -> int:
+    from .indices import compute_index
     from .spec import load_spec
 
     spec = load_spec(args.spec)
-    cohort = load_cohort(spec, extra_columns=needed_columns(spec))
+    cohort = _load(spec, args)
     warnings = list(cohort.warnings)
     for ix in spec.indices:
         warnings.extend(compute_index(ix, cohort.frame, spec=spec).warnings)
-    print(f"{spec.cohort.path.name}: {len(cohort.frame)} patients, sha256 {cohort.sha256[:12]}...")
+    print(f"{printable(cohort.name)}: {len(cohort.frame)} patients, sha256 {cohort.sha256[:12]}...")
     print(cohort.counts().to_string())
     for n in cohort.notes:
         print(f"note: {n}")
@@ -179,6 +186,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     v = sub.add_parser("validate", help="check a spec and its cohort, print the report")
     v.add_argument("spec")
+    for cmd in (a, v):
+        cmd.add_argument("--allow-connect", action="store_true",
+                         help="allow reading the cohort from the database server the spec names (never by default)")
     v.set_defaults(func=cmd_validate)
 
     d = sub.add_parser("demo", help="write the invented demo cohort and its spec into DIR")

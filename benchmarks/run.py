@@ -4,7 +4,9 @@
 
 (a) one per-arm Cox fit, (b) one proportional-odds fit, (c) the demo spec (3 outcomes x 2 indices) with
 bootstrap replicates, (d) re-weighting the composite, (e) peak memory of a 1M-row x 20-column analysis,
-(f) a 1M-row survival analysis end to end, (g) the whole demo spec with analytic intervals at 10k patients.
+(f) a 1M-row survival analysis end to end, (g) the whole demo spec with analytic intervals at 10k patients,
+(i) a survival analysis on a DuckDB file of 10M patients x 20 columns against the same rows in Parquet
+(`--only-database` runs (i) alone).
 Medians of repeated runs; targets are printed beside the
 measurements (DESIGN.md section 8) and are never asserted in tests. The data are the invented demo cohort.
 """
@@ -51,13 +53,14 @@ EXTRA = {"heart_rate": (92.0, 16.0), "systolic_bp": (128.0, 22.0), "creatinine":
 
 SETTINGS = {
     "full": dict(cox=(10_000, 100_000, 1_000_000), ordinal=(10_000, 100_000), boot_n=10_000, replicates=1000,
-                 ref_replicates=3, big=1_000_000, runs=5, ref_runs=3),
+                 ref_replicates=3, big=1_000_000, runs=5, ref_runs=3, database_n=10_000_000),
     "quick": dict(cox=(10_000, 100_000), ordinal=(10_000, 50_000), boot_n=5_000, replicates=200,
-                  ref_replicates=1, big=200_000, runs=3, ref_runs=1),
+                  ref_replicates=1, big=200_000, runs=3, ref_runs=1, database_n=1_000_000),
 }
 TARGETS = {"cox_fit_ratio": (">=", 10.0), "bootstrap_seconds": ("<=", 60.0), "bootstrap_ratio": (">=", 20.0),
            "reweight_ms": ("<=", 50.0), "peak_rss_mb": ("<=", 2500.0), "survival_1m_seconds": ("<=", 20.0),
-           "full_analytic_seconds": ("<=", 2.0)}
+           "full_analytic_seconds": ("<=", 2.0), "duckdb_10m_seconds": ("<=", 60.0),
+           "duckdb_10m_peak_mb": ("<=", 4096.0)}
 
 
 # ------------------------------------------------------------------------------------------
@@ -358,6 +361,7 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--quick", action="store_true", help="smaller sizes, under 5 minutes")
     p.add_argument("--json", metavar="OUT", help="write the measurements here")
     p.add_argument("--workdir", help="keep generated data here (default: a temporary folder, removed)")
+    p.add_argument("--only-database", action="store_true", help="run only (i), the DuckDB file")
     args = p.parse_args(argv)
     mode = "quick" if args.quick else "full"
     s = SETTINGS[mode]
@@ -369,7 +373,9 @@ def main(argv: list[str] | None = None) -> int:
     say(f"Fulcrum benchmark ({mode}) on {report['machine']['nproc']} x {report['machine']['cpu']}, load average "
         f"{' '.join(f'{v:.2f}' for v in report['load_average_start'])}")
     try:
-        run_all(report, s, work)
+        if not args.only_database:
+            run_all(report, s, work)
+        database_run(report, s, work)
     finally:
         if not args.workdir:
             shutil.rmtree(work, ignore_errors=True)
@@ -457,6 +463,29 @@ def run_all(report: dict, s: dict, work: Path) -> None:
     say(f"  wall {f['seconds']:.1f} s (CPU {f['cpu_seconds']:.1f} s: user {f['user_seconds']:.1f}, system "
         f"{f['system_seconds']:.1f}; peak RSS {f['peak_rss_mb']:.0f} MB, load average {f['load_average'][0]:.1f})"
         + (verdict("survival_1m_seconds", f["seconds"]) if len(big) >= 1_000_000 else " [1M target: full run]"))
+
+
+def database_run(report: dict, s: dict, work: Path) -> None:
+    from database_case import database_case
+
+    n = s["database_n"]
+    say(f"(i) survival analysis end to end on a DuckDB file of {n:,} patients x 20 columns (fulcrum analyse in a "
+        "fresh process), against the same rows in Parquet")
+    i = database_case(work / "database", n, SEED, cli_run)
+    report["database"] = i
+    full = n >= 10_000_000
+    report["duckdb_10m_seconds"] = i["duckdb"]["seconds"] if full else None
+    report["duckdb_10m_peak_mb"] = i["duckdb"]["peak_rss_mb"] if full else None
+    note = "" if full else " [10M target: full run]"
+    say(f"  files written in {i['write_s']:.0f} s (DuckDB file {i['file_mb']:.0f} MB); read {len(i['columns_read'])} "
+        f"of {i['columns']} columns ({', '.join(i['columns_read'])}), {i['rows_read']:,} rows")
+    for name in ("duckdb", "parquet"):
+        r = i[name]
+        say(f"  {name}: wall {r['seconds']:.1f} s (CPU {r['cpu_seconds']:.1f} s), peak RSS {r['peak_rss_mb']:.0f} MB"
+            + ((verdict("duckdb_10m_seconds", r["seconds"]) + verdict("duckdb_10m_peak_mb", r["peak_rss_mb"]))
+               if name == "duckdb" and full else note if name == "duckdb" else ""))
+    say(f"  ratio DuckDB / Parquet: wall {i['ratio_seconds']:.2f}x, peak {i['ratio_peak']:.2f}x; same break-even "
+        f"points: {'yes' if i['same_results_as_parquet'] else 'NO'}")
 
 
 if __name__ == "__main__":

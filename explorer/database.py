@@ -273,10 +273,10 @@ def select_sql(source: Source, table: str | None, query: str | None, columns: Se
 # ---------------------------------------------------------------------------------------------
 # Reading
 # ---------------------------------------------------------------------------------------------
-def read(cohort: Any, columns: Sequence[str], *, allow_connect: bool = False,
+def read(cohort: Any, columns: Sequence[str] | None, *, allow_connect: bool = False,
          check_header: Callable[[list[str], str], None] | None = None) -> Extract:
-    """Read `columns` of the cohort's table or query; `check_header(names, shown)` sees every column name
-    first (shown names the source for messages)."""
+    """Read `columns` (None: all) of the cohort's table or query; `check_header(names, shown)` sees every column
+    name first (shown names the source for messages)."""
     source = parse_url(cohort.database)
     what = f"table {cohort.table}" if cohort.table else "the cohort query"
     shown = f"{source.shown} ({what})"
@@ -284,7 +284,7 @@ def read(cohort: Any, columns: Sequence[str], *, allow_connect: bool = False,
         header = list(run(select_sql(source, cohort.table, cohort.query, None, limit=0))[0])
         if check_header is not None:
             check_header(header, shown)
-        wanted = set(columns)  # read in the table's own column order, as a file's columns are
+        wanted = set(header if columns is None else columns)  # in the table's own order, as a file's columns
         names, arrays = run(select_sql(source, cohort.table, cohort.query, [h for h in header if h in wanted]))
     out = {n: _column(a) for n, a in zip(names, arrays)}
     if not out or not len(next(iter(out.values()))):
@@ -294,6 +294,25 @@ def read(cohort: Any, columns: Sequence[str], *, allow_connect: bool = False,
                   "columns": list(out), "data_sha256": data_sha256(out)}
     provenance.update({"table": cohort.table} if cohort.table else {"query": cohort.query})
     return Extract(columns=out, provenance=provenance, shown=shown)
+
+
+def snapshot(url: str, table: str | None, query: str | None, password_env: str | None, allow_connect: bool,
+             base_dir: Path | str = ".") -> tuple[bytes, str, dict[str, Any]]:
+    """Every column of a table or query as Parquet bytes, for the app (where columns are chosen after reading),
+    with its provenance. The same checks as a spec's keys apply before anything is opened."""
+    import io
+    import types
+
+    import pyarrow.parquet as pq
+
+    given = {k: v for k, v in (("database", url), ("table", table), ("query", query),
+                               ("password_env", password_env)) if v}
+    keys = cohort_source(types.SimpleNamespace(table=given, get=given.get), Path(base_dir), "the app")
+    extract = read(types.SimpleNamespace(**{k: keys[k] for k in ("database", "table", "query", "password_env")}),
+                   None, allow_connect=allow_connect)
+    buffer = io.BytesIO()
+    pq.write_table(pa.table(extract.columns), buffer)
+    return buffer.getvalue(), "database-extract.parquet", extract.provenance
 
 
 def data_sha256(columns: dict[str, pa.ChunkedArray]) -> str:

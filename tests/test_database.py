@@ -403,3 +403,36 @@ def test_a_spec_with_a_database_round_trips_through_toml(folder: Path) -> None:
     spec = spec_for(folder, 'database = "sqlite:///cohort.sqlite"\nquery = "SELECT * FROM cohort"', "rt")
     again = parse_spec_text(to_toml(spec), base_dir="/")
     assert again.cohort == spec.cohort and spec.cohort.database == f"sqlite:///{folder.resolve()}/cohort.sqlite"
+
+
+# ---------------------------------------------------------------------------------------------
+# The app's Cohort page
+# ---------------------------------------------------------------------------------------------
+@pytest.mark.slow
+def test_the_cohort_page_reads_a_database_and_asks_before_contacting_a_server(folder: Path,
+                                                                             monkeypatch: pytest.MonkeyPatch) -> None:
+    from streamlit.testing.v1 import AppTest
+
+    def no_connection(*args, **kwargs):
+        raise AssertionError("a connection was attempted")
+
+    monkeypatch.setattr(psycopg, "connect", no_connection)
+    at = AppTest.from_file(str(Path(__file__).resolve().parents[1] / "pages" / "app.py"), default_timeout=240)
+    at.run()
+
+    def fill(url: str, table: str, allow: bool = False) -> None:
+        next(t for t in at.text_input if t.label == "Database URL").set_value(url)
+        next(t for t in at.text_input if t.label.startswith("Table or view")).set_value(table)
+        next(c for c in at.checkbox if c.label.startswith("Allow Fulcrum to connect")).set_value(allow)
+        next(b for b in at.button if b.label == "Read from the database").click().run()
+
+    fill("postgresql://reader@127.0.0.1:9/registry", "clinic.cohort")
+    assert any("contacts a server only when you say so" in e.value for e in at.error)
+    fill(f"duckdb:////{folder.resolve().as_posix().lstrip('/')}/cohort.duckdb", "registry.cohort")
+    assert not at.exception and not [e.value for e in at.error]
+    shown = "\n".join(str(c.value) for c in at.caption)
+    assert "Read 400 rows of table registry.cohort from duckdb" in shown and "cohort.duckdb" in shown
+    next(b for b in at.button if b.label == "Check and use").click().run()
+    assert not at.exception and not [e.value for e in at.error]
+    ws = at.session_state["workspace"]
+    assert ws.cohort.n == 400 and ws.filename == "database-extract.parquet" and not ws.is_demo

@@ -104,7 +104,11 @@ def database_case(folder: Path, n: int, seed: int, cli_run: Callable[[Path, Path
 
     folder.mkdir(parents=True, exist_ok=True)
     t = time.perf_counter()
-    write_files(folder, n, seed)
+    stamp, made = folder / "made.txt", f"{n} {seed} {CHUNK}"
+    if not (stamp.exists() and stamp.read_text() == made):  # a kept --workdir reuses the files it made
+        stamp.unlink(missing_ok=True)
+        write_files(folder, n, seed)
+        stamp.write_text(made)
     written = time.perf_counter() - t
     specs = {}
     for name, source in (("duckdb", 'database = "duckdb:///registry.duckdb"\ntable = "clinic.cohort"'),

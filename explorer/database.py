@@ -29,7 +29,8 @@ from .errors import FulcrumError, printable
 KEYS = {
     "database": ("str", "Read the cohort from a database instead of a file: duckdb:///file.duckdb or "
                         "sqlite:///file.sqlite (relative to the spec; four slashes for an absolute path), or "
-                        "postgresql://user@host:port/dbname (contacted only with --allow-connect)."),
+                        "postgresql://user@host:port/dbname (contacted only with --allow-connect; encrypted unless "
+                        "the server is on this machine or ?sslmode= says otherwise)."),
     "table": ("str", "With database: the table or view to read, e.g. registry.cohort."),
     "query": ("str", "With database, instead of table: one SELECT statement whose result is the cohort."),
     "password_env": ("str", "With a PostgreSQL database: the environment variable (its name must begin "
@@ -38,7 +39,7 @@ KEYS = {
 DIALECTS = {"duckdb": "duckdb", "sqlite": "sqlite", "postgresql": "postgres"}
 FILE_KINDS = ("duckdb", "sqlite")
 PASSWORD_VAR = re.compile(r"FULCRUM_[A-Z0-9_]+")
-URL_PARAMETERS = ("sslmode",)  # the only connection parameters a spec may set
+URL_PARAMETERS = ("sslmode",)  # the only connection parameter a spec may set (default: require, except on loopback)
 CONNECT_TIMEOUT = 10  # seconds
 # functions that read files, reach the network or other databases, run commands, or read the environment
 # (common practice: the server-side file and remote-access functions of PostgreSQL, DuckDB and SQLite)
@@ -444,7 +445,8 @@ def _postgresql(source: Source, secret: str | None):
     import psycopg
 
     con = psycopg.connect(host=source.host, port=source.port, user=source.user, dbname=source.dbname,
-                          password=secret, sslmode=source.sslmode or "prefer", connect_timeout=CONNECT_TIMEOUT,
+                          password=secret, sslmode=source.sslmode or _default_sslmode(source.host),
+                          connect_timeout=CONNECT_TIMEOUT,
                           application_name="fulcrum", options="-c default_transaction_read_only=on")
     con.read_only = True
 
@@ -455,6 +457,17 @@ def _postgresql(source: Source, secret: str | None):
             return names, _arrays(cur.fetchall(), len(names))
 
     return con, run
+
+
+def _default_sslmode(host: str) -> str:
+    """Encrypted unless the server is on this machine (a URL may still say ?sslmode=...)."""
+    import ipaddress
+
+    try:
+        local = ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        local = host == "localhost"
+    return "prefer" if local else "require"
 
 
 def _arrays(rows: list[tuple], width: int) -> list[pa.Array]:

@@ -390,6 +390,13 @@ def test_database_cohort_messages_name_the_table_and_column(folder: Path, tmp_pa
         load_cohort(spec)
 
 
+def test_a_remote_server_is_reached_encrypted_unless_the_url_says_otherwise() -> None:
+    assert database._default_sslmode("db.example.org") == "require"  # common practice for registry servers
+    assert database._default_sslmode("10.1.2.3") == "require"
+    assert database._default_sslmode("127.0.0.1") == "prefer" and database._default_sslmode("localhost") == "prefer"
+    assert database.parse_url("postgresql://reader@db.example.org/registry?sslmode=verify-full").sslmode == "verify-full"
+
+
 def test_a_spec_with_a_database_round_trips_through_toml(folder: Path) -> None:
     from explorer.spec import to_toml
 

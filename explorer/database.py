@@ -444,8 +444,10 @@ def _sqlite(source: Source, secret: str | None):
 def _postgresql(source: Source, secret: str | None):
     import psycopg
 
+    # password "" and no password file: libpq must not fall back on PGPASSWORD or ~/.pgpass, so the password
+    # comes only from the variable the spec names
     con = psycopg.connect(host=source.host, port=source.port, user=source.user, dbname=source.dbname,
-                          password=secret, sslmode=source.sslmode or _default_sslmode(source.host),
+                          password=secret or "", passfile=os.devnull, sslmode=source.sslmode or _default_sslmode(source.host),
                           connect_timeout=CONNECT_TIMEOUT,
                           application_name="fulcrum", options="-c default_transaction_read_only=on")
     con.read_only = True

@@ -250,6 +250,14 @@ def test_the_password_never_appears_in_outputs_logs_or_messages(folder: Path, se
     err = capsys.readouterr().err
     assert "password authentication failed" in err and SECRET not in err, err
     os.environ[PASSWORD_VAR] = SECRET
+    # without password_env, libpq's own sources (PGPASSWORD, ~/.pgpass) are not used either
+    no_env = parse_spec_text(SPEC.format(source=pg.replace(f'password_env = "{PASSWORD_VAR}"', "")), base_dir=tmp_path)
+    os.environ["PGPASSWORD"] = SECRET
+    try:
+        with pytest.raises(FulcrumError, match="no password supplied"):
+            load_cohort(no_env, allow_connect=True)
+    finally:
+        del os.environ["PGPASSWORD"]
     spec_path.write_text(SPEC.format(source=pg).replace('arm = "arm"', f'arm = "{SECRET}"'))
     assert cli.main(["validate", str(spec_path), "--allow-connect"]) == 2
     err = capsys.readouterr().err

@@ -306,6 +306,9 @@ def snapshot(url: str, table: str | None, query: str | None, password_env: str |
 
     import pyarrow.parquet as pq
 
+    if not url:
+        raise FulcrumError("no database URL was given.", key="cohort.database",
+                           hint="For example duckdb:///registry.duckdb or postgresql://reader@host:5432/registry.")
     given = {k: v for k, v in (("database", url), ("table", table), ("query", query),
                                ("password_env", password_env)) if v}
     keys = cohort_source(types.SimpleNamespace(table=given, get=given.get), Path(base_dir), "the app")

@@ -2,13 +2,15 @@
 """Set-up and run Fulcrum from a fresh clone with nothing but python3.
 
     python3 dev.py app     # make .venv, install, write the demo cohort, start the app on it
-    python3 dev.py test    # make .venv, install with test extras (and Debian's chromium), run every test
+    python3 dev.py test    # make .venv, install with test extras (and Debian's chromium and postgresql), run every test
 
-Each command creates (or reuses) .venv beside this file; nothing is installed system-wide
-except Debian's chromium for the browser tests, installed with apt when it is missing.
+Each command creates (or reuses) .venv beside this file; nothing is installed system-wide except
+Debian's chromium for the browser tests and Debian's postgresql for the database tests (which start
+their own server, as the unprivileged postgres account), installed with apt when missing.
 """
 from __future__ import annotations
 
+import glob
 import hashlib
 import os
 import shutil
@@ -39,16 +41,31 @@ def ensure_venv(extras: str) -> None:
     STAMP.write_text(key)
 
 
-def ensure_chromium() -> None:
-    """Browser tests drive Debian's chromium; install it with apt when missing (root only)."""
-    if shutil.which("chromium") or Path("/usr/bin/chromium").exists():
+def ensure_debian(packages: list[str], present: bool, what: str) -> None:
+    """Install Debian packages with apt when they are missing (root only); say which tests will fail if not."""
+    if present:
         return
     if os.geteuid() != 0 or not shutil.which("apt-get"):
-        print("chromium is missing and cannot be installed here; browser tests will fail.", flush=True)
+        print(f"{packages[0]} is missing and cannot be installed here; {what} tests will fail.", flush=True)
         return
     env = dict(os.environ, DEBIAN_FRONTEND="noninteractive")
     run(["apt-get", "update", "-q"], env=env)
-    run(["apt-get", "install", "-y", "-q", "--no-install-recommends", "chromium", "fonts-dejavu-core"], env=env)
+    run(["apt-get", "install", "-y", "-q", "--no-install-recommends", *packages], env=env)
+
+
+def ensure_chromium() -> None:
+    """Browser tests drive Debian's chromium."""
+    present = bool(shutil.which("chromium")) or Path("/usr/bin/chromium").exists()
+    ensure_debian(["chromium", "fonts-dejavu-core"], present, "browser")
+
+
+def ensure_postgresql() -> None:
+    """Database tests start Debian's PostgreSQL server themselves (initdb in a temporary folder, as the
+    postgres account the package creates, when run as root)."""
+    present = bool(glob.glob("/usr/lib/postgresql/*/bin/initdb")) or bool(shutil.which("initdb"))
+    if os.geteuid() == 0 and present:
+        present = subprocess.run(["id", "postgres"], capture_output=True).returncode == 0
+    ensure_debian(["postgresql"], present, "database")
 
 
 def cmd_app(args: list[str]) -> int:
@@ -59,6 +76,7 @@ def cmd_app(args: list[str]) -> int:
 def cmd_test(args: list[str]) -> int:
     ensure_venv("test,cluster")
     ensure_chromium()
+    ensure_postgresql()
     workers = ["-n", "2"] if not any(a.startswith("-n") for a in args) else []
     code = subprocess.call([str(PY), "-m", "pytest", *workers, *args], cwd=ROOT)
     if code == 5:

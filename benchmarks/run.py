@@ -7,6 +7,8 @@ bootstrap replicates, (d) re-weighting the composite, (e) peak memory of a 1M-ro
 (f) a 1M-row survival analysis end to end, (g) the whole demo spec with analytic intervals at 10k patients,
 (h) the app in Debian's Chromium on the demo (first page, page switches, a control change) and the offline
 report's size and opening time (benchmarks/app_speed.py; `--only-app` runs just this),
+(i) a survival analysis on a DuckDB file of 10M patients x 20 columns against the same rows in Parquet
+(`--only-database` runs (i) alone),
 (l) bootstrap replicates refitting the cross-fitted prognostic index (refit_index = true) at 2,400 patients.
 Medians of repeated runs; targets are printed beside the
 measurements (DESIGN.md section 8) and are never asserted in tests. The data are the invented demo cohort.
@@ -54,13 +56,16 @@ EXTRA = {"heart_rate": (92.0, 16.0), "systolic_bp": (128.0, 22.0), "creatinine":
 
 SETTINGS = {
     "full": dict(cox=(10_000, 100_000, 1_000_000), ordinal=(10_000, 100_000), boot_n=10_000, replicates=1000,
-                 ref_replicates=3, big=1_000_000, runs=5, ref_runs=3, refit_n=2400, refit_replicates=1000),
+                 ref_replicates=3, big=1_000_000, runs=5, ref_runs=3, refit_n=2400, refit_replicates=1000,
+                 database_n=10_000_000),
     "quick": dict(cox=(10_000, 100_000), ordinal=(10_000, 50_000), boot_n=5_000, replicates=200,
-                  ref_replicates=1, big=200_000, runs=3, ref_runs=1, refit_n=2400, refit_replicates=200),
+                  ref_replicates=1, big=200_000, runs=3, ref_runs=1, refit_n=2400, refit_replicates=200,
+                  database_n=1_000_000),
 }
 TARGETS = {"cox_fit_ratio": (">=", 10.0), "bootstrap_seconds": ("<=", 60.0), "bootstrap_ratio": (">=", 20.0),
            "reweight_ms": ("<=", 50.0), "peak_rss_mb": ("<=", 2500.0), "survival_1m_seconds": ("<=", 20.0),
-           "full_analytic_seconds": ("<=", 2.0), "refit_bootstrap_seconds": ("<=", 120.0)}
+           "full_analytic_seconds": ("<=", 2.0), "refit_bootstrap_seconds": ("<=", 120.0),
+           "duckdb_10m_seconds": ("<=", 60.0), "duckdb_10m_peak_mb": ("<=", 4096.0)}
 
 
 # ------------------------------------------------------------------------------------------
@@ -402,6 +407,7 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--json", metavar="OUT", help="write the measurements here")
     p.add_argument("--workdir", help="keep generated data here (default: a temporary folder, removed)")
     p.add_argument("--only-app", action="store_true", help="run only (h), the app and report in Chromium")
+    p.add_argument("--only-database", action="store_true", help="run only (i), the DuckDB file")
     args = p.parse_args(argv)
     mode = "quick" if args.quick else "full"
     s = SETTINGS[mode]
@@ -413,9 +419,12 @@ def main(argv: list[str] | None = None) -> int:
     say(f"Fulcrum benchmark ({mode}) on {report['machine']['nproc']} x {report['machine']['cpu']}, load average "
         f"{' '.join(f'{v:.2f}' for v in report['load_average_start'])}")
     try:
-        if not args.only_app:
+        if not (args.only_app or args.only_database):
             run_all(report, s, work)
-        app_all(report, work)
+        if not args.only_database:
+            app_all(report, work)
+        if not args.only_app:
+            database_run(report, s, work)
     finally:
         if not args.workdir:
             shutil.rmtree(work, ignore_errors=True)
@@ -530,6 +539,29 @@ def app_all(report: dict, work: Path) -> None:
     report["app"] = h
     for line in app_speed.lines(h):
         say(line)
+
+
+def database_run(report: dict, s: dict, work: Path) -> None:
+    from database_case import database_case
+
+    n = s["database_n"]
+    say(f"(i) survival analysis end to end on a DuckDB file of {n:,} patients x 20 columns (fulcrum analyse in a "
+        "fresh process), against the same rows in Parquet")
+    i = database_case(work / "database", n, SEED, cli_run)
+    report["database"] = i
+    full = n >= 10_000_000
+    report["duckdb_10m_seconds"] = i["duckdb"]["seconds"] if full else None
+    report["duckdb_10m_peak_mb"] = i["duckdb"]["peak_rss_mb"] if full else None
+    note = "" if full else " [10M target: full run]"
+    say(f"  files written in {i['write_s']:.0f} s (DuckDB file {i['file_mb']:.0f} MB); read {len(i['columns_read'])} "
+        f"of {i['columns']} columns ({', '.join(i['columns_read'])}), {i['rows_read']:,} rows")
+    for name in ("duckdb", "parquet"):
+        r = i[name]
+        say(f"  {name}: wall {r['seconds']:.1f} s (CPU {r['cpu_seconds']:.1f} s), peak RSS {r['peak_rss_mb']:.0f} MB"
+            + ((verdict("duckdb_10m_seconds", r["seconds"]) + verdict("duckdb_10m_peak_mb", r["peak_rss_mb"]))
+               if name == "duckdb" and full else note if name == "duckdb" else ""))
+    say(f"  ratio DuckDB / Parquet: wall {i['ratio_seconds']:.2f}x, peak {i['ratio_peak']:.2f}x; same break-even "
+        f"points: {'yes' if i['same_results_as_parquet'] else 'NO'}")
 
 
 if __name__ == "__main__":

@@ -677,5 +677,6 @@ def _analyse(spec: Spec, fs: FitSet, spec_bytes: bytes | None, progress: Progres
     extra["imputation"] = im.imputed_break_evens(fs, m=spec.analysis.imputations) if spec.analysis.imputations else []
     doc = res.document(spec, data_sha256=fs.cohort.sha256, spec_bytes=spec_bytes, rows=rows,
                        composite=vl.composite_rows(fs, composite) if composite else [],
-                       selection=selection.rows if selection else [], warnings=warnings, extra=extra)
+                       selection=selection.rows if selection else [], warnings=warnings, extra=extra,
+                       source=fs.cohort.source)
     return Results(fs, summaries, doc, reps, composite, selection)

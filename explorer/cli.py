@@ -111,7 +111,7 @@ def cmd_analyse(args: argparse.Namespace) -> int:
         for w in early:
             print(f"warning: {printable(w)}", file=sys.stderr)
     bar = ProgressBar("bootstrap") if spec.analysis.interval == "bootstrap" and not args.quiet else None
-    result = analyse(spec, spec_bytes=spec_bytes, progress=bar)
+    result = analyse(spec, _load(spec, args), spec_bytes=spec_bytes, progress=bar)
     # both documents are made before either is written, so a failure leaves no half set of files
     json_text = res.dumps(result.document) + "\n" if json_out else None
     html_text = None
@@ -162,7 +162,7 @@ def cmd_patient(args: argparse.Namespace) -> int:
             raise FulcrumError(f"--at {item!r} should be NAME=NUMBER.", hint="For example --at cfs=6 --at age=82.")
         if not sep or not name.strip():
             raise FulcrumError(f"--at {item!r} should be NAME=NUMBER.", hint="For example --at cfs=6 --at age=82.")
-    fs = fit_all(spec)
+    fs = fit_all(spec, _load(spec, args))
     numeric: list[str] = []
     with captured(numeric, "placing the patient"):
         view = place_patient(fs, values)
@@ -183,17 +183,24 @@ def read_input(path: str | Path) -> bytes:
         raise os_error(exc, path, "read the file") from None
 
 
-def cmd_validate(args: argparse.Namespace) -> int:
+def _load(spec, args: argparse.Namespace):
+    """The spec's cohort; a database server is contacted only with --allow-connect."""
     from .cohort import load_cohort
-    from .indices import compute_index, needed_columns
+    from .indices import needed_columns
+
+    return load_cohort(spec, extra_columns=needed_columns(spec), allow_connect=args.allow_connect)
+
+
+def cmd_validate(args: argparse.Namespace) -> int:
+    from .indices import compute_index
     from .spec import load_spec
 
     spec = load_spec(args.spec)
-    cohort = load_cohort(spec, extra_columns=needed_columns(spec))
+    cohort = _load(spec, args)
     warnings = say_warnings(spec) + list(cohort.warnings)
     for ix in spec.indices:
         warnings.extend(compute_index(ix, cohort.frame, spec=spec).warnings)
-    print(f"{printable(spec.cohort.path.name)}: {len(cohort.frame)} patients, sha256 {cohort.sha256[:12]}...")
+    print(f"{printable(cohort.name)}: {len(cohort.frame)} patients, sha256 {cohort.sha256[:12]}...")
     print(cohort.counts().to_string())
     for n in cohort.notes:
         print(f"note: {printable(n)}")
@@ -279,6 +286,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     v = sub.add_parser("validate", help="check a spec and its cohort, print the report")
     v.add_argument("spec")
+    for cmd in (a, v, pt):
+        cmd.add_argument("--allow-connect", action="store_true",
+                         help="allow reading the cohort from the database server the spec names (never by default)")
     v.set_defaults(func=cmd_validate)
 
     d = sub.add_parser("demo", help="write the invented demo cohort and its spec into DIR")

@@ -50,6 +50,7 @@ class Cohort:
     randomised: pd.Series | None
     notes: list[str]
     missing: dict[str, int] = field(default_factory=dict)
+    source: dict | None = None  # a database cohort's provenance (URL without credentials, table or query, ...)
 
     @property
     def n(self) -> int:
@@ -128,8 +129,11 @@ def column_roles(spec: Spec, extra_columns: Sequence[str] = ()) -> dict[str, lis
 # Loading
 # ---------------------------------------------------------------------------------------------
 def load_cohort(spec: Spec, *, data: bytes | None = None, filename: str | None = None,
-                extra_columns: Sequence[str] = ()) -> Cohort:
-    """Read the cohort named by the spec (or uploaded bytes) and check it; the file is only read."""
+                extra_columns: Sequence[str] = (), allow_connect: bool = False) -> Cohort:
+    """Read the cohort named by the spec (or uploaded bytes) and check it; the file is only read.
+    A database server is contacted only with allow_connect."""
+    if spec.cohort.database and data is None:
+        return _load_database(spec, extra_columns, allow_connect)
     path = None if data is not None else Path(spec.cohort.path)
     name = filename or (path.name if path else Path(spec.cohort.path).name)
     shown = str(path) if path else name
@@ -142,6 +146,21 @@ def load_cohort(spec: Spec, *, data: bytes | None = None, filename: str | None =
     header, raw = _read(data, name, shown, spec.cohort.sheet, roles, numeric, notes)
     raw = {h: raw[h] for h in header if h in roles}
     return _build(spec, raw, roles, path, name, shown, hashlib.sha256(data).hexdigest(), notes)
+
+
+def _load_database(spec: Spec, extra_columns: Sequence[str], allow_connect: bool) -> Cohort:
+    """The needed columns of a database table or query, typed as the Parquet reader types them."""
+    from . import database
+
+    roles = column_roles(spec, extra_columns)
+    numeric = {col for col, rs in roles.items() if not {r for r, _ in rs} & set(TEXT_ROLES)}
+    extract = database.read(spec.cohort, list(roles), allow_connect=allow_connect,
+                            check_header=lambda header, shown: _check_header(header, roles, shown))
+    raw = {name: _arrow_column(col, name in numeric) for name, col in extract.columns.items()}
+    with database.guard(database.password(spec.cohort.password_env)):
+        cohort = _build(spec, raw, roles, None, extract.shown, extract.shown, extract.provenance["data_sha256"])
+    cohort.source = extract.provenance
+    return cohort
 
 
 def read_table(data: bytes, filename: str, sheet: str | None = None) -> pd.DataFrame:

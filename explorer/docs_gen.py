@@ -57,7 +57,19 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("inputs", "What went in, so a reader can check they hold the same inputs."),
         ("inputs.spec_sha256", "SHA-256 of the spec file's bytes (or of the spec as written back to TOML when "
                                "it came from the app)."),
-        ("inputs.data_sha256", "SHA-256 of the cohort file's bytes."),
+        ("inputs.data_sha256", "SHA-256 of the cohort file's bytes; for a database cohort, of the values read "
+                               "(as inputs.source.data_sha256)."),
+        ("inputs.source", "Only for a cohort read from a database: where it came from, so a report can be traced to "
+                          "the exact extract."),
+        ("inputs.source.kind", "duckdb, sqlite or postgresql."),
+        ("inputs.source.url", "The database URL without credentials (a file's path made absolute)."),
+        ("inputs.source.table", "The table or view read (absent when a query was read)."),
+        ("inputs.source.query", "The SELECT statement read (absent when a table was read)."),
+        ("inputs.source.rows", "Number of rows read."),
+        ("inputs.source.columns", "The columns read: only those the spec needs."),
+        ("inputs.source.data_sha256", "SHA-256 of the values read (per column: its name, which cells are empty, "
+                                      "and the values as float64 or UTF-8 text), the same whichever database "
+                                      "held them."),
         ("inputs.spec_canonical_sha256", "SHA-256 of the parsed spec as sorted JSON, defaults filled in: a spec "
                                          "saved by the app and the same spec typed by hand hash the same."),
         ("inputs.seed", "The seed every random step starts from ([analysis] seed)."),

@@ -143,7 +143,8 @@ def _jsonable(obj: Any) -> Any:
 
 
 def document(spec: Spec, *, data_sha256: str, spec_bytes: bytes | None, rows: list[dict], composite: list[dict],
-             selection: list[dict], warnings: list[str], extra: dict | None = None) -> dict:
+             selection: list[dict], warnings: list[str], extra: dict | None = None,
+             source: dict | None = None) -> dict:
     from . import coverage
 
     if spec_bytes is None:
@@ -158,7 +159,7 @@ def document(spec: Spec, *, data_sha256: str, spec_bytes: bytes | None, rows: li
         "inputs": {"spec_sha256": hashlib.sha256(spec_bytes).hexdigest(), "data_sha256": data_sha256,
                    "spec_canonical_sha256": canonical_sha256(spec), "seed": spec.analysis.seed,
                    "interval": spec.analysis.interval, "level": spec.analysis.level,
-                   "margin": spec.analysis.margin},
+                   "margin": spec.analysis.margin, **({"source": source} if source else {})},
         "arms": list(spec.cohort.arms),
         "spec": spec_to_dict(spec),
         "results": rows,

@@ -15,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from . import margins
+from .database import KEYS as DATABASE_KEYS, cohort_source
 from .errors import FulcrumError, nfc
 from .settings import check_analysis
 from .tomlwrite import plain, toml_value as _toml_value
@@ -33,7 +34,7 @@ POPULATIONS = ("all", "randomised", "all_adjusted", "all_weighted")
 
 @dataclass(frozen=True)
 class CohortSpec:
-    path: Path
+    path: Path | None  # None when the cohort is read from a database
     arm: str
     arms: tuple[str, str]
     id: str | None = None
@@ -42,6 +43,10 @@ class CohortSpec:
     cluster: str | None = None
     sheet: str | None = None
     covariates: tuple[str, ...] = ()
+    database: str | None = None
+    table: str | None = None
+    query: str | None = None
+    password_env: str | None = None
 
 
 @dataclass(frozen=True)
@@ -208,6 +213,7 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "cluster": ("str", "Optional column of clusters (e.g. hospital) for cluster-robust intervals."),
         "sheet": ("str", "Excel only: the sheet to read when the workbook has several."),
         "covariates": ("list[str]", "Baseline covariates to describe by arm and allocation."),
+        **DATABASE_KEYS,
     },
     "outcomes": {
         "name": ("str", "A short unique name for the outcome."),
@@ -299,7 +305,7 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
 }
 TOP_LEVEL = ("cohort", "outcomes", "indices", "values", "analysis", "selection", "pairwise", "maps")
 REQUIRED = {
-    "cohort": ("path", "arm", "arms"),
+    "cohort": ("arm", "arms"),
     "outcomes": ("name", "kind"),
     "indices": ("name",),
     "values": ("outcome",),
@@ -457,12 +463,10 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
     if len(arms) != 2 or arms[0] == arms[1]:
         raise FulcrumError(f"'cohort.arms' needs exactly two different labels, found {list(arms)!r}.",
                            file=source, key="cohort.arms", hint='Write arms = ["first", "second"] as in the file.')
-    raw_path = Path(c.get("path"))
     cohort = CohortSpec(
-        path=raw_path if raw_path.is_absolute() else (base_dir / raw_path),
-        arm=c.get("arm"), arms=(arms[0], arms[1]), id=c.get("id"), allocation=c.get("allocation"),
-        randomised=c.get("randomised", "randomised"), cluster=c.get("cluster"), sheet=c.get("sheet"),
-        covariates=c.get("covariates", ()),
+        **cohort_source(c, base_dir, source), arm=c.get("arm"), arms=(arms[0], arms[1]), id=c.get("id"),
+        allocation=c.get("allocation"), randomised=c.get("randomised", "randomised"), cluster=c.get("cluster"),
+        sheet=c.get("sheet"), covariates=c.get("covariates", ()),
     )
 
     outcomes = tuple(margins.check_outcome(_outcome(o, i, source), source)

@@ -106,6 +106,10 @@ def open_spec_file(path: str | Path, is_demo: bool) -> aps.Workspace:
     from explorer.spec import load_spec
 
     spec = load_spec(path)
+    if spec.cohort.database:
+        raise FulcrumError("the spec reads its cohort from a database, which the app opens from the Cohort page.",
+                           file=str(path), key="cohort.database", hint="Open the Cohort page and read the table "
+                           "there (a server only when you tick the box), or run fulcrum analyse on the spec.")
     data = read_file(Path(spec.cohort.path), str(spec.cohort.path), "cohort.path")  # located errors, no FIFO
     return aps.Workspace.open(data, Path(spec.cohort.path).name, spec, is_demo=is_demo)
 

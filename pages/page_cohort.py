@@ -6,6 +6,7 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
+from explorer import database
 from explorer.errors import FulcrumError
 from explorer.spec import OUTCOME_KINDS
 
@@ -54,7 +55,8 @@ with right:
                                    type=["toml"], key=ui.key("spec_file"))
 
 if upload is None:
-    st.session_state.pop(STAGED, None)
+    if not (st.session_state.get(STAGED) or {}).get("database"):  # an extract read from a database stays
+        st.session_state.pop(STAGED, None)
 else:
     data = upload.getvalue()
     staged = st.session_state.get(STAGED)
@@ -67,6 +69,37 @@ else:
             staged = st.session_state[STAGED] = stage(staged["data"], staged["filename"], sheet)
     if staged["error"] is not None and not (staged["sheets"] and staged["frame"] is not None):
         ui.show_error(staged["error"], f"The cohort already loaded ({ws.filename}) is kept.")
+
+
+
+def database_choice() -> None:
+    """Read a cohort from a database into the staging area, as an upload would be. The password comes only from
+    the environment the app's server was started with; a server is contacted only when the box is ticked."""
+    with st.expander("Or read the cohort from a database (DuckDB or SQLite file, PostgreSQL server)"):
+        url = st.text_input("Database URL", key=ui.key("db_url"),
+                            placeholder="duckdb:///registry.duckdb  or  postgresql://user@host:5432/dbname")
+        table = st.text_input("Table or view, e.g. registry.cohort", key=ui.key("db_table"))
+        query = st.text_area("Or one SELECT statement instead of a table", key=ui.key("db_query"))
+        env = st.text_input("Environment variable holding the password (its name begins FULCRUM_; set it before "
+                            "starting the app; leave empty for a file)", key=ui.key("db_env"))
+        allow = st.checkbox("Allow Fulcrum to connect to this database server", key=ui.key("db_allow"))
+        st.caption("Fulcrum reads every column of the table or query once, read-only, so you can say which column "
+                   "is which; the data stay in this session.")
+        if st.button("Read from the database"):
+            got = ui.attempt(database.snapshot, url.strip(), table.strip() or None, query.strip() or None,
+                             env.strip() or None, allow, keeping=f"The cohort already loaded ({ws.filename}) is kept.")
+            if got is not None:
+                staged = stage(got[0], got[1])
+                staged["database"] = got[2]
+                st.session_state[STAGED] = staged
+        source = (st.session_state.get(STAGED) or {}).get("database")
+        if source:
+            what = f"table {source['table']}" if "table" in source else "the query"
+            st.caption(aps.md_escape(f"Read {source['rows']:,} rows of {what} from {source['url']} (data sha256 "
+                                     f"{source['data_sha256'][:12]}...)."))
+
+
+database_choice()
 
 if spec_upload is not None:
     spec, notes = ui.attempt(aps.read_spec, spec_upload.getvalue(), ws.spec) or (None, [])

@@ -23,7 +23,8 @@ AGE_CENTRE = 80.0
 YEAR = 365.0
 FUNCTION_DAY = 182.0
 HOME_WINDOW = 180.0
-FILES = ("demo_cohort.csv", "demo.toml", "DICTIONARY.md", "truth.json")
+FILES = ("demo_cohort.csv", "demo.toml", "DICTIONARY.md", "truth.json", "local_patients.csv")
+LOCAL_N = 300  # invented local patients (no outcomes) for the [target] section
 _AGES = np.arange(65, 96)
 
 PARAMS: dict = {
@@ -293,9 +294,28 @@ def write_demo(directory: str | Path, n: int = N, seed: int = SEED) -> Path:
     (directory / "demo_cohort.csv").write_bytes(to_csv_bytes(frame))
     (directory / "truth.json").write_text(json.dumps(true, indent=2) + "\n", encoding="utf-8")
     (directory / "DICTIONARY.md").write_text(dictionary(true, n, seed), encoding="utf-8")
+    (directory / "local_patients.csv").write_bytes(to_csv_bytes(local_patients(LOCAL_N, seed + 1)))
     spec = directory / "demo.toml"
     spec.write_text(SPEC_TOML.format(seed=seed, n=n), encoding="utf-8")
     return spec
+
+
+def local_patients(n: int = LOCAL_N, seed: int = SEED + 1, params: dict = PARAMS) -> pd.DataFrame:
+    """An invented hospital's own patients, without outcomes: older and frailer than the cohort, a few older than
+    anyone in it (so the overlap check has something to say)."""
+    p, rng = params, np.random.default_rng(seed)
+    age = rng.choice(_AGES, size=n, p=age_pmf(p) / age_pmf(p).sum()) + 3
+    cfs_pmf = np.asarray(p["cfs_pmf"]) * np.linspace(0.6, 1.6, 9)
+    cfs = rng.choice(np.arange(1, 10), size=n, p=cfs_pmf / cfs_pmf.sum())
+    width = max(5, len(str(n)))
+    return pd.DataFrame({
+        "pid": np.char.add("L", np.char.zfill(np.arange(1, n + 1).astype(str), width)).astype(object),
+        "age": age,
+        "sex": np.where(rng.random(n) < p["male"], "M", "F"),
+        "cfs": cfs,
+        "lactate": np.round(np.exp(rng.normal(p["log_lactate"]["mean"], p["log_lactate"]["sd"], n)), 1),
+        "albumin": np.round(rng.normal(p["albumin"]["mean"], p["albumin"]["sd"], n)).astype(int),
+    })
 
 
 SPEC_TOML = """\
@@ -400,6 +420,16 @@ window = 400
 [[maps]]
 indices = ["cfs", "physiology"]
 target = "composite"
+
+# Rule consequences: "laparotomy below a threshold, else non-operative care" (and the reverse) per 100 patients
+# of the invented hospital's own patients in local_patients.csv (index and covariate columns, no outcomes).
+[policy]
+indices = ["cfs", "age"]
+tolerance = 1.0
+
+[target]
+path = "local_patients.csv"
+label = "our own patients (invented)"
 """
 
 

@@ -16,6 +16,8 @@ from pathlib import Path
 from typing import Any
 
 from .errors import FulcrumError
+from .toml_text import toml_value as _toml_value
+from .spec_sections import SECTION_SCHEMA, PolicySpec, TargetSpec, target_and_policy
 
 OUTCOME_KINDS = ("continuous", "binary", "ordinal", "survival")
 INTERVALS = ("analytic", "bootstrap")
@@ -160,6 +162,8 @@ class Spec:
     pairwise: PairwiseSpec | None = None
     maps: tuple[MapSpec, ...] = ()
     source: str | None = None
+    target: TargetSpec | None = None
+    policy: PolicySpec | None = None
 
     def outcome(self, name: str) -> OutcomeSpec:
         for o in self.outcomes:
@@ -275,8 +279,9 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "target": ("str", "An outcome name or 'composite'."),
         "interaction": ("bool", "Include the interaction of the two indices (default false)."),
     },
+    **SECTION_SCHEMA,
 }
-TOP_LEVEL = ("cohort", "outcomes", "indices", "values", "analysis", "selection", "pairwise", "maps")
+TOP_LEVEL = ("cohort", "outcomes", "indices", "values", "analysis", "selection", "pairwise", "maps", *SECTION_SCHEMA)
 REQUIRED = {
     "cohort": ("path", "arm", "arms"),
     "outcomes": ("name", "kind"),
@@ -530,7 +535,8 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
         maps.append(MapSpec(indices=(names[0], names[1]), target=target, interaction=r.get("interaction", False)))
 
     return Spec(cohort=cohort, outcomes=outcomes, indices=indices, analysis=analysis, values=values,
-                selection=selection, pairwise=pairwise, maps=tuple(maps), source=source)
+                selection=selection, pairwise=pairwise, maps=tuple(maps), source=source,
+                **target_and_policy(data, base_dir, indices, source))
 
 
 def _array(value: Any, name: str, source: str | None) -> list:
@@ -778,21 +784,3 @@ def to_toml(spec: Spec, relative_to: Path | None = None) -> str:
             lines.extend(f"{k} = {_toml_value(v)}" for k, v in value.items())
             lines.append("")
     return "\n".join(lines)
-
-
-def _toml_value(v: Any) -> str:
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, (int, float)):
-        return repr(v)
-    if isinstance(v, str):
-        return json.dumps(v, ensure_ascii=False)
-    if isinstance(v, list):
-        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
-    if isinstance(v, dict):
-        return "{ " + ", ".join(f"{_toml_key(k)} = {_toml_value(x)}" for k, x in v.items()) + " }"
-    raise TypeError(type(v))
-
-
-def _toml_key(k: str) -> str:
-    return k if k.replace("_", "").replace("-", "").isalnum() and k.isascii() else json.dumps(k)

@@ -432,5 +432,6 @@ def analysis_rows(fs, *, replicates: list[dict] | None = None) -> tuple[list[dic
     """What analyse() adds: the rows over the spec's [target] patients (or the cohort), and their warnings."""
     from .target import load_target
 
-    target = load_target(fs.spec, fs.indices) if fs.spec.target is not None else None
+    spec = fs.spec
+    target = load_target(spec, fs.indices, policy_indices(spec)) if spec.target is not None else None
     return policy_rows(fs, target, replicates=replicates)

@@ -33,16 +33,16 @@ class Target:
         return v[np.isfinite(v)]
 
 
-def target_columns(spec: Spec, indices: dict) -> dict[str, list[tuple[str, str]]]:
-    """The columns a target file must hold: each index's inputs (a column, a formula's or a prognostic model's
-    covariates), as column -> [(role, key)] like cohort.column_roles."""
+def target_columns(spec: Spec, indices: dict, names: list[str]) -> dict[str, list[tuple[str, str]]]:
+    """The columns a target file must hold: the named indices' inputs (a column, a formula's or a prognostic
+    model's covariates), as column -> [(role, spec key)] like cohort.column_roles."""
     roles: dict[str, list[tuple[str, str]]] = {}
-    for ix in spec.indices:
-        iv = indices[ix.name]
+    for name in names:
+        ix, iv = spec.index(name), indices[name]
         cols = iv.model.columns if iv.model is not None else (ix.column,)
         for c in cols:
             if c:
-                roles.setdefault(c, []).append(("covariate", f"target: inputs of index '{ix.name}'"))
+                roles.setdefault(c, []).append(("covariate", f"indices '{name}'"))
     return roles
 
 
@@ -53,11 +53,15 @@ def cohort_target(spec: Spec, indices: dict) -> Target:
                                                                   for k, v in indices.items()}, source="cohort")
 
 
-def load_target(spec: Spec, indices: dict, *, data: bytes | None = None, filename: str | None = None) -> Target:
-    """Read the [target] file (or uploaded bytes), check its columns with the cohort readers, compute every index.
+def load_target(spec: Spec, indices: dict, names: list[str] | None = None, *, data: bytes | None = None,
+                filename: str | None = None) -> Target:
+    """Read the [target] file (or uploaded bytes), check its columns with the cohort readers, compute the named
+    indices (default: every index).
 
-    Outcome columns are neither needed nor read. Missing inputs leave that patient out of that index, counted.
+    Only the inputs of those indices are needed; outcome and other columns are not read. Missing inputs leave that
+    patient out of that index, counted.
     """
+    names = names or [ix.name for ix in spec.indices]
     t = spec.target
     if t is None and data is None:
         raise FulcrumError("the spec has no [target] section.", key="target",
@@ -71,27 +75,27 @@ def load_target(spec: Spec, indices: dict, *, data: bytes | None = None, filenam
                                "the target path is a folder, not a file.", file=shown, key="target.path",
                                hint="Check target.path in the spec; it is read relative to the spec file's folder.")
         data = path.read_bytes()
-    roles = target_columns(spec, indices)
+    roles = target_columns(spec, indices, names)
     header, raw = ch._read(data, name, shown, t.sheet if t is not None else None, roles, set(roles))
     raw = {h: raw[h] for h in header if h in roles}
     chk = ch._Checker(spec, raw, roles, shown)
     frame = pd.DataFrame({c: chk.column(c) for c in raw}, copy=False)
     warnings = list(chk.warnings)
     values: dict[str, np.ndarray] = {}
-    for ix in spec.indices:
-        iv = indices[ix.name]
+    for name in names:
+        ix, iv = spec.index(name), indices[name]
         v = np.asarray(iv.model.compute(frame) if iv.model is not None else frame[ix.column].to_numpy(float), float)
         missing = ~np.isfinite(v)
         if missing.all():
             raise FulcrumError(f"no patient in the target file has a value for index '{ix.title}'.", file=shown,
                                key="target.path", hint="Fill in the columns this index reads: "
                                + ", ".join(sorted(c for c, rs in roles.items()
-                                                  if any(f"'{ix.name}'" in k for _, k in rs))) + ".")
+                                                  if any(f"'{name}'" in k for _, k in rs))) + ".")
         if missing.any():
             warnings.append(f"{shown}: {int(missing.sum())} of {len(v)} local patients have no value for "
                             f"{ix.title} ({format_rows(np.flatnonzero(missing) + 1, int(missing.sum()))}) and "
                             "are left out of the rules along it.")
-        values[ix.name] = v
+        values[name] = v
     label = (t.label if t is not None and t.label else None) or Path(name).stem
     import hashlib
 

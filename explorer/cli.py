@@ -91,6 +91,10 @@ def cmd_analyse(args: argparse.Namespace) -> int:
         write_report(result, args.html)
     if not args.quiet:
         print(summary_table(result.document))
+        if result.document.get("policy"):
+            from .policy import text_table
+
+            print(text_table(result.document))
         for w in result.document["warnings"]:
             print(f"warning: {printable(w)}")
     return 0

@@ -403,7 +403,9 @@ def at_threshold(ps: PolicySet, key: str, direction: str, t: float) -> dict:
 def fmt(v: float | None, probability: bool = True) -> str:
     if v is None or not math.isfinite(v):
         return "open"
-    return f"{v:.0f}" if probability and abs(v) >= 10 else f"{v:.3g}"
+    if probability:
+        return f"{v:.0f}" if abs(v) >= 10 else f"{v:.1f}"
+    return f"{v:.3g}"
 
 
 def sentence(row: dict, arms: tuple[str, str] | list[str]) -> str:
@@ -435,3 +437,51 @@ def analysis_rows(fs, *, replicates: list[dict] | None = None) -> tuple[list[dic
     spec = fs.spec
     target = load_target(spec, fs.indices, policy_indices(spec)) if spec.target is not None else None
     return policy_rows(fs, target, replicates=replicates)
+
+
+def text_table(doc: dict) -> str:
+    """The rule-consequence lines of `fulcrum analyse`: one line per outcome or composite x index x direction."""
+    rows_ = doc.get("policy") or []
+    if not rows_:
+        return ""
+    arms = doc["arms"]
+    head = ["outcome", "index", "rule", "best t [interval]", "flat range", "per 100 at best [interval]",
+            f"all {arms[0]}", f"all {arms[1]}", "as treated: regret [interval]"]
+    lines = []
+    for r in rows_:
+        b, cp = r["best"], r.get("current_practice")
+        lo_arm = arms[0] if r["direction"] == "first_below" else arms[1]
+        best_t = "none (blanket)" if b["blanket"] else f"{b['threshold']:.3g} [{fmt(b['ci'][0], False)}, " \
+                                                       f"{fmt(b['ci'][1], False)}]"
+        lines.append([r["title"], r["index"], f"{lo_arm} below t", best_t,
+                      f"{r['flat_range']['from']:.3g}-{r['flat_range']['to']:.3g}",
+                      f"{fmt(b['value'])} [{fmt(b['value_ci'][0])}, {fmt(b['value_ci'][1])}]",
+                      fmt(r["all_first"]["value"]), fmt(r["all_second"]["value"]),
+                      f"{fmt(cp['regret'])} [{fmt(cp['regret_ci'][0])}, {fmt(cp['regret_ci'][1])}]" if cp else "-"])
+    from .errors import printable
+
+    lines = [[printable(c) for c in line] for line in lines]
+    widths = [max(len(str(x)) for x in col) for col in zip(head, *lines)]
+    t = rows_[0]["target"]
+    out = ["", f"Rules along an index, per 100 patients of {printable(t['name'])} ({t['n']} patients); best under the "
+               f"stated values, flat range within {rows_[0]['flat_range']['tolerance']:g} per 100 of the best:",
+           "  ".join(h.ljust(w) for h, w in zip(head, widths)), "  ".join("-" * w for w in widths)]
+    out += ["  ".join(str(c).ljust(w) for c, w in zip(line, widths)) for line in lines]
+    return "\n".join(out)
+
+
+def consequences(ps: PolicySet, direction: str, t: float) -> list[dict]:
+    """Every outcome and composite under one rule (direction, threshold t) against the blanket rules, for a table:
+    title, what the numbers count, the rule's value per 100 with its interval, everyone-first, everyone-second."""
+    out = []
+    for q in ps.quantities:
+        if q.kind == "level":
+            continue
+        a = at_threshold(ps, q.key, direction, t)
+        unit = "patients" if q.probability else (q.units or "total")
+        out.append({"outcome": q.title, "per 100": unit, "under the rule": fmt(a["value"], q.probability),
+                    "interval": f"{fmt(a['ci'][0], q.probability)} to {fmt(a['ci'][1], q.probability)}",
+                    f"everyone {ps.arms[0]}": fmt(a["all_first"], q.probability),
+                    f"everyone {ps.arms[1]}": fmt(a["all_second"], q.probability),
+                    "higher is better": "yes" if q.sign > 0 else "no"})
+    return out

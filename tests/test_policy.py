@@ -286,3 +286,35 @@ def test_rows_follow_the_schema_and_read_as_sentences(small, cfs_set):
     moved = po.at_threshold(cfs_set, "function", "first_below", 4.5)
     later = po.at_threshold(cfs_set, "function", "first_below", 7.5)
     assert moved["first_share"] < later["first_share"] and set(moved["levels"]) == set(demo.LEVELS)
+
+
+# ------------------------------------------------------------------------------------------
+# The app page, driven by Streamlit's AppTest on the invented demo
+# ------------------------------------------------------------------------------------------
+@pytest.mark.slow
+def test_rules_page_moves_the_consequences_with_the_threshold():
+    # Reference: the engine's own rule curve for the same choice (explorer.policy on the app's fits).
+    from pathlib import Path
+
+    from streamlit.testing.v1 import AppTest
+
+    from explorer import CAUTIONS
+
+    app = Path(__file__).resolve().parents[1] / "pages" / "app.py"
+    at = AppTest.from_file(str(app), default_timeout=240)
+    at.run()
+    at.switch_page("page_rules.py").run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert not at.error, [e.value for e in at.error]
+    assert CAUTIONS[0] in " ".join(i.value for i in at.info)
+    ws = at.session_state["workspace"]
+    fs = ws.fitset()
+    target = load_target(ws.spec, fs.indices, ["cfs"])
+    ps = po.prepare_index(fs, "cfs", target, weights=ws.spec.values.weights)
+    c = ps.curves[("composite:ordinal", "first_below")]
+    shown = lambda: [m.value for m in at.metric]  # noqa: E731
+    assert shown()[0] == po.fmt(c.value[c.best], False)
+    at.select_slider[0].set_value(float(c.thresholds[1])).run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert shown()[0] == po.fmt(c.value[1], False) != po.fmt(c.value[c.best], False)
+    assert shown()[1:] == [po.fmt(c.all_first[0], False), po.fmt(c.all_second[0], False)]

@@ -13,6 +13,7 @@ every level of an ordinal outcome, and every composite under the stated weights.
 """
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, field
 
@@ -26,6 +27,7 @@ from .target import Target, overlap
 DIRECTIONS = ("first_below", "second_below")
 MAX_DISCRETE = 30   # an index with at most this many distinct values gets thresholds between its levels
 DRAWS = 2000        # simulated curves for the best threshold's analytic interval
+_critical = functools.lru_cache(maxsize=8)(be.critical_value)
 
 
 @dataclass
@@ -94,11 +96,13 @@ def _interval(v: np.ndarray, var: np.ndarray, z: float) -> tuple[np.ndarray, np.
 
 
 def rule_curve(q: Quantity, sup: Support, thresholds: np.ndarray, direction: str, level: float, tolerance: float,
-               rng: np.random.Generator | None = None, boot: tuple[np.ndarray, np.ndarray] | None = None) -> Curve:
+               rng: np.random.Generator | None = None, boot: tuple[np.ndarray, np.ndarray] | None = None,
+               best_interval: bool = True) -> Curve:
     """The rule curve of one quantity: 100 x mean over the population of the prediction under the rule's arm.
 
     boot: per-replicate predictions (R, len(u)) for the first and second arm at sup.u (bootstrap intervals);
-    otherwise the quantity's delta-method factors give the intervals.
+    otherwise the quantity's delta-method factors give the intervals. best_interval=False skips the simulation
+    behind the best threshold's analytic interval (left open) where nobody reads it.
     """
     k = np.searchsorted(sup.u, thresholds, side="left")          # distinct values below each threshold
     m1, m2 = q.value
@@ -113,7 +117,7 @@ def rule_curve(q: Quantity, sup: Support, thresholds: np.ndarray, direction: str
     all_first, all_second = 100 * total[0], 100 * total[1]
     s = q.sign
     best = int(np.argmax(s * v))
-    z = be.critical_value(level)
+    z = _critical(level)
     if boot is not None:
         B = [100 * _cum(sup.a, b.T).T for b in boot]             # (R, len(u)+1) per arm
         V = B[lo_arm][:, k] + B[hi_arm][:, -1:] - B[hi_arm][:, k]
@@ -135,12 +139,15 @@ def rule_curve(q: Quantity, sup: Support, thresholds: np.ndarray, direction: str
         highF = 100 * (Cs[hi_arm][-1][None] - Cs[hi_arm][k])       # (T, q_hi)
         var = _norm2(lowF) + _norm2(highF)
         lower, upper = _interval(v, var, z)
-        rng = rng or np.random.default_rng(0)
-        Z_lo = rng.standard_normal((lowF.shape[1], DRAWS))
-        Z_hi = rng.standard_normal((highF.shape[1], DRAWS))
-        V = v[:, None] + lowF @ Z_lo + highF @ Z_hi                # (T, DRAWS): the linearised curve, simulated
-        picks = np.argmax(s * V, axis=0)
-        tl, th = np.quantile(thresholds[picks], [0.5 - level / 2, 0.5 + level / 2])
+        if best_interval:
+            rng = rng or np.random.default_rng(0)
+            Z_lo = rng.standard_normal((lowF.shape[1], DRAWS))
+            Z_hi = rng.standard_normal((highF.shape[1], DRAWS))
+            V = v[:, None] + lowF @ Z_lo + highF @ Z_hi            # (T, DRAWS): the linearised curve, simulated
+            picks = np.argmax(s * V, axis=0)
+            tl, th = np.quantile(thresholds[picks], [0.5 - level / 2, 0.5 + level / 2])
+        else:
+            picks, tl, th = np.array([best]), math.nan, math.nan
         tot = (100 * C1[-1], 100 * C2[-1])
         rule_f = {lo_arm: lowF[best], hi_arm: highF[best]}
         g1, g2 = ((float(x) for x in _interval(np.array(v[best] - 100 * total[arm]),
@@ -217,7 +224,7 @@ def _shares(u: np.ndarray, x: np.ndarray, mask: np.ndarray | None = None) -> np.
 def _current(q: Quantity, u: np.ndarray, a_first: np.ndarray, a_second: np.ndarray, curve: Curve,
              sup: Support, thresholds: np.ndarray, direction: str, level: float, n: int) -> dict:
     """The observed allocation among chosen patients against the best rule (for them) and the blanket rules."""
-    z = be.critical_value(level)
+    z = _critical(level)
     cur = 100 * (a_first @ q.value[0] + a_second @ q.value[1])
     best = curve.best
     k = int(np.searchsorted(sup.u, thresholds[best], side="left"))
@@ -285,9 +292,11 @@ def prepare_index(fs, index: str, target: Target | None = None, *, replicates: l
         sup_c = Support(u, a_first + a_second, int(np.isfinite(xc).sum()))
     for q in qs:
         for d in DIRECTIONS:
-            curves[(q.key, d)] = rule_curve(q, sup, thresholds, d, spec.analysis.level, tolerance, rng, q.boot)
+            curves[(q.key, d)] = rule_curve(q, sup, thresholds, d, spec.analysis.level, tolerance, rng, q.boot,
+                                            best_interval=q.kind != "level")
             if chosen and q.kind != "level":
-                cc = rule_curve(q, sup_c, thresholds, d, spec.analysis.level, tolerance, rng, q.boot)
+                cc = rule_curve(q, sup_c, thresholds, d, spec.analysis.level, tolerance, rng, q.boot,
+                                best_interval=False)
                 current[(q.key, d)] = _current(q, u, a_first, a_second, cc, sup_c, thresholds, d,
                                                spec.analysis.level, sup_c.n)
     pf0 = fs.pair(next(o.name for o in spec.outcomes), index)

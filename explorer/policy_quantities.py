@@ -207,9 +207,7 @@ def attach_replicates(fs: an.FitSet, index: str, qs: list[Quantity], u: np.ndarr
     """Per-replicate predictions at u from the analysis's bootstrap records (curves on each pair's grid), for the
     outcomes and composites; levels keep their delta intervals. Failed replicates are left out."""
     n = fs.spec.analysis.grid
-    cms = {}
-    if fs.spec.values is not None:
-        cms = vl.prepare_composites(fs, replicates=reps)
+    cms = {(k, index): vl.prepare_composite(fs, k, index, reps) for k in vl.default_kinds(fs.spec)}
     for q in qs:
         if q.kind == "outcome":
             pf = fs.pair(q.key, index)

@@ -318,3 +318,27 @@ def test_rules_page_moves_the_consequences_with_the_threshold():
     assert not at.exception, [e.value for e in at.exception]
     assert shown()[0] == po.fmt(c.value[1], False) != po.fmt(c.value[c.best], False)
     assert shown()[1:] == [po.fmt(c.all_first[0], False), po.fmt(c.all_second[0], False)]
+
+
+@pytest.mark.slow
+def test_bootstrap_replicates_of_the_analysis_give_the_rule_intervals(small):
+    # With the analysis's bootstrap, every outcome and composite gets percentile intervals; their widths should be
+    # of the same size as the delta method's (both estimate the same sampling spread: common practice).
+    import dataclasses
+
+    spec, fs = small
+    fs = dataclasses.replace(fs, pairs={k: v for k, v in fs.pairs.items() if k[1] == "cfs"})
+    reps = an.run_bootstrap(fs, replicates=40, keep_distribution=(spec.values.outcome,))
+    boot = po.prepare_index(fs, "cfs", replicates=reps)
+    delta = po.prepare_index(fs, "cfs")
+    for q in boot.quantities:
+        if q.kind == "level":
+            continue
+        cb, cd = boot.curves[(q.key, "first_below")], delta.curves[(q.key, "first_below")]
+        np.testing.assert_allclose(cb.value, cd.value)
+        want = "bootstrap-percentile" if q.key != "composite:quality_adjusted" else cb.interval
+        assert cb.interval == want, q.key
+        if cb.interval == "bootstrap-percentile":
+            ratio = np.median((cb.upper - cb.lower) / np.maximum(cd.upper - cd.lower, 1e-12))
+            assert 0.4 < ratio < 2.0, (q.key, ratio)
+            assert cb.best_ci[0] <= cb.thresholds[cb.best] <= cb.best_ci[1] or cb.best in (0, len(cb.value) - 1)

@@ -526,6 +526,13 @@ Favourable function = independent or home_with_help at six months (death counts 
 
 Between the two points, laparotomy buys survival at the cost of more dependent survivors: the outcomes
 break even at different frailty levels.
+
+## Local patients (local_patients.csv)
+
+{LOCAL_N} invented patients of "our own hospital", for the rules per 100 patients (`[target]`): pid, age, sex, cfs,
+lactate and albumin drawn as above except that ages are three years higher (68-98, so a few are older than anyone
+in the cohort) and the frailty scale is tilted towards frailer levels (each level's share times 0.6 at CFS 1
+rising evenly to 1.6 at CFS 9). No outcomes, no arm: the rules say what would happen to them.
 """
 
 

@@ -191,6 +191,7 @@ class PolicySet:
     curves: dict[tuple[str, str], Curve]
     overlap: dict
     current: dict[tuple[str, str], dict]
+    break_evens: dict[str, list[dict]]
     level: float
     tolerance: float
     warnings: list[str] = field(default_factory=list)
@@ -229,6 +230,7 @@ def _current(q: Quantity, u: np.ndarray, a_first: np.ndarray, a_second: np.ndarr
     best = curve.best
     k = int(np.searchsorted(sup.u, thresholds[best], side="left"))
     lo_arm, hi_arm = (0, 1) if direction == "first_below" else (1, 0)
+    shares = (a_first, a_second)
     if q.boot is not None:
         cur_r = 100 * (q.boot[0] @ a_first + q.boot[1] @ a_second)
         B = [100 * _cum(sup.a, b.T).T for b in q.boot]
@@ -249,6 +251,7 @@ def _current(q: Quantity, u: np.ndarray, a_first: np.ndarray, a_second: np.ndarr
             "regret": _r(q.sign * (curve.value[best] - cur)), "regret_ci": [_r(rci[0]), _r(rci[1])],
             "all_first": _r(curve.all_first[0]), "all_second": _r(curve.all_second[0]),
             "first_share": _r(100 * a_first.sum() / max(a_first.sum() + a_second.sum(), 1e-300)),
+            "changed": _r(100 * (shares[hi_arm][:k].sum() + shares[lo_arm][k:].sum())),
             "note": "Regret is the best threshold rule's expected value minus that of the allocation the chosen "
                     "patients received, both predicted from the per-arm models for the same patients (oriented so "
                     "that positive means the rule does better). The best rule is chosen on the same data, so the "
@@ -299,6 +302,7 @@ def prepare_index(fs, index: str, target: Target | None = None, *, replicates: l
                                 best_interval=False)
                 current[(q.key, d)] = _current(q, u, a_first, a_second, cc, sup_c, thresholds, d,
                                                spec.analysis.level, sup_c.n)
+    sides = break_even_sides(fs, index, sup, weights)
     pf0 = fs.pair(next(o.name for o in spec.outcomes), index)
     support = {a: (float(np.min(d.x)), float(np.max(d.x))) for a, d in pf0.data.items()}
     ov = overlap(target, index, ix.title, support, ix.units)
@@ -311,7 +315,32 @@ def prepare_index(fs, index: str, target: Target | None = None, *, replicates: l
                         "standardisation averages over the index only, not over the patients' other covariates.")
     discrete = len(sup_t.u) <= MAX_DISCRETE
     return PolicySet(index, ix.title, ix.units, discrete, tuple(spec.cohort.arms), target, thresholds, qs, curves,
-                     ov, current, spec.analysis.level, tolerance, warnings)
+                     ov, current, sides, spec.analysis.level, tolerance, warnings)
+
+
+def break_even_sides(fs, index: str, sup: Support, weights: dict | None = None, points: int = 400) -> dict:
+    """Where each outcome's and composite's arms break even along the index (roots of the oriented difference on a
+    fine grid over the cohort's range), and how many per 100 of the target population lie below each: a
+    break-even is a statement about one patient and does not move with the case mix; how many patients lie on
+    each side of it does."""
+    from .analysis import grid_roots
+
+    lo, hi = fs.pair(fs.spec.outcomes[0].name, index).x_range
+    grid = np.linspace(lo, hi, points)
+    arms = fs.spec.cohort.arms
+    cum = np.r_[0.0, np.cumsum(sup.a)]
+    out = {}
+    for q in quantities(fs, index, grid, weights):
+        if q.kind == "level":
+            continue
+        d = q.sign * (q.value[0] - q.value[1])
+        found = []
+        for x in grid_roots(grid, d):
+            above = float(np.interp(x + 1e-9 * (hi - lo), grid, d))
+            found.append({"x": _r(x), "target_below": _r(100 * cum[np.searchsorted(sup.u, x, side="left")]),
+                          "favours_below": arms[0] if above < 0 else arms[1]})
+        out[q.key] = found
+    return out
 
 
 def policy_indices(spec) -> list[str]:
@@ -369,6 +398,7 @@ def rows(ps: PolicySet) -> list[dict]:
                             "gain_over_all_second": _triple(c.gain_second)},
                    "flat_range": {"from": _r(c.flat[0]), "to": _r(c.flat[1]), "tolerance": _r(ps.tolerance)},
                    "current_practice": ps.current.get((q.key, d)),
+                   "break_evens": ps.break_evens.get(q.key, []),
                    "overlap": ps.overlap, "warnings": list(ps.warnings)}
             levels = [x for x in ps.quantities if x.kind == "level" and x.parent == q.key]
             if levels:
@@ -434,8 +464,13 @@ def sentence(row: dict, arms: tuple[str, str] | list[str]) -> str:
          f"if everyone had {arms[0]} and {fmt(row['all_second']['value'])} if everyone had {arms[1]}.")
     cp = row.get("current_practice")
     if cp:
+        more = "more" if (cp["regret"] or 0) >= 0 else "less"
         s += (f" Among {cp['n']} chosen patients as treated: {fmt(cp['value'])} per 100; the best rule for them would "
-              f"give {fmt(cp['regret'])} more (interval {fmt(cp['regret_ci'][0])} to {fmt(cp['regret_ci'][1])}).")
+              f"change the arm of {fmt(cp['changed'])} in 100 and give {fmt(abs(cp['regret'] or 0))} {more} (difference "
+              f"{fmt(cp['regret_ci'][0])} to {fmt(cp['regret_ci'][1])}).")
+    for b in row.get("break_evens") or []:
+        s += (f" The arms break even at {b['x']:.3g} ({b['favours_below']} better below); {fmt(b['target_below'])} of "
+              f"100 of {row['target']['name']} lie below it.")
     return s
 
 

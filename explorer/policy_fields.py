@@ -71,7 +71,14 @@ POLICY_SECTION: tuple[str, str, list[tuple[str, str]]] = (
         ("policy[].current_practice.all_first", "Everyone first, for these patients."),
         ("policy[].current_practice.all_second", "Everyone second, for these patients."),
         ("policy[].current_practice.first_share", "Patients per 100 who received the first arm."),
+        ("policy[].current_practice.changed", "Chosen patients per 100 whose arm the best rule would change."),
         ("policy[].current_practice.note", "How to read the regret, including its optimism."),
+        ("policy[].break_evens", "Where the arms break even along the index for this outcome or composite (roots of "
+                                 "the oriented difference on a fine grid; intervals are in the results and composite "
+                                 "rows), with how many of the target population lie below each."),
+        ("policy[].break_evens[].x", "The break-even point."),
+        ("policy[].break_evens[].target_below", "Target patients per 100 with an index value below it."),
+        ("policy[].break_evens[].favours_below", "The arm favoured below it."),
         ("policy[].overlap", "The overlap check of the target population against the cohort along the index."),
         ("policy[].overlap.index", "The index."),
         ("policy[].overlap.n", "Target patients with an index value."),

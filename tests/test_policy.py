@@ -342,3 +342,15 @@ def test_bootstrap_replicates_of_the_analysis_give_the_rule_intervals(small):
             ratio = np.median((cb.upper - cb.lower) / np.maximum(cd.upper - cd.lower, 1e-12))
             assert 0.4 < ratio < 2.0, (q.key, ratio)
             assert cb.best_ci[0] <= cb.thresholds[cb.best] <= cb.best_ci[1] or cb.best in (0, len(cb.value) - 1)
+
+
+def test_break_evens_for_the_case_mix_are_the_analysis_break_evens(small, cfs_set):
+    # the crossing of the per-arm curves does not move with the case mix; only the share of patients below it does
+    spec, fs = small
+    x = fs.indices["cfs"].values
+    for o in ("alive", "function", "days_home"):
+        want = [b.x for b in an.analytic_summary(fs.pair(o, "cfs"), spec).break_even if not b.extrapolated]
+        got = [b["x"] for b in cfs_set.break_evens[o]]
+        assert got == pytest.approx(want, abs=0.02), o
+        for b in cfs_set.break_evens[o]:
+            assert b["target_below"] == pytest.approx(100 * np.mean(x[np.isfinite(x)] < b["x"]), abs=1e-6)

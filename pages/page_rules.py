@@ -98,7 +98,12 @@ if pcharts is not None:
                 ui.altair(chart, pcharts.per_hundred_words(r, arms, t))
 
 st.subheader(f"Every outcome under this rule (threshold {t:.3g})")
-st.dataframe(pd.DataFrame(policy.consequences(ps, direction, t)).astype(str), hide_index=True, width="stretch")
+table = pd.DataFrame(policy.consequences(ps, direction, t)).astype(str)
+st.dataframe(table, hide_index=True, width="stretch")
+exports = ui.engine("exports")
+if exports is not None:
+    st.download_button("Download this table (CSV, for the minutes)", exports.to_csv_safe(table),
+                       file_name=f"rule_{index}_{t:.3g}.csv", mime="text/csv", key=ui.key("rule_csv"))
 
 cp = row.get("current_practice")
 if cp:

@@ -270,6 +270,15 @@ def test_spec_sections_are_checked(small):
     assert again.policy == spec.policy and again.target.label == spec.target.label
 
 
+def test_the_glossary_explains_the_rule_words():
+    from pathlib import Path
+
+    glossary = (Path(__file__).resolve().parents[1] / "docs" / "glossary.md").read_text(encoding="utf-8")
+    for term in ("Blanket rule", "Flat range", "Our own patients", "Regret of current practice", "Rule consequences",
+                 "Standardisation"):
+        assert f"**{term}" in glossary, term
+
+
 def test_rows_follow_the_schema_and_read_as_sentences(small, cfs_set):
     spec, fs = small
     rows = po.rows(cfs_set)

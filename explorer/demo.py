@@ -296,7 +296,7 @@ def write_demo(directory: str | Path, n: int = N, seed: int = SEED) -> Path:
     (directory / "DICTIONARY.md").write_text(dictionary(true, n, seed), encoding="utf-8")
     (directory / "local_patients.csv").write_bytes(to_csv_bytes(local_patients(LOCAL_N, seed + 1)))
     spec = directory / "demo.toml"
-    spec.write_text(SPEC_TOML.format(seed=seed, n=n), encoding="utf-8")
+    spec.write_text(SPEC_TOML.format(seed=seed, n=n) + TARGET_TOML, encoding="utf-8")
     return spec
 
 
@@ -422,11 +422,14 @@ indices = ["cfs", "physiology"]
 target = "composite"
 
 # Rule consequences: "laparotomy below a threshold, else non-operative care" (and the reverse) per 100 patients
-# of the invented hospital's own patients in local_patients.csv (index and covariate columns, no outcomes).
 [policy]
 indices = ["cfs", "age"]
 tolerance = 1.0
-
+"""
+# written beside local_patients.csv only (SPEC_TOML alone also serves other cohorts, which have no such file)
+TARGET_TOML = """
+# The rules are applied to the invented hospital's own patients in local_patients.csv (index and covariate
+# columns, no outcomes).
 [target]
 path = "local_patients.csv"
 label = "our own patients (invented)"

@@ -675,6 +675,11 @@ def _analyse(spec: Spec, fs: FitSet, spec_bytes: bytes | None, progress: Progres
         warnings += clusters["warnings"]
     extra["maps"] = mp.decision_maps(fs)
     extra["imputation"] = im.imputed_break_evens(fs, m=spec.analysis.imputations) if spec.analysis.imputations else []
+    if spec.policy is not None:
+        from . import policy as po
+
+        extra["policy"], policy_warnings = po.analysis_rows(fs, replicates=reps)
+        warnings += policy_warnings
     doc = res.document(spec, data_sha256=fs.cohort.sha256, spec_bytes=spec_bytes, rows=rows,
                        composite=vl.composite_rows(fs, composite) if composite else [],
                        selection=selection.rows if selection else [], warnings=warnings, extra=extra,

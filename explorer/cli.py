@@ -123,6 +123,10 @@ def cmd_analyse(args: argparse.Namespace) -> int:
     plan.write(html_out, html_text)
     if not args.quiet:
         print(summary_table(result.document))
+        if result.document.get("policy"):
+            from .policy import text_table
+
+            print(text_table(result.document))
         for line in warning_lines(result.document):
             print(line)
     return 0

@@ -23,7 +23,8 @@ AGE_CENTRE = 80.0
 YEAR = 365.0
 FUNCTION_DAY = 182.0
 HOME_WINDOW = 180.0
-FILES = ("demo_cohort.csv", "demo.toml", "DICTIONARY.md", "truth.json")
+FILES = ("demo_cohort.csv", "demo.toml", "DICTIONARY.md", "truth.json", "local_patients.csv")
+LOCAL_N = 300  # invented local patients (no outcomes) for the [target] section
 _AGES = np.arange(65, 96)
 
 PARAMS: dict = {
@@ -294,9 +295,28 @@ def write_demo(directory: str | Path, n: int = N, seed: int = SEED) -> Path:
     write_atomic(directory / "demo_cohort.csv", to_csv_bytes(frame))
     write_atomic(directory / "truth.json", json.dumps(true, indent=2) + "\n")
     write_atomic(directory / "DICTIONARY.md", dictionary(true, n, seed))
+    write_atomic(directory / "local_patients.csv", to_csv_bytes(local_patients(LOCAL_N, seed + 1)))
     spec = directory / "demo.toml"
-    write_atomic(spec, SPEC_TOML.format(seed=seed, n=n))
+    write_atomic(spec, SPEC_TOML.format(seed=seed, n=n) + TARGET_TOML)
     return spec
+
+
+def local_patients(n: int = LOCAL_N, seed: int = SEED + 1, params: dict = PARAMS) -> pd.DataFrame:
+    """An invented hospital's own patients, without outcomes: older and frailer than the cohort, a few older than
+    anyone in it (so the overlap check has something to say)."""
+    p, rng = params, np.random.default_rng(seed)
+    age = rng.choice(_AGES, size=n, p=age_pmf(p) / age_pmf(p).sum()) + 3
+    cfs_pmf = np.asarray(p["cfs_pmf"]) * np.linspace(0.6, 1.6, 9)
+    cfs = rng.choice(np.arange(1, 10), size=n, p=cfs_pmf / cfs_pmf.sum())
+    width = max(5, len(str(n)))
+    return pd.DataFrame({
+        "pid": np.char.add("L", np.char.zfill(np.arange(1, n + 1).astype(str), width)).astype(object),
+        "age": age,
+        "sex": np.where(rng.random(n) < p["male"], "M", "F"),
+        "cfs": cfs,
+        "lactate": np.round(np.exp(rng.normal(p["log_lactate"]["mean"], p["log_lactate"]["sd"], n)), 1),
+        "albumin": np.round(rng.normal(p["albumin"]["mean"], p["albumin"]["sd"], n)).astype(int),
+    })
 
 
 SPEC_TOML = """\
@@ -403,6 +423,19 @@ window = 400
 [[maps]]
 indices = ["cfs", "physiology"]
 target = "composite"
+
+# Rule consequences: "laparotomy below a threshold, else non-operative care" (and the reverse) per 100 patients
+[policy]
+indices = ["cfs", "age"]
+tolerance = 1.0
+"""
+# written beside local_patients.csv only (SPEC_TOML alone also serves other cohorts, which have no such file)
+TARGET_TOML = """
+# The rules are applied to the invented hospital's own patients in local_patients.csv (index and covariate
+# columns, no outcomes).
+[target]
+path = "local_patients.csv"
+label = "our own patients (invented)"
 """
 
 
@@ -499,6 +532,13 @@ Favourable function = independent or home_with_help at six months (death counts 
 
 Between the two points, laparotomy buys survival at the cost of more dependent survivors: the outcomes
 break even at different frailty levels.
+
+## Local patients (local_patients.csv)
+
+{LOCAL_N} invented patients of "our own hospital", for the rules per 100 patients (`[target]`): pid, age, sex, cfs,
+lactate and albumin drawn as above except that ages are three years higher (68-98, so a few are older than anyone
+in the cohort) and the frailty scale is tilted towards frailer levels (each level's share times 0.6 at CFS 1
+rising evenly to 1.6 at CFS 9). No outcomes, no arm: the rules say what would happen to them.
 """
 
 

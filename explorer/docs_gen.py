@@ -17,6 +17,7 @@ from typing import Any, Iterable
 
 from . import results as res
 from . import spec as sp
+from .policy_fields import POLICY_SECTION
 
 ROOT = Path(__file__).resolve().parents[1]
 DOCS = ROOT / "docs"
@@ -24,7 +25,8 @@ REFERENCE = DOCS / "spec-reference.md"
 
 SECTION_CLASSES = {"cohort": sp.CohortSpec, "outcomes": sp.OutcomeSpec, "indices": sp.IndexSpec,
                    "prognostic": sp.PrognosticSpec, "values": sp.ValuesSpec, "analysis": sp.AnalysisSpec,
-                   "selection": sp.SelectionSpec, "pairwise": sp.PairwiseSpec, "maps": sp.MapSpec}
+                   "selection": sp.SelectionSpec, "pairwise": sp.PairwiseSpec, "maps": sp.MapSpec,
+                   "target": sp.TargetSpec, "policy": sp.PolicySpec}
 SECTION_HEADS = {
     "cohort": ("[cohort]", "The cohort file and which columns hold the arm, the allocation and the patient."),
     "outcomes": ("[[outcomes]]", "One table per outcome; each is fitted in each arm along every index."),
@@ -36,6 +38,10 @@ SECTION_HEADS = {
     "pairwise": ("[pairwise]", "The hierarchical pairwise comparison (win ratio, win odds, net benefit)."),
     "maps": ("[[maps]]", "Two-index maps: the arm favoured over the plane of two indices, each one row of `maps` "
                          "in the results. The app's Two indices page opens on the first one."),
+    "target": ("[target]", "Local patients without outcomes (index and covariate columns): rule consequences are "
+                           "standardised over them, with an overlap check against the cohort. Turns the rules on."),
+    "policy": ("[policy]", "Threshold rules along the indices: consequences per 100 patients, the best threshold "
+                           "and the flat range around it (the `policy` rows of the results)."),
 }
 TYPE_WORDS = {"str": "text", "path": "file path", "float": "number", "int": "whole number", "bool": "true / false",
               "list[str]": "list of texts", "list[float]": "list of numbers", "table[float]": "table of numbers",
@@ -516,6 +522,7 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("imputation[].warnings", "Sentences."),
     ]),
 ]
+RESULT_SECTIONS.append(POLICY_SECTION)
 RESULT_FIELDS: dict[str, str] = {path: text for _, _, rows in RESULT_SECTIONS for path, text in rows}
 BREAK_EVEN_LISTS = ("composite[].break_even[]", "selection[].randomised_break_even[]",
                     "selection[].all_break_even[]", "selection[].adjusted_break_even[]",

@@ -18,6 +18,7 @@ from . import margins
 from .database import KEYS as DATABASE_KEYS, cohort_source
 from .errors import FulcrumError, nfc
 from .settings import check_analysis
+from .spec_sections import SECTION_SCHEMA, PolicySpec, TargetSpec, target_and_policy
 from .tomlwrite import plain, toml_value as _toml_value
 
 OUTCOME_KINDS = ("continuous", "binary", "ordinal", "survival")
@@ -173,6 +174,8 @@ class Spec:
     pairwise: PairwiseSpec | None = None
     maps: tuple[MapSpec, ...] = ()
     source: str | None = None
+    target: TargetSpec | None = None
+    policy: PolicySpec | None = None
 
     def margin_for(self, outcome: OutcomeSpec) -> float:
         return margins.margin_for(self, outcome)
@@ -302,8 +305,9 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "target": ("str", "An outcome name or 'composite'."),
         "interaction": ("bool", "Include the interaction of the two indices (default false)."),
     },
+    **SECTION_SCHEMA,
 }
-TOP_LEVEL = ("cohort", "outcomes", "indices", "values", "analysis", "selection", "pairwise", "maps")
+TOP_LEVEL = ("cohort", "outcomes", "indices", "values", "analysis", "selection", "pairwise", "maps", *SECTION_SCHEMA)
 REQUIRED = {
     "cohort": ("arm", "arms"),
     "outcomes": ("name", "kind"),
@@ -545,7 +549,8 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
         maps.append(MapSpec(indices=(names[0], names[1]), target=target, interaction=r.get("interaction", False)))
 
     return Spec(cohort=cohort, outcomes=outcomes, indices=indices, analysis=analysis, values=values,
-                selection=selection, pairwise=pairwise, maps=tuple(maps), source=source)
+                selection=selection, pairwise=pairwise, maps=tuple(maps), source=source,
+                **target_and_policy(data, base_dir, indices, source))
 
 
 def _array(value: Any, name: str, source: str | None) -> list:

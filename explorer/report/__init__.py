@@ -482,8 +482,9 @@ def render_report(result: Any, *, extra_sections: Iterable[Section | Mapping[str
     selection = selection_sections(doc)
     pairwise = pairwise_sections(doc)
     from ..maps import map_sections
+    from ..policy_charts import report_sections as policy_sections
 
-    extras = _extra([*map_sections(doc), *(extra_sections or [])])
+    extras = _extra([*map_sections(doc), *policy_sections(doc), *(extra_sections or [])])
     specs = _number_charts([baseline, coverage, outcomes, survival, composites, selection, pairwise, extras])
     spec_obj = getattr(result, "spec", None)
     context = {

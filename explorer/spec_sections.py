@@ -1,0 +1,73 @@
+"""The optional [target] (local patients) and [policy] (threshold rules) sections of the spec.
+
+Kept beside spec.py so that module stays small; spec.py folds SECTION_SCHEMA into its SCHEMA table and calls
+`target_and_policy` from parse_spec.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from .errors import FulcrumError
+
+
+@dataclass(frozen=True)
+class TargetSpec:
+    """Local patients without outcomes, to standardise rule consequences over (paths relative to the spec)."""
+
+    path: Path
+    label: str | None = None
+    sheet: str | None = None
+
+
+@dataclass(frozen=True)
+class PolicySpec:
+    """Rule consequences: threshold rules along the indices, per 100 patients of the target population."""
+
+    indices: tuple[str, ...] = ()
+    tolerance: float = 1.0
+    thresholds: int = 101
+
+
+SECTION_SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
+    "target": {
+        "path": ("path", "A file of local patients (.csv, .tsv, .xlsx, .parquet) with the index and covariate "
+                         "columns and no outcomes, relative to the spec file; rule consequences are standardised "
+                         "over these patients."),
+        "label": ("str", "A name for the local patients in sentences and the report (default: the file name)."),
+        "sheet": ("str", "Excel only: the sheet to read when the workbook has several."),
+    },
+    "policy": {
+        "indices": ("list[str]", "Indices along which threshold rules are examined (default: every index)."),
+        "tolerance": ("float", "Per 100 patients: thresholds whose composite (or outcome) lies within this much of "
+                               "the best form the flat range reported beside the best threshold (default 1)."),
+        "thresholds": ("int", "Candidate thresholds along a continuous index (default 101; a whole-level index "
+                              "uses the midpoints between its levels)."),
+    },
+}
+
+
+def target_and_policy(data: dict[str, Any], base_dir: Path, indices: tuple, source: str | None) -> dict[str, Any]:
+    """{"target": TargetSpec | None, "policy": PolicySpec | None}; a [target] alone turns the rules on."""
+    from .spec import _known, _range_check, _Reader  # spec.py imports this module at its top
+
+    target = None
+    if "target" in data:
+        t = _Reader(data["target"], "target", "target", source)
+        if t.get("path") is None:
+            raise FulcrumError("[target] is missing the required key 'path' (the file of local patients).",
+                               file=source, key="target.path", hint='Add path = "local_patients.csv" to [target].')
+        raw = Path(t.get("path"))
+        target = TargetSpec(path=raw if raw.is_absolute() else base_dir / raw, label=t.get("label"),
+                            sheet=t.get("sheet"))
+    policy = None
+    if "policy" in data or target is not None:
+        p = _Reader(data.get("policy", {}), "policy", "policy", source)
+        names = p.get("indices", ())
+        for n in names:
+            _known(n, {x.name: x for x in indices}, "policy.indices", source)
+        policy = PolicySpec(indices=names, tolerance=p.get("tolerance", 1.0), thresholds=p.get("thresholds", 101))
+        _range_check(policy.tolerance, 0.0, 100.0, "policy.tolerance", source)
+        _range_check(policy.thresholds, 11, 2001, "policy.thresholds", source)
+    return {"target": target, "policy": policy}

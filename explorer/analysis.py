@@ -558,6 +558,10 @@ def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | Non
         warnings += clusters["warnings"]
     extra["maps"] = mp.decision_maps(fs)
     extra["imputation"] = im.imputed_break_evens(fs, m=spec.analysis.imputations) if spec.analysis.imputations else []
+    if spec.evidence is not None:
+        from . import evidence as ev  # features sit beside each other; imported here like the others above
+
+        extra["evidence"] = ev.evidence_rows(fs, composite, reps)
     doc = res.document(spec, data_sha256=fs.cohort.sha256, spec_bytes=spec_bytes, rows=rows,
                        composite=vl.composite_rows(fs, composite) if composite else [],
                        selection=selection.rows if selection else [], warnings=warnings, extra=extra)

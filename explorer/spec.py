@@ -143,6 +143,15 @@ class PairwiseSpec:
 
 
 @dataclass(frozen=True)
+class EvidenceSpec:
+    """Value of information along each index (its presence turns the section on)."""
+
+    threshold: float = 1.0  # per 100 patients, in the outcome's per-100 units
+    sizes: tuple[int, ...] = (100, 250, 500, 1000, 2000)
+    simulations: int = 200
+
+
+@dataclass(frozen=True)
 class MapSpec:
     indices: tuple[str, str]
     target: str
@@ -160,6 +169,7 @@ class Spec:
     pairwise: PairwiseSpec | None = None
     maps: tuple[MapSpec, ...] = ()
     source: str | None = None
+    evidence: EvidenceSpec | None = None
 
     def outcome(self, name: str) -> OutcomeSpec:
         for o in self.outcomes:
@@ -275,8 +285,14 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "target": ("str", "An outcome name or 'composite'."),
         "interaction": ("bool", "Include the interaction of the two indices (default false)."),
     },
+    "evidence": {
+        "threshold": ("float", "Value of information worth acting on, per 100 patients in the outcome's per-100 units "
+                               "(default 1): the index values above it are reported."),
+        "sizes": ("list[int]", "Study planner: numbers of new patients to try (default 100, 250, 500, 1000, 2000)."),
+        "simulations": ("int", "Study planner: simulated studies per strategy and size (default 200)."),
+    },
 }
-TOP_LEVEL = ("cohort", "outcomes", "indices", "values", "analysis", "selection", "pairwise", "maps")
+TOP_LEVEL = ("cohort", "outcomes", "indices", "values", "analysis", "selection", "pairwise", "maps", "evidence")
 REQUIRED = {
     "cohort": ("path", "arm", "arms"),
     "outcomes": ("name", "kind"),
@@ -351,6 +367,10 @@ def _coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
                 isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in value):
             raise bad("a list of numbers, e.g. [1, 99]")
         return tuple(float(v) for v in value)
+    if kind == "list[int]":
+        if not isinstance(value, list) or not all(isinstance(v, int) and not isinstance(v, bool) for v in value):
+            raise bad("a list of whole numbers, e.g. [200, 500]")
+        return tuple(value)
     if kind == "table[float]":
         if not isinstance(value, dict):
             raise bad("a table of numbers, e.g. { level = 0.5 }")
@@ -529,8 +549,22 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
                                key=f"maps[{i + 1}].target", hint="Add [values] or target an outcome.")
         maps.append(MapSpec(indices=(names[0], names[1]), target=target, interaction=r.get("interaction", False)))
 
+    evidence = _evidence(data["evidence"], source) if "evidence" in data else None
+
     return Spec(cohort=cohort, outcomes=outcomes, indices=indices, analysis=analysis, values=values,
-                selection=selection, pairwise=pairwise, maps=tuple(maps), source=source)
+                selection=selection, pairwise=pairwise, maps=tuple(maps), source=source, evidence=evidence)
+
+
+def _evidence(raw: Any, source: str | None) -> EvidenceSpec:
+    r = _Reader(raw, "evidence", "evidence", source)
+    ev = EvidenceSpec(threshold=r.get("threshold", 1.0), sizes=tuple(r.get("sizes", EvidenceSpec.sizes)),
+                      simulations=r.get("simulations", 200))
+    _range_check(ev.threshold, 0.0, 1e9, "evidence.threshold", source)
+    _range_check(ev.simulations, 20, 100_000, "evidence.simulations", source)
+    if not ev.sizes or any(n < 10 or n > 10_000_000 for n in ev.sizes):
+        raise FulcrumError(f"'evidence.sizes' should list numbers of new patients from 10 to 10,000,000, found "
+                           f"{list(ev.sizes)}.", file=source, key="evidence.sizes", hint="For example [200, 500, 1000].")
+    return ev
 
 
 def _array(value: Any, name: str, source: str | None) -> list:

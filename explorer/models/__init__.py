@@ -11,7 +11,7 @@ from .glm import LinearFit, LogisticFit
 from .ordinal import OrdinalFit
 from .weibull import WeibullFit
 
-__all__ = ["fit_model", "Basis", "Fitted", "OutcomeData", "CoxFit", "WeibullFit", "OrdinalFit", "LogisticFit",
+__all__ = ["fit_model", "is_probability", "Basis", "Fitted", "OutcomeData", "CoxFit", "WeibullFit", "OrdinalFit", "LogisticFit",
            "LinearFit"]
 
 
@@ -44,3 +44,8 @@ def fit_model(outcome: OutcomeSpec, arm: str, basis: Basis, data: OutcomeData, s
         return LinearFit(outcome.name, arm, basis, data, robust, bounded=outcome.bounds is not None)
     raise FulcrumError(f"outcome '{outcome.name}' has an unknown kind '{kind}'.", key=f"outcomes '{outcome.name}'",
                        hint="Use continuous, binary, ordinal or survival.")
+
+
+def is_probability(outcome: OutcomeSpec) -> bool:
+    """Whether the outcome's measure is a probability (survival at a horizon, P(favourable), P(event))."""
+    return outcome.kind in ("binary", "ordinal") or (outcome.kind == "survival" and outcome.measure != "rmst")

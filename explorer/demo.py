@@ -400,6 +400,9 @@ window = 400
 [[maps]]
 indices = ["cfs", "physiology"]
 target = "composite"
+
+[evidence]
+threshold = 1.0
 """
 
 

@@ -497,7 +497,8 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
                               "normal loss integral)."),
         ("evidence[].units", "What per_100 counts: patients in 100 for probabilities, value points or the outcome's "
                              "units per 100 patients otherwise."),
-        ("evidence[].threshold", "The value of information worth acting on, per 100 ([evidence] threshold)."),
+        ("evidence[].threshold", "The value of information worth acting on, per 100 patients in `units` ([evidence] "
+                                 "threshold or thresholds); null for an unbounded measure with none stated."),
         ("evidence[].curve", "Along the observed index range: the expected value of perfect information per patient "
                              "(evpi, in the measure's units, margin subtracted) and per 100 patients (per_100)."),
         ("evidence[].curve[].x", "Index value."),

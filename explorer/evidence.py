@@ -26,7 +26,7 @@ import numpy as np
 from scipy import special
 
 from . import analysis as an
-from .models import is_probability
+from .models import is_probability, measure_range
 from .results import r6, r6_list
 
 SQRT2PI = float(np.sqrt(2.0 * np.pi))
@@ -123,8 +123,19 @@ def _stretches(grid: np.ndarray, above: np.ndarray) -> list[dict]:
     return out
 
 
+def outcome_threshold(outcome, ev) -> float | None:
+    """The value of information worth acting on for this outcome, per 100 patients in its own units: stated for it,
+    else the general threshold (patients in 100), scaled to the measure's range when that is not [0, 1]; None for
+    an unbounded measure with no stated threshold."""
+    threshold = ev.threshold if ev else 1.0
+    if ev and outcome.name in ev.thresholds:
+        return ev.thresholds[outcome.name]
+    lo, hi = measure_range(outcome)
+    return threshold * (hi - lo) if np.isfinite(hi - lo) else None
+
+
 def evidence_row(u: Uncertainty, *, outcome: str, index: str, measure: str, probability: bool, units: str,
-                 index_label: str, threshold: float, population: Population, x_range: tuple[float, float],
+                 index_label: str, threshold: float | None, population: Population, x_range: tuple[float, float],
                  kind: str | None = None) -> dict:
     """One `evidence` row: EVPI along the index, the stretch above the threshold and the population's value."""
     keep = (u.grid >= x_range[0] - 1e-9) & (u.grid <= x_range[1] + 1e-9)
@@ -140,7 +151,7 @@ def evidence_row(u: Uncertainty, *, outcome: str, index: str, measure: str, prob
         "method": "bootstrap replicates" if u.method == "bootstrap" else "normal approximation (closed form)",
         "units": per_unit, "threshold": r6(threshold),
         "curve": [{"x": x, "evpi": e, "per_100": p} for x, e, p in zip(r6_list(grid), r6_list(ev), r6_list(per100))],
-        "above_threshold": _stretches(grid, per100 > threshold),
+        "above_threshold": [] if threshold is None else _stretches(grid, per100 > threshold),
         "peak": None if peak is None else {"x": r6(grid[peak]), "per_100": r6(per100[peak])},
         "population": {"name": population.name, "n": int(len(xs)),
                        "evpi": r6(pop_ev), "per_100": r6(None if pop_ev is None else 100.0 * pop_ev)},
@@ -165,14 +176,16 @@ def sentence(row: dict, index_label: str, probability: bool) -> str:
             if probability else
             f"knowing the answer would gain about {_num(peak['per_100'])} {row['units']}")
     text = f"Uncertainty matters most at {index_label} {peak['x']:.3g}: {gain}."
-    if row["above_threshold"]:
+    if row["threshold"] is None:
+        text += " No threshold is stated for this measure ([evidence] thresholds)."
+    elif row["above_threshold"]:
         spans = ", ".join(f"{s['from']:.3g} to {s['to']:.3g}" for s in row["above_threshold"])
-        text += f" It exceeds {row['threshold']:g} per 100 from {spans}."
+        text += f" It exceeds the threshold of {row['threshold']:g} {row['units']} from {spans}."
     else:
-        text += (f" It stays below {row['threshold']:g} per 100 along the whole index: more evidence is unlikely to "
-                 "change this choice.")
+        text += (f" It stays below the threshold of {row['threshold']:g} {row['units']} along the whole index: more "
+                 "evidence is unlikely to change this choice.")
     if pop["per_100"] is not None:
-        text += f" Over {pop['name']} ({pop['n']} patients) it averages {_num(pop['per_100'])} per 100."
+        text += f" Over {pop['name']} ({pop['n']} patients) it averages {_num(pop['per_100'])} {row['units']}."
     return text
 
 
@@ -183,7 +196,6 @@ def evidence_rows(fs: an.FitSet, composite: dict | None = None, replicates: list
 
     spec = fs.spec
     ev = spec.evidence
-    threshold = ev.threshold if ev else 1.0
     margin = spec.analysis.margin
     population = population or cohort_population(fs)
     rows = []
@@ -193,16 +205,22 @@ def evidence_rows(fs: an.FitSet, composite: dict | None = None, replicates: list
             continue  # its difference compares different groups of survivors: not a choice between arms
         u = pair_uncertainty(pf, margin, an.grid_for(pf, spec.analysis.grid), replicates)
         rows.append(evidence_row(u, outcome=oname, index=iname, measure=o.title, probability=is_probability(o),
-                                 units=o.units or "", index_label=_index_label(fs, iname), threshold=threshold,
-                                 population=population, x_range=pf.x_range))
+                                 units=o.units or "", index_label=_index_label(fs, iname),
+                                 threshold=outcome_threshold(o, ev), population=population, x_range=pf.x_range))
     for (kind, iname), (_, info) in (composite or {}).items():
         cm = info.model
         if cm is None:
             continue
         w = _weights_for(cm, info.weights)
         u = composite_uncertainty(cm, w, margin)
+        if cm.weighted:  # expected value weights: on the [0, 1] scale of the weights
+            units, threshold = "value points", (ev.threshold if ev else 1.0)
+        else:  # utility x survival time: quality-adjusted time to the anchor outcome's horizon
+            anchor = cm.pair.outcome
+            units = f"quality-adjusted {anchor.units or 'time units'}"
+            threshold = (ev.threshold if ev else 1.0) * float(anchor.horizon)
         rows.append(evidence_row(u, outcome="composite", index=iname, measure=info.measure, probability=False,
-                                 units="value points", index_label=_index_label(fs, iname), threshold=threshold,
+                                 units=units, index_label=_index_label(fs, iname), threshold=threshold,
                                  population=population, x_range=cm.x_range, kind=kind))
     return rows
 

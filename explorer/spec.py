@@ -146,7 +146,8 @@ class PairwiseSpec:
 class EvidenceSpec:
     """Value of information along each index (its presence turns the section on)."""
 
-    threshold: float = 1.0  # per 100 patients, in the outcome's per-100 units
+    threshold: float = 1.0  # per 100 patients, for probabilities and composites
+    thresholds: dict[str, float] = field(default_factory=dict)  # per outcome, in its own units per 100 patients
     sizes: tuple[int, ...] = (100, 250, 500, 1000, 2000)
     simulations: int = 200
 
@@ -286,8 +287,12 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "interaction": ("bool", "Include the interaction of the two indices (default false)."),
     },
     "evidence": {
-        "threshold": ("float", "Value of information worth acting on, per 100 patients in the outcome's per-100 units "
-                               "(default 1): the index values above it are reported."),
+        "threshold": ("float", "Value of information worth acting on, per 100 patients (default 1): patients in 100 "
+                               "for probabilities, value points for composites; for other bounded measures (days at "
+                               "home, restricted mean survival) the same share of the measure's range. The index "
+                               "values above it are reported."),
+        "thresholds": ("table[float]", "Per outcome name, a threshold in that outcome's own units per 100 patients "
+                                       "(e.g. { days_home = 300 } days per 100 patients), overriding `threshold`."),
         "sizes": ("list[int]", "Study planner: numbers of new patients to try (default 100, 250, 500, 1000, 2000)."),
         "simulations": ("int", "Study planner: simulated studies per strategy and size (default 200)."),
     },
@@ -549,18 +554,21 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
                                key=f"maps[{i + 1}].target", hint="Add [values] or target an outcome.")
         maps.append(MapSpec(indices=(names[0], names[1]), target=target, interaction=r.get("interaction", False)))
 
-    evidence = _evidence(data["evidence"], source) if "evidence" in data else None
+    evidence = _evidence(data["evidence"], by_name, source) if "evidence" in data else None
 
     return Spec(cohort=cohort, outcomes=outcomes, indices=indices, analysis=analysis, values=values,
                 selection=selection, pairwise=pairwise, maps=tuple(maps), source=source, evidence=evidence)
 
 
-def _evidence(raw: Any, source: str | None) -> EvidenceSpec:
+def _evidence(raw: Any, outcomes: dict[str, OutcomeSpec], source: str | None) -> EvidenceSpec:
     r = _Reader(raw, "evidence", "evidence", source)
-    ev = EvidenceSpec(threshold=r.get("threshold", 1.0), sizes=tuple(r.get("sizes", EvidenceSpec.sizes)),
-                      simulations=r.get("simulations", 200))
+    ev = EvidenceSpec(threshold=r.get("threshold", 1.0), thresholds=r.get("thresholds", {}),
+                      sizes=tuple(r.get("sizes", EvidenceSpec.sizes)), simulations=r.get("simulations", 200))
     _range_check(ev.threshold, 0.0, 1e9, "evidence.threshold", source)
     _range_check(ev.simulations, 20, 100_000, "evidence.simulations", source)
+    for name, v in ev.thresholds.items():
+        _known(name, outcomes, "evidence.thresholds", source)
+        _range_check(v, 0.0, 1e12, f"evidence.thresholds.{name}", source)
     if not ev.sizes or any(n < 10 or n > 10_000_000 for n in ev.sizes):
         raise FulcrumError(f"'evidence.sizes' should list numbers of new patients from 10 to 10,000,000, found "
                            f"{list(ev.sizes)}.", file=source, key="evidence.sizes", hint="For example [200, 500, 1000].")

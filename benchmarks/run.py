@@ -4,7 +4,8 @@
 
 (a) one per-arm Cox fit, (b) one proportional-odds fit, (c) the demo spec (3 outcomes x 2 indices) with
 bootstrap replicates, (d) re-weighting the composite, (e) peak memory of a 1M-row x 20-column analysis,
-(f) a 1M-row survival analysis end to end, (g) the whole demo spec with analytic intervals at 10k patients.
+(f) a 1M-row survival analysis end to end, (g) the whole demo spec with analytic intervals at 10k patients,
+(j) the default study plan on the demo (3 strategies x 5 sizes x 200 simulated studies, two workers).
 Medians of repeated runs; targets are printed beside the
 measurements (DESIGN.md section 8) and are never asserted in tests. The data are the invented demo cohort.
 """
@@ -57,7 +58,7 @@ SETTINGS = {
 }
 TARGETS = {"cox_fit_ratio": (">=", 10.0), "bootstrap_seconds": ("<=", 60.0), "bootstrap_ratio": (">=", 20.0),
            "reweight_ms": ("<=", 50.0), "peak_rss_mb": ("<=", 2500.0), "survival_1m_seconds": ("<=", 20.0),
-           "full_analytic_seconds": ("<=", 2.0)}
+           "full_analytic_seconds": ("<=", 2.0), "plan_seconds": ("<=", 60.0)}
 
 
 # ------------------------------------------------------------------------------------------
@@ -317,6 +318,54 @@ def full_analytic_case(directory: Path, runs: int) -> dict:
 
 
 # ------------------------------------------------------------------------------------------
+# (j) the study planner
+# ------------------------------------------------------------------------------------------
+def plan_case(directory: Path, ref_k: int = 3) -> dict:
+    """The default plan (explorer.planner.plan_study) for one-year survival along frailty on the shipped-size demo,
+    against a naive planner that refits each simulated study's two arms with lifelines (extrapolated from ref_k)."""
+    from explorer import planner as pl
+    from explorer.models.simulate import append, simulate
+
+    spec = load_spec(directory / "demo.toml")
+    spec = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, workers=2))
+    fs = an.fit_all(spec)
+    target = pl.Target(width=1.0)
+    t, c = time.perf_counter(), cpu_seconds()
+    doc = pl.plan_study(fs, "alive", "cfs", target)
+    seconds, cpu = time.perf_counter() - t, cpu_seconds() - c
+    studies = len(doc["rows"]) * doc["simulations"]
+    pf = fs.pair("alive", "cfs")
+    rng = np.random.default_rng(SEED)
+    ref_times = []
+    for size in (doc["sizes"] * ref_k)[:ref_k]:
+        t0 = time.perf_counter()
+        for arm, fit in pf.fits.items():
+            new = simulate(fit, rng.choice(pf.data[arm].x, size // 2), None, rng)
+            d = append(pf.data[arm], new)
+            ref.cox_fit(d.time, d.event, d.x[:, None])
+        ref_times.append(time.perf_counter() - t0)
+    ref_per = float(np.median(ref_times))
+    return {"patients": fs.cohort.n, "studies": studies, "strategies": len(doc["strategies"]),
+            "sizes": doc["sizes"], "simulations": doc["simulations"], "workers": 2, "seconds": seconds,
+            "cpu_seconds": cpu, "reference_per_study_s": ref_per, "reference_studies_measured": ref_k,
+            "reference_serial_s_extrapolated": ref_per * studies, "ratio": ref_per * studies / seconds}
+
+
+def plan_lines(report: dict, work: Path) -> None:
+    plan_dir = work / "plan"
+    demo.write_demo(plan_dir)
+    say("(j) the default study plan (3 strategies x 5 sizes x 200 simulated studies of one-year survival along "
+        "frailty, refit and interval each), demo cohort of 2,400, workers = 2")
+    j = plan_case(plan_dir)
+    report["plan"], report["plan_seconds"] = j, j["seconds"]
+    say(f"  ours: {j['seconds']:.1f} s for {j['studies']} simulated studies{verdict('plan_seconds', j['seconds'])} "
+        f"(CPU {j['cpu_seconds']:.0f} s in this process; workers' CPU not counted)")
+    say(f"  reference: lifelines refits of both arms alone, {j['reference_per_study_s']:.2f} s per study (median of "
+        f"{j['reference_studies_measured']}), EXTRAPOLATED to {j['reference_serial_s_extrapolated']:.0f} s serial; "
+        f"ratio {j['ratio']:.1f}x")
+
+
+# ------------------------------------------------------------------------------------------
 # (e) and (f): a fresh process per analysis, through the command line
 # ------------------------------------------------------------------------------------------
 CHILD = """
@@ -358,6 +407,7 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--quick", action="store_true", help="smaller sizes, under 5 minutes")
     p.add_argument("--json", metavar="OUT", help="write the measurements here")
     p.add_argument("--workdir", help="keep generated data here (default: a temporary folder, removed)")
+    p.add_argument("--only", choices=["plan"], help="run one section alone")
     args = p.parse_args(argv)
     mode = "quick" if args.quick else "full"
     s = SETTINGS[mode]
@@ -369,7 +419,10 @@ def main(argv: list[str] | None = None) -> int:
     say(f"Fulcrum benchmark ({mode}) on {report['machine']['nproc']} x {report['machine']['cpu']}, load average "
         f"{' '.join(f'{v:.2f}' for v in report['load_average_start'])}")
     try:
-        run_all(report, s, work)
+        if args.only == "plan":
+            plan_lines(report, work)
+        else:
+            run_all(report, s, work)
     finally:
         if not args.workdir:
             shutil.rmtree(work, ignore_errors=True)
@@ -457,6 +510,8 @@ def run_all(report: dict, s: dict, work: Path) -> None:
     say(f"  wall {f['seconds']:.1f} s (CPU {f['cpu_seconds']:.1f} s: user {f['user_seconds']:.1f}, system "
         f"{f['system_seconds']:.1f}; peak RSS {f['peak_rss_mb']:.0f} MB, load average {f['load_average'][0]:.1f})"
         + (verdict("survival_1m_seconds", f["seconds"]) if len(big) >= 1_000_000 else " [1M target: full run]"))
+
+    plan_lines(report, work)
 
 
 if __name__ == "__main__":

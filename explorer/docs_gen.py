@@ -495,7 +495,7 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("evidence[].method", "Where the uncertainty comes from: the bootstrap replicates' curves, or the fitted "
                               "models' normal approximation, for which the expected loss has a closed form (the unit "
                               "normal loss integral)."),
-        ("evidence[].units", "What per_100 counts: patients in 100 for probabilities, value points or the outcome's "
+        ("evidence[].units", "What per_100 counts: in 100 patients for probabilities, value points or the outcome's "
                              "units per 100 patients otherwise."),
         ("evidence[].threshold", "The value of information worth acting on, per 100 patients in `units` ([evidence] "
                                  "threshold or thresholds); null for an unbounded measure with none stated."),

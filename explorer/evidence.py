@@ -145,7 +145,7 @@ def evidence_row(u: Uncertainty, *, outcome: str, index: str, measure: str, prob
     xs = xs[np.isfinite(xs)]
     pop_ev = float(np.mean(np.interp(xs, grid, ev))) if len(xs) else None
     peak = int(np.argmax(per100)) if len(per100) else None
-    per_unit = "patients in 100" if probability else (f"{units} per 100 patients" if units else "per 100 patients")
+    per_unit = "in 100 patients" if probability else (f"{units} per 100 patients" if units else "per 100 patients")
     row = {
         "outcome": outcome, "index": index, "measure": measure, "kind": kind,
         "method": "bootstrap replicates" if u.method == "bootstrap" else "normal approximation (closed form)",

@@ -11,6 +11,7 @@ PAGES = [
     st.Page("page_selection.py", title="Randomised vs chosen", url_path="selection"),
     st.Page("page_patient.py", title="Patient", url_path="patient"),
     st.Page("page_maps.py", title="Two indices", url_path="maps"),
+    st.Page("page_evidence.py", title="More evidence", url_path="evidence"),
     st.Page("page_report.py", title="Report", url_path="report"),
 ]
 page = st.navigation(PAGES)

@@ -104,7 +104,7 @@ def test_evidence_rows_in_the_document_follow_the_schema_and_the_closed_form(fol
     doc = result.document
     jsonschema.validate(json.loads(res.dumps(doc)), res.schema())
     (row,) = doc["evidence"]
-    assert row["method"].startswith("normal") and row["units"] == "patients in 100"
+    assert row["method"].startswith("normal") and row["units"] == "in 100 patients"
     pf = result.fitset.pair("y", "x")
     xs = np.array([p["x"] for p in row["curve"]])
     first, second = pf.fits["alpha"], pf.fits["beta"]

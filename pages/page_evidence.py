@@ -66,9 +66,9 @@ with c2:
                              value=float(round((lo + hi) / 2, 1)), key=ui.key(f"plan_at_{index}"))
         chance = st.slider("Wanted chance", 0.5, 0.99, 0.8, key=ui.seed("plan_chance", 0.8))
         target = pl.Target(chance=chance, at=at)
-    sims = st.select_slider("Simulated studies per strategy and size", [50, 100, 200, 400],
+    sims = st.select_slider("Simulated studies per strategy and size", [20, 50, 100, 200, 400],
                             value=spec.evidence.simulations if spec.evidence and spec.evidence.simulations in
-                            (50, 100, 200, 400) else 200, key=ui.key("plan_sims"))
+                            (20, 50, 100, 200, 400) else 200, key=ui.key("plan_sims"))
 if st.button("Simulate the next study", type="primary"):
     doc = ui.with_progress("Simulating studies:", functools.partial(pl.plan_study, simulations=sims), fs, outcome,
                            index, target)

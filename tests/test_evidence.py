@@ -193,3 +193,29 @@ def test_plan_command_writes_its_document(folder, tmp_path, capsys):
     assert cli.main(["plan", str(folder / "spec.toml"), "--target-chance", "1.5", "--at", "x=5"]) == 2
     assert cli.main(["plan", str(folder / "spec.toml"), "--target-chance", "0.8", "--at", "nope"]) == 2
     assert "fulcrum:" in capsys.readouterr().err
+
+
+# ---- the app page ------------------------------------------------------------------------------------
+@pytest.mark.slow
+def test_more_evidence_page_shows_the_engine_sentence_and_plans(monkeypatch):
+    # Reference: the engine's own evidence rows for the app's analysis (explorer.evidence.evidence_rows)
+    from pathlib import Path
+
+    from streamlit.testing.v1 import AppTest
+
+    app = Path(__file__).resolve().parents[1] / "pages" / "app.py"
+    at = AppTest.from_file(str(app), default_timeout=300)
+    at.run()
+    at.switch_page("page_evidence.py").run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert not at.error, [e.value for e in at.error]
+    ws = at.session_state["workspace"]
+    result = ws.result(True)
+    rows = result.document.get("evidence") or ev.evidence_rows(result.fitset, result.composite, result.replicates)
+    first = [r for r in rows if r["index"] == ws.spec.indices[0].name][0]
+    shown = "\n".join(str(m.value) for m in at.markdown)
+    assert first["sentence"].split(":")[0] in shown
+    at.select_slider[0].set_value(20).run()
+    at.button[0].click().run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert len(at.dataframe) >= 2  # the evidence table and the plan table

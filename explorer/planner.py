@@ -188,7 +188,10 @@ def plan_study(fs: an.FitSet, outcome: str, index: str, target: Target, *, sizes
         randomised = np.concatenate([r[pf.rows[a]] for a in pf.fits])
     weights = strategy_weights(pool_x, randomised, x0)
     cells = [(s, int(n)) for s in strategies for n in sizes]
-    st = Setting(pf, spec, pool_x, pool_z, weights, cells, simulations, x0, target.at)
+    # a simulated study needs only the break-even and its interval (roots and interval ends are refined off the grid),
+    # so its curves are drawn on a coarser grid than the report's
+    lean = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, grid=min(spec.analysis.grid, 60)))
+    st = Setting(pf, lean, pool_x, pool_z, weights, cells, simulations, x0, target.at)
     n_workers = workers if workers is not None else spec.analysis.workers
     results = run_blocks(functools.partial(_block, st), len(cells) * simulations, spec.analysis.seed,
                          workers=n_workers, progress=progress)

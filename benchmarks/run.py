@@ -9,6 +9,7 @@ bootstrap replicates, (d) re-weighting the composite, (e) peak memory of a 1M-ro
 report's size and opening time (benchmarks/app_speed.py; `--only-app` runs just this),
 (i) a survival analysis on a DuckDB file of 10M patients x 20 columns against the same rows in Parquet
 (`--only-database` runs (i) alone),
+(j) the default study plan on the demo (3 strategies x 5 sizes x 200 simulated studies, two workers),
 (k) the rule-consequence curve along one index for every outcome and composite at 10k patients,
 (l) bootstrap replicates refitting the cross-fitted prognostic index (refit_index = true) at 2,400 patients.
 Medians of repeated runs; targets are printed beside the
@@ -66,7 +67,8 @@ SETTINGS = {
 TARGETS = {"cox_fit_ratio": (">=", 10.0), "bootstrap_seconds": ("<=", 60.0), "bootstrap_ratio": (">=", 20.0),
            "reweight_ms": ("<=", 50.0), "peak_rss_mb": ("<=", 2500.0), "survival_1m_seconds": ("<=", 20.0),
            "full_analytic_seconds": ("<=", 2.0), "refit_bootstrap_seconds": ("<=", 120.0),
-           "duckdb_10m_seconds": ("<=", 60.0), "duckdb_10m_peak_mb": ("<=", 4096.0), "policy_curve_seconds": ("<=", 0.5)}
+           "duckdb_10m_seconds": ("<=", 60.0), "duckdb_10m_peak_mb": ("<=", 4096.0),
+           "policy_curve_seconds": ("<=", 0.5), "plan_seconds": ("<=", 60.0)}
 
 
 # ------------------------------------------------------------------------------------------
@@ -414,6 +416,54 @@ def policy_case(directory: Path, runs: int) -> dict:
 
 
 # ------------------------------------------------------------------------------------------
+# (j) the study planner
+# ------------------------------------------------------------------------------------------
+def plan_case(directory: Path, ref_k: int = 3) -> dict:
+    """The default plan (explorer.planner.plan_study) for one-year survival along frailty on the shipped-size demo,
+    against a naive planner that refits each simulated study's two arms with lifelines (extrapolated from ref_k)."""
+    from explorer import planner as pl
+    from explorer.models.simulate import append, simulate
+
+    spec = load_spec(directory / "demo.toml")
+    spec = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, workers=2))
+    fs = an.fit_all(spec)
+    target = pl.Target(width=1.0)
+    t, c = time.perf_counter(), cpu_seconds()
+    doc = pl.plan_study(fs, "alive", "cfs", target)
+    seconds, cpu = time.perf_counter() - t, cpu_seconds() - c
+    studies = len(doc["rows"]) * doc["simulations"]
+    pf = fs.pair("alive", "cfs")
+    rng = np.random.default_rng(SEED)
+    ref_times = []
+    for size in (doc["sizes"] * ref_k)[:ref_k]:
+        t0 = time.perf_counter()
+        for arm, fit in pf.fits.items():
+            new = simulate(fit, rng.choice(pf.data[arm].x, size // 2), None, rng)
+            d = append(pf.data[arm], new)
+            ref.cox_fit(d.time, d.event, d.x[:, None])
+        ref_times.append(time.perf_counter() - t0)
+    ref_per = float(np.median(ref_times))
+    return {"patients": fs.cohort.n, "studies": studies, "strategies": len(doc["strategies"]),
+            "sizes": doc["sizes"], "simulations": doc["simulations"], "workers": 2, "seconds": seconds,
+            "cpu_seconds": cpu, "reference_per_study_s": ref_per, "reference_studies_measured": ref_k,
+            "reference_serial_s_extrapolated": ref_per * studies, "ratio": ref_per * studies / seconds}
+
+
+def plan_lines(report: dict, work: Path) -> None:
+    plan_dir = work / "plan"
+    demo.write_demo(plan_dir)
+    say("(j) the default study plan (3 strategies x 5 sizes x 200 simulated studies of one-year survival along "
+        "frailty, refit and interval each), demo cohort of 2,400, workers = 2")
+    j = plan_case(plan_dir)
+    report["plan"], report["plan_seconds"] = j, j["seconds"]
+    say(f"  ours: {j['seconds']:.1f} s for {j['studies']} simulated studies{verdict('plan_seconds', j['seconds'])} "
+        f"(CPU {j['cpu_seconds']:.0f} s in this process; workers' CPU not counted)")
+    say(f"  reference: lifelines refits of both arms alone, {j['reference_per_study_s']:.2f} s per study (median of "
+        f"{j['reference_studies_measured']}), EXTRAPOLATED to {j['reference_serial_s_extrapolated']:.0f} s serial; "
+        f"ratio {j['ratio']:.1f}x")
+
+
+# ------------------------------------------------------------------------------------------
 # (e) and (f): a fresh process per analysis, through the command line
 # ------------------------------------------------------------------------------------------
 CHILD = """
@@ -457,6 +507,7 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--workdir", help="keep generated data here (default: a temporary folder, removed)")
     p.add_argument("--only-app", action="store_true", help="run only (h), the app and report in Chromium")
     p.add_argument("--only-database", action="store_true", help="run only (i), the DuckDB file")
+    p.add_argument("--only-plan", action="store_true", help="run only (j), the default study plan")
     args = p.parse_args(argv)
     mode = "quick" if args.quick else "full"
     s = SETTINGS[mode]
@@ -468,12 +519,15 @@ def main(argv: list[str] | None = None) -> int:
     say(f"Fulcrum benchmark ({mode}) on {report['machine']['nproc']} x {report['machine']['cpu']}, load average "
         f"{' '.join(f'{v:.2f}' for v in report['load_average_start'])}")
     try:
-        if not (args.only_app or args.only_database):
-            run_all(report, s, work)
-        if not args.only_database:
-            app_all(report, work)
-        if not args.only_app:
-            database_run(report, s, work)
+        if args.only_plan:
+            plan_lines(report, work)
+        else:
+            if not (args.only_app or args.only_database):
+                run_all(report, s, work)
+            if not args.only_database:
+                app_all(report, work)
+            if not args.only_app:
+                database_run(report, s, work)
     finally:
         if not args.workdir:
             shutil.rmtree(work, ignore_errors=True)
@@ -588,6 +642,8 @@ def run_all(report: dict, s: dict, work: Path) -> None:
     say(f"  wall {f['seconds']:.1f} s (CPU {f['cpu_seconds']:.1f} s: user {f['user_seconds']:.1f}, system "
         f"{f['system_seconds']:.1f}; peak RSS {f['peak_rss_mb']:.0f} MB, load average {f['load_average'][0]:.1f})"
         + (verdict("survival_1m_seconds", f["seconds"]) if len(big) >= 1_000_000 else " [1M target: full run]"))
+
+    plan_lines(report, work)
 
 
 def app_all(report: dict, work: Path) -> None:

@@ -680,6 +680,10 @@ def _analyse(spec: Spec, fs: FitSet, spec_bytes: bytes | None, progress: Progres
 
         extra["policy"], policy_warnings = po.analysis_rows(fs, replicates=reps)
         warnings += policy_warnings
+    if spec.evidence is not None:
+        from . import evidence as ev  # features sit beside each other; imported here like the others above
+
+        extra["evidence"] = ev.evidence_rows(fs, composite, reps)
     doc = res.document(spec, data_sha256=fs.cohort.sha256, spec_bytes=spec_bytes, rows=rows,
                        composite=vl.composite_rows(fs, composite) if composite else [],
                        selection=selection.rows if selection else [], warnings=warnings, extra=extra,

@@ -1,4 +1,4 @@
-"""fulcrum analyse | validate | demo | app | check-methods | patient: a thin shell over the engine."""
+"""fulcrum analyse | validate | demo | app | check-methods | patient | plan: a thin shell over the engine."""
 from __future__ import annotations
 
 import argparse
@@ -68,6 +68,7 @@ def summary_table(doc: dict) -> str:
     out += ["  ".join(str(c).ljust(w) for c, w in zip(r, widths)) for r in lines]
     abouts = dict.fromkeys((r.get("index_info") or {}).get("about") for r in doc["results"] + doc.get("composite", []))
     out += ["", *(f"Index: {printable(a)}" for a in abouts if a)]
+    out += evidence_lines(doc)
     out.append("")
     out.append("Caution: " + " ".join(CAUTIONS))
     return "\n".join(out)
@@ -93,6 +94,20 @@ def say_warnings(spec) -> list[str]:
     from .settings import advice
 
     return advice(spec.analysis)
+
+
+def evidence_lines(doc: dict) -> list[str]:
+    """Where more evidence would change the answer: one line per evidence row that rises above its threshold."""
+    rows = [r for r in doc.get("evidence", []) if r["above_threshold"]]
+    if not doc.get("evidence"):
+        return []
+    out = ["", "Where more evidence would change the answer (expected value of perfect information):"]
+    if not rows:
+        out.append("  nowhere along any index does it exceed the threshold.")
+    for r in rows:
+        name = r["outcome"] if r["kind"] is None else f"composite ({r['kind']})"
+        out.append(f"  {printable(name)} along {printable(r['index'])}: {printable(r['sentence'])}")
+    return out
 
 
 def cmd_analyse(args: argparse.Namespace) -> int:
@@ -153,6 +168,81 @@ def cmd_patient(args: argparse.Namespace) -> int:
     from .numeric import captured
     from .outputs import input_paths
     from .patient import patient_document, patient_lines, place_patient
+
+
+def _at_value(text: str) -> tuple[str, float]:
+    name, sep, value = text.partition("=")
+    try:
+        if not sep or not name.strip():
+            raise ValueError
+        return name.strip(), float(value)
+    except ValueError:
+        raise FulcrumError(f"--at '{text}' should be INDEX=VALUE, e.g. --at cfs=6.", key="--at",
+                           hint="Name one index of the spec and a number.") from None
+
+
+def cmd_plan(args: argparse.Namespace) -> int:
+    from . import results as res
+    from .analysis import fit_all
+    from .planner import Target, plan_study
+    from .spec import load_spec
+
+    spec = load_spec(args.spec)
+    index = args.index or spec.indices[0].name
+    at = None
+    if args.at:
+        name, at = _at_value(args.at)
+        if args.index and name != args.index:
+            raise FulcrumError(f"--at names index '{name}' but --index is '{args.index}'.", key="--at",
+                               hint="Use the same index for both.")
+        index = name
+    if index not in [ix.name for ix in spec.indices]:
+        raise FulcrumError(f"the spec has no index '{index}'.", key="--index",
+                           hint=f"Use one of {', '.join(ix.name for ix in spec.indices)}.")
+    outcome = args.outcome or spec.outcomes[0].name
+    if outcome not in [o.name for o in spec.outcomes]:
+        raise FulcrumError(f"the spec has no outcome '{outcome}'.", key="--outcome",
+                           hint=f"Use one of {', '.join(o.name for o in spec.outcomes)}.")
+    for flag, v, lo, hi in (("--target-width", args.target_width, 0.0, float("inf")),
+                            ("--target-chance", args.target_chance, 0.0, 1.0)):
+        if v is not None and not (lo < v <= hi if hi == 1.0 else lo < v < hi):
+            raise FulcrumError(f"{flag} is {v:g}; it must be above {lo:g}" + (f" and at most {hi:g}." if hi == 1.0
+                               else "."), key=flag, hint="For example --target-width 1.5 or --target-chance 0.8.")
+    if args.simulations is not None and args.simulations < 20:
+        raise FulcrumError(f"--simulations is {args.simulations}; use at least 20 per strategy and size.",
+                           key="--simulations", hint="The default is 200.")
+    if args.sizes and any(n < 10 for n in args.sizes):
+        raise FulcrumError("--sizes should be numbers of new patients of at least 10.", key="--sizes",
+                           hint="For example --sizes 200 500 1000.")
+    target = Target(width=args.target_width, chance=args.target_chance, at=at)
+    fs = fit_all(spec)
+    bar = None if args.quiet else ProgressBar("simulated studies")
+    doc = plan_study(fs, outcome, index, target, sizes=args.sizes, simulations=args.simulations, progress=bar)
+    if args.json:
+        res.write(doc, args.json)
+    if not args.quiet:
+        print(plan_table(doc))
+    return 0
+
+
+def plan_table(doc: dict) -> str:
+    """The readable table `fulcrum plan` prints."""
+    t = doc["today"]
+    ci = t["ci"] or [None, None]
+    lines = [f"Target: {printable(doc['target']['words'])}.",
+             f"Today: {printable(doc['outcome'])} along {printable(doc['index'])}, break-even "
+             f"{_fmt(t['break_even'])} [{_fmt(ci[0])}, {_fmt(ci[1])}] ({sum(t['n'].values())} patients).",
+             f"{'strategy':<20} {'new patients':>12} {'median width':>13} {'chance':>12}"]
+    for r in doc["rows"]:
+        chance = "" if r["chance"] is None else f"{100 * r['chance']:.0f}% +/- {100 * r['chance_se']:.0f}"
+        lines.append(f"{r['strategy']:<20} {r['new_patients']:>12} {_fmt(r['width']):>13} {chance:>12}")
+    lines += ["", *doc["summary"], "", "Caution: " + " ".join(CAUTIONS)]
+    return "\n".join(lines)
+
+
+def cmd_validate(args: argparse.Namespace) -> int:
+    from .cohort import load_cohort
+    from .indices import compute_index, needed_columns
     from .spec import load_spec
 
     spec = load_spec(args.spec)
@@ -306,6 +396,22 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--address", help="address to bind (default 127.0.0.1)")
     s.add_argument("--spec", help="open on this spec instead of the demo")
     s.set_defaults(func=cmd_app)
+
+    pl = sub.add_parser("plan", help="simulate the next study: how many more randomised patients, where, would "
+                                     "settle a break-even")
+    pl.add_argument("spec")
+    pl.add_argument("--outcome", help="the outcome to plan for (default: the spec's first)")
+    pl.add_argument("--index", help="the index (default: the spec's first)")
+    goal = pl.add_mutually_exclusive_group(required=True)
+    goal.add_argument("--target-width", type=float, metavar="W", help="aim: a break-even interval no wider than W")
+    goal.add_argument("--target-chance", type=float, metavar="P",
+                      help="aim: a clear difference at --at INDEX=VALUE with probability P")
+    pl.add_argument("--at", metavar="INDEX=VALUE", help="the index value for --target-chance")
+    pl.add_argument("--sizes", type=int, nargs="+", metavar="N", help="numbers of new patients to try")
+    pl.add_argument("--simulations", type=int, help="simulated studies per strategy and size (default 200)")
+    pl.add_argument("--json", metavar="OUT", help="write the plan document here")
+    pl.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    pl.set_defaults(func=cmd_plan)
 
     c = sub.add_parser("check-methods", add_help=False,
                        help="measure interval coverage by simulation (writes docs/validation.*); "

@@ -428,6 +428,10 @@ target = "composite"
 [policy]
 indices = ["cfs", "age"]
 tolerance = 1.0
+
+# Where more evidence would change the answer: value of information along each index
+[evidence]
+threshold = 1.0
 """
 # written beside local_patients.csv only (SPEC_TOML alone also serves other cohorts, which have no such file)
 TARGET_TOML = """

@@ -26,7 +26,7 @@ REFERENCE = DOCS / "spec-reference.md"
 SECTION_CLASSES = {"cohort": sp.CohortSpec, "outcomes": sp.OutcomeSpec, "indices": sp.IndexSpec,
                    "prognostic": sp.PrognosticSpec, "values": sp.ValuesSpec, "analysis": sp.AnalysisSpec,
                    "selection": sp.SelectionSpec, "pairwise": sp.PairwiseSpec, "maps": sp.MapSpec,
-                   "target": sp.TargetSpec, "policy": sp.PolicySpec}
+                   "target": sp.TargetSpec, "policy": sp.PolicySpec, "evidence": sp.EvidenceSpec}
 SECTION_HEADS = {
     "cohort": ("[cohort]", "The cohort file and which columns hold the arm, the allocation and the patient."),
     "outcomes": ("[[outcomes]]", "One table per outcome; each is fitted in each arm along every index."),
@@ -42,9 +42,12 @@ SECTION_HEADS = {
                            "standardised over them, with an overlap check against the cohort. Turns the rules on."),
     "policy": ("[policy]", "Threshold rules along the indices: consequences per 100 patients, the best threshold "
                            "and the flat range around it (the `policy` rows of the results)."),
+    "evidence": ("[evidence]", "Where more evidence would change the answer: value of information along each index "
+                               "(the `evidence` rows of the results) and the defaults of `fulcrum plan`."),
 }
 TYPE_WORDS = {"str": "text", "path": "file path", "float": "number", "int": "whole number", "bool": "true / false",
-              "list[str]": "list of texts", "list[float]": "list of numbers", "table[float]": "table of numbers",
+              "list[str]": "list of texts", "list[float]": "list of numbers", "list[int]": "list of whole numbers",
+              "table[float]": "table of numbers",
               "table[range]": "table of [low, high]", "table": "inline table"}
 
 # --------------------------------------------------------------------------------------------------
@@ -94,6 +97,8 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("checks", "One row of trust checks per outcome x index (see Checks rows). Empty when [analysis] "
                    "checks = false."),
         ("maps", "Two-index map rows, one per [[maps]] entry (see Map rows). Empty without [[maps]]."),
+        ("evidence", "Value of information along each index, one row per outcome x index and per composite x index "
+                     "(see Evidence rows). Present only with [evidence]."),
         ("baseline", "Baseline table of the cohort covariates (see Baseline rows). Empty without cohort.covariates."),
         ("clustering", "Present only with cohort.cluster: which clustered intervals were used and over how many "
                        "clusters."),
@@ -520,6 +525,39 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("imputation[].note", "The missing-at-random assumption, in words."),
         ("imputation[].method", "How the imputations were made and pooled."),
         ("imputation[].warnings", "Sentences."),
+    ]),
+    ("evidence", "Evidence rows (where more evidence would change the answer)", [
+        ("evidence[].outcome", "The outcome's name, or \"composite\"."),
+        ("evidence[].index", "The index's name."),
+        ("evidence[].measure", "The measure in words."),
+        ("evidence[].kind", "The composite's kind; null for an outcome."),
+        ("evidence[].method", "Where the uncertainty comes from: the bootstrap replicates' curves, or the fitted "
+                              "models' normal approximation, for which the expected loss has a closed form (the unit "
+                              "normal loss integral)."),
+        ("evidence[].units", "What per_100 counts: in 100 patients for probabilities, value points or the outcome's "
+                             "units per 100 patients otherwise."),
+        ("evidence[].threshold", "The value of information worth acting on, per 100 patients in `units` ([evidence] "
+                                 "threshold or thresholds); null for an unbounded measure with none stated."),
+        ("evidence[].curve", "Along the observed index range: the expected value of perfect information per patient "
+                             "(evpi, in the measure's units, margin subtracted) and per 100 patients (per_100)."),
+        ("evidence[].curve[].x", "Index value."),
+        ("evidence[].curve[].evpi", "Expected loss per patient from choosing by today's estimates instead of the "
+                                    "truth: E[max(D, 0)] - max(E[D], 0), D the first-minus-second difference less "
+                                    "the margin."),
+        ("evidence[].curve[].per_100", "The same per 100 patients."),
+        ("evidence[].above_threshold", "Stretches of the index where per_100 exceeds the threshold (from, to)."),
+        ("evidence[].above_threshold[].from", "Where the stretch starts."),
+        ("evidence[].above_threshold[].to", "Where it ends."),
+        ("evidence[].peak", "The index value where the value of information is largest, with its per_100."),
+        ("evidence[].peak.x", "Index value."),
+        ("evidence[].peak.per_100", "Value of information there, per 100 patients."),
+        ("evidence[].population", "The value over a population, each patient treated by their own index value: the "
+                                  "mean of the per-patient values over its patients."),
+        ("evidence[].population.name", "Which patients: the loaded cohort, or the [target] patients."),
+        ("evidence[].population.n", "How many patients with a value of this index."),
+        ("evidence[].population.evpi", "Mean per-patient value of information."),
+        ("evidence[].population.per_100", "The same per 100 patients."),
+        ("evidence[].sentence", "One plain sentence: where uncertainty matters most and how much."),
     ]),
 ]
 RESULT_SECTIONS.append(POLICY_SECTION)

@@ -18,7 +18,8 @@ from . import margins
 from .database import KEYS as DATABASE_KEYS, cohort_source
 from .errors import FulcrumError, nfc
 from .settings import check_analysis
-from .spec_sections import SECTION_SCHEMA, PolicySpec, TargetSpec, target_and_policy
+from .spec_sections import (SECTION_SCHEMA, EvidenceSpec, PolicySpec, TargetSpec, evidence_section,
+                            target_and_policy)
 from .tomlwrite import plain, toml_value as _toml_value
 
 OUTCOME_KINDS = ("continuous", "binary", "ordinal", "survival")
@@ -176,6 +177,7 @@ class Spec:
     source: str | None = None
     target: TargetSpec | None = None
     policy: PolicySpec | None = None
+    evidence: EvidenceSpec | None = None
 
     def margin_for(self, outcome: OutcomeSpec) -> float:
         return margins.margin_for(self, outcome)
@@ -382,6 +384,10 @@ def _coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
                 isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in value):
             raise bad("a list of numbers, e.g. [1, 99]")
         return tuple(float(v) for v in value)
+    if kind == "list[int]":
+        if not isinstance(value, list) or not all(isinstance(v, int) and not isinstance(v, bool) for v in value):
+            raise bad("a list of whole numbers, e.g. [200, 500]")
+        return tuple(value)
     if kind == "table[float]":
         if not isinstance(value, dict):
             raise bad("a table of numbers, e.g. { level = 0.5 }")
@@ -550,7 +556,8 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
 
     return Spec(cohort=cohort, outcomes=outcomes, indices=indices, analysis=analysis, values=values,
                 selection=selection, pairwise=pairwise, maps=tuple(maps), source=source,
-                **target_and_policy(data, base_dir, indices, source))
+                **target_and_policy(data, base_dir, indices, source),
+                evidence=evidence_section(data, by_name, source))
 
 
 def _array(value: Any, name: str, source: str | None) -> list:

@@ -5,7 +5,7 @@ Kept beside spec.py so that module stays small; spec.py folds SECTION_SCHEMA int
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -30,6 +30,16 @@ class PolicySpec:
     thresholds: int = 101
 
 
+@dataclass(frozen=True)
+class EvidenceSpec:
+    """Value of information along each index (its presence turns the section on)."""
+
+    threshold: float = 1.0  # per 100 patients, for probabilities and composites
+    thresholds: dict[str, float] = field(default_factory=dict)  # per outcome, in its own units per 100 patients
+    sizes: tuple[int, ...] = (100, 250, 500, 1000, 2000)
+    simulations: int = 200
+
+
 SECTION_SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
     "target": {
         "path": ("path", "A file of local patients (.csv, .tsv, .xlsx, .parquet) with the index and covariate "
@@ -44,6 +54,16 @@ SECTION_SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
                                "the best form the flat range reported beside the best threshold (default 1)."),
         "thresholds": ("int", "Candidate thresholds along a continuous index (default 101; a whole-level index "
                               "uses the midpoints between its levels)."),
+    },
+    "evidence": {
+        "threshold": ("float", "Value of information worth acting on, per 100 patients (default 1): patients in 100 "
+                               "for probabilities, value points for composites; for other bounded measures (days at "
+                               "home, restricted mean survival) the same share of the measure's range. The index "
+                               "values above it are reported."),
+        "thresholds": ("table[float]", "Per outcome name, a threshold in that outcome's own units per 100 patients "
+                                       "(e.g. { days_home = 300 } days per 100 patients), overriding `threshold`."),
+        "sizes": ("list[int]", "Study planner: numbers of new patients to try (default 100, 250, 500, 1000, 2000)."),
+        "simulations": ("int", "Study planner: simulated studies per strategy and size (default 200)."),
     },
 }
 
@@ -71,3 +91,24 @@ def target_and_policy(data: dict[str, Any], base_dir: Path, indices: tuple, sour
         _range_check(policy.tolerance, 0.0, 100.0, "policy.tolerance", source)
         _range_check(policy.thresholds, 11, 2001, "policy.thresholds", source)
     return {"target": target, "policy": policy}
+
+
+def evidence_section(data: dict[str, Any], outcomes: dict, source: str | None) -> EvidenceSpec | None:
+    """The [evidence] section, or None when the spec has none."""
+    from .spec import _known, _range_check, _Reader  # spec.py imports this module at its top
+
+    if "evidence" not in data:
+        return None
+    r = _Reader(data["evidence"], "evidence", "evidence", source)
+    ev = EvidenceSpec(threshold=r.get("threshold", 1.0), thresholds=r.get("thresholds", {}),
+                      sizes=tuple(r.get("sizes", EvidenceSpec.sizes)), simulations=r.get("simulations", 200))
+    _range_check(ev.threshold, 0.0, 1e9, "evidence.threshold", source)
+    _range_check(ev.simulations, 20, 100_000, "evidence.simulations", source)
+    for name, v in ev.thresholds.items():
+        _known(name, outcomes, "evidence.thresholds", source)
+        _range_check(v, 0.0, 1e12, f"evidence.thresholds.{name}", source)
+    if not ev.sizes or any(n < 10 or n > 10_000_000 for n in ev.sizes):
+        raise FulcrumError(f"'evidence.sizes' should list numbers of new patients from 10 to 10,000,000, found "
+                           f"{list(ev.sizes)}.", file=source, key="evidence.sizes",
+                           hint="For example [200, 500, 1000].")
+    return ev

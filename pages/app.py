@@ -14,6 +14,7 @@ PAGES = [
     ("page_meeting.py", "Meeting view", "meeting"),
     ("page_maps.py", "Two indices", "maps"),
     ("page_rules.py", "Rules per 100 patients", "rules"),
+    ("page_evidence.py", "More evidence", "evidence"),
     ("page_report.py", "Report", "report"),
 ]
 page = st.navigation([st.Page(file, title=title, url_path=path, default=i == 0)

@@ -481,10 +481,11 @@ def render_report(result: Any, *, extra_sections: Iterable[Section | Mapping[str
     composites = composite_sections(doc)
     selection = selection_sections(doc)
     pairwise = pairwise_sections(doc)
+    from ..charts_evidence import evidence_sections
     from ..maps import map_sections
     from ..policy_charts import report_sections as policy_sections
 
-    extras = _extra([*map_sections(doc), *policy_sections(doc), *(extra_sections or [])])
+    extras = _extra([*map_sections(doc), *policy_sections(doc), *evidence_sections(doc), *(extra_sections or [])])
     specs = _number_charts([baseline, coverage, outcomes, survival, composites, selection, pairwise, extras])
     spec_obj = getattr(result, "spec", None)
     context = {

@@ -2,6 +2,7 @@
 import streamlit as st
 
 import fulcrum_ui as ui
+import ui_theme
 
 ui.setup()
 PAGES = [
@@ -15,4 +16,5 @@ PAGES = [
 ]
 page = st.navigation(PAGES)
 ui.sidebar(ui.workspace())
+ui_theme.header(ui.workspace())
 page.run()

@@ -31,7 +31,7 @@ TITLE_CHARS, AXIS_CHARS = 58, 38
 FONT = {"title": 22, "subtitle": 16, "axis_title": 18, "axis_label": 16, "legend_title": 16, "legend_label": 15,
         "text": 15}
 ARM_LEGEND = alt.Legend(title="arm", symbolType="stroke", symbolStrokeWidth=5, symbolOpacity=1)
-TYPEFACE = "\"Source Sans 3\", \"Source Sans Pro\", \"Segoe UI\", \"Helvetica Neue\", Arial, sans-serif"
+TYPEFACE = "\"Source Sans\", \"Source Sans 3\", \"Source Sans Pro\", \"Segoe UI\", \"Helvetica Neue\", Arial, sans-serif"
 DEATH_WORDS = ("dead", "death", "died", "deceased")
 METHOD_WORDS = {"fieller": "Fieller", "delta": "delta method", "test-inversion": "test inversion",
                 "bootstrap-percentile": "bootstrap percentile"}
@@ -256,7 +256,7 @@ def _interval_segments(b: Mapping[str, Any], lo_edge: float, hi_edge: float) -> 
 # The strip beneath the plot: where the difference is clear (coloured by the arm it favours, neutral elsewhere
 # within the observed range), then each break-even point as a diamond on its interval. The x axis sits under it.
 STRIP_BAND = (8, 30)      # pixels below the plot: the regions band
-STRIP_ROW = 44            # pixels below the plot: the first break-even row; further rows STRIP_ROW_STEP lower
+STRIP_ROW = 52            # pixels below the plot: the first break-even row; further rows STRIP_ROW_STEP lower
 STRIP_ROW_STEP = 20
 CHAR_PX = 8.2             # a rough width of one character at FONT["text"], for deciding whether words fit
 
@@ -345,7 +345,7 @@ def _break_even_layers(row: Mapping[str, Any], domain: tuple[float, float]) -> l
         x=alt.X("x:Q"), y=alt.Y("y:Q", scale=None), tooltip=tip))
     mdf["side"] = ["right" if x > domain[0] + 0.6 * (domain[1] - domain[0]) else "left" for x in mdf["x"]]
     for side, part in mdf.groupby("side"):  # words on the roomier side of the diamond
-        layers.append(_chart(part).mark_text(align=side, dx=-9 if side == "right" else 9, dy=-9,
+        layers.append(_chart(part).mark_text(align=side, dx=-9 if side == "right" else 9, dy=-7,
                                              fontSize=FONT["text"] - 1, color=INK, baseline="bottom",
                                              fontWeight="bold").encode(
             x=alt.X("x:Q"), y=alt.Y("y:Q", scale=None), text=alt.Text("label:N")))

@@ -142,7 +142,7 @@ def per_hundred_chart(probabilities: Mapping[str, Mapping[str, float]], title: s
                                       direction="horizontal", symbolType="square", symbolSize=220,
                                       symbolStrokeColor=RULE, symbolStrokeWidth=1, symbolOpacity=1,
                                       columns=3) if key else None)
-    px = alt.Scale(domain=[0, width], range=[0, width])
+    px = alt.Scale(domain=[0, width], nice=False, zero=False)  # stretches with the chart; labels only gain room
     py = alt.Scale(domain=[0, lay.height], range=[0, lay.height])
     layers = [_chart(marks).mark_rect(opacity=1, stroke=RULE, strokeWidth=0.4).encode(
         x=alt.X("x0:Q", scale=px, axis=None), x2=alt.X2("x1"), y=alt.Y("y0:Q", scale=py, axis=None),

@@ -43,7 +43,7 @@ def chance_words(points: Sequence[Mapping[str, Any]], arms: Sequence[str], index
 @_quick
 def preference_chart(points: pd.DataFrame | Iterable[Mapping[str, Any]], arms: Sequence[str], *,
                      index_title: str = "index", title: str | None = None, spread: float | None = None,
-                     style: bool = True) -> alt.TopLevelMixin:
+                     discrete: bool = False, style: bool = True) -> alt.TopLevelMixin:
     """The chance the first arm is preferred along the index, over weight draws and model uncertainty.
 
     points: values.acceptability output (x, first; `second` is 1 - first and is not drawn).
@@ -51,7 +51,8 @@ def preference_chart(points: pd.DataFrame | Iterable[Mapping[str, Any]], arms: S
     recs = (points.to_dict("records") if isinstance(points, pd.DataFrame) else [dict(p) for p in points])
     df = pd.DataFrame([{"x": float(p["x"]), "p": float(p["first"]), "top": 1.0, "bottom": 0.0} for p in recs])
     c = arm_colours(arms)
-    x = alt.X("x:Q", title=index_title, scale=alt.Scale(zero=False, nice=False), axis=alt.Axis(grid=False))
+    axis = alt.Axis(grid=False, tickMinStep=1, format="d") if discrete else alt.Axis(grid=False)
+    x = alt.X("x:Q", title=index_title, scale=alt.Scale(zero=False, nice=False), axis=axis)
     y = alt.Y("p:Q", title=f"chance {arms[0]} is preferred", scale=alt.Scale(domain=[0, 1]),
               axis=alt.Axis(format="%", values=[0, 0.1, 0.25, 0.5, 0.75, 0.9, 1], grid=False))
     tip = [alt.Tooltip("x:Q", format=".3~g", title=index_title),
@@ -76,11 +77,11 @@ def preference_chart(points: pd.DataFrame | Iterable[Mapping[str, Any]], arms: S
                                              color=INK, fontWeight="bold").encode(
             x=alt.X("x:Q"), y=alt.Y("y:Q"), text=alt.Text("text:N")))
     chart = _sized(alt.layer(*layers), WIDTH, 320)
-    title = title or f"Chance that {arms[0]} is preferred when the weights are uncertain"
+    title = title or f"Chance that {arms[0]} is preferred"
     moved = (f"each weight drawn within ±{fmt(spread)} of its value" if spread
-             else "weights drawn within their stated ranges (none: as stated)")
-    subtitle = (f"{moved}, with the models' own uncertainty; the line splits the draws: below it they prefer "
-                f"{arms[0]}, above it {arms[1]}")
+             else "the weights drawn within their stated ranges (none given: as stated)")
+    subtitle = (f"Weights uncertain: {moved}, with the models' own uncertainty. The line splits the draws: "
+                f"below it they prefer {arms[0]}, above it {arms[1]}")
     return _finish(chart, title, subtitle, chance_words(recs, arms, index_title), style)
 
 

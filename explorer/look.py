@@ -28,7 +28,7 @@ NEUTRAL = "#E4E7EB"    # "no clear difference": neither arm
 PAPER = "#FFFFFF"      # chart and page background
 PANEL = "#F5F7FA"      # the app's secondary background (header, sidebar)
 FOCUS = OKABE_ITO["blue"]
-FONT_STACK = '"Source Sans 3", "Source Sans Pro", "Segoe UI", "Helvetica Neue", Arial, sans-serif'
+FONT_STACK = '"Source Sans", "Source Sans 3", "Source Sans Pro", "Segoe UI", "Helvetica Neue", Arial, sans-serif'
 # Text pairs the app, the charts and the printed summary use: (foreground, background, where).
 TEXT_PAIRS: tuple[tuple[str, str, str], ...] = (
     (INK, PAPER, "body text and chart labels"),
@@ -67,8 +67,10 @@ def contrast(a: str, b: str) -> float:
 
 
 def text_on(background: str) -> str:
-    """The text colour (ink or paper) with the higher contrast on a background."""
-    return INK if contrast(INK, background) >= contrast(PAPER, background) else PAPER
+    """The text colour with the higher contrast on a background: ink or paper, or pure black when neither reaches
+    the 4.5:1 rule (mid-tone fills such as the bluish green)."""
+    best = INK if contrast(INK, background) >= contrast(PAPER, background) else PAPER
+    return best if contrast(best, background) >= MIN_TEXT_CONTRAST else OKABE_ITO["black"]
 
 
 def state_colours(levels: Sequence[str], death: Sequence[bool]) -> dict[str, str]:

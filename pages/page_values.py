@@ -137,7 +137,7 @@ for row, ((kind, _), (_, info)) in zip(rows, summaries.items()):
 
     acc = row.get("acceptability")
     if acc and leeway is not None:
-        chart = leeway.preference_chart(acc, arms, index_title=titles[index], spread=v.spread)
+        chart = leeway.preference_chart(acc, arms, index_title=titles[index], spread=v.spread, discrete=discrete)
         ui.altair(chart, ui.description(chart))
 
 with st.expander("Uncertainty about the weights themselves"):

@@ -42,7 +42,8 @@ h1 {{ font-weight: 700; letter-spacing: -0.01em; border-bottom: 3px solid var(--
 h2 {{ font-weight: 700; border-top: 1px solid var(--f-rule); padding-top: calc(2 * var(--f-unit)) !important;
   margin-top: calc(2 * var(--f-unit)) !important; }}
 h3 {{ font-weight: 600; }}
-[data-testid="stCaptionContainer"] {{ color: var(--f-muted); }}
+[data-testid="stCaptionContainer"], [data-testid="stCaptionContainer"] * {{ color: var(--f-muted) !important; }}
+[data-testid="stSidebar"] [data-testid="stCaptionContainer"] * {{ color: var(--f-ink) !important; }}
 [data-testid="stSidebarNav"] a span {{ font-size: 1.1rem; }}
 .fulcrum-sentence {{ font-size: 1.1rem; line-height: 1.55; }}
 /* keyboard: every focusable control shows where the focus is, never by colour alone */
@@ -59,7 +60,7 @@ a:focus-visible, button:focus-visible, input:focus-visible, textarea:focus-visib
 .fulcrum-head dl {{ display: flex; flex-wrap: wrap; gap: 0 calc(3 * var(--f-unit)); margin: 0; }}
 .fulcrum-head dl div {{ display: flex; gap: calc(var(--f-unit) / 2); align-items: baseline; }}
 .fulcrum-head dt {{ color: var(--f-muted); font-size: 0.85rem; text-transform: uppercase; letter-spacing: 0.05em; }}
-.fulcrum-head dd {{ margin: 0; font-weight: 600; color: var(--f-ink); }}
+.fulcrum-head dd {{ margin: 0; font-weight: 600; color: var(--f-ink); white-space: nowrap; }}
 .fulcrum-head .first {{ color: {look.ARM_INKS[0]}; }}
 .fulcrum-head .second {{ color: {look.ARM_INKS[1]}; }}
 .fulcrum-head .demo {{ color: var(--f-muted); font-weight: 400; font-style: italic; }}
@@ -71,7 +72,7 @@ a:focus-visible, button:focus-visible, input:focus-visible, textarea:focus-visib
 def header_html(cohort: str, n: int, arms: tuple[str, str] | list[str], patient: str | None, demo: bool) -> str:
     """The header's HTML: the name and mark, the cohort with its arms, the patient in hand (all user text escaped)."""
     who = escape(patient) if patient else '<span class="demo">none chosen yet (Patient page)</span>'
-    note = ' <span class="demo">invented demo data</span>' if demo else ""
+    note = ' <span class="demo">(invented)</span>' if demo else ""
     return (f'<header class="fulcrum-head" role="banner" aria-label="Fulcrum: cohort and patient in hand">'
             f'<div class="fulcrum-name">{MARK}<span>Fulcrum</span></div>'
             f'<dl><div><dt>Cohort</dt><dd>{escape(cohort)} · {n:,} patients{note}</dd></div>'

@@ -272,7 +272,8 @@ def composite_sections(doc: Mapping[str, Any]) -> list[dict]:
         acc = row.get("acceptability")
         if acc:
             charts.append(cv.preference_chart(acc, arms, index_title=ch._x_title(row),
-                                              spread=(doc.get("spec", {}).get("values") or {}).get("spread")))
+                                              spread=(doc.get("spec", {}).get("values") or {}).get("spread"),
+                                              discrete=ch.is_discrete(row)))
             step = max(1, len(acc) // (CURVE_TABLE_ROWS - 1))
             extra_tables.append((f"Chance that {arms[0]} is preferred when the weights are uncertain",
                                  table_of(pd.DataFrame([{"index": p["x"], f"chance {arms[0]} is preferred": p["first"]}

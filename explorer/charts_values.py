@@ -43,10 +43,12 @@ def chance_words(points: Sequence[Mapping[str, Any]], arms: Sequence[str], index
 @_quick
 def preference_chart(points: pd.DataFrame | Iterable[Mapping[str, Any]], arms: Sequence[str], *,
                      index_title: str = "index", title: str | None = None, spread: float | None = None,
-                     discrete: bool = False, style: bool = True) -> alt.TopLevelMixin:
+                     ranges: Mapping[str, Any] | None = None, discrete: bool = False,
+                     style: bool = True) -> alt.TopLevelMixin:
     """The chance the first arm is preferred along the index, over weight draws and model uncertainty.
 
     points: values.acceptability output (x, first; `second` is 1 - first and is not drawn).
+    spread, ranges: how the weights were drawn (the values settings), for the subtitle's words.
     """
     recs = (points.to_dict("records") if isinstance(points, pd.DataFrame) else [dict(p) for p in points])
     df = pd.DataFrame([{"x": float(p["x"]), "p": float(p["first"]), "top": 1.0, "bottom": 0.0} for p in recs])
@@ -78,10 +80,14 @@ def preference_chart(points: pd.DataFrame | Iterable[Mapping[str, Any]], arms: S
             x=alt.X("x:Q"), y=alt.Y("y:Q"), text=alt.Text("text:N")))
     chart = _sized(alt.layer(*layers), WIDTH, 320)
     title = title or f"Chance that {arms[0]} is preferred"
-    moved = (f"each weight drawn within ±{fmt(spread)} of its value" if spread
-             else "the weights drawn within their stated ranges (none given: as stated)")
-    subtitle = (f"Weights uncertain: {moved}, with the models' own uncertainty. The line splits the draws: "
-                f"below it they prefer {arms[0]}, above it {arms[1]}")
+    if spread:
+        moved = f"each weight drawn within ±{fmt(spread)} of its value" + (" or its stated range" if ranges else "")
+    elif ranges:
+        moved = "the weights with ranges drawn within them, the others as stated"
+    else:
+        moved = "the weights as stated, so only the models' uncertainty varies"
+    subtitle = (f"{_cap_first(moved)}. The line splits the draws: below it they prefer {arms[0]}, above it "
+                f"{arms[1]}")
     return _finish(chart, title, subtitle, chance_words(recs, arms, index_title), style)
 
 
@@ -143,11 +149,11 @@ def leeway(th: Mapping[str, Any], anchor: str | None = None) -> dict:
     ws = np.array([float(th["states"][k]["weight"]) for k in movers])
     joint = _joint_room(d, deltas, ws)
     if joint is None:
-        together = (f"no move of the weights inside -1 to 1 changes the answer ({words(anchor)} held at "
-                    f"{fmt(float(th['states'][levels.index(anchor)]['weight']))})")
+        together = (f"no move of all the weights together inside -1 to 1 changes the answer ({words(anchor)} held "
+                    f"at {fmt(float(th['states'][levels.index(anchor)]['weight']))})")
     else:
-        together = (f"moving every weight (except {words(anchor)}) by up to {fmt(joint)}, each in the direction "
-                    f"that works against the answer, is the smallest joint move that changes it")
+        together = (f"all the weights together ({words(anchor)} held) can each move {fmt(joint)} before the answer "
+                    f"changes, if every move goes against it")
     return {"x": th.get("x"), "favours": th.get("favours"), "states": rows, "together": joint,
             "together_words": together, "anchor": anchor}
 
@@ -205,13 +211,13 @@ def leeway_chart(lw: Mapping[str, Any], arms: Sequence[str], *, where: str = "",
     ]
     use = mdf[mdf["kind"] == "in use"]
     change = mdf[mdf["kind"] == "change"]
-    layers.append(_chart(use).mark_tick(color=INK, thickness=4, size=30).encode(
+    layers.append(_chart(use).mark_tick(color=INK, thickness=4, size=30, opacity=1).encode(
         x=alt.X("x:Q"), y=alt.Y("state:N", sort=state_names),
         tooltip=[alt.Tooltip("state:N"), alt.Tooltip("text:N", title="weight")]))
     layers.append(_chart(use).mark_text(fontSize=FONT["text"] - 2, color=INK, dy=-21, fontWeight="bold").encode(
         x=alt.X("x:Q"), y=alt.Y("state:N", sort=state_names), text=alt.Text("text:N")))
     if len(change):
-        layers.append(_chart(change).mark_tick(color=INK, thickness=1.5, size=24, strokeDash=[3, 2]).encode(
+        layers.append(_chart(change).mark_tick(color=INK, thickness=2, size=26, opacity=1).encode(
             x=alt.X("x:Q"), y=alt.Y("state:N", sort=state_names)))
         layers.append(_chart(change).mark_text(fontSize=FONT["text"] - 3, color=MUTED, dy=20).encode(
             x=alt.X("x:Q"), y=alt.Y("state:N", sort=state_names), text=alt.Text("text:N")))

@@ -10,7 +10,7 @@ from .patient import Placement, Prediction, PatientView, ValueJudgement, count_o
 
 
 def icon_probabilities(p: Prediction) -> dict[str, dict[str, float]] | None:
-    """Per arm, the state probabilities an icon array shows: ordinal levels, or alive / dead."""
+    """Per arm, the state probabilities the per-100 rows show: ordinal levels, or alive / dead."""
     out = {}
     for arm, e in p.arms.items():
         if e.distribution:
@@ -23,7 +23,7 @@ def icon_probabilities(p: Prediction) -> dict[str, dict[str, float]] | None:
 
 
 def _icon_outcomes(view: PatientView) -> list[Prediction]:
-    """The survival and the function outcome the icon arrays show: those the values combine (one horizon) when
+    """The survival and the function outcome the per-100 rows show: those the values combine (one horizon) when
     the spec names them, else the first of each kind."""
     along = [p for p in view.predictions if p.index == view.primary_index]
     want = set(view.combined)

@@ -137,7 +137,8 @@ for row, ((kind, _), (_, info)) in zip(rows, summaries.items()):
 
     acc = row.get("acceptability")
     if acc and leeway is not None:
-        chart = leeway.preference_chart(acc, arms, index_title=titles[index], spread=v.spread, discrete=discrete)
+        chart = leeway.preference_chart(acc, arms, index_title=titles[index], spread=v.spread, ranges=v.ranges,
+                                          discrete=discrete)
         ui.altair(chart, ui.description(chart))
 
 with st.expander("Uncertainty about the weights themselves"):
@@ -145,7 +146,7 @@ with st.expander("Uncertainty about the weights themselves"):
                        key=ui.seed("spread", float(v.spread)))
     if spread != v.spread and ui.update_spec(lambda s: aps.with_settings(s, spread=spread)):
         st.rerun()
-    st.caption("The chance each arm comes out ahead combines the models' uncertainty with weights drawn evenly "
+    st.caption(f"The chance {arms[0]} is preferred combines the models' uncertainty with weights drawn evenly "
                "within this range (death stays at its weight).")
 
 # ------------------------------------------------------------------------------------------

@@ -273,6 +273,7 @@ def composite_sections(doc: Mapping[str, Any]) -> list[dict]:
         if acc:
             charts.append(cv.preference_chart(acc, arms, index_title=ch._x_title(row),
                                               spread=(doc.get("spec", {}).get("values") or {}).get("spread"),
+                                              ranges=(doc.get("spec", {}).get("values") or {}).get("ranges"),
                                               discrete=ch.is_discrete(row)))
             step = max(1, len(acc) // (CURVE_TABLE_ROWS - 1))
             extra_tables.append((f"Chance that {arms[0]} is preferred when the weights are uncertain",

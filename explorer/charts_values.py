@@ -27,12 +27,21 @@ ROW_PX = 54         # one state's row
 # ------------------------------------------------------------------------------------------
 # Chance the first arm is preferred
 # ------------------------------------------------------------------------------------------
+def percent(p: float) -> str:
+    """A share as a whole percentage, never rounded to a certainty it is not: "<1%", ">99%"."""
+    if 0 < p < 0.005:
+        return "<1%"
+    if 0.995 < p < 1:
+        return ">99%"
+    return f"{100 * p:.0f}%"
+
+
 def chance_words(points: Sequence[Mapping[str, Any]], arms: Sequence[str], index_title: str) -> str:
     """The chart in words: where the first arm is preferred in at least 9 draws in 10, where in at most 1."""
     xs = np.array([float(p["x"]) for p in points])
     ps = np.array([float(p["first"]) for p in points])
-    parts = [f"Chance that {arms[0]} is preferred along {index_title}: from {fmt(100 * ps.min())}% to "
-             f"{fmt(100 * ps.max())}%"]
+    parts = [f"Chance that {arms[0]} is preferred along {index_title}: from {percent(ps.min())} to "
+             f"{percent(ps.max())}"]
     for test, who in ((ps >= 0.9, f"{arms[0]} is preferred in at least 9 of 10 draws"),
                       (ps <= 0.1, f"{arms[1]} is preferred in at least 9 of 10 draws")):
         if test.any():
@@ -201,7 +210,7 @@ def leeway_chart(lw: Mapping[str, Any], arms: Sequence[str], *, where: str = "",
               scale=alt.Scale(domain=[-1, 1], range=[0, TRACK_PX], nice=False),
               axis=alt.Axis(values=[-1, -0.5, 0, 0.5, 1], grid=False))
     y = alt.Y("state:N", sort=state_names, title=None, axis=alt.Axis(labelFontSize=FONT["axis_label"], ticks=False,
-                                                                      domain=False, labelPadding=8),
+                                                                      domain=False, labelPadding=8, labelLimit=280),
               scale=alt.Scale(paddingInner=0.3))
     layers = [
         _chart(sdf).mark_bar(height=14, stroke=PAPER, strokeWidth=1).encode(
@@ -229,7 +238,7 @@ def leeway_chart(lw: Mapping[str, Any], arms: Sequence[str], *, where: str = "",
     now = f"the weights in use favour {fav}" if fav else "the weights in use sit exactly on the line between the arms"
     subtitle = (f"{head}{now}. Each row moves one weight, the others held; the bar's colour is the arm favoured "
                 f"at that weight ({arms[0]} blue, {arms[1]} orange). {_cap_first(lw['together_words'])}.")
-    desc = (f"{_cap_first(head + now)}. " + "; ".join(_cap_first(r["words"]) for r in lw["states"]) + ". "
+    desc = (f"{_cap_first(head + now)}. " + _cap_first("; ".join(r["words"] for r in lw["states"])) + ". "
             + _cap_first(lw["together_words"]) + ".")
     return _finish(chart, "How far can the weights move before the answer changes?", subtitle, desc, style)
 

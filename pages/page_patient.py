@@ -199,7 +199,7 @@ for p in preds:
         ui.sentence(s)
     probs = summary.icon_probabilities(p)
     if per100 is not None and probs:
-        chart = per100.per_hundred_chart(probs, f"{p.title}: out of 100 people like this")
+        chart = per100.per_hundred_chart(probs, f"{p.title}: out of 100 people like this", width=880)
         ui.show_chart(chart)
         st.caption(aps.md_escape(ui.description(chart) or ""))
     with st.expander("On the curve, and the numbers"):

@@ -42,7 +42,8 @@ h1 {{ font-weight: 700; letter-spacing: -0.01em; border-bottom: 3px solid var(--
 h2 {{ font-weight: 700; border-top: 1px solid var(--f-rule); padding-top: calc(2 * var(--f-unit)) !important;
   margin-top: calc(2 * var(--f-unit)) !important; }}
 h3 {{ font-weight: 600; }}
-[data-testid="stCaptionContainer"], [data-testid="stCaptionContainer"] * {{ color: var(--f-muted) !important; }}
+[data-testid="stCaptionContainer"], [data-testid="stCaptionContainer"] * {{ color: var(--f-muted) !important;
+  opacity: 1 !important; }}
 [data-testid="stSidebar"] [data-testid="stCaptionContainer"] * {{ color: var(--f-ink) !important; }}
 [data-testid="stSidebarNav"] a span {{ font-size: 1.1rem; }}
 .fulcrum-sentence {{ font-size: 1.1rem; line-height: 1.55; }}

@@ -184,7 +184,8 @@ def test_preference_chart_draws_one_quantity_without_a_half_line(doc):
     assert [d["p"] for d in data] == [p["first"] for p in row["acceptability"]]
     assert f"chance {arms[0]} is preferred" in str(spec)
     lo, hi = min(d["p"] for d in data), max(d["p"] for d in data)
-    assert f"from {ch.fmt(100 * lo)}% to {ch.fmt(100 * hi)}%" in spec["description"]
+    assert f"from {cv.percent(lo)} to {cv.percent(hi)}" in spec["description"]
+    assert [cv.percent(p) for p in (0.0, 0.004, 0.5, 0.996, 1.0)] == ["0%", "<1%", "50%", ">99%", "100%"]
 
 
 def test_leeway_is_exact_one_weight_at_a_time_and_all_together(result, doc):

@@ -1,8 +1,10 @@
 """Altair chart builders shared by the app and the report, all drawn from results-JSON rows.
 
 One colour per arm everywhere (Okabe & Ito 2008, never green against red), outcome states in the
-remaining Okabe-Ito colours, randomised and chosen patients told apart by marker shape, and every
-chart titled, described for screen readers and sized for a projector.
+remaining Okabe-Ito colours from light (best) to dark, randomised and chosen patients told apart by marker
+shape, clear differences and break-even points on a strip beneath the plot, and every chart titled,
+described for screen readers and sized for a projector. The palette lives in explorer/look.py and the
+rules in docs/look.md; the per-100 and values displays are in charts_patient.py and charts_values.py.
 """
 from __future__ import annotations
 
@@ -18,28 +20,19 @@ import numpy as np
 import pandas as pd
 from altair.utils import schemapi
 
+from .look import ARM_COLOURS, DEATH_COLOUR, INK, MUTED, NEUTRAL, OKABE_ITO, PAPER, RULE, STATE_COLOURS  # noqa: F401
+from .look import state_colours as _state_colours
+from .look import text_on
 from .margins import side_words
 
-# Okabe M, Ito K (2008). Color Universal Design: how to make figures and presentations friendly to colorblind people.
-OKABE_ITO = {
-    "black": "#000000", "orange": "#E69F00", "sky_blue": "#56B4E9", "bluish_green": "#009E73",
-    "yellow": "#F0E442", "blue": "#0072B2", "vermillion": "#D55E00", "reddish_purple": "#CC79A7",
-}
-ARM_COLOURS = (OKABE_ITO["blue"], OKABE_ITO["orange"])
-STATE_COLOURS = (OKABE_ITO["bluish_green"], OKABE_ITO["sky_blue"], OKABE_ITO["yellow"], OKABE_ITO["reddish_purple"],
-                 OKABE_ITO["vermillion"])
-DEATH_COLOUR = OKABE_ITO["black"]
-INK = "#333333"
 ALLOCATION_SHAPES = {"randomised": "triangle-up", "chosen": "circle"}
 ALLOCATION_SIZES = {"randomised": 70, "chosen": 22}
-# A person: round head over a body with shoulders, in Vega's [-1, 1] symbol box.
-PERSON = ("M -0.32,-0.68 a 0.32,0.32 0 1,0 0.64,0 a 0.32,0.32 0 1,0 -0.64,0 Z "
-          "M -0.55,-0.22 L 0.55,-0.22 L 0.55,0.45 L 0.3,0.45 L 0.3,1 L -0.3,1 L -0.3,0.45 L -0.55,0.45 Z")
 WIDTH, HEIGHT = 640, 360
 TITLE_CHARS, AXIS_CHARS = 58, 38
 FONT = {"title": 22, "subtitle": 16, "axis_title": 18, "axis_label": 16, "legend_title": 16, "legend_label": 15,
         "text": 15}
 ARM_LEGEND = alt.Legend(title="arm", symbolType="stroke", symbolStrokeWidth=5, symbolOpacity=1)
+TYPEFACE = "\"Source Sans\", \"Source Sans 3\", \"Source Sans Pro\", \"Segoe UI\", \"Helvetica Neue\", Arial, sans-serif"
 DEATH_WORDS = ("dead", "death", "died", "deceased")
 METHOD_WORDS = {"fieller": "Fieller", "delta": "delta method", "test-inversion": "test inversion",
                 "bootstrap-percentile": "bootstrap percentile"}
@@ -56,16 +49,8 @@ def arm_colours(arms: Sequence[str]) -> dict[str, str]:
 
 
 def state_colours(levels: Sequence[str]) -> dict[str, str]:
-    """Outcome-state colours from the Okabe-Ito colours the arms do not use; death in black."""
-    out: dict[str, str] = {}
-    k = 0
-    for level in levels:
-        if str(level).lower() in DEATH_WORDS:
-            out[level] = DEATH_COLOUR
-        else:
-            out[level] = STATE_COLOURS[k % len(STATE_COLOURS)]
-            k += 1
-    return out
+    """Outcome-state colours, best state lightest, darker down the order; the death state dark neutral."""
+    return _state_colours(levels, [str(lv).lower() in DEATH_WORDS for lv in levels])
 
 
 def fmt(v: float | None) -> str:
@@ -131,13 +116,16 @@ def _domain(row: Mapping[str, Any]) -> tuple[float, float]:
 def projector_config() -> alt.Config:
     """Projector-sized fonts and a plain look."""
     return alt.Config(
+        font=TYPEFACE,
         axis=alt.AxisConfig(labelFontSize=FONT["axis_label"], titleFontSize=FONT["axis_title"], grid=True,
-                            gridOpacity=0.4),
+                            gridColor=RULE, gridOpacity=0.35, labelColor=INK, titleColor=INK, domainColor=MUTED,
+                            tickColor=MUTED, titleFontWeight="normal"),
         legend=alt.LegendConfig(labelFontSize=FONT["legend_label"], titleFontSize=FONT["legend_title"],
                                 orient="bottom", direction="vertical", labelLimit=420, titleLimit=420,
-                                symbolSize=160),
+                                symbolSize=160, labelColor=INK, titleColor=INK),
         title=alt.TitleConfig(fontSize=FONT["title"], subtitleFontSize=FONT["subtitle"], anchor="start",
-                              subtitleColor=INK),
+                              color=INK, subtitleColor=MUTED),
+        text=alt.MarkConfig(font=TYPEFACE),
         view=alt.ViewConfig(stroke=None))
 
 
@@ -234,12 +222,6 @@ def difference_frame(row: Mapping[str, Any]) -> pd.DataFrame:
     return pd.DataFrame(recs, columns=["x", "difference", "lower", "upper"])
 
 
-def _region_label(arm: str, arms: Sequence[str] = (), margin: float = 0.0) -> str:
-    if margin:
-        return f"clear: {side_words(arm, arms, margin)}"
-    return f"clear difference, favours {arm}"
-
-
 def clear_regions(row: Mapping[str, Any]) -> list[dict]:
     """The row's clear-difference regions cut to the observed index range (the search grid runs a little past it)."""
     lo, hi = (float(v) for v in row["range"])
@@ -249,23 +231,6 @@ def clear_regions(row: Mapping[str, Any]) -> list[dict]:
         if z >= a:
             out.append({"from": a, "to": z, "favours": r["favours"]})
     return out
-
-
-def _shading(row: Mapping[str, Any], arms: Sequence[str]) -> alt.Chart | None:
-    regions = clear_regions(row)
-    if not regions:
-        return None
-    c = arm_colours(arms)
-    m = float(row.get("margin") or 0.0)
-    df = pd.DataFrame([{"from": r["from"], "to": r["to"], "region": _region_label(r["favours"], arms, m)}
-                       for r in regions])
-    labels = [_region_label(a, arms, m) for a in arms]
-    return _chart(df).mark_rect(opacity=0.13).encode(
-        x=alt.X("from:Q"), x2=alt.X2("to"),
-        fill=alt.Fill("region:N", scale=alt.Scale(domain=labels, range=[c[a] for a in arms]),
-                      legend=alt.Legend(title="shaded", symbolOpacity=0.35)),
-        tooltip=[alt.Tooltip("region:N", title="region"), alt.Tooltip("from:Q", format=".3~g"),
-                 alt.Tooltip("to:Q", format=".3~g")])
 
 
 def _interval_segments(b: Mapping[str, Any], lo_edge: float, hi_edge: float) -> list[dict]:
@@ -289,47 +254,112 @@ def _interval_segments(b: Mapping[str, Any], lo_edge: float, hi_edge: float) -> 
     return out
 
 
+# The strip beneath the plot: where the difference is clear (coloured by the arm it favours, neutral elsewhere
+# within the observed range), then each break-even point as a diamond on its interval. The x axis sits under it.
+STRIP_BAND = (8, 30)      # pixels below the plot: the regions band
+STRIP_ROW = 52            # pixels below the plot: the first break-even row; further rows STRIP_ROW_STEP lower
+STRIP_ROW_STEP = 20
+CHAR_PX = 8.2             # a rough width of one character at FONT["text"], for deciding whether words fit
+
+
+def strip_height(row: Mapping[str, Any]) -> int:
+    """The strip's height in pixels (the x axis is offset by this much)."""
+    n = len(row.get("break_even") or [])
+    return STRIP_ROW + STRIP_ROW_STEP * max(n - 1, 0) + (14 if n else -8)
+
+
+def strip_segments(row: Mapping[str, Any]) -> list[dict]:
+    """The regions band: the observed range cut into clear-difference runs (favouring an arm) and the rest."""
+    lo, hi = (float(v) for v in row["range"])
+    out, at = [], lo
+    for r in sorted(clear_regions(row), key=lambda r: r["from"]):
+        if r["from"] > at:
+            out.append({"from": at, "to": r["from"], "favours": None})
+        out.append({"from": r["from"], "to": r["to"], "favours": r["favours"]})
+        at = max(at, r["to"])
+    if hi > at:
+        out.append({"from": at, "to": hi, "favours": None})
+    return out
+
+
+def _strip_layers(row: Mapping[str, Any], arms: Sequence[str], domain: tuple[float, float]) -> list[alt.Chart]:
+    segs = strip_segments(row)
+    margin = float(row.get("margin") or 0.0)
+    colours = arm_colours(arms)
+    px = WIDTH / max(domain[1] - domain[0], 1e-12)
+    recs = []
+    for s in segs:
+        fill = colours[s["favours"]] if s["favours"] else NEUTRAL
+        words_ = ("no clear difference" if not s["favours"] else side_words(s["favours"], arms, margin) if margin
+                  else f"favours {s['favours']}")
+        fits = (s["to"] - s["from"]) * px > CHAR_PX * len(words_) + 8
+        recs.append({"from": s["from"], "to": s["to"], "mid": (s["from"] + s["to"]) / 2, "fill": fill,
+                     "ink": text_on(fill), "region": words_, "words": words_ if fits else ""})
+    df = pd.DataFrame(recs)
+    y0, y1 = HEIGHT + STRIP_BAND[0], HEIGHT + STRIP_BAND[1]
+    layers = [_chart(df).mark_rect(stroke=PAPER, strokeWidth=1).encode(
+        x=alt.X("from:Q"), x2=alt.X2("to"), y=alt.value(y0), y2=alt.value(y1),
+        fill=alt.Fill("fill:N", scale=None),
+        tooltip=[alt.Tooltip("region:N", title="difference"), alt.Tooltip("from:Q", format=".3~g"),
+                 alt.Tooltip("to:Q", format=".3~g")])]
+    for ink, part in df[df["words"] != ""].groupby("ink"):
+        layers.append(_chart(part).mark_text(fontSize=FONT["text"] - 1, color=ink, baseline="middle").encode(
+            x=alt.X("mid:Q"), y=alt.value((y0 + y1) / 2), text=alt.Text("words:N")))
+    return layers + _break_even_layers(row, domain)
+
+
 def _break_even_layers(row: Mapping[str, Any], domain: tuple[float, float]) -> list[alt.Chart]:
+    """A hairline through the plot at each break-even point; on the strip, the point, its interval and words."""
     bes = row.get("break_even") or []
     if not bes:
         return []
     dash = alt.StrokeDash("line:N", scale=alt.Scale(domain=["within the observed range", "extrapolated"],
                                                     range=[[1, 0], [7, 5]]),
-                          legend=alt.Legend(title="break-even", symbolStrokeWidth=3))
+                          legend=alt.Legend(title="break-even", symbolStrokeWidth=3, symbolStrokeColor=INK))
     marks, segs, arrows = [], [], []
     for k, b in enumerate(bes):
         line = "extrapolated" if b.get("extrapolated") else "within the observed range"
         label = f"break-even {fmt(b['x'])}" + (" (extrapolated)" if b.get("extrapolated") else "")
-        marks.append({"x": b["x"], "line": line, "label": label, "interval": _interval_words(b), "row": k})
+        y = HEIGHT + STRIP_ROW + STRIP_ROW_STEP * k
+        marks.append({"x": b["x"], "line": line, "label": label, "interval": _interval_words(b), "y": y})
         for s in _interval_segments(b, *domain):
-            s.update(row=k, line=line)
+            s.update(y=y, line=line)
             segs.append(s)
             if s["left"]:
-                arrows.append({"x": s["from"], "shape": "triangle-left", "text": s["left"], "row": k, "align": "left"})
+                arrows.append({"x": s["from"], "shape": "triangle-left", "text": s["left"], "y": y, "align": "left"})
             if s["right"]:
-                arrows.append({"x": s["to"], "shape": "triangle-right", "text": s["right"], "row": k,
+                arrows.append({"x": s["to"], "shape": "triangle-right", "text": s["right"], "y": y,
                                "align": "right"})
     mdf, sdf = pd.DataFrame(marks), pd.DataFrame(segs)
+    tip = [alt.Tooltip("label:N", title="break-even"), alt.Tooltip("interval:N", title="interval")]
     layers = [
-        _chart(mdf).mark_rule(color=INK, strokeWidth=2).encode(
-            x=alt.X("x:Q"), strokeDash=dash,
-            tooltip=[alt.Tooltip("label:N", title="break-even"), alt.Tooltip("interval:N", title="interval")]),
-        _chart(mdf).mark_text(align="left", dx=5, dy=-4, fontSize=FONT["text"], color=INK, baseline="bottom")
-        .encode(x=alt.X("x:Q"), y=alt.value(HEIGHT - 4), text=alt.Text("label:N")),
+        _chart(mdf).mark_rule(color=INK, strokeWidth=1.5, opacity=0.8).encode(
+            x=alt.X("x:Q"), y=alt.value(0), y2=alt.value(HEIGHT + STRIP_BAND[1]), strokeDash=dash, tooltip=tip),
     ]
     if len(sdf):
-        sdf["y"] = 10 + 12 * sdf["row"]
-        layers.append(_chart(sdf).mark_rule(color=INK, strokeWidth=4).encode(
+        layers.append(_chart(sdf).mark_rule(color=INK, strokeWidth=3).encode(
             x=alt.X("from:Q"), x2=alt.X2("to"), y=alt.Y("y:Q", scale=None), strokeDash=dash))
+        ends = pd.concat([sdf.assign(end=sdf["from"])[sdf["left"] == ""], sdf.assign(end=sdf["to"])[sdf["right"] == ""]])
+        if len(ends):
+            layers.append(_chart(ends).mark_tick(color=INK, thickness=2, size=12, orient="vertical").encode(
+                x=alt.X("end:Q"), y=alt.Y("y:Q", scale=None)))
+    layers.append(_chart(mdf).mark_point(shape="diamond", filled=True, size=170, color=INK, opacity=1,
+                                         stroke=PAPER, strokeWidth=1.5).encode(
+        x=alt.X("x:Q"), y=alt.Y("y:Q", scale=None), tooltip=tip))
+    mdf["side"] = ["right" if x > domain[0] + 0.6 * (domain[1] - domain[0]) else "left" for x in mdf["x"]]
+    for side, part in mdf.groupby("side"):  # words on the roomier side of the diamond
+        layers.append(_chart(part).mark_text(align=side, dx=-9 if side == "right" else 9, dy=-7,
+                                             fontSize=FONT["text"] - 1, color=INK, baseline="bottom",
+                                             fontWeight="bold").encode(
+            x=alt.X("x:Q"), y=alt.Y("y:Q", scale=None), text=alt.Text("label:N")))
     if arrows:
         adf = pd.DataFrame(arrows)
-        adf["y"] = 10 + 12 * adf["row"]
-        layers.append(_chart(adf).mark_point(filled=True, size=120, color=INK, opacity=1).encode(
+        layers.append(_chart(adf).mark_point(filled=True, size=110, color=INK, opacity=1).encode(
             x=alt.X("x:Q"), y=alt.Y("y:Q", scale=None), shape=alt.Shape("shape:N", scale=None)))
-        for side, dx in (("left", 4), ("right", -4)):
+        for side, dx in (("left", 6), ("right", -6)):
             part = adf[adf["align"] == side]
             if len(part):
-                layers.append(_chart(part).mark_text(fontSize=FONT["text"] - 2, color=INK, dy=14, dx=dx,
+                layers.append(_chart(part).mark_text(fontSize=FONT["text"] - 3, color=MUTED, dy=12, dx=dx,
                                                         align=side).encode(
                     x=alt.X("x:Q"), y=alt.Y("y:Q", scale=None), text=alt.Text("text:N")))
     return layers
@@ -389,9 +419,6 @@ def outcome_chart(row: Mapping[str, Any], arms: Sequence[str], points: pd.DataFr
     colour = alt.Color("arm:N", scale=_arm_scale(arms), legend=ARM_LEGEND)
     layers: list[alt.Chart] = []
     layers += _points_layers(points, arms)
-    shade = _shading(row, arms)
-    if shade is not None:
-        layers.append(shade)
     if cf["lower"].notna().any():
         layers.append(_chart(cf).mark_area(opacity=0.2).encode(
             x=_x_axis(row, index_label), y=alt.Y("lower:Q", scale=yscale, title=wrap(ytitle, AXIS_CHARS)), y2=alt.Y2("upper"), color=colour))
@@ -401,11 +428,12 @@ def outcome_chart(row: Mapping[str, Any], arms: Sequence[str], points: pd.DataFr
         tooltip=[alt.Tooltip("arm:N"), alt.Tooltip("x:Q", format=".3~g", title="index"),
                  alt.Tooltip("estimate:Q", format=".3~g"), alt.Tooltip("lower:Q", format=".3~g"),
                  alt.Tooltip("upper:Q", format=".3~g")]))
-    layers += _break_even_layers(row, domain)
+    layers += _strip_layers(row, arms, domain)
     layers += _patient_layers(patient)
     chart = _sized(alt.layer(*layers), WIDTH, HEIGHT)
     title = f"{_cap(_outcome_title(row))} along {index_label_of(row, index_label)}"
-    subtitle = f"{arms[0]} (blue) and {arms[1]} (orange); shaded bands are each arm's interval"
+    subtitle = (f"{arms[0]} (blue) and {arms[1]} (orange), each with its interval as a band; the strip beneath "
+                "shows where the difference is clear and the break-even point on its interval")
     return _finish(chart, title, subtitle, describe_row(row, arms, index_label), style)
 
 
@@ -423,7 +451,8 @@ def _measure_title(row: Mapping[str, Any]) -> str:
 
 
 def _x_axis(row: Mapping[str, Any], override: str | None = None) -> alt.X:
-    axis = alt.Axis(tickMinStep=1, format="d") if is_discrete(row) else alt.Axis()
+    offset = strip_height(row)
+    axis = alt.Axis(tickMinStep=1, format="d", offset=offset) if is_discrete(row) else alt.Axis(offset=offset)
     return alt.X("x:Q", scale=alt.Scale(domain=list(_domain(row)), nice=False, zero=False),
                  title=_x_title(row, override), axis=axis)
 
@@ -440,9 +469,6 @@ def difference_chart(row: Mapping[str, Any], arms: Sequence[str], *, margin: flo
     if not row.get("higher_is_better", True):
         ytitle += " (sign flipped: lower is better)"
     layers: list[alt.Chart] = []
-    shade = _shading(row, arms)
-    if shade is not None:
-        layers.append(shade)
     layers.append(_chart(df).mark_area(opacity=0.25, color=INK).encode(
         x=_x_axis(row, index_label), y=alt.Y("lower:Q", title=wrap(ytitle, AXIS_CHARS)), y2=alt.Y2("upper")))
     refs = pd.DataFrame([{"y": 0.0, "label": "no difference", "dash": False}]
@@ -456,12 +482,12 @@ def difference_chart(row: Mapping[str, Any], arms: Sequence[str], *, margin: flo
         x=alt.X("x:Q"), y=alt.Y("difference:Q"),
         tooltip=[alt.Tooltip("x:Q", format=".3~g", title="index"), alt.Tooltip("difference:Q", format=".3~g"),
                  alt.Tooltip("lower:Q", format=".3~g"), alt.Tooltip("upper:Q", format=".3~g")]))
-    layers += _break_even_layers(row, domain)
+    layers += _strip_layers(row, arms, domain)
     chart = _sized(alt.layer(*layers), WIDTH, HEIGHT)
     band = row.get("regions_band", "pointwise")
     title = f"Difference in {_outcome_title(row)} along {index_label_of(row, index_label)}"
-    subtitle = (f"above zero favours {arms[0]}, below favours {arms[1]}" if not margin else
-                f"above the dashed line {side_words(arms[0], arms, margin)}") + f"; grey band: {band} interval"
+    subtitle = (f"above zero favours {arms[0]}, below favours {arms[1]}; grey band: {band} interval; the strip "
+                "beneath shows where the difference is clear")
     return _finish(chart, title, subtitle, describe_row(row, arms, index_label, margin=margin), style)
 
 
@@ -617,7 +643,7 @@ def curve_table(row: Mapping[str, Any], arms: Sequence[str], every: int = 1) -> 
 
 
 # ------------------------------------------------------------------------------------------
-# Cohort, icon arrays, values, selection
+# Cohort, per-100 counts, selection
 # ------------------------------------------------------------------------------------------
 @_quick
 def index_distribution_chart(data: pd.DataFrame | Sequence[float] | np.ndarray, *, arms: Sequence[str] | None = None,
@@ -654,7 +680,7 @@ def index_distribution_chart(data: pd.DataFrame | Sequence[float] | np.ndarray, 
 
 
 def per_hundred(probabilities: Mapping[str, float]) -> dict[str, int]:
-    """Whole counts out of 100 that add to 100 (largest remainders), for icon arrays and sentences."""
+    """Whole counts out of 100 that add to 100 (largest remainders), for the per-100 display and sentences."""
     keys = list(probabilities)
     p = np.clip(np.array([float(probabilities[k]) for k in keys]), 0, None)
     if p.sum() <= 0:
@@ -665,97 +691,6 @@ def per_hundred(probabilities: Mapping[str, float]) -> dict[str, int]:
     for i in order[: 100 - int(base.sum())]:
         base[i] += 1
     return {k: int(v) for k, v in zip(keys, base)}
-
-
-@_quick
-def icon_array_chart(probabilities: Mapping[str, float], title: str, colours: Mapping[str, str] | None = None, *,
-                     side: int = 300, legend: str | None = "bottom", style: bool = True) -> alt.TopLevelMixin:
-    """100 people in a 10 x 10 grid, coloured by outcome state (best state first), with counts in the legend.
-
-    side: the grid's width and height in pixels; legend: "bottom", "right", or None when the page draws its own
-    (an empty title likewise leaves the title to the page).
-    """
-    counts = per_hundred(probabilities)
-    colours = dict(colours or state_colours(list(counts)))
-    legend_labels = {k: f"{words(k)}: {n} of 100" for k, n in counts.items()}
-    recs, i = [], 0
-    for state, n in counts.items():
-        for _ in range(n):
-            recs.append({"col": i % 10, "row": i // 10, "state": legend_labels[state]})
-            i += 1
-    df = pd.DataFrame(recs)
-    domain = [legend_labels[k] for k in counts]
-    chart = _chart(df).mark_point(filled=True, size=420 * (side / 300) ** 2, opacity=1, shape=PERSON,
-                                  strokeWidth=0.6, stroke=INK).encode(
-        x=alt.X("col:O", axis=None), y=alt.Y("row:O", axis=None),
-        color=alt.Color("state:N", scale=alt.Scale(domain=domain, range=[colours[k] for k in counts]),
-                        legend=None if legend is None else alt.Legend(
-                            title="out of 100 people", symbolType=PERSON, symbolSize=260, symbolStrokeColor=INK,
-                            orient=legend)),
-        tooltip=[alt.Tooltip("state:N", title="state")])
-    chart = _sized(chart, side, side)
-    desc = f"{title or 'Out of 100 people'}: " + "; ".join(f"{n} of 100 {words(k)}" for k, n in counts.items()) + "."
-    return _finish(chart, title, None, desc, style)
-
-
-@_quick
-def threshold_map_chart(cells: pd.DataFrame | Iterable[Mapping[str, Any]], arms: Sequence[str] | None = None, *,
-                        title: str = "Which arm the weights favour", style: bool = True) -> alt.TopLevelMixin:
-    """The favoured arm over a grid of two states' weights (values.threshold_map cells), other weights fixed.
-
-    cells: weight_a, weight_b, favours (an arm or None), and state_a / state_b naming the two states.
-    """
-    df = pd.DataFrame(list(cells)) if not isinstance(cells, pd.DataFrame) else cells.copy()
-    state_a = str(df["state_a"].iloc[0]) if "state_a" in df else "first state"
-    state_b = str(df["state_b"].iloc[0]) if "state_b" in df else "second state"
-    if arms is None:
-        arms = [a for a in pd.unique(df["favours"]) if isinstance(a, str)][:2]
-    df["favoured"] = df["favours"].where(df["favours"].notna(), "neither")
-    domain = list(arms) + (["neither"] if (df["favoured"] == "neither").any() else [])
-    colours = arm_colours(arms) if len(arms) == 2 else {a: ARM_COLOURS[i] for i, a in enumerate(arms)}
-    scale = alt.Scale(domain=domain, range=[colours[a] for a in arms] + ["#DDDDDD"] * (len(domain) - len(arms)))
-    step = float(np.min(np.diff(np.unique(df["weight_a"])))) if df["weight_a"].nunique() > 1 else 0.1
-    df["a2"], df["b2"] = df["weight_a"] + step, df["weight_b"] + step
-    chart = _chart(df).mark_rect().encode(
-        x=alt.X("weight_a:Q", title=f"weight of {words(state_a)}", scale=alt.Scale(domain=[-1, 1 + step], nice=False)),
-        x2=alt.X2("a2"),
-        y=alt.Y("weight_b:Q", title=f"weight of {words(state_b)}", scale=alt.Scale(domain=[-1, 1 + step], nice=False)),
-        y2=alt.Y2("b2"),
-        color=alt.Color("favoured:N", scale=scale, legend=alt.Legend(title="favoured arm")),
-        tooltip=[alt.Tooltip("weight_a:Q", format=".2f", title=f"weight of {words(state_a)}"),
-                 alt.Tooltip("weight_b:Q", format=".2f", title=f"weight of {words(state_b)}"),
-                 alt.Tooltip("favoured:N")])
-    chart = _sized(chart, HEIGHT, HEIGHT)
-    share = df["favoured"].value_counts(normalize=True)
-    desc = (f"{title}, as the weights of {words(state_a)} and {words(state_b)} each run from -1 to 1: "
-            + "; ".join(f"{k} in {fmt(100 * v)}% of the grid" for k, v in share.items()) + ".")
-    return _finish(chart, title, "other weights held at their stated values", desc, style)
-
-
-@_quick
-def acceptability_chart(points: pd.DataFrame | Iterable[Mapping[str, Any]], arms: Sequence[str], *,
-                        index_title: str = "index",
-                        title: str = "How often each arm comes out ahead as the weights vary",
-                        style: bool = True) -> alt.TopLevelMixin:
-    """Share of weight draws under which each arm has the higher value, along the index.
-
-    points: values.acceptability output, rows of x, first, second (shares for the first and second arm).
-    """
-    df = pd.DataFrame(list(points)) if not isinstance(points, pd.DataFrame) else points.copy()
-    df = df.rename(columns={"first": arms[0], "second": arms[1]})
-    df = df.melt(id_vars=["x"], value_vars=list(arms), var_name="arm", value_name="share")
-    colour = alt.Color("arm:N", scale=_arm_scale(arms), legend=ARM_LEGEND)
-    half = _chart(pd.DataFrame([{"y": 0.5}])).mark_rule(color=INK, strokeDash=[4, 4]).encode(y=alt.Y("y:Q"))
-    lines = _chart(df).mark_line(strokeWidth=3.5).encode(
-        x=alt.X("x:Q", title=index_title, scale=alt.Scale(zero=False, nice=False)),
-        y=alt.Y("share:Q", title="share of weight draws", scale=alt.Scale(domain=[0, 1])), color=colour,
-        tooltip=[alt.Tooltip("arm:N"), alt.Tooltip("x:Q", format=".3~g", title="index"),
-                 alt.Tooltip("share:Q", format=".2f")])
-    chart = _sized(alt.layer(half, lines), WIDTH, HEIGHT)
-    desc = title + ": " + "; ".join(
-        f"{a} ahead in {fmt(100 * g['share'].min())}% to {fmt(100 * g['share'].max())}% of draws"
-        for a, g in df.groupby("arm", sort=False)) + "."
-    return _finish(chart, title, "dashed line: half of the draws", desc, style)
 
 
 SELECTION_SETS = (("randomised_break_even", "randomised patients only"), ("all_break_even", "all patients"),

@@ -1,6 +1,7 @@
 """The patient summary as a PDF, drawn with reportlab (pure Python from PyPI; no browser, no system library).
 
-It draws the same `patient.Summary` the HTML page shows: cautions, position, icon arrays (vector people),
+It draws the same `patient.Summary` the HTML page shows: cautions, position, the per-100 rows (the same layout
+as the app's, from charts_patient.layout),
 each arm's outcomes with intervals, the values and whose they are, what they favour, and the limits.
 """
 from __future__ import annotations
@@ -9,7 +10,7 @@ import io
 from typing import Sequence
 from xml.sax.saxutils import escape
 
-from reportlab.graphics.shapes import Circle, Drawing, Rect
+from reportlab.graphics.shapes import Drawing, Line, Rect, String
 from reportlab.lib import colors
 from reportlab.lib.enums import TA_LEFT
 from reportlab.lib.pagesizes import A4
@@ -19,7 +20,9 @@ from reportlab.platypus import (KeepTogether, ListFlowable, ListItem, Paragraph,
                                 TableStyle)
 
 from . import __version__
-from .charts import INK, fmt, words
+from .charts import fmt, words
+from .charts_patient import LABEL_SIZE, layout
+from .look import INK, MUTED, PAPER, RULE
 from .patient_summary import IconArray, Summary
 
 FONT, BOLD = "Helvetica", "Helvetica-Bold"
@@ -36,7 +39,7 @@ GRID = TableStyle([("GRID", (0, 0), (-1, -1), 0.5, colors.HexColor("#aaaaaa")),
                    ("VALIGN", (0, 0), (-1, -1), "TOP"),
                    ("LEFTPADDING", (0, 0), (-1, -1), 3), ("RIGHTPADDING", (0, 0), (-1, -1), 3),
                    ("TOPPADDING", (0, 0), (-1, -1), 1.5), ("BOTTOMPADDING", (0, 0), (-1, -1), 1.5)])
-ICON = 4.2 * mm  # the cell each person sits in
+ROW_WIDTH = 118 * mm  # the per-100 rows' width on the page
 
 
 def _p(text: str, style: ParagraphStyle = BODY) -> Paragraph:
@@ -56,26 +59,34 @@ def _table(rows: Sequence[Sequence[str]], widths: Sequence[float] | None = None,
     return t
 
 
-def person(x: float, y: float, size: float, colour: str) -> list:
-    """One person (head and shoulders) filling a size x size cell whose lower-left corner is (x, y)."""
-    fill, edge = colors.HexColor(colour), colors.HexColor(INK)
-    head = Circle(x + size / 2, y + size * 0.72, size * 0.17, fillColor=fill, strokeColor=edge, strokeWidth=0.3)
-    body = Rect(x + size * 0.22, y + size * 0.08, size * 0.56, size * 0.44, rx=size * 0.2, ry=size * 0.2,
-                fillColor=fill, strokeColor=edge, strokeWidth=0.3)
-    return [body, head]
+def per_hundred_rows(a: IconArray, width: float = ROW_WIDTH) -> Drawing:
+    """Both arms' rows of 100 marks with their run labels, laid out by charts_patient.layout (pixels scaled to
+    the page; reportlab's y runs upwards, so every y is flipped)."""
+    char = 0.5 * LABEL_SIZE * 1.08  # Helvetica's average character at the layout's label size, in layout pixels
+    lay = layout(a.probabilities, a.colours, width=600, char_px=char)
+    k = width / lay.width
+    d = Drawing(width, lay.height * k)
+    top = lay.height * k
 
+    def y(v: float) -> float:
+        return top - v * k
 
-def icon_array(counts: dict[str, int], colours: dict[str, str], size: float = ICON) -> Drawing:
-    """100 people in a 10 x 10 grid, filled row by row from the top left in the states' order (best first),
-    as the app's icon arrays are."""
-    d = Drawing(10 * size, 10 * size)
-    i = 0
-    for state, n in counts.items():
-        for _ in range(n):
-            col, row = i % 10, i // 10
-            for shape in person(col * size, (9 - row) * size, size, colours[state]):
-                d.add(shape)
-            i += 1
+    for m in lay.marks:
+        d.add(Rect(m["x0"] * k, y(m["y1"]), (m["x1"] - m["x0"]) * k, (m["y1"] - m["y0"]) * k,
+                   fillColor=colors.HexColor(m["colour"]), strokeColor=colors.HexColor(RULE), strokeWidth=0.2))
+    for lab in lay.labels:
+        d.add(Line(lab["x"] * k, y(lab["leader_y0"]), lab["x"] * k, y(lab["leader_y1"]),
+                   strokeColor=colors.HexColor(MUTED), strokeWidth=0.4))
+    for lab in lay.labels:  # a paper box behind the words, so a leader passing behind never cuts them
+        w = len(lab["text"]) * char * k
+        d.add(Rect(lab["x"] * k - 0.5, y(lab["y"]) - 1.5, w + 1, LABEL_SIZE * k, fillColor=colors.HexColor(PAPER),
+                   strokeColor=None))
+        d.add(String(lab["x"] * k, y(lab["y"]), lab["text"], fontName=FONT, fontSize=LABEL_SIZE * k,
+                     fillColor=colors.HexColor(INK)))
+    for h in lay.arms:
+        d.add(Rect(0, y(h["y"]), 9 * k, 13 * k, fillColor=colors.HexColor(h["bar"]), strokeColor=None))
+        d.add(String(14 * k, y(h["y"]), h["text"], fontName=BOLD, fontSize=(LABEL_SIZE + 2) * k,
+                     fillColor=colors.HexColor(h["colour"])))
     return d
 
 
@@ -91,13 +102,10 @@ def _arrays(a: IconArray, arms: Sequence[str]) -> KeepTogether:
     for lv in a.levels:
         counts.append([_p(words(lv), CELL), _swatch(a.colours[lv])] + [_p(str(a.counts[arm][lv]), CELL)
                                                                       for arm in arms])
-    table = Table(counts, hAlign="LEFT", colWidths=[26 * mm, 5 * mm] + [24 * mm] * len(arms))
+    table = Table(counts, hAlign="LEFT", colWidths=[24 * mm, 5 * mm] + [15 * mm] * len(arms))
     table.setStyle(GRID)
-    figures = [[_p(f"With {arm}", CELL_BOLD) for arm in arms] + [table],
-               [icon_array(a.counts[arm], a.colours) for arm in arms] + [""]]
-    row = Table(figures, hAlign="LEFT", colWidths=[10 * ICON + 6 * mm] * len(arms) + [None])
-    row.setStyle(TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"), ("LEFTPADDING", (0, 0), (-1, -1), 0),
-                             ("SPAN", (-1, 0), (-1, 1))]))
+    row = Table([[per_hundred_rows(a), table]], hAlign="LEFT", colWidths=[ROW_WIDTH + 4 * mm, None])
+    row.setStyle(TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"), ("LEFTPADDING", (0, 0), (-1, -1), 0)]))
     return KeepTogether([_p(a.title, H3), row])
 
 

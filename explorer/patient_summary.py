@@ -10,7 +10,7 @@ from .patient import Placement, Prediction, PatientView, ValueJudgement, count_o
 
 
 def icon_probabilities(p: Prediction) -> dict[str, dict[str, float]] | None:
-    """Per arm, the state probabilities an icon array shows: ordinal levels, or alive / dead."""
+    """Per arm, the state probabilities the per-100 rows show: ordinal levels, or alive / dead."""
     out = {}
     for arm, e in p.arms.items():
         if e.distribution:
@@ -23,7 +23,7 @@ def icon_probabilities(p: Prediction) -> dict[str, dict[str, float]] | None:
 
 
 def _icon_outcomes(view: PatientView) -> list[Prediction]:
-    """The survival and the function outcome the icon arrays show: those the values combine (one horizon) when
+    """The survival and the function outcome the per-100 rows show: those the values combine (one horizon) when
     the spec names them, else the first of each kind."""
     along = [p for p in view.predictions if p.index == view.primary_index]
     want = set(view.combined)
@@ -53,7 +53,7 @@ def outcome_table(p: Prediction, arms: Sequence[str]) -> list[list[str]]:
 
 @dataclass
 class IconArray:
-    """One outcome's icon arrays: per arm the state probabilities and counts of 100, with state colours."""
+    """One outcome's per-100 rows: per arm the state probabilities and counts of 100, with state colours."""
 
     title: str
     levels: list[str]
@@ -106,14 +106,15 @@ def summary_content(view: PatientView, cautions: Sequence[str], *, identifiers: 
 
 
 def summary_html(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None) -> str:
-    """A printable HTML summary: position, limits, icon arrays per arm (inline SVG), each arm's outcomes with
+    """A printable HTML summary: position, limits, the per-100 rows for both arms (inline SVG), each arm's outcomes with
     intervals, the values used and whose they are, the favoured arm and how firmly, and the cautions."""
     from markupsafe import Markup
 
-    from .charts import chart_to_svg, icon_array_chart
+    from .charts import chart_to_svg
+    from .charts_patient import per_hundred_chart
     from .report import render_template
 
     s = summary_content(view, cautions, identifiers=identifiers)
-    svgs = [[(arm, Markup(chart_to_svg(icon_array_chart(a.probabilities[arm], "", a.colours, side=150, legend=None))))
-             for arm in s.arms] for a in s.arrays]
+    svgs = [Markup(chart_to_svg(per_hundred_chart(a.probabilities, "", a.colours, width=560, key=False, subtitle=None)))
+            for a in s.arrays]
     return render_template("patient.html", s=s, svgs=svgs, fmt=fmt, words=words)

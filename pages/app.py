@@ -2,6 +2,7 @@
 import streamlit as st
 
 import fulcrum_ui as ui
+import ui_theme
 
 ui.setup()
 # The pages in the order the sidebar lists them: (file, title, url path). Add a page with one line here.
@@ -21,4 +22,5 @@ page = st.navigation([st.Page(file, title=title, url_path=path, default=i == 0)
                       for i, (file, title, path) in enumerate(PAGES)])
 ui.header()  # the app's header (pages/ui_theme.py draws it when present)
 ui.sidebar(ui.workspace())
+ui_theme.header(ui.workspace())
 page.run()

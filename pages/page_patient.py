@@ -7,6 +7,7 @@ import json
 import streamlit as st
 
 import fulcrum_ui as ui
+import ui_theme
 from explorer import CAUTIONS
 from explorer import appstate as aps
 
@@ -21,6 +22,7 @@ conv = ui.engine("conversation")
 summary = ui.engine("patient_summary")
 arms = list(ws.spec.cohort.arms)
 charts = ui.engine("charts")
+per100 = ui.engine("charts_patient")
 fs = ui.fitted(ws)
 if fs is None:
     st.stop()
@@ -178,6 +180,8 @@ pl = view.placements.get(index)
 if pl is None:
     st.stop()
 marker = {"x": pl.value, "label": f"this patient ({pl.value:.3g}, percentile {pl.percentile:.0f})"}
+ui_theme.set_patient(f"{'cohort row ' + str(row + 1) if row is not None else 'entered values'}: "
+                     f"{titles[index]} {pl.value:.3g}")
 
 # ------------------------------------------------------------------------------------------
 # Which arm the weights favour, and how firmly
@@ -202,15 +206,10 @@ for p in preds:
     for s in [p.sentence, *p.states_sentences, p.uncertainty, *([p.level_sentence] if p.level_sentence else [])]:
         ui.sentence(s)
     probs = summary.icon_probabilities(p)
-    if charts is not None and probs:
-        levels_p = list(next(iter(probs.values())))
-        colours = charts.state_colours(levels_p)
-        icon_cols = st.columns(len(arms))
-        for col, arm in zip(icon_cols, arms):
-            with col:
-                chart = charts.icon_array_chart(probs[arm], f"With {arm}", colours)
-                ui.show_chart(chart)
-                st.caption(aps.md_escape(ui.description(chart) or ""))
+    if per100 is not None and probs:
+        chart = per100.per_hundred_chart(probs, f"{p.title}: out of 100 people like this", width=880)
+        ui.show_chart(chart)
+        st.caption(aps.md_escape(ui.description(chart) or ""))
     with st.expander("On the curve, and the numbers"):
         row_json = curve_rows.get((p.outcome, index))
         if charts is not None and row_json is not None:

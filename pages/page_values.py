@@ -14,6 +14,7 @@ ws, values = ui.page_head(
     needs=("values", "Weighing outcome states"))
 arms = list(ws.spec.cohort.arms)
 charts = ui.engine("charts")
+leeway = ui.engine("charts_values")
 
 ordinal = [o for o in ws.spec.outcomes if o.kind == "ordinal"]
 if ws.spec.values is None:
@@ -101,7 +102,7 @@ here = {k: cm for k, cm in prepared.items() if k[1] == index}
 anchor = next(iter(here.values()))
 lo, hi = anchor.x_range
 discrete = bool(ws.index_values()[index].info.get("discrete"))
-x0 = st.slider(f"Threshold analysis at {titles[index]} =", float(lo), float(hi),
+x0 = st.slider(f"Test how far the weights can move at {titles[index]} =", float(lo), float(hi),
                step=1.0 if discrete else (hi - lo) / 100,
                key=ui.seed(f"x0:{index}", float(round(values.default_threshold_x(anchor)) if discrete
                                                 else values.default_threshold_x(anchor))))
@@ -126,29 +127,18 @@ for row, ((kind, _), (_, info)) in zip(rows, summaries.items()):
         st.caption(aps.md_escape(note))
 
     th = row.get("thresholds")
-    if th:
-        with st.expander("Which weights would change the answer (threshold analysis)", expanded=False):
-            fav = th.get("favours") or "neither arm"
-            ui.sentence(f"At {titles[index]} {x0:.3g}, these weights favour {fav}. Holding the other weights fixed, "
-                        "the answer changes only if a single state's weight crosses the value below.")
-            st.dataframe(pd.DataFrame([{"state": s["level"], "weight now": s["weight"],
-                                        "answer flips at": s["flip_weight"], "what it means": s["message"]}
-                                       for s in th["states"]]), hide_index=True, width="stretch")
-            if charts is not None and len(levels) >= 3:
-                a1, a2 = st.columns(2)
-                state_a = a1.selectbox("Map: first state", levels[:-1], key=ui.key(f"ma:{kind}"))
-                rest = [lv for lv in levels if lv != state_a]
-                state_b = a2.selectbox("Map: second state", rest, index=min(1, len(rest) - 1), key=ui.key(f"mb:{kind}"))
-                cells = values.threshold_map(info.model, v.weights, x0, state_a, state_b, n=21,
-                                             margin=ws.spec.analysis.margin)
-                chart = charts.threshold_map_chart(cells, arms, title=f"Which arm is favoured at {titles[index]} "
-                                                                      f"{x0:.3g}")
-                ui.altair(chart, ui.description(chart))
+    if th and leeway is not None:
+        with st.expander("How far can these weights move before the answer changes?", expanded=False):
+            lw = leeway.leeway(th)
+            chart = leeway.leeway_chart(lw, arms, where=f"{titles[index]} {x0:.3g}")
+            ui.show_chart(chart)
+            ui.sentence(ui.description(chart) or "")
+            st.dataframe(leeway.leeway_table(lw), hide_index=True, width="stretch")
 
     acc = row.get("acceptability")
-    if acc and charts is not None:
-        chart = charts.acceptability_chart(acc, arms, index_title=titles[index],
-                                           title="How often each arm comes out ahead")
+    if acc and leeway is not None:
+        chart = leeway.preference_chart(acc, arms, index_title=titles[index], spread=v.spread, ranges=v.ranges,
+                                          discrete=discrete)
         ui.altair(chart, ui.description(chart))
 
 with st.expander("Uncertainty about the weights themselves"):
@@ -156,7 +146,7 @@ with st.expander("Uncertainty about the weights themselves"):
                        key=ui.seed("spread", float(v.spread)))
     if spread != v.spread and ui.update_spec(lambda s: aps.with_settings(s, spread=spread)):
         st.rerun()
-    st.caption("The chance each arm comes out ahead combines the models' uncertainty with weights drawn evenly "
+    st.caption(f"The chance {arms[0]} is preferred combines the models' uncertainty with weights drawn evenly "
                "within this range (death stays at its weight).")
 
 # ------------------------------------------------------------------------------------------

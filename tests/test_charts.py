@@ -12,6 +12,9 @@ import pandas as pd
 import pytest
 
 from explorer import charts as ch
+from explorer import charts_patient as cp
+from explorer import charts_values as cv
+from explorer import look
 from explorer import values as vl
 from explorer.analysis import analyse
 from explorer.spec import load_spec
@@ -83,32 +86,148 @@ def test_every_composite_and_selection_row_builds(result, doc):
     for row in doc["composite"]:
         _validated(ch.composite_chart(row, arms))
         if row.get("acceptability"):
-            _validated(ch.acceptability_chart(row["acceptability"], arms, index_title=row["index"]))
+            _validated(cv.preference_chart(row["acceptability"], arms, index_title=row["index"]))
+        if row.get("thresholds"):
+            _validated(cv.leeway_chart(cv.leeway(row["thresholds"]), arms, where="CFS 5"))
     for row in doc["selection"]:
         _validated(ch.selection_chart(row, arms))
         _validated(ch.selection_break_even_chart(row))
-    cm = next(iter(result.composite.values()))[1].model
-    cells = vl.threshold_map(cm, result.spec.values.weights, float(np.median(cm.grid)), "home_with_help", "care_home",
-                             n=11)
-    spec = _validated(ch.threshold_map_chart(cells, arms))
-    assert spec["description"].count("%") >= 1
 
 
-def test_icon_array_and_distribution_charts(result, doc):
+def test_per_hundred_rows_count_to_100_label_every_run_and_decode(result, doc):
     levels = result.spec.outcome("function").levels
-    probs = dict(zip(levels, (0.305, 0.2, 0.15, 0.1, 0.245)))
-    spec = _validated(ch.icon_array_chart(probs, "With laparotomy"))
-    values = next(r for r in _records(spec) if "state" in r[0])
-    assert len(values) == 100
-    assert sorted({(v["col"], v["row"]) for v in values}) == [(c, r) for c in range(10) for r in range(10)]
-    # Death in black and the living states in Okabe-Ito colours the arms do not use.
+    arms = doc["arms"]
+    probs = {arms[0]: dict(zip(levels, (0.305, 0.2, 0.15, 0.02, 0.325))),
+             arms[1]: dict(zip(levels, (0.12, 0.18, 0.2, 0.1, 0.4)))}
+    spec = _validated(cp.per_hundred_chart(probs, "Function at six months"))
+    drawn = cp.counts_of(spec)
+    for arm in arms:
+        assert sum(drawn[arm].values()) == 100
+        assert drawn[arm] == {k: v for k, v in ch.per_hundred(probs[arm]).items() if v}
+    marks = next(r for r in _records(spec) if "person" in r[0])
+    for arm in arms:  # one row per arm, people 1..100 left to right, sorted by state in the levels' order
+        row = sorted((m for m in marks if m["arm"] == arm), key=lambda m: m["person"])
+        assert [m["person"] for m in row] == list(range(1, 101))
+        assert all(a["x1"] < b["x0"] for a, b in zip(row, row[1:]))
+        assert [levels.index(m["state"]) for m in row] == sorted(levels.index(m["state"]) for m in row)
+        assert len({m["y0"] for m in row}) == 1
+    labels = [r for r in _records(spec) if "leader_y0" in r[0]][0]
+    for lab in labels:  # each run is named beside it: its count and state, starting where the run starts
+        first = min((m for m in marks if m["arm"] == lab["arm"] and m["state"] == lab["state"]),
+                    key=lambda m: m["person"])
+        assert lab["x"] == first["x0"] and lab["text"] == f"{lab['n']} {ch.words(lab['state'])}"
+    assert len(labels) == sum(1 for a in arms for v in ch.per_hundred(probs[a]).values() if v)
+    # the key decodes: its swatches are the states' own colours, in order, not a dark figure
+    fill = next(e["fill"] for e in _walk(spec) if isinstance(e.get("fill"), dict) and "legend" in e["fill"])
     colours = ch.state_colours(levels)
-    assert colours["dead"] == "#000000"
-    assert set(colours.values()) <= PUBLISHED_OKABE_ITO
+    assert fill["scale"]["domain"] == [ch.words(lv) for lv in levels]
+    assert fill["scale"]["range"] == [colours[lv] for lv in levels]
+    assert fill["legend"]["symbolType"] == "square" and "symbolFillColor" not in fill["legend"]
+    assert not any(isinstance(e.get("shape"), str) and e["shape"].lstrip().startswith("M") for e in _walk(spec))
+    # states run light (best) to dark (worst); the best is not green and death is not black
+    lum = [look.luminance(colours[lv]) for lv in levels]
+    assert lum == sorted(lum, reverse=True)
+    assert colours[levels[0]] != "#009E73" and colours["dead"] != "#000000"
+    assert set(colours[lv] for lv in levels[:-1]) <= PUBLISHED_OKABE_ITO
     assert not set(colours.values()) & set(ch.ARM_COLOURS)
+    for arm in arms:
+        assert f"With {arm}: " + ", ".join(f"{n} {ch.words(k)}" for k, n in ch.per_hundred(probs[arm]).items()) \
+            in spec["description"]
     frame = pd.DataFrame({"x": result.fitset.indices["cfs"].values,
                           "arm": result.fitset.cohort.frame[result.spec.cohort.arm].to_numpy()})
     _validated(ch.index_distribution_chart(frame, arms=doc["arms"], label="Clinical Frailty Scale", patient_x=6))
+
+
+def test_strip_beneath_the_plot_carries_the_clear_regions_and_the_break_even(doc):
+    arms = doc["arms"]
+    row = next(r for r in doc["results"] if r["break_even"] and len(r.get("clear_difference") or []) >= 2)
+    spec = _validated(ch.outcome_chart(row, arms))
+    lo, hi = row["range"]
+    band = sorted({(r["from"], r["to"]): r for t in _records(spec) for r in t if "fill" in r and "region" in r}.values(),
+                  key=lambda r: r["from"])
+    # the band covers the observed range end to end, without gaps or overlaps
+    assert band[0]["from"] == pytest.approx(lo) and band[-1]["to"] == pytest.approx(hi)
+    assert all(a["to"] == pytest.approx(b["from"]) for a, b in zip(band, band[1:]))
+    colours = ch.arm_colours(arms)
+    clear = [(r["from"], r["to"], colours[r["favours"]]) for r in ch.clear_regions(row)]
+    assert [(b["from"], b["to"], b["fill"]) for b in band if b["fill"] != look.NEUTRAL] == clear
+    assert {b["region"] for b in band if b["fill"] == look.NEUTRAL} == {"no clear difference"}
+    for b in band:  # words inside a segment read at 4.5:1 or better on its colour
+        assert look.contrast(b["ink"], b["fill"]) >= look.MIN_TEXT_CONTRAST
+    # nothing shades the plot itself: every rect sits below the plot (the strip)
+    for e in _walk(spec):
+        if e.get("mark") in ("rect", {"type": "rect"}) or (isinstance(e.get("mark"), dict)
+                                                          and e["mark"].get("type") == "rect"):
+            assert e["encoding"]["y"]["value"] > ch.HEIGHT
+    # each break-even point sits on the strip as a diamond, its interval drawn on the same row
+    diamonds = list({r["x"]: r for t in _records(spec) for r in t if "interval" in r and "label" in r}.values())
+    assert sorted(d["x"] for d in diamonds) == sorted(b["x"] for b in row["break_even"])
+    assert all(d["y"] > ch.HEIGHT + ch.STRIP_BAND[1] for d in diamonds)
+    segs = [r for t in _records(spec) for r in t if {"from", "to", "left", "right"} <= set(r)]
+    for b in row["break_even"]:
+        lo_ci, hi_ci = b["ci"]
+        ends = {(s["from"], s["to"]) for s in segs}
+        assert any((lo_ci is None or s[0] == pytest.approx(max(lo_ci, s[0]))) and s[0] <= b["x"] <= s[1] for s in ends)
+    axis = next(e["axis"] for e in _walk(spec) if isinstance(e.get("axis"), dict) and "offset" in e["axis"])
+    assert axis["offset"] == ch.strip_height(row)
+
+
+def test_preference_chart_draws_one_quantity_without_a_half_line(doc):
+    arms = doc["arms"]
+    row = next(r for r in doc["composite"] if r.get("acceptability"))
+    spec = _validated(cv.preference_chart(row["acceptability"], arms, index_title="CFS", spread=0.1))
+    lines = [e for e in _walk(spec) if e.get("mark") == "line" or (isinstance(e.get("mark"), dict)
+                                                                  and e["mark"].get("type") == "line")]
+    assert len(lines) == 1
+    assert not [e for e in _walk(spec) if isinstance(e.get("mark"), (str, dict)) and "rule" in str(e["mark"])]
+    data = next(t for t in _records(spec) if "p" in t[0])
+    assert [d["p"] for d in data] == [p["first"] for p in row["acceptability"]]
+    assert f"chance {arms[0]} is preferred" in str(spec)
+    lo, hi = min(d["p"] for d in data), max(d["p"] for d in data)
+    assert f"from {cv.percent(lo)} to {cv.percent(hi)}" in spec["description"]
+    assert [cv.percent(p) for p in (0.0, 0.004, 0.5, 0.996, 1.0)] == ["0%", "<1%", "50%", ">99%", "100%"]
+
+
+def test_leeway_is_exact_one_weight_at_a_time_and_all_together(result, doc):
+    """Brute force against the model: the composite difference is delta @ w - margin (values.level_differences)."""
+    from itertools import product
+
+    info = next(iter(result.composite.values()))[1]
+    cm = info.model
+    w = np.array([result.spec.values.weights[lv] for lv in cm.levels])
+    for x in (2.0, 5.0, 7.0):
+        th = vl.thresholds(cm, dict(zip(cm.levels, w)), x, margin=0.02)
+        lw = cv.leeway(th)
+        delta = vl.level_differences(cm, x)
+        diff = lambda v: float(delta @ v) - 0.02  # noqa: E731
+        sign = np.sign(diff(w))
+        for k, r in enumerate(lw["states"]):
+            grid = np.linspace(-1, 1, 2001)
+            flips = [g for g in grid if np.sign(diff(np.where(np.arange(len(w)) == k, g, w))) != sign]
+            if r["changes_at"] is None:
+                assert not flips
+            else:
+                nearest = min(flips, key=lambda g: abs(g - w[k]))
+                assert nearest == pytest.approx(r["changes_at"], abs=1.01e-3)
+                assert r["room"] == pytest.approx(abs(r["changes_at"] - w[k]))
+        t = lw["together"]
+        movers = np.arange(len(w) - 1)  # death (the last state) is held
+
+        def worst(step: float) -> float:  # the box's corners are where a linear difference is most extreme
+            best = sign * diff(w)
+            for signs in product((-1.0, 1.0), repeat=len(movers)):
+                v = w.copy()
+                v[movers] = np.clip(w[movers] + step * np.array(signs), -1, 1)
+                best = min(best, sign * diff(v))
+            return best
+
+        if t is None:
+            assert worst(2.0) > 0
+        else:
+            assert worst(t * (1 - 1e-6)) > 0 and worst(t * (1 + 1e-6) + 1e-9) <= 0
+    table = cv.leeway_table(lw)
+    assert list(table["state"]) == [ch.words(lv) for lv in cm.levels]
+    assert "flip" not in str(table).lower()
 
 
 def test_kaplan_meier_chart_agrees_with_lifelines(result):

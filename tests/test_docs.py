@@ -25,7 +25,7 @@ APP_TERMS = (
     "extrapolated", "randomised", "chosen", "selection effect", "shift", "value weights", "preset", "whose values",
     "composite", "acceptability", "threshold analysis", "win ratio", "win odds", "net benefit", "RMST",
     "Kaplan-Meier", "E-value", "SMD", "propensity", "effective sample size", "calibration", "effect modification",
-    "Clinical Frailty Scale", "icon array", "percentile", "proportional odds", "Cox model", "Weibull",
+    "Clinical Frailty Scale", "out of 100 people like this", "percentile", "proportional odds", "Cox model", "Weibull",
     "restricted cubic spline", "complete cases", "multiple imputation", "Rubin's rules", "cluster", "horizon",
     "among survivors", "days alive and at home", "quality-adjusted survival", "sliding window", "spec", "seed",
     "sha256", "coverage", "approximate",

@@ -236,21 +236,28 @@ def test_differing_horizons_are_said_in_words(fs):
     assert timing_sentence(one.outcomes) is None
 
 
-def test_icon_arrays_show_outcomes_at_one_horizon(fs, view):
+def test_per_hundred_rows_show_outcomes_at_one_horizon_with_the_engines_counts(fs, view):
+    from explorer.charts_patient import counts_of, per_hundred_chart
     from explorer.patient_summary import summary_content
 
     s = summary_content(view, CAUTIONS)
     v = fs.spec.values  # the survival outcome the composite combines with function, both at six months
     assert [a.title for a in s.arrays] == [fs.spec.outcome(v.survival_outcome).title, fs.spec.outcome(v.outcome).title]
+    function = next(p for p in view.predictions if p.outcome == v.outcome and p.index == view.primary_index)
     for a in s.arrays:
+        drawn = counts_of(per_hundred_chart(a.probabilities, a.title, a.colours).to_dict())
         for arm in view.arms:
             assert sum(a.counts[arm].values()) == 100
+            assert sum(drawn[arm].values()) == 100  # the display draws exactly 100 marks per arm
+            assert drawn[arm] == {k: n for k, n in a.counts[arm].items() if n}
+            if a.title == function.title:  # the same counts the engine's sentences give
+                assert a.counts[arm] == function.arms[arm].distribution_per_100
 
 
 def test_summary_page_is_escaped_and_carries_cautions(view):
     html = patient_summary_html(view, CAUTIONS, identifiers={"name": "<script>alert(1)</script>"})
     assert "<script>alert" not in html and "&lt;script&gt;alert(1)&lt;/script&gt;" in html
-    assert html.count("<svg") == 2 * 2
+    assert html.count("<svg") == 2  # one per outcome, both arms' rows in it
     for caution in CAUTIONS:
         assert caution in html
     assert not re.search(r"""\b(?:src|href)\s*=\s*["']?\s*(?:https?:)?//""", html)

@@ -20,6 +20,7 @@ from markupsafe import Markup
 
 from .. import CAUTIONS, __version__
 from .. import charts as ch
+from .. import charts_values as cv
 
 CURVE_TABLE_ROWS = 21
 REPORT_POINTS = 400
@@ -270,18 +271,20 @@ def composite_sections(doc: Mapping[str, Any]) -> list[dict]:
         extra_tables = []
         acc = row.get("acceptability")
         if acc:
-            charts.append(ch.acceptability_chart(acc, arms, index_title=ch._x_title(row)))
+            charts.append(cv.preference_chart(acc, arms, index_title=ch._x_title(row),
+                                              spread=(doc.get("spec", {}).get("values") or {}).get("spread"),
+                                              ranges=(doc.get("spec", {}).get("values") or {}).get("ranges"),
+                                              discrete=ch.is_discrete(row)))
             step = max(1, len(acc) // (CURVE_TABLE_ROWS - 1))
-            extra_tables.append(("How often each arm comes out ahead as the weights vary",
-                                 table_of(pd.DataFrame([{"index": p["x"], f"{arms[0]} ahead": p["first"],
-                                                         f"{arms[1]} ahead": p["second"]} for p in acc[::step]]))))
+            extra_tables.append((f"Chance that {arms[0]} is preferred when the weights are uncertain",
+                                 table_of(pd.DataFrame([{"index": p["x"], f"chance {arms[0]} is preferred": p["first"]}
+                                                        for p in acc[::step]]))))
         th = row.get("thresholds")
         if th and th.get("states"):
-            extra_tables.append((f"Threshold weights at index value {ch.fmt(th.get('x'))}",
-                                 table_of(pd.DataFrame([{"state": ch.words(s["level"]), "weight": s["weight"],
-                                                         "weight at which the favoured arm flips": s["flip_weight"],
-                                                         "what it means": s.get("message", "")}
-                                                        for s in th["states"]]))))
+            lw = cv.leeway(th)
+            charts.append(cv.leeway_chart(lw, arms, where=f"index value {ch.fmt(th.get('x'))}"))
+            extra_tables.append((f"How far the weights can move before the answer changes, at index value "
+                                 f"{ch.fmt(th.get('x'))}", table_of(cv.leeway_table(lw))))
         weights = row.get("weights") or {}
         out.append({
             "title": f"{ch._cap(ch._outcome_title(row))} along {ch.index_label_of(row)}",

@@ -26,7 +26,7 @@ import numpy as np
 from scipy import special
 
 from . import analysis as an
-from .models import is_probability, measure_range
+from .margins import margin_for, measure_span, on_probability_scale
 from .results import r6, r6_list
 
 SQRT2PI = float(np.sqrt(2.0 * np.pi))
@@ -130,8 +130,8 @@ def outcome_threshold(outcome, ev) -> float | None:
     threshold = ev.threshold if ev else 1.0
     if ev and outcome.name in ev.thresholds:
         return ev.thresholds[outcome.name]
-    lo, hi = measure_range(outcome)
-    return threshold * (hi - lo) if np.isfinite(hi - lo) else None
+    span = measure_span(outcome)
+    return None if span is None else threshold * span
 
 
 def evidence_row(u: Uncertainty, *, outcome: str, index: str, measure: str, probability: bool, units: str,
@@ -196,15 +196,14 @@ def evidence_rows(fs: an.FitSet, composite: dict | None = None, replicates: list
 
     spec = fs.spec
     ev = spec.evidence
-    margin = spec.analysis.margin
     population = population or cohort_population(fs)
     rows = []
     for (oname, iname), pf in fs.pairs.items():
         o = pf.outcome
         if o.among_survivors:
             continue  # its difference compares different groups of survivors: not a choice between arms
-        u = pair_uncertainty(pf, margin, an.grid_for(pf, spec.analysis.grid), replicates)
-        rows.append(evidence_row(u, outcome=oname, index=iname, measure=o.title, probability=is_probability(o),
+        u = pair_uncertainty(pf, margin_for(spec, o), an.grid_for(pf, spec.analysis.grid), replicates)
+        rows.append(evidence_row(u, outcome=oname, index=iname, measure=o.title, probability=on_probability_scale(o),
                                  units=o.units or "", index_label=_index_label(fs, iname),
                                  threshold=outcome_threshold(o, ev), population=population, x_range=pf.x_range))
     for (kind, iname), (_, info) in (composite or {}).items():
@@ -212,7 +211,7 @@ def evidence_rows(fs: an.FitSet, composite: dict | None = None, replicates: list
         if cm is None:
             continue
         w = _weights_for(cm, info.weights)
-        u = composite_uncertainty(cm, w, margin)
+        u = composite_uncertainty(cm, w, spec.analysis.margin)  # the analysis margin is the composites' margin
         if cm.weighted:  # expected value weights: on the [0, 1] scale of the weights
             units, threshold = "value points", (ev.threshold if ev else 1.0)
         else:  # utility x survival time: quality-adjusted time to the anchor outcome's horizon

@@ -183,6 +183,9 @@ class OutputPlan:
         path = Path(path)
         if not str(path).strip():
             raise FulcrumError(f"{flag} was given an empty file name.", hint=f"Give {flag} a file name.")
+        if "\x00" in str(path):
+            raise FulcrumError(f"the file name given to {flag} holds a NUL character, which no file name can hold.",
+                               hint=f"Give {flag} an ordinary file name.")
         for src in self.inputs:
             if src.exists() and _same(path, src) or path.resolve() == src.resolve():
                 raise FulcrumError(f"the output given to {flag} is one of the input files, which would be "

@@ -21,6 +21,7 @@ import numpy as np
 from . import CAUTIONS
 from . import analysis as an
 from .errors import FulcrumError
+from .margins import margin_for
 from .models import fit_model
 from .models.simulate import append, simulate
 from .resampling import Progress, run_blocks
@@ -103,7 +104,7 @@ def _interval(pf: an.PairFit, spec, x0: float | None, at: float | None) -> tuple
     if at is not None:
         lo_at = float(np.interp(at, s.grid, s.lower))
         hi_at = float(np.interp(at, s.grid, s.upper))
-        margin = spec.analysis.margin
+        margin = margin_for(spec, pf.outcome)
         clear = bool(lo_at > margin or hi_at < margin)
     return width, clear
 

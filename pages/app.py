@@ -20,7 +20,8 @@ PAGES = [
 ]
 page = st.navigation([st.Page(file, title=title, url_path=path, default=i == 0)
                       for i, (file, title, path) in enumerate(PAGES)])
-ui.header()  # the app's header (pages/ui_theme.py draws it when present)
-ui.sidebar(ui.workspace())
+ws = ui.workspace()
+ui.header(ws)  # the app's header (pages/ui_theme.py draws it)
+ui.sidebar(ws)
 ui_theme.header(ui.workspace())
 page.run()

@@ -275,7 +275,7 @@ def current_record(ws: aps.Workspace, choice: aps.PatientChoice):
 # ------------------------------------------------------------------------------------------
 # Small pieces of screen
 # ------------------------------------------------------------------------------------------
-def header() -> None:
+def header(ws: aps.Workspace) -> None:
     """The app's header, drawn once per run above every page (pages/ui_theme.py provides it when present)."""
     try:
         theme = importlib.import_module("ui_theme")
@@ -283,7 +283,7 @@ def header() -> None:
         return
     draw = getattr(theme, "header", None)
     if draw is not None:
-        draw()
+        draw(ws)
 
 
 def sidebar(ws: aps.Workspace) -> None:

@@ -996,7 +996,7 @@ def test_command_line_flags_only_end_cleanly(flag_case, monkeypatch, capsys, com
     import explorer.report
 
     folder, result = flag_case
-    monkeypatch.setattr(explorer.analysis, "analyse", lambda spec, **kw: result)  # no connection is ever made
+    monkeypatch.setattr(explorer.analysis, "analyse", lambda spec, *cohort, **kw: result)  # no connection is ever made
     monkeypatch.setattr(explorer.report, "render_report", lambda r: "<html>the report</html>")
     inputs = {p: p.read_bytes() for p in (folder / "spec.toml", folder / "cohort.csv")}
     argv = [command, str(folder / "spec.toml")]

@@ -1,8 +1,6 @@
 """Per-arm outcome models behind one protocol (base.Fitted); `fit_model` picks the model for an outcome."""
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 from ..errors import FulcrumError
@@ -13,7 +11,7 @@ from .glm import LinearFit, LogisticFit
 from .ordinal import OrdinalFit
 from .weibull import WeibullFit
 
-__all__ = ["fit_model", "is_probability", "measure_range", "Basis", "Fitted", "OutcomeData", "CoxFit", "WeibullFit", "OrdinalFit", "LogisticFit",
+__all__ = ["fit_model", "Basis", "Fitted", "OutcomeData", "CoxFit", "WeibullFit", "OrdinalFit", "LogisticFit",
            "LinearFit"]
 
 
@@ -47,18 +45,3 @@ def fit_model(outcome: OutcomeSpec, arm: str, basis: Basis, data: OutcomeData, s
     raise FulcrumError(f"outcome '{outcome.name}' has an unknown kind '{kind}'.", key=f"outcomes '{outcome.name}'",
                        hint="Use continuous, binary, ordinal or survival.")
 
-
-def is_probability(outcome: OutcomeSpec) -> bool:
-    """Whether the outcome's measure is a probability (survival at a horizon, P(favourable), P(event))."""
-    return outcome.kind in ("binary", "ordinal") or (outcome.kind == "survival" and outcome.measure != "rmst")
-
-
-def measure_range(outcome: OutcomeSpec) -> tuple[float, float]:
-    """The range the measure can take: probabilities [0, 1], RMST [0, horizon], bounded outcomes their bounds."""
-    if is_probability(outcome):
-        return 0.0, 1.0
-    if outcome.kind == "survival":
-        return 0.0, float(outcome.horizon)
-    if outcome.bounds is not None:
-        return float(outcome.bounds[0]), float(outcome.bounds[1])
-    return -math.inf, math.inf

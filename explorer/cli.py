@@ -185,9 +185,11 @@ def cmd_plan(args: argparse.Namespace) -> int:
     from . import results as res
     from .analysis import fit_all
     from .planner import Target, plan_study
+    from .outputs import input_paths
     from .spec import load_spec
 
     spec = load_spec(args.spec)
+    json_out = args.plan.inputs_from(args.spec, *input_paths(spec)).add("--json", args.json)
     index = args.index or spec.indices[0].name
     at = None
     if args.at:
@@ -215,11 +217,10 @@ def cmd_plan(args: argparse.Namespace) -> int:
         raise FulcrumError("--sizes should be numbers of new patients of at least 10.", key="--sizes",
                            hint="For example --sizes 200 500 1000.")
     target = Target(width=args.target_width, chance=args.target_chance, at=at)
-    fs = fit_all(spec)
+    fs = fit_all(spec, _load(spec, args))
     bar = None if args.quiet else ProgressBar("simulated studies")
     doc = plan_study(fs, outcome, index, target, sizes=args.sizes, simulations=args.simulations, progress=bar)
-    if args.json:
-        res.write(doc, args.json)
+    args.plan.write(json_out, res.dumps(doc) + "\n" if json_out else None)
     if not args.quiet:
         print(plan_table(doc))
     return 0
@@ -411,6 +412,8 @@ def build_parser() -> argparse.ArgumentParser:
     pl.add_argument("--simulations", type=int, help="simulated studies per strategy and size (default 200)")
     pl.add_argument("--json", metavar="OUT", help="write the plan document here")
     pl.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    pl.add_argument("--allow-connect", action="store_true",
+                    help="allow reading the cohort from the database server the spec names (never by default)")
     pl.set_defaults(func=cmd_plan)
 
     c = sub.add_parser("check-methods", add_help=False,

@@ -31,8 +31,8 @@ def _rows() -> tuple[dict, ...]:
 def measured(kind: str, method: str, n: int) -> dict | None:
     """The simulation row for this scenario kind and interval method at the simulated size nearest n (on the
     log scale), or None when that pair was never simulated. kind: continuous, binary, ordinal, survival,
-    composite or one of CURVED; method: fieller, delta, test-inversion or bootstrap-percentile (where several resample counts
-    were run, the largest, closest to the tool's own default)."""
+    composite or one of CURVED; method: fieller, delta, test-inversion or bootstrap-percentile (where several
+    resample counts were run, the largest, closest to the tool's own default)."""
     rows = [r for r in _rows() if r["scenario"] == kind and r["method"] == method]
     if not rows or not n or n <= 0:
         return None

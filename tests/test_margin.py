@@ -216,7 +216,8 @@ def test_spline_interval_is_open_where_the_bootstrap_is(tmp_path, pbc):
         assert b.interval_shape != "finite"  # the bootstrap is open
         assert a.interval == "test-inversion" and a.interval_shape != "finite"
     delta = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, curved_interval="delta"))
-    assert all(b.interval == "delta" and b.interval_shape == "finite" for b in an.analytic_summary(pf, delta).break_even)
+    narrow = an.analytic_summary(pf, delta).break_even  # the labelled alternative: finite where nothing is pinned
+    assert all(b.interval == "delta" and b.interval_shape == "finite" for b in narrow)
 
 
 # ---- coverage labels -------------------------------------------------------------------------------------
@@ -255,3 +256,15 @@ def test_pooled_imputation_interval_inverts_the_pooled_band():
     half = float(np.sqrt(pooled.total[0]) * stats.t.ppf(0.975, pooled.df[0]))
     assert b["interval"] == "rubin-test-inversion" and b["x"] == pytest.approx(2.5, abs=1e-9)
     assert b["ci"] == pytest.approx([(0.25 - half) / 0.1, (0.25 + half) / 0.1], abs=1e-6)
+
+
+def test_spline_break_evens_carry_their_measured_coverage(tmp_path, birthwt):
+    """The packaged coverage rows (docs/validation.md, scenario 'binary spline') label a spline analysis."""
+    spec = _spec(tmp_path, birthwt, LOW.format(extra="", analysis='shape = "spline"'), '"smoker", "non-smoker"')
+    rows = an.analyse(spec).document["results"]
+    labelled = [b for r in rows for b in r["break_even"]]
+    assert labelled and all(b["interval"] == "test-inversion" for b in labelled)
+    row = coverage.measured("binary spline", "test-inversion", 189)
+    assert all(b["coverage"] == row["coverage"] and b["coverage_n"] == row["n"] for b in labelled)
+    big = coverage.measured("binary spline", "test-inversion", 1000)
+    assert big["n"] == 1000 and coverage.TARGET[0] <= big["coverage"] <= coverage.TARGET[1]  # 95.2% measured

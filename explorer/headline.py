@@ -32,7 +32,9 @@ def _words(bes: list[dict] | None) -> str:
 
 
 def chosen_differ(sel_rows: list[dict], alpha: float) -> list[str]:
-    """Reasons the selection analysis gives for chosen patients differing (any arm), empty when none."""
+    """Reasons the selection analysis gives for chosen patients differing (any arm), empty when none: a selection
+    effect, or one changing along the index, at the analysis level (both analytic, so the app and the command
+    line agree whatever the shift's interval)."""
     out = []
     for r in sel_rows:
         if r.get("p_value") is not None and r["p_value"] < alpha:
@@ -41,10 +43,6 @@ def chosen_differ(sel_rows: list[dict], alpha: float) -> list[str]:
         if r.get("varies_with_index_p") is not None and r["varies_with_index_p"] < alpha:
             out.append(f"in {r['arm']} the selection effect changes along the index (p = "
                        f"{r['varies_with_index_p']:.2g})")
-    lo, hi = sel_rows[0].get("shift_ci", [None, None]) if sel_rows else (None, None)
-    if lo is not None and hi is not None and (lo > 0 or hi < 0):
-        out.append(f"the all-patient break-even lies {sel_rows[0]['shift']:+.3g} from the randomised-only one "
-                   f"(interval {lo:.3g} to {hi:.3g})")
     return list(dict.fromkeys(out))
 
 

@@ -54,16 +54,18 @@ def annotate(fs: an.FitSet, rows: list[dict], selection: list[dict]) -> None:
         sel = [r for r in selection if r["outcome"] == row["outcome"] and r["index"] == row["index"]]
         why = chosen_differ(sel, alpha)
         pop = row.get("population", "all")
+        where = (f"{fs.spec.outcome(row['outcome']).title} along "
+                 f"{fs.indices[row['index']].info.get('label', row['index'])}")
         if sel and why:
             if pop == "randomised":
                 row["warnings"].append(
-                    f"Chosen patients differ from randomised ones for this outcome ({'; '.join(why)}). The headline "
+                    f"{where}: chosen patients differ from randomised ones ({'; '.join(why)}). The headline "
                     "rests on randomised patients only; all patients pooled would give "
                     f"{_words(sel[0]['all_break_even'])}, which chosen patients' differences may bias.")
             else:
                 row["randomised_break_even"] = sel[0]["randomised_break_even"]
                 row["warnings"].append(
-                    f"Chosen patients differ from randomised ones for this outcome ({'; '.join(why)}), and this "
+                    f"{where}: chosen patients differ from randomised ones ({'; '.join(why)}), and this "
                     f"headline rests on {_population_words(fs)}. Randomised patients only give "
                     f"{_words(sel[0]['randomised_break_even'])}; read the two together.")
         far = fs.indices[row["index"]].info.get("far_out_rows")

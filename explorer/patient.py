@@ -705,7 +705,8 @@ def _death_sources(fs: FitSet, preds: list[Prediction]) -> list[str]:
             continue
         each = " ".join(f"{arm}: {a} in 100 from {ps.title}, {b} in 100 from {pf.title}." for arm, a, b in pairs)
         out.append(f"Deaths by {horizon_words(ps.horizon, ps.units)} (along {ps.index}) come from two models. {each} "
-                   f"Use the first for death: it uses all follow-up, and the survival-with-function value takes death from it. "
+                   "Use the first for death: it uses all follow-up, and the survival-with-function value takes "
+                   "death from it. "
                    f"The second is a separate model of the state at one time, so it can differ a little.")
     return out
 

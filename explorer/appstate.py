@@ -341,7 +341,7 @@ def indices_from_rows(rows: list[dict], base: Spec | None = None, keep_prognosti
                 table[key] = str(row[key]).strip()
         source = "column" if "column" in table else "formula" if "formula" in table else None
         if old.get(source) == table.get(source):
-            for key in ("units", "discrete"):
+            for key in ("units", "discrete", "bounds"):  # keys the table does not show
                 if key in old:
                     table[key] = old[key]
         out.append(table)
@@ -632,7 +632,8 @@ class Workspace:
                 fs = dataclasses.replace(fs, spec=_interval(self.spec, "bootstrap"))
             summaries = summarise(fs, self._reps(boot))
             rows = [res.curve_row(fs.pairs[k], s, res.index_info_json(fs.indices[k[1]])) for k, s in summaries.items()]
-            annotate(fs, rows, self.selection().rows if self.has_selection(0) else [])  # far-out values, selection
+            chosen = self.spec.cohort.allocation and fs.cohort.randomised is not None
+            annotate(fs, rows, self.selection().rows if chosen else [])  # as analyse(): selection, far-out values
             return label_results(rows, fs.spec)
 
         return self._cached(("rows", *result_key(self.data_sha256, self.spec, boot)), make)

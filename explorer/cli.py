@@ -292,9 +292,12 @@ def cmd_validate(args: argparse.Namespace) -> int:
 
     spec = load_spec(args.spec)
     cohort = _load(spec, args)
+    from .numeric import captured
+
     warnings = say_warnings(spec) + list(cohort.warnings)
-    for ix in spec.indices:
-        warnings.extend(compute_index(ix, cohort.frame, spec=spec).warnings)
+    with captured(warnings, "computing the indices"):
+        for ix in spec.indices:
+            warnings.extend(compute_index(ix, cohort.frame, spec=spec).warnings)
     print(f"{printable(cohort.name)}: {len(cohort.frame)} patients, sha256 {cohort.sha256[:12]}...")
     print(cohort.counts().to_string())
     for n in cohort.notes:

@@ -32,7 +32,9 @@ def _words(bes: list[dict] | None) -> str:
 
 
 def chosen_differ(sel_rows: list[dict], alpha: float) -> list[str]:
-    """Reasons the selection analysis gives for chosen patients differing (any arm), empty when none."""
+    """Reasons the selection analysis gives for chosen patients differing (any arm), empty when none: a selection
+    effect, or one changing along the index, at the analysis level (both analytic, so the app and the command
+    line agree whatever the shift's interval)."""
     out = []
     for r in sel_rows:
         if r.get("p_value") is not None and r["p_value"] < alpha:
@@ -41,10 +43,6 @@ def chosen_differ(sel_rows: list[dict], alpha: float) -> list[str]:
         if r.get("varies_with_index_p") is not None and r["varies_with_index_p"] < alpha:
             out.append(f"in {r['arm']} the selection effect changes along the index (p = "
                        f"{r['varies_with_index_p']:.2g})")
-    lo, hi = sel_rows[0].get("shift_ci", [None, None]) if sel_rows else (None, None)
-    if lo is not None and hi is not None and (lo > 0 or hi < 0):
-        out.append(f"the all-patient break-even lies {sel_rows[0]['shift']:+.3g} from the randomised-only one "
-                   f"(interval {lo:.3g} to {hi:.3g})")
     return list(dict.fromkeys(out))
 
 
@@ -56,16 +54,18 @@ def annotate(fs: an.FitSet, rows: list[dict], selection: list[dict]) -> None:
         sel = [r for r in selection if r["outcome"] == row["outcome"] and r["index"] == row["index"]]
         why = chosen_differ(sel, alpha)
         pop = row.get("population", "all")
+        where = (f"{fs.spec.outcome(row['outcome']).title} along "
+                 f"{fs.indices[row['index']].info.get('label', row['index'])}")
         if sel and why:
             if pop == "randomised":
                 row["warnings"].append(
-                    f"Chosen patients differ from randomised ones for this outcome ({'; '.join(why)}). The headline "
+                    f"{where}: chosen patients differ from randomised ones ({'; '.join(why)}). The headline "
                     "rests on randomised patients only; all patients pooled would give "
                     f"{_words(sel[0]['all_break_even'])}, which chosen patients' differences may bias.")
             else:
                 row["randomised_break_even"] = sel[0]["randomised_break_even"]
                 row["warnings"].append(
-                    f"Chosen patients differ from randomised ones for this outcome ({'; '.join(why)}), and this "
+                    f"{where}: chosen patients differ from randomised ones ({'; '.join(why)}), and this "
                     f"headline rests on {_population_words(fs)}. Randomised patients only give "
                     f"{_words(sel[0]['randomised_break_even'])}; read the two together.")
         far = fs.indices[row["index"]].info.get("far_out_rows")

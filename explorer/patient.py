@@ -688,10 +688,10 @@ def _disagreements(fs: FitSet, preds: list[Prediction], placements: dict[str, Pl
         mine = [p for p in preds if p.outcome == o.name]
         said = {(p.clear, p.favours if p.clear else None) for p in mine}
         if len(mine) > 1 and len(said) > 1:
-            each = "; ".join(f"along {placements[p.index].label}, "
-                             + (f"{p.favours} clearly ahead" if p.clear else "neither clearly ahead") for p in mine)
-            out.append(f"The indices disagree for this patient on {o.title}: {each}. Each index orders patients "
-                       "differently; read both, and the one nearer the clinical question first.")
+            each = " ".join(f"Along {placements[p.index].label}: "
+                            + (f"{p.favours} is clearly ahead." if p.clear else "neither is clearly ahead.") for p in mine)
+            out.append(f"The indices disagree for this patient on {o.title}. {each} Each index sorts patients in "
+                       "its own way, so read both.")
     return out
 
 
@@ -711,13 +711,11 @@ def _death_sources(fs: FitSet, preds: list[Prediction]) -> list[str]:
                  for arm in fs.spec.cohort.arms]
         if all(b is None or a == b for _, a, b in pairs):
             continue
-        each = "; ".join(f"{arm}: {a} in 100 from the survival model, {b} in 100 from the {pf.title} model"
-                         for arm, a, b in pairs)
-        out.append(f"Deaths by {horizon_words(ps.horizon, ps.units)} along {ps.index} ({each}). The survival model "
-                   f"({ps.title}) is the source for death: it uses every patient's follow-up, and the composite "
-                   f"takes death from it, with the {pf.title} model describing survivors. The '{last}' level of "
-                   f"{pf.title} comes from a separate proportional-odds model of the state at one time, so the two "
-                   "differ by model error.")
+        each = " ".join(f"{arm}: {a} in 100 from {ps.title}, {b} in 100 from {pf.title}." for arm, a, b in pairs)
+        out.append(f"Deaths by {horizon_words(ps.horizon, ps.units)} (along {ps.index}) come from two models. {each} "
+                   "Use the first for death: it uses all follow-up, and the survival-with-function value takes "
+                   "death from it. "
+                   f"The second is a separate model of the state at one time, so it can differ a little.")
     return out
 
 

@@ -83,7 +83,7 @@ def resolve(spec: Spec, cohort: Cohort) -> Population:
                               "prognosis, which adjustment and weighting cannot", keep=rand)
         few = (f"too few randomised patients for the headline ({', '.join(f'{n} {a}' for a, n in counts.items())}; "
                f"at least {MIN_RANDOMISED} per arm are needed)")
-        if covs and spec.analysis.interval == "analytic":
+        if covs:
             asked, chosen_by, why = "all_weighted", "default", few
         else:
             return Population("all", "default", few, warnings=[
@@ -131,5 +131,7 @@ def resolve(spec: Spec, cohort: Cohort) -> Population:
     if left:
         notes.append(f"Weighted headline: {left} patients with missing selection covariates are left out.")
     notes.append("Weighting balances only the measured covariates (" + ", ".join(covs) + "); it cannot remove "
-                 "differences in anything unmeasured.")
+                 "differences in anything unmeasured. Bootstrap intervals hold the weights fixed rather than refit "
+                 "the propensity model in each replicate, which tends to make them wider than needed (Lunceford & "
+                 "Davidian, Stat Med 2004).")
     return Population("all_weighted", chosen_by, why, keep=complete, weights=weights, warnings=notes)

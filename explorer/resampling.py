@@ -34,7 +34,8 @@ class ArmArrays:
     def of(cls, data: OutcomeData, rows: np.ndarray, n_cohort: int) -> "ArmArrays":
         where = np.full(n_cohort, -1, dtype=np.int64)
         where[rows] = np.arange(len(rows))
-        return cls(OutcomeData(data.x, data.y, data.time, data.event, data.z, data.z_names), where)
+        return cls(OutcomeData(data.x, data.y, data.time, data.event, data.z, data.z_names, weights=data.weights),
+                   where)
 
     def positions(self, drawn: np.ndarray) -> np.ndarray:
         """Positions of the drawn cohort rows that are complete cases here, duplicates and order kept."""
@@ -61,7 +62,8 @@ def refit_arms(outcome: OutcomeSpec, basis: Basis, arrays: dict[str, ArmArrays],
             raise FulcrumError(f"no {arm} patients were drawn for outcome '{outcome.name}'.")
         d = a.data
         sub = OutcomeData(*(None if v is None else v[pos[arm]] for v in (d.x, d.y, d.time, d.event, d.z)),
-                          z_names=d.z_names, z_ref=z_ref)
+                          z_names=d.z_names, z_ref=z_ref,
+                          weights=None if d.weights is None else d.weights[pos[arm]])  # fixed weights (headline)
         if x is not None:
             sub.x = x[a.rows(drawn[arm])]
         fits[arm] = fit_model(outcome, arm, basis, sub, start=starts.get(arm), robust=False, checks=False)

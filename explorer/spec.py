@@ -689,9 +689,6 @@ def _population_needs(a: AnalysisSpec, cohort: CohortSpec, selection: Any, sourc
         what = "cohort.allocation" if a.population == "randomised" else "selection.covariates"
         raise FulcrumError(f"'analysis.population = \"{a.population}\"' needs {what}.", file=source,
                            key="analysis.population", hint=f"Set {what}, or population = \"all\".")
-    if a.population == "all_weighted" and a.interval == "bootstrap":
-        raise FulcrumError("'analysis.population = \"all_weighted\"' has analytic (sandwich) intervals only.",
-                           file=source, key="analysis.population", hint='Use interval = "analytic" with it.')
 
 
 def _values(raw: Any, outcomes: dict[str, OutcomeSpec], source: str | None) -> ValuesSpec:

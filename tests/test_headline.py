@@ -160,7 +160,7 @@ def test_a_pooled_headline_carries_the_randomised_break_even_where_chosen_patien
     sel = next(r for r in res.document["selection"] if r["outcome"] == "function")
     assert sel["varies_with_index_p"] < 0.05 or sel["p_value"] < 0.05
     assert row["randomised_break_even"] == sel["randomised_break_even"]
-    assert any("Chosen patients differ" in w and "Randomised patients only give" in w for w in row["warnings"])
+    assert any("chosen patients differ" in w and "Randomised patients only give" in w for w in row["warnings"])
 
 
 BINARY = """\

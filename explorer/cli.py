@@ -270,8 +270,10 @@ def main(argv: list[str] | None = None) -> int:
     except BrokenPipeError:
         # the reader of our output has gone (e.g. `| head -1`): stop quietly, and keep Python from
         # complaining when it flushes stdout at exit
-        devnull = os.open(os.devnull, os.O_WRONLY)
-        os.dup2(devnull, sys.stdout.fileno())
+        try:
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        except (OSError, AttributeError, ValueError):  # a stdout without a file behind it: nothing to flush
+            pass
         return 0
     except FulcrumError as exc:
         if args.debug:

@@ -19,7 +19,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from .errors import FulcrumError, nfc, printable
-from .intake import check_archive, hidden_rows, nfc_series, read_file
+from .intake import check_archive, drop_trailing_empty, hidden_rows, nfc_series, number_hint, read_file
 from .spec import OutcomeSpec, Spec
 
 FORMATS = (".csv", ".tsv", ".xlsx", ".parquet")
@@ -167,28 +167,11 @@ def _read(data: bytes, name: str, shown: str, sheet: str | None, roles: dict[str
         notes.append(f"cohort.sheet = '{_cut(sheet)}' was ignored: a {ext} file has no sheets.")
     header, read = _open(data, ext, shown, sheet, notes)
     _check_header(header, roles, shown)
-    raw = _drop_trailing_empty(read(set(roles) or {h for h in header if h}, numeric), notes)
+    raw = drop_trailing_empty(read(set(roles) or {h for h in header if h}, numeric), notes)
     if not raw or not len(next(iter(raw.values()))):
         raise FulcrumError("the file has column names but no data rows.", file=shown,
                            hint="Add one row per patient under the header.")
     return header, raw
-
-
-def _drop_trailing_empty(raw: Raw, notes: list[str]) -> Raw:
-    """Rows at the end with every read cell empty (',,,,' lines, formatted but empty spreadsheet rows) are not
-    patients: they are left out with a note. Empty rows among the patients stay, so row numbers keep counting."""
-    if not raw:
-        return raw
-    n = len(next(iter(raw.values())))
-    filled = np.zeros(n, bool)
-    for s in raw.values():
-        filled |= s.notna().to_numpy()
-    last = int(np.flatnonzero(filled)[-1]) + 1 if filled.any() else 0
-    if last == n:
-        return raw
-    notes.append(f"{n - last} empty row(s) at the end of the file (data rows {last + 1} to {n}) are not patients "
-                 "and were left out.")
-    return {h: s.iloc[:last].reset_index(drop=True) for h, s in raw.items()}
 
 
 def _open(data: bytes, ext: str, file: str, sheet: str | None, notes: list[str]) -> tuple[list[str], Opener]:
@@ -567,7 +550,7 @@ class _Checker:
         offenders = ", ".join(f"'{_cut(v)}'" for v in dict.fromkeys(s[bad].head(5)))
         raise self.fail(f"{bad.sum()} entr{'y is' if bad.sum() == 1 else 'ies are'} not numbers: {offenders}"
                         + (" (an index must be numbers)." if self.is_index(col) else "."), col, bad,
-                        hint=_number_hint(s[bad], self.is_index(col)))
+                        hint=number_hint(s[bad], self.is_index(col)))
 
     def is_index(self, col: str) -> bool:
         return any(r == "index" for r, _ in self.roles[col])
@@ -683,20 +666,6 @@ class _Checker:
             self.warnings.append(f"no patient is marked '{marker}' in column '{col}', so every patient counts as "
                                  "chosen and randomised-only analyses are not possible.")
         return is_rand
-
-
-def _number_hint(bad: pd.Series, index: bool) -> str:
-    """What to do about cells that are not numbers: thousands separators, decimal commas, text in an index."""
-    if bad.str.fullmatch(r"[+-]?\d{1,3}(,\d{3})+(\.\d+)?").any():
-        example = bad[bad.str.fullmatch(r"[+-]?\d{1,3}(,\d{3})+(\.\d+)?")].iloc[0]
-        return (f"'{_cut(example)}' looks like a number with a thousands separator: write it without one "
-                f"({_cut(example.replace(',', ''))}). Only if the comma is a decimal mark, use a point instead.")
-    if bad.str.fullmatch(r"[+-]?\d+,\d+").any():
-        return "Use a point as the decimal mark (2.5, not 2,5)."
-    if index:
-        return ("An index orders patients by a number (a score, an age): enter numbers only (code categories as "
-                "numbers), leave a cell empty when the value is missing, or name a numeric column as the index.")
-    return "Enter numbers only; leave a cell empty when the value is missing."
 
 
 def _build(spec: Spec, raw: Raw, roles: dict[str, list[tuple[str, str]]], path: Path | None, name: str,

@@ -248,13 +248,15 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "margin": ("float", "The smallest difference worth having (default 0)."),
         "level": ("float", "Interval level (default 0.95)."),
         "interval": ("str", "analytic | bootstrap."),
-        "replicates": ("int", "Bootstrap replicates, 20 to 100,000 (default 1000; 1000 or more for reported intervals)."),
+        "replicates": ("int", "Bootstrap replicates, 20 to 100,000 (default 1000; 1000 or more for reported "
+                              "intervals)."),
         "seed": ("int", "Seed for every random step, a whole number from 0 (default 1)."),
         "shape": ("str", "linear | spline (restricted cubic spline in the index)."),
         "knots": ("int", "Spline knots, 3 to 5 (default 4)."),
         "bands": ("str", "pointwise | simultaneous: which band the clear-difference regions use."),
-        "workers": ("int", "Parallel workers for the bootstrap (default 1; -1 = one per core); never more than the machine's "
-                              "cores, with a warning. A Dask cluster is named on the command line only (--scheduler)."),
+        "workers": ("int", "Parallel workers for the bootstrap (default 1; -1 = one per core); never more than the "
+                           "machine's cores, with a warning. A Dask cluster is named on the command line only "
+                           "(--scheduler)."),
         "refit_index": ("bool", "Refit a prognostic index in each bootstrap replicate; not available yet, so only "
                                 "false is accepted (the bootstrap holds the index fixed and says so)."),
         "grid": ("int", "Points along the index for curves (default 200)."),

@@ -761,7 +761,8 @@ def test_replicates_in_the_spec_and_in_the_app_give_the_same_words(write_case, t
     assert "'analysis.replicates' is 1, outside 20 to 100,000" in str(err)
 
 
-@pytest.mark.parametrize("line,words", [("seed = -1", "'analysis.seed' is -1; it must be 0 or more"), ("workers = 0", "'analysis.workers' is 0"),
+@pytest.mark.parametrize("line,words", [("seed = -1", "'analysis.seed' is -1; it must be 0 or more"),
+                                        ("workers = 0", "'analysis.workers' is 0"),
                                         ("workers = -2", "'analysis.workers' is -2")])
 def test_negative_seeds_and_impossible_workers_fail_validate(write_case, text, tmp_path, capsys, line, words):
     write_case(text, SMALL)

@@ -723,6 +723,25 @@ def test_a_failure_after_the_first_output_says_what_was_written(case, capsys, mo
     assert not (tmp_path / "r.html").exists()
 
 
+def test_a_run_stopped_during_the_analysis_says_nothing_was_written(case, capsys, monkeypatch, tmp_path):
+    import explorer.analysis
+
+    spec, _, _ = case
+
+    def stopped(*a, **k):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(explorer.analysis, "analyse", stopped)
+    code, _, err = cli(["analyse", spec, "--json", tmp_path / "r.json"], capsys)
+    assert code == 130 and "stopped. Nothing was written." in err and not (tmp_path / "r.json").exists()
+
+
+def test_a_spec_path_that_is_a_fifo_is_named_and_not_read(tmp_path, capsys):
+    os.mkfifo(tmp_path / "spec.toml")
+    code, _, err = cli(["validate", tmp_path / "spec.toml"], capsys)  # returns at once: nothing waits on the pipe
+    assert code == 2 and "the spec path is a named pipe (FIFO)" in err
+
+
 def test_a_closed_pipe_ends_quietly(case, capsys, monkeypatch):
     """`fulcrum validate spec.toml | head -1`: the reader goes away; no traceback, no complaint."""
     import sys

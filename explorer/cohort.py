@@ -139,9 +139,12 @@ def load_cohort(spec: Spec, *, data: bytes | None = None, filename: str | None =
     roles = column_roles(spec, extra_columns)
     numeric = {col for col, rs in roles.items() if not {r for r, _ in rs} & set(TEXT_ROLES)}
     notes: list[str] = []
-    header, raw = _read(data, name, shown, spec.cohort.sheet, roles, numeric, notes)
+    sheet = spec.cohort.sheet
+    odd = [] if sheet is None or name.lower().endswith(".xlsx") else \
+        [f"cohort.sheet = '{_cut(sheet)}' was ignored: a {Path(name).suffix or 'text'} file has no sheets."]
+    header, raw = _read(data, name, shown, sheet, roles, numeric, notes)
     raw = {h: raw[h] for h in header if h in roles}
-    return _build(spec, raw, roles, path, name, shown, hashlib.sha256(data).hexdigest(), notes)
+    return _build(spec, raw, roles, path, name, shown, hashlib.sha256(data).hexdigest(), notes, odd)
 
 
 def read_table(data: bytes, filename: str, sheet: str | None = None) -> pd.DataFrame:
@@ -163,8 +166,6 @@ def _read(data: bytes, name: str, shown: str, sheet: str | None, roles: dict[str
     if not data:
         raise FulcrumError("the file is empty (0 bytes).", file=shown, hint="Check that the file was saved or "
                            "uploaded completely.")
-    if sheet is not None and ext != ".xlsx":
-        notes.append(f"cohort.sheet = '{_cut(sheet)}' was ignored: a {ext} file has no sheets.")
     header, read = _open(data, ext, shown, sheet, notes)
     _check_header(header, roles, shown)
     raw = drop_trailing_empty(read(set(roles) or {h for h in header if h}, numeric), notes)
@@ -669,9 +670,10 @@ class _Checker:
 
 
 def _build(spec: Spec, raw: Raw, roles: dict[str, list[tuple[str, str]]], path: Path | None, name: str,
-           file: str, sha: str, notes: Sequence[str] = ()) -> Cohort:
+           file: str, sha: str, notes: Sequence[str] = (), warnings: Sequence[str] = ()) -> Cohort:
     chk = _Checker(spec, raw, roles, file)
     chk.notes.extend(notes)
+    chk.warnings.extend(warnings)
     c = spec.cohort
     frame = pd.DataFrame({col: chk.column(col) for col in raw}, copy=False)  # the columns are new: no copy
     missing = {col: int(frame[col].isna().sum()) for col in frame.columns}

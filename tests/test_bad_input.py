@@ -955,9 +955,9 @@ def test_hidden_spreadsheet_rows_are_noted(write_case, text, tmp_path):
     assert any("2 row(s) of the sheet are hidden" in n and "spreadsheet rows 5, 9" in n for n in cohort.notes)
 
 
-def test_a_sheet_named_for_a_csv_is_noted(write_case, text):
+def test_a_sheet_named_for_a_csv_is_warned_about(write_case, text):
     cohort = load_cohort(write_case(text, SMALL.replace('arm = "arm"', 'arm = "arm"\nsheet = "cohort"')))
-    assert any("cohort.sheet = 'cohort' was ignored" in n for n in cohort.notes)
+    assert any("cohort.sheet = 'cohort' was ignored: a .csv file has no sheets" in w for w in cohort.warnings)
 
 
 def test_csv_exports_keep_semicolon_cells_whole(text):

@@ -183,6 +183,9 @@ def streamlit_flags(address: str | None, port: int | None) -> list[str]:
 
 
 def cmd_app(args: argparse.Namespace) -> int:
+    if args.port is not None and not 1 <= args.port <= 65535:
+        raise FulcrumError(f"--port is {args.port}; a port is a number from 1 to 65535.",
+                           hint="For example --port 8501.")
     main_script = resources.files("explorer.app_pages").joinpath("app.py")
     cmd = [sys.executable, "-m", "streamlit", "run", str(main_script), *streamlit_flags(args.address, args.port)]
     if args.spec:

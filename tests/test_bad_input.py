@@ -813,6 +813,12 @@ def test_demo_settings_are_checked(tmp_path, capsys, argv, words):
     assert code == 2 and words in err and not (tmp_path / "d").exists()
 
 
+@pytest.mark.parametrize("port", ["0", "-1", "70000"])
+def test_an_impossible_app_port_is_refused_before_starting(capsys, port):
+    code, _, err = cli(["app", "--port", port], capsys)
+    assert code == 2 and f"--port is {port}" in err
+
+
 def test_demo_into_a_file_is_refused(tmp_path, capsys):
     (tmp_path / "taken").write_text("mine")
     code, _, err = cli(["demo", tmp_path / "taken", "--n", "40"], capsys)

@@ -339,6 +339,9 @@ def streamlit_flags(address: str | None, port: int | None) -> list[str]:
 
 
 def cmd_app(args: argparse.Namespace) -> int:
+    if args.port is not None and not 1 <= args.port <= 65535:
+        raise FulcrumError(f"--port is {args.port}; a port is a number from 1 to 65535.",
+                           hint="For example --port 8501.")
     main_script = resources.files("explorer.app_pages").joinpath("app.py")
     cmd = [sys.executable, "-m", "streamlit", "run", str(main_script), *streamlit_flags(args.address, args.port)]
     if args.spec:
@@ -454,8 +457,10 @@ def main(argv: list[str] | None = None) -> int:
     except BrokenPipeError:
         # the reader of our output has gone (e.g. `| head -1`): stop quietly, and keep Python from
         # complaining when it flushes stdout at exit
-        devnull = os.open(os.devnull, os.O_WRONLY)
-        os.dup2(devnull, sys.stdout.fileno())
+        try:
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        except (OSError, AttributeError, ValueError):  # a stdout without a file behind it: nothing to flush
+            pass
         return 0
     except FulcrumError as exc:
         if args.debug:

@@ -19,7 +19,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from .errors import FulcrumError, nfc, printable
-from .intake import check_archive, hidden_rows, nfc_series, read_file
+from .intake import check_archive, drop_trailing_empty, hidden_rows, nfc_series, number_hint, read_file
 from .spec import OutcomeSpec, Spec
 
 FORMATS = (".csv", ".tsv", ".xlsx", ".parquet")
@@ -143,9 +143,12 @@ def load_cohort(spec: Spec, *, data: bytes | None = None, filename: str | None =
     roles = column_roles(spec, extra_columns)
     numeric = {col for col, rs in roles.items() if not {r for r, _ in rs} & set(TEXT_ROLES)}
     notes: list[str] = []
-    header, raw = _read(data, name, shown, spec.cohort.sheet, roles, numeric, notes)
+    sheet = spec.cohort.sheet
+    odd = [] if sheet is None or name.lower().endswith(".xlsx") else \
+        [f"cohort.sheet = '{_cut(sheet)}' was ignored: a {Path(name).suffix or 'text'} file has no sheets."]
+    header, raw = _read(data, name, shown, sheet, roles, numeric, notes)
     raw = {h: raw[h] for h in header if h in roles}
-    return _build(spec, raw, roles, path, name, shown, hashlib.sha256(data).hexdigest(), notes)
+    return _build(spec, raw, roles, path, name, shown, hashlib.sha256(data).hexdigest(), notes, odd)
 
 
 def _load_database(spec: Spec, extra_columns: Sequence[str], allow_connect: bool) -> Cohort:
@@ -182,32 +185,13 @@ def _read(data: bytes, name: str, shown: str, sheet: str | None, roles: dict[str
     if not data:
         raise FulcrumError("the file is empty (0 bytes).", file=shown, hint="Check that the file was saved or "
                            "uploaded completely.")
-    if sheet is not None and ext != ".xlsx":
-        notes.append(f"cohort.sheet = '{_cut(sheet)}' was ignored: a {ext} file has no sheets.")
     header, read = _open(data, ext, shown, sheet, notes)
     _check_header(header, roles, shown)
-    raw = _drop_trailing_empty(read(set(roles) or {h for h in header if h}, numeric), notes)
+    raw = drop_trailing_empty(read(set(roles) or {h for h in header if h}, numeric), notes)
     if not raw or not len(next(iter(raw.values()))):
         raise FulcrumError("the file has column names but no data rows.", file=shown,
                            hint="Add one row per patient under the header.")
     return header, raw
-
-
-def _drop_trailing_empty(raw: Raw, notes: list[str]) -> Raw:
-    """Rows at the end with every read cell empty (',,,,' lines, formatted but empty spreadsheet rows) are not
-    patients: they are left out with a note. Empty rows among the patients stay, so row numbers keep counting."""
-    if not raw:
-        return raw
-    n = len(next(iter(raw.values())))
-    filled = np.zeros(n, bool)
-    for s in raw.values():
-        filled |= s.notna().to_numpy()
-    last = int(np.flatnonzero(filled)[-1]) + 1 if filled.any() else 0
-    if last == n:
-        return raw
-    notes.append(f"{n - last} empty row(s) at the end of the file (data rows {last + 1} to {n}) are not patients "
-                 "and were left out.")
-    return {h: s.iloc[:last].reset_index(drop=True) for h, s in raw.items()}
 
 
 def _open(data: bytes, ext: str, file: str, sheet: str | None, notes: list[str]) -> tuple[list[str], Opener]:
@@ -586,7 +570,7 @@ class _Checker:
         offenders = ", ".join(f"'{_cut(v)}'" for v in dict.fromkeys(s[bad].head(5)))
         raise self.fail(f"{bad.sum()} entr{'y is' if bad.sum() == 1 else 'ies are'} not numbers: {offenders}"
                         + (" (an index must be numbers)." if self.is_index(col) else "."), col, bad,
-                        hint=_number_hint(s[bad], self.is_index(col)))
+                        hint=number_hint(s[bad], self.is_index(col)))
 
     def is_index(self, col: str) -> bool:
         return any(r == "index" for r, _ in self.roles[col])
@@ -704,24 +688,11 @@ class _Checker:
         return is_rand
 
 
-def _number_hint(bad: pd.Series, index: bool) -> str:
-    """What to do about cells that are not numbers: thousands separators, decimal commas, text in an index."""
-    if bad.str.fullmatch(r"[+-]?\d{1,3}(,\d{3})+(\.\d+)?").any():
-        example = bad[bad.str.fullmatch(r"[+-]?\d{1,3}(,\d{3})+(\.\d+)?")].iloc[0]
-        return (f"'{_cut(example)}' looks like a number with a thousands separator: write it without one "
-                f"({_cut(example.replace(',', ''))}). Only if the comma is a decimal mark, use a point instead.")
-    if bad.str.fullmatch(r"[+-]?\d+,\d+").any():
-        return "Use a point as the decimal mark (2.5, not 2,5)."
-    if index:
-        return ("An index orders patients by a number (a score, an age): enter numbers only (code categories as "
-                "numbers), leave a cell empty when the value is missing, or name a numeric column as the index.")
-    return "Enter numbers only; leave a cell empty when the value is missing."
-
-
 def _build(spec: Spec, raw: Raw, roles: dict[str, list[tuple[str, str]]], path: Path | None, name: str,
-           file: str, sha: str, notes: Sequence[str] = ()) -> Cohort:
+           file: str, sha: str, notes: Sequence[str] = (), warnings: Sequence[str] = ()) -> Cohort:
     chk = _Checker(spec, raw, roles, file)
     chk.notes.extend(notes)
+    chk.warnings.extend(warnings)
     c = spec.cohort
     frame = pd.DataFrame({col: chk.column(col) for col in raw}, copy=False)  # the columns are new: no copy
     missing = {col: int(frame[col].isna().sum()) for col in frame.columns}

@@ -17,9 +17,10 @@ import zipfile
 from collections.abc import Iterator
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
-from .errors import FulcrumError
+from .errors import FulcrumError, printable
 
 MAX_UNPACKED_MB = 500
 MAX_ENTRIES = 10_000
@@ -156,3 +157,35 @@ def releasing_memory() -> Iterator[None]:
         yield
     finally:
         release_memory()
+
+
+def drop_trailing_empty(raw: dict[str, pd.Series], notes: list[str]) -> dict[str, pd.Series]:
+    """Rows at the end with every read cell empty (',,,,' lines, formatted but empty spreadsheet rows) are not
+    patients: they are left out with a note. Empty rows among the patients stay, so row numbers keep counting."""
+    if not raw:
+        return raw
+    n = len(next(iter(raw.values())))
+    filled = np.zeros(n, bool)
+    for s in raw.values():
+        filled |= s.notna().to_numpy()
+    last = int(np.flatnonzero(filled)[-1]) + 1 if filled.any() else 0
+    if last == n:
+        return raw
+    notes.append(f"{n - last} empty row(s) at the end of the file (data rows {last + 1} to {n}) are not patients "
+                 "and were left out.")
+    return {h: s.iloc[:last].reset_index(drop=True) for h, s in raw.items()}
+
+
+def number_hint(bad: pd.Series, index: bool) -> str:
+    """What to do about cells that are not numbers: thousands separators, decimal commas, text in an index."""
+    grouped = bad.str.fullmatch(r"[+-]?\d{1,3}(,\d{3})+(\.\d+)?")
+    if grouped.any():
+        example = printable(bad[grouped].iloc[0], 40)
+        return (f"'{example}' looks like a number with a thousands separator: write it without one "
+                f"({example.replace(',', '')}). Only if the comma is a decimal mark, use a point instead.")
+    if bad.str.fullmatch(r"[+-]?\d+,\d+").any():
+        return "Use a point as the decimal mark (2.5, not 2,5)."
+    if index:
+        return ("An index orders patients by a number (a score, an age): enter numbers only (code categories as "
+                "numbers), leave a cell empty when the value is missing, or name a numeric column as the index.")
+    return "Enter numbers only; leave a cell empty when the value is missing."

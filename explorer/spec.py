@@ -274,7 +274,8 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "curved_interval": ("str", "test-inversion | delta: break-even interval off a straight line (see methods)."),
         "level": ("float", "Interval level (default 0.95)."),
         "interval": ("str", "analytic | bootstrap."),
-        "replicates": ("int", "Bootstrap replicates, 20 to 100,000 (default 1000; 1000 or more for reported intervals)."),
+        "replicates": ("int", "Bootstrap replicates, 20 to 100,000 (default 1000; 1000 or more for reported "
+                              "intervals)."),
         "seed": ("int", "Seed for every random step, a whole number from 0 (default 1)."),
         "shape": ("str", "linear | spline (restricted cubic spline in the index)."),
         "knots": ("int", "Spline knots, 3 to 5 (default 4)."),

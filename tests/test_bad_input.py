@@ -727,6 +727,25 @@ def test_a_failure_after_the_first_output_says_what_was_written(case, capsys, mo
     assert not (tmp_path / "r.html").exists()
 
 
+def test_a_run_stopped_during_the_analysis_says_nothing_was_written(case, capsys, monkeypatch, tmp_path):
+    import explorer.analysis
+
+    spec, _, _ = case
+
+    def stopped(*a, **k):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(explorer.analysis, "analyse", stopped)
+    code, _, err = cli(["analyse", spec, "--json", tmp_path / "r.json"], capsys)
+    assert code == 130 and "stopped. Nothing was written." in err and not (tmp_path / "r.json").exists()
+
+
+def test_a_spec_path_that_is_a_fifo_is_named_and_not_read(tmp_path, capsys):
+    os.mkfifo(tmp_path / "spec.toml")
+    code, _, err = cli(["validate", tmp_path / "spec.toml"], capsys)  # returns at once: nothing waits on the pipe
+    assert code == 2 and "the spec path is a named pipe (FIFO)" in err
+
+
 def test_a_closed_pipe_ends_quietly(case, capsys, monkeypatch):
     """`fulcrum validate spec.toml | head -1`: the reader goes away; no traceback, no complaint."""
     import sys
@@ -765,7 +784,8 @@ def test_replicates_in_the_spec_and_in_the_app_give_the_same_words(write_case, t
     assert "'analysis.replicates' is 1, outside 20 to 100,000" in str(err)
 
 
-@pytest.mark.parametrize("line,words", [("seed = -1", "'analysis.seed' is -1; it must be 0 or more"), ("workers = 0", "'analysis.workers' is 0"),
+@pytest.mark.parametrize("line,words", [("seed = -1", "'analysis.seed' is -1; it must be 0 or more"),
+                                        ("workers = 0", "'analysis.workers' is 0"),
                                         ("workers = -2", "'analysis.workers' is -2")])
 def test_negative_seeds_and_impossible_workers_fail_validate(write_case, text, tmp_path, capsys, line, words):
     write_case(text, SMALL)
@@ -795,6 +815,12 @@ def test_workers_beyond_the_cores_are_capped_with_a_warning(write_case, text, tm
 def test_demo_settings_are_checked(tmp_path, capsys, argv, words):
     code, _, err = cli(["demo", tmp_path / "d", *argv], capsys)
     assert code == 2 and words in err and not (tmp_path / "d").exists()
+
+
+@pytest.mark.parametrize("port", ["0", "-1", "70000"])
+def test_an_impossible_app_port_is_refused_before_starting(capsys, port):
+    code, _, err = cli(["app", "--port", port], capsys)
+    assert code == 2 and f"--port is {port}" in err
 
 
 def test_demo_into_a_file_is_refused(tmp_path, capsys):
@@ -939,9 +965,9 @@ def test_hidden_spreadsheet_rows_are_noted(write_case, text, tmp_path):
     assert any("2 row(s) of the sheet are hidden" in n and "spreadsheet rows 5, 9" in n for n in cohort.notes)
 
 
-def test_a_sheet_named_for_a_csv_is_noted(write_case, text):
+def test_a_sheet_named_for_a_csv_is_warned_about(write_case, text):
     cohort = load_cohort(write_case(text, SMALL.replace('arm = "arm"', 'arm = "arm"\nsheet = "cohort"')))
-    assert any("cohort.sheet = 'cohort' was ignored" in n for n in cohort.notes)
+    assert any("cohort.sheet = 'cohort' was ignored: a .csv file has no sheets" in w for w in cohort.warnings)
 
 
 def test_csv_exports_keep_semicolon_cells_whole(text):

@@ -134,6 +134,15 @@ def cohort_source(reader: Any, base_dir: Path, file: str | None) -> dict[str, An
 
 def parse_url(url: str, base_dir: Path | str = ".", file: str | None = None) -> Source:
     """Check a database URL; a file's path is made absolute (relative ones against base_dir)."""
+    try:
+        return _parse_url(url, base_dir, file)
+    except ValueError as exc:  # urllib and pathlib refuse some malformed URLs and paths this way
+        raise FulcrumError(f"'cohort.database' could not be read as a URL ({_cut(str(exc), 60)}).", file=file,
+                           key="cohort.database", hint="For example duckdb:///registry.duckdb or "
+                           "postgresql://reader@host:5432/registry.") from None
+
+
+def _parse_url(url: str, base_dir: Path | str, file: str | None) -> Source:
     key = "cohort.database"
     scheme, sep, rest = url.partition("://")
     scheme = {"postgres": "postgresql"}.get(scheme.lower(), scheme.lower())
@@ -192,7 +201,7 @@ def table_expression(name: str, dialect: str, file: str | None = None):
         shape = [t.token_type in (TokenType.VAR, TokenType.IDENTIFIER) if i % 2 == 0 else t.token_type == TokenType.DOT
                  for i, t in enumerate(tokens)]
         table = exp.to_table(name, dialect=dialect) if shape and all(shape) and len(tokens) % 2 == 1 else None
-    except sqlglot.errors.SqlglotError:
+    except (sqlglot.errors.SqlglotError, RecursionError, ValueError):
         table = None
     if not isinstance(table, exp.Table) or table.alias or not _plain_table(table):
         raise FulcrumError(f"'cohort.table' should name a table or view, such as registry.cohort; found "
@@ -228,8 +237,8 @@ def check_query(sql: str, dialect: str, file: str | None = None):
         where = f" at line {err.get('line')}, column {err.get('col')}" if err.get("line") else ""
         raise refuse(f"could not be read as SQL{where}: {_cut(err.get('description') or str(exc), 120)}.",
                      "Check the SQL; Fulcrum reads one SELECT statement.") from None
-    except sqlglot.errors.SqlglotError as exc:
-        raise refuse(f"could not be read as SQL ({_cut(str(exc), 120)}).") from None
+    except (sqlglot.errors.SqlglotError, RecursionError, ValueError) as exc:
+        raise refuse(f"could not be read as SQL ({_cut(str(exc) or type(exc).__name__, 120)}).") from None
     if len(statements) != 1:
         raise refuse(f"holds {len(statements)} statements; only one SELECT is read.",
                      "Remove every statement but the SELECT (and any ; between them).")

@@ -468,3 +468,12 @@ def test_any_database_keys_give_a_located_message_or_a_spec(url, table, query, p
         parse_spec(data, base_dir="/nonexistent")
     except FulcrumError as exc:
         assert exc.key and exc.key.startswith("cohort.")
+
+
+def test_a_database_spec_uploaded_in_the_app_applies_to_the_loaded_cohort(demo_spec) -> None:
+    from explorer import appstate as aps
+
+    text = aps.spec_text(demo_spec).replace('path = "demo_cohort.csv"',
+                                            'database = "postgresql://reader@127.0.0.1:9/registry"\ntable = "t"')
+    spec, notes = aps.read_spec(text, demo_spec)
+    assert spec.cohort == demo_spec.cohort and "postgresql://reader@127.0.0.1:9/registry" in notes[0]

@@ -18,13 +18,12 @@ from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
-
-import numpy as np
-import pyarrow as pa
-import pyarrow.compute as pc
+from typing import TYPE_CHECKING, Any
 
 from .errors import FulcrumError, printable
+
+if TYPE_CHECKING:  # numpy and pyarrow are imported where data are read, so reading a spec stays light
+    import pyarrow as pa
 
 KEYS = {
     "database": ("str", "Read the cohort from a database instead of a file: duckdb:///file.duckdb or "
@@ -310,6 +309,8 @@ def snapshot(url: str, table: str | None, query: str | None, password_env: str |
              base_dir: Path | str = ".") -> tuple[bytes, str, dict[str, Any]]:
     """Every column of a table or query as Parquet bytes, for the app (where columns are chosen after reading),
     with its provenance. The same checks as a spec's keys apply before anything is opened."""
+    import pyarrow as pa
+
     import io
     import types
 
@@ -331,6 +332,10 @@ def snapshot(url: str, table: str | None, query: str | None, password_env: str |
 def data_sha256(columns: dict[str, pa.ChunkedArray]) -> str:
     """A hash of the values read, the same whichever database held them: per column its name, which cells
     are empty, and its values as float64 (numbers, booleans) or UTF-8 text (everything else)."""
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
     h = hashlib.sha256()
     for name in sorted(columns):
         col = columns[name]
@@ -486,6 +491,8 @@ def _default_sslmode(host: str) -> str:
 
 def _arrays(rows: list[tuple], width: int) -> list[pa.Array]:
     """Python rows -> one Arrow array per column; a column mixing kinds (SQLite allows it) becomes text."""
+    import pyarrow as pa
+
     out = []
     for values in (zip(*rows) if rows else [()] * width):
         values = list(values)
@@ -500,6 +507,9 @@ def _arrays(rows: list[tuple], width: int) -> list[pa.Array]:
 def _column(a: pa.Array | pa.ChunkedArray) -> pa.ChunkedArray:
     """One column as read; exact decimals (NUMERIC) become the nearest float64, through their text (Arrow's
     direct cast divides by a power of ten and can miss it by one unit: 2.30 would become 2.3000000000000003)."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
     col = a if isinstance(a, pa.ChunkedArray) else pa.chunked_array([a])
     return pc.cast(pc.cast(col, pa.string()), pa.float64()) if pa.types.is_decimal(col.type) else col
 

@@ -474,10 +474,11 @@ def read_spec(text: str | bytes, current: Spec, source: str = "the uploaded spec
                                hint="Upload the .toml file the app saved.") from None
     spec = parse_spec_text(text, base_dir=current.cohort.path.parent, source=source)
     notes = []
-    if spec.cohort.path.name != current.cohort.path.name:
-        notes.append(f"The spec names the cohort file '{spec.cohort.path.name}'; it was applied to the loaded "
-                     f"file '{current.cohort.path.name}'.")
-        spec = dataclasses.replace(spec, cohort=dataclasses.replace(spec.cohort, path=current.cohort.path))
+    if spec.cohort.path is None or spec.cohort.path.name != current.cohort.path.name:
+        notes.append(f"The spec names the cohort {spec.cohort.database or spec.cohort.path.name!r}; it was applied to "
+                     f"the loaded file '{current.cohort.path.name}'.")
+        spec = dataclasses.replace(spec, cohort=dataclasses.replace(spec.cohort, path=current.cohort.path, database=None,
+                                                                     table=None, query=None, password_env=None))
     return spec, notes
 
 

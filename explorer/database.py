@@ -18,13 +18,12 @@ from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
-
-import numpy as np
-import pyarrow as pa
-import pyarrow.compute as pc
+from typing import TYPE_CHECKING, Any
 
 from .errors import FulcrumError, printable
+
+if TYPE_CHECKING:  # numpy and pyarrow are imported where data are read, so reading a spec stays light
+    import pyarrow as pa
 
 KEYS = {
     "database": ("str", "Read the cohort from a database instead of a file: duckdb:///file.duckdb or "
@@ -134,6 +133,15 @@ def cohort_source(reader: Any, base_dir: Path, file: str | None) -> dict[str, An
 
 def parse_url(url: str, base_dir: Path | str = ".", file: str | None = None) -> Source:
     """Check a database URL; a file's path is made absolute (relative ones against base_dir)."""
+    try:
+        return _parse_url(url, base_dir, file)
+    except ValueError as exc:  # urllib and pathlib refuse some malformed URLs and paths this way
+        raise FulcrumError(f"'cohort.database' could not be read as a URL ({_cut(str(exc), 60)}).", file=file,
+                           key="cohort.database", hint="For example duckdb:///registry.duckdb or "
+                           "postgresql://reader@host:5432/registry.") from None
+
+
+def _parse_url(url: str, base_dir: Path | str, file: str | None) -> Source:
     key = "cohort.database"
     scheme, sep, rest = url.partition("://")
     scheme = {"postgres": "postgresql"}.get(scheme.lower(), scheme.lower())
@@ -192,7 +200,7 @@ def table_expression(name: str, dialect: str, file: str | None = None):
         shape = [t.token_type in (TokenType.VAR, TokenType.IDENTIFIER) if i % 2 == 0 else t.token_type == TokenType.DOT
                  for i, t in enumerate(tokens)]
         table = exp.to_table(name, dialect=dialect) if shape and all(shape) and len(tokens) % 2 == 1 else None
-    except sqlglot.errors.SqlglotError:
+    except (sqlglot.errors.SqlglotError, RecursionError, ValueError):
         table = None
     if not isinstance(table, exp.Table) or table.alias or not _plain_table(table):
         raise FulcrumError(f"'cohort.table' should name a table or view, such as registry.cohort; found "
@@ -228,8 +236,8 @@ def check_query(sql: str, dialect: str, file: str | None = None):
         where = f" at line {err.get('line')}, column {err.get('col')}" if err.get("line") else ""
         raise refuse(f"could not be read as SQL{where}: {_cut(err.get('description') or str(exc), 120)}.",
                      "Check the SQL; Fulcrum reads one SELECT statement.") from None
-    except sqlglot.errors.SqlglotError as exc:
-        raise refuse(f"could not be read as SQL ({_cut(str(exc), 120)}).") from None
+    except (sqlglot.errors.SqlglotError, RecursionError, ValueError) as exc:
+        raise refuse(f"could not be read as SQL ({_cut(str(exc) or type(exc).__name__, 120)}).") from None
     if len(statements) != 1:
         raise refuse(f"holds {len(statements)} statements; only one SELECT is read.",
                      "Remove every statement but the SELECT (and any ; between them).")
@@ -301,6 +309,8 @@ def snapshot(url: str, table: str | None, query: str | None, password_env: str |
              base_dir: Path | str = ".") -> tuple[bytes, str, dict[str, Any]]:
     """Every column of a table or query as Parquet bytes, for the app (where columns are chosen after reading),
     with its provenance. The same checks as a spec's keys apply before anything is opened."""
+    import pyarrow as pa
+
     import io
     import types
 
@@ -322,6 +332,10 @@ def snapshot(url: str, table: str | None, query: str | None, password_env: str |
 def data_sha256(columns: dict[str, pa.ChunkedArray]) -> str:
     """A hash of the values read, the same whichever database held them: per column its name, which cells
     are empty, and its values as float64 (numbers, booleans) or UTF-8 text (everything else)."""
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
     h = hashlib.sha256()
     for name in sorted(columns):
         col = columns[name]
@@ -477,6 +491,8 @@ def _default_sslmode(host: str) -> str:
 
 def _arrays(rows: list[tuple], width: int) -> list[pa.Array]:
     """Python rows -> one Arrow array per column; a column mixing kinds (SQLite allows it) becomes text."""
+    import pyarrow as pa
+
     out = []
     for values in (zip(*rows) if rows else [()] * width):
         values = list(values)
@@ -491,6 +507,9 @@ def _arrays(rows: list[tuple], width: int) -> list[pa.Array]:
 def _column(a: pa.Array | pa.ChunkedArray) -> pa.ChunkedArray:
     """One column as read; exact decimals (NUMERIC) become the nearest float64, through their text (Arrow's
     direct cast divides by a power of ten and can miss it by one unit: 2.30 would become 2.3000000000000003)."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
     col = a if isinstance(a, pa.ChunkedArray) else pa.chunked_array([a])
     return pc.cast(pc.cast(col, pa.string()), pa.float64()) if pa.types.is_decimal(col.type) else col
 

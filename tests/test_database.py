@@ -22,6 +22,8 @@ import duckdb
 import pandas as pd
 import psycopg
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from explorer import cli, database
 from explorer import results as res
@@ -30,7 +32,7 @@ from explorer.cohort import load_cohort
 from explorer.demo import generate, to_csv_bytes
 from explorer.errors import FulcrumError
 from explorer.indices import needed_columns
-from explorer.spec import load_spec, parse_spec_text
+from explorer.spec import load_spec, parse_spec, parse_spec_text
 
 LEVELS = ["independent", "home_with_help", "care_home", "bedbound", "dead"]
 SECRET = "Tr0ub4dor-and-3"  # the reader's password: must never appear in any output
@@ -444,3 +446,34 @@ def test_the_cohort_page_reads_a_database_and_asks_before_contacting_a_server(fo
     assert not at.exception and not [e.value for e in at.error]
     ws = at.session_state["workspace"]
     assert ws.cohort.n == 400 and ws.filename == "database-extract.parquet" and not ws.is_demo
+
+
+# ---------------------------------------------------------------------------------------------
+# Property: whatever the database keys hold, only FulcrumError comes out of the spec parser
+# ---------------------------------------------------------------------------------------------
+_TEXT = st.text(min_size=1, max_size=40)
+
+
+@settings(max_examples=600, deadline=None)  # the spec parser's own property tests run 2,000
+@given(url=st.one_of(_TEXT, st.builds(str.__add__, st.sampled_from(["duckdb:///", "sqlite://", "postgresql://u@",
+                                                                    "postgres://"]), _TEXT)),
+       table=st.one_of(st.none(), _TEXT), query=st.one_of(st.none(), _TEXT, st.builds("SELECT {}".format, _TEXT)),
+       password_env=st.one_of(st.none(), _TEXT))
+def test_any_database_keys_give_a_located_message_or_a_spec(url, table, query, password_env) -> None:
+    cohort = {"arm": "a", "arms": ["x", "y"], "database": url}
+    cohort.update({k: v for k, v in (("table", table), ("query", query), ("password_env", password_env)) if v})
+    data = {"cohort": cohort, "outcomes": [{"name": "o", "kind": "binary", "column": "c"}],
+            "indices": [{"name": "i", "column": "k"}]}
+    try:
+        parse_spec(data, base_dir="/nonexistent")
+    except FulcrumError as exc:
+        assert exc.key and exc.key.startswith("cohort.")
+
+
+def test_a_database_spec_uploaded_in_the_app_applies_to_the_loaded_cohort(demo_spec) -> None:
+    from explorer import appstate as aps
+
+    text = aps.spec_text(demo_spec).replace('path = "demo_cohort.csv"',
+                                            'database = "postgresql://reader@127.0.0.1:9/registry"\ntable = "t"')
+    spec, notes = aps.read_spec(text, demo_spec)
+    assert spec.cohort == demo_spec.cohort and "postgresql://reader@127.0.0.1:9/registry" in notes[0]

@@ -71,3 +71,15 @@ def target_and_policy(data: dict[str, Any], base_dir: Path, indices: tuple, sour
         _range_check(policy.tolerance, 0.0, 100.0, "policy.tolerance", source)
         _range_check(policy.thresholds, 11, 2001, "policy.thresholds", source)
     return {"target": target, "policy": policy}
+
+
+def carried_rule_sections(base: Any, old: dict[str, Any], index_names: set[str]) -> dict[str, Any]:
+    """[policy] and [target] of a spec rebuilt from the app's choices (old = the base spec as TOML-shaped data),
+    kept while every index the rules name is still there; the target file by its full path, since it need not sit
+    beside the cohort."""
+    if "policy" not in old or not set(old["policy"].get("indices", [])) <= index_names:
+        return {}
+    out = {"policy": old["policy"]}
+    if base.target is not None:
+        out["target"] = {**old["target"], "path": str(Path(base.target.path).resolve())}
+    return out

@@ -363,3 +363,17 @@ def test_break_evens_for_the_case_mix_are_the_analysis_break_evens(small, cfs_se
         assert got == pytest.approx(want, abs=0.02), o
         for b in cfs_set.break_evens[o]:
             assert b["target_below"] == pytest.approx(100 * np.mean(x[np.isfinite(x)] < b["x"]), abs=1e-6)
+
+
+def test_the_apps_rebuilt_spec_keeps_the_rule_sections_while_their_indices_remain(small):
+    from explorer import appstate as aps
+    from explorer.spec import spec_to_dict
+
+    spec, _ = small
+    old = spec_to_dict(spec)
+    kept = aps.build_spec(old["cohort"], old["outcomes"], old["indices"], base=spec,
+                          base_dir=spec.cohort.path.parent)
+    assert kept.policy == spec.policy and kept.target.path.resolve() == spec.target.path.resolve()
+    fewer = aps.build_spec(old["cohort"], old["outcomes"], [i for i in old["indices"] if i["name"] != "cfs"],
+                           base=spec, base_dir=spec.cohort.path.parent)
+    assert fewer.policy is None and fewer.target is None

@@ -19,7 +19,7 @@ import pandas as pd
 
 from .errors import FulcrumError
 from .spec import Spec, canonical_sha256, parse_spec, parse_spec_text, spec_to_dict, to_toml
-from .spec_sections import carried_rule_sections
+from .spec_sections import carried_rule_sections, reachable_target
 
 APP_SOURCE = "the app's settings"
 NAME_HINTS: dict[str, tuple[str, ...]] = {
@@ -442,7 +442,8 @@ def read_spec(text: str | bytes, current: Spec, source: str = "the uploaded spec
         notes.append(f"The spec names the cohort file '{spec.cohort.path.name}'; it was applied to the loaded "
                      f"file '{current.cohort.path.name}'.")
         spec = dataclasses.replace(spec, cohort=dataclasses.replace(spec.cohort, path=current.cohort.path))
-    return spec, notes
+    spec, more = reachable_target(spec)
+    return spec, notes + more
 
 
 def error_parts(exc: BaseException) -> dict[str, str]:

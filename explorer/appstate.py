@@ -19,6 +19,7 @@ import pandas as pd
 
 from .errors import FulcrumError
 from .spec import Spec, canonical_sha256, parse_spec, parse_spec_text, spec_to_dict, to_toml
+from .spec_sections import carried_rule_sections, reachable_target
 
 APP_SOURCE = "the app's settings"
 NAME_HINTS: dict[str, tuple[str, ...]] = {
@@ -383,7 +384,9 @@ def build_spec(cohort: dict[str, Any], outcomes: list[dict], indices: list[dict]
                 and (m["target"] in names or (m["target"] == "composite" and "values" in data))]
         if maps:
             data["maps"] = maps
+        data.update(carried_rule_sections(base, old, index_names))
     return parse_spec(data, base_dir=base_dir or Path("."), source=APP_SOURCE)
+
 
 
 # ------------------------------------------------------------------------------------------
@@ -479,7 +482,8 @@ def read_spec(text: str | bytes, current: Spec, source: str = "the uploaded spec
                      f"the loaded file '{current.cohort.path.name}'.")
         spec = dataclasses.replace(spec, cohort=dataclasses.replace(spec.cohort, path=current.cohort.path, database=None,
                                                                      table=None, query=None, password_env=None))
-    return spec, notes
+    spec, more = reachable_target(spec)
+    return spec, notes + more
 
 
 def error_parts(exc: BaseException) -> dict[str, str]:

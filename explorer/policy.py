@@ -108,7 +108,7 @@ def rule_curve(q: Quantity, sup: Support, thresholds: np.ndarray, direction: str
     m1, m2 = q.value
     c1, c2 = _cum(sup.a, m1), _cum(sup.a, m2)
     lo_arm, hi_arm = (0, 1) if direction == "first_below" else (1, 0)
-    cs, ms = (c1, c2), (m1, m2)
+    cs = (c1, c2)
     total = (c1[-1], c2[-1])
     v = 100 * (cs[lo_arm][k] + total[hi_arm] - cs[hi_arm][k])
     share = 100 * np.r_[0.0, np.cumsum(sup.a)][k]
@@ -280,6 +280,8 @@ def prepare_index(fs, index: str, target: Target | None = None, *, replicates: l
     sup_t = support_of(xt)
     chosen = _chosen(fs)
     xc = np.asarray(fs.indices[index].values, float)[chosen[0]] if chosen else np.zeros(0)
+    if chosen and not np.isfinite(xc).any():
+        chosen = None
     u = np.unique(np.r_[sup_t.u, xc[np.isfinite(xc)]])
     sup = Support(u, _shares(u, xt), sup_t.n)
     thresholds = thresholds_for(sup_t.u, pol.thresholds if pol else 101)
@@ -508,7 +510,8 @@ def text_table(doc: dict) -> str:
     widths = [max(len(str(x)) for x in col) for col in zip(head, *lines)]
     t = rows_[0]["target"]
     out = ["", f"Rules along an index, per 100 patients of {printable(t['name'])} ({t['n']} patients); best under the "
-               f"stated values, flat range within {rows_[0]['flat_range']['tolerance']:g} per 100 of the best:",
+               f"stated values, flat range within {rows_[0]['flat_range']['tolerance']:g} per 100 of the best; 'as "
+               "treated' compares the cohort's chosen patients' own treatment with the best rule for them:",
            "  ".join(h.ljust(w) for h, w in zip(head, widths)), "  ".join("-" * w for w in widths)]
     out += ["  ".join(str(c).ljust(w) for c, w in zip(line, widths)) for line in lines]
     return "\n".join(out)

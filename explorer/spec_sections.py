@@ -5,6 +5,7 @@ Kept beside spec.py so that module stays small; spec.py folds SECTION_SCHEMA int
 """
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -112,3 +113,27 @@ def evidence_section(data: dict[str, Any], outcomes: dict, source: str | None) -
                            f"{list(ev.sizes)}.", file=source, key="evidence.sizes",
                            hint="For example [200, 500, 1000].")
     return ev
+
+
+def carried_rule_sections(base: Any, old: dict[str, Any], index_names: set[str]) -> dict[str, Any]:
+    """[policy] and [target] of a spec rebuilt from the app's choices (old = the base spec as TOML-shaped data),
+    kept while every index the rules name is still there; the target file by its full path, since it need not sit
+    beside the cohort."""
+    if "policy" not in old or not set(old["policy"].get("indices", [])) <= index_names:
+        return {}
+    out = {"policy": old["policy"]}
+    if base.target is not None:
+        out["target"] = {**old["target"], "path": str(Path(base.target.path).resolve())}
+    return out
+
+
+def reachable_target(spec: Any) -> tuple[Any, list[str]]:
+    """An uploaded spec whose [target] file is not where this machine can read it loses the section, with a note
+    (the app has only the files uploaded to it); the rules then apply to the cohort until local patients are
+    uploaded on the Rules page."""
+    t = spec.target
+    if t is None or Path(t.path).is_file():
+        return spec, []
+    return dataclasses.replace(spec, target=None), [
+        f"The spec names a file of local patients, '{Path(t.path).name}', which was not uploaded; the rules per 100 "
+        "patients use the cohort until you upload that file on the Rules per 100 patients page."]

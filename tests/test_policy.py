@@ -363,3 +363,30 @@ def test_break_evens_for_the_case_mix_are_the_analysis_break_evens(small, cfs_se
         assert got == pytest.approx(want, abs=0.02), o
         for b in cfs_set.break_evens[o]:
             assert b["target_below"] == pytest.approx(100 * np.mean(x[np.isfinite(x)] < b["x"]), abs=1e-6)
+
+
+def test_the_apps_rebuilt_spec_keeps_the_rule_sections_while_their_indices_remain(small):
+    from explorer import appstate as aps
+    from explorer.spec import spec_to_dict
+
+    spec, _ = small
+    old = spec_to_dict(spec)
+    kept = aps.build_spec(old["cohort"], old["outcomes"], old["indices"], base=spec,
+                          base_dir=spec.cohort.path.parent)
+    assert kept.policy == spec.policy and kept.target.path.resolve() == spec.target.path.resolve()
+    fewer = aps.build_spec(old["cohort"], old["outcomes"], [i for i in old["indices"] if i["name"] != "cfs"],
+                           base=spec, base_dir=spec.cohort.path.parent)
+    assert fewer.policy is None and fewer.target is None
+
+
+def test_an_uploaded_spec_whose_target_file_is_absent_falls_back_to_the_cohort_with_a_note(small, tmp_path):
+    from explorer import appstate as aps
+
+    spec, _ = small
+    text = to_toml(spec, relative_to=spec.cohort.path.parent).replace('path = "local_patients.csv"',
+                                                                       'path = "elsewhere.csv"')
+    got, notes = aps.read_spec(text, spec)
+    assert got.target is None and got.policy == spec.policy
+    assert any("elsewhere.csv" in n and "Rules per 100 patients" in n for n in notes)
+    kept, notes = aps.read_spec(to_toml(spec, relative_to=spec.cohort.path.parent), spec)
+    assert kept.target is not None and not notes

@@ -51,3 +51,36 @@ def test_the_patient_in_hand_survives_a_new_cohort_and_asks_coded_text_by_its_la
     assert fitted.values["cfs"] == 7.0 and fitted.values["sex"] == "M" and "gone" not in fitted.values
     assert fitted.row == 0 and fitted.inputs() == (fitted.values, None)
     assert "Clinical Frailty Scale 7" in fitted.describe(fields, "the patient's own")
+
+
+def test_the_headline_table_reads_the_results_rows_in_words(small_ws: aps.Workspace) -> None:
+    from explorer.headline import headline_table
+
+    rows = [r for r in small_ws.curve_rows(False) if r["index"] == "cfs"]
+    table = headline_table(rows, small_ws.checks(), {o.name: o.title for o in small_ws.spec.outcomes})
+    assert list(table["outcome"]) == [small_ws.spec.outcome(r["outcome"]).title for r in rows]  # labels, not names
+    for (_, t), r in zip(table.iterrows(), rows):
+        bes = r["break_even"]
+        if bes:
+            assert t["better below"] == bes[0]["favours_below"] and t["arms break even at"].startswith(
+                f"{float(bes[0]['x']):.3g}".rstrip("0").rstrip(".")[:3])
+        assert t["does the difference change along the index?"].split(",")[0].split(":")[0] in {
+            "yes", "not clearly", "not tested"}
+
+
+def test_a_two_ray_break_even_interval_is_drawn_as_two_rays_within_the_index() -> None:
+    # A Fieller interval for a ratio is the union of two rays when the denominator is not clearly non-zero
+    # (Fieller 1954; common practice). An "interval" of -18.7 to 5.94 around 7.86 is such a pair.
+    from explorer.charts import chart_spec, interval_pieces, selection_break_even_chart
+
+    assert interval_pieces(7.86, -18.7, 5.94, "finite", (1.0, 9.0)) == [(5.94, 9.0, False, True)]
+    assert interval_pieces(5.0, 2.0, 8.0, "two_rays", (1.0, 9.0)) == [(1.0, 2.0, True, False), (8.0, 9.0, False, True)]
+    assert interval_pieces(5.0, 3.0, 7.0, "finite", (1.0, 9.0)) == [(3.0, 7.0, False, False)]
+    row = {"index": "cfs", "outcome": "alive", "curve": [{"x": 1.0}, {"x": 9.0}],
+           "randomised_break_even": [{"x": 7.86, "ci": [-18.7, 5.94], "interval_shape": "finite"}],
+           "all_break_even": [{"x": 6.0, "ci": [5.0, 7.0], "interval_shape": "finite"}]}
+    chart = selection_break_even_chart(row, index_title="Clinical Frailty Scale")
+    spec = chart_spec(chart)
+    domains = [l["encoding"]["x"]["scale"]["domain"] for l in spec["layer"] if "scale" in l["encoding"]["x"]]
+    assert domains and all(d == [1.0, 9.0] for d in domains)  # no axis stretched beyond the index
+    assert "below -18.7 or above 5.94" in spec["description"]

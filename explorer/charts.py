@@ -87,8 +87,11 @@ def wrap(text: str, width: int) -> str | list[str]:
 
 
 def words(name: str) -> str:
-    """A level or column name as plain words (underscores to spaces)."""
-    return str(name).replace("_", " ")
+    """A level or column name as plain words (underscores to spaces); a numbered level reads "level 3"."""
+    text = str(name).strip()
+    if re.fullmatch(r"-?\d+(\.\d+)?", text):
+        return f"level {text}"
+    return text.replace("_", " ")
 
 
 def index_label_of(row: Mapping[str, Any], override: str | None = None) -> str:

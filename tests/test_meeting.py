@@ -84,3 +84,10 @@ def test_a_two_ray_break_even_interval_is_drawn_as_two_rays_within_the_index() -
     domains = [l["encoding"]["x"]["scale"]["domain"] for l in spec["layer"] if "scale" in l["encoding"]["x"]]
     assert domains and all(d == [1.0, 9.0] for d in domains)  # no axis stretched beyond the index
     assert "below -18.7 or above 5.94" in spec["description"]
+
+
+def test_numbered_levels_read_as_levels_and_named_ones_as_words() -> None:
+    from explorer.charts import words
+
+    # a 0-6 scale such as the modified Rankin Scale has numbered levels (common practice)
+    assert [words(v) for v in ("0", "6", "home_with_help")] == ["level 0", "level 6", "home with help"]

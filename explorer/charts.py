@@ -857,7 +857,7 @@ def selection_break_even_chart(row: Mapping[str, Any], *, index_title: str | Non
              for e in df.to_dict("records")]
     desc = (f"Break-even points of {row.get('measure', row.get('outcome'))} along {xt} by the patients used: "
             + ("; ".join(parts) if parts else "none in the searched range") + ".")
-    title = f"Break-even by the patients used: {row.get('outcome')} along {xt}"
+    title = f"Break-even by the patients used: {row.get('label') or row.get('measure') or row.get('outcome')} along {xt}"
     return _finish(chart, title, None, desc, style)
 
 

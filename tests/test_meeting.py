@@ -22,7 +22,8 @@ def small_ws(tmp_path_factory: pytest.TempPathFactory) -> aps.Workspace:
 def test_the_meeting_view_says_the_views_numbers_and_prints_on_one_a4_page(small_ws: aps.Workspace) -> None:
     ws = small_ws
     fs = ws.fitset()
-    view = place_patient(fs, {"cfs": 7, "age": 82}, weights=ws.spec.values.weights, index="cfs")
+    view = place_patient(fs, {"cfs": 7, "age": 82, "lactate": 1.8, "albumin": 34, "sex": "F"},
+                         weights=ws.spec.values.weights, index="cfs")
     rows = ws.curve_rows(False)
     m = meeting_content(view, rows, CAUTIONS, patient="Clinical Frailty Scale 7, Age 82", whose="the team's",
                         titles={o.name: o.title for o in ws.spec.outcomes}, coverage=ws.coverage("cfs"))
@@ -34,6 +35,8 @@ def test_the_meeting_view_says_the_views_numbers_and_prints_on_one_a4_page(small
     assert dead[1] == f"{100 - e.per_100} ({100 - e.per_100_upper}-{100 - e.per_100_lower})"
     assert any("break" not in b and "Alive at one year" in b for b in m.break_evens)
     assert m.rests_on and re.search(r"\d+ randomised", m.rests_on[0])
+    risk = next(r for r in m.placements if "log hazard" in r[1])  # the demo's prognostic index
+    assert "model-scale value" in risk[3]
     assert CAUTIONS[0] in meeting_html(m) and "<script" not in meeting_html(m)
     pdf = meeting_pdf(m)
     assert pdf.startswith(b"%PDF") and len(re.findall(rb"/Type /Page\b(?!s)", pdf)) == 1

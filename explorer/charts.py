@@ -74,8 +74,11 @@ def wrap(text: str, width: int) -> str | list[str]:
 
 
 def words(name: str) -> str:
-    """A level or column name as plain words (underscores to spaces)."""
-    return str(name).replace("_", " ")
+    """A level or column name as plain words (underscores to spaces); a numbered level reads "level 3"."""
+    text = str(name).strip()
+    if re.fullmatch(r"-?\d+(\.\d+)?", text):
+        return f"level {text}"
+    return text.replace("_", " ")
 
 
 def index_label_of(row: Mapping[str, Any], override: str | None = None) -> str:
@@ -703,8 +706,32 @@ def _selection_estimates(row: Mapping[str, Any]) -> list[dict]:
     for key, what in SELECTION_SETS:
         for b in row.get(key) or []:
             lo, hi = (b.get("ci") or [None, None])
-            out.append({"estimate": what, "x": b["x"], "lo": lo, "hi": hi})
+            out.append({"estimate": what, "x": b["x"], "lo": lo, "hi": hi, "shape": b.get("interval_shape")})
     return out
+
+
+def interval_pieces(x: float, lo: float | None, hi: float | None, shape: str | None, span: tuple[float, float]
+                    ) -> list[tuple[float, float, bool, bool]]:
+    """An interval as the pieces drawn inside the index's span: (from, to, open at the left, open at the right).
+
+    Two rays (everything below lo and above hi, as a Fieller interval can be) are two pieces running out of the
+    span; an interval that does not hold its own estimate is such a pair; unbounded sides run to the edge."""
+    a, b = span
+    lo = None if lo is None or not np.isfinite(lo) else float(lo)
+    hi = None if hi is None or not np.isfinite(hi) else float(hi)
+    if shape == "finite" and lo is not None and hi is not None and not lo <= x <= hi:
+        shape = "two_rays"
+    if shape == "two_rays" and lo is not None and hi is not None:
+        pieces = [(a, min(lo, b), True, False), (max(hi, a), b, False, True)]
+    elif shape == "unbounded_below" or (lo is None and hi is not None):
+        pieces = [(a, hi if hi is not None else b, True, False)]
+    elif shape == "unbounded_above" or (hi is None and lo is not None):
+        pieces = [(lo, b, False, True)]
+    elif lo is None and hi is None:
+        pieces = [(a, b, True, True)]
+    else:
+        pieces = [(lo, hi, lo < a, hi > b)]
+    return [(max(p, a), min(q, b), ol or p < a, orr or q > b) for p, q, ol, orr in pieces if min(q, b) >= max(p, a)]
 
 
 @_quick
@@ -752,26 +779,49 @@ def selection_chart(row: Mapping[str, Any] | Sequence[Mapping[str, Any]], arms: 
 def selection_break_even_chart(row: Mapping[str, Any], *, index_title: str | None = None,
                                style: bool = True) -> alt.TopLevelMixin:
     """Break-even points from randomised patients only, from all patients, and from weighted chosen patients."""
-    df = pd.DataFrame(_selection_estimates(row), columns=["estimate", "x", "lo", "hi"]).astype(
-        {"x": float, "lo": float, "hi": float})
+    est = _selection_estimates(row)
+    df = pd.DataFrame(est, columns=["estimate", "x", "lo", "hi", "shape"]).astype({"x": float, "lo": float, "hi": float})
     order = [w for _, w in SELECTION_SETS]
     shapes = ["triangle-up", "circle", "diamond"]
     y = alt.Y("estimate:N", sort=order, title=None, scale=alt.Scale(domain=order))
     xt = index_title or str(row.get("index", "index"))
-    layers = [_chart(df.dropna(subset=["lo", "hi"])).mark_rule(strokeWidth=4, color=INK).encode(
-                  x=alt.X("lo:Q", title=f"break-even on {xt}", scale=alt.Scale(zero=False)), x2=alt.X2("hi"), y=y),
-              _chart(df).mark_point(filled=True, size=260, color=INK, opacity=1).encode(
-                  x=alt.X("x:Q"), y=y, shape=alt.Shape("estimate:N", legend=None, scale=alt.Scale(domain=order, range=shapes)),
+    xs = [p["x"] for p in row.get("curve") or []] or list(df["x"])
+    span = (float(min(xs)), float(max(xs))) if xs else (0.0, 1.0)  # the axis never runs beyond the index
+    pieces = pd.DataFrame([{"estimate": e["estimate"], "from": p, "to": q, "open": ol or orr,
+                            "edge": (p if ol else q) if (ol or orr) else None}
+                           for e in est for p, q, ol, orr in interval_pieces(e["x"], e["lo"], e["hi"], e["shape"], span)],
+                          columns=["estimate", "from", "to", "open", "edge"])
+    scale = alt.Scale(domain=list(span), nice=False, zero=False, clamp=True)
+    layers = [_chart(pieces).mark_rule(strokeWidth=4, color=INK).encode(
+                  x=alt.X("from:Q", title=f"break-even on {xt}", scale=scale), x2=alt.X2("to"), y=y),
+              _chart(pieces[pieces["open"]]).mark_text(text="…", fontSize=22, color=INK, dy=-8).encode(
+                  x=alt.X("edge:Q", scale=scale), y=y),
+              _chart(df[(df["x"] >= span[0]) & (df["x"] <= span[1])]).mark_point(
+                  filled=True, size=260, color=INK, opacity=1).encode(
+                  x=alt.X("x:Q", scale=scale), y=y,
+                  shape=alt.Shape("estimate:N", legend=None, scale=alt.Scale(domain=order, range=shapes)),
                   tooltip=[alt.Tooltip("estimate:N"), alt.Tooltip("x:Q", format=".3~g"), alt.Tooltip("lo:Q", format=".3~g"),
                            alt.Tooltip("hi:Q", format=".3~g")])]
     chart = _sized(alt.layer(*layers), WIDTH, 70 * len(order))
-    parts = [f"{e['estimate']}: {fmt(e['x'])}" + (f" (interval {fmt(e['lo'])} to {fmt(e['hi'])})"
-                                                   if pd.notna(e["lo"]) and pd.notna(e["hi"]) else "")
+    parts = [f"{e['estimate']}: {fmt(e['x'])}" + (f" (interval {_shape_words(e)})"
+                                                   if pd.notna(e["lo"]) or pd.notna(e["hi"]) else " (interval open)")
              for e in df.to_dict("records")]
     desc = (f"Break-even points of {row.get('measure', row.get('outcome'))} along {xt} by the patients used: "
             + ("; ".join(parts) if parts else "none in the searched range") + ".")
-    title = f"Break-even by the patients used: {row.get('outcome')} along {xt}"
+    title = f"Break-even by the patients used: {row.get('label') or row.get('measure') or row.get('outcome')} along {xt}"
     return _finish(chart, title, None, desc, style)
+
+
+def _shape_words(e: Mapping[str, Any]) -> str:
+    lo, hi, x = e.get("lo"), e.get("hi"), e.get("x")
+    two = e.get("shape") == "two_rays" or (pd.notna(lo) and pd.notna(hi) and not lo <= x <= hi)
+    if two:
+        return f"below {fmt(lo)} or above {fmt(hi)}, running beyond the index"
+    if pd.isna(lo):
+        return f"anywhere up to {fmt(hi)}"
+    if pd.isna(hi):
+        return f"anywhere from {fmt(lo)}"
+    return f"{fmt(lo)} to {fmt(hi)}"
 
 
 PAIRWISE_INTERVALS = {"u-statistic": "large-sample U-statistic variances", "bootstrap-percentile": "percentile bootstrap"}

@@ -109,6 +109,11 @@ def _rests_on(coverage: Sequence[Mapping[str, Any]], x: float, arms: Sequence[st
     return out
 
 
+def _model_scale(units: str | None) -> bool:
+    """Whether an index is on a model's scale (a log hazard, log odds) that no one reads directly."""
+    return bool(units) and any(w in units.lower() for w in ("log", "logit", "linear predictor"))
+
+
 def meeting_content(view: PatientView, rows: Sequence[Mapping[str, Any]], cautions: Sequence[str], *,
                     patient: str, whose: str | None, titles: Mapping[str, str],
                     coverage: Sequence[Mapping[str, Any]] | None = None) -> Meeting:
@@ -117,7 +122,9 @@ def meeting_content(view: PatientView, rows: Sequence[Mapping[str, Any]], cautio
     index = view.primary_index
     pl = view.placements[index]
     placements = [[p.label, fmt(p.value) + (f" {p.units}" if p.units else ""), f"{p.percentile:.0f}th",
-                   "outside the cohort's range" if p.outside else ""] for p in view.placements.values()]
+                   "; ".join(t for t in ("outside the cohort's range" if p.outside else "",
+                                         "a model-scale value: read its percentile" if _model_scale(p.units) else "")
+                             if t)] for p in view.placements.values()]
     along = [p for p in view.predictions if p.index == index]
     per_100: list[list[str]] = []
     for p in sorted(along, key=lambda p: (p.kind != "survival", p.kind != "ordinal")):

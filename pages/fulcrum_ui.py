@@ -337,6 +337,9 @@ def show_chart(chart: Any) -> None:
     """A chart as wide as its column, keeping its own plot height (titles and legends are added around it)."""
     import altair as alt
 
+    if isinstance(chart, (alt.FacetChart, alt.ConcatChart, alt.HConcatChart, alt.VConcatChart)):
+        st.altair_chart(chart, width="content")  # panels keep their own size (fit-x would squeeze them to 0)
+        return
     chart = chart.copy(deep=False)
     chart.autosize = alt.AutoSizeParams(type="fit-x", contains="padding")
     st.altair_chart(chart, width="stretch")

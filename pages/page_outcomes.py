@@ -8,18 +8,22 @@ from explorer import margins
 LEVELS = [0.8, 0.9, 0.95, 0.99]
 ws, _ = ui.page_head(
     "Outcomes by index",
-    "Each chart shows one outcome along one index for the first arm (blue) and the second arm (orange). A "
-    "break-even point is where the arms do equally well; differences are the first arm minus the second, "
-    "higher is better.")
+    "Where do the two arms do equally well (the break-even point), and which does better on either side? The "
+    "table answers for every outcome and index; below it, one chart per outcome, with its checks and methods "
+    "in tabs.")
 arms = list(ws.spec.cohort.arms)
-st.caption(f"First arm: {aps.md_escape(arms[0])} (blue). Second arm: {aps.md_escape(arms[1])} (orange).")
+names = [ix.name for ix in ws.spec.indices]
+titles = {ix.name: ix.title for ix in ws.spec.indices}
+index = st.radio("Index", names, format_func=titles.get, horizontal=True, key=ui.seed("index", names[0]))
+headline = st.container()
 
 # ------------------------------------------------------------------------------------------
 # Settings that re-summarise (never refit)
 # ------------------------------------------------------------------------------------------
 a = ws.spec.analysis
 levels = sorted(set(LEVELS) | {a.level})
-c1, c2, c3 = st.columns(3)
+settings = st.expander("Settings: the margin, the interval level and bootstrap intervals", expanded=False)
+c1, c2, c3 = settings.columns(3)
 with c1:
     margin = st.number_input("Margin: the smallest difference worth having (default for probabilities and composites)",
                              step=0.01, format="%.3f", key=ui.seed("margin", float(a.margin)))
@@ -41,8 +45,8 @@ with st.expander("Margin per outcome (each in its own units; the margin above is
     if changed and ui.update_spec(lambda s: margins.with_margins(s, changed)):
         ws = ui.workspace()
 
-with st.expander("Bootstrap intervals (run on request)", expanded=ws.has_bootstrap()):
-    st.markdown("Analytic intervals are shown by default. The bootstrap refits every model on resampled "
+with settings:
+    st.markdown("**Bootstrap intervals (run on request).** Analytic intervals are shown by default. The bootstrap refits every model on resampled "
                 "patients; it takes longer and runs only when you ask.")
     b1, b2 = st.columns([1, 2])
     with b1:
@@ -70,19 +74,25 @@ doc = {"arms": arms, "results": rows, "checks": checks}
 charts = ui.engine("charts")
 
 # ------------------------------------------------------------------------------------------
-# Every break-even point in one table
+# The headline: every outcome and index in one table, at the top of the page
 # ------------------------------------------------------------------------------------------
-st.header("All break-even points")
-if charts is None:
-    ui.not_available("The break-even table", "explorer/charts.py")
-else:
-    st.caption("Each row first says whether the difference between the arms changes along the index at all "
-               "(likelihood-ratio test); where it does not clearly change, the break-even point rests on weak evidence.")
-    st.dataframe(charts.breakeven_summary_table(doc), hide_index=True, width="stretch")
-    clusters = ui.attempt(ws.clustering)
-    st.caption(aps.md_escape(charts.describe_clustering(clusters)))
-    for w in (clusters or {}).get("warnings", []):
-        st.caption("Note: " + aps.md_escape(w))
+headline_mod = ui.engine("headline_table")
+with headline:
+    if charts is None or headline_mod is None:
+        ui.not_available("The break-even table", "explorer/headline_table.py")
+    else:
+        table = headline_mod.headline_table([r for r in rows if r["index"] == index], checks,
+                                            {o.name: o.title for o in ws.spec.outcomes})
+        st.dataframe(table.drop(columns=["index"]), hide_index=True, width="stretch",
+                     column_config={c: st.column_config.TextColumn(c, width="medium") for c in table.columns})
+        clusters = ui.attempt(ws.clustering)
+        st.caption(f"{aps.md_escape(arms[0])} is drawn in blue, {aps.md_escape(arms[1])} in orange. "
+                   + aps.md_escape(charts.describe_clustering(clusters)))
+        for w in (clusters or {}).get("warnings", []):
+            st.caption("Note: " + aps.md_escape(w))
+        with st.expander("Every break-even point on every index, with the test numbers (for the record)"):
+            st.dataframe(charts.breakeven_summary_table(doc), hide_index=True, width="stretch")
+
 
 # ------------------------------------------------------------------------------------------
 # One index at a time: the effect-modification test, a chart and its sentence per outcome, the checks
@@ -130,9 +140,6 @@ def show_checks(check: dict, row: dict, label: str) -> None:
                   charts.describe_horizon(check, label, outcome.units))
 
 
-names = [ix.name for ix in ws.spec.indices]
-titles = {ix.name: ix.title for ix in ws.spec.indices}
-index = st.radio("Index", names, format_func=titles.get, horizontal=True, key=ui.seed("index", names[0]))
 show_points = st.checkbox("Show each patient beneath the curves" + (" (triangles: randomised, dots: chosen)"
                                                                      if ws.cohort.randomised is not None else ""),
                           value=True, key=ui.key("points"))
@@ -145,22 +152,30 @@ for row in [r for r in doc["results"] if r["index"] == index]:
         ui.not_available("Charts", "explorer/charts.py")
         continue
     check = charts.check_for(checks, row["outcome"], index)
-    show_effect_modification(check)
     points = ui.attempt(charts.cohort_points, ws.fitset(), row["outcome"], index) if show_points else None
     ui.altair(charts.outcome_chart(row, arms, points, index_label=titles[index]),
               " ".join(t for t in (charts.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin),
                                    charts.describe_percentiles(row, titles[index])) if t))
-    if points is not None and points.attrs.get("sample_note"):
-        st.caption(aps.md_escape(points.attrs["sample_note"]))
-    with st.expander("The difference between the arms, and the numbers"):
+    for w in row.get("warnings", []) + (check or {}).get("warnings", []):  # check warnings outside the tabs
+        st.caption("Note: " + aps.md_escape(w))
+    tabs = st.tabs(["Difference and numbers", "Does the difference change?",
+                    "Can the curves be trusted?", "Method"])
+    with tabs[0]:
         ui.altair(charts.difference_chart(row, arms, margin=ws.spec.analysis.margin, index_label=titles[index]))
         st.dataframe(charts.curve_table(row, arms, every=max(1, len(row["curve"]) // 25)), hide_index=True,
                      width="stretch")
-    if check is not None:
-        with st.expander("Can these curves be trusted?"):
+    with tabs[1]:
+        show_effect_modification(check)
+    with tabs[2]:
+        if check is not None:
             show_checks(check, row, titles[index])
-    for w in row.get("warnings", []) + (check or {}).get("warnings", []):
-        st.caption("Note: " + aps.md_escape(w))
+        else:
+            st.caption("The checks are switched off in the spec ([analysis] checks = false).")
+    with tabs[3]:
+        for arm, text in (row.get("methods") or {}).items():
+            st.markdown(f"**{aps.md_escape(arm)}:** {aps.md_escape(text)}")
+        if points is not None and points.attrs.get("sample_note"):
+            st.caption(aps.md_escape(points.attrs["sample_note"]))
 
 notes = list(ws.cohort.warnings) + [w for iv in ws.index_values().values() for w in iv.warnings]
 if notes:

@@ -4,6 +4,7 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
+from explorer.charts import fmt as charts_fmt
 
 CUSTOM = "custom"
 WHOSE = {"patient": "the patient's own", "proxy": "a proxy's, on the patient's behalf", "team": "the team's"}
@@ -113,11 +114,15 @@ if summaries is None:
 rows = values.composite_rows(ws.fitset(), summaries, v)
 
 st.header(f"Value of outcomes along {titles[index]}")
-st.caption(f"Weights are {WHOSE[v.whose]} values.")
 for row, ((kind, _), (_, info)) in zip(rows, summaries.items()):
     st.subheader({"ordinal": f"Expected value of the weights ({outcome.title})",
                   "survival_function": "Survival combined with function",
                   "quality_adjusted": "Quality-adjusted survival"}.get(kind, kind))
+    if kind in values.WEIGHTED_KINDS:
+        st.caption(f"Uses the weights above: {WHOSE[v.whose]} values.")
+    else:
+        st.caption("Does not use the weights above: time alive is counted at each survivor's own quality of life "
+                   "from the cohort (quality-adjusted time, in the survival outcome's time units).")
     if charts is None:
         ui.not_available("Composite charts", "explorer/charts.py")
     else:
@@ -149,6 +154,23 @@ with st.expander("Uncertainty about the weights themselves"):
     st.caption(f"The chance {arms[0]} is preferred combines the models' uncertainty with weights drawn evenly "
                "within this range (death stays at its weight).")
 
+def rounded(v) -> str:
+    return "" if v is None else charts_fmt(v)
+
+
+def span(ci) -> str:
+    return "" if not ci or ci[0] is None else f"{charts_fmt(ci[0])} to {charts_fmt(ci[1])}"
+
+
+def pairwise_window(window, label: str) -> str:
+    """A window along the index as people say it: "Clinical Frailty Scale 1-3"."""
+    if window is None:
+        return "everyone"
+    if isinstance(window, dict) and "from" in window:
+        return f"{label} {charts_fmt(window['from'])}-{charts_fmt(window['to'])}"
+    return str(window)
+
+
 # ------------------------------------------------------------------------------------------
 # The hierarchical pairwise comparison
 # ------------------------------------------------------------------------------------------
@@ -162,12 +184,18 @@ else:
     if st.checkbox("Compute the pairwise comparison (with its own bootstrap)", key=ui.key("pairwise_on")):
         prow = ui.with_progress("Pairwise comparison:", ws.pairwise, index)
         if prow:
-            table = pd.DataFrame([{"patients": "everyone" if r["window"] is None else r["window"],
+            order = [ws.spec.outcome(n).title for n in (ws.spec.pairwise.priority if ws.spec.pairwise else ())]
+            if order:
+                st.markdown("**Order of priority:** " + " → ".join(aps.md_escape(t) for t in order))
+            table = pd.DataFrame([{"patients": pairwise_window(r["window"], titles.get(index, "index")),
                                    f"{arms[0]}": r["n_first"], f"{arms[1]}": r["n_second"],
-                                   "win ratio": r["win_ratio"], "win ratio interval": r["win_ratio_ci"],
-                                   "net benefit": r["net_benefit"], "net benefit interval": r["net_benefit_ci"],
+                                   "win ratio": rounded(r["win_ratio"]), "win ratio interval": span(r["win_ratio_ci"]),
+                                   "net benefit": rounded(r["net_benefit"]),
+                                   "net benefit interval": span(r["net_benefit_ci"]),
                                    "clearly favours": r["favours"] or "neither"} for r in prow])
             st.dataframe(table.astype(str), hide_index=True, width="stretch")
+            st.caption("Win ratio: pairs won by the first arm over pairs lost (above 1 favours it). Net benefit: "
+                       "the share of pairs won minus the share lost (above 0 favours the first arm).")
             overall = prow[0]
             if overall.get("win_ratio") is not None:
                 ui.sentence(f"Across everyone, {arms[0]} wins {overall['wins']:,} and loses {overall['losses']:,} "

@@ -87,12 +87,13 @@ def test_the_app_in_chromium_from_demo_to_an_offline_report(browser_context, tmp
     offline.route(re.compile(r"^(?!file:|data:|blob:|about:).*"),
                   lambda route: (asked.append(route.request.url), route.abort()))
     offline.goto(report.as_uri())
-    offline.wait_for_function("() => document.querySelectorAll('.vega-embed svg, .vega-embed canvas').length > 0",
-                              timeout=60_000)
-    offline.wait_for_timeout(1500)
-    drawn = offline.locator(".vega-embed svg, .vega-embed canvas").count()
-    containers = offline.locator(".vega-embed").count()
-    assert drawn >= containers > 0
+    # charts on screen are drawn first and the rest while the browser is idle: wait for every chart's drawing
+    every = """() => { const n = document.querySelectorAll('div[id^="chart-"]:not([id$="-caption"])').length;
+                      return n > 0 && document.querySelectorAll('div[id^="chart-"]:not([id$="-caption"]) svg').length >= n; }"""
+    offline.wait_for_function("() => document.querySelectorAll('.vega-embed svg').length > 0", timeout=60_000)
+    offline.evaluate("() => window.fulcrumDrawAll()")  # what printing does: draw the rest at once
+    offline.wait_for_function(every, timeout=120_000)
+    assert "could not be drawn" not in offline.locator("body").inner_text()
     assert CAUTIONS[0] in offline.locator("body").inner_text()
     screenshot(offline, SHOTS / "report_offline.png")
     assert not asked, asked

@@ -22,7 +22,8 @@ def small_ws(tmp_path_factory: pytest.TempPathFactory) -> aps.Workspace:
 def test_the_meeting_view_says_the_views_numbers_and_prints_on_one_a4_page(small_ws: aps.Workspace) -> None:
     ws = small_ws
     fs = ws.fitset()
-    view = place_patient(fs, {"cfs": 7, "age": 82}, weights=ws.spec.values.weights, index="cfs")
+    view = place_patient(fs, {"cfs": 7, "age": 82, "lactate": 1.8, "albumin": 34, "sex": "F"},
+                         weights=ws.spec.values.weights, index="cfs")
     rows = ws.curve_rows(False)
     m = meeting_content(view, rows, CAUTIONS, patient="Clinical Frailty Scale 7, Age 82", whose="the team's",
                         titles={o.name: o.title for o in ws.spec.outcomes}, coverage=ws.coverage("cfs"))
@@ -34,6 +35,8 @@ def test_the_meeting_view_says_the_views_numbers_and_prints_on_one_a4_page(small
     assert dead[1] == f"{100 - e.per_100} ({100 - e.per_100_upper}-{100 - e.per_100_lower})"
     assert any("break" not in b and "Alive at one year" in b for b in m.break_evens)
     assert m.rests_on and re.search(r"\d+ randomised", m.rests_on[0])
+    risk = next(r for r in m.placements if "log hazard" in r[1])  # the demo's prognostic index
+    assert "model-scale value" in risk[3]
     assert CAUTIONS[0] in meeting_html(m) and "<script" not in meeting_html(m)
     pdf = meeting_pdf(m)
     assert pdf.startswith(b"%PDF") and len(re.findall(rb"/Type /Page\b(?!s)", pdf)) == 1
@@ -51,3 +54,43 @@ def test_the_patient_in_hand_survives_a_new_cohort_and_asks_coded_text_by_its_la
     assert fitted.values["cfs"] == 7.0 and fitted.values["sex"] == "M" and "gone" not in fitted.values
     assert fitted.row == 0 and fitted.inputs() == (fitted.values, None)
     assert "Clinical Frailty Scale 7" in fitted.describe(fields, "the patient's own")
+
+
+def test_the_headline_table_reads_the_results_rows_in_words(small_ws: aps.Workspace) -> None:
+    from explorer.headline_table import headline_table
+
+    rows = [r for r in small_ws.curve_rows(False) if r["index"] == "cfs"]
+    table = headline_table(rows, small_ws.checks(), {o.name: o.title for o in small_ws.spec.outcomes})
+    assert list(table["outcome"]) == [small_ws.spec.outcome(r["outcome"]).title for r in rows]  # labels, not names
+    for (_, t), r in zip(table.iterrows(), rows):
+        bes = r["break_even"]
+        if bes:
+            assert t["better below"] == bes[0]["favours_below"] and t["arms break even at"].startswith(
+                f"{float(bes[0]['x']):.3g}".rstrip("0").rstrip(".")[:3])
+        assert t["does the difference change along the index?"].split(",")[0].split(":")[0] in {
+            "yes", "not clearly", "not tested"}
+
+
+def test_a_two_ray_break_even_interval_is_drawn_as_two_rays_within_the_index() -> None:
+    # A Fieller interval for a ratio is the union of two rays when the denominator is not clearly non-zero
+    # (Fieller 1954; common practice). An "interval" of -18.7 to 5.94 around 7.86 is such a pair.
+    from explorer.charts import chart_spec, interval_pieces, selection_break_even_chart
+
+    assert interval_pieces(7.86, -18.7, 5.94, "finite", (1.0, 9.0)) == [(5.94, 9.0, False, True)]
+    assert interval_pieces(5.0, 2.0, 8.0, "two_rays", (1.0, 9.0)) == [(1.0, 2.0, True, False), (8.0, 9.0, False, True)]
+    assert interval_pieces(5.0, 3.0, 7.0, "finite", (1.0, 9.0)) == [(3.0, 7.0, False, False)]
+    row = {"index": "cfs", "outcome": "alive", "curve": [{"x": 1.0}, {"x": 9.0}],
+           "randomised_break_even": [{"x": 7.86, "ci": [-18.7, 5.94], "interval_shape": "finite"}],
+           "all_break_even": [{"x": 6.0, "ci": [5.0, 7.0], "interval_shape": "finite"}]}
+    chart = selection_break_even_chart(row, index_title="Clinical Frailty Scale")
+    spec = chart_spec(chart)
+    domains = [l["encoding"]["x"]["scale"]["domain"] for l in spec["layer"] if "scale" in l["encoding"]["x"]]
+    assert domains and all(d == [1.0, 9.0] for d in domains)  # no axis stretched beyond the index
+    assert "below -18.7 or above 5.94" in spec["description"]
+
+
+def test_numbered_levels_read_as_levels_and_named_ones_as_words() -> None:
+    from explorer.charts import words
+
+    # a 0-6 scale such as the modified Rankin Scale has numbered levels (common practice)
+    assert [words(v) for v in ("0", "6", "home_with_help")] == ["level 0", "level 6", "home with help"]

@@ -86,7 +86,8 @@ def test_the_app_in_chromium_from_demo_to_an_offline_report(browser_context, tmp
     asked: list[str] = []
     offline.route(re.compile(r"^(?!file:|data:|blob:|about:).*"),
                   lambda route: (asked.append(route.request.url), route.abort()))
-    offline.goto(report.as_uri())
+    # the report draws about 150 charts while it loads; on a busy two-core machine that can take over 30 s
+    offline.goto(report.as_uri(), timeout=180_000)
     offline.wait_for_function("() => document.querySelectorAll('.vega-embed svg, .vega-embed canvas').length > 0",
                               timeout=60_000)
     offline.wait_for_timeout(1500)

@@ -21,36 +21,39 @@ from browser_helpers import CHROMIUM, CHROMIUM_ARGS, VIEWPORT, app_server, settl
 
 ROOT = HERE.parent
 IMAGES = ROOT / "docs" / "images"
-MAIN_X = (400, 1340)  # the main column at 1400 px wide, beside the sidebar
+MAIN_X = (352, 1400)  # the main column at 1400 px wide, beside the sidebar
 WIDTH = 940
 
 # name -> (page shot, heading the crop starts at, heading it stops before (None: the page's end), whole width)
 CROPS: dict[str, tuple[str, str | None, str | None, bool]] = {
     "cohort-load.png": ("cohort", None, r"^2\. ", True),
-    "cohort-checks.png": ("cohort", r"^3\. ", r"^4\. ", False),
-    "cohort-spread.png": ("cohort", r"^4\. ", None, False),
-    "outcomes-top.png": ("outcomes", r"^Outcomes by index$", r"^Alive at one year$", False),
+    "cohort-checks.png": ("cohort", r"^3\. ", r"^How each index is spread", False),
+    "cohort-spread.png": ("cohort", r"^How each index is spread", None, False),
+    "outcomes-top.png": ("outcomes", r"^Outcomes by index$", r"^Outcomes along ", False),
     "outcomes-survival.png": ("outcomes", r"^Alive at one year$", r"^Alive at six months$", False),
     "outcomes-function.png": ("outcomes", r"^Living at home at six months$", r"^Quality of life", False),
     "values-weights.png": ("values", r"^Weights for ", r"^Value of outcomes along", False),
-    "values-composite.png": ("values", r"^Expected value of the weights", r"^Chance that ", False),
+    "values-composite.png": ("values", r"^Expected value of the weights", r"How far can these weights", False),
+    "values-leeway.png": ("values", r"How far can these weights", r"^Chance that ", False),
     "values-acceptability.png": ("values", r"^Chance that ", r"^Survival combined with function$", False),
-    "values-bedbound-below-zero.png": ("values_moved", r"^Weights for ", r"^Chance that ", False),
-    "selection-coverage.png": ("selection", r"^Randomised vs chosen$", r"^Selection effect", False),
-    "selection-effect.png": ("selection", r"^Selection effect", None, False),
+    "values-bedbound-below-zero.png": ("values_moved", r"^Weights for ", r"How far can these weights", False),
+    "selection-coverage.png": ("selection", r"^Where the randomised patients are", r"^Randomised and chosen patients",
+                               False),
+    "selection-effect.png": ("selection", r"^Randomised and chosen patients", r"^Alive at six months$", False),
     "patient-conversation.png": ("patient", r"^What matters to the patient$", r"^Where this patient sits$", False),
     "patient-where.png": ("patient", r"^Where this patient sits$", r"^Predictions for people like this", False),
     "patient-icons.png": ("patient", r"^Predictions for people like this", r"^Alive at six months$", False),
     "patient-function.png": ("patient", r"^Living at home at six months$", r"^Quality of life", False),
-    "report-page.png": ("report", r"^Report$", None, False),
+    "report-page.png": ("report", r"^Report$", r"^Charts as pictures", False),
 }
 MAX_HEIGHT = 1500  # a crop longer than this is cut (the guides show the top of a long section)
 
 
 def headings(page) -> list[tuple[str, float]]:
-    """Every heading in the main block with its top in page pixels (the window is as tall as the content)."""
-    sel = ", ".join(f'[data-testid="stMain"] {t}' for t in ("h1", "h2", "h3", "summary"))
-    return page.evaluate(f"""() => [...document.querySelectorAll('{sel}')].map(h => [h.innerText.trim(),
+    """Every heading, expander and chart title in the main block with its top in page pixels (the window is as
+    tall as the content). Expanders' text may start with an icon's name, so patterns for them are unanchored."""
+    sel = ", ".join(f'[data-testid="stMain"] {t}' for t in ("h1", "h2", "h3", "summary", ".role-title-text text"))
+    return page.evaluate(f"""() => [...document.querySelectorAll('{sel}')].map(h => [h.textContent.trim(),
         h.getBoundingClientRect().top + window.scrollY])""")
 
 
@@ -89,9 +92,28 @@ def crop(shots: Path, found: dict[str, list], name: str) -> Path:
     if part.width > WIDTH:
         part = part.resize((WIDTH, round(part.height * WIDTH / part.width)), Image.LANCZOS)
     IMAGES.mkdir(parents=True, exist_ok=True)
-    part.quantize(colors=128, method=Image.Quantize.MEDIANCUT, dither=Image.Dither.NONE).save(IMAGES / name,
+    part.quantize(colors=256, method=Image.Quantize.MAXCOVERAGE, dither=Image.Dither.NONE).save(IMAGES / name,
                                                                                           optimize=True)
     return IMAGES / name
+
+
+def offline_shot(browser, report: Path) -> Path:
+    """The top of the offline report, opened from the file with the network refused, into docs/images."""
+    from PIL import Image
+
+    offline = browser.new_page(viewport={"width": VIEWPORT["width"], "height": 1700})
+    offline.route(re.compile(r"^(?!file:|data:|blob:|about:).*"), lambda route: route.abort())
+    offline.goto(report.as_uri(), timeout=300_000)
+    offline.wait_for_function("() => document.querySelectorAll('.vega-embed svg').length > 0", timeout=300_000)
+    offline.wait_for_timeout(1500)
+    raw = report.with_suffix(".png")
+    offline.screenshot(path=str(raw), clip={"x": 120, "y": 0, "width": 1160, "height": 1700}, timeout=120_000)
+    offline.close()
+    with Image.open(raw) as im:
+        part = im.convert("RGB").resize((WIDTH, round(im.height * WIDTH / im.width)), Image.LANCZOS)
+    part.quantize(colors=256, method=Image.Quantize.MAXCOVERAGE, dither=Image.Dither.NONE).save(
+        IMAGES / "report-offline.png", optimize=True)
+    return IMAGES / "report-offline.png"
 
 
 def go(page, name: str) -> None:
@@ -101,27 +123,32 @@ def go(page, name: str) -> None:
 
 
 def main(argv: list[str]) -> int:
-    """With a folder from an earlier run as the argument, crop again without browsing."""
+    """No argument: walk the app and crop. A folder from an earlier walk: crop again. --offline REPORT: only the
+    offline report's picture, from a saved report."""
+    from playwright.sync_api import sync_playwright
+
+    if len(argv) == 2 and argv[0] == "--offline":
+        with sync_playwright() as p:
+            browser = p.chromium.launch(executable_path=CHROMIUM, args=CHROMIUM_ARGS)
+            print("wrote", offline_shot(browser, Path(argv[1]).resolve()))
+            browser.close()
+        return 0
     if argv:
         shots = Path(argv[0])
         found = json.loads((shots / "headings.json").read_text())
-        for name in CROPS:
-            print("wrote", crop(shots, found, name))
-        return 0
-    work = Path(tempfile.mkdtemp(prefix="fulcrum-shots-"))
-    shots = work / "pages"
-    shots.mkdir()
-    found = browse(work, shots)
-    (shots / "headings.json").write_text(json.dumps(found))
-    print("page shots and headings in", shots)
+    else:
+        work = Path(tempfile.mkdtemp(prefix="fulcrum-shots-"))
+        shots = work / "pages"
+        shots.mkdir()
+        found = browse(work, shots)
+        print("page shots and headings in", shots)
     for name in CROPS:
         print("wrote", crop(shots, found, name))
     return 0
 
 
 def browse(work: Path, shots: Path) -> dict[str, list]:
-    """Walk the demo; full-page shots into `shots`, the offline report's top into docs/images; the headings."""
-    from PIL import Image
+    """Walk the demo; full-page shots and their headings into `shots`, the offline report's top into docs/images."""
     from playwright.sync_api import sync_playwright
 
     found: dict[str, list] = {}
@@ -132,9 +159,12 @@ def browse(work: Path, shots: Path) -> dict[str, list]:
         page.get_by_text("2,400 patients").first.wait_for(timeout=180_000)
         settle(page)
         found["cohort"] = full_page(page, shots / "cohort.png")
-        for name, shot in (("Outcomes by index", "outcomes"), ("Values", "values")):
-            go(page, name)
-            found[shot] = full_page(page, shots / f"{shot}.png")
+        go(page, "Outcomes by index")
+        found["outcomes"] = full_page(page, shots / "outcomes.png")
+        go(page, "Values")
+        page.get_by_text("How far can these weights move before the answer changes?").first.click()
+        settle(page)
+        found["values"] = full_page(page, shots / "values.png")
         thumb = page.get_by_role("slider", name="bedbound")
         thumb.focus()
         thumb.press("Home")  # bedbound to -1, as the guide describes, with the keyboard
@@ -143,22 +173,13 @@ def browse(work: Path, shots: Path) -> dict[str, list]:
         for name, shot in (("Randomised vs chosen", "selection"), ("Patient", "patient"), ("Report", "report")):
             go(page, name)
             found[shot] = full_page(page, shots / f"{shot}.png")
+        (shots / "headings.json").write_text(json.dumps(found))
         with page.expect_download(timeout=180_000) as download:
             page.get_by_role("button", name=re.compile("Offline report")).click()
         report = work / "report.html"
         download.value.save_as(report)
-        offline = browser.new_page(viewport=VIEWPORT)
-        offline.goto(report.as_uri())
-        offline.wait_for_function("() => document.querySelectorAll('.vega-embed svg').length > 0", timeout=60_000)
-        offline.wait_for_timeout(1500)
-        offline.screenshot(path=str(IMAGES / "report-offline-full.png"), clip={"x": 120, "y": 0, "width": 1160,
-                                                                               "height": 1700}, full_page=True)
+        offline_shot(browser, report)
         browser.close()
-    with Image.open(IMAGES / "report-offline-full.png") as im:
-        part = im.convert("RGB").resize((WIDTH, round(im.height * WIDTH / im.width)), Image.LANCZOS)
-    part.quantize(colors=128, method=Image.Quantize.MEDIANCUT, dither=Image.Dither.NONE).save(
-        IMAGES / "report-offline.png", optimize=True)
-    (IMAGES / "report-offline-full.png").unlink()
     return found
 
 

@@ -86,7 +86,7 @@ def test_the_app_in_chromium_from_demo_to_an_offline_report(browser_context, tmp
     asked: list[str] = []
     offline.route(re.compile(r"^(?!file:|data:|blob:|about:).*"),
                   lambda route: (asked.append(route.request.url), route.abort()))
-    offline.goto(report.as_uri())
+    offline.goto(report.as_uri(), timeout=180_000)
     # charts on screen are drawn first and the rest while the browser is idle: wait for every chart's drawing
     every = """() => { const n = document.querySelectorAll('div[id^="chart-"]:not([id$="-caption"])').length;
                       return n > 0 && document.querySelectorAll('div[id^="chart-"]:not([id$="-caption"]) svg').length >= n; }"""

@@ -76,11 +76,12 @@ def load_target(spec: Spec, indices: dict, names: list[str] | None = None, *, da
                                hint="Check target.path in the spec; it is read relative to the spec file's folder.")
         data = path.read_bytes()
     roles = target_columns(spec, indices, names)
-    header, raw = ch._read(data, name, shown, t.sheet if t is not None else None, roles, set(roles))
+    notes: list[str] = []
+    header, raw = ch._read(data, name, shown, t.sheet if t is not None else None, roles, set(roles), notes)
     raw = {h: raw[h] for h in header if h in roles}
     chk = ch._Checker(spec, raw, roles, shown)
     frame = pd.DataFrame({c: chk.column(c) for c in raw}, copy=False)
-    warnings = list(chk.warnings)
+    warnings = list(chk.warnings) + notes
     values: dict[str, np.ndarray] = {}
     for name in names:
         ix, iv = spec.index(name), indices[name]

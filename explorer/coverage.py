@@ -127,7 +127,10 @@ def label_results(rows: list[dict], spec: Spec) -> list[dict]:
         except KeyError:
             continue
         fitted = _fitted(row)
-        label_row(row, scenario_for(outcome, spec.analysis, clustered=bool(spec.cohort.cluster), fitted_index=fitted))
+        scenario = scenario_for(outcome, spec.analysis, clustered=bool(spec.cohort.cluster), fitted_index=fitted)
+        if fitted and row["index_info"]["prognostic"].get("fit_on") != "second":
+            scenario = None  # only an index fitted on the second arm was simulated
+        label_row(row, scenario)
         if fitted:
             about = about_index(row["index_info"].get("label") or row.get("index", ""),
                                 row["index_info"]["prognostic"], spec.analysis.interval, spec.analysis.refit_index)
@@ -141,8 +144,9 @@ def fitted_reason(b: dict) -> str:
     pct = f"{100 * b['coverage']:.1f}%"
     if b.get("interval") == "bootstrap-percentile":
         return (f"In simulations of such a score this bootstrap interval covered the true point in {pct} of studies "
-                f"(target 93.5-96.5%), measured with fewer resamples per study than an analysis uses, which narrows "
-                f"percentile intervals a little.")
+                "(target 93.5-96.5%): its width matched the estimate's spread, but it was measured with fewer "
+                "resamples per study than an analysis uses, which narrows percentile intervals a little, and a "
+                "percentile interval does not correct the break-even estimate's small bias.")
     if b["coverage"] > TARGET[1]:
         return (f"In simulations of such a score this interval covered the true point in {pct} of studies, more "
                 "than the 95% it aims at: it treats the score as known, yet the score and the curve of the arm it was "

@@ -105,7 +105,7 @@ def test_replicates_refit_the_index_and_compare_on_the_common_scale(demo_spec: S
 
 def test_labels_and_sentence_for_a_break_even_along_a_fitted_index() -> None:
     outcome = OutcomeSpec(name="alive", kind="survival", time="t", event="e", horizon=1.0)
-    report = {"model": "Cox", "outcome": "alive", "folds": 5,
+    report = {"model": "Cox", "outcome": "alive", "folds": 5, "fit_on": "second",
               "coefficients": [{"name": "age"}, {"name": "cfs"}, {"name": "lactate"}]}
     spec = Spec(cohort=CohortSpec(path=Path("c.csv"), arm="arm", arms=("a", "b")), outcomes=(outcome,), indices=())
     for interval, refit, scenario, words in (

@@ -64,6 +64,8 @@ def test_refitting_on_the_whole_cohort_once_gives_the_index_back() -> None:
     x, rec = iv.model.refitter.values(np.arange(len(iv.values)))
     np.testing.assert_allclose(x, iv.values, atol=1e-7)
     assert rec["shift"] == pytest.approx(0.0, abs=1e-9)
+    new = veteran().iloc[:7]
+    np.testing.assert_allclose(iv.model.replicate_compute(new, rec), iv.model.compute(new), atol=1e-7)
 
 
 @pytest.mark.slow

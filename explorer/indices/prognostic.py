@@ -80,6 +80,14 @@ class PrognosticModel:
                                hint="Give a value for every covariate of the prognostic model.")
         return self.fold_values(X).mean(axis=0)
 
+    def replicate_compute(self, data: pd.DataFrame | Mapping[str, Any], record: Mapping[str, Any]) -> np.ndarray:
+        """A new patient's index in one bootstrap replicate that refitted the index (the replicate's `@index`
+        record): the mean of that replicate's fold models, on the common scale (see Refitter)."""
+        X = _covariates(data, self.covariates, self.key)
+        Xc = np.asarray(X, float).reshape(-1, len(self.covariates)) - self.center
+        lp = float(record["intercept"]) + Xc @ np.asarray(record["fold_coef"], float).T
+        return self.sign * lp.mean(axis=1) + float(record["shift"])
+
 
 def cross_fitted_index(index: IndexSpec, frame: pd.DataFrame, spec: Spec, *, key: str, seed: int,
                        level: float, groups: np.ndarray | None = None

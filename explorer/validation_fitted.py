@@ -117,7 +117,8 @@ def one_study(kind: str, n: int, boot: int, rng: np.random.Generator) -> dict:
         s = an.analytic_summary(pf, spec)
     except FIT_ERRORS as exc:
         return {"failed": f"{type(exc).__name__}: {exc}"}
-    truth = true_absolute(kind) - model.sign * model.refitter.offset
+    refitter = model.refitter(frame, spec)
+    truth = true_absolute(kind) - model.sign * refitter.offset
     out: dict = {"truth": truth, "converged": all(f.converged_ for f in pf.fits.values()),
                  "index_converged": bool(model.report["converged"])}
     if not s.break_even:
@@ -133,7 +134,7 @@ def one_study(kind: str, n: int, boot: int, rng: np.random.Generator) -> dict:
         for _ in range(boot):
             draw = {arm: np.sort(rng.choice(r, size=len(r), replace=True)) for arm, r in rows.items()}
             try:
-                x = model.refitter.values(np.sort(np.concatenate(list(draw.values()))))[0]
+                x = refitter.values(np.sort(np.concatenate(list(draw.values()))))[0]
                 refitted.append(_curves(pf, refit_arms(sc_outcome, basis, arrays, draw, starts, x), s.grid))
             except FIT_ERRORS:
                 refitted.append(None)

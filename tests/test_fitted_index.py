@@ -56,12 +56,12 @@ def test_cox_anchor_is_lifelines_baseline_cumulative_hazard_at_the_horizon() -> 
     ref = CoxPHFitter().fit(data, "time", "status", fit_options={"precision": 1e-12})  # lifelines reference
     h0 = ref.baseline_cumulative_hazard_  # Breslow, covariates at their means (our centre)
     expected = float(h0[h0.index <= 180.0].iloc[-1, 0])
-    assert m.refitter.offset == pytest.approx(np.log(expected), abs=1e-5)
+    assert m.refitter(v, spec).offset == pytest.approx(np.log(expected), abs=1e-5)
 
 
 def test_refitting_on_the_whole_cohort_once_gives_the_index_back() -> None:
-    _, _, iv = veteran_index("second")
-    x, rec = iv.model.refitter.values(np.arange(len(iv.values)))
+    v, spec, iv = veteran_index("second")
+    x, rec = iv.model.refitter(v, spec).values(np.arange(len(iv.values)))
     np.testing.assert_allclose(x, iv.values, atol=1e-7)
     assert rec["shift"] == pytest.approx(0.0, abs=1e-9)
     new = veteran().iloc[:7]
@@ -70,9 +70,10 @@ def test_refitting_on_the_whole_cohort_once_gives_the_index_back() -> None:
 
 @pytest.mark.slow
 def test_refitted_bootstrap_se_of_the_index_coefficients_matches_lifelines() -> None:
-    v, _, iv = veteran_index()
+    v, spec, iv = veteran_index()
+    refitter = iv.model.refitter(v, spec)
     rng = np.random.default_rng(6)
-    coefs = np.array([iv.model.refitter.values(np.sort(rng.integers(0, len(v), len(v))))[1]["coef"]
+    coefs = np.array([refitter.values(np.sort(rng.integers(0, len(v), len(v))))[1]["coef"]
                       for _ in range(200)])
     data = v[list(COVARIATES) + ["time", "status"]]
     ref = CoxPHFitter().fit(data, "time", "status")  # lifelines reference: model-based standard errors
@@ -94,7 +95,8 @@ def test_refitted_bootstrap_se_of_a_logistic_index_matches_statsmodels() -> None
                 indices=(index,), analysis=AnalysisSpec(seed=4))
     iv = compute_index(index, d, spec=spec)
     rng = np.random.default_rng(8)
-    coefs = np.array([iv.model.refitter.values(np.sort(rng.integers(0, len(d), len(d))))[1]["coef"]
+    refitter = iv.model.refitter(d, spec)
+    coefs = np.array([refitter.values(np.sort(rng.integers(0, len(d), len(d))))[1]["coef"]
                       for _ in range(200)])
     ref = sm.Logit(d["bad"], sm.add_constant(d[list(covs)])).fit(disp=0)  # statsmodels reference
     np.testing.assert_allclose(iv.model.full.coef, ref.params.to_numpy()[1:], rtol=1e-5)
@@ -169,7 +171,8 @@ def test_cross_fitted_index_refitter_keeps_missing_covariates_missing() -> None:
     v = v.copy()
     v.loc[[0, 5], "age"] = np.nan
     values, model, _ = cross_fitted_index(spec.indices[0], v, spec, key="indices[0]", seed=3, level=0.95)
-    x, _ = model.refitter.values(np.arange(len(v)))
+    r = model.refitter(v, spec)
+    x, _ = r.values(np.arange(len(v)))
     assert np.isnan(x[[0, 5]]).all() and np.isfinite(np.delete(x, [0, 5])).all()
-    assert anchor(model.full, model.refitter.Xc[model.refitter.fit_mask], model.refitter.target.take(
-        np.flatnonzero(model.refitter.fit_mask)), 180.0) == pytest.approx(model.refitter.offset)
+    np.testing.assert_allclose(x, values, atol=1e-7)
+    assert anchor(model.full, r.Xc[r.fit_mask], r.target.take(np.flatnonzero(r.fit_mask)), 180.0) == r.offset

@@ -57,7 +57,6 @@ class PrognosticModel:
     value_fold: np.ndarray | None = None
     key: str | None = None
     report: dict = field(default_factory=dict)
-    refitter: "Refitter | None" = field(default=None, repr=False)
 
     @property
     def columns(self) -> tuple[str, ...]:
@@ -80,6 +79,19 @@ class PrognosticModel:
                                hint="Give a value for every covariate of the prognostic model.")
         return self.fold_values(X).mean(axis=0)
 
+    def refitter(self, frame: pd.DataFrame, spec: Spec) -> "Refitter":
+        """What a bootstrap replicate needs to refit this index, rebuilt from the cohort frame it was fitted on
+        (built on request, so an analysis that holds the index fixed keeps no second copy of the covariates)."""
+        key = self.key or "indices"
+        outcome, X, target, has_outcome, complete, in_arm = _inputs(spec, frame, self.outcome, self.covariates,
+                                                                    self.report["fit_on"], key)
+        fit_mask = complete & has_outcome & in_arm
+        Xc = np.where(complete[:, None], X - self.center, 0.0)
+        horizon = outcome.horizon if outcome.kind == "survival" else None
+        offset = anchor(self.full, Xc[fit_mask], target.take(np.flatnonzero(fit_mask)), horizon)
+        return Refitter(Xc, complete, fit_mask, target, self.report["folds"], self.report["seed"], self.sign, horizon,
+                        offset, self.full.coef)
+
     def replicate_compute(self, data: pd.DataFrame | Mapping[str, Any], record: Mapping[str, Any]) -> np.ndarray:
         """A new patient's index in one bootstrap replicate that refitted the index (the replicate's `@index`
         record): the mean of that replicate's fold models, on the common scale (see Refitter)."""
@@ -95,11 +107,7 @@ def cross_fitted_index(index: IndexSpec, frame: pd.DataFrame, spec: Spec, *, key
     """Out-of-fold index values for every cohort row (NaN where covariates are missing) and the model."""
     p = index.prognostic
     assert p is not None
-    outcome = _outcome(spec, p.outcome, key)
-    X = _covariates(frame, p.covariates, f"{key}.prognostic.covariates")
-    target, has_outcome = outcome_target(outcome, frame, f"{key}.prognostic.outcome")
-    complete = np.all(np.isfinite(X), axis=1)
-    in_arm = _arm_mask(frame, spec, spec.second) if p.fit_on == "second" else np.ones(len(frame), bool)
+    outcome, X, target, has_outcome, complete, in_arm = _inputs(spec, frame, p.outcome, p.covariates, p.fit_on, key)
     fit = np.flatnonzero(complete & has_outcome & in_arm)
     _check_size(fit, target, p.folds, len(p.covariates), outcome, p.fit_on, spec, key)
     center = X[fit].mean(axis=0)
@@ -109,9 +117,6 @@ def cross_fitted_index(index: IndexSpec, frame: pd.DataFrame, spec: Spec, *, key
     full, models, fold_of, value_fold, lp = cross_fit(Xc, target, fit, complete, p.folds, seed, groups)
     model = PrognosticModel(outcome.name, outcome.kind, tuple(p.covariates), center, sign, models, full, fold_of,
                             value_fold, key=key)
-    horizon = outcome.horizon if outcome.kind == "survival" else None
-    model.refitter = Refitter(Xc, complete, complete & has_outcome & in_arm, target, p.folds, seed, sign, horizon,
-                              anchor(full, Xc[fit], target.take(fit), horizon), full.coef)
     model.report = _report(index, outcome, model, Xc[fit], lp[fit], target.take(fit), seed, level)
     missing = describe_missing(dict(zip(p.covariates, X.T)))
     warnings = _warnings(index, outcome, complete, has_outcome, in_arm, model, missing)
@@ -196,6 +201,16 @@ class Refitter:
         x[drawn] = self.sign * lp + shift
         return x, {"coef": full.coef, "fold_coef": np.vstack([m.coef for m in models]),
                    "intercept": full.intercept, "shift": shift}
+
+
+def _inputs(spec: Spec, frame: pd.DataFrame, outcome_name: str, covariates: tuple[str, ...], fit_on: str, key: str):
+    """(outcome spec, covariates X, target, has outcome, complete covariates, in the fitting arm) per cohort row."""
+    outcome = _outcome(spec, outcome_name, key)
+    X = _covariates(frame, covariates, f"{key}.prognostic.covariates")
+    target, has_outcome = outcome_target(outcome, frame, f"{key}.prognostic.outcome")
+    complete = np.all(np.isfinite(X), axis=1)
+    in_arm = _arm_mask(frame, spec, spec.second) if fit_on == "second" else np.ones(len(frame), bool)
+    return outcome, X, target, has_outcome, complete, in_arm
 
 
 def outcome_target(outcome: OutcomeSpec, frame: pd.DataFrame, key: str) -> tuple[Target, np.ndarray]:

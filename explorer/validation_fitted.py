@@ -247,8 +247,8 @@ SCENARIO_WORDS = (
     "predicted risk, the common scale on which refitted replicates are compared). '<kind>, fitted index' rows hold "
     "the index fixed (the analytic interval); "
     "'<kind>, fitted index, refitted' rows refit the index in every bootstrap replicate (refit_index = true). "
-    "Bootstrap studies are the first ones of the analytic studies, with fewer resamples per study than the tool's "
-    "default (stated in the table) to keep the run short.")
+    "Bootstrap studies are among the first 500 of the analytic studies (the same cohorts), with fewer resamples per "
+    "study than the tool's default (stated in the table) to keep the run short.")
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -133,7 +133,8 @@ def label_results(rows: list[dict], spec: Spec) -> list[dict]:
         label_row(row, scenario)
         if fitted:
             about = about_index(row["index_info"].get("label") or row.get("index", ""),
-                                row["index_info"]["prognostic"], spec.analysis.interval, spec.analysis.refit_index)
+                                row["index_info"]["prognostic"], spec.analysis.interval, spec.analysis.refit_index,
+                                spec)
             row["index_info"]["about"] = " ".join([about, *dict.fromkeys(
                 fitted_reason(b) for b in row.get("break_even", []) if b.get("approximate"))])
     return rows
@@ -174,7 +175,7 @@ def label_composites(rows: list[dict], spec: Spec) -> list[dict]:
         if _fitted(row):
             row["index_info"]["about"] = about_index(row["index_info"].get("label") or row.get("index", ""),
                                                      row["index_info"]["prognostic"], spec.analysis.interval,
-                                                     spec.analysis.refit_index)
+                                                     spec.analysis.refit_index, spec)
     return rows
 
 

@@ -395,13 +395,16 @@ def _events(target: Target) -> int | None:
     return int(np.sum(target.y)) if target.kind == "binary" else None
 
 
-def about_index(label: str, report: Mapping[str, Any], interval: str, refit: bool) -> str:
+def about_index(label: str, report: Mapping[str, Any], interval: str, refit: bool, spec: Spec | None = None) -> str:
     """One plain sentence for every break-even along a fitted index: what the score is fitted from, and whether
-    the intervals include the uncertainty of fitting it."""
+    the intervals include the uncertainty of fitting it (spec: to name the outcome by its label)."""
     names = [c["name"] for c in report.get("coefficients") or []]
     named = names[0] if len(names) < 2 else ", ".join(names[:-1]) + f" and {names[-1]}"
+    outcome = str(report.get("outcome"))
+    if spec is not None and any(o.name == outcome for o in spec.outcomes):
+        outcome = f"'{spec.outcome(outcome).title}'"
     head = (f"'{label}' is a score fitted from {named} ({report.get('model')} model of "
-            f"{report.get('outcome')}, {report.get('folds')}-fold cross-fitting), not a measurement; ")
+            f"{outcome}, {report.get('folds')}-fold cross-fitting), not a measurement; ")
     if interval == "bootstrap" and refit:
         return head + "its intervals include the uncertainty of fitting it (the bootstrap refits the score in every " \
                       "replicate and compares replicates on the score's predicted-outcome scale)."

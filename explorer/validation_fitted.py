@@ -10,8 +10,9 @@ eta = ETA_STAR). The tool then does what an analysis does: it cross-fits the pro
 with its analytic interval (the index held fixed) and a bootstrap refitting the index in every replicate
 (refit_index = true; the code path of analysis.boot_replicate: Refitter.values and resampling.refit_arms).
 The truth lives on the true linear predictor's scale and is mapped to the fitted index through the fitted model's
-absolute prediction (the common scale of prognostic.anchor): on the fitted index the true break-even is the value whose predicted log cumulative hazard at the horizon (survival) or predicted log
-odds (binary) equals the true one at eta = ETA_STAR.
+absolute prediction (the common scale of prognostic.anchor): on the fitted index the true break-even is the value
+whose predicted log cumulative hazard at the horizon (survival) or predicted log odds (binary) equals the true one
+at eta = ETA_STAR.
 """
 from __future__ import annotations
 

@@ -4,7 +4,7 @@
     (then merge FILE into docs/validation.* with `python -m explorer.validation --merge ...`)
 
 Each study draws four covariates, a true linear predictor eta = Z @ GAMMA, and each arm's outcome from eta (the
-second arm's linear predictor is eta itself, the first arm's changes half as fast, so the arms break even at
+second arm's linear predictor is eta itself, the first arm's does not depend on eta, so the arms break even at
 eta = ETA_STAR). The tool then does what an analysis does: it cross-fits the prognostic model on the second arm
 (indices.prognostic.cross_fitted_index, 5 folds), fits each arm along the fitted index, and finds the break-even
 with its analytic interval (the index held fixed) and a bootstrap refitting the index in every replicate

@@ -144,6 +144,16 @@ def test_labels_and_sentence_for_a_break_even_along_a_fitted_index() -> None:
         coverage.label_results([row], sp)
         about = row["index_info"]["about"]
         assert about.startswith("'Predicted risk' is a score fitted from age, cfs and lactate") and words in about
+    # a break-even said as the predicted risk: 1 - exp(-exp(x + anchor)) (Cox: log cumulative hazard at the horizon)
+    report.update(anchor=-1.0, sign=1.0, predicted="predicted risk of death by 1")
+    row = {"outcome": "alive", "index": "risk", "n": {"a": 500, "b": 500},
+           "index_info": {"kind": "prognostic", "label": "Predicted risk", "prognostic": report},
+           "break_even": [{"x": 0.5, "ci": [0.0, None], "interval": "fieller", "interval_shape": "unbounded_above"}]}
+    coverage.label_results([row], dataclasses.replace(spec, analysis=AnalysisSpec()))
+    b = row["break_even"][0]
+    assert b["predicted"] == pytest.approx(1 - np.exp(-np.exp(-0.5)))
+    assert b["predicted_ci"] == [pytest.approx(1 - np.exp(-np.exp(-1.0))), None]
+    assert "is a predicted risk of death by 1 of 45% (interval 31% to open)" in row["index_info"]["about"]
     assert coverage.scenario_for(dataclasses.replace(outcome, kind="continuous", time=None, event=None,
                                                      horizon=None, column="y"), AnalysisSpec(),
                                  fitted_index=True) is None

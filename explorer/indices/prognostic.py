@@ -378,6 +378,9 @@ def _report(index: IndexSpec, outcome: OutcomeSpec, model: PrognosticModel, X: n
                               "level": level, "method": f"{MODEL_OF_KIND[outcome.kind]} regression of the outcome "
                               "on the out-of-fold linear predictor in the fitting set (1 = well calibrated)"},
         "converged": bool(full.converged and all(m.converged for m in model.fold_models)),
+        "anchor": anchor(full, X, target, outcome.horizon if outcome.kind == "survival" else None),
+        "sign": model.sign,
+        "predicted": _predicted_words(outcome),
         "method": (f"{MODEL_OF_KIND[outcome.kind]} model of {outcome.title} on {', '.join(model.covariates)}, "
                    f"fitted on {'the second arm' if p.fit_on == 'second' else 'all patients without an arm term'} "
                    f"by {p.folds}-fold cross-fitting (seed {seed}): patients in the fitting set take the value of "
@@ -413,6 +416,32 @@ def about_index(label: str, report: Mapping[str, Any], interval: str, refit: boo
                       "fixed; bootstrap intervals with refit_index = true include it)."
     return head + "its intervals do not include the uncertainty of fitting it (analytic intervals treat the score " \
                   "as known; only bootstrap intervals with refit_index = true include it)."
+
+
+def _predicted_words(outcome: OutcomeSpec) -> str:
+    """What `predicted` turns an index value into, in words."""
+    if outcome.kind == "survival":
+        units = f" {outcome.units}" if outcome.units else ""
+        return f"predicted risk of the event in '{outcome.title}' by {outcome.horizon:g}{units}"
+    return {"binary": f"predicted probability that '{outcome.title}' is 1",
+            "ordinal": f"predicted probability of a level of '{outcome.title}' worse than the best",
+            "continuous": f"predicted '{outcome.title}'"}[outcome.kind]
+
+
+def predicted(report: Mapping[str, Any], x: float | None) -> float | None:
+    """An index value as the model's absolute prediction (see `_predicted_words`), from its report's anchor and
+    sign; None for None (an unbounded interval end) or a report without them."""
+    if x is None or report.get("anchor") is None:
+        return None
+    a, sign = float(report["anchor"]), float(report.get("sign", 1.0))
+    model = report.get("model")
+    if model == "Cox":
+        return float(-math.expm1(-math.exp(min(x + a, 700.0))))
+    if model == "logistic":
+        return float(1.0 / (1.0 + math.exp(-max(min(sign * x, 700.0), -700.0))))
+    if model == "proportional odds":
+        return float(1.0 / (1.0 + math.exp(-max(min(x + a, 700.0), -700.0))))
+    return float(sign * x)
 
 
 def orientation(outcome: OutcomeSpec) -> str:

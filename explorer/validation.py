@@ -668,7 +668,8 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--workers", type=int, default=-1)
     p.add_argument("--seed", type=int, default=20261201)
     p.add_argument("--scenarios", nargs="*", default=None)
-    p.add_argument("--parts", nargs="*", default=["analytic", "bootstrap", "null", "selection"])
+    p.add_argument("--parts", nargs="*", default=["analytic", "bootstrap", "null", "selection"],
+                   help="also 'fitted': the scenarios along a fitted index (explorer.validation_fitted)")
     p.add_argument("--out", default="docs")
     p.add_argument("--rows", help="write the raw rows and settings here as well (JSON), to merge runs later")
     p.add_argument("--merge", nargs="+", help="write the outputs from these --rows files instead of running")
@@ -693,6 +694,11 @@ def main(argv: list[str] | None = None) -> int:
     rows = run(a.replicates, tuple(a.sizes), a.boot, a.workers, a.seed,
                tuple(a.scenarios) if a.scenarios else None, a.boot_replicates, tuple(a.parts),
                progress=ProgressBar("studies"), log=lambda s: print(s, flush=True), records=a.records)
+    if "fitted" in a.parts:
+        from .validation_fitted import run as run_fitted
+
+        rows += run_fitted(1000, a.boot_replicates or 500, a.boot, seed=a.seed + 1)
+        mark_defaults(rows)
     settings = {"date": _dt.date.today().isoformat(), "replicates": a.replicates,
                 "bootstrap_studies": a.boot_replicates or a.replicates, "sizes": a.sizes,
                 "bootstrap_resamples": a.boot, "seed": a.seed, "level": 0.95, "workers": a.workers}

@@ -47,6 +47,12 @@ def test_folds_are_scikit_learns_shuffled_kfold() -> None:
     for (train, held), (rtrain, rheld) in zip(ours, ref):
         np.testing.assert_array_equal(np.sort(held), np.sort(fit[rheld]))
         np.testing.assert_array_equal(train, fit[rtrain])
+    groups = np.repeat(np.arange(100), 2)  # copies of one patient share a fold, folds cut over the patients
+    unique = np.arange(100)
+    for (train, held), (_, rheld) in zip(_folds(np.arange(200), 5, 11, groups),
+                                         KFold(5, shuffle=True, random_state=11).split(unique)):  # scikit-learn
+        np.testing.assert_array_equal(held, np.flatnonzero(np.isin(groups, unique[rheld])))
+        assert not np.isin(groups[train], groups[held]).any()
 
 
 def test_cox_anchor_is_lifelines_baseline_cumulative_hazard_at_the_horizon() -> None:

@@ -178,7 +178,7 @@ def refit_case(directory: Path, replicates: int, ref_k: int) -> dict:
         out["patients"] = cohort.n
         if refit:
             model = res.fitset.indices["risk"].model
-            r = model.refitter
+            r = model.refitter(cohort.frame, spec)
             rngs = [np.random.default_rng(s) for s in np.random.SeedSequence(SEED).spawn(ref_k)]
             t0 = time.perf_counter()
             for rng in rngs:

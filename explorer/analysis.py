@@ -425,8 +425,8 @@ def boot_payload(fs: FitSet, keep_distribution: tuple[str, ...] = ()) -> BootPay
         cluster_rows = np.split(order, np.flatnonzero(np.diff(codes[order])) + 1)
     refit = {}
     if spec.analysis.refit_index:
-        refit = {name: iv.model.refitter for name, iv in fs.indices.items()
-                 if getattr(iv.model, "refitter", None) is not None}
+        refit = {name: iv.model.refitter(fs.cohort.frame, spec) for name, iv in fs.indices.items()
+                 if hasattr(iv.model, "refitter")}
     return BootPayload(spec, fs.cohort, fs.indices, pairs, arm_rows, keep_distribution, cluster_rows=cluster_rows,
                        extra={"arm_data": arm_data, "refit": refit})
 

@@ -12,7 +12,7 @@ import json
 import math
 from importlib import resources
 
-from .indices.prognostic import about_index
+from .indices.prognostic import about_index, predicted
 from .spec import AnalysisSpec, OutcomeSpec, Spec
 
 TARGET = (0.935, 0.965)
@@ -141,14 +141,40 @@ def label_results(rows: list[dict], spec: Spec) -> list[dict]:
         except KeyError:
             continue
         fitted = _fitted(row)
-        label_row(row, scenario_for(outcome, spec.analysis, clustered=bool(spec.cohort.cluster),
-                                    margin=spec.margin_for(outcome), fitted_index=fitted))
+        scenario = scenario_for(outcome, spec.analysis, clustered=bool(spec.cohort.cluster),
+                                margin=spec.margin_for(outcome), fitted_index=fitted)
+        if fitted and row["index_info"]["prognostic"].get("fit_on") != "second":
+            scenario = None  # only an index fitted on the second arm was simulated
+        label_row(row, scenario)
         if fitted:
+            report = row["index_info"]["prognostic"]
             about = about_index(row["index_info"].get("label") or row.get("index", ""),
-                                row["index_info"]["prognostic"], spec.analysis.interval, spec.analysis.refit_index)
-            row["index_info"]["about"] = " ".join([about, *dict.fromkeys(
+                                report, spec.analysis.interval, spec.analysis.refit_index, spec)
+            row["index_info"]["about"] = " ".join([about, *_predicted_sentences(row, report), *dict.fromkeys(
                 fitted_reason(b) for b in row.get("break_even", []) if b.get("approximate"))])
     return rows
+
+
+def _predicted_sentences(row: dict, report: dict) -> list[str]:
+    """Each break-even along a fitted index as the model's predicted quantity (PATH: absolute risk), set on the
+    break-even as `predicted` and `predicted_ci`, and said in one sentence."""
+    out = []
+    for b in row.get("break_even", []):
+        p = predicted(report, b.get("x"))
+        ends = [predicted(report, v) for v in (b.get("ci") or [None, None])]
+        if p is None:
+            continue
+        if report.get("sign", 1.0) < 0 and report.get("model") in ("logistic", "linear"):
+            ends = ends[::-1]
+        b["predicted"], b["predicted_ci"] = p, ends
+        pct = report.get("model") != "linear"
+        words = (lambda v: "open" if v is None else f"{100 * v:.0f}%") if pct else \
+            (lambda v: "open" if v is None else f"{v:.3g}")
+        interval = "" if b.get("interval_shape") == "two_rays" or ends == [None, None] else \
+            f" (interval {words(ends[0])} to {words(ends[1])})"
+        out.append(f"The break-even at {b['x']:.3g} on this score is a {report.get('predicted', 'prediction')} of "
+                   f"{words(p)}{interval}.")
+    return out
 
 
 def fitted_reason(b: dict) -> str:
@@ -156,8 +182,9 @@ def fitted_reason(b: dict) -> str:
     pct = f"{100 * b['coverage']:.1f}%"
     if b.get("interval") == "bootstrap-percentile":
         return (f"In simulations of such a score this bootstrap interval covered the true point in {pct} of studies "
-                f"(target 93.5-96.5%), measured with fewer resamples per study than an analysis uses, which narrows "
-                f"percentile intervals a little.")
+                "(target 93.5-96.5%): its width matched the estimate's spread, but it was measured with fewer "
+                "resamples per study than an analysis uses, which narrows percentile intervals a little, and a "
+                "percentile interval does not correct the break-even estimate's small bias.")
     if b["coverage"] > TARGET[1]:
         return (f"In simulations of such a score this interval covered the true point in {pct} of studies, more "
                 "than the 95% it aims at: it treats the score as known, yet the score and the curve of the arm it was "
@@ -185,7 +212,7 @@ def label_composites(rows: list[dict], spec: Spec) -> list[dict]:
         if _fitted(row):
             row["index_info"]["about"] = about_index(row["index_info"].get("label") or row.get("index", ""),
                                                      row["index_info"]["prognostic"], spec.analysis.interval,
-                                                     spec.analysis.refit_index)
+                                                     spec.analysis.refit_index, spec)
     return rows
 
 

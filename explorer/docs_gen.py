@@ -190,6 +190,9 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
     ]),
     ("break_even", "Break-even points (the same fields wherever a break-even appears)", [
         ("results[].break_even[].x", "The index value where first minus second equals the margin."),
+        ("results[].break_even[].predicted", "Along a cross-fitted prognostic index only: x as the model's "
+         "absolute prediction (e.g. predicted risk of the event by the horizon; see index_info.prognostic.predicted)."),
+        ("results[].break_even[].predicted_ci", "The interval's ends as that prediction (null where open)."),
         ("results[].break_even[].x_percentile", "The cohort percentile of x (the share of the cohort's index "
                                                 "values below it, ties counted half)."),
         ("results[].break_even[].ci", "Its interval [low, high]; null ends are unbounded. For two_rays the set "
@@ -273,6 +276,12 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("results[].index_info.prognostic.calibration_slope.method", "How it was computed."),
         ("results[].index_info.prognostic.converged", "Whether every fold model converged."),
         ("results[].index_info.prognostic.method", "The model in one sentence."),
+        ("results[].index_info.prognostic.anchor", "What turns the index into the model's absolute prediction: the "
+         "index plus this is the log cumulative hazard at the horizon (Cox) or the log odds of a level worse than "
+         "the best (proportional odds); 0 where the index already holds its intercept (logistic, linear)."),
+        ("results[].index_info.prognostic.sign", "-1 where the index is the model's predictor negated (so that "
+         "higher = worse), else 1."),
+        ("results[].index_info.prognostic.predicted", "What break_even[].predicted is, in words."),
     ]),
     ("selection", "Selection rows (randomised versus chosen patients, one arm)", [
         ("selection[].outcome", "The outcome's name."),

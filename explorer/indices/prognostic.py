@@ -57,7 +57,6 @@ class PrognosticModel:
     value_fold: np.ndarray | None = None
     key: str | None = None
     report: dict = field(default_factory=dict)
-    refitter: "Refitter | None" = field(default=None, repr=False)
 
     @property
     def columns(self) -> tuple[str, ...]:
@@ -80,6 +79,27 @@ class PrognosticModel:
                                hint="Give a value for every covariate of the prognostic model.")
         return self.fold_values(X).mean(axis=0)
 
+    def refitter(self, frame: pd.DataFrame, spec: Spec) -> "Refitter":
+        """What a bootstrap replicate needs to refit this index, rebuilt from the cohort frame it was fitted on
+        (built on request, so an analysis that holds the index fixed keeps no second copy of the covariates)."""
+        key = self.key or "indices"
+        outcome, X, target, has_outcome, complete, in_arm = _inputs(spec, frame, self.outcome, self.covariates,
+                                                                    self.report["fit_on"], key)
+        fit_mask = complete & has_outcome & in_arm
+        Xc = np.where(complete[:, None], X - self.center, 0.0)
+        horizon = outcome.horizon if outcome.kind == "survival" else None
+        offset = anchor(self.full, Xc[fit_mask], target.take(np.flatnonzero(fit_mask)), horizon)
+        return Refitter(Xc, complete, fit_mask, target, self.report["folds"], self.report["seed"], self.sign, horizon,
+                        offset, self.full.coef)
+
+    def replicate_compute(self, data: pd.DataFrame | Mapping[str, Any], record: Mapping[str, Any]) -> np.ndarray:
+        """A new patient's index in one bootstrap replicate that refitted the index (the replicate's `@index`
+        record): the mean of that replicate's fold models, on the common scale (see Refitter)."""
+        X = _covariates(data, self.covariates, self.key)
+        Xc = np.asarray(X, float).reshape(-1, len(self.covariates)) - self.center
+        lp = float(record["intercept"]) + Xc @ np.asarray(record["fold_coef"], float).T
+        return self.sign * lp.mean(axis=1) + float(record["shift"])
+
 
 def cross_fitted_index(index: IndexSpec, frame: pd.DataFrame, spec: Spec, *, key: str, seed: int,
                        level: float, groups: np.ndarray | None = None
@@ -87,11 +107,7 @@ def cross_fitted_index(index: IndexSpec, frame: pd.DataFrame, spec: Spec, *, key
     """Out-of-fold index values for every cohort row (NaN where covariates are missing) and the model."""
     p = index.prognostic
     assert p is not None
-    outcome = _outcome(spec, p.outcome, key)
-    X = _covariates(frame, p.covariates, f"{key}.prognostic.covariates")
-    target, has_outcome = outcome_target(outcome, frame, f"{key}.prognostic.outcome")
-    complete = np.all(np.isfinite(X), axis=1)
-    in_arm = _arm_mask(frame, spec, spec.second) if p.fit_on == "second" else np.ones(len(frame), bool)
+    outcome, X, target, has_outcome, complete, in_arm = _inputs(spec, frame, p.outcome, p.covariates, p.fit_on, key)
     fit = np.flatnonzero(complete & has_outcome & in_arm)
     _check_size(fit, target, p.folds, len(p.covariates), outcome, p.fit_on, spec, key)
     center = X[fit].mean(axis=0)
@@ -101,9 +117,6 @@ def cross_fitted_index(index: IndexSpec, frame: pd.DataFrame, spec: Spec, *, key
     full, models, fold_of, value_fold, lp = cross_fit(Xc, target, fit, complete, p.folds, seed, groups)
     model = PrognosticModel(outcome.name, outcome.kind, tuple(p.covariates), center, sign, models, full, fold_of,
                             value_fold, key=key)
-    horizon = outcome.horizon if outcome.kind == "survival" else None
-    model.refitter = Refitter(Xc, complete, complete & has_outcome & in_arm, target, p.folds, seed, sign, horizon,
-                              anchor(full, Xc[fit], target.take(fit), horizon), full.coef)
     model.report = _report(index, outcome, model, Xc[fit], lp[fit], target.take(fit), seed, level)
     missing = describe_missing(dict(zip(p.covariates, X.T)))
     warnings = _warnings(index, outcome, complete, has_outcome, in_arm, model, missing)
@@ -188,6 +201,16 @@ class Refitter:
         x[drawn] = self.sign * lp + shift
         return x, {"coef": full.coef, "fold_coef": np.vstack([m.coef for m in models]),
                    "intercept": full.intercept, "shift": shift}
+
+
+def _inputs(spec: Spec, frame: pd.DataFrame, outcome_name: str, covariates: tuple[str, ...], fit_on: str, key: str):
+    """(outcome spec, covariates X, target, has outcome, complete covariates, in the fitting arm) per cohort row."""
+    outcome = _outcome(spec, outcome_name, key)
+    X = _covariates(frame, covariates, f"{key}.prognostic.covariates")
+    target, has_outcome = outcome_target(outcome, frame, f"{key}.prognostic.outcome")
+    complete = np.all(np.isfinite(X), axis=1)
+    in_arm = _arm_mask(frame, spec, spec.second) if fit_on == "second" else np.ones(len(frame), bool)
+    return outcome, X, target, has_outcome, complete, in_arm
 
 
 def outcome_target(outcome: OutcomeSpec, frame: pd.DataFrame, key: str) -> tuple[Target, np.ndarray]:
@@ -355,6 +378,9 @@ def _report(index: IndexSpec, outcome: OutcomeSpec, model: PrognosticModel, X: n
                               "level": level, "method": f"{MODEL_OF_KIND[outcome.kind]} regression of the outcome "
                               "on the out-of-fold linear predictor in the fitting set (1 = well calibrated)"},
         "converged": bool(full.converged and all(m.converged for m in model.fold_models)),
+        "anchor": anchor(full, X, target, outcome.horizon if outcome.kind == "survival" else None),
+        "sign": model.sign,
+        "predicted": _predicted_words(outcome),
         "method": (f"{MODEL_OF_KIND[outcome.kind]} model of {outcome.title} on {', '.join(model.covariates)}, "
                    f"fitted on {'the second arm' if p.fit_on == 'second' else 'all patients without an arm term'} "
                    f"by {p.folds}-fold cross-fitting (seed {seed}): patients in the fitting set take the value of "
@@ -372,13 +398,16 @@ def _events(target: Target) -> int | None:
     return int(np.sum(target.y)) if target.kind == "binary" else None
 
 
-def about_index(label: str, report: Mapping[str, Any], interval: str, refit: bool) -> str:
+def about_index(label: str, report: Mapping[str, Any], interval: str, refit: bool, spec: Spec | None = None) -> str:
     """One plain sentence for every break-even along a fitted index: what the score is fitted from, and whether
-    the intervals include the uncertainty of fitting it."""
+    the intervals include the uncertainty of fitting it (spec: to name the outcome by its label)."""
     names = [c["name"] for c in report.get("coefficients") or []]
     named = names[0] if len(names) < 2 else ", ".join(names[:-1]) + f" and {names[-1]}"
+    outcome = str(report.get("outcome"))
+    if spec is not None and any(o.name == outcome for o in spec.outcomes):
+        outcome = f"'{spec.outcome(outcome).title}'"
     head = (f"'{label}' is a score fitted from {named} ({report.get('model')} model of "
-            f"{report.get('outcome')}, {report.get('folds')}-fold cross-fitting), not a measurement; ")
+            f"{outcome}, {report.get('folds')}-fold cross-fitting), not a measurement; ")
     if interval == "bootstrap" and refit:
         return head + "its intervals include the uncertainty of fitting it (the bootstrap refits the score in every " \
                       "replicate and compares replicates on the score's predicted-outcome scale)."
@@ -387,6 +416,32 @@ def about_index(label: str, report: Mapping[str, Any], interval: str, refit: boo
                       "fixed; bootstrap intervals with refit_index = true include it)."
     return head + "its intervals do not include the uncertainty of fitting it (analytic intervals treat the score " \
                   "as known; only bootstrap intervals with refit_index = true include it)."
+
+
+def _predicted_words(outcome: OutcomeSpec) -> str:
+    """What `predicted` turns an index value into, in words."""
+    if outcome.kind == "survival":
+        units = f" {outcome.units}" if outcome.units else ""
+        return f"predicted risk of the event in '{outcome.title}' by {outcome.horizon:g}{units}"
+    return {"binary": f"predicted probability that '{outcome.title}' is 1",
+            "ordinal": f"predicted probability of a level of '{outcome.title}' worse than the best",
+            "continuous": f"predicted '{outcome.title}'"}[outcome.kind]
+
+
+def predicted(report: Mapping[str, Any], x: float | None) -> float | None:
+    """An index value as the model's absolute prediction (see `_predicted_words`), from its report's anchor and
+    sign; None for None (an unbounded interval end) or a report without them."""
+    if x is None or report.get("anchor") is None:
+        return None
+    a, sign = float(report["anchor"]), float(report.get("sign", 1.0))
+    model = report.get("model")
+    if model == "Cox":
+        return float(-math.expm1(-math.exp(min(x + a, 700.0))))
+    if model == "logistic":
+        return float(1.0 / (1.0 + math.exp(-max(min(sign * x, 700.0), -700.0))))
+    if model == "proportional odds":
+        return float(1.0 / (1.0 + math.exp(-max(min(x + a, 700.0), -700.0))))
+    return float(sign * x)
 
 
 def orientation(outcome: OutcomeSpec) -> str:

@@ -368,7 +368,7 @@ def full_analytic_case(directory: Path, runs: int) -> dict:
 
 
 def policy_reference(fs, index: str) -> int:
-    """(h) reference: each threshold rule done the straightforward way with the engine's own tools: for every
+    """(k) reference: each threshold rule done the straightforward way with the engine's own tools: for every
     outcome, threshold and arm, the mean prediction over the patients the rule gives that arm and its delta-method
     variance (selection.curve_average, which refits nothing). Outcomes only (composites have no such tool)."""
     from explorer import policy as po
@@ -393,7 +393,7 @@ def policy_reference(fs, index: str) -> int:
 
 
 def policy_case(directory: Path, runs: int) -> dict:
-    """(h) the rule curves along the frailty scale: every outcome, level and composite of the demo, both directions,
+    """(k) the rule curves along the frailty scale: every outcome, level and composite of the demo, both directions,
     the blanket rules, best thresholds with intervals, analytic (delta) intervals, over the cohort's patients."""
     from explorer import policy as po
 

@@ -562,7 +562,8 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("evidence[].peak.per_100", "Value of information there, per 100 patients."),
         ("evidence[].population", "The value over a population, each patient treated by their own index value: the "
                                   "mean of the per-patient values over its patients."),
-        ("evidence[].population.name", "Which patients: the loaded cohort, or the [target] patients."),
+        ("evidence[].population.name", "Which patients: the [target] file's local patients (along the indices it "
+                                       "gives), else the cohort."),
         ("evidence[].population.n", "How many patients with a value of this index."),
         ("evidence[].population.evpi", "Mean per-patient value of information."),
         ("evidence[].population.per_100", "The same per 100 patients."),

@@ -20,13 +20,15 @@ better if we knew the answer" for probabilities, and as value points or the outc
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import special
 
 from . import analysis as an
 from .margins import margin_for, measure_span, on_probability_scale
+from .policy import policy_indices
+from .target import Target, cohort_target, load_target
 from .results import r6, r6_list
 
 SQRT2PI = float(np.sqrt(2.0 * np.pi))
@@ -68,19 +70,16 @@ class Uncertainty:
         return evpi_draws(self.draws) if self.draws is not None else evpi_normal(self.estimate, self.sd)
 
 
-@dataclass
-class Population:
-    """Whose decisions the population value sums over: index values per index, a name and the patient count."""
-
-    name: str
-    x: dict[str, np.ndarray] = field(default_factory=dict)
-
-    def n(self, index: str) -> int:
-        return int(np.isfinite(self.x.get(index, np.zeros(0))).sum())
+def populations(fs: an.FitSet, target: Target | None = None) -> list[Target]:
+    """Whose decisions the population value sums over, first choice first: the given target or the spec's [target]
+    patients (along the indices their file gives), then the loaded cohort (along every index)."""
+    if target is None and fs.spec.target is not None:
+        target = load_target(fs.spec, fs.indices, policy_indices(fs.spec))
+    return ([target] if target is not None else []) + [cohort_target(fs.spec, fs.indices)]
 
 
-def cohort_population(fs: an.FitSet) -> Population:
-    return Population("the loaded cohort", {k: np.asarray(iv.values, float) for k, iv in fs.indices.items()})
+def _for_index(pops: list[Target], index: str) -> Target:
+    return next(p for p in pops if index in p.index)
 
 
 def pair_uncertainty(pf: an.PairFit, margin: float, grid: np.ndarray, replicates: list[dict] | None = None
@@ -135,14 +134,13 @@ def outcome_threshold(outcome, ev) -> float | None:
 
 
 def evidence_row(u: Uncertainty, *, outcome: str, index: str, measure: str, probability: bool, units: str,
-                 index_label: str, threshold: float | None, population: Population, x_range: tuple[float, float],
+                 index_label: str, threshold: float | None, population: Target, x_range: tuple[float, float],
                  kind: str | None = None) -> dict:
     """One `evidence` row: EVPI along the index, the stretch above the threshold and the population's value."""
     keep = (u.grid >= x_range[0] - 1e-9) & (u.grid <= x_range[1] + 1e-9)
     grid, ev = u.grid[keep], np.maximum(u.evpi()[keep], 0.0)
     per100 = 100.0 * ev
-    xs = population.x.get(index, np.zeros(0))
-    xs = xs[np.isfinite(xs)]
+    xs = population.values(index) if index in population.index else np.zeros(0)
     pop_ev = float(np.mean(np.interp(xs, grid, ev))) if len(xs) else None
     peak = int(np.argmax(per100)) if len(per100) else None
     per_unit = "in 100 patients" if probability else (f"{units} per 100 patients" if units else "per 100 patients")
@@ -190,13 +188,13 @@ def sentence(row: dict, index_label: str, probability: bool) -> str:
 
 
 def evidence_rows(fs: an.FitSet, composite: dict | None = None, replicates: list[dict] | None = None,
-                  population: Population | None = None) -> list[dict]:
+                  population: Target | None = None) -> list[dict]:
     """`evidence` rows for every outcome x index and every composite of an analysis."""
     from .values import _weights_for
 
     spec = fs.spec
     ev = spec.evidence
-    population = population or cohort_population(fs)
+    pops = populations(fs, population)
     rows = []
     for (oname, iname), pf in fs.pairs.items():
         o = pf.outcome
@@ -205,7 +203,8 @@ def evidence_rows(fs: an.FitSet, composite: dict | None = None, replicates: list
         u = pair_uncertainty(pf, margin_for(spec, o), an.grid_for(pf, spec.analysis.grid), replicates)
         rows.append(evidence_row(u, outcome=oname, index=iname, measure=o.title, probability=on_probability_scale(o),
                                  units=o.units or "", index_label=_index_label(fs, iname),
-                                 threshold=outcome_threshold(o, ev), population=population, x_range=pf.x_range))
+                                 threshold=outcome_threshold(o, ev), population=_for_index(pops, iname),
+                                 x_range=pf.x_range))
     for (kind, iname), (_, info) in (composite or {}).items():
         cm = info.model
         if cm is None:
@@ -220,7 +219,7 @@ def evidence_rows(fs: an.FitSet, composite: dict | None = None, replicates: list
             threshold = (ev.threshold if ev else 1.0) * float(anchor.horizon)
         rows.append(evidence_row(u, outcome="composite", index=iname, measure=info.measure, probability=False,
                                  units=units, index_label=_index_label(fs, iname), threshold=threshold,
-                                 population=population, x_range=cm.x_range, kind=kind))
+                                 population=_for_index(pops, iname), x_range=cm.x_range, kind=kind))
     return rows
 
 
@@ -228,5 +227,5 @@ def _index_label(fs: an.FitSet, name: str) -> str:
     return fs.indices[name].info.get("label") or name
 
 
-__all__ = ["unit_normal_loss", "evpi_normal", "evpi_draws", "Uncertainty", "Population", "cohort_population",
+__all__ = ["unit_normal_loss", "evpi_normal", "evpi_draws", "Uncertainty", "populations",
            "pair_uncertainty", "composite_uncertainty", "evidence_rows"]

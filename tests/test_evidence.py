@@ -219,3 +219,18 @@ def test_more_evidence_page_shows_the_engine_sentence_and_plans(monkeypatch):
     at.button[0].click().run()
     assert not at.exception, [e.value for e in at.exception]
     assert len(at.dataframe) >= 2  # the evidence table and the plan table
+
+
+def test_the_population_value_is_taken_over_the_target_patients_when_the_spec_names_them(folder):
+    # local patients concentrated near the break-even: their mean value of information is the mean of the curve at
+    # their own index values (standardisation over the target file; Hernan & Robins, What If, ch. 13)
+    local = pd.DataFrame({"x": np.linspace(4.0, 6.0, 41)})
+    local.to_csv(folder / "local.csv", index=False)
+    text = SPEC.format(extra="") + '\n[target]\npath = "local.csv"\nlabel = "our patients"\n'
+    spec = parse_spec_text(text, base_dir=folder)
+    (row,) = an.analyse(spec).document["evidence"]
+    xs = np.array([p["x"] for p in row["curve"]])
+    expected = np.mean(np.interp(local["x"], xs, [p["evpi"] for p in row["curve"]]))
+    assert row["population"]["name"] == "our patients" and row["population"]["n"] == 41
+    assert row["population"]["evpi"] == pytest.approx(expected, rel=1e-6)
+    assert "our patients (41 patients)" in row["sentence"]

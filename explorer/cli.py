@@ -162,14 +162,6 @@ def warning_lines(doc: dict) -> list[str]:
     return out
 
 
-def cmd_patient(args: argparse.Namespace) -> int:
-    from . import results as res
-    from .analysis import fit_all
-    from .numeric import captured
-    from .outputs import input_paths
-    from .patient import patient_document, patient_lines, place_patient
-
-
 def _at_value(text: str) -> tuple[str, float]:
     name, sep, value = text.partition("=")
     try:
@@ -241,9 +233,12 @@ def plan_table(doc: dict) -> str:
     return "\n".join(lines)
 
 
-def cmd_validate(args: argparse.Namespace) -> int:
-    from .cohort import load_cohort
-    from .indices import compute_index, needed_columns
+def cmd_patient(args: argparse.Namespace) -> int:
+    from . import results as res
+    from .analysis import fit_all
+    from .numeric import captured
+    from .outputs import input_paths
+    from .patient import patient_document, patient_lines, place_patient
     from .spec import load_spec
 
     spec = load_spec(args.spec)

@@ -180,6 +180,7 @@ pl = view.placements.get(index)
 if pl is None:
     st.stop()
 marker = {"x": pl.value, "label": f"this patient ({pl.value:.3g}, percentile {pl.percentile:.0f})"}
+row = new_choice.inputs()[1]
 ui_theme.set_patient(f"{'cohort row ' + str(row + 1) if row is not None else 'entered values'}: "
                      f"{titles[index]} {pl.value:.3g}")
 

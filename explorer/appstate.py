@@ -385,6 +385,10 @@ def build_spec(cohort: dict[str, Any], outcomes: list[dict], indices: list[dict]
         if maps:
             data["maps"] = maps
         data.update(carried_rule_sections(base, old, index_names))
+        if "evidence" in old:  # kept while every outcome it names a threshold for is still there
+            ev = dict(old["evidence"])
+            ev["thresholds"] = {k: v for k, v in ev.get("thresholds", {}).items() if k in names}
+            data["evidence"] = {k: v for k, v in ev.items() if v != {}}
     return parse_spec(data, base_dir=base_dir or Path("."), source=APP_SOURCE)
 
 

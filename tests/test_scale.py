@@ -82,7 +82,8 @@ def test_serial_joblib_and_dask_give_identical_results(small_spec, monkeypatch):
 
 def test_replicate_refits_equal_fit_pair_on_the_drawn_rows(small_spec):
     # the definition of a replicate: fit_pair (the full-data path) on the drawn rows; the fast path must match it
-    spec = _with(small_spec, interval="analytic")
+    # (all patients unweighted, as fit_pair is called here; weighted headlines carry their fixed weights into refits)
+    spec = _with(small_spec, interval="analytic", population="all")
     cohort = load_cohort(spec)
     fs = an.fit_all(spec, cohort)
     payload = an.boot_payload(fs, ("function",))

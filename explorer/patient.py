@@ -21,7 +21,7 @@ from .charts import fmt, per_hundred, words
 from .conversation import WHO_SHORT, ValuesRecord
 from .errors import FulcrumError
 from .margins import on_probability_scale
-from .indices.prognostic import about_index
+from .indices.prognostic import about_index_plain
 from .results import _jsonable
 from .spec import OutcomeSpec, SelectionSpec
 
@@ -573,7 +573,7 @@ def _limits(fs: FitSet, pl: Placement) -> list[str]:
     info = fs.indices[pl.name].info
     if "prognostic" in info:
         a = fs.spec.analysis
-        out.append(about_index(pl.label, info["prognostic"], a.interval, a.refit_index, fs.spec))
+        out.append(about_index_plain(pl.label, info["prognostic"], a.interval, a.refit_index))
     lo, hi = pl.cohort_range
     if pl.outside:
         out.append(f"This patient's {pl.label} ({fmt(pl.value)}) is outside the range seen in the cohort ({fmt(lo)} "

@@ -124,9 +124,9 @@ def test_replicates_refit_the_index_and_compare_on_the_common_scale(demo_spec: S
     assert (an.INDEX_KEY, "cfs") not in reps[0] and (an.INDEX_KEY, "risk") not in fixed[0]
     np.testing.assert_array_equal(reps[0][("alive", "cfs")]["first"], fixed[0][("alive", "cfs")]["first"])
     assert not np.allclose(reps[0][("alive", "risk")]["first"], fixed[0][("alive", "risk")]["first"])
-    # the sentence about the score reaches the patient view and the CLI summary
+    # the sentence about the score reaches the patient view (in a family's words) and the CLI summary
     view = place_patient(fs, row=0)
-    assert any("is a score fitted from age, sex, cfs, lactate and albumin" in t and "include the uncertainty" in t
+    assert any("is a score worked out from age, sex, cfs, lactate and albumin" in t and "ranges here allow" in t
                for t in view.sentences("risk"))
     res = an.analyse(spec, fs.cohort, fitset=fs, replicates=reps)
     text = summary_table(res.document)

@@ -418,6 +418,15 @@ def about_index(label: str, report: Mapping[str, Any], interval: str, refit: boo
                   "as known; only bootstrap intervals with refit_index = true include it)."
 
 
+def about_index_plain(label: str, report: Mapping[str, Any], interval: str, refit: bool) -> str:
+    """The same for a family: what the score is worked out from, and whether the likely ranges allow for it."""
+    names = [c["name"] for c in report.get("coefficients") or []]
+    named = names[0] if len(names) < 2 else ", ".join(names[:-1]) + f" and {names[-1]}"
+    allow = "allow" if interval == "bootstrap" and refit else "do not allow"
+    return (f"{label} is a score worked out from {named}. It is an estimate, not a measurement. "
+            f"The likely ranges here {allow} for that.")
+
+
 def _predicted_words(outcome: OutcomeSpec) -> str:
     """What `predicted` turns an index value into, in words."""
     if outcome.kind == "survival":

@@ -21,7 +21,8 @@ PAGES = [
 page = st.navigation([st.Page(file, title=title, url_path=path, default=i == 0)
                       for i, (file, title, path) in enumerate(PAGES)])
 ws = ui.workspace()
-ui.header(ws)  # the app's header (pages/ui_theme.py draws it)
+if page.url_path != "meeting":  # the meeting view is one screen of its own and names cohort and patient itself
+    ui.header(ws)  # the app's header (pages/ui_theme.py draws it)
 ui.sidebar(ws)
 ui_theme.header(ui.workspace())
 page.run()

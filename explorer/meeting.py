@@ -139,7 +139,7 @@ def meeting_content(view: PatientView, rows: Sequence[Mapping[str, Any]], cautio
                    f"({view.level:.0%} interval).",
                    verdicts, _nearest_break_evens(rows, index, pl.value, titles, pl.label),
                    _rests_on(coverage or [], pl.value, view.arms, pl.label, rows, index), list(cautions),
-                   list(view.limits[:3]))
+                   list(view.limits[:2]))
 
 
 # ------------------------------------------------------------------------------------------
@@ -147,13 +147,13 @@ def meeting_content(view: PatientView, rows: Sequence[Mapping[str, Any]], cautio
 # ------------------------------------------------------------------------------------------
 CSS = """
 <style>
-.fm { font-size: 13px; line-height: 1.25; }
+.fm { font-size: 12px; line-height: 1.2; }
 .fm table { border-collapse: collapse; margin: 0 0 6px 0; width: 100%; }
-.fm th, .fm td { border: 1px solid #bbb; padding: 2px 6px; text-align: left; vertical-align: top; }
+.fm th, .fm td { border: 1px solid #bbb; padding: 1px 6px; text-align: left; vertical-align: top; }
 .fm th { background: #eee; }
-.fm h4 { font-size: 15px; margin: 6px 0 3px 0; padding: 0; }
-.fm p, .fm li { margin: 0 0 2px 0; font-size: 13px; line-height: 1.25; }
-.fm td, .fm th { font-size: 13px; line-height: 1.2; }
+.fm h4 { font-size: 14px; margin: 4px 0 2px 0; padding: 0; }
+.fm p, .fm li { margin: 0 0 1px 0; font-size: 12px; line-height: 1.2; }
+.fm td, .fm th { font-size: 12px; line-height: 1.15; }
 .fm ul { margin: 0 0 4px 18px; padding: 0; }
 .fm .verdict { border-left: 4px solid #0072B2; padding: 3px 8px; background: #f2f7fb; margin-bottom: 4px; }
 .fm .small { font-size: 12px; color: #444; }

@@ -553,6 +553,7 @@ class Workspace:
     cohort: Any
     is_demo: bool = False
     notes: list[str] = field(default_factory=list)
+    source: dict | None = None  # a database extract's provenance, carried into the results' inputs.source
     fits: LRU = field(default_factory=lambda: LRU(10))
     results: LRU = field(default_factory=lambda: LRU(12))
     replicates: LRU = field(default_factory=lambda: LRU(2))
@@ -564,16 +565,20 @@ class Workspace:
         return self.cohort.sha256
 
     @classmethod
-    def open(cls, data: bytes, filename: str, spec: Spec, *, is_demo: bool = False) -> "Workspace":
-        """Load and check the cohort for this spec; raises FulcrumError and changes nothing on failure."""
-        return cls(data=data, filename=filename, spec=spec, cohort=load_for(spec, data, filename),
-                   is_demo=is_demo)
+    def open(cls, data: bytes, filename: str, spec: Spec, *, is_demo: bool = False,
+             source: dict | None = None) -> "Workspace":
+        """Load and check the cohort for this spec; raises FulcrumError and changes nothing on failure.
+        source: the provenance of a cohort read from a database (explorer.database), kept on the cohort."""
+        cohort = load_for(spec, data, filename)
+        if source is not None:
+            cohort.source = source
+        return cls(data=data, filename=filename, spec=spec, cohort=cohort, is_demo=is_demo, source=source)
 
     def with_spec(self, spec: Spec) -> "Workspace":
         """The same cohort under a new spec: reloaded and re-checked when the fit-relevant parts changed."""
         if fit_key("", spec) == fit_key("", self.spec):
             return dataclasses.replace(self, spec=spec, notes=[])
-        new = Workspace.open(self.data, self.filename, spec, is_demo=self.is_demo)
+        new = Workspace.open(self.data, self.filename, spec, is_demo=self.is_demo, source=self.source)
         new.fits, new.results, new.replicates, new.n_fits = self.fits, self.results, self.replicates, self.n_fits
         new.trust = self.trust
         return new

@@ -127,7 +127,8 @@ if fresh:
     frame = staged["frame"]
     base_rows = None
 else:
-    source = {"sha": ws.data_sha256, "data": ws.data, "filename": ws.filename, "sheet": ws.spec.cohort.sheet}
+    source = {"sha": ws.data_sha256, "data": ws.data, "filename": ws.filename, "sheet": ws.spec.cohort.sheet,
+              "database": ws.source}
     previews = st.session_state.setdefault(PREVIEWS, {})
     frame = previews.get(ws.data_sha256)
     if frame is None:
@@ -217,7 +218,7 @@ if frame is not None:
                               aps.indices_from_rows(indices.to_dict("records"), base, keep),
                               base=base, base_dir=Path(".") if fresh else ws.spec.cohort.path.parent)
         if fresh:
-            return aps.Workspace.open(source["data"], source["filename"], spec)
+            return aps.Workspace.open(source["data"], source["filename"], spec, source=source.get("database"))
         return ws.with_spec(spec)
 
     if st.button("Check and use", type="primary"):

@@ -446,6 +446,9 @@ def test_the_cohort_page_reads_a_database_and_asks_before_contacting_a_server(fo
     assert not at.exception and not [e.value for e in at.error]
     ws = at.session_state["workspace"]
     assert ws.cohort.n == 400 and ws.filename == "database-extract.parquet" and not ws.is_demo
+    # the app's results carry the extract's provenance as the command line's do (inputs.source)
+    source = ws.result(False).document["inputs"]["source"]
+    assert source["table"] == "registry.cohort" and source["rows"] == 400 and "cohort.duckdb" in source["url"]
 
 
 # ---------------------------------------------------------------------------------------------

@@ -276,14 +276,10 @@ def current_record(ws: aps.Workspace, choice: aps.PatientChoice):
 # Small pieces of screen
 # ------------------------------------------------------------------------------------------
 def header(ws: aps.Workspace) -> None:
-    """The app's header, drawn once per run above every page (pages/ui_theme.py provides it when present)."""
-    try:
-        theme = importlib.import_module("ui_theme")
-    except ModuleNotFoundError:
-        return
-    draw = getattr(theme, "header", None)
-    if draw is not None:
-        draw(ws)
+    """The app's header, drawn once per run above every page (pages/ui_theme.py)."""
+    import ui_theme  # a sibling page module, like this one
+
+    ui_theme.header(ws)
 
 
 def sidebar(ws: aps.Workspace) -> None:

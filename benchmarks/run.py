@@ -41,6 +41,7 @@ sys.path[:0] = [str(ROOT), str(Path(__file__).resolve().parent)]
 import reference as ref  # noqa: E402
 
 from explorer import analysis as an  # noqa: E402
+from explorer import fitting as ft  # noqa: E402
 from explorer import demo  # noqa: E402
 from explorer import values as vl  # noqa: E402
 from explorer.cohort import column_roles, load_cohort  # noqa: E402
@@ -297,10 +298,10 @@ def bootstrap_case(directory: Path, replicates: int, ref_k: int) -> tuple[dict, 
     res = an.analyse(spec, cohort)  # first, so it pays for starting the worker processes
     total_s, total_cpu = time.perf_counter() - t, cpu_seconds() - c
     t = time.perf_counter()
-    fs = an.fit_all(spec, cohort)
+    fs = ft.fit_all(spec, cohort)
     fit_s = time.perf_counter() - t
     t, c = time.perf_counter(), cpu_seconds()
-    an.run_bootstrap(fs, keep_distribution=(spec.values.outcome,))
+    ft.run_bootstrap(fs, keep_distribution=(spec.values.outcome,))
     models_s, models_cpu = time.perf_counter() - t, cpu_seconds() - c
     per_rep, per_rep_cpu = reference_bootstrap(spec, directory, ref_k)
     ref_serial = per_rep * replicates
@@ -350,7 +351,7 @@ def full_analytic_case_here(directory: str | Path, runs: int) -> dict:
     spec = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, interval="analytic"))
     cohort = load_cohort(spec, extra_columns=needed_columns(spec))
     an.analyse(spec, cohort)
-    fit_s, _ = timed(lambda: an.fit_all(spec, cohort), runs)
+    fit_s, _ = timed(lambda: ft.fit_all(spec, cohort), runs)
     seconds, _ = timed(lambda: an.analyse(spec, cohort), runs)
     return {"patients": cohort.n, "outcomes": len(spec.outcomes), "indices": len(spec.indices), "seconds": seconds,
             "runs": runs, "fit_all_s": fit_s}
@@ -400,7 +401,7 @@ def policy_case(directory: Path, runs: int) -> dict:
     spec = load_spec(directory / "demo.toml")
     spec = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, interval="analytic"))
     cohort = load_cohort(spec, extra_columns=needed_columns(spec))
-    fs = an.fit_all(spec, cohort)
+    fs = ft.fit_all(spec, cohort)
     po.prepare_index(fs, "cfs")
     cpu = time.process_time()
     seconds, ps = timed(lambda: po.prepare_index(fs, "cfs"), runs)
@@ -426,7 +427,7 @@ def plan_case(directory: Path, ref_k: int = 3) -> dict:
 
     spec = load_spec(directory / "demo.toml")
     spec = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, workers=2))
-    fs = an.fit_all(spec)
+    fs = ft.fit_all(spec)
     target = pl.Target(width=1.0)
     t, c = time.perf_counter(), cpu_seconds()
     doc = pl.plan_study(fs, "alive", "cfs", target)

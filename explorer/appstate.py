@@ -588,7 +588,7 @@ class Workspace:
 
     def index_values(self) -> dict:
         """Each index over the cohort (computed once per cohort and spec; the fits reuse them)."""
-        from .analysis import compute_indices
+        from .fitting import compute_indices
 
         key = self._key("indices")
         return self.fits.take(key) or self.fits.put(key, compute_indices(self.spec, self.cohort))
@@ -598,7 +598,7 @@ class Workspace:
 
     def fitset(self, progress: Callable[[int, int], None] | None = None):
         """The fitted models for this cohort and spec, fitted once and reused (never for weights or margin)."""
-        from .analysis import fit_all
+        from .fitting import fit_all
 
         key = self._key("fits")
         fs = self.fits.take(key)
@@ -617,7 +617,7 @@ class Workspace:
 
     def run_bootstrap(self, progress: Callable[[int, int], None] | None = None) -> None:
         """Bootstrap replicates for the current fits, kept for every later re-summary (margin, weights)."""
-        from .analysis import run_bootstrap
+        from .fitting import run_bootstrap
 
         keep = (self.spec.values.outcome,) if self.spec.values else ()
         self.replicates.put(self.boot_key(), run_bootstrap(self.fitset(), progress=progress, keep_distribution=keep))
@@ -633,8 +633,8 @@ class Workspace:
     # -- what the pages show -----------------------------------------------------------------
     def curve_rows(self, bootstrap: bool = True) -> list[dict]:
         """The `results` rows (outcome x index) for the current margin, level and bands."""
-        from . import results as res
-        from .analysis import summarise
+        from . import result_rows as res
+        from .fitting import summarise
         from .coverage import label_results
         from .headline import annotate
 
@@ -726,7 +726,7 @@ class Workspace:
 
     def _unfitted(self):
         """The cohort and its indices as a FitSet without fits, for what needs no model."""
-        from .analysis import FitSet
+        from .fitting import FitSet
 
         return FitSet(self.spec, self.cohort, self.index_values(), {})
 

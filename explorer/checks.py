@@ -16,7 +16,7 @@ from typing import Callable
 import numpy as np
 from scipy import stats
 
-from . import analysis as an
+from . import fitting as ft
 from . import breakeven as be
 from .cohort import Cohort
 from .errors import FulcrumError
@@ -29,9 +29,10 @@ from .models.cox_kernel import CoxKernel
 from .models.glm import logistic_loglik
 from .models.ordinal import ordinal_loglik
 from .models.weibull import weibull_loglik
-from .results import measure_words, r6
-from .selection import SMD_FLAG, smd
+from .models.words import measure_words
+from .numeric import r6
 from .spec import OutcomeSpec
+from .weighting import SMD_FLAG, smd
 
 BANDS = 5
 WINDOW, STEP = 300, 100
@@ -176,7 +177,7 @@ def patient_fit(fit, d):
 # ------------------------------------------------------------------------------------------
 # Observed versus fitted along the index, and calibration
 # ------------------------------------------------------------------------------------------
-def observed_vs_fitted(pf: an.PairFit, bands: int = BANDS, level: float = 0.95, by_level: bool | None = None
+def observed_vs_fitted(pf: ft.PairFit, bands: int = BANDS, level: float = 0.95, by_level: bool | None = None
                        ) -> tuple[list[dict], list[dict], list[str]]:
     """Per arm and band: the observed measure with its interval beside the mean fitted value; then a
     calibration summary per arm and the warnings."""
@@ -279,7 +280,7 @@ def window_starts(n: int, window: int, step: int) -> tuple[list[int], int, int, 
     return starts, window, step, notes
 
 
-def sliding_windows(pf: an.PairFit, window: int = WINDOW, step: int = STEP, level: float = 0.95
+def sliding_windows(pf: ft.PairFit, window: int = WINDOW, step: int = STEP, level: float = 0.95
                     ) -> tuple[list[dict], list[str]]:
     """Nonparametric first-minus-second difference (oriented) in overlapping windows of patients ordered
     along the index (ties by cohort row), beside the model's difference at the window's median index."""
@@ -292,7 +293,7 @@ def sliding_windows(pf: an.PairFit, window: int = WINDOW, step: int = STEP, leve
     x = x[order]
     starts, width, _, notes = window_starts(len(x), window, step)
     z = be.critical_value(level)
-    dfn = an.difference_fn(pf)
+    dfn = ft.difference_fn(pf)
     model = _at_each(dfn, x)
     out, empty, warnings = [], [], [f"{pf.outcome.title} along {pf.index}: {n}" for n in notes]
     for s in starts:
@@ -446,7 +447,7 @@ def _quadratic_start(maps: list[np.ndarray], params: list[np.ndarray], at_params
     return theta if np.all(np.isfinite(theta)) else None
 
 
-def effect_modification(pf: an.PairFit, clustered: bool = False, index_label: str | None = None,
+def effect_modification(pf: ft.PairFit, clustered: bool = False, index_label: str | None = None,
                         kernels: dict[str, CoxKernel] | None = None) -> dict:
     """Likelihood-ratio test that the index terms differ between the arms (df = index basis columns).
 
@@ -489,7 +490,7 @@ def effect_modification(pf: an.PairFit, clustered: bool = False, index_label: st
 # ------------------------------------------------------------------------------------------
 # The break-even point as a function of the horizon (survival outcomes)
 # ------------------------------------------------------------------------------------------
-def horizon_grid(pf: an.PairFit, horizons: int = HORIZONS) -> np.ndarray:
+def horizon_grid(pf: ft.PairFit, horizons: int = HORIZONS) -> np.ndarray:
     """From the 10th percentile of event times to the end of follow-up in the arm that ends first,
     with the spec's horizon added."""
     times = np.concatenate([d.time[d.event > 0] for d in pf.data.values()])
@@ -519,13 +520,13 @@ def cox_kernel(fit, d) -> CoxKernel:
     return CoxKernel(t, e, prep.X, prep.w)
 
 
-def pair_kernels(pf: an.PairFit) -> dict[str, CoxKernel]:
+def pair_kernels(pf: ft.PairFit) -> dict[str, CoxKernel]:
     """Each Cox arm's kernel, built once and shared by the effect-modification test and the horizon curve."""
     return {a: cox_kernel(f, pf.data[a]) for a, f in pf.fits.items() if isinstance(f, CoxFit)}
 
 
-def at_pair_horizon(pf: an.PairFit, horizon: float, kernels: dict | None = None,
-                    baselines: dict | None = None) -> an.PairFit:
+def at_pair_horizon(pf: ft.PairFit, horizon: float, kernels: dict | None = None,
+                    baselines: dict | None = None) -> ft.PairFit:
     """Both arms' fits read at another horizon (see at_horizon)."""
     kernels, baselines = kernels or {}, baselines or {}
     fits = {a: at_horizon(f, pf.data[a], horizon, kernels.get(a), baselines.get(a)) for a, f in pf.fits.items()}
@@ -533,21 +534,21 @@ def at_pair_horizon(pf: an.PairFit, horizon: float, kernels: dict | None = None,
                                warnings=[])
 
 
-def horizon_curve(fs: an.FitSet, pf: an.PairFit, horizons: int = HORIZONS,
+def horizon_curve(fs: ft.FitSet, pf: ft.PairFit, horizons: int = HORIZONS,
                   kernels: dict[str, CoxKernel] | None = None) -> tuple[list[dict], list[str]]:
     """Break-even point (with its interval) at a grid of horizons, and numbers at risk there; horizons
     where fewer than 10% of an arm (or fewer than 20 patients) remain at risk are flagged.
 
     Every horizon reads the same fits: each Cox arm's baseline is computed once, over all event times."""
     spec, arms = fs.spec, list(pf.fits)
-    main = an.analytic_summary(pf, spec).break_even
+    main = ft.analytic_summary(pf, spec).break_even
     target = main[0].x if main else None
     kernels = pair_kernels(pf) if kernels is None else kernels
     baselines = {a: k.baseline(pf.fits[a].params_) for a, k in kernels.items()}
     times = {a: np.sort(pf.data[a].time) for a in arms}
     out, flagged = [], []
     for h in horizon_grid(pf, horizons):
-        s = an.analytic_summary(at_pair_horizon(pf, h, kernels, baselines), spec)
+        s = ft.analytic_summary(at_pair_horizon(pf, h, kernels, baselines), spec)
         risk = [len(times[a]) - int(np.searchsorted(times[a], h, side="left")) for a in arms]
         beyond = any(r < max(AT_RISK_MIN, AT_RISK_SHARE * len(pf.data[a].time)) for r, a in zip(risk, arms))
         pick = None
@@ -574,7 +575,7 @@ def horizon_curve(fs: an.FitSet, pf: an.PairFit, horizons: int = HORIZONS,
 # ------------------------------------------------------------------------------------------
 # All checks for every outcome x index
 # ------------------------------------------------------------------------------------------
-def pair_checks(fs: an.FitSet, pf: an.PairFit, *, bands: int = BANDS, window: int = WINDOW,
+def pair_checks(fs: ft.FitSet, pf: ft.PairFit, *, bands: int = BANDS, window: int = WINDOW,
                 step: int = STEP) -> dict:
     """Every check for one outcome along one index, as one JSON row."""
     level = fs.spec.analysis.level
@@ -601,12 +602,12 @@ def _discrete(iv: IndexValues | None) -> bool | None:
     return None if iv is None else bool(iv.info.get("discrete"))
 
 
-def checks_rows(fs: an.FitSet, *, bands: int = BANDS, window: int = WINDOW, step: int = STEP) -> list[dict]:
+def checks_rows(fs: ft.FitSet, *, bands: int = BANDS, window: int = WINDOW, step: int = STEP) -> list[dict]:
     """The JSON `checks` rows: one per outcome x index (see pair_checks)."""
     return [pair_checks(fs, pf, bands=bands, window=window, step=step) for pf in fs.pairs.values()]
 
 
-def clustering(fs: an.FitSet) -> dict | None:
+def clustering(fs: ft.FitSet) -> dict | None:
     """Which clustered intervals the analysis used and over how many clusters; a warning below 20 clusters,
     where sandwich variances and cluster bootstraps both run too narrow. None without a cluster column."""
     spec = fs.spec

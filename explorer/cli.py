@@ -175,7 +175,7 @@ def _at_value(text: str) -> tuple[str, float]:
 
 def cmd_plan(args: argparse.Namespace) -> int:
     from . import results as res
-    from .analysis import fit_all
+    from .fitting import fit_all
     from .planner import Target, plan_study
     from .outputs import input_paths
     from .spec import load_spec
@@ -235,7 +235,7 @@ def plan_table(doc: dict) -> str:
 
 def cmd_patient(args: argparse.Namespace) -> int:
     from . import results as res
-    from .analysis import fit_all
+    from .fitting import fit_all
     from .numeric import captured
     from .outputs import input_paths
     from .patient import patient_document, patient_lines, place_patient

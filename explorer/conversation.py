@@ -12,9 +12,10 @@ from datetime import datetime
 from typing import Any, Mapping, Sequence
 
 from .errors import FulcrumError
+from .presets import PRESETS
 from .spec import WHOSE
 
-SOURCES = ("conversation", "edited", "spec")  # besides these, a preset's name from explorer.values.PRESETS
+SOURCES = ("conversation", "edited", "spec")  # besides these, a preset's name from explorer.presets.PRESETS
 ACCEPTABLE_SPAN = 0.5   # acceptable states step down from 1 by rank, staying above 1 - ACCEPTABLE_SPAN
 NOT_ACCEPTABLE_TOP = 0.2  # not acceptable but not worse than death: between 0 and this
 WORSE_DEPTH = 0.5       # worse than death: between 0 and minus this
@@ -204,8 +205,6 @@ def list_words(levels: Sequence[str]) -> str:
 
 def source_words(source: str, had_answers: bool) -> str:
     """Where the weights came from, in a sentence."""
-    from .values import PRESETS
-
     if source == "conversation":
         return "The weights come from the answers below."
     if source == "edited":

@@ -25,11 +25,12 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
-from . import analysis as an
+from . import fitting as ft
 from .margins import margin_for, measure_span, on_probability_scale
 from .policy import policy_indices
+from .numeric import quad, r6, r6_list
 from .target import Target, cohort_target, load_target
-from .results import r6, r6_list
+from .values import weights_for
 
 SQRT2PI = float(np.sqrt(2.0 * np.pi))
 
@@ -70,7 +71,7 @@ class Uncertainty:
         return evpi_draws(self.draws) if self.draws is not None else evpi_normal(self.estimate, self.sd)
 
 
-def populations(fs: an.FitSet, target: Target | None = None) -> list[Target]:
+def populations(fs: ft.FitSet, target: Target | None = None) -> list[Target]:
     """Whose decisions the population value sums over, first choice first: the given target or the spec's [target]
     patients (along the indices their file gives), then the loaded cohort (along every index)."""
     if target is None and fs.spec.target is not None:
@@ -82,14 +83,14 @@ def _for_index(pops: list[Target], index: str) -> Target:
     return next(p for p in pops if index in p.index)
 
 
-def pair_uncertainty(pf: an.PairFit, margin: float, grid: np.ndarray, replicates: list[dict] | None = None
+def pair_uncertainty(pf: ft.PairFit, margin: float, grid: np.ndarray, replicates: list[dict] | None = None
                      ) -> Uncertainty:
     """Net benefit (oriented difference less the margin) of one outcome along its index; `grid` must be the
     analysis grid when replicates are given (their curves lie on it)."""
     first, second = (pf.fits[a] for a in pf.fits)
     est = pf.sign * (first.measure(grid) - second.measure(grid)) - margin
     if replicates is not None:
-        diffs, _, _ = an.pair_curves(pf, replicates)
+        diffs, _, _ = ft.pair_curves(pf, replicates)
         ok = [d for d in diffs if d is not None]
         if ok:
             return Uncertainty(grid, est, draws=np.asarray(ok, float) - margin)
@@ -99,13 +100,11 @@ def pair_uncertainty(pf: an.PairFit, margin: float, grid: np.ndarray, replicates
 
 def composite_uncertainty(cm, weights: np.ndarray, margin: float) -> Uncertainty:
     """The same for a composite: its delta-method sd, or its replicates' curves when attached."""
-    from .values import _quad
-
     est = (cm.L[0] - cm.L[1]) @ weights - margin
     if cm.boot is not None:
         B0, B1 = cm.fitted_replicates()
         return Uncertainty(cm.grid, est, draws=(B0 - B1) @ weights - margin)
-    sd = np.sqrt(np.maximum(_quad(cm.C[0], weights) + _quad(cm.C[1], weights), 0.0))
+    sd = np.sqrt(np.maximum(quad(cm.C[0], weights) + quad(cm.C[1], weights), 0.0))
     return Uncertainty(cm.grid, est, sd=sd)
 
 
@@ -187,11 +186,9 @@ def sentence(row: dict, index_label: str, probability: bool) -> str:
     return text
 
 
-def evidence_rows(fs: an.FitSet, composite: dict | None = None, replicates: list[dict] | None = None,
+def evidence_rows(fs: ft.FitSet, composite: dict | None = None, replicates: list[dict] | None = None,
                   population: Target | None = None) -> list[dict]:
     """`evidence` rows for every outcome x index and every composite of an analysis."""
-    from .values import _weights_for
-
     spec = fs.spec
     ev = spec.evidence
     pops = populations(fs, population)
@@ -200,7 +197,7 @@ def evidence_rows(fs: an.FitSet, composite: dict | None = None, replicates: list
         o = pf.outcome
         if o.among_survivors:
             continue  # its difference compares different groups of survivors: not a choice between arms
-        u = pair_uncertainty(pf, margin_for(spec, o), an.grid_for(pf, spec.analysis.grid), replicates)
+        u = pair_uncertainty(pf, margin_for(spec, o), ft.grid_for(pf, spec.analysis.grid), replicates)
         rows.append(evidence_row(u, outcome=oname, index=iname, measure=o.title, probability=on_probability_scale(o),
                                  units=o.units or "", index_label=_index_label(fs, iname),
                                  threshold=outcome_threshold(o, ev), population=_for_index(pops, iname),
@@ -209,7 +206,7 @@ def evidence_rows(fs: an.FitSet, composite: dict | None = None, replicates: list
         cm = info.model
         if cm is None:
             continue
-        w = _weights_for(cm, info.weights)
+        w = weights_for(cm, info.weights)
         u = composite_uncertainty(cm, w, spec.analysis.margin)  # the analysis margin is the composites' margin
         if cm.weighted:  # expected value weights: on the [0, 1] scale of the weights
             units, threshold = "value points", (ev.threshold if ev else 1.0)
@@ -223,7 +220,7 @@ def evidence_rows(fs: an.FitSet, composite: dict | None = None, replicates: list
     return rows
 
 
-def _index_label(fs: an.FitSet, name: str) -> str:
+def _index_label(fs: ft.FitSet, name: str) -> str:
     return fs.indices[name].info.get("label") or name
 
 

@@ -5,13 +5,13 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import analysis as an
+from . import fitting as ft
 from .errors import FulcrumError
 
 FIT_ERRORS = (FulcrumError, np.linalg.LinAlgError, ValueError, FloatingPointError)
 
 
-def population_json(fs: an.FitSet) -> dict:
+def population_json(fs: ft.FitSet) -> dict:
     """The document's `population`: which patients the headline rows rest on and why."""
     if fs.population is None:
         return {"population": "all", "words": "all patients", "chosen_by": "default", "reason": "", "adjust": []}
@@ -46,7 +46,7 @@ def chosen_differ(sel_rows: list[dict], alpha: float) -> list[str]:
     return list(dict.fromkeys(out))
 
 
-def annotate(fs: an.FitSet, rows: list[dict], selection: list[dict]) -> None:
+def annotate(fs: ft.FitSet, rows: list[dict], selection: list[dict]) -> None:
     """Add to each headline row the selection warning (with the other population's break-even beside it) and
     the far-out comparison. Rows are changed in place."""
     alpha = 1.0 - fs.spec.analysis.level
@@ -73,11 +73,11 @@ def annotate(fs: an.FitSet, rows: list[dict], selection: list[dict]) -> None:
             row["warnings"].append(_without(fs, row, np.asarray(far, int)))
 
 
-def _population_words(fs: an.FitSet) -> str:
+def _population_words(fs: ft.FitSet) -> str:
     return "all patients" if fs.population is None else fs.population.words
 
 
-def _without(fs: an.FitSet, row: dict, far: np.ndarray) -> str:
+def _without(fs: ft.FitSet, row: dict, far: np.ndarray) -> str:
     """The break-even with and without the far-out rows of the row's index."""
     pf = fs.pair(row["outcome"], row["index"])
     title = f"{pf.outcome.title} along {fs.indices[pf.index].info.get('label', pf.index)}"
@@ -86,9 +86,9 @@ def _without(fs: an.FitSet, row: dict, far: np.ndarray) -> str:
     if n_out == 0:
         return f"{title}: the far-out index values belong to patients not used here."
     try:
-        sub = an.fit_pair(fs.spec, fs.cohort, pf.outcome, fs.indices[pf.index], pf.basis, rows=rows, checks=False,
+        sub = ft.fit_pair(fs.spec, fs.cohort, pf.outcome, fs.indices[pf.index], pf.basis, rows=rows, checks=False,
                           population=fs.population)
-        without = [b.to_json() for b in an.analytic_summary(sub, fs.spec).break_even]
+        without = [b.to_json() for b in ft.analytic_summary(sub, fs.spec).break_even]
         said = _words(without)
     except FIT_ERRORS as exc:
         said = f"no fit ({exc})"

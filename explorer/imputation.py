@@ -17,13 +17,13 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from . import analysis as an
+from . import fitting as ft
 from . import breakeven as be
 from .cohort import Cohort
 from .errors import FulcrumError
 from .indices import IndexValues
 from .km import nelson_aalen_at
-from .results import r6
+from .numeric import r6
 from .spec import OutcomeSpec, Spec
 
 M = 5
@@ -136,7 +136,7 @@ def _columns(spec: Spec, cohort: Cohort, indices: dict[str, IndexValues]) -> pd.
     return pd.DataFrame(cols)
 
 
-def impute(fs: an.FitSet, m: int = M, seed: int | None = None) -> tuple[list[Imputed], dict[str, int]]:
+def impute(fs: ft.FitSet, m: int = M, seed: int | None = None) -> tuple[list[Imputed], dict[str, int]]:
     """m completed copies of the cohort (seeds drawn from the analysis seed) and the count of values
     filled per column (values missing by design, such as deaths for an outcome among survivors, stay missing)."""
     from sklearn.exceptions import ConvergenceWarning
@@ -170,7 +170,7 @@ def impute(fs: an.FitSet, m: int = M, seed: int | None = None) -> tuple[list[Imp
     return out, counts
 
 
-def _completed(fs: an.FitSet, table: pd.DataFrame, filled: np.ndarray) -> Imputed:
+def _completed(fs: ft.FitSet, table: pd.DataFrame, filled: np.ndarray) -> Imputed:
     """Write imputed values back in each column's own terms: levels, 0/1, bounds, observed index levels."""
     spec, cohort = fs.spec, fs.cohort
     frame = cohort.frame.copy()
@@ -208,7 +208,7 @@ def _completed(fs: an.FitSet, table: pd.DataFrame, filled: np.ndarray) -> Impute
 # ------------------------------------------------------------------------------------------
 # Refits and pooled break-evens
 # ------------------------------------------------------------------------------------------
-def _imputed_counts(fs: an.FitSet, pf: an.PairFit) -> dict[str, int]:
+def _imputed_counts(fs: ft.FitSet, pf: ft.PairFit) -> dict[str, int]:
     """Values this pair's analysis would gain from imputation, per column (survival times never)."""
     f, o = fs.cohort.frame, pf.outcome
     out = {}
@@ -220,7 +220,7 @@ def _imputed_counts(fs: an.FitSet, pf: an.PairFit) -> dict[str, int]:
     return {k: v for k, v in out.items() if v}
 
 
-def _pooled_fieller(pf: an.PairFit, terms: list, level: float) -> list[dict]:
+def _pooled_fieller(pf: ft.PairFit, terms: list, level: float) -> list[dict]:
     """Pool the linear difference a + b x by Rubin's rules (mean, W + (1 + 1/m) B as 2x2 matrices) and take
     Fieller's set at the t critical value with Rubin's degrees of freedom for a + b x at the pooled root."""
     m = len(terms)
@@ -260,14 +260,14 @@ def _pooled_inversion(grid: np.ndarray, diff: Pooled, margin: float, roots: np.n
     return bes
 
 
-def pooled_pair(fs: an.FitSet, pf: an.PairFit, completed: list[Imputed]) -> dict:
+def pooled_pair(fs: ft.FitSet, pf: ft.PairFit, completed: list[Imputed]) -> dict:
     """Refit one outcome x index on every completed cohort; pool the curves and break-evens by Rubin's rules."""
-    spec, level, margin = fs.spec, fs.spec.analysis.level, an.margin_of(fs.spec, pf)
+    spec, level, margin = fs.spec, fs.spec.analysis.level, ft.margin_of(fs.spec, pf)
     arms = list(pf.fits)
-    grid = an.grid_for(pf, spec.analysis.grid)
+    grid = ft.grid_for(pf, spec.analysis.grid)
     fits, curves = [], {k: ([], []) for k in ("first", "second", "difference")}
     for c in completed:
-        p = an.fit_pair(spec, c.cohort, pf.outcome, c.indices[pf.index], pf.basis, checks=False,
+        p = ft.fit_pair(spec, c.cohort, pf.outcome, c.indices[pf.index], pf.basis, checks=False,
                         population=fs.population)  # the headline's patients, as the complete-case fit
         fits.append(p)
         m = [p.fits[a].measure(grid) for a in arms]
@@ -278,18 +278,18 @@ def pooled_pair(fs: an.FitSet, pf: an.PairFit, completed: list[Imputed]) -> dict
             curves[key][1].append(var)
     pooled = {k: rubin(np.array(e), np.array(v)) for k, (e, v) in curves.items()}
     dbar = pooled["difference"].estimate
-    terms = [an.fieller_terms(p, margin) for p in fits]
+    terms = [ft.fieller_terms(p, margin) for p in fits]
     if all(t is not None for t in terms):
         bes, warnings = _pooled_fieller(pf, terms, level), []
     else:
-        bes, warnings = _pooled_inversion(grid, pooled["difference"], margin, an.grid_roots(grid, dbar - margin),
+        bes, warnings = _pooled_inversion(grid, pooled["difference"], margin, ft.grid_roots(grid, dbar - margin),
                                           level), []
     for b in bes:
         below, above = (float(np.interp(b["x"] + d, grid, dbar)) - margin for d in (-1e-3, 1e-3))
         b["favours_below"] = arms[0] if below > 0 else arms[1]
         b["favours_above"] = arms[0] if above > 0 else arms[1]
         b["extrapolated"] = not (pf.x_range[0] <= b["x"] <= pf.x_range[1])
-    keep = an.in_range(pf, grid)
+    keep = ft.in_range(pf, grid)
     step = max(1, int(keep.sum()) // CURVE_POINTS)
     bands = {key: pr.interval(level) for key, pr in pooled.items()}
     curve = []
@@ -304,7 +304,7 @@ def pooled_pair(fs: an.FitSet, pf: an.PairFit, completed: list[Imputed]) -> dict
     return {"n": n, "break_even": bes, "curve": curve, "warnings": warnings}
 
 
-def imputed_break_evens(fs: an.FitSet, m: int = M) -> list[dict]:
+def imputed_break_evens(fs: ft.FitSet, m: int = M) -> list[dict]:
     """The JSON `imputation` rows: complete-case and multiply imputed break-evens side by side, per outcome
     x index, with the pooled curves. Pairs with nothing to impute keep the complete-case analysis."""
     spec = fs.spec
@@ -314,7 +314,7 @@ def imputed_break_evens(fs: an.FitSet, m: int = M) -> list[dict]:
     completed, _ = impute(fs, m) if any(_imputed_counts(fs, pf) for pf in fs.pairs.values()) else ([], {})
     rows = []
     for pf in fs.pairs.values():
-        cc = an.analytic_summary(pf, spec)
+        cc = ft.analytic_summary(pf, spec)
         gains = _imputed_counts(fs, pf)
         row = {"outcome": pf.outcome.name, "index": pf.index, "m": int(m), "seed": spec.analysis.seed,
                "imputed_values": gains,

@@ -13,7 +13,7 @@ import numpy as np
 from scipy import stats
 
 from .errors import FulcrumError
-from .results import r6
+from .numeric import r6
 
 
 @dataclass(frozen=True)

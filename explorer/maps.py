@@ -18,13 +18,15 @@ import numpy as np
 import pandas as pd
 from scipy.spatial import ConvexHull, QhullError, cKDTree
 
-from . import analysis as an
+from . import fitting as ft
 from . import breakeven as be
 from . import values as vl
 from .errors import FulcrumError
 from .models import fit_model
 from .models.base import Basis
-from .results import index_info_json, measure_words, r6
+from .models.words import measure_words
+from .numeric import r6
+from .result_rows import index_info_json
 from .spec import MapSpec, OutcomeSpec, Spec
 
 GRID = 60
@@ -61,7 +63,7 @@ def on_plane(fit: Any, plane: Plane, interaction: bool) -> Any:
     return held
 
 
-def _used_rows(fs: an.FitSet, outcome: OutcomeSpec, a: np.ndarray, b: np.ndarray, names: tuple[str, str]
+def _used_rows(fs: ft.FitSet, outcome: OutcomeSpec, a: np.ndarray, b: np.ndarray, names: tuple[str, str]
                ) -> tuple[dict[str, np.ndarray], list[str]]:
     spec = fs.spec
     arm_col = fs.cohort.frame[spec.cohort.arm].to_numpy()
@@ -77,8 +79,8 @@ def _used_rows(fs: an.FitSet, outcome: OutcomeSpec, a: np.ndarray, b: np.ndarray
     return rows, warnings
 
 
-def fit_plane_pair(fs: an.FitSet, outcome: OutcomeSpec, indices: tuple[str, str], interaction: bool,
-                   plane: Plane) -> an.PairFit:
+def fit_plane_pair(fs: ft.FitSet, outcome: OutcomeSpec, indices: tuple[str, str], interaction: bool,
+                   plane: Plane) -> ft.PairFit:
     """Both arms' models of one outcome in two indices, as a PairFit whose fits evaluate over `plane`."""
     spec = fs.spec
     ia, ib = (fs.indices[n] for n in indices)
@@ -95,7 +97,7 @@ def fit_plane_pair(fs: an.FitSet, outcome: OutcomeSpec, indices: tuple[str, str]
     fits, data = {}, {}
     for arm in spec.cohort.arms:
         r = rows[arm]
-        d = an.outcome_data(spec, fs.cohort, outcome, a, r, adjust_ref)
+        d = ft.outcome_data(spec, fs.cohort, outcome, a, r, adjust_ref)
         if len(d) == 0:
             raise FulcrumError(f"no {arm} patients have complete data for '{outcome.name}' and both indices.",
                                column=outcome.column or outcome.time, hint="Check these columns for this arm.")
@@ -103,11 +105,11 @@ def fit_plane_pair(fs: an.FitSet, outcome: OutcomeSpec, indices: tuple[str, str]
         d.z = extra if d.z is None else np.column_stack([extra, d.z])
         d.z_names = names + tuple(d.z_names)
         d.z_ref = ref if adjust_ref is None else np.r_[ref, adjust_ref]
-        fit = fit_model(outcome, arm, Basis("linear"), d, robust=an._robust(spec, outcome))
+        fit = fit_model(outcome, arm, Basis("linear"), d, robust=ft.robust_for(spec, outcome))
         fit.param_names_ = tuple(indices[0] if n == "index" else n for n in fit.param_names_)
         warnings.extend(f"{arm}, {outcome.title}: {w}" for w in fit.warnings_)
         fits[arm], data[arm] = on_plane(fit, plane, interaction), d
-    return an.PairFit(outcome, indices[0], Basis("linear"), fits, data, rows,
+    return ft.PairFit(outcome, indices[0], Basis("linear"), fits, data, rows,
                       (float(a[every].min()), float(a[every].max())), warnings)
 
 
@@ -115,11 +117,11 @@ class _PlanePairs(dict):
     """Plane fits made on first use, keyed (outcome, first index) as FitSet.pairs, so a composite fits
     exactly the outcomes it reads."""
 
-    def __init__(self, make: Callable[[str], an.PairFit]) -> None:
+    def __init__(self, make: Callable[[str], ft.PairFit]) -> None:
         super().__init__()
         self.make = make
 
-    def __missing__(self, key: tuple[str, str]) -> an.PairFit:
+    def __missing__(self, key: tuple[str, str]) -> ft.PairFit:
         self[key] = pf = self.make(key[0])
         return pf
 
@@ -172,7 +174,7 @@ class PlaneModel:
     kind: str
     measure: str
     arms: tuple[str, str]
-    pairs: dict[tuple[str, str], an.PairFit]
+    pairs: dict[tuple[str, str], ft.PairFit]
     plane: Plane
     coverage: Coverage
     ranges: tuple[tuple[float, float], tuple[float, float]]
@@ -183,7 +185,7 @@ class PlaneModel:
     lock: threading.Lock = field(default_factory=threading.Lock, repr=False, compare=False)
 
     @property
-    def anchor(self) -> an.PairFit:
+    def anchor(self) -> ft.PairFit:
         """The outcome the map is drawn on (a composite's first part), whose patients cover the plane."""
         return next(iter(self.pairs.values()))
 
@@ -241,7 +243,7 @@ def _model_words(outcome: OutcomeSpec) -> str:
     return MODEL_WORDS[outcome.kind]
 
 
-def _indices_checked(fs: an.FitSet, map_spec: MapSpec) -> tuple[str, str]:
+def _indices_checked(fs: ft.FitSet, map_spec: MapSpec) -> tuple[str, str]:
     names = tuple(map_spec.indices)
     if len(names) != 2 or names[0] == names[1]:
         raise FulcrumError("a map needs two different indices.", key="maps.indices",
@@ -253,13 +255,13 @@ def _indices_checked(fs: an.FitSet, map_spec: MapSpec) -> tuple[str, str]:
     return names[0], names[1]
 
 
-def prepare_map(fs: an.FitSet, map_spec: MapSpec, *, kind: str = "ordinal") -> PlaneModel:
+def prepare_map(fs: ft.FitSet, map_spec: MapSpec, *, kind: str = "ordinal") -> PlaneModel:
     """Fit the models one map needs (both arms, two indices); kind names the composite when the target is one."""
     spec = fs.spec
     indices = _indices_checked(fs, map_spec)
     plane = Plane(float(np.nanmedian(fs.indices[indices[1]].values)))
 
-    def make(outcome: str) -> an.PairFit:
+    def make(outcome: str) -> ft.PairFit:
         return fit_plane_pair(fs, spec.outcome(outcome), indices, map_spec.interaction, plane)
 
     composite = None
@@ -368,7 +370,7 @@ def _arm_grid(values: np.ndarray, arms: tuple[str, str], where: np.ndarray) -> l
     return out.tolist()
 
 
-def _coefficients(pf: an.PairFit) -> dict[str, list[dict]]:
+def _coefficients(pf: ft.PairFit) -> dict[str, list[dict]]:
     return {arm: [{"term": n, "estimate": r6(b), "se": r6(s)} for n, b, s in f.summary()]
             for arm, f in pf.fits.items()}
 
@@ -441,13 +443,13 @@ def map_row(model: PlaneModel, *, weights: Mapping[str, float] | Sequence[float]
     return row
 
 
-def decision_map(fs: an.FitSet, map_spec: MapSpec, *, weights: Mapping[str, float] | Sequence[float] | None = None,
+def decision_map(fs: ft.FitSet, map_spec: MapSpec, *, weights: Mapping[str, float] | Sequence[float] | None = None,
                  n: int = GRID, kind: str = "ordinal", patient: tuple[float, float] | None = None) -> dict:
     """One map's JSON row from the fitted set (its two-index models are fitted here)."""
     return map_row(prepare_map(fs, map_spec, kind=kind), weights=weights, n=n, patient=patient)
 
 
-def decision_maps(fs: an.FitSet, maps: Sequence[MapSpec] | None = None, *,
+def decision_maps(fs: ft.FitSet, maps: Sequence[MapSpec] | None = None, *,
                   weights: Mapping[str, float] | Sequence[float] | None = None, n: int = GRID) -> list[dict]:
     """The JSON `maps` rows for the spec's [[maps]] (or `maps`)."""
     maps = fs.spec.maps if maps is None else maps

@@ -16,13 +16,16 @@ import pandas as pd
 from scipy import stats
 
 from . import breakeven as be
-from .analysis import SPARSE_SHARE, STRETCHES, FitSet, PairFit
+from . import values as val
+from .fitting import SPARSE_SHARE, STRETCHES, FitSet, PairFit
 from .charts import fmt, per_hundred, words
 from .conversation import WHO_SHORT, ValuesRecord
 from .errors import FulcrumError
-from .margins import on_probability_scale
+from .indices import percentile_of
 from .indices.prognostic import about_index_plain
-from .results import _jsonable
+from .margins import on_probability_scale
+from .models.words import measure_words
+from .numeric import jsonable
 from .spec import OutcomeSpec, SelectionSpec
 
 WHOSE = {"patient": "the patient's", "proxy": "a proxy's", "team": "the treating team's"}
@@ -170,9 +173,9 @@ class PatientView:
     def to_json(self, identifiers: Mapping[str, Any] | None = None) -> dict:
         doc = {"arms": list(self.arms), "level": self.level, "margin": self.margin,
                "primary_index": self.primary_index, "source": self.source,
-               "placements": {k: _jsonable(asdict(v)) for k, v in self.placements.items()},
-               "predictions": [_jsonable(asdict(p)) for p in self.predictions],
-               "judgements": [_jsonable(asdict(j)) for j in self.judgements],
+               "placements": {k: jsonable(asdict(v)) for k, v in self.placements.items()},
+               "predictions": [jsonable(asdict(p)) for p in self.predictions],
+               "judgements": [jsonable(asdict(j)) for j in self.judgements],
                "limits": list(self.limits), "timing": self.timing,
                "values_record": self.record.to_json() if self.record else None}
         if identifiers:
@@ -225,8 +228,6 @@ def _coded(fs: FitSet, column: str, value: Any) -> float:
 
 
 def _placement(fs: FitSet, name: str, value: float, source: str) -> Placement:
-    from .indices import percentile_of
-
     iv = fs.indices[name]
     finite = iv.finite
     lo, hi = float(finite.min()), float(finite.max())
@@ -437,8 +438,6 @@ def predict(fs: FitSet, outcome: str, pl: Placement) -> Prediction:
 
 
 def _measure(o: OutcomeSpec) -> str:
-    from .results import measure_words
-
     return measure_words(o)
 
 
@@ -488,8 +487,6 @@ def _composite_words(fs: FitSet, kind: str, whose: str) -> str:
 def judge(fs: FitSet, pl: Placement, weights: Mapping[str, float] | None = None, whose: str | None = None
           ) -> list[ValueJudgement]:
     """Each composite of the spec at the patient's index value: the favoured arm and the chance it is ahead."""
-    from . import values as val
-
     spec = fs.spec
     if spec.values is None:
         return []

@@ -19,7 +19,7 @@ from typing import Sequence
 import numpy as np
 
 from . import CAUTIONS
-from . import analysis as an
+from . import fitting as ft
 from .errors import FulcrumError
 from .margins import margin_for
 from .models import fit_model
@@ -54,7 +54,7 @@ class Target:
 class Setting:
     """Everything one simulated study needs, picklable for the workers."""
 
-    pf: an.PairFit
+    pf: ft.PairFit
     spec: object
     pool_x: np.ndarray
     pool_z: np.ndarray | None
@@ -65,7 +65,7 @@ class Setting:
     at: float | None
 
 
-def _pool(pf: an.PairFit) -> tuple[np.ndarray, np.ndarray | None]:
+def _pool(pf: ft.PairFit) -> tuple[np.ndarray, np.ndarray | None]:
     """Every patient of the pair (both arms): their index values and adjustment covariates."""
     x = np.concatenate([pf.data[a].x for a in pf.fits])
     zs = [pf.data[a].z for a in pf.fits]
@@ -89,10 +89,10 @@ def strategy_weights(x: np.ndarray, randomised: np.ndarray | None, x0: float | N
     return out
 
 
-def _interval(pf: an.PairFit, spec, x0: float | None, at: float | None) -> tuple[float, bool | None]:
+def _interval(pf: ft.PairFit, spec, x0: float | None, at: float | None) -> tuple[float, bool | None]:
     """The width of the break-even interval nearest x0 (inf when open or when no break-even remains), and
     whether the difference is clear at `at`."""
-    s = an.analytic_summary(pf, spec)
+    s = ft.analytic_summary(pf, spec)
     width = math.inf
     if s.break_even:
         ref = x0 if x0 is not None else s.break_even[0].x
@@ -154,7 +154,7 @@ def _num(v: float) -> float | None:
     return None if not math.isfinite(v) else float(f"{v:.6g}")
 
 
-def plan_study(fs: an.FitSet, outcome: str, index: str, target: Target, *, sizes: Sequence[int] | None = None,
+def plan_study(fs: ft.FitSet, outcome: str, index: str, target: Target, *, sizes: Sequence[int] | None = None,
                simulations: int | None = None, strategies: Sequence[str] | None = None, seed: int | None = None,
                workers: int | None = None, progress: Progress | None = None) -> dict:
     """The `plan` document: per strategy and size, the median break-even interval width and the chance of reaching
@@ -178,7 +178,7 @@ def plan_study(fs: an.FitSet, outcome: str, index: str, target: Target, *, sizes
         if s not in STRATEGIES:
             raise FulcrumError(f"unknown recruitment strategy '{s}'.", hint=f"Use {', '.join(STRATEGIES)}.")
     pf = fs.pair(outcome, index)
-    today = an.analytic_summary(pf, spec)
+    today = ft.analytic_summary(pf, spec)
     x0 = today.break_even[0].x if today.break_even else None
     if x0 is not None and target.at is None and len(today.break_even) > 1:
         x0 = min((b.x for b in today.break_even), key=lambda v: abs(v - float(np.median(_pool(pf)[0]))))

@@ -20,9 +20,11 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from . import breakeven as be
+from .errors import printable
+from .fitting import grid_roots
 from .models.common import one_blas_thread
-from .policy_quantities import Quantity, quantities
-from .target import Target, overlap
+from .policy_quantities import Quantity, attach_replicates, quantities
+from .target import Target, cohort_target, load_target, overlap
 
 DIRECTIONS = ("first_below", "second_below")
 MAX_DISCRETE = 30   # an index with at most this many distinct values gets thresholds between its levels
@@ -268,9 +270,6 @@ def _r(v) -> float | None:
 def prepare_index(fs, index: str, target: Target | None = None, *, replicates: list[dict] | None = None,
                   weights: dict | None = None, tolerance: float | None = None) -> PolicySet:
     """Rule curves along one index for every outcome, level and composite, over the target population."""
-    from .policy_quantities import attach_replicates
-    from .target import cohort_target
-
     spec = fs.spec
     ix = spec.index(index)
     target = target or cohort_target(spec, fs.indices)
@@ -325,8 +324,6 @@ def break_even_sides(fs, index: str, sup: Support, weights: dict | None = None, 
     fine grid over the cohort's range), and how many per 100 of the target population lie below each: a
     break-even is a statement about one patient and does not move with the case mix; how many patients lie on
     each side of it does."""
-    from .analysis import grid_roots
-
     lo, hi = fs.pair(fs.spec.outcomes[0].name, index).x_range
     grid = np.linspace(lo, hi, points)
     arms = fs.spec.cohort.arms
@@ -478,8 +475,6 @@ def sentence(row: dict, arms: tuple[str, str] | list[str]) -> str:
 
 def analysis_rows(fs, *, replicates: list[dict] | None = None) -> tuple[list[dict], list[str]]:
     """What analyse() adds: the rows over the spec's [target] patients (or the cohort), and their warnings."""
-    from .target import load_target
-
     spec = fs.spec
     target = load_target(spec, fs.indices, policy_indices(spec)) if spec.target is not None else None
     return policy_rows(fs, target, replicates=replicates)
@@ -504,8 +499,6 @@ def text_table(doc: dict) -> str:
                       f"{fmt(b['value'])} [{fmt(b['value_ci'][0])}, {fmt(b['value_ci'][1])}]",
                       fmt(r["all_first"]["value"]), fmt(r["all_second"]["value"]),
                       f"{fmt(cp['regret'])} [{fmt(cp['regret_ci'][0])}, {fmt(cp['regret_ci'][1])}]" if cp else "-"])
-    from .errors import printable
-
     lines = [[printable(c) for c in line] for line in lines]
     widths = [max(len(str(x)) for x in col) for col in zip(head, *lines)]
     t = rows_[0]["target"]

@@ -13,10 +13,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import analysis as an
+from . import fitting as ft
 from . import values as vl
 from .models.base import Fitted
-from .selection import _param_gradient
+from .patient import is_probability
+from .selection import param_gradient
 
 
 @dataclass
@@ -65,7 +66,7 @@ def _linear_factor(fit: Fitted, x: np.ndarray) -> np.ndarray | None:
 def measure_factor(fit: Fitted, x: np.ndarray) -> tuple[np.ndarray, str]:
     """(F, how) for fit.measure at x: Cov(measure(x_i), measure(x_j)) ~= F_i . F_j."""
     x = np.asarray(x, float)
-    G = _param_gradient(fit, x)
+    G = param_gradient(fit, x)
     if G is not None:
         return G @ sqrt_psd(fit.cov_), "delta"
     F = _linear_factor(fit, x)
@@ -85,7 +86,7 @@ def _worst(*hows: str) -> str:
     return "bound" if "bound" in hows else "delta"
 
 
-def outcome_quantities(pf: an.PairFit, u: np.ndarray) -> list[Quantity]:
+def outcome_quantities(pf: ft.PairFit, u: np.ndarray) -> list[Quantity]:
     """The outcome's measure and, when the model gives level probabilities, each level's probability."""
     arms = list(pf.fits)
     o = pf.outcome
@@ -109,13 +110,11 @@ def outcome_quantities(pf: an.PairFit, u: np.ndarray) -> list[Quantity]:
     return out
 
 
-def _is_probability(pf: an.PairFit) -> bool:
-    from .patient import is_probability
-
+def _is_probability(pf: ft.PairFit) -> bool:
     return is_probability(pf.outcome)
 
 
-def composite_quantities(fs: an.FitSet, index: str, u: np.ndarray, weights: dict | None = None) -> list[Quantity]:
+def composite_quantities(fs: ft.FitSet, index: str, u: np.ndarray, weights: dict | None = None) -> list[Quantity]:
     """Each composite the spec asks for (values.default_kinds) under the stated (or given) weights."""
     spec = fs.spec
     v = spec.values
@@ -149,7 +148,7 @@ def composite_quantities(fs: an.FitSet, index: str, u: np.ndarray, weights: dict
     return out
 
 
-def _survival_factor(pf_surv: an.PairFit, arm: str, u: np.ndarray, want: str) -> tuple[np.ndarray, np.ndarray, str]:
+def _survival_factor(pf_surv: ft.PairFit, arm: str, u: np.ndarray, want: str) -> tuple[np.ndarray, np.ndarray, str]:
     """Survival at the horizon (want="survival") or RMST (want="rmst") with its factor."""
     fit, o = pf_surv.fits[arm], pf_surv.outcome
     if o.measure == want:
@@ -159,7 +158,7 @@ def _survival_factor(pf_surv: an.PairFit, arm: str, u: np.ndarray, want: str) ->
     return m, np.sqrt(np.maximum(var, 0.0))[:, None], "bound"
 
 
-def _survival_function(fit_ord: Fitted, pf_surv: an.PairFit, arm: str, u: np.ndarray, w: np.ndarray
+def _survival_function(fit_ord: Fitted, pf_surv: ft.PairFit, arm: str, u: np.ndarray, w: np.ndarray
                        ) -> tuple[np.ndarray, np.ndarray, str]:
     """S x (expected weight among the living levels) + (1 - S) x weight of death, and its factor (the two
     models independent, as in values.survival_function_levels)."""
@@ -174,7 +173,7 @@ def _survival_function(fit_ord: Fitted, pf_surv: an.PairFit, arm: str, u: np.nda
     return m, np.column_stack([G @ sqrt_psd(fit_ord.cov_), (qw - w[-1])[:, None] * FS]), how
 
 
-def _quality_adjusted(fs: an.FitSet, index: str, arm: str, u: np.ndarray) -> tuple[np.ndarray, np.ndarray, str]:
+def _quality_adjusted(fs: ft.FitSet, index: str, arm: str, u: np.ndarray) -> tuple[np.ndarray, np.ndarray, str]:
     spec = fs.spec
     so = vl._survival_outcome(spec)
     R, FR, how_r = _survival_factor(fs.pair(so.name, index), arm, u, "rmst")
@@ -184,7 +183,7 @@ def _quality_adjusted(fs: an.FitSet, index: str, arm: str, u: np.ndarray) -> tup
     return R * U, np.column_stack([U[:, None] * FR, R[:, None] * FU]), _worst(how_r, how_u)
 
 
-def quantities(fs: an.FitSet, index: str, u: np.ndarray, weights: dict | None = None) -> list[Quantity]:
+def quantities(fs: ft.FitSet, index: str, u: np.ndarray, weights: dict | None = None) -> list[Quantity]:
     """Every outcome (those measured only among survivors left out: a rule's consequence for them is not a
     per-100 count), its levels, and every composite, at the distinct index values u."""
     out = []
@@ -202,7 +201,7 @@ def _interp_rows(grid: np.ndarray, Y: np.ndarray, u: np.ndarray) -> np.ndarray:
     return Y[:, j] * (1 - t) + Y[:, j + 1] * t
 
 
-def attach_replicates(fs: an.FitSet, index: str, qs: list[Quantity], u: np.ndarray, reps: list[dict],
+def attach_replicates(fs: ft.FitSet, index: str, qs: list[Quantity], u: np.ndarray, reps: list[dict],
                       weights: dict | None = None) -> None:
     """Per-replicate predictions at u from the analysis's bootstrap records (curves on each pair's grid), for the
     outcomes and composites; levels keep their delta intervals. Failed replicates are left out."""
@@ -211,7 +210,7 @@ def attach_replicates(fs: an.FitSet, index: str, qs: list[Quantity], u: np.ndarr
     for q in qs:
         if q.kind == "outcome":
             pf = fs.pair(q.key, index)
-            grid = an.grid_for(pf, n)
+            grid = ft.grid_for(pf, n)
             recs = [r[(q.key, index)] for r in reps if "failed" not in r[(q.key, index)]]
             if not recs:
                 continue
@@ -221,7 +220,7 @@ def attach_replicates(fs: an.FitSet, index: str, qs: list[Quantity], u: np.ndarr
             cm = cms.get((q.key.split(":", 1)[1], index))
             if cm is None or cm.boot is None:
                 continue
-            w = vl._weights_for(cm, weights)
+            w = vl.weights_for(cm, weights)
             ok = cm.boot_ok
             q.boot = tuple(_interp_rows(cm.grid, cm.boot[j][ok] @ w, u) for j in (0, 1))
             q.interval = "bootstrap-percentile"

@@ -15,7 +15,9 @@ import numpy as np
 
 from .cohort import Cohort
 from .errors import FulcrumError
+from .indices import formula_columns
 from .spec import OutcomeSpec, Spec
+from .weighting import covariate_design, propensity_weights
 
 MIN_RANDOMISED = 50  # randomised patients per arm before they carry the headline by default (common practice)
 WORDS = {"all": "all patients", "randomised": "randomised patients only",
@@ -58,8 +60,6 @@ def _index_columns(spec: Spec) -> set[str]:
         elif ix.prognostic:
             out.update(ix.prognostic.covariates)
         elif ix.formula:
-            from .indices import formula_columns
-
             out.update(formula_columns(ix.formula, None))
     return out
 
@@ -117,8 +117,6 @@ def resolve(spec: Spec, cohort: Cohort) -> Population:
         left = [c for c in covs if c in used]
         note = [f"The adjusted headline leaves out {', '.join(left)}: the index is built from them."] if left else []
         return Population("all_adjusted", chosen_by, why, adjust=adjust, warnings=note)
-    from .selection import covariate_design, propensity_weights  # the propensity model lives with selection
-
     arm = frame[spec.cohort.arm].to_numpy()
     complete = covariate_design(frame, covs).notna().all(axis=1).to_numpy() & np.isin(arm, spec.cohort.arms)
     rows = np.flatnonzero(complete)

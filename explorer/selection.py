@@ -13,26 +13,23 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-import pandas as pd
 from scipy import stats
 
-from . import analysis as an
+from . import fitting as ft
 from . import breakeven as be
 from .errors import FulcrumError
 from .models import fit_model
 from .models.base import Fitted, numerical_jacobian
 from .models.common import basis_names
+from .models.words import measure_words
 from .resampling import ArmArrays, Progress, refit_arms, run_replicates
-from .results import measure_words
 from .spec import OutcomeSpec, SelectionSpec, Spec
+from .weighting import Weighting, covariate_design, propensity_weights
+from .weighting import rounded as _r
 
 EVALUE_KINDS = ("rr", "rr_rare", "hr_common", "hr_rare", "or_common", "or_rare", "smd")
-SMD_FLAG = 0.1  # Austin 2009: |SMD| above 0.1 signals imbalance
 WINDOWS = 10  # quantile bands of the index for the randomised coverage
 SHIFT_REPLICATES = 200  # the bootstrap of the break-even shift uses at most this many replicates
-WEIGHT_NOTE = ("Weighting balances only the measured covariates ({covs}); differences in anything unmeasured "
-               "between the patients who chose each option remain. The weighted analysis estimates the effect "
-               "in the chosen patients (the target population).")
 
 
 # ------------------------------------------------------------------------------------------
@@ -95,182 +92,9 @@ def e_value(estimate: float, lo: float | None = None, hi: float | None = None, k
 
 
 # ------------------------------------------------------------------------------------------
-# Balance: standardised mean differences (Austin, Stat Med 2009; Austin & Stuart, Stat Med 2015)
-# ------------------------------------------------------------------------------------------
-def _wmean_var(x: np.ndarray, w: np.ndarray, binary: bool) -> tuple[float, float]:
-    """Weighted mean and variance: p(1-p) for a 0/1 covariate, else sum(w)/(sum(w)^2 - sum(w^2)) sum w (x-m)^2."""
-    sw = w.sum()
-    m = float((w * x).sum() / sw)
-    if binary:
-        return m, m * (1.0 - m)
-    denom = sw * sw - (w * w).sum()
-    return m, float(sw / denom * (w * (x - m) ** 2).sum()) if denom > 0 else 0.0
-
-
-def smd(x_first: np.ndarray, x_second: np.ndarray, w_first: np.ndarray | None = None,
-        w_second: np.ndarray | None = None, binary: bool | None = None) -> float:
-    """Standardised mean difference, first minus second, over the pooled SD sqrt((s1^2 + s2^2) / 2).
-
-    A 0/1 covariate uses p(1-p) as its variance (Austin 2009); weights give weighted means and variances
-    (Austin & Stuart 2015). Returns 0 when both variances are 0 and the means agree.
-    """
-    a, b = np.asarray(x_first, float), np.asarray(x_second, float)
-    wa = np.ones(len(a)) if w_first is None else np.asarray(w_first, float)
-    wb = np.ones(len(b)) if w_second is None else np.asarray(w_second, float)
-    if binary is None:
-        binary = bool(np.isin(np.concatenate([a, b]), (0.0, 1.0)).all())
-    ma, va = _wmean_var(a, wa, binary)
-    mb, vb = _wmean_var(b, wb, binary)
-    sd = math.sqrt((va + vb) / 2.0)
-    if sd == 0.0:
-        return 0.0 if ma == mb else math.copysign(math.inf, ma - mb)
-    return (ma - mb) / sd
-
-
-def balance_table(X: pd.DataFrame, first: np.ndarray, weights: np.ndarray) -> list[dict]:
-    """SMD of every design column before and after weighting, flagging |SMD| > 0.1 (Austin 2009)."""
-    first = np.asarray(first, bool)
-    w = np.asarray(weights, float)
-    out = []
-    for name in X.columns:
-        v = X[name].to_numpy(float)
-        before = smd(v[first], v[~first])
-        after = smd(v[first], v[~first], w[first], w[~first])
-        out.append({"covariate": str(name), "smd_before": _r(before), "smd_after": _r(after),
-                    "flag_before": bool(abs(before) > SMD_FLAG), "flag_after": bool(abs(after) > SMD_FLAG)})
-    return out
-
-
-# ------------------------------------------------------------------------------------------
-# Propensity and stabilised inverse-probability weights (target population: the chosen patients)
-# ------------------------------------------------------------------------------------------
-@dataclass
-class Weighting:
-    """A propensity model of receiving the first arm among chosen patients, and its truncated weights."""
-
-    covariates: tuple[str, ...]
-    columns: tuple[str, ...]
-    intercept: float
-    coef: np.ndarray
-    score: np.ndarray
-    weights: np.ndarray
-    first: np.ndarray
-    truncated_at: tuple[float, float]
-    n_truncated: int
-    balance: list[dict]
-    warnings: list[str] = field(default_factory=list)
-
-    def effective_n(self) -> dict[str, float]:
-        """Kish's effective sample size per arm: (sum w)^2 / sum w^2."""
-        out = {}
-        for label, mask in (("first", self.first), ("second", ~self.first)):
-            w = self.weights[mask]
-            out[label] = float(w.sum() ** 2 / (w * w).sum()) if len(w) else 0.0
-        return out
-
-    def to_json(self, arms: tuple[str, str]) -> dict:
-        ess = self.effective_n()
-        return {"target": "chosen patients", "method": "stabilised inverse-probability weights from an "
-                "unpenalised logistic propensity model of receiving " + arms[0],
-                "covariates": list(self.covariates),
-                "propensity": {"intercept": _r(self.intercept),
-                               "coefficients": {c: _r(b) for c, b in zip(self.columns, self.coef)}},
-                "truncated_at": [_r(self.truncated_at[0]), _r(self.truncated_at[1])],
-                "n_truncated": int(self.n_truncated),
-                "n": {arms[0]: int(self.first.sum()), arms[1]: int((~self.first).sum())},
-                "effective_n": {arms[0]: _r(ess["first"]), arms[1]: _r(ess["second"])},
-                "note": WEIGHT_NOTE.format(covs=", ".join(self.covariates))}
-
-
-def covariate_design(frame: pd.DataFrame, covariates: tuple[str, ...] | list[str]) -> pd.DataFrame:
-    """Numeric design columns: numbers and 0/1 flags as they are, text or categories as indicators
-    (first level left out), so the propensity model and the balance table read the same columns."""
-    parts = []
-    for c in covariates:
-        if c not in frame.columns:
-            raise FulcrumError(f"the selection covariate '{c}' is not a column of the cohort.", column=c,
-                               key="selection.covariates", hint="Name columns exactly as in the cohort file.")
-        s = frame[c]
-        if pd.api.types.is_bool_dtype(s) or pd.api.types.is_numeric_dtype(s):
-            parts.append(s.astype(float).rename(c).to_frame())
-        else:
-            cat = s.astype("category")
-            d = pd.get_dummies(cat, prefix=c, prefix_sep=" = ", drop_first=True, dtype=float)
-            d.loc[s.isna(), :] = np.nan
-            parts.append(d)
-    return pd.concat(parts, axis=1) if parts else pd.DataFrame(index=frame.index)
-
-
-def _logistic(X: np.ndarray, y: np.ndarray) -> tuple[float, np.ndarray]:
-    """Unpenalised logistic regression by scikit-learn (penalty=None; C=inf from scikit-learn 1.8),
-    fitted on standardised columns and mapped back so the coefficients are on the covariates' own scale."""
-    import sklearn
-    from sklearn.linear_model import LogisticRegression
-
-    mu, sd = X.mean(axis=0), X.std(axis=0)
-    sd[sd == 0] = 1.0
-    Xs = (X - mu) / sd
-    major, minor = (int(p) for p in sklearn.__version__.split(".")[:2])
-    unpenalised = {"C": np.inf} if (major, minor) >= (1, 8) else {"penalty": None}
-    m = LogisticRegression(solver="newton-cholesky", tol=1e-12, max_iter=1000, **unpenalised).fit(Xs, y)
-    coef = m.coef_.reshape(-1) / sd
-    return float(m.intercept_[0] - (coef * mu).sum()), coef
-
-
-def propensity_weights(frame: pd.DataFrame, covariates: tuple[str, ...] | list[str], first: np.ndarray,
-                       truncate: tuple[float, float] = (1.0, 99.0)) -> Weighting:
-    """Propensity of the first arm from the covariates, stabilised weights P(arm) / P(arm | covariates)
-    truncated at the given percentiles, and the balance table before and after weighting.
-
-    `frame` holds only the chosen patients to weight, every covariate complete (the caller drops and counts).
-    """
-    X = covariate_design(frame, covariates)
-    first = np.asarray(first, bool)
-    bad = np.flatnonzero(X.isna().any(axis=1).to_numpy())
-    if len(bad):
-        raise FulcrumError("selection covariates have missing values in the rows to be weighted.",
-                           rows=bad + 1, key="selection.covariates",
-                           hint="Drop these patients from the weighted analysis or fill the covariates.")
-    if first.all() or not first.any():
-        raise FulcrumError("weighting needs chosen patients in both arms.", key="selection",
-                           hint="Check the arm and allocation columns.")
-    Xa = X.to_numpy(float)
-    const = [c for c, v in zip(X.columns, Xa.T) if np.ptp(v) == 0] if len(Xa) else []
-    if const:
-        raise FulcrumError(f"the selection covariate column(s) {', '.join(const)} do not vary among the chosen "
-                           "patients, so they cannot enter the propensity model.", key="selection.covariates",
-                           hint="Remove them from [selection] covariates.")
-    intercept, coef = _logistic(Xa, first.astype(int))
-    score = 1.0 / (1.0 + np.exp(-(intercept + Xa @ coef)))
-    share = first.mean()
-    w = np.where(first, share / score, (1.0 - share) / (1.0 - score))
-    lo, hi = np.percentile(w, truncate)
-    n_trunc = int(((w < lo) | (w > hi)).sum())
-    w = np.clip(w, lo, hi)
-    warnings = []
-    extreme = int(((score < 0.025) | (score > 0.975)).sum())
-    if extreme:
-        who = "1 chosen patient has" if extreme == 1 else f"{extreme} chosen patients have"
-        warnings.append(f"{who} a propensity below 0.025 or above 0.975: the two arms barely overlap there, and "
-                        "their weights rest on few comparable patients.")
-    wt = Weighting(tuple(covariates), tuple(str(c) for c in X.columns), intercept, coef, score, w, first,
-                   (float(lo), float(hi)), n_trunc, balance_table(X, first, w), warnings)
-    still = [b["covariate"] for b in wt.balance if b["flag_after"]]
-    if still:
-        wt.warnings.append(f"After weighting, {', '.join(still)} still differ between arms (|SMD| > {SMD_FLAG}).")
-    return wt
-
-
-def _r(v: float | None, digits: int = 6) -> float | None:
-    if v is None or not np.isfinite(v):
-        return None
-    return float(round(float(v), digits))
-
-
-# ------------------------------------------------------------------------------------------
 # Averages of a fitted curve over patients, with their variance
 # ------------------------------------------------------------------------------------------
-def _param_gradient(fit: Fitted, x: np.ndarray) -> np.ndarray | None:
+def param_gradient(fit: Fitted, x: np.ndarray) -> np.ndarray | None:
     """d measure(x) / d params_ by central differences, kept only when it reproduces measure_var (so the
     measure depends on params_ alone and cov_ covers all its uncertainty); else None."""
     p = np.asarray(fit.params_, float)
@@ -321,7 +145,7 @@ def curve_cov(fit: Fitted, u: np.ndarray, v: np.ndarray) -> np.ndarray | None:
     measure_var, from linear_terms() (linear basis: a monotone map of one line, e.g. a Cox model's log
     cumulative hazard at the horizon), or from the model's own measure_cov; None when none is available."""
     u, v = np.atleast_1d(np.asarray(u, float)), np.atleast_1d(np.asarray(v, float))
-    G = _param_gradient(fit, np.r_[u, v])
+    G = param_gradient(fit, np.r_[u, v])
     if G is not None:
         return G[:len(u)] @ np.asarray(fit.cov_, float) @ G[len(u):].T
     L = _linear_cov(fit, u, v)
@@ -374,7 +198,7 @@ def _window_counts(edges: np.ndarray, x: np.ndarray) -> np.ndarray:
     return np.bincount(window_of(edges, x), minlength=max(len(edges) - 1, 1))
 
 
-def randomised_coverage(fs: an.FitSet, index: str, windows: int = WINDOWS) -> list[dict]:
+def randomised_coverage(fs: ft.FitSet, index: str, windows: int = WINDOWS) -> list[dict]:
     """Patients per quantile band of the index, by arm and allocation, with `sparse` where either arm has
     fewer randomised patients than [selection] min_per_window; [] when the cohort names no allocation."""
     rand = fs.cohort.randomised
@@ -425,10 +249,10 @@ class SelectionPair:
 
     outcome: OutcomeSpec
     index: str
-    all: an.PairFit
-    randomised: an.PairFit | None
-    chosen: an.PairFit | None
-    adjusted: an.PairFit | None
+    all: ft.PairFit
+    randomised: ft.PairFit | None
+    chosen: ft.PairFit | None
+    adjusted: ft.PairFit | None
     weighting: Weighting | None
     varies: dict[str, tuple[float, int, float] | None]
     n: dict[str, dict[str, int]]
@@ -440,8 +264,8 @@ class SelectionPair:
 FIT_ERRORS = (FulcrumError, np.linalg.LinAlgError, ValueError, FloatingPointError)
 
 
-def _subset_fit(fs: an.FitSet, pf: an.PairFit, rows: dict[str, np.ndarray], label: str, warnings: list[str],
-                weights: dict[str, np.ndarray] | None = None) -> an.PairFit | None:
+def _subset_fit(fs: ft.FitSet, pf: ft.PairFit, rows: dict[str, np.ndarray], label: str, warnings: list[str],
+                weights: dict[str, np.ndarray] | None = None) -> ft.PairFit | None:
     """fit_pair on given rows, or None with a warning saying why it could not be fitted."""
     empty = [arm for arm, r in rows.items() if len(r) == 0]
     if empty:
@@ -449,7 +273,7 @@ def _subset_fit(fs: an.FitSet, pf: an.PairFit, rows: dict[str, np.ndarray], labe
                         f"the {label}-only curves cannot be fitted.")
         return None
     try:
-        sub = an.fit_pair(fs.spec, fs.cohort, pf.outcome, fs.indices[pf.index], pf.basis, rows=rows,
+        sub = ft.fit_pair(fs.spec, fs.cohort, pf.outcome, fs.indices[pf.index], pf.basis, rows=rows,
                           weights=weights)
     except FIT_ERRORS as exc:
         warnings.append(f"{pf.outcome.title}: the {label}-only curves could not be fitted ({exc}).")
@@ -458,7 +282,7 @@ def _subset_fit(fs: an.FitSet, pf: an.PairFit, rows: dict[str, np.ndarray], labe
     return sub
 
 
-def varies_with_index(pf: an.PairFit, arm: str, chosen: np.ndarray) -> tuple[float, int, float]:
+def varies_with_index(pf: ft.PairFit, arm: str, chosen: np.ndarray) -> tuple[float, int, float]:
     """Likelihood-ratio test that the selection effect in this arm changes along the index: the arm's model
     on all its patients with a chosen indicator, against the same with chosen x index-basis terms.
     Returns (statistic, df, p)."""
@@ -481,15 +305,15 @@ def varies_with_index(pf: an.PairFit, arm: str, chosen: np.ndarray) -> tuple[flo
     return stat, B.shape[1], float(stats.chi2.sf(stat, B.shape[1]))
 
 
-def _robust_refit(pf: an.PairFit) -> an.PairFit:
+def _robust_refit(pf: ft.PairFit) -> ft.PairFit:
     """Refit weighted arms with sandwich variances (weights as probability weights), from the fitted values."""
     fits = {arm: fit_model(pf.outcome, arm, pf.basis, pf.data[arm], start=f.params_, robust=True, checks=False)
             for arm, f in pf.fits.items()}
     return dataclasses.replace(pf, fits=fits)
 
 
-def _adjusted_fit(fs: an.FitSet, pf: an.PairFit, chosen_rows: dict[str, np.ndarray], warnings: list[str],
-                  cache: dict | None = None) -> tuple[an.PairFit | None, Weighting | None]:
+def _adjusted_fit(fs: ft.FitSet, pf: ft.PairFit, chosen_rows: dict[str, np.ndarray], warnings: list[str],
+                  cache: dict | None = None) -> tuple[ft.PairFit | None, Weighting | None]:
     """Weighted per-arm fits of the chosen patients (complete covariates), stabilised IPW, robust variances.
     `cache` keeps propensity models by the rows they were fitted on (outcomes often share them across indices)."""
     sel = _settings(fs.spec)
@@ -533,7 +357,7 @@ def _adjusted_fit(fs: an.FitSet, pf: an.PairFit, chosen_rows: dict[str, np.ndarr
     return adj, wt
 
 
-def fit_selection(fs: an.FitSet, outcome: str, index: str, cache: dict | None = None) -> SelectionPair:
+def fit_selection(fs: ft.FitSet, outcome: str, index: str, cache: dict | None = None) -> SelectionPair:
     """Randomised-only, chosen-only, all-patient and weighted chosen fits of one outcome along one index,
     and per arm the likelihood-ratio test of a selection effect that varies with the index."""
     if fs.cohort.randomised is None:
@@ -596,8 +420,8 @@ def selection_effect(sp: SelectionPair, arm: str, spec: Spec) -> SelectionEffect
     if sp.randomised is None or sp.chosen is None:
         return None
     rf, cf = sp.randomised.fits[arm], sp.chosen.fits[arm]
-    grid = an.grid_for(sp.all, spec.analysis.grid)
-    grid = grid[an.in_range(sp.all, grid)]
+    grid = ft.grid_for(sp.all, spec.analysis.grid)
+    grid = grid[ft.in_range(sp.all, grid)]
     z = be.critical_value(spec.analysis.level)
     eff = cf.measure(grid) - rf.measure(grid)
     se = np.sqrt(np.maximum(cf.measure_var(grid) + rf.measure_var(grid), 0.0))
@@ -616,8 +440,8 @@ def selection_effect(sp: SelectionPair, arm: str, spec: Spec) -> SelectionEffect
 # ------------------------------------------------------------------------------------------
 # Break-even from randomised patients versus all patients, and the shift by a stratified bootstrap
 # ------------------------------------------------------------------------------------------
-def break_evens(pf: an.PairFit | None, spec: Spec) -> list[be.BreakEven] | None:
-    return None if pf is None else an.analytic_summary(pf, spec).break_even
+def break_evens(pf: ft.PairFit | None, spec: Spec) -> list[be.BreakEven] | None:
+    return None if pf is None else ft.analytic_summary(pf, spec).break_even
 
 
 def matched(randomised: list[be.BreakEven] | None, everyone: list[be.BreakEven] | None
@@ -679,7 +503,7 @@ class _ShiftPayload:
 
 def _nearest_root(fits: dict[str, Fitted], sign: float, grid: np.ndarray, margin: float, x0: float) -> float:
     first, second = fits.values()
-    roots = an.grid_roots(grid, sign * (first.measure(grid) - second.measure(grid)) - margin)
+    roots = ft.grid_roots(grid, sign * (first.measure(grid) - second.measure(grid)) - margin)
     return float(roots[np.argmin(np.abs(roots - x0))]) if len(roots) else math.nan
 
 
@@ -702,7 +526,7 @@ def _shift_replicate(payload: _ShiftPayload, rng: np.random.Generator) -> dict[t
     return out
 
 
-def shift_bootstrap(fs: an.FitSet, pairs: dict[tuple[str, str], tuple[SelectionPair, be.BreakEven, be.BreakEven]],
+def shift_bootstrap(fs: ft.FitSet, pairs: dict[tuple[str, str], tuple[SelectionPair, be.BreakEven, be.BreakEven]],
                     replicates: int, progress: Progress | None = None) -> dict[tuple[str, str], np.ndarray]:
     """Bootstrap draws of (all-patient minus randomised-only break-even), resampling within arm x allocation
     strata so every replicate keeps the numbers randomised and chosen in each arm; seeded from analysis.seed."""
@@ -713,7 +537,7 @@ def shift_bootstrap(fs: an.FitSet, pairs: dict[tuple[str, str], tuple[SelectionP
               if len(s := np.flatnonzero((arm_col == arm) & (rand == r)))]
     jobs = []
     for (o, i), (sp, rb, ab) in pairs.items():
-        grid = an.grid_for(sp.all, spec.analysis.grid)
+        grid = ft.grid_for(sp.all, spec.analysis.grid)
         arrays = {arm: ArmArrays.of(sp.all.data[arm], r, len(rand)) for arm, r in sp.all.rows.items()}
         jobs.append(_ShiftJob(o, i, sp.all.basis, arrays, grid, rb.x, ab.x,
                               {a: f.params_ for a, f in sp.all.fits.items()},
@@ -800,7 +624,7 @@ class SelectionResults:
     coverage: dict[str, list[dict]]
 
 
-def analyse_selection(fs: an.FitSet, *, shift_interval: str | None = None, replicates: int | None = None,
+def analyse_selection(fs: ft.FitSet, *, shift_interval: str | None = None, replicates: int | None = None,
                       progress: Progress | None = None) -> SelectionResults:
     """Every outcome x index x arm: selection effect, break-even from randomised, all and weighted chosen
     patients, their shift and E-values. Empty when the cohort names no allocation column.
@@ -841,7 +665,7 @@ def analyse_selection(fs: an.FitSet, *, shift_interval: str | None = None, repli
     return SelectionResults(pairs, effects, rows, coverage)
 
 
-def selection_rows(fs: an.FitSet, *, shift_interval: str | None = None, replicates: int | None = None,
+def selection_rows(fs: ft.FitSet, *, shift_interval: str | None = None, replicates: int | None = None,
                    progress: Progress | None = None) -> list[dict]:
     """The JSON `selection` rows (see analyse_selection)."""
     return analyse_selection(fs, shift_interval=shift_interval, replicates=replicates, progress=progress).rows

@@ -8,7 +8,6 @@ from __future__ import annotations
 import difflib
 import hashlib
 import json
-import math
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -16,8 +15,11 @@ from typing import Any
 
 from . import margins
 from .database import KEYS as DATABASE_KEYS, cohort_source
-from .errors import FulcrumError, nfc
+from .errors import FulcrumError
+from .intake import read_file
+from .presets import default_weights, preset_weights
 from .settings import check_analysis
+from .spec_readers import Reader, known, range_check
 from .spec_sections import (SECTION_SCHEMA, EvidenceSpec, PolicySpec, TargetSpec, evidence_section,
                             target_and_policy)
 from .tomlwrite import plain, toml_value as _toml_value
@@ -321,98 +323,9 @@ REQUIRED = {
 }
 
 
-class _Reader:
-    """Reads one table of the spec, checking keys and types, with the key path for messages."""
-
-    def __init__(self, table: Any, section: str, where: str, source: str | None) -> None:
-        self.section, self.where, self.source = section, where, source
-        if not isinstance(table, dict):
-            raise FulcrumError(f"'{where}' should be a table of keys, found {_typename(table)}.",
-                               file=source, key=where, hint=f"Write it as [{where}] with key = value lines.")
-        self.table = table
-        allowed = SCHEMA[section]
-        for key in table:
-            if key not in allowed:
-                close = difflib.get_close_matches(key, list(allowed), n=1, cutoff=0.5)
-                hint = f"Did you mean '{close[0]}'?" if close else f"Valid keys here: {', '.join(allowed)}."
-                raise FulcrumError(f"unknown key '{key}' in [{where}].", file=source, key=f"{where}.{key}", hint=hint)
-        for key in REQUIRED.get(section, ()):
-            if key not in table:
-                raise FulcrumError(f"[{where}] is missing the required key '{key}' ({allowed[key][1]})",
-                                   file=source, key=f"{where}.{key}", hint=f"Add {key} = ... to [{where}].")
-
-    def get(self, key: str, default: Any = None) -> Any:
-        if key not in self.table:
-            return default
-        value = self.table[key]
-        kind = SCHEMA[self.section][key][0]
-        path = f"{self.where}.{key}"
-        return _coerce(value, kind, path, self.source)
-
-
-def _typename(v: Any) -> str:
-    return {str: "text", bool: "true/false", int: "a whole number", float: "a number",
-            list: "a list", dict: "a table"}.get(type(v), type(v).__name__)
-
-
-def _coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
-    def bad(expected: str) -> FulcrumError:
-        return FulcrumError(f"'{path}' should be {expected}, found {_typename(value)} {value!r}.",
-                            file=source, key=path, hint=f"Write {path.split('.')[-1]} as {expected}.")
-
-    if kind in ("str", "path"):
-        if not isinstance(value, str) or not value.strip():
-            raise bad("non-empty text in quotes")
-        return value if kind == "path" else nfc(value)
-    if kind == "bool":
-        if not isinstance(value, bool):
-            raise bad("true or false")
-        return value
-    if kind == "int":
-        if isinstance(value, bool) or not isinstance(value, int):
-            raise bad("a whole number")
-        return value
-    if kind == "float":
-        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-            raise bad("a finite number")
-        return float(value)
-    if kind == "list[str]":
-        if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
-            raise bad('a list of texts, e.g. ["a", "b"]')
-        return tuple(nfc(v) for v in value)
-    if kind == "list[float]":
-        if not isinstance(value, list) or not all(
-                isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in value):
-            raise bad("a list of numbers, e.g. [1, 99]")
-        return tuple(float(v) for v in value)
-    if kind == "list[int]":
-        if not isinstance(value, list) or not all(isinstance(v, int) and not isinstance(v, bool) for v in value):
-            raise bad("a list of whole numbers, e.g. [200, 500]")
-        return tuple(value)
-    if kind == "table[float]":
-        if not isinstance(value, dict):
-            raise bad("a table of numbers, e.g. { level = 0.5 }")
-        out = {}
-        for k, v in value.items():
-            if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-                raise FulcrumError(f"'{path}.{k}' should be a finite number, found {v!r}.",
-                                   file=source, key=f"{path}.{k}", hint="Give each weight as a number.")
-            out[nfc(str(k))] = float(v)
-        return out
-    if kind == "table[range]":
-        if not isinstance(value, dict):
-            raise bad("a table of [low, high] pairs")
-        out = {}
-        for k, v in value.items():
-            pair = _coerce(v, "list[float]", f"{path}.{k}", source)
-            if len(pair) != 2 or pair[0] > pair[1]:
-                raise FulcrumError(f"'{path}.{k}' should be [low, high] with low <= high, found {v!r}.",
-                                   file=source, key=f"{path}.{k}", hint="Give two numbers, the lower first.")
-            out[nfc(str(k))] = (pair[0], pair[1])
-        return out
-    if kind == "table":
-        return value
-    raise AssertionError(kind)
+def _reader(table: Any, section: str, where: str, source: str | None) -> Reader:
+    """A reader of one table of the spec, checked against its SCHEMA and REQUIRED keys."""
+    return Reader(table, where, source, SCHEMA[section], REQUIRED.get(section, ()))
 
 
 def _choice(value: str | None, options: tuple[str, ...], path: str, source: str | None) -> None:
@@ -433,8 +346,6 @@ def _unique(names: list[str], what: str, source: str | None) -> None:
 
 def load_spec(path: str | Path) -> Spec:
     """Read and check a spec file; paths inside it resolve relative to its folder."""
-    from .intake import read_file
-
     path = Path(path)
     try:
         text = read_file(path, str(path), None, what="spec").decode("utf-8")
@@ -469,7 +380,7 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
             raise FulcrumError(f"the spec has no [{key}] section.", file=source, key=key,
                                hint="See the spec reference in docs/ or start from 'fulcrum demo DIR'.")
 
-    c = _Reader(data["cohort"], "cohort", "cohort", source)
+    c = _reader(data["cohort"], "cohort", "cohort", source)
     arms = c.get("arms")
     if len(arms) != 2 or arms[0] == arms[1]:
         raise FulcrumError(f"'cohort.arms' needs exactly two different labels, found {list(arms)!r}.",
@@ -499,7 +410,7 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
                            "make Fulcrum connect anywhere.", file=source, key="analysis.scheduler",
                            hint="Remove the key; to use a cluster, run fulcrum analyse SPEC --scheduler "
                                 "tcp://host:port.")
-    a = _Reader(data.get("analysis", {}), "analysis", "analysis", source)
+    a = _reader(data.get("analysis", {}), "analysis", "analysis", source)
     analysis = AnalysisSpec(
         margin=a.get("margin", 0.0), level=a.get("level", 0.95), interval=a.get("interval", "analytic"),
         replicates=a.get("replicates", 1000), seed=a.get("seed", 1), shape=a.get("shape", "linear"),
@@ -519,7 +430,7 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
 
     selection = None
     if "selection" in data:
-        s = _Reader(data["selection"], "selection", "selection", source)
+        s = _reader(data["selection"], "selection", "selection", source)
         truncate = s.get("truncate", (1.0, 99.0))
         if len(truncate) != 2 or not (0 <= truncate[0] < truncate[1] <= 100):
             raise FulcrumError(f"'selection.truncate' should be two percentiles, low < high, found {list(truncate)}.",
@@ -532,24 +443,24 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
 
     pairwise = None
     if "pairwise" in data:
-        p = _Reader(data["pairwise"], "pairwise", "pairwise", source)
+        p = _reader(data["pairwise"], "pairwise", "pairwise", source)
         priority = p.get("priority", ())
         for name in priority:
-            _known(name, by_name, "pairwise.priority", source)
+            known(name, by_name, "pairwise.priority", source)
         pairwise = PairwiseSpec(priority=priority, window=p.get("window", 300))
 
     maps = []
     for i, m in enumerate(_array(data.get("maps", []), "maps", source)):
-        r = _Reader(m, "maps", f"maps[{i + 1}]", source)
+        r = _reader(m, "maps", f"maps[{i + 1}]", source)
         names = r.get("indices")
         if len(names) != 2 or names[0] == names[1]:
             raise FulcrumError(f"'maps[{i + 1}].indices' needs two different index names.", file=source,
                                key=f"maps[{i + 1}].indices", hint='For example indices = ["cfs", "age"].')
         for n in names:
-            _known(n, {x.name: x for x in indices}, f"maps[{i + 1}].indices", source)
+            known(n, {x.name: x for x in indices}, f"maps[{i + 1}].indices", source)
         target = r.get("target")
         if target != "composite":
-            _known(target, by_name, f"maps[{i + 1}].target", source)
+            known(target, by_name, f"maps[{i + 1}].target", source)
         elif values is None:
             raise FulcrumError("a map targets the composite but the spec has no [values].", file=source,
                                key=f"maps[{i + 1}].target", hint="Add [values] or target an outcome.")
@@ -568,23 +479,9 @@ def _array(value: Any, name: str, source: str | None) -> list:
     return value
 
 
-def _range_check(value: float, lo: float, hi: float, path: str, source: str | None) -> None:
-    if not lo <= value <= hi:
-        raise FulcrumError(f"'{path}' is {value}, outside {lo} to {hi}.", file=source, key=path,
-                           hint=f"Choose a value from {lo} to {hi}.")
-
-
-def _known(name: str, table: dict, path: str, source: str | None) -> None:
-    if name not in table:
-        close = difflib.get_close_matches(name, list(table), n=1, cutoff=0.4)
-        hint = (f"Did you mean '{close[0]}'? " if close else "") + f"Known names: {', '.join(table)}."
-        raise FulcrumError(f"'{path}' names '{name}', which the spec does not define.", file=source, key=path,
-                           hint=hint)
-
-
 def _outcome(raw: Any, i: int, source: str | None) -> OutcomeSpec:
     where = f"outcomes[{i + 1}]"
-    r = _Reader(raw, "outcomes", where, source)
+    r = _reader(raw, "outcomes", where, source)
     name, kind = r.get("name"), r.get("kind")
     where = f"outcomes '{name}'"
     _choice(kind, OUTCOME_KINDS, f"{where}.kind", source)
@@ -651,7 +548,7 @@ def _outcome(raw: Any, i: int, source: str | None) -> OutcomeSpec:
 
 
 def _index(raw: Any, i: int, outcomes: dict[str, OutcomeSpec], source: str | None) -> IndexSpec:
-    r = _Reader(raw, "indices", f"indices[{i + 1}]", source)
+    r = _reader(raw, "indices", f"indices[{i + 1}]", source)
     name = r.get("name")
     where = f"indices '{name}'"
     given = [k for k in ("column", "formula", "prognostic") if k in raw]
@@ -661,13 +558,13 @@ def _index(raw: Any, i: int, outcomes: dict[str, OutcomeSpec], source: str | Non
                            hint='For example column = "cfs", or formula = "age / 10 + cfs".')
     prognostic = None
     if "prognostic" in raw:
-        p = _Reader(raw["prognostic"], "prognostic", f"{where}.prognostic", source)
+        p = _reader(raw["prognostic"], "prognostic", f"{where}.prognostic", source)
         outcome = p.get("outcome")
-        _known(outcome, outcomes, f"{where}.prognostic.outcome", source)
+        known(outcome, outcomes, f"{where}.prognostic.outcome", source)
         fit_on = p.get("fit_on", "second")
         _choice(fit_on, FIT_ON, f"{where}.prognostic.fit_on", source)
         folds = p.get("folds", 5)
-        _range_check(folds, 2, 20, f"{where}.prognostic.folds", source)
+        range_check(folds, 2, 20, f"{where}.prognostic.folds", source)
         covariates = p.get("covariates")
         if not covariates:
             raise FulcrumError("a prognostic index needs at least one covariate.", file=source,
@@ -693,9 +590,9 @@ def _population_needs(a: AnalysisSpec, cohort: CohortSpec, selection: Any, sourc
 
 
 def _values(raw: Any, outcomes: dict[str, OutcomeSpec], source: str | None) -> ValuesSpec:
-    r = _Reader(raw, "values", "values", source)
+    r = _reader(raw, "values", "values", source)
     name = r.get("outcome")
-    _known(name, outcomes, "values.outcome", source)
+    known(name, outcomes, "values.outcome", source)
     outcome = outcomes[name]
     if outcome.kind != "ordinal":
         raise FulcrumError(f"'values.outcome' must be an ordinal outcome; '{name}' is {outcome.kind}.", file=source,
@@ -715,8 +612,6 @@ def _values(raw: Any, outcomes: dict[str, OutcomeSpec], source: str | None) -> V
     acceptable_early = r.get("acceptable", ())
     preset = r.get("preset")
     if preset is not None and not weights:
-        from .values import preset_weights  # local: values builds on the analysis modules
-
         try:
             full = preset_weights(preset, levels, acceptable_early)
         except FulcrumError as exc:
@@ -739,24 +634,18 @@ def _values(raw: Any, outcomes: dict[str, OutcomeSpec], source: str | None) -> V
     for key, kind in (("survival_outcome", "survival"), ("utility_outcome", "continuous")):
         other = r.get(key)
         if other is not None:
-            _known(other, outcomes, f"values.{key}", source)
+            known(other, outcomes, f"values.{key}", source)
             if outcomes[other].kind != kind:
                 raise FulcrumError(f"'values.{key}' must be a {kind} outcome; '{other}' is "
                                    f"{outcomes[other].kind}.", file=source, key=f"values.{key}",
                                    hint=f"Name a {kind} outcome.")
     spread = r.get("spread", 0.0)
-    _range_check(spread, 0.0, 1.0, "values.spread", source)
+    range_check(spread, 0.0, 1.0, "values.spread", source)
     draws = r.get("draws", 500)
-    _range_check(draws, 10, 100_000, "values.draws", source)
+    range_check(draws, 10, 100_000, "values.draws", source)
     return ValuesSpec(outcome=name, weights=full, preset=r.get("preset"), ranges=ranges, acceptable=acceptable,
                       survival_outcome=r.get("survival_outcome"), utility_outcome=r.get("utility_outcome"),
                       whose=whose, spread=spread, draws=draws)
-
-
-def default_weights(levels: tuple[str, ...]) -> dict[str, float]:
-    """Equal steps from 1 (best) down to 0 (the last level, death)."""
-    k = len(levels) - 1
-    return {lv: round(1.0 - i / k, 6) for i, lv in enumerate(levels)}
 
 
 # --------------------------------------------------------------------------------------

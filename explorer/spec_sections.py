@@ -11,6 +11,7 @@ from pathlib import Path
 from typing import Any
 
 from .errors import FulcrumError
+from .spec_readers import Reader, known, range_check
 
 
 @dataclass(frozen=True)
@@ -71,11 +72,9 @@ SECTION_SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
 
 def target_and_policy(data: dict[str, Any], base_dir: Path, indices: tuple, source: str | None) -> dict[str, Any]:
     """{"target": TargetSpec | None, "policy": PolicySpec | None}; a [target] alone turns the rules on."""
-    from .spec import _known, _range_check, _Reader  # spec.py imports this module at its top
-
     target = None
     if "target" in data:
-        t = _Reader(data["target"], "target", "target", source)
+        t = Reader(data["target"], "target", source, SECTION_SCHEMA["target"])
         if t.get("path") is None:
             raise FulcrumError("[target] is missing the required key 'path' (the file of local patients).",
                                file=source, key="target.path", hint='Add path = "local_patients.csv" to [target].')
@@ -84,30 +83,28 @@ def target_and_policy(data: dict[str, Any], base_dir: Path, indices: tuple, sour
                             sheet=t.get("sheet"))
     policy = None
     if "policy" in data or target is not None:
-        p = _Reader(data.get("policy", {}), "policy", "policy", source)
+        p = Reader(data.get("policy", {}), "policy", source, SECTION_SCHEMA["policy"])
         names = p.get("indices", ())
         for n in names:
-            _known(n, {x.name: x for x in indices}, "policy.indices", source)
+            known(n, {x.name: x for x in indices}, "policy.indices", source)
         policy = PolicySpec(indices=names, tolerance=p.get("tolerance", 1.0), thresholds=p.get("thresholds", 101))
-        _range_check(policy.tolerance, 0.0, 100.0, "policy.tolerance", source)
-        _range_check(policy.thresholds, 11, 2001, "policy.thresholds", source)
+        range_check(policy.tolerance, 0.0, 100.0, "policy.tolerance", source)
+        range_check(policy.thresholds, 11, 2001, "policy.thresholds", source)
     return {"target": target, "policy": policy}
 
 
 def evidence_section(data: dict[str, Any], outcomes: dict, source: str | None) -> EvidenceSpec | None:
     """The [evidence] section, or None when the spec has none."""
-    from .spec import _known, _range_check, _Reader  # spec.py imports this module at its top
-
     if "evidence" not in data:
         return None
-    r = _Reader(data["evidence"], "evidence", "evidence", source)
+    r = Reader(data["evidence"], "evidence", source, SECTION_SCHEMA["evidence"])
     ev = EvidenceSpec(threshold=r.get("threshold", 1.0), thresholds=r.get("thresholds", {}),
                       sizes=tuple(r.get("sizes", EvidenceSpec.sizes)), simulations=r.get("simulations", 200))
-    _range_check(ev.threshold, 0.0, 1e9, "evidence.threshold", source)
-    _range_check(ev.simulations, 20, 100_000, "evidence.simulations", source)
+    range_check(ev.threshold, 0.0, 1e9, "evidence.threshold", source)
+    range_check(ev.simulations, 20, 100_000, "evidence.simulations", source)
     for name, v in ev.thresholds.items():
-        _known(name, outcomes, "evidence.thresholds", source)
-        _range_check(v, 0.0, 1e12, f"evidence.thresholds.{name}", source)
+        known(name, outcomes, "evidence.thresholds", source)
+        range_check(v, 0.0, 1e12, f"evidence.thresholds.{name}", source)
     if not ev.sizes or any(n < 10 or n > 10_000_000 for n in ev.sizes):
         raise FulcrumError(f"'evidence.sizes' should list numbers of new patients from 10 to 10,000,000, found "
                            f"{list(ev.sizes)}.", file=source, key="evidence.sizes",

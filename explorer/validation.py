@@ -26,7 +26,7 @@ import numpy as np
 from scipy import optimize
 from scipy.special import expit
 
-from . import analysis as an
+from . import fitting as ft
 from . import breakeven as be
 from . import selection as sel
 from . import values as vl
@@ -172,7 +172,7 @@ def fit_arms(sc: Scenario, data: dict[str, OutcomeData], basis: Basis, starts: d
             for arm, d in data.items()}
 
 
-def pair_of(sc: Scenario, data: dict[str, OutcomeData], basis: Basis | None = None) -> an.PairFit:
+def pair_of(sc: Scenario, data: dict[str, OutcomeData], basis: Basis | None = None) -> ft.PairFit:
     """Both arms fitted on the scenario's shape (spline knots from the pooled index, as the tool places them),
     adjustment covariates held at their pooled mean (as analysis.fit_pair holds them)."""
     xs = np.concatenate([d.x for d in data.values()])
@@ -181,26 +181,26 @@ def pair_of(sc: Scenario, data: dict[str, OutcomeData], basis: Basis | None = No
         z_ref = np.concatenate([d.z for d in data.values()]).mean(axis=0)
         for d in data.values():
             d.z_ref = z_ref
-    return an.PairFit(sc.outcome, "x", basis, fit_arms(sc, data, basis), data, {},
+    return ft.PairFit(sc.outcome, "x", basis, fit_arms(sc, data, basis), data, {},
                       (float(xs.min()), float(xs.max())))
 
 
-def composite_model(pf: an.PairFit, spec: Spec) -> vl.CompositeModel:
+def composite_model(pf: ft.PairFit, spec: Spec) -> vl.CompositeModel:
     """The tool's ordinal composite (expected state weight) built from a fitted pair, as values.prepare_composite does."""
     at = vl._ordinal_evaluator(pf)
-    grid = an.grid_for(pf, spec.analysis.grid)
+    grid = ft.grid_for(pf, spec.analysis.grid)
     L, C = at(grid, True)
     return vl.CompositeModel("ordinal", "x", pf.outcome.levels, ARMS, pf, spec, grid, L, C, at, "expected weight")
 
 
-def analytic(sc: Scenario, pf: an.PairFit, spec: Spec) -> tuple[be.CurveSummary, vl.CompositeModel | None]:
+def analytic(sc: Scenario, pf: ft.PairFit, spec: Spec) -> tuple[be.CurveSummary, vl.CompositeModel | None]:
     if sc.weights is None:
-        return an.analytic_summary(pf, spec), None
+        return ft.analytic_summary(pf, spec), None
     cm = composite_model(pf, spec)
     return vl.analytic_composite(cm, np.asarray(sc.weights)), cm
 
 
-def delta_interval(pf: an.PairFit, b: be.BreakEven, level: float) -> tuple:
+def delta_interval(pf: ft.PairFit, b: be.BreakEven, level: float) -> tuple:
     """The delta-method interval the tool uses when Fieller does not apply, for the same root."""
     v = sum(float(f.measure_var(np.array([b.x]))[0]) for f in pf.fits.values())
     lo, hi, shape = be.delta_root_interval(b.x, v, b.slope, be.critical_value(level))
@@ -225,8 +225,8 @@ def inverted_interval(diff: Callable, var: Callable, x0: float, margin: float, c
     return be.inverted_test_interval(g, x0, np.linspace(lo, hi, n))
 
 
-def _inverted(pf: an.PairFit, spec: Spec, x0: float) -> tuple:
-    diff = an.difference_fn(pf)
+def _inverted(pf: ft.PairFit, spec: Spec, x0: float) -> tuple:
+    diff = ft.difference_fn(pf)
     var = lambda x: sum(f.measure_var(x) for f in pf.fits.values())  # noqa: E731
     lo, hi = be.search_range(*pf.x_range)
     return inverted_interval(diff, var, x0, spec.margin_for(pf.outcome), be.critical_value(spec.analysis.level), lo, hi)
@@ -238,7 +238,7 @@ def resample(d: OutcomeData, idx: np.ndarray) -> OutcomeData:
                        z_names=d.z_names, z_ref=d.z_ref)
 
 
-def bootstrap(sc: Scenario, pf: an.PairFit, spec: Spec, base: be.CurveSummary, cm: vl.CompositeModel | None,
+def bootstrap(sc: Scenario, pf: ft.PairFit, spec: Spec, base: be.CurveSummary, cm: vl.CompositeModel | None,
               boot: int, rng: np.random.Generator) -> be.CurveSummary:
     """Resample patients within each arm, refit from the fitted values, and summarise as the tool does."""
     starts = {arm: f.params_ for arm, f in pf.fits.items()}
@@ -263,7 +263,7 @@ def bootstrap(sc: Scenario, pf: an.PairFit, spec: Spec, base: be.CurveSummary, c
         cm.boot_ok = ok
         return vl.bootstrap_composite(cm, np.asarray(sc.weights), base)
     diffs = [None if f is None else pf.sign * (f.astype(float) - s.astype(float)) for f, s in zip(firsts, seconds)]
-    return an.bootstrap_summary(pf, spec, diffs, firsts, seconds, base)
+    return ft.bootstrap_summary(pf, spec, diffs, firsts, seconds, base)
 
 
 def _record(b: be.BreakEven, ci: tuple | None = None) -> tuple:

@@ -28,7 +28,7 @@ import numpy as np
 import pandas as pd
 from scipy.special import expit
 
-from . import analysis as an
+from . import fitting as ft
 from .coverage import fitted_scenario
 from .indices.prognostic import cross_fitted_index
 from .models.base import Basis, OutcomeData
@@ -83,15 +83,15 @@ def study_spec(kind: str) -> Spec:
                 analysis=AnalysisSpec())
 
 
-def _curves(pf: an.PairFit, fits: dict, grid: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _curves(pf: ft.PairFit, fits: dict, grid: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return fits[ARMS[0]].measure(grid).astype(np.float32), fits[ARMS[1]].measure(grid).astype(np.float32)
 
 
-def _summary(pf: an.PairFit, spec: Spec, base, kept: list) -> tuple:
+def _summary(pf: ft.PairFit, spec: Spec, base, kept: list) -> tuple:
     firsts = [None if k is None else k[0] for k in kept]
     seconds = [None if k is None else k[1] for k in kept]
     diffs = [None if k is None else pf.sign * (k[0].astype(float) - k[1].astype(float)) for k in kept]
-    return an.bootstrap_summary(pf, spec, diffs, firsts, seconds, base)
+    return ft.bootstrap_summary(pf, spec, diffs, firsts, seconds, base)
 
 
 def one_study(kind: str, n: int, boot: int, rng: np.random.Generator) -> dict:
@@ -113,9 +113,9 @@ def one_study(kind: str, n: int, boot: int, rng: np.random.Generator) -> dict:
         sc_outcome = spec.outcomes[0]
         basis = Basis("linear")
         xs = values[np.isfinite(values)]
-        pf = an.PairFit(sc_outcome, "score", basis, {}, data, rows, (float(xs.min()), float(xs.max())))
+        pf = ft.PairFit(sc_outcome, "score", basis, {}, data, rows, (float(xs.min()), float(xs.max())))
         pf.fits = {arm: _fit(sc_outcome, arm, basis, d) for arm, d in data.items()}
-        s = an.analytic_summary(pf, spec)
+        s = ft.analytic_summary(pf, spec)
     except FIT_ERRORS as exc:
         return {"failed": f"{type(exc).__name__}: {exc}"}
     refitter = model.refitter(frame, spec)

@@ -9,141 +9,24 @@ from __future__ import annotations
 
 import copy
 import dataclasses
-import math
-import re
 from dataclasses import dataclass, field
 from typing import Callable, Sequence
 
 import numpy as np
 from scipy import special
 
-from . import analysis as an
+from . import fitting as ft
 from . import breakeven as be
+from .coverage import label_composites
 from .errors import FulcrumError
-from .spec import OutcomeSpec, Spec, ValuesSpec, default_weights
+from .numeric import jsonable, quad, r6
+from .presets import PRESETS, check_weights, default_weights
+from .presets import available_presets, preset_weights  # noqa: F401  (pages/page_values.py reads them as values.*)
+from .result_rows import curve_row, index_info_json
+from .spec import OutcomeSpec, Spec, ValuesSpec
 
 KINDS = ("ordinal", "survival_function", "quality_adjusted")
 WEIGHTED_KINDS = ("ordinal", "survival_function")
-
-
-# ------------------------------------------------------------------------------------------
-# Weights and presets
-# ------------------------------------------------------------------------------------------
-def check_weights(weights: dict[str, float] | Sequence[float], levels: Sequence[str],
-                  key: str = "values.weights") -> np.ndarray:
-    """One finite weight per level, each in [-1, 1], returned in level order."""
-    levels = tuple(levels)
-    if not isinstance(weights, dict):
-        vals = list(weights)
-        if len(vals) != len(levels):
-            raise FulcrumError(f"{len(vals)} weights were given for {len(levels)} levels.", key=key,
-                               hint=f"Give one weight per level: {', '.join(levels)}.")
-        weights = dict(zip(levels, vals))
-    for lv in weights:
-        if lv not in levels:
-            raise FulcrumError(f"a weight is given for '{lv}', which is not a level.", key=f"{key}.{lv}",
-                               hint=f"Levels: {', '.join(levels)}.")
-    out = np.empty(len(levels))
-    for i, lv in enumerate(levels):
-        if lv not in weights:
-            raise FulcrumError(f"no weight is given for '{lv}'.", key=f"{key}.{lv}",
-                               hint="Give every level a weight, or start from a preset.")
-        w = weights[lv]
-        if isinstance(w, bool) or not isinstance(w, (int, float, np.floating, np.integer)) or not math.isfinite(w):
-            raise FulcrumError(f"the weight of '{lv}' should be a finite number, found {w!r}.", key=f"{key}.{lv}",
-                               hint="Give each weight as a number from -1 to 1.")
-        if not -1.0 <= float(w) <= 1.0:
-            raise FulcrumError(f"the weight of '{lv}' is {w}, outside -1 to 1.", key=f"{key}.{lv}",
-                               hint="Weights run from -1 (worst) through 0 (death) to 1 (best state).")
-        out[i] = float(w)
-    return out
-
-
-_MRS = re.compile(r"^\s*(?:m?rs|rankin|modified rankin(?: scale)?)?\s*[-_ ]?\s*(\d)\s*$", re.IGNORECASE)
-
-
-def is_mrs(levels: Sequence[str]) -> bool:
-    """True when the levels read as the modified Rankin Scale 0..6, best first (e.g. '0'..'6' or 'mRS 0'..)."""
-    if len(levels) != 7:
-        return False
-    digits = [_MRS.match(str(lv)) for lv in levels]
-    return all(m is not None and int(m.group(1)) == i for i, m in enumerate(digits))
-
-
-# Utility-weighted mRS 0-6 (Chaisinanunkul et al., Stroke 2015;46:2238).
-UW_MRS = (1.0, 0.91, 0.76, 0.65, 0.33, 0.0, 0.0)
-# Disability weights for mRS 0-6 (Hong & Saver, Stroke 2009); utility = 1 - weight.
-HONG_SAVER_DISABILITY = (0.0, 0.046, 0.212, 0.331, 0.652, 0.944, 1.0)
-# Pooled utilities for mRS 0-6 with mRS 5 judged worse than death (Wang et al., Stroke 2020;51:2411).
-WANG_POOLED = (0.96, 0.83, 0.72, 0.54, 0.22, -0.18, 0.0)
-
-
-@dataclass(frozen=True)
-class Preset:
-    """A named starting point for the weights, with its source for the report."""
-
-    name: str
-    label: str
-    source: str
-    applies: Callable[[Sequence[str]], bool]
-    build: Callable[[Sequence[str], Sequence[str]], dict[str, float]]
-
-
-def _survival_only(levels: Sequence[str], acceptable: Sequence[str] = ()) -> dict[str, float]:
-    return {lv: (0.0 if i == len(levels) - 1 else 1.0) for i, lv in enumerate(levels)}
-
-
-def _acceptable_only(levels: Sequence[str], acceptable: Sequence[str] = ()) -> dict[str, float]:
-    if not acceptable:
-        raise FulcrumError("the 'acceptable only' preset needs the levels the patient would accept.",
-                           key="values.acceptable", hint=f"Choose one or more of: {', '.join(levels)}.")
-    for lv in acceptable:
-        if lv not in levels:
-            raise FulcrumError(f"'{lv}' is not a level.", key="values.acceptable", hint=f"Levels: {', '.join(levels)}.")
-    return {lv: (1.0 if lv in acceptable else 0.0) for lv in levels}
-
-
-def _fixed(values: tuple[float, ...]) -> Callable[[Sequence[str], Sequence[str]], dict[str, float]]:
-    return lambda levels, acceptable=(): {lv: float(v) for lv, v in zip(levels, values)}
-
-
-PRESETS: dict[str, Preset] = {p.name: p for p in (
-    Preset("equal_steps", "Equal steps", "Fulcrum default: equal steps from the best level (1) to death (0).",
-           lambda levels: len(levels) >= 2, lambda levels, acceptable=(): default_weights(tuple(levels))),
-    Preset("survival_only", "Only survival counts",
-           "Fulcrum: every living level 1, death (the last level) 0, so the composite is the chance of being alive.",
-           lambda levels: len(levels) >= 2, _survival_only),
-    Preset("acceptable_only", "Only the levels the patient would accept",
-           "Fulcrum: 1 for each level the patient would accept, 0 otherwise.",
-           lambda levels: len(levels) >= 2, _acceptable_only),
-    Preset("uw_mrs", "Utility-weighted modified Rankin Scale",
-           "Chaisinanunkul et al., Stroke 2015;46:2238 (utility-weighted mRS 0-6).", is_mrs, _fixed(UW_MRS)),
-    Preset("hong_saver", "Utilities from disability weights (modified Rankin Scale)",
-           "Hong & Saver, Stroke 2009 (disability weights for mRS 0-6; utility = 1 - weight).", is_mrs,
-           _fixed(tuple(round(1.0 - d, 6) for d in HONG_SAVER_DISABILITY))),
-    Preset("wang_pooled", "Pooled utilities with mRS 5 worse than death (modified Rankin Scale)",
-           "Wang et al., Stroke 2020;51:2411 (pooled utilities for mRS 0-6).", is_mrs, _fixed(WANG_POOLED)),
-)}
-
-
-def available_presets(levels: Sequence[str]) -> list[Preset]:
-    """The presets that apply to these levels, in display order."""
-    return [p for p in PRESETS.values() if p.applies(levels)]
-
-
-def preset_weights(name: str, levels: Sequence[str], acceptable: Sequence[str] = ()) -> dict[str, float]:
-    """The full weight dict of a preset for these levels (checked to lie in [-1, 1])."""
-    if name not in PRESETS:
-        raise FulcrumError(f"there is no preset called '{name}'.", key="values.preset",
-                           hint=f"Presets: {', '.join(PRESETS)}.")
-    p = PRESETS[name]
-    if not p.applies(levels):
-        raise FulcrumError(f"the preset '{p.label}' does not apply to the levels {list(levels)}.",
-                           key="values.preset", hint="It needs the modified Rankin Scale 0-6 (seven levels, "
-                           "best first); choose another preset.")
-    weights = p.build(tuple(levels), tuple(acceptable))
-    check_weights(weights, levels)
-    return weights
 
 
 def conditional_label(outcome: OutcomeSpec) -> str:
@@ -180,7 +63,7 @@ class CompositeModel:
     index: str
     levels: tuple[str, ...]
     arms: tuple[str, str]
-    pair: an.PairFit
+    pair: ft.PairFit
     spec: Spec
     grid: np.ndarray
     L: list[np.ndarray]
@@ -235,10 +118,6 @@ class CompositeInfo:
     model: CompositeModel | None = None
 
 
-def _quad(C: np.ndarray, w: np.ndarray) -> np.ndarray:
-    return np.einsum("gij,i,j->g", C, w, w)
-
-
 def _sandwich(J: np.ndarray, cov: np.ndarray) -> np.ndarray:
     return np.einsum("gkp,pq,glq->gkl", J, cov, J)
 
@@ -283,7 +162,7 @@ def rmst_at_horizon(fit, outcome: OutcomeSpec, x: np.ndarray) -> tuple[np.ndarra
     return np.asarray(est, float), np.asarray(var, float)
 
 
-def _ordinal_evaluator(pf: an.PairFit) -> Evaluator:
+def _ordinal_evaluator(pf: ft.PairFit) -> Evaluator:
     arms = list(pf.fits)
 
     def at(x: np.ndarray, with_cov: bool):
@@ -319,7 +198,7 @@ def survival_function_levels(P: np.ndarray, S: np.ndarray, CP: np.ndarray | None
     return L, C
 
 
-def _survival_function_evaluator(pf_ord: an.PairFit, pf_surv: an.PairFit) -> Evaluator:
+def _survival_function_evaluator(pf_ord: ft.PairFit, pf_surv: ft.PairFit) -> Evaluator:
     arms = list(pf_ord.fits)
 
     def at(x: np.ndarray, with_cov: bool):
@@ -334,7 +213,7 @@ def _survival_function_evaluator(pf_ord: an.PairFit, pf_surv: an.PairFit) -> Eva
     return at
 
 
-def _quality_adjusted_evaluator(pf_surv: an.PairFit, pf_util: an.PairFit) -> Evaluator:
+def _quality_adjusted_evaluator(pf_surv: ft.PairFit, pf_util: ft.PairFit) -> Evaluator:
     arms = list(pf_surv.fits)
 
     def at(x: np.ndarray, with_cov: bool):
@@ -349,7 +228,7 @@ def _quality_adjusted_evaluator(pf_surv: an.PairFit, pf_util: an.PairFit) -> Eva
     return at
 
 
-def _relabel(pf: an.PairFit, title: str, parts: list[an.PairFit]) -> an.PairFit:
+def _relabel(pf: ft.PairFit, title: str, parts: list[ft.PairFit]) -> ft.PairFit:
     """The anchor pair with the composite's title and every part's warnings, for the shared summary code."""
     warnings = list(dict.fromkeys(w for p in parts for w in p.warnings))
     return dataclasses.replace(pf, outcome=dataclasses.replace(pf.outcome, label=title), warnings=warnings)
@@ -379,7 +258,7 @@ def default_kinds(spec: Spec) -> tuple[str, ...]:
     return tuple(kinds)
 
 
-def prepare_composite(fs: an.FitSet, kind: str, index: str, replicates: list[dict] | None = None,
+def prepare_composite(fs: ft.FitSet, kind: str, index: str, replicates: list[dict] | None = None,
                       values: ValuesSpec | None = None) -> CompositeModel:
     """Evaluate one composite's level probabilities and covariances on the grid from the fitted models."""
     spec = fs.spec
@@ -434,7 +313,7 @@ def prepare_composite(fs: an.FitSet, kind: str, index: str, replicates: list[dic
                      "measured; the two models are treated as independent in the intervals.")
     title = f"Composite ({kind.replace('_', ' ')})"
     pair = _relabel(anchor, title, parts)
-    grid = an.grid_for(anchor, spec.analysis.grid)
+    grid = ft.grid_for(anchor, spec.analysis.grid)
     L, C = at(grid, True)
     cm = CompositeModel(kind, index, tuple(levels), tuple(anchor.fits), pair, spec, grid, L, C, at, measure, notes)
     if replicates is not None:
@@ -447,7 +326,7 @@ def _rep_curve(rec: dict, key: str, src_grid: np.ndarray, grid: np.ndarray) -> n
     return v if v.shape == grid.shape and np.array_equal(src_grid, grid) else np.interp(grid, src_grid, v)
 
 
-def _attach_replicates(cm: CompositeModel, fs: an.FitSet, values: ValuesSpec, reps: list[dict]) -> None:
+def _attach_replicates(cm: CompositeModel, fs: ft.FitSet, values: ValuesSpec, reps: list[dict]) -> None:
     """Per-replicate effective level probabilities on the composite grid, from run_bootstrap records."""
     spec, index, n = fs.spec, cm.index, fs.spec.analysis.grid
     if cm.kind in WEIGHTED_KINDS:
@@ -463,16 +342,16 @@ def _attach_replicates(cm: CompositeModel, fs: an.FitSet, values: ValuesSpec, re
             cm.notes.append("The bootstrap replicates hold restricted mean survival, not survival at the horizon, "
                             "so this composite's interval is the analytic (test-inversion) one.")
             return
-        surv_grid = an.grid_for(fs.pair(so.name, index), n)
+        surv_grid = ft.grid_for(fs.pair(so.name, index), n)
     if cm.kind == "quality_adjusted":
         so = _survival_outcome(spec)
         if so.measure != "rmst":
             cm.notes.append("The bootstrap replicates hold survival at the horizon, not restricted mean survival, "
                             "so this composite's interval is the analytic (test-inversion) one.")
             return
-        surv_grid = an.grid_for(fs.pair(so.name, index), n)
+        surv_grid = ft.grid_for(fs.pair(so.name, index), n)
         util = values.utility_outcome
-        util_grid = an.grid_for(fs.pair(util, index), n)
+        util_grid = ft.grid_for(fs.pair(util, index), n)
     G, K = len(cm.grid), len(cm.levels)
     out = [np.full((len(reps), G, K), np.nan), np.full((len(reps), G, K), np.nan)]
     ok = np.ones(len(reps), bool)
@@ -502,7 +381,7 @@ def _attach_replicates(cm: CompositeModel, fs: an.FitSet, values: ValuesSpec, re
     cm.boot, cm.boot_ok = out, ok
 
 
-def prepare_composites(fs: an.FitSet, *, kinds: Sequence[str] | None = None, replicates: list[dict] | None = None,
+def prepare_composites(fs: ft.FitSet, *, kinds: Sequence[str] | None = None, replicates: list[dict] | None = None,
                        values: ValuesSpec | None = None) -> dict[tuple[str, str], CompositeModel]:
     """Every requested composite along every index, ready for `reweight` (no model is refitted)."""
     values = values or fs.spec.values
@@ -516,7 +395,7 @@ def prepare_composites(fs: an.FitSet, *, kinds: Sequence[str] | None = None, rep
 # ------------------------------------------------------------------------------------------
 # Summaries: curves, break-even points and intervals for given weights
 # ------------------------------------------------------------------------------------------
-def _weights_for(cm: CompositeModel, weights: dict[str, float] | Sequence[float] | None) -> np.ndarray:
+def weights_for(cm: CompositeModel, weights: dict[str, float] | Sequence[float] | None) -> np.ndarray:
     if not cm.weighted:
         return np.ones(1)
     if weights is None:
@@ -534,11 +413,11 @@ def analytic_composite(cm: CompositeModel, w: np.ndarray, margin: float | None =
     a = cm.spec.analysis
     margin = _margin(cm, margin)
     m1, m2 = cm.L[0] @ w, cm.L[1] @ w
-    v1, v2 = np.maximum(_quad(cm.C[0], w), 0.0), np.maximum(_quad(cm.C[1], w), 0.0)
+    v1, v2 = np.maximum(quad(cm.C[0], w), 0.0), np.maximum(quad(cm.C[1], w), 0.0)
     diff = m1 - m2
     se = np.sqrt(np.maximum(v1 + v2, 0.0))
     z = be.critical_value(a.level)
-    crit = z if a.bands == "pointwise" else an.simultaneous_critical(cm.pair, a.level)
+    crit = z if a.bands == "pointwise" else ft.simultaneous_critical(cm.pair, a.level)
     s = be.CurveSummary(cm.grid, m1, m2, diff, diff - crit * se, diff + crit * se, band=a.bands,
                         first_band=(m1 - z * np.sqrt(v1), m1 + z * np.sqrt(v1)),
                         second_band=(m2 - z * np.sqrt(v2), m2 + z * np.sqrt(v2)), margin=margin)
@@ -554,9 +433,9 @@ def analytic_composite(cm: CompositeModel, w: np.ndarray, margin: float | None =
         ci_lo, ci_hi, shape = be.inverted_test_interval(_test_statistic(cm, w, margin, z), x0, cm.grid,
                                                         (diff - margin) ** 2 - z * z * (v1 + v2))
         s.break_even.append(be.BreakEven(x0, (ci_lo, ci_hi), "test-inversion", shape,
-                                         not an._inside(cm.pair, x0), below, above, slope=slope))
+                                         not ft.inside(cm.pair, x0), below, above, slope=slope))
     s.clear_difference = be.regions(cm.grid, s.lower, s.upper, margin, *cm.arms)
-    an._finish(cm.pair, s)
+    ft.finish_summary(cm.pair, s)
     return s
 
 
@@ -565,7 +444,7 @@ def _test_statistic(cm: CompositeModel, w: np.ndarray, margin: float, crit: floa
     def g(x: np.ndarray) -> np.ndarray:
         L, C = cm.at(np.asarray(x, float).reshape(-1), True)
         d = (L[0] - L[1]) @ w - margin
-        return d * d - crit * crit * np.maximum(_quad(C[0], w) + _quad(C[1], w), 0.0)
+        return d * d - crit * crit * np.maximum(quad(C[0], w) + quad(C[1], w), 0.0)
     return g
 
 
@@ -575,14 +454,14 @@ def bootstrap_composite(cm: CompositeModel, w: np.ndarray, base: be.CurveSummary
     B0, B1 = cm.fitted_replicates()
     F, S = B0 @ w, B1 @ w
     spec = cm.spec
-    return an.bootstrap_summary(cm.pair, spec, F - S, F, S, base, failed=int(np.sum(~cm.boot_ok)),
+    return ft.bootstrap_summary(cm.pair, spec, F - S, F, S, base, failed=int(np.sum(~cm.boot_ok)),
                                 margin=_margin(cm, margin))
 
 
 def summarise_composite(cm: CompositeModel, weights: dict[str, float] | Sequence[float] | None = None, *,
                         margin: float | None = None) -> be.CurveSummary:
     """The composite's CurveSummary for these weights: bootstrap intervals when replicates are attached."""
-    return _summary(cm, _weights_for(cm, weights), margin)
+    return _summary(cm, weights_for(cm, weights), margin)
 
 
 def _summary(cm: CompositeModel, w: np.ndarray, margin: float | None) -> be.CurveSummary:
@@ -611,7 +490,7 @@ def reweight(prepared: dict[tuple[str, str], CompositeModel], weights: dict[str,
         if keys is not None and key not in keys:
             continue
         v = values or cm.spec.values
-        w = _weights_for(cm, weights if weights is not None else v.weights)
+        w = weights_for(cm, weights if weights is not None else v.weights)
         s = _summary(cm, w, margin)
         info = CompositeInfo(cm.kind, cm.index, cm.measure,
                              dict(zip(cm.levels, map(float, w))) if cm.weighted else None, v.whose,
@@ -638,7 +517,7 @@ def _notes(cm: CompositeModel, w: np.ndarray) -> list[str]:
     return notes
 
 
-def composite_summaries(fs: an.FitSet, weights: dict[str, float] | Sequence[float] | None = None, *,
+def composite_summaries(fs: ft.FitSet, weights: dict[str, float] | Sequence[float] | None = None, *,
                         kinds: Sequence[str] | None = None, replicates: list[dict] | None = None,
                         margin: float | None = None, threshold_at: dict[str, float] | None = None
                         ) -> dict[tuple[str, str], tuple[be.CurveSummary, CompositeInfo]]:
@@ -647,28 +526,24 @@ def composite_summaries(fs: an.FitSet, weights: dict[str, float] | Sequence[floa
     return reweight(prepared, weights, margin=margin, threshold_at=threshold_at)
 
 
-def composite_rows(fs: an.FitSet, summaries: dict[tuple[str, str], tuple[be.CurveSummary, CompositeInfo]],
+def composite_rows(fs: ft.FitSet, summaries: dict[tuple[str, str], tuple[be.CurveSummary, CompositeInfo]],
                    values_spec: ValuesSpec | None = None) -> list[dict]:
-    """JSON `composite` rows in the shape of results.curve_row, outcome 'composite'."""
-    from . import results as res
-
+    """JSON `composite` rows in the shape of result_rows.curve_row, outcome 'composite'."""
     values_spec = values_spec or fs.spec.values
     rows = []
     for (kind, index), (s, info) in summaries.items():
         cm = info.model
-        row = res.curve_row(cm.pair, s, res.index_info_json(fs.indices[index]))
+        row = curve_row(cm.pair, s, index_info_json(fs.indices[index]))
         row.update({"outcome": "composite", "measure": info.measure, "kind": kind, "higher_is_better": True,
                     "among_survivors": False, "values_outcome": values_spec.outcome if values_spec else None,
-                    "weights": None if info.weights is None else {k: res.r6(v) for k, v in info.weights.items()},
+                    "weights": None if info.weights is None else {k: r6(v) for k, v in info.weights.items()},
                     "preset": values_spec.preset if values_spec else None,
                     "preset_source": PRESETS[values_spec.preset].source
                     if values_spec and values_spec.preset in PRESETS else None,
-                    "whose": info.whose, "notes": list(info.notes), "thresholds": res._jsonable(info.thresholds),
-                    "acceptability": res._jsonable(info.acceptability)})
+                    "whose": info.whose, "notes": list(info.notes), "thresholds": jsonable(info.thresholds),
+                    "acceptability": jsonable(info.acceptability)})
         row["methods"] = {"composite": " ".join(info.notes)}
         rows.append(row)
-    from .coverage import label_composites
-
     return label_composites(rows, fs.spec)
 
 
@@ -698,7 +573,7 @@ def thresholds(cm: CompositeModel, weights: dict[str, float] | Sequence[float], 
     The difference (first minus second) is linear in each weight, so the flip weight is exact:
     t = w_k - (delta @ w - margin) / delta_k, reported when it lies within [-1, 1].
     """
-    w = _weights_for(cm, weights)
+    w = weights_for(cm, weights)
     m = _margin(cm, margin)
     delta = level_differences(cm, x)
     d = float(delta @ w) - m
@@ -725,7 +600,7 @@ def thresholds(cm: CompositeModel, weights: dict[str, float] | Sequence[float], 
 def threshold_map(cm: CompositeModel, weights: dict[str, float] | Sequence[float], x: float, state_a: str,
                   state_b: str, n: int = 41, margin: float | None = None) -> list[dict]:
     """The favoured arm over a grid of two states' weights in [-1, 1]^2, other weights held fixed."""
-    w = _weights_for(cm, weights)
+    w = weights_for(cm, weights)
     for s in (state_a, state_b):
         if s not in cm.levels:
             raise FulcrumError(f"'{s}' is not a level of the weighted outcome.",
@@ -788,11 +663,11 @@ def acceptability(cm: CompositeModel, weights: dict[str, float] | Sequence[float
     the margin is averaged over the weight draws (the exact expectation of a normal draw per weight draw).
     Points: the composite grid within the observed range, or the index values `x`.
     """
-    w = _weights_for(cm, weights)
+    w = weights_for(cm, weights)
     m = _margin(cm, margin)
     W = draw_weights(cm.levels, w, ranges, spread, draws, np.random.default_rng(seed))
     if x is None:
-        keep = an.in_range(cm.pair, cm.grid)
+        keep = ft.in_range(cm.pair, cm.grid)
         xs = cm.grid[keep]
     else:
         xs = np.asarray(x, float).reshape(-1)

@@ -16,7 +16,8 @@ from explorer import charts_patient as cp
 from explorer import charts_values as cv
 from explorer import look
 from explorer import values as vl
-from explorer.analysis import analyse, fit_all
+from explorer.analysis import analyse
+from explorer.fitting import fit_all
 from explorer.spec import load_spec
 
 # Okabe & Ito (2008) palette as reproduced by Wong, Nature Methods 8:441 (2011), Figure 2 (memory).

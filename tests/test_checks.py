@@ -16,7 +16,7 @@ import statsmodels.api as sm
 from lifelines import CoxPHFitter, KaplanMeierFitter
 from scipy import optimize, stats
 
-from explorer import analysis as an
+from explorer import fitting as ft
 from explorer import checks as ck
 from explorer.models import fit_model
 from explorer.models.base import Basis, OutcomeData
@@ -26,7 +26,7 @@ CONT = OutcomeSpec("y", "continuous", column="y")
 BIN = OutcomeSpec("y", "binary", column="y")
 
 
-def pair(outcome: OutcomeSpec, data: dict[str, OutcomeData], basis: Basis = Basis()) -> an.PairFit:
+def pair(outcome: OutcomeSpec, data: dict[str, OutcomeData], basis: Basis = Basis()) -> ft.PairFit:
     """Per-arm fits of `outcome` on hand-made data, bundled as the analysis bundles them."""
     fits = {a: fit_model(outcome, a, basis, d) for a, d in data.items()}
     rows, at = {}, 0
@@ -34,12 +34,12 @@ def pair(outcome: OutcomeSpec, data: dict[str, OutcomeData], basis: Basis = Basi
         rows[a] = np.arange(at, at + len(d.x))
         at += len(d.x)
     xs = np.concatenate([d.x for d in data.values()])
-    return an.PairFit(outcome, "x", basis, fits, data, rows, (float(xs.min()), float(xs.max())))
+    return ft.PairFit(outcome, "x", basis, fits, data, rows, (float(xs.min()), float(xs.max())))
 
 
 @pytest.fixture(scope="module")
 def demo_fits(_demo_master):
-    return an.fit_all(load_spec(_demo_master / "demo.toml"))
+    return ft.fit_all(load_spec(_demo_master / "demo.toml"))
 
 
 @pytest.fixture(scope="module")
@@ -50,7 +50,7 @@ def demo_rows(demo_fits):
 # ------------------------------------------------------------------------------------------
 # Observed versus fitted on simulated cohorts whose truth is known in closed form
 # ------------------------------------------------------------------------------------------
-def continuous_pair(truth: str, seed: int = 1, n: int = 3000) -> an.PairFit:
+def continuous_pair(truth: str, seed: int = 1, n: int = 3000) -> ft.PairFit:
     rng = np.random.default_rng(seed)
     data = {}
     for arm in ("A", "B"):
@@ -262,7 +262,7 @@ def test_horizon_curve_at_the_spec_horizon_equals_the_main_break_even(demo_fits,
         if pf.outcome.kind != "survival":
             continue
         row = next(r for r in demo_rows if (r["outcome"], r["index"]) == (oname, iname))
-        main = an.analytic_summary(pf, demo_fits.spec).break_even
+        main = ft.analytic_summary(pf, demo_fits.spec).break_even
         at = [h for h in row["horizon_curve"] if h["spec_horizon"]]
         assert len(at) == 1
         if main:
@@ -360,9 +360,9 @@ def test_clustering_summary_counts_hospitals(_demo_master):
     spec = load_spec(_demo_master / "demo.toml")
     spec = dataclasses.replace(spec, cohort=dataclasses.replace(spec.cohort, cluster="hospital"),
                                outcomes=spec.outcomes[:1], indices=spec.indices[:1], values=None, selection=None)
-    fits = an.fit_all(spec)
+    fits = ft.fit_all(spec)
     no_cluster = dataclasses.replace(spec, cohort=dataclasses.replace(spec.cohort, cluster=None))
-    assert ck.clustering(an.fit_all(no_cluster)) is None
+    assert ck.clustering(ft.fit_all(no_cluster)) is None
     out = ck.clustering(fits)
     f = fits.cohort.frame
     # pandas count of distinct hospitals; the demo has 6, fewer than 20, so it warns

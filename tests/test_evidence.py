@@ -16,6 +16,7 @@ from scipy import integrate, stats
 from scipy.special import expit
 
 from explorer import analysis as an
+from explorer import fitting as ft
 from explorer import cli
 from explorer import evidence as ev
 from explorer import planner as pl
@@ -132,11 +133,11 @@ def test_evidence_uses_bootstrap_replicates_when_the_analysis_does(folder):
     result = an.analyse(spec)
     (row,) = result.document["evidence"]
     assert row["method"] == "bootstrap replicates"
-    diffs, _, _ = an.pair_curves(result.fitset.pair("y", "x"), result.replicates)
+    diffs, _, _ = ft.pair_curves(result.fitset.pair("y", "x"), result.replicates)
     D = np.array(diffs)
     expected = np.maximum(D, 0).mean(axis=0) - np.maximum(D.mean(axis=0), 0)
-    grid = an.grid_for(result.fitset.pair("y", "x"), spec.analysis.grid)
-    keep = an.in_range(result.fitset.pair("y", "x"), grid)
+    grid = ft.grid_for(result.fitset.pair("y", "x"), spec.analysis.grid)
+    keep = ft.in_range(result.fitset.pair("y", "x"), grid)
     assert np.allclose([p["evpi"] for p in row["curve"]], np.maximum(expected[keep], 0), atol=1e-7)
 
 
@@ -144,7 +145,7 @@ def test_evidence_uses_bootstrap_replicates_when_the_analysis_does(folder):
 def _width_of(frame, tmp_path):
     frame.to_csv(tmp_path / "cohort.csv", index=False)
     spec = parse_spec_text(SPEC.format(extra=""), base_dir=tmp_path)
-    return pl._interval(an.fit_all(spec).pair("y", "x"), spec, 5.0, None)[0]
+    return pl._interval(ft.fit_all(spec).pair("y", "x"), spec, 5.0, None)[0]
 
 
 @pytest.mark.slow
@@ -152,7 +153,7 @@ def test_planner_predicts_the_width_realised_at_that_size(folder, tmp_path):
     """The median width the planner predicts for 1,200 + 1,200 patients agrees within 10% with the median width
     realised on cohorts of 2,400 simulated from the closed-form truth (invented data, truth exact)."""
     spec = parse_spec_text(SPEC.format(extra=""), base_dir=folder)
-    fs = an.fit_all(spec)
+    fs = ft.fit_all(spec)
     doc = pl.plan_study(fs, "y", "x", pl.Target(width=1.0), sizes=(1200,), simulations=40,
                         strategies=("whole_range",))
     predicted = doc["rows"][0]["width"]
@@ -166,7 +167,7 @@ def test_planner_predicts_the_width_realised_at_that_size(folder, tmp_path):
 
 def test_planner_strategies_and_refusals(folder):
     spec = parse_spec_text(SPEC.format(extra=""), base_dir=folder)
-    fs = an.fit_all(spec)
+    fs = ft.fit_all(spec)
     doc = pl.plan_study(fs, "y", "x", pl.Target(chance=0.8, at=8.0), sizes=(100, 400), simulations=20)
     assert [r["strategy"] for r in doc["rows"]] == [s for s in pl.STRATEGIES for _ in (100, 400)]
     assert all(0 <= r["chance"] <= 1 and r["simulations"] == 20 for r in doc["rows"])

@@ -13,6 +13,7 @@ from lifelines import CoxPHFitter
 from sklearn.model_selection import KFold
 
 from explorer import analysis as an
+from explorer import fitting as ft
 from explorer import coverage
 from explorer import validation_fitted as vf
 from explorer.cli import summary_table
@@ -115,13 +116,13 @@ def test_replicates_refit_the_index_and_compare_on_the_common_scale(demo_spec: S
     spec = dataclasses.replace(demo_spec, analysis=dataclasses.replace(a, checks=False), values=None, selection=None,
                                pairwise=None, maps=(), outcomes=(demo_spec.outcome("alive"),),
                                indices=tuple(ix for ix in demo_spec.indices if ix.name in ("risk", "cfs")))
-    fs = an.fit_all(spec)
-    reps = an.run_bootstrap(fs)
-    fixed = an.run_bootstrap(dataclasses.replace(fs, spec=dataclasses.replace(
+    fs = ft.fit_all(spec)
+    reps = ft.run_bootstrap(fs)
+    fixed = ft.run_bootstrap(dataclasses.replace(fs, spec=dataclasses.replace(
         spec, analysis=dataclasses.replace(a, refit_index=False))))
-    shifts = [r[(an.INDEX_KEY, "risk")]["shift"] for r in reps]
+    shifts = [r[(ft.INDEX_KEY, "risk")]["shift"] for r in reps]
     assert all(abs(s) < 0.5 for s in shifts) and len(set(shifts)) == 4
-    assert (an.INDEX_KEY, "cfs") not in reps[0] and (an.INDEX_KEY, "risk") not in fixed[0]
+    assert (ft.INDEX_KEY, "cfs") not in reps[0] and (ft.INDEX_KEY, "risk") not in fixed[0]
     np.testing.assert_array_equal(reps[0][("alive", "cfs")]["first"], fixed[0][("alive", "cfs")]["first"])
     assert not np.allclose(reps[0][("alive", "risk")]["first"], fixed[0][("alive", "risk")]["first"])
     # the sentence about the score reaches the patient view (in a family's words) and the CLI summary

@@ -10,6 +10,7 @@ import pytest
 from scipy.optimize import brentq
 
 from explorer import analysis as an
+from explorer import fitting as ft
 from explorer.errors import FulcrumError
 
 SPEC = """\
@@ -43,7 +44,7 @@ def _typo(small_text, row: int = 5, value: str = "99999"):
 def test_a_value_outside_the_index_bounds_is_refused_with_file_column_and_row(small_text, write_case):
     spec = write_case(_typo(small_text), SPEC)
     with pytest.raises(FulcrumError) as err:
-        an.fit_all(spec)
+        ft.fit_all(spec)
     e = err.value
     assert e.file == "cohort.csv" and e.column == "cfs" and e.rows == [5] and e.key.endswith(".bounds")
     assert "99999" in e.what and "Correct" in e.hint
@@ -96,7 +97,7 @@ def test_without_bounds_a_far_out_value_is_named_with_the_break_even_without_it(
 def test_default_population_falls_back_to_all_with_a_warning_when_randomised_patients_are_few(small_text,
                                                                                               write_case):
     spec = write_case(small_text, SPEC)
-    fs = an.fit_all(spec)
+    fs = ft.fit_all(spec)
     n_rand = small_text[small_text["allocation"] == "randomised"].groupby("arm").size()
     assert n_rand.min() < 50  # the 400-patient cohort holds too few for the randomised default
     assert fs.population.name == "all" and fs.population.chosen_by == "default"
@@ -141,15 +142,15 @@ def _demo_subset(demo_spec, population=None):
 
 def test_demo_default_headline_intervals_cover_the_generating_break_evens(demo_spec, demo_dir):
     truth = json.loads((demo_dir / "truth.json").read_text())["break_even"]
-    fs = an.fit_all(_demo_subset(demo_spec))
+    fs = ft.fit_all(_demo_subset(demo_spec))
     assert fs.population.name == "randomised"
     for outcome, key in (("alive", "survival_365"), ("function", "favourable_function_6m")):
-        s = an.analytic_summary(fs.pair(outcome, "cfs"), fs.spec)
+        s = ft.analytic_summary(fs.pair(outcome, "cfs"), fs.spec)
         assert len(s.break_even) == 1
         b = s.break_even[0].to_json()
         assert _covers(b, truth[key]), (outcome, b, truth[key])
     # the pooled all-patient interval for one-year survival misses it (the defect the default avoids)
-    everyone = an.analytic_summary(fs.everyone("alive", "cfs"), fs.spec).break_even[0].to_json()
+    everyone = ft.analytic_summary(fs.everyone("alive", "cfs"), fs.spec).break_even[0].to_json()
     assert not _covers(everyone, truth["survival_365"])
 
 
@@ -197,7 +198,7 @@ def test_all_weighted_fits_match_statsmodels_weighted_glm_with_sandwich(small_te
     from explorer.selection import propensity_weights
 
     spec = write_case(small_text, BINARY.format(population="all_weighted"))
-    fs = an.fit_all(spec)
+    fs = ft.fit_all(spec)
     pf = fs.pair("died", "cfs")
     assert pf.population == "all_weighted"
     d = _numbers(small_text)
@@ -215,7 +216,7 @@ def test_all_adjusted_fits_match_statsmodels_logit_with_the_covariates(small_tex
     import statsmodels.api as sm
 
     spec = write_case(small_text, BINARY.format(population="all_adjusted"))
-    fs = an.fit_all(spec)
+    fs = ft.fit_all(spec)
     pf = fs.pair("died", "cfs")
     assert pf.population == "all_adjusted" and pf.outcome.adjust == ("age", "albumin")
     d = _numbers(small_text)

@@ -10,7 +10,7 @@ import pytest
 import statsmodels.api as sm
 from statsmodels.imputation import mice
 
-from explorer import analysis as an
+from explorer import fitting as ft
 from explorer import imputation as im
 from explorer.errors import FulcrumError
 from explorer.spec import load_spec
@@ -93,12 +93,12 @@ def mcar(tmp_path_factory):
     for name, frame in (("full.csv", full), ("missing.csv", missing)):
         frame.to_csv(root / name, index=False)
         (root / f"{name}.toml").write_text(SPEC.format(name=name), encoding="utf-8")
-        out[name] = an.fit_all(load_spec(root / f"{name}.toml"))
+        out[name] = ft.fit_all(load_spec(root / f"{name}.toml"))
     return out
 
 
 def test_imputed_break_even_is_close_to_the_full_data_one(mcar):
-    full = an.analytic_summary(mcar["full.csv"].pair("y", "x"), mcar["full.csv"].spec).break_even[0]
+    full = ft.analytic_summary(mcar["full.csv"].pair("y", "x"), mcar["full.csv"].spec).break_even[0]
     rows = im.imputed_break_evens(mcar["missing.csv"], m=5)
     assert len(rows) == 1
     row = rows[0]
@@ -139,7 +139,7 @@ def test_imputations_are_seeded_and_keep_observed_values(mcar):
 
 def test_demo_imputation_leaves_deaths_without_a_quality_of_life_value(_demo_master):
     # the invented demo: quality of life is measured among survivors, so patients who died keep no value
-    fs = an.fit_all(load_spec(_demo_master / "demo.toml"))
+    fs = ft.fit_all(load_spec(_demo_master / "demo.toml"))
     completed, counts = im.impute(fs, m=2)
     f = fs.cohort.frame
     dead = f.qol_6m.isna() & (f.died == 1)

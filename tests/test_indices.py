@@ -443,7 +443,7 @@ def test_a_linear_transform_of_a_column_moves_the_break_even_by_that_transform(d
     break-even and every Fieller end moves to a x + c; a < 0 reverses the order and the interval ends."""
     import dataclasses
 
-    from explorer.analysis import fit_all, summarise
+    from explorer.fitting import fit_all, summarise
     from explorer.cohort import load_cohort
 
     plain = IndexSpec(name="cfs", column="cfs")

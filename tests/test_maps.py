@@ -14,6 +14,7 @@ import statsmodels.api as sm
 from statsmodels.miscmodels.ordinal_model import OrderedModel
 
 from explorer import analysis as an
+from explorer import fitting as ft
 from explorer import maps
 from explorer.errors import FulcrumError
 from explorer.spec import MapSpec, load_spec
@@ -56,10 +57,10 @@ target = "event"
 """
 
 
-def _fitset(tmp_path: Path, frame: pd.DataFrame) -> an.FitSet:
+def _fitset(tmp_path: Path, frame: pd.DataFrame) -> ft.FitSet:
     frame.to_csv(tmp_path / "cohort.csv", index=False)
     (tmp_path / "spec.toml").write_text(SPEC, encoding="utf-8")
-    return an.fit_all(load_spec(tmp_path / "spec.toml"))
+    return ft.fit_all(load_spec(tmp_path / "spec.toml"))
 
 
 def _ordinal(rng: np.random.Generator, eta: np.ndarray, cuts: tuple[float, ...]) -> np.ndarray:
@@ -101,7 +102,7 @@ def test_second_index_without_effect_gives_a_vertical_contour_at_the_one_index_b
     u = rng.uniform(0, 1, len(base))
     frame = pd.concat([base.assign(b=u), base.assign(b=-u)], ignore_index=True)
     fs = _fitset(tmp_path, frame)
-    one = an.analytic_summary(fs.pair("event", "a"), fs.spec)
+    one = ft.analytic_summary(fs.pair("event", "a"), fs.spec)
     assert len(one.break_even) == 1
     x0 = one.break_even[0].x
     sm_fit = {arm: sm.Logit(g["event"].to_numpy(float), sm.add_constant(g["a"].to_numpy())).fit(
@@ -306,8 +307,8 @@ def test_report_sections_carry_the_map_chart_sentence_and_coefficients(tmp_path,
     assert str(escape(sections[0]["title"])) in html
     assert str(escape(maps.describe_map(result.document["maps"][0], ARMS))) in html
     fit = maps.prepare_map(result.fitset, spec.maps[0]).anchor.fits["alpha"]
-    # the table holds the coefficients as the results JSON rounds them (explorer.results.r6)
-    from explorer.results import r6
+    # the table holds the coefficients as the results JSON rounds them (explorer.numeric.r6)
+    from explorer.numeric import r6
 
     assert set(sections[0]["table"]["estimate"]) >= {r6(float(v)) for v in fit.params_}
 

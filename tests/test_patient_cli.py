@@ -14,6 +14,7 @@ from scipy.special import expit
 
 from explorer import CAUTIONS, cli
 from explorer import analysis as an
+from explorer import fitting as ft
 from explorer import checks as ck
 from explorer.patient import place_patient
 
@@ -36,7 +37,7 @@ def test_patient_command_prints_and_writes_the_app_numbers(demo_small, tmp_path,
     schema = json.loads(resources.files("explorer.schema").joinpath("patient.schema.json").read_text())
     jsonschema.validate(doc, schema)
     # the engine function the patient page calls, on the same fits
-    view = place_patient(an.fit_all(demo_small), {"cfs": 6, "age": 82})
+    view = place_patient(ft.fit_all(demo_small), {"cfs": 6, "age": 82})
     assert doc["cautions"] == list(CAUTIONS)
     assert len(doc["predictions"]) == len(view.predictions)
     for got, want in zip(doc["predictions"], view.predictions):  # the JSON keeps 10 significant digits
@@ -59,7 +60,7 @@ def test_a_patient_value_outside_the_index_bounds_is_refused(demo_small, capsys,
 
 
 def test_two_death_figures_are_explained_and_disagreeing_indices_are_shown(demo_small):
-    view = place_patient(an.fit_all(demo_small), {"cfs": 6, "age": 82})
+    view = place_patient(ft.fit_all(demo_small), {"cfs": 6, "age": 82})
     deaths = [s for s in view.limits if s.startswith("Deaths by")]
     assert deaths and all("Use the first for death" in s and "from two models" in s for s in deaths)
     by_outcome = {}

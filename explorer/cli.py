@@ -5,7 +5,6 @@ import argparse
 import os
 import subprocess
 import sys
-import time
 import tomllib
 from importlib import resources
 from pathlib import Path
@@ -13,22 +12,7 @@ from pathlib import Path
 from . import CAUTIONS, __version__
 from .errors import FulcrumError, printable
 from .margins import side_words
-
-
-class ProgressBar:
-    """A one-line text progress bar on stderr."""
-
-    def __init__(self, label: str, stream=sys.stderr) -> None:
-        self.label, self.stream, self.start = label, stream, time.monotonic()
-
-    def __call__(self, done: int, total: int) -> None:
-        width = 30
-        filled = int(width * done / max(total, 1))
-        secs = time.monotonic() - self.start
-        self.stream.write(f"\r{self.label} [{'#' * filled}{'.' * (width - filled)}] {done}/{total} {secs:5.1f}s")
-        if done >= total:
-            self.stream.write("\n")
-        self.stream.flush()
+from .progress import ProgressBar
 
 
 def _fmt(v: float | None) -> str:
@@ -351,7 +335,7 @@ def cmd_app(args: argparse.Namespace) -> int:
 
 
 def cmd_check_methods(args: argparse.Namespace) -> int:
-    from .validation import main as validation_main
+    from .coverage_study_cli import main as validation_main
 
     return validation_main(args.rest)
 

@@ -18,7 +18,9 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
+from . import database
 from .errors import FulcrumError, nfc, printable
+from .indices.formula import formula_columns
 from .intake import check_archive, drop_trailing_empty, hidden_rows, nfc_series, number_hint, read_file
 from .spec import OutcomeSpec, Spec
 
@@ -110,8 +112,6 @@ def column_roles(spec: Spec, extra_columns: Sequence[str] = ()) -> dict[str, lis
     for x in spec.indices:
         add(x.column, "index", f"indices '{x.name}'.column")
         if x.formula:
-            from .indices.formula import formula_columns
-
             for col in formula_columns(x.formula, key=f"indices '{x.name}'.formula"):
                 add(col, "covariate", f"indices '{x.name}'.formula")
         if x.prognostic:
@@ -153,8 +153,6 @@ def load_cohort(spec: Spec, *, data: bytes | None = None, filename: str | None =
 
 def _load_database(spec: Spec, extra_columns: Sequence[str], allow_connect: bool) -> Cohort:
     """The needed columns of a database table or query, typed as the Parquet reader types them."""
-    from . import database
-
     roles = column_roles(spec, extra_columns)
     numeric = {col for col, rs in roles.items() if not {r for r, _ in rs} & set(TEXT_ROLES)}
     extract = database.read(spec.cohort, list(roles), allow_connect=allow_connect,

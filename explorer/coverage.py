@@ -1,7 +1,7 @@
 """Measured coverage of each interval method, read from the simulation results that ship with the tool.
 
 explorer/validation_results.json holds the coverage rows of docs/validation.json (made by
-`python -m explorer.validation`). A break-even interval is labelled with the coverage measured for its
+`python -m explorer.coverage_study_cli`). A break-even interval is labelled with the coverage measured for its
 outcome kind and method at the simulated size nearest its cohort, and called approximate when that
 coverage lies outside 93.5-96.5%.
 """
@@ -59,7 +59,7 @@ FITTED_KINDS = ("survival", "binary")
 
 def fitted_scenario(kind: str, refitted: bool = False) -> str:
     """The name of the simulated scenario of an outcome kind along a fitted (cross-fitted prognostic) index,
-    holding the index fixed or (refitted) refitting it in every bootstrap replicate (explorer.validation_fitted)."""
+    holding the index fixed or (refitted) refitting it in every bootstrap replicate (explorer.coverage_study_fitted)."""
     return f"{kind}, fitted index" + (", refitted" if refitted else "")
 
 
@@ -68,7 +68,7 @@ def scenario_for(outcome: OutcomeSpec, analysis: AnalysisSpec, composite_kind: s
     """The simulated scenario that matches this analysis, or None when none does. margin: the outcome's own
     (Spec.margin_for; default analysis.margin). Simulated beyond the straight-line, zero-margin kinds: a spline
     shape, a non-zero margin (simulated at 0.05 on a probability) and adjustment covariates, for binary outcomes
-    and Cox survival probabilities as explorer/validation_curved.py lists them, one departure at a time. Not
+    and Cox survival probabilities as explorer/coverage_study_curved.py lists them, one departure at a time. Not
     simulated: another level, RMST or Weibull, a bounded outcome or clusters (robust variances), a composite
     other than the ordinal one, or two departures together. For a composite row pass the [values] outcome and
     the row's kind. fitted_index: the row's index is a cross-fitted prognostic index (simulated for straight-line,

@@ -13,6 +13,8 @@ import pandas as pd
 from scipy import optimize
 from scipy.special import betainc, expit
 
+from .outputs import make_folder, write_atomic
+
 SEED = 20261201
 N = 2400
 ARMS = ("laparotomy", "non-operative")
@@ -288,8 +290,6 @@ def to_csv_bytes(frame: pd.DataFrame) -> bytes:
 
 def write_demo(directory: str | Path, n: int = N, seed: int = SEED) -> Path:
     """Write the demo cohort, its spec, dictionary and truth into directory; returns the spec path."""
-    from .outputs import make_folder, write_atomic
-
     directory = make_folder(directory)
     frame, true = generate(n, seed)
     write_atomic(directory / "demo_cohort.csv", to_csv_bytes(frame))

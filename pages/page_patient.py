@@ -230,12 +230,13 @@ note = "with the name or number added" if identifiers else "no identifiers"
 c1, c2, c3 = st.columns(3)
 with c1:  # made when clicked, so moving a weight never waits for the files
     st.download_button(f"Printable summary (.html, {note})", file_name="patient_summary.html", mime="text/html",
-                       data=lambda: patient.patient_summary_html(view, CAUTIONS, **kwargs), on_click="ignore",
+                       data=lambda: summary.summary_html(view, CAUTIONS, **kwargs), on_click="ignore",
                        icon=":material/print:")
 with c2:
+    pdf = ui.engine("patient_pdf")
     st.download_button(f"Summary as PDF ({note})", file_name="patient_summary.pdf", mime="application/pdf",
-                       data=lambda: patient.patient_summary_pdf(view, CAUTIONS, **kwargs), on_click="ignore",
-                       icon=":material/picture_as_pdf:")
+                       data=lambda: pdf.summary_pdf(summary.summary_content(view, CAUTIONS, **kwargs)),
+                       on_click="ignore", icon=":material/picture_as_pdf:")
 with c3:
     st.download_button(f"Patient view (.json, {note})", file_name="patient_view.json", mime="application/json",
                        data=lambda: json.dumps(view.to_json(identifiers), indent=1), on_click="ignore",

@@ -15,7 +15,7 @@ from sklearn.model_selection import KFold
 from explorer import analysis as an
 from explorer import fitting as ft
 from explorer import coverage
-from explorer import validation_fitted as vf
+from explorer import coverage_study_fitted as vf
 from explorer.cli import summary_table
 from explorer.patient import place_patient
 from explorer.indices import compute_index

@@ -4,7 +4,7 @@ Each cohort is simulated with a break-even known in closed form (invented data, 
 estimate must lie within 0.1 index units of the same per-arm model fitted directly with a reference
 library (statsmodels or lifelines), and the 95% interval must cover the truth, for both the analytic
 and the bootstrap method. One fixed seed per kind: coverage in general is measured by
-explorer.validation (docs/validation.md), not here.
+explorer.coverage_study (docs/validation.md), not here.
 """
 from __future__ import annotations
 

@@ -14,7 +14,7 @@ from typing import Any, Protocol
 import numpy as np
 import pandas as pd
 
-from ..errors import FulcrumError
+from ..errors import FulcrumError, format_rows
 from ..spec import IndexSpec, Spec
 from .columns import as_float, describe_missing
 from .formula import Formula, formula_columns, parse_formula
@@ -134,8 +134,6 @@ def _fences(values: np.ndarray) -> str:
 
 
 def _rows_words(positions: np.ndarray) -> str:
-    from ..errors import format_rows
-
     n = len(positions)
     return f"{n} patient{'s' if n != 1 else ''} ({format_rows([int(p) + 1 for p in positions], n)}) lie" + \
         ("s" if n == 1 else "")

@@ -1,15 +1,14 @@
 """Measured coverage: simulate cohorts with known break-even points and check every interval method.
 
-    python -m explorer.validation [--replicates 500] [--sizes 300 1000 3000] [--boot 200] [--workers 2]
+    python -m explorer.coverage_study_cli [--replicates 500] [--sizes 300 1000 3000] [--boot 200] [--workers 2]
     fulcrum check-methods ...
 
-Each study runs the tool's own code (per-arm models, analysis.analytic_summary, analysis.bootstrap_summary,
+Each study runs the tool's own code (per-arm models, fitting.analytic_summary, fitting.bootstrap_summary,
 values.analytic_composite / bootstrap_composite, selection.selection_effect / varies_with_index) on
 invented data whose truth is known in closed form. Writes docs/validation.json and docs/validation.md.
 """
 from __future__ import annotations
 
-import argparse
 import dataclasses
 import datetime as _dt
 import functools
@@ -34,7 +33,7 @@ from .models import fit_model
 from .models.base import Basis, OutcomeData
 from .resampling import run_replicates
 from .spec import AnalysisSpec, CohortSpec, OutcomeSpec, Spec
-from .validation_curved import curved_scenarios
+from .coverage_study_curved import curved_scenarios
 
 X_RANGE = (0.0, 10.0)
 TARGET = (0.935, 0.965)
@@ -593,7 +592,7 @@ def markdown(rows: list[dict], settings: dict, notes: str = "") -> str:
              f"Run on {settings.get('date', _dt.date.today().isoformat())}: {cpu}, {os.cpu_count()} cores "
              f"(shared with other work), Python {platform.python_version()}, {platform.system()}.", "",
              f"Settings: `{json.dumps({k: v for k, v in settings.items() if k != 'date'})}`.", "",
-             "Made by `python -m explorer.validation` (also `fulcrum check-methods`); every row is in "
+             "Made by `python -m explorer.coverage_study_cli` (also `fulcrum check-methods`); every row is in "
              "`validation.json`, and the interval rows ship as `explorer/validation_results.json`, from which the "
              "tool labels each break-even interval with its measured coverage (`explorer/coverage.py`).", ""]
     if notes:
@@ -668,57 +667,3 @@ def merge_runs(runs: list[dict]) -> tuple[list[dict], dict]:
     mark_defaults(rows)
     settings = {"date": max(run_["settings"]["date"] for run_ in runs), "runs": [run_["settings"] for run_ in runs]}
     return rows, settings
-
-
-def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(prog="fulcrum check-methods", description=__doc__.splitlines()[0])
-    p.add_argument("--replicates", type=int, default=500, help="studies per scenario and size")
-    p.add_argument("--boot-replicates", type=int, default=None, help="studies with a bootstrap (default: all)")
-    p.add_argument("--sizes", type=int, nargs="+", default=[300, 1000, 3000])
-    p.add_argument("--boot", type=int, default=200, help="bootstrap resamples per study (0: analytic only)")
-    p.add_argument("--workers", type=int, default=-1)
-    p.add_argument("--seed", type=int, default=20261201)
-    p.add_argument("--scenarios", nargs="*", default=None)
-    p.add_argument("--parts", nargs="*", default=["analytic", "bootstrap", "null", "selection"],
-                   help="also 'fitted': the scenarios along a fitted index (explorer.validation_fitted)")
-    p.add_argument("--out", default="docs")
-    p.add_argument("--rows", help="write the raw rows and settings here as well (JSON), to merge runs later")
-    p.add_argument("--merge", nargs="+", help="write the outputs from these --rows files instead of running")
-    p.add_argument("--notes", help="a Markdown file whose text goes under the header of validation.md")
-    p.add_argument("--records", help="append every study's record to this JSON-lines file while running")
-    p.add_argument("--from-records", nargs="+", default=[],
-                   help="with --merge: coverage rows pooled from these record files (they win over --rows rows)")
-    p.add_argument("--packaged", help="also write the coverage rows the tool reads (explorer/validation_results.json)")
-    a = p.parse_args(argv)
-    notes = Path(a.notes).read_text() if a.notes else ""
-    if a.merge:
-        runs = [json.loads(Path(f).read_text()) for f in a.merge]
-        if a.from_records:
-            runs.append({"settings": {"date": _dt.date.today().isoformat(), "records": a.from_records},
-                         "rows": rows_from_records(a.from_records)})
-        rows, settings = merge_runs(runs)
-        write_outputs(rows, Path(a.out), settings, Path(a.packaged) if a.packaged else None, notes)
-        print((Path(a.out) / "validation.md").read_text())
-        return 0
-    from .cli import ProgressBar
-
-    rows = run(a.replicates, tuple(a.sizes), a.boot, a.workers, a.seed,
-               tuple(a.scenarios) if a.scenarios else None, a.boot_replicates, tuple(a.parts),
-               progress=ProgressBar("studies"), log=lambda s: print(s, flush=True), records=a.records)
-    if "fitted" in a.parts:
-        from .validation_fitted import run as run_fitted
-
-        rows += run_fitted(1000, a.boot_replicates or 500, a.boot, seed=a.seed + 1)
-        mark_defaults(rows)
-    settings = {"date": _dt.date.today().isoformat(), "replicates": a.replicates,
-                "bootstrap_studies": a.boot_replicates or a.replicates, "sizes": a.sizes,
-                "bootstrap_resamples": a.boot, "seed": a.seed, "level": 0.95, "workers": a.workers}
-    if a.rows:
-        Path(a.rows).write_text(json.dumps({"settings": settings, "rows": rows}, indent=1) + "\n")
-    write_outputs(rows, Path(a.out), settings, Path(a.packaged) if a.packaged else None, notes)
-    print((Path(a.out) / "validation.md").read_text())
-    return 0
-
-
-if __name__ == "__main__":
-    raise SystemExit(main())

@@ -1,7 +1,7 @@
 """Measured coverage along a fitted prognostic index: break-evens whose index is estimated from several covariates.
 
-    python -m explorer.validation_fitted [--studies 1000] [--boot-studies 500] [--boot 100] --rows FILE
-    (then merge FILE into docs/validation.* with `python -m explorer.validation --merge ...`)
+    python -m explorer.coverage_study_fitted [--studies 1000] [--boot-studies 500] [--boot 100] --rows FILE
+    (then merge FILE into docs/validation.* with `python -m explorer.coverage_study_cli --merge ...`)
 
 Each study draws four covariates, a true linear predictor eta = Z @ GAMMA, and each arm's outcome from eta (the
 second arm's linear predictor is eta itself, the first arm's does not depend on eta, so the arms break even at
@@ -31,10 +31,11 @@ from scipy.special import expit
 from . import fitting as ft
 from .coverage import fitted_scenario
 from .indices.prognostic import cross_fitted_index
+from .models import fit_model
 from .models.base import Basis, OutcomeData
 from .resampling import ArmArrays, refit_arms, run_replicates
 from .spec import AnalysisSpec, CohortSpec, IndexSpec, PrognosticSpec, Spec
-from .validation import ARMS, BOOT, CENSOR, FIT_ERRORS, HORIZON, OUTCOMES, _record, _round, summarise_method
+from .coverage_study import ARMS, BOOT, CENSOR, FIT_ERRORS, HORIZON, OUTCOMES, _record, _round, summarise_method
 
 KINDS = ("survival", "binary")
 COVARIATES = ("z1", "z2", "z3", "z4")
@@ -145,8 +146,6 @@ def one_study(kind: str, n: int, boot: int, rng: np.random.Generator) -> dict:
 
 
 def _fit(outcome, arm, basis, d):
-    from .models import fit_model
-
     return fit_model(outcome, arm, basis, d, checks=False)
 
 
@@ -253,7 +252,7 @@ SCENARIO_WORDS = (
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(prog="python -m explorer.validation_fitted", description=__doc__.splitlines()[0])
+    p = argparse.ArgumentParser(prog="python -m explorer.coverage_study_fitted", description=__doc__.splitlines()[0])
     p.add_argument("--studies", type=int, default=1000)
     p.add_argument("--boot-studies", type=int, default=500)
     p.add_argument("--boot", type=int, default=100, help="bootstrap resamples per study")
@@ -264,7 +263,7 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--from-records", nargs="+", help="make the rows from these record files instead of running")
     p.add_argument("--backwards", action="store_true",
                    help="studies last first (see run_backwards); analytic only when --boot-studies is 0")
-    p.add_argument("--rows", required=True, help="write the rows and settings here (JSON), for validation --merge")
+    p.add_argument("--rows", required=True, help="write the rows and settings here (JSON), for coverage_study_cli --merge")
     a = p.parse_args(argv)
     settings = {"date": _dt.date.today().isoformat(), "fitted_index": True, "studies": a.studies,
                 "bootstrap_studies": a.boot_studies, "bootstrap_resamples": a.boot, "n": a.n, "seed": a.seed}

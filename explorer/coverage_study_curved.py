@@ -2,7 +2,7 @@
 a spline shape, a non-zero margin on a probability, and a covariate-adjusted Cox fit.
 
 Each has a truth known in closed form (or solved exactly from closed-form curves), on an index uniform on
-0 to 10, censoring as in explorer/validation.py. explorer/validation.py wraps these as its Scenario entries.
+0 to 10, censoring as in explorer/coverage_study.py. explorer/coverage_study.py wraps these as its Scenario entries.
 """
 from __future__ import annotations
 

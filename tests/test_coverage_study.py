@@ -1,7 +1,7 @@
 """Measured coverage: a reduced simulation run that fails when any interval's coverage regresses.
 
 Outside references: the truths are closed-form solutions of the simulated models (invented data, only
-here), recomputed below independently of explorer.validation; acceptance limits come from the binomial
+here), recomputed below independently of explorer.coverage_study; acceptance limits come from the binomial
 distribution (scipy.stats.binom), the 99.9% two-sided acceptance region around the nominal 95% (or 5%)
 for that many simulated studies.
 """
@@ -19,7 +19,7 @@ from scipy import optimize, stats
 from explorer import fitting as ft
 from explorer import breakeven as be
 from explorer import coverage as cov
-from explorer import validation as v
+from explorer import coverage_study as v
 from explorer.spec import AnalysisSpec, OutcomeSpec
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -1,7 +1,7 @@
 """Can the curves be trusted? Observed versus fitted along the index, calibration, sliding-window
 differences, a test of effect modification, the break-even across horizons, and the baseline table.
 
-Everything works on a fitted set (explorer.analysis.FitSet) and returns JSON-ready rows; nothing
+Everything works on a fitted set (explorer.fitting.FitSet) and returns JSON-ready rows; nothing
 here refits the main analysis except the restricted model of the effect-modification test.
 """
 from __future__ import annotations

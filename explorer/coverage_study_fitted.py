@@ -8,7 +8,7 @@ second arm's linear predictor is eta itself, the first arm's does not depend on 
 eta = ETA_STAR). The tool then does what an analysis does: it cross-fits the prognostic model on the second arm
 (indices.prognostic.cross_fitted_index, 5 folds), fits each arm along the fitted index, and finds the break-even
 with its analytic interval (the index held fixed) and a bootstrap refitting the index in every replicate
-(refit_index = true; the code path of analysis.boot_replicate: Refitter.values and resampling.refit_arms).
+(refit_index = true; the code path of fitting.boot_replicate: Refitter.values and resampling.refit_arms).
 The truth lives on the true linear predictor's scale and is mapped to the fitted index through the fitted model's
 absolute prediction (the common scale of prognostic.anchor): on the fitted index the true break-even is the value
 whose predicted log cumulative hazard at the horizon (survival) or predicted log odds (binary) equals the true one

@@ -33,9 +33,9 @@ class Reader:
         if key not in self.table:
             return default
         value = self.table[key]
-        kind = self.allowed[key][0]
+        type_name = self.allowed[key][0]
         path = f"{self.where}.{key}"
-        return coerce(value, kind, path, self.source)
+        return coerce(value, type_name, path, self.source)
 
 
 def typename(v: Any) -> str:
@@ -43,41 +43,41 @@ def typename(v: Any) -> str:
             list: "a list", dict: "a table"}.get(type(v), type(v).__name__)
 
 
-def coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
+def coerce(value: Any, type_name: str, path: str, source: str | None) -> Any:
     def bad(expected: str) -> FulcrumError:
         return FulcrumError(f"'{path}' should be {expected}, found {typename(value)} {value!r}.",
                             file=source, key=path, hint=f"Write {path.split('.')[-1]} as {expected}.")
 
-    if kind in ("str", "path"):
+    if type_name in ("str", "path"):
         if not isinstance(value, str) or not value.strip():
             raise bad("non-empty text in quotes")
-        return value if kind == "path" else nfc(value)
-    if kind == "bool":
+        return value if type_name == "path" else nfc(value)
+    if type_name == "bool":
         if not isinstance(value, bool):
             raise bad("true or false")
         return value
-    if kind == "int":
+    if type_name == "int":
         if isinstance(value, bool) or not isinstance(value, int):
             raise bad("a whole number")
         return value
-    if kind == "float":
+    if type_name == "float":
         if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
             raise bad("a finite number")
         return float(value)
-    if kind == "list[str]":
+    if type_name == "list[str]":
         if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
             raise bad('a list of texts, e.g. ["a", "b"]')
         return tuple(nfc(v) for v in value)
-    if kind == "list[float]":
+    if type_name == "list[float]":
         if not isinstance(value, list) or not all(
                 isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in value):
             raise bad("a list of numbers, e.g. [1, 99]")
         return tuple(float(v) for v in value)
-    if kind == "list[int]":
+    if type_name == "list[int]":
         if not isinstance(value, list) or not all(isinstance(v, int) and not isinstance(v, bool) for v in value):
             raise bad("a list of whole numbers, e.g. [200, 500]")
         return tuple(value)
-    if kind == "table[float]":
+    if type_name == "table[float]":
         if not isinstance(value, dict):
             raise bad("a table of numbers, e.g. { level = 0.5 }")
         out = {}
@@ -87,7 +87,7 @@ def coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
                                    file=source, key=f"{path}.{k}", hint="Give each weight as a number.")
             out[nfc(str(k))] = float(v)
         return out
-    if kind == "table[range]":
+    if type_name == "table[range]":
         if not isinstance(value, dict):
             raise bad("a table of [low, high] pairs")
         out = {}
@@ -98,9 +98,9 @@ def coerce(value: Any, kind: str, path: str, source: str | None) -> Any:
                                    file=source, key=f"{path}.{k}", hint="Give two numbers, the lower first.")
             out[nfc(str(k))] = (pair[0], pair[1])
         return out
-    if kind == "table":
+    if type_name == "table":
         return value
-    raise AssertionError(kind)
+    raise AssertionError(type_name)
 
 
 def range_check(value: float, lo: float, hi: float, path: str, source: str | None) -> None:

@@ -173,7 +173,7 @@ def fit_arms(sc: Scenario, data: dict[str, OutcomeData], basis: Basis, starts: d
 
 def pair_of(sc: Scenario, data: dict[str, OutcomeData], basis: Basis | None = None) -> ft.PairFit:
     """Both arms fitted on the scenario's shape (spline knots from the pooled index, as the tool places them),
-    adjustment covariates held at their pooled mean (as analysis.fit_pair holds them)."""
+    adjustment covariates held at their pooled mean (as fitting.fit_pair holds them)."""
     xs = np.concatenate([d.x for d in data.values()])
     basis = basis or Basis.from_index(xs, sc.shape)
     if any(d.z is not None for d in data.values()):

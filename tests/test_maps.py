@@ -95,7 +95,7 @@ def _distance_to_line(points: list[dict], c0: float, ca: float, cb: float) -> np
 def test_second_index_without_effect_gives_a_vertical_contour_at_the_one_index_break_even(tmp_path):
     # Each patient appears twice, with b = +u and b = -u: the likelihood is symmetric in b's coefficient, so
     # its maximum is exactly 0 and the two-index model is the one-index model (no interaction fitted).
-    # References: the break-even point explorer.analysis finds along a alone, and the closed-form root
+    # References: the break-even point explorer.fitting finds along a alone, and the closed-form root
     # -(c0_alpha - c0_beta) / (c1_alpha - c1_beta) of statsmodels Logit fits along a alone.
     rng = np.random.default_rng(7)
     base = _logit_cohort(rng, 1500, {"alpha": (1.0, -0.3), "beta": (-0.5, -0.05)})

@@ -415,7 +415,7 @@ def true_quality_adjusted(arm: str, x) -> np.ndarray:
 
 
 def fit_cohort(folder, measure: str, replicates: int) -> tuple[ft.FitSet, list[dict]]:
-    """Write the simulated cohort and its spec, then fit and bootstrap through explorer.analysis."""
+    """Write the simulated cohort and its spec, then fit and bootstrap through explorer.fitting."""
     import pandas as pd
 
     from explorer.spec import load_spec

@@ -28,12 +28,12 @@ import subprocess
 import sys
 import tempfile
 import time
-import tomllib
 from pathlib import Path
 from typing import Any, Callable
 
 import numpy as np
 import pandas as pd
+import tomllib
 
 ROOT = Path(__file__).resolve().parent.parent
 sys.path[:0] = [str(ROOT), str(Path(__file__).resolve().parent)]
@@ -41,8 +41,8 @@ sys.path[:0] = [str(ROOT), str(Path(__file__).resolve().parent)]
 import reference as ref  # noqa: E402
 
 from explorer import analysis as an  # noqa: E402
-from explorer import fitting as ft  # noqa: E402
 from explorer import demo  # noqa: E402
+from explorer import fitting as ft  # noqa: E402
 from explorer import values as vl  # noqa: E402
 from explorer.cohort import column_roles, load_cohort  # noqa: E402
 from explorer.indices import needed_columns  # noqa: E402

@@ -18,7 +18,14 @@ import numpy as np
 import pandas as pd
 
 from .errors import FulcrumError
-from .spec import Spec, canonical_sha256, parse_spec, parse_spec_text, spec_to_dict, to_toml
+from .spec import (
+    Spec,
+    canonical_sha256,
+    parse_spec,
+    parse_spec_text,
+    spec_to_dict,
+    to_toml,
+)
 from .spec_sections import carried_rule_sections, reachable_target
 
 APP_SOURCE = "the app's settings"
@@ -634,8 +641,8 @@ class Workspace:
     def curve_rows(self, bootstrap: bool = True) -> list[dict]:
         """The `results` rows (outcome x index) for the current margin, level and bands."""
         from . import result_rows as res
-        from .fitting import summarise
         from .coverage import label_results
+        from .fitting import summarise
         from .headline import annotate
 
         boot = bootstrap and self.has_bootstrap()

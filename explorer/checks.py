@@ -16,8 +16,8 @@ from typing import Callable
 import numpy as np
 from scipy import stats
 
-from . import fitting as ft
 from . import breakeven as be
+from . import fitting as ft
 from .cohort import Cohort
 from .errors import FulcrumError
 from .indices import MAX_DISCRETE_LEVELS, IndexValues

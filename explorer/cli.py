@@ -5,9 +5,10 @@ import argparse
 import os
 import subprocess
 import sys
-import tomllib
 from importlib import resources
 from pathlib import Path
+
+import tomllib
 
 from . import CAUTIONS, __version__
 from .errors import FulcrumError, printable
@@ -160,8 +161,8 @@ def _at_value(text: str) -> tuple[str, float]:
 def cmd_plan(args: argparse.Namespace) -> int:
     from . import results as res
     from .fitting import fit_all
-    from .planner import Target, plan_study
     from .outputs import input_paths
+    from .planner import Target, plan_study
     from .spec import load_spec
 
     spec = load_spec(args.spec)

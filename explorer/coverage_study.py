@@ -25,15 +25,15 @@ import numpy as np
 from scipy import optimize
 from scipy.special import expit
 
-from . import fitting as ft
 from . import breakeven as be
+from . import fitting as ft
 from . import selection as sel
 from . import values as vl
+from .coverage_study_curved import curved_scenarios
 from .models import fit_model
 from .models.base import Basis, OutcomeData
 from .resampling import run_replicates
 from .spec import AnalysisSpec, CohortSpec, OutcomeSpec, Spec
-from .coverage_study_curved import curved_scenarios
 
 X_RANGE = (0.0, 10.0)
 TARGET = (0.935, 0.965)

@@ -30,12 +30,22 @@ from scipy.special import expit
 
 from . import fitting as ft
 from .coverage import fitted_scenario
+from .coverage_study import (
+    ARMS,
+    BOOT,
+    CENSOR,
+    FIT_ERRORS,
+    HORIZON,
+    OUTCOMES,
+    _record,
+    _round,
+    summarise_method,
+)
 from .indices.prognostic import cross_fitted_index
 from .models import fit_model
 from .models.base import Basis, OutcomeData
 from .resampling import ArmArrays, refit_arms, run_replicates
 from .spec import AnalysisSpec, CohortSpec, IndexSpec, PrognosticSpec, Spec
-from .coverage_study import ARMS, BOOT, CENSOR, FIT_ERRORS, HORIZON, OUTCOMES, _record, _round, summarise_method
 
 KINDS = ("survival", "binary")
 COVARIATES = ("z1", "z2", "z3", "z4")

@@ -27,8 +27,8 @@ from scipy import special
 
 from . import fitting as ft
 from .margins import margin_for, measure_span, on_probability_scale
-from .policy import policy_indices
 from .numeric import quad, r6, r6_list
+from .policy import policy_indices
 from .target import Target, cohort_target, load_target
 from .values import weights_for
 

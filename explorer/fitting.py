@@ -10,8 +10,9 @@ from __future__ import annotations
 import dataclasses
 import functools
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Any, Callable
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -219,12 +220,12 @@ def fit_all(spec: Spec, cohort: Cohort | None = None, *, indices: dict[str, Inde
         if indices is None:
             indices = compute_indices(spec, cohort)
         population = resolve(spec, cohort)
-        pairs = fit_pairs(spec, cohort, indices, population, progress)
+        pairs = _fit_pairs(spec, cohort, indices, population, progress)
     return FitSet(spec, cohort, indices, pairs, n_fits=2 * len(pairs), population=population,
                   notes=population.warnings + notes)
 
 
-def fit_pairs(spec: Spec, cohort: Cohort, indices: dict[str, IndexValues], population: Population,
+def _fit_pairs(spec: Spec, cohort: Cohort, indices: dict[str, IndexValues], population: Population,
                progress: Progress | None) -> dict[tuple[str, str], PairFit]:
     pairs = {}
     total = len(spec.outcomes) * len(spec.indices)
@@ -258,7 +259,7 @@ def in_range(pf: PairFit, grid: np.ndarray) -> np.ndarray:
 
 def fieller_terms(pf: PairFit, margin: float) -> tuple[float, float, np.ndarray] | None:
     """(a, b, cov) of the linear difference c0 + c1 x when Fieller applies, else None."""
-    first, second = (pf.fits[a] for a in arms_of(pf))
+    first, second = (pf.fits[a] for a in _arms(pf))
     t1, t2 = first.linear_terms(), second.linear_terms()
     if t1 is None or t2 is None:
         return None
@@ -271,12 +272,12 @@ def fieller_terms(pf: PairFit, margin: float) -> tuple[float, float, np.ndarray]
     return a, b, np.asarray(v1, float) + np.asarray(v2, float)
 
 
-def arms_of(pf: PairFit) -> list[str]:
+def _arms(pf: PairFit) -> list[str]:
     return list(pf.fits)
 
 
 def difference_fn(pf: PairFit) -> Callable[[np.ndarray], np.ndarray]:
-    first, second = (pf.fits[a] for a in arms_of(pf))
+    first, second = (pf.fits[a] for a in _arms(pf))
     return lambda x: pf.sign * (first.measure(x) - second.measure(x))
 
 
@@ -298,7 +299,7 @@ def diff_span(pf: PairFit) -> float | None:
 
 
 def variance_fn(pf: PairFit) -> Callable[[np.ndarray], np.ndarray]:
-    first, second = (pf.fits[a] for a in arms_of(pf))
+    first, second = (pf.fits[a] for a in _arms(pf))
     return lambda x: first.measure_var(x) + second.measure_var(x)
 
 
@@ -312,7 +313,7 @@ def analytic_summary(pf: PairFit, spec: Spec) -> be.CurveSummary:
     the delta method instead, labelled so."""
     a = spec.analysis
     margin = margin_of(spec, pf)
-    arms = arms_of(pf)
+    arms = _arms(pf)
     first, second = pf.fits[arms[0]], pf.fits[arms[1]]
     grid = grid_for(pf, a.grid)
     m1, m2 = first.measure(grid), second.measure(grid)
@@ -344,20 +345,20 @@ def analytic_summary(pf: PairFit, spec: Spec) -> be.CurveSummary:
                 g_grid = be.inversion_statistic(lambda x: diff, lambda x: v1 + v2, margin, z, span)(grid)
             ci_lo, ci_hi, shape = be.inverted_test_interval(g, x0, grid, on_grid=g_grid)
             method = "test-inversion"
-        s.break_even.append(be.BreakEven(x0, (ci_lo, ci_hi), method, shape, not inside(pf, x0), below, above,
-                                         slope=slope))
+        s.break_even.append(be.BreakEven(x0, (ci_lo, ci_hi), method, shape, not in_observed_range(pf, x0), below,
+                                         above, slope=slope))
     if terms is not None:
         s.clear_difference = be.regions_from_linear(grid, terms[0], terms[1], terms[2], crit,
-                                                    linear_sign(pf), *arms)
+                                                    _linear_sign(pf), *arms)
     else:
         s.clear_difference = be.regions(grid, s.lower, s.upper, margin, *arms)
     finish_summary(pf, s)
     return s
 
 
-def linear_sign(pf: PairFit) -> float:
+def _linear_sign(pf: PairFit) -> float:
     """+1 when a higher linear predictor means a better oriented measure, else -1."""
-    first = pf.fits[arms_of(pf)[0]]
+    first = pf.fits[_arms(pf)[0]]
     c, _ = first.linear_terms()
     x0 = pf.x_range[0]
     h = max(1e-3, 1e-3 * (pf.x_range[1] - pf.x_range[0]))
@@ -373,13 +374,13 @@ def simultaneous_critical(pf: PairFit, level: float) -> float:
     return float(math.sqrt(stats.chi2.ppf(level, pf.basis.n_columns + 1)))
 
 
-def inside(pf: PairFit, x: float) -> bool:
+def in_observed_range(pf: PairFit, x: float) -> bool:
     lo, hi = pf.x_range
     return lo - 1e-9 <= x <= hi + 1e-9
 
 
 def finish_summary(pf: PairFit, s: be.CurveSummary) -> None:
-    arms = arms_of(pf)
+    arms = _arms(pf)
     for b in s.break_even:
         if b.extrapolated:
             s.warnings.append(f"{pf.outcome.title}: the break-even point {b.x:.3g} lies outside the observed "
@@ -526,7 +527,7 @@ def bootstrap_summary(pf: PairFit, spec: Spec, curves: list[np.ndarray | None] |
     (a composite passes its own).
     """
     a = spec.analysis
-    arms = arms_of(pf)
+    arms = _arms(pf)
     if base is None:
         base = analytic_summary(pf, spec)
     if isinstance(curves, np.ndarray):

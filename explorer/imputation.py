@@ -17,8 +17,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from . import fitting as ft
 from . import breakeven as be
+from . import fitting as ft
 from .cohort import Cohort
 from .errors import FulcrumError
 from .indices import IndexValues
@@ -142,7 +142,9 @@ def impute(fs: ft.FitSet, m: int = M, seed: int | None = None) -> tuple[list[Imp
     from sklearn.exceptions import ConvergenceWarning
     from sklearn.experimental import enable_iterative_imputer  # noqa: F401
     from sklearn.impute import IterativeImputer
-    from threadpoolctl import threadpool_limits  # small matrices: one BLAS thread avoids thread contention
+    from threadpoolctl import (
+        threadpool_limits,  # small matrices: one BLAS thread avoids thread contention
+    )
 
     spec, cohort = fs.spec, fs.cohort
     seed = spec.analysis.seed if seed is None else seed

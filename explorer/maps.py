@@ -18,8 +18,8 @@ import numpy as np
 import pandas as pd
 from scipy.spatial import ConvexHull, QhullError, cKDTree
 
-from . import fitting as ft
 from . import breakeven as be
+from . import fitting as ft
 from . import values as vl
 from .errors import FulcrumError
 from .models import fit_model

@@ -26,8 +26,8 @@ import pandas as pd
 from .breakeven import critical_value, percentile_interval
 from .errors import FulcrumError, format_rows
 from .models.common import one_blas_thread
-from .resampling import Progress, run_blocks, run_replicates
 from .numeric import r6
+from .resampling import Progress, run_blocks, run_replicates
 from .spec import OutcomeSpec, Spec
 
 RULE_KINDS = ("survival", "ordinal", "continuous", "binary")

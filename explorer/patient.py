@@ -17,10 +17,10 @@ from scipy import stats
 
 from . import breakeven as be
 from . import values as val
-from .fitting import SPARSE_SHARE, STRETCHES, FitSet, PairFit
 from .charts import fmt, per_hundred, words
 from .conversation import WHO_SHORT, ValuesRecord
 from .errors import FulcrumError
+from .fitting import SPARSE_SHARE, STRETCHES, FitSet, PairFit
 from .indices import percentile_of
 from .indices.prognostic import about_index_plain
 from .margins import on_probability_scale

@@ -12,8 +12,8 @@ import dataclasses
 import functools
 import json
 import math
-from importlib import resources
 from dataclasses import dataclass
+from importlib import resources
 from typing import Sequence
 
 import numpy as np

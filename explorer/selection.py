@@ -15,8 +15,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats
 
-from . import fitting as ft
 from . import breakeven as be
+from . import fitting as ft
 from .errors import FulcrumError
 from .models import fit_model
 from .models.base import Fitted, numerical_jacobian

@@ -8,21 +8,30 @@ from __future__ import annotations
 import difflib
 import hashlib
 import json
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import tomllib
+
 from . import margins
-from .database import KEYS as DATABASE_KEYS, cohort_source
+from .database import KEYS as DATABASE_KEYS
+from .database import cohort_source
 from .errors import FulcrumError
 from .intake import read_file
 from .presets import default_weights, preset_weights
 from .settings import check_analysis
 from .spec_readers import Reader, known, range_check
-from .spec_sections import (SECTION_SCHEMA, EvidenceSpec, PolicySpec, TargetSpec, evidence_section,
-                            target_and_policy)
-from .tomlwrite import plain, toml_value as _toml_value
+from .spec_sections import (
+    SECTION_SCHEMA,
+    EvidenceSpec,
+    PolicySpec,
+    TargetSpec,
+    evidence_section,
+    target_and_policy,
+)
+from .tomlwrite import plain
+from .tomlwrite import toml_value as _toml_value
 
 OUTCOME_KINDS = ("continuous", "binary", "ordinal", "survival")
 INTERVALS = ("analytic", "bootstrap")

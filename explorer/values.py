@@ -15,13 +15,18 @@ from typing import Callable, Sequence
 import numpy as np
 from scipy import special
 
-from . import fitting as ft
 from . import breakeven as be
+from . import fitting as ft
 from .coverage import label_composites
 from .errors import FulcrumError
 from .numeric import jsonable, quad, r6
-from .presets import PRESETS, check_weights, default_weights
-from .presets import available_presets, preset_weights  # noqa: F401  (pages/page_values.py reads them as values.*)
+from .presets import (
+    PRESETS,
+    available_presets,  # noqa: F401  (pages/page_values.py reads it as values.available_presets)
+    check_weights,
+    default_weights,
+    preset_weights,  # noqa: F401  (pages/page_values.py reads it as values.preset_weights)
+)
 from .result_rows import curve_row, index_info_json
 from .spec import OutcomeSpec, Spec, ValuesSpec
 
@@ -433,7 +438,7 @@ def analytic_composite(cm: CompositeModel, w: np.ndarray, margin: float | None =
         ci_lo, ci_hi, shape = be.inverted_test_interval(_test_statistic(cm, w, margin, z), x0, cm.grid,
                                                         (diff - margin) ** 2 - z * z * (v1 + v2))
         s.break_even.append(be.BreakEven(x0, (ci_lo, ci_hi), "test-inversion", shape,
-                                         not ft.inside(cm.pair, x0), below, above, slope=slope))
+                                         not ft.in_observed_range(cm.pair, x0), below, above, slope=slope))
     s.clear_difference = be.regions(cm.grid, s.lower, s.upper, margin, *cm.arms)
     ft.finish_summary(cm.pair, s)
     return s

@@ -4,10 +4,10 @@ import dataclasses
 import datetime as dt
 import json
 
-import streamlit as st
-
 import fulcrum_ui as ui
+import streamlit as st
 import ui_theme
+
 from explorer import CAUTIONS
 from explorer import appstate as aps
 

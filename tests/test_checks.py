@@ -3,7 +3,6 @@ the baseline table, checked against closed-form truths, statsmodels, lifelines, 
 from __future__ import annotations
 
 import dataclasses
-
 import json
 import math
 import warnings
@@ -16,8 +15,8 @@ import statsmodels.api as sm
 from lifelines import CoxPHFitter, KaplanMeierFitter
 from scipy import optimize, stats
 
-from explorer import fitting as ft
 from explorer import checks as ck
+from explorer import fitting as ft
 from explorer.models import fit_model
 from explorer.models.base import Basis, OutcomeData
 from explorer.spec import OutcomeSpec, load_spec

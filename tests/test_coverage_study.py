@@ -16,10 +16,10 @@ import numpy as np
 import pytest
 from scipy import optimize, stats
 
-from explorer import fitting as ft
 from explorer import breakeven as be
 from explorer import coverage as cov
 from explorer import coverage_study as v
+from explorer import fitting as ft
 from explorer.spec import AnalysisSpec, OutcomeSpec
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -16,9 +16,9 @@ from scipy import integrate, stats
 from scipy.special import expit
 
 from explorer import analysis as an
-from explorer import fitting as ft
 from explorer import cli
 from explorer import evidence as ev
+from explorer import fitting as ft
 from explorer import planner as pl
 from explorer import results as res
 from explorer.errors import FulcrumError

@@ -13,14 +13,21 @@ from lifelines import CoxPHFitter
 from sklearn.model_selection import KFold
 
 from explorer import analysis as an
-from explorer import fitting as ft
 from explorer import coverage
 from explorer import coverage_study_fitted as vf
+from explorer import fitting as ft
 from explorer.cli import summary_table
-from explorer.patient import place_patient
 from explorer.indices import compute_index
 from explorer.indices.prognostic import _folds, anchor, cross_fitted_index
-from explorer.spec import AnalysisSpec, CohortSpec, IndexSpec, OutcomeSpec, PrognosticSpec, Spec
+from explorer.patient import place_patient
+from explorer.spec import (
+    AnalysisSpec,
+    CohortSpec,
+    IndexSpec,
+    OutcomeSpec,
+    PrognosticSpec,
+    Spec,
+)
 
 COVARIATES = ("karno", "age", "prior")
 

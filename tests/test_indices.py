@@ -18,7 +18,14 @@ from statsmodels.miscmodels.ordinal_model import OrderedModel
 from explorer.errors import FulcrumError
 from explorer.indices import compute_index, needed_columns, percentile_of
 from explorer.indices.concordance import harrell_c
-from explorer.spec import AnalysisSpec, CohortSpec, IndexSpec, OutcomeSpec, PrognosticSpec, Spec
+from explorer.spec import (
+    AnalysisSpec,
+    CohortSpec,
+    IndexSpec,
+    OutcomeSpec,
+    PrognosticSpec,
+    Spec,
+)
 
 ARMS = ("surgery", "conservative")
 COVARIATES = ("age", "cfs", "lactate")
@@ -443,8 +450,8 @@ def test_a_linear_transform_of_a_column_moves_the_break_even_by_that_transform(d
     break-even and every Fieller end moves to a x + c; a < 0 reverses the order and the interval ends."""
     import dataclasses
 
-    from explorer.fitting import fit_all, summarise
     from explorer.cohort import load_cohort
+    from explorer.fitting import fit_all, summarise
 
     plain = IndexSpec(name="cfs", column="cfs")
     scaled = IndexSpec(name="scaled", formula="2.5 * cfs + 10")

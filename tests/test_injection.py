@@ -183,9 +183,9 @@ def test_patient_summary_escapes_labels(hostile) -> None:
 
 @pytest.mark.browser
 def test_no_injected_script_runs_when_the_report_opens_in_chromium(hostile, tmp_path) -> None:
+    from browser_helpers import CHROMIUM, CHROMIUM_ARGS
     from playwright.sync_api import sync_playwright
 
-    from browser_helpers import CHROMIUM, CHROMIUM_ARGS
     from explorer.report import write_report
 
     if not Path(CHROMIUM).exists():

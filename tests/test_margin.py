@@ -16,9 +16,9 @@ import statsmodels.api as sm
 from scipy import stats
 
 from explorer import analysis as an
-from explorer import fitting as ft
 from explorer import breakeven as be
 from explorer import charts, coverage
+from explorer import fitting as ft
 from explorer.cli import summary_table
 from explorer.errors import FulcrumError
 from explorer.spec import parse_spec_text

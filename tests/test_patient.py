@@ -14,8 +14,8 @@ import pytest
 from scipy import stats
 
 from explorer import CAUTIONS
-from explorer.fitting import fit_all
 from explorer.charts import fmt
+from explorer.fitting import fit_all
 from explorer.patient import PatientView, place_patient
 from explorer.patient_summary import summary_content, summary_html
 from explorer.spec import load_spec
@@ -266,7 +266,9 @@ def test_summary_page_is_escaped_and_carries_cautions(view):
 def _pdf_text(data: bytes) -> str:
     import io
 
-    from pypdf import PdfReader  # an outside PDF reader: what a viewer would find in the file
+    from pypdf import (
+        PdfReader,  # an outside PDF reader: what a viewer would find in the file
+    )
 
     return " ".join(" ".join(page.extract_text() for page in PdfReader(io.BytesIO(data)).pages).split())
 

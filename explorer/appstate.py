@@ -18,14 +18,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import FulcrumError
-from .spec import (
-    Spec,
-    canonical_sha256,
-    parse_spec,
-    parse_spec_text,
-    spec_to_dict,
-    to_toml,
-)
+from .spec import Spec, canonical_sha256, parse_spec, parse_spec_text, spec_to_dict, to_toml
 from .spec_sections import carried_rule_sections, reachable_target
 
 APP_SOURCE = "the app's settings"

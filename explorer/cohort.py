@@ -21,14 +21,7 @@ import pyarrow.compute as pc
 from . import database
 from .errors import FulcrumError, nfc, printable
 from .indices.formula import formula_columns
-from .intake import (
-    check_archive,
-    drop_trailing_empty,
-    hidden_rows,
-    nfc_series,
-    number_hint,
-    read_file,
-)
+from .intake import check_archive, drop_trailing_empty, hidden_rows, nfc_series, number_hint, read_file
 from .spec import OutcomeSpec, Spec
 
 FORMATS = (".csv", ".tsv", ".xlsx", ".parquet")

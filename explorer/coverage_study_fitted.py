@@ -30,17 +30,7 @@ from scipy.special import expit
 
 from . import fitting as ft
 from .coverage import fitted_scenario
-from .coverage_study import (
-    ARMS,
-    BOOT,
-    CENSOR,
-    FIT_ERRORS,
-    HORIZON,
-    OUTCOMES,
-    _record,
-    _round,
-    summarise_method,
-)
+from .coverage_study import ARMS, BOOT, CENSOR, FIT_ERRORS, HORIZON, OUTCOMES, _record, _round, summarise_method
 from .indices.prognostic import cross_fitted_index
 from .models import fit_model
 from .models.base import Basis, OutcomeData

@@ -22,14 +22,7 @@ from .intake import read_file
 from .presets import default_weights, preset_weights
 from .settings import check_analysis
 from .spec_readers import Reader, known, range_check
-from .spec_sections import (
-    SECTION_SCHEMA,
-    EvidenceSpec,
-    PolicySpec,
-    TargetSpec,
-    evidence_section,
-    target_and_policy,
-)
+from .spec_sections import SECTION_SCHEMA, EvidenceSpec, PolicySpec, TargetSpec, evidence_section, target_and_policy
 from .tomlwrite import plain
 from .tomlwrite import toml_value as _toml_value
 

@@ -20,14 +20,7 @@ from explorer.cli import summary_table
 from explorer.indices import compute_index
 from explorer.indices.prognostic import _folds, anchor, cross_fitted_index
 from explorer.patient import place_patient
-from explorer.spec import (
-    AnalysisSpec,
-    CohortSpec,
-    IndexSpec,
-    OutcomeSpec,
-    PrognosticSpec,
-    Spec,
-)
+from explorer.spec import AnalysisSpec, CohortSpec, IndexSpec, OutcomeSpec, PrognosticSpec, Spec
 
 COVARIATES = ("karno", "age", "prior")
 

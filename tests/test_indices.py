@@ -18,14 +18,7 @@ from statsmodels.miscmodels.ordinal_model import OrderedModel
 from explorer.errors import FulcrumError
 from explorer.indices import compute_index, needed_columns, percentile_of
 from explorer.indices.concordance import harrell_c
-from explorer.spec import (
-    AnalysisSpec,
-    CohortSpec,
-    IndexSpec,
-    OutcomeSpec,
-    PrognosticSpec,
-    Spec,
-)
+from explorer.spec import AnalysisSpec, CohortSpec, IndexSpec, OutcomeSpec, PrognosticSpec, Spec
 
 ARMS = ("surgery", "conservative")
 COVARIATES = ("age", "cfs", "lactate")

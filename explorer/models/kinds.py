@@ -33,6 +33,11 @@ class OutcomeFacts:
     margin_what: the measure's differences in words, for a margin that cannot be met.
     default_units: the units a margin is read in when the outcome names none.
     model: the per-arm model in words (e.g. "logistic regression").
+    pairwise: how two patients compare on it (pairwise.Rule): "follow_up" (the one seen to die first, within the
+    horizon, while the other is known to live longer, is worse), "rank" (a lower level code, best first, is
+    better) or "value" (the values compare, oriented by higher_is_better).
+    values: what one patient's recorded value is: "time_event" (follow-up time and a 0/1 event), "level" (a level,
+    coded 0..K-1 best first), "zero_one" (0 or 1) or "number".
     """
 
     kind: str
@@ -48,6 +53,8 @@ class OutcomeFacts:
     margin_what: str
     default_units: str
     model: str
+    pairwise: str
+    values: str
 
 
 class OutcomeKind:
@@ -73,7 +80,8 @@ class Continuous(OutcomeKind):
         rng = None if o.bounds is None else (float(o.bounds[0]), float(o.bounds[1]))
         span = None if rng is None else float(o.bounds[1] - o.bounds[0])
         return OutcomeFacts(self.name, False, span, None, False, (), (), (o.column,), "mean", rng,
-                            "means within the outcome's bounds", "the outcome's units", "linear regression")
+                            "means within the outcome's bounds", "the outcome's units", "linear regression",
+                            "value", "number")
 
     def fit(self, o, arm, basis, data, start=None, robust=False, checks=True):
         from .glm import LinearFit
@@ -88,7 +96,8 @@ class Binary(OutcomeKind):
 
     def describe(self, o: Any) -> OutcomeFacts:
         return OutcomeFacts(self.name, True, 1.0, None, False, (), (), (o.column,), "proportion", (0.0, 1.0),
-                            "probabilities", "the outcome's units", "logistic regression")
+                            "probabilities", "the outcome's units", "logistic regression", "value",
+                            "zero_one")
 
     def fit(self, o, arm, basis, data, start=None, robust=False, checks=True):
         from .glm import LogisticFit
@@ -102,7 +111,8 @@ class Ordinal(OutcomeKind):
         levels = tuple(o.levels)
         favourable = tuple(o.favourable) or levels[:-1]
         return OutcomeFacts(self.name, True, 1.0, None, False, levels, favourable, (o.column,), "proportion",
-                            (0.0, 1.0), "probabilities", "the outcome's units", "proportional odds model")
+                            (0.0, 1.0), "probabilities", "the outcome's units", "proportional odds model", "rank",
+                            "level")
 
     def fit(self, o, arm, basis, data, start=None, robust=False, checks=True):
         from .ordinal import OrdinalFit
@@ -122,7 +132,7 @@ class Survival(OutcomeKind):
                  else "Cox proportional hazards model")
         return OutcomeFacts(self.name, probability, span, horizon, True, (), (), (o.time, o.event), "kaplan_meier",
                             rng, "probabilities" if probability else "restricted mean survival times",
-                            "time units", model)
+                            "time units", model, "follow_up", "time_event")
 
     def fit(self, o, arm, basis, data, start=None, robust=False, checks=True):
         from .cox import CoxFit

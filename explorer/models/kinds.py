@@ -38,6 +38,8 @@ class OutcomeFacts:
     better) or "value" (the values compare, oriented by higher_is_better).
     values: what one patient's recorded value is: "time_event" (follow-up time and a 0/1 event), "level" (a level,
     coded 0..K-1 best first), "zero_one" (0 or 1) or "number".
+    prognostic: the multi-covariate model a prognostic index of this outcome is fitted with (indices.lp_models
+    FAMILIES: "cox", "logistic", "proportional_odds", "linear"), None when the kind offers none.
     """
 
     kind: str
@@ -55,6 +57,7 @@ class OutcomeFacts:
     model: str
     pairwise: str
     values: str
+    prognostic: str | None
 
 
 class OutcomeKind:
@@ -81,7 +84,7 @@ class Continuous(OutcomeKind):
         span = None if rng is None else float(o.bounds[1] - o.bounds[0])
         return OutcomeFacts(self.name, False, span, None, False, (), (), (o.column,), "mean", rng,
                             "means within the outcome's bounds", "the outcome's units", "linear regression",
-                            "value", "number")
+                            "value", "number", "linear")
 
     def fit(self, o, arm, basis, data, start=None, robust=False, checks=True):
         from .glm import LinearFit
@@ -97,7 +100,7 @@ class Binary(OutcomeKind):
     def describe(self, o: Any) -> OutcomeFacts:
         return OutcomeFacts(self.name, True, 1.0, None, False, (), (), (o.column,), "proportion", (0.0, 1.0),
                             "probabilities", "the outcome's units", "logistic regression", "value",
-                            "zero_one")
+                            "zero_one", "logistic")
 
     def fit(self, o, arm, basis, data, start=None, robust=False, checks=True):
         from .glm import LogisticFit
@@ -112,7 +115,7 @@ class Ordinal(OutcomeKind):
         favourable = tuple(o.favourable) or levels[:-1]
         return OutcomeFacts(self.name, True, 1.0, None, False, levels, favourable, (o.column,), "proportion",
                             (0.0, 1.0), "probabilities", "the outcome's units", "proportional odds model", "rank",
-                            "level")
+                            "level", "proportional_odds")
 
     def fit(self, o, arm, basis, data, start=None, robust=False, checks=True):
         from .ordinal import OrdinalFit
@@ -132,7 +135,8 @@ class Survival(OutcomeKind):
                  else "Cox proportional hazards model")
         return OutcomeFacts(self.name, probability, span, horizon, True, (), (), (o.time, o.event), "kaplan_meier",
                             rng, "probabilities" if probability else "restricted mean survival times",
-                            "time units", model, "follow_up", "time_event")
+                            "time units", model, "follow_up", "time_event",
+                            "cox")
 
     def fit(self, o, arm, basis, data, start=None, robust=False, checks=True):
         from .cox import CoxFit

@@ -111,3 +111,28 @@ def test_the_waiting_list_only_shrinks():
     stale = {f: (len(found.get(f, [])), n) for f, n in WAITING.items() if len(found.get(f, [])) < n}
     assert not stale, f"these files have fewer branches than WAITING allows (found, allowed); lower it: {stale}"
     assert len(WAITING) <= 12 and sum(WAITING.values()) <= 34
+
+
+def test_each_kind_gives_the_arrays_the_analysis_reads(demo_spec):
+    # The kinds' own arrays (for analysis.outcome_data once it asks them) equal what the analysis reads today,
+    # for every outcome of the demo (survival, ordinal, continuous; binary reads its column as continuous does).
+    import numpy as np
+
+    from explorer import analysis as an
+    from explorer import models
+    from explorer.cohort import load_cohort
+
+    cohort = load_cohort(demo_spec)
+    rows = np.arange(0, len(cohort.frame), 3)
+    x = np.zeros(len(cohort.frame))
+    kinds = set()
+    for o in demo_spec.outcomes:
+        want = an.outcome_data(demo_spec, cohort, o, x, rows, None)
+        got = models.kind_of(o).arrays(o, cohort.frame, rows)
+        kinds.add(models.describe(o).values)
+        for name in ("y", "time", "event"):
+            if getattr(want, name) is None:
+                assert name not in got
+            else:
+                np.testing.assert_array_equal(got[name], getattr(want, name))
+    assert kinds == {"time_event", "level", "number"}

@@ -75,6 +75,11 @@ class OutcomeKind:
         """Whether this outcome's intervals need sandwich variances whatever the clustering (bounded means)."""
         return False
 
+    def arrays(self, o: Any, frame: Any, rows: Any) -> dict:
+        """The OutcomeData fields this kind's model reads, for the given cohort rows (positions) of a checked
+        cohort frame: y from the outcome's column, as numbers."""
+        return {"y": frame[o.column].to_numpy(float)[rows]}
+
 
 class Continuous(OutcomeKind):
     name = "continuous"
@@ -117,6 +122,10 @@ class Ordinal(OutcomeKind):
                             (0.0, 1.0), "probabilities", "the outcome's units", "proportional odds model", "rank",
                             "level", "proportional_odds")
 
+    def arrays(self, o: Any, frame: Any, rows: Any) -> dict:
+        """y: the level codes 0..K-1, best first (the checked cohort holds the column as categories)."""
+        return {"y": frame[o.column].cat.codes.to_numpy()[rows].astype(float)}
+
     def fit(self, o, arm, basis, data, start=None, robust=False, checks=True):
         from .ordinal import OrdinalFit
         f = self.describe(o)
@@ -137,6 +146,9 @@ class Survival(OutcomeKind):
                             rng, "probabilities" if probability else "restricted mean survival times",
                             "time units", model, "follow_up", "time_event",
                             "cox")
+
+    def arrays(self, o: Any, frame: Any, rows: Any) -> dict:
+        return {"time": frame[o.time].to_numpy(float)[rows], "event": frame[o.event].to_numpy(float)[rows]}
 
     def fit(self, o, arm, basis, data, start=None, robust=False, checks=True):
         from .cox import CoxFit

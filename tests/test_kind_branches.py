@@ -22,8 +22,8 @@ ALLOWED = ("explorer/models/", "explorer/spec.py", "explorer/cohort.py")
 # The protocol call that replaces each is listed beside it.
 WAITING = {
     # analysis.py moves into fitting.py (`layers`): outcome_data's survival/ordinal arrays ->
-    # models.kind_of(o).arrays(o, frame, rows) (checked below); _robust -> models.kind_of(o).robust(o); fieller_terms' identity -> the fits'
-    # measure_link()[0] == "identity".
+    # models.kind_of(o).arrays(o, frame, rows) (checked below); _robust -> models.kind_of(o).robust(o);
+    # fieller_terms' identity -> the fits' measure_link()[0] == "identity".
     "explorer/analysis.py": 4,
     # results.measure_words moves into models (`layers`): survival/ordinal/binary words -> describe(o).
     "explorer/results.py": 3,

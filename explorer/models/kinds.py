@@ -179,7 +179,8 @@ def kind_of(outcome: Any) -> OutcomeKind:
     kind = KINDS.get(outcome.kind)
     if kind is None:
         raise FulcrumError(f"outcome '{outcome.name}' has an unknown kind '{outcome.kind}'.",
-                           key=f"outcomes '{outcome.name}'", hint=f"Use {', '.join(list(KINDS)[:-1])} or {list(KINDS)[-1]}.")
+                           key=f"outcomes '{outcome.name}'",
+                           hint=f"Use {', '.join(list(KINDS)[:-1])} or {list(KINDS)[-1]}.")
     return kind
 
 

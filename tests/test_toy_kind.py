@@ -141,7 +141,7 @@ def test_the_toy_kind_fits_per_arm_as_statsmodels_does(folder, count_kind):
     fs = an.fit_all(spec)
     pf = fs.pair("visits", "x")
     for arm, fit in pf.fits.items():
-        assert isinstance(fit, PoissonFit)
+        assert isinstance(fit, PoissonFit) and isinstance(fit, models.Fitted)
         d = pf.data[arm]
         ref = sm.GLM(d.y, sm.add_constant(d.x), family=sm.families.Poisson()).fit()
         np.testing.assert_allclose(fit.params_, ref.params, rtol=1e-7, atol=1e-9)

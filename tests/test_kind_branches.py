@@ -30,8 +30,8 @@ WAITING = {
     # charts (`present`): the KM/axis branches -> describe(o).follow_up / .probability; line 1581 compares a chart
     # record's own "kind" field (step, risk, base, horizon), not an outcome kind: rename it when charts are split.
     "explorer/charts.py": 6,
-    # meeting and patient_summary (`present`): Prediction.kind == "survival"/"ordinal" -> carry describe(o)'s
-    # follow_up and levels on the Prediction.
+    # meeting and patient_summary (`present`): Prediction.kind == "survival" -> p.horizon is not None (patient.py
+    # sets it from describe(o).horizon); == "ordinal" -> any(e.distribution for e in p.arms.values()).
     "explorer/meeting.py": 3,
     "explorer/patient_summary.py": 3,
     # report (`present`): row["kind"] != "survival" -> describe(o).follow_up.

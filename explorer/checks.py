@@ -22,13 +22,9 @@ from .cohort import Cohort
 from .errors import FulcrumError
 from .indices import MAX_DISCRETE_LEVELS, IndexValues
 from .km import kaplan_meier, km_json, nice_ticks, normal_quantile
-from .models.base import OutcomeData
-from .models.common import newton, prepare
-from .models.cox import CoxFit, survival_arrays
-from .models.cox_kernel import CoxKernel
-from .models.glm import logistic_loglik
-from .models.ordinal import ordinal_loglik
-from .models.weibull import weibull_loglik
+from .models import describe
+from .models.base import ArmLikelihood, OutcomeData
+from .models.common import newton
 from .models.words import measure_words
 from .numeric import r6
 from .spec import OutcomeSpec
@@ -94,6 +90,7 @@ class Observed:
     n: int
     levels: list[float] | None = None
     note: str | None = None
+    binomial: bool = False  # a proportion: its band variance comes from the fitted value
 
 
 def wilson(k: float, n: float, level: float) -> tuple[float, float]:
@@ -107,31 +104,42 @@ def wilson(k: float, n: float, level: float) -> tuple[float, float]:
 
 def observed(outcome: OutcomeSpec, d, level: float) -> Observed:
     """The measure among these patients, unweighted: Kaplan-Meier at the horizon (or RMST to it), the
-    proportion (favourable levels for ordinal outcomes, with every level's share) or the mean."""
+    proportion (favourable levels for ordinal outcomes, with every level's share) or the mean, as the outcome's
+    kind says (models.describe(...).observed_by)."""
     n = len(d.x)
     if n == 0:
         return Observed(None, None, (None, None), 0, note="no patients")
-    if outcome.kind == "survival":
-        km = kaplan_meier(d.time, d.event, level=level)
-        h = float(outcome.horizon)
-        if km.last_time() < h and km.survival[-1] > 0:
-            return Observed(None, None, (None, None), n,
-                            note=f"follow-up ends at {km.last_time():g}, before the horizon {h:g}")
-        if (outcome.measure or "survival") == "rmst":
-            est, var = km.rmst(h)
-            z = normal_quantile(level)
-            return Observed(est, var, (est - z * math.sqrt(var), est + z * math.sqrt(var)), n)
-        lo, hi = km.interval_at(h)
-        return Observed(float(km.at(h)[0]), float(km.variance_at(h)[0]), (float(lo[0]), float(hi[0])), n)
+    facts = describe(outcome)
+    return _OBSERVERS[facts.observed_by](facts, d, level, n)
+
+
+def _observed_km(facts, d, level: float, n: int) -> Observed:
+    km = kaplan_meier(d.time, d.event, level=level)
+    h = float(facts.horizon)
+    if km.last_time() < h and km.survival[-1] > 0:
+        return Observed(None, None, (None, None), n,
+                        note=f"follow-up ends at {km.last_time():g}, before the horizon {h:g}")
+    if not facts.probability:
+        est, var = km.rmst(h)
+        z = normal_quantile(level)
+        return Observed(est, var, (est - z * math.sqrt(var), est + z * math.sqrt(var)), n)
+    lo, hi = km.interval_at(h)
+    return Observed(float(km.at(h)[0]), float(km.variance_at(h)[0]), (float(lo[0]), float(hi[0])), n)
+
+
+def _observed_proportion(facts, d, level: float, n: int) -> Observed:
     y = np.asarray(d.y, float)
-    if outcome.kind in ("binary", "ordinal"):
-        levels = None
-        if outcome.kind == "ordinal":
-            fav = np.isin(np.arange(len(outcome.levels)), [outcome.levels.index(f) for f in favourable(outcome)])
-            levels = (np.bincount(y.astype(int), minlength=len(outcome.levels)) / n).tolist()
-            y = fav[y.astype(int)].astype(float)
-        p = float(y.mean())
-        return Observed(p, p * (1 - p) / n, wilson(y.sum(), n, level), n, levels)
+    levels = None
+    if facts.levels:
+        fav = np.isin(np.arange(len(facts.levels)), [facts.levels.index(f) for f in facts.favourable])
+        levels = (np.bincount(y.astype(int), minlength=len(facts.levels)) / n).tolist()
+        y = fav[y.astype(int)].astype(float)
+    p = float(y.mean())
+    return Observed(p, p * (1 - p) / n, wilson(y.sum(), n, level), n, levels, binomial=True)
+
+
+def _observed_mean(facts, d, level: float, n: int) -> Observed:
+    y = np.asarray(d.y, float)
     m = float(y.mean())
     if n < 2:
         return Observed(m, None, (None, None), n, note="one patient")
@@ -140,13 +148,17 @@ def observed(outcome: OutcomeSpec, d, level: float) -> Observed:
     return Observed(m, var, (m - t * math.sqrt(var), m + t * math.sqrt(var)), n)
 
 
+_OBSERVERS: dict[str, Callable] = {"kaplan_meier": _observed_km, "proportion": _observed_proportion,
+                                   "mean": _observed_mean}
+
+
 @lru_cache(maxsize=4096)
 def _t_quantile(level: float, df: int) -> float:
     return float(stats.t.ppf(0.5 + level / 2, df))
 
 
 def favourable(outcome: OutcomeSpec) -> tuple[str, ...]:
-    return tuple(outcome.favourable) or tuple(outcome.levels[:-1])
+    return describe(outcome).favourable
 
 
 def _subset(d, keep: np.ndarray):
@@ -187,7 +199,7 @@ def observed_vs_fitted(pf: ft.PairFit, bands: int = BANDS, level: float = 0.95, 
     for arm, fit in pf.fits.items():
         d = pf.data[arm]
         fitted_all = patient_fit(fit, d).measure(d.x)
-        dist_all = patient_fit(fit, d).distribution(d.x) if o.kind == "ordinal" else None
+        dist_all = patient_fit(fit, d).distribution(d.x) if describe(o).levels else None
         obs, fits = [], []
         for b, (lo, hi) in enumerate(spans):
             keep = codes[arm] == b
@@ -227,13 +239,12 @@ def calibration(outcome: OutcomeSpec, obs: list[Observed], fitted: list[float | 
     Kaplan-Meier, the band's sample variance for means) on bands - parameters degrees of freedom (approximate).
     """
     o, f, v = [], [], []
+    probability = describe(outcome).probability
     for ob, fv in zip(obs, fitted):
         if ob.value is None or fv is None:
             continue
         var = ob.var
-        if outcome.kind in ("binary", "ordinal"):
-            var = fv * (1 - fv) / ob.n
-        elif outcome.kind == "survival" and (outcome.measure or "survival") == "survival" and not var:
+        if ob.binomial or (probability and not var):
             var = fv * (1 - fv) / ob.n
         if var is None or not var > 0:
             continue
@@ -330,56 +341,10 @@ def _at_each(fn: Callable[[np.ndarray], np.ndarray], x_sorted: np.ndarray) -> np
 # ------------------------------------------------------------------------------------------
 # Effect modification: likelihood-ratio test of the arm-by-index terms
 # ------------------------------------------------------------------------------------------
-@dataclass
-class ArmLikelihood:
-    """One arm's log-likelihood as a function of its parameters; `shared` are the index-term positions."""
-
-    fun: Callable
-    params: np.ndarray
-    shared: np.ndarray
-
-
-def _gaussian_loglik(D: np.ndarray, y: np.ndarray, w: np.ndarray):
-    """Normal linear model with parameters (beta, log sigma), the likelihood LinearFit maximises."""
-    def fun(theta: np.ndarray):
-        beta, s = theta[:-1], theta[-1]
-        e = y - D @ beta
-        inv = math.exp(-2 * s)
-        ll = float(w @ (-0.5 * math.log(2 * math.pi) - s - 0.5 * e * e * inv))
-        we = w * e
-        g = np.r_[D.T @ we * inv, float(w @ (e * e)) * inv - w.sum()]
-        H = np.empty((len(theta), len(theta)))
-        H[:-1, :-1] = -(D.T * w) @ D * inv
-        H[:-1, -1] = H[-1, :-1] = -2 * (D.T @ we) * inv
-        H[-1, -1] = -2 * float(w @ (e * e)) * inv
-        return ll, g, H
-    return fun
-
-
-def arm_likelihood(outcome: OutcomeSpec, fit, d, kernel: CoxKernel | None = None) -> ArmLikelihood:
+def arm_likelihood(outcome: OutcomeSpec, fit, d, kernel=None) -> ArmLikelihood:
     """The log-likelihood each per-arm model maximised, rebuilt from its data (a Cox model's from `kernel`
-    when given), at its fitted parameters."""
-    q = fit.basis.n_columns
-    if kernel is not None:
-        return ArmLikelihood(kernel.evaluate, fit.params_, np.arange(q))
-    prep = prepare(fit.basis, d, fit.arm, outcome.name)
-    X, w = prep.X, prep.w
-    if outcome.kind == "survival" and (outcome.model or "cox") == "cox":
-        return ArmLikelihood(cox_kernel(fit, d).evaluate, fit.params_, np.arange(q))
-    D = np.column_stack([np.ones(len(w)), X])
-    if outcome.kind == "survival":
-        t, e = survival_arrays(d, fit.arm, outcome.name)
-        return ArmLikelihood(weibull_loglik(D, np.log(t), e, w), fit.params_, np.arange(1, q + 1))
-    if outcome.kind == "ordinal":
-        yk = np.searchsorted(fit.observed_, np.asarray(d.y, float).astype(int))
-        m = len(fit.observed_) - 1
-        return ArmLikelihood(ordinal_loglik(X, yk, w, m + 1), fit.params_, np.arange(m, m + q))
-    y = np.asarray(d.y, float)
-    if outcome.kind == "binary":
-        return ArmLikelihood(logistic_loglik(D, y, w), fit.params_, np.arange(1, q + 1))
-    rss = float(w @ (y - D @ fit.params_) ** 2)
-    return ArmLikelihood(_gaussian_loglik(D, y, w), np.r_[fit.params_, 0.5 * math.log(rss / w.sum())],
-                         np.arange(1, q + 1))
+    when given), at its fitted parameters: the model's own (base.Fitted.likelihood)."""
+    return fit.likelihood(d, kernel)
 
 
 def common_slope_fit(parts: list[ArmLikelihood], at_params: list[tuple] | None = None
@@ -428,11 +393,10 @@ def common_slope_fit(parts: list[ArmLikelihood], at_params: list[tuple] | None =
 
 
 def _at_own_params(fit, part: ArmLikelihood, same_kernel: bool) -> tuple:
-    """(loglik, gradient, Hessian) of an arm at its own fit: a Cox fit kept them from the last Newton step
-    on the same kernel, so they need no new pass over the rows; any other model is evaluated."""
-    if same_kernel and isinstance(fit, CoxFit) and getattr(fit, "hessian_", None) is not None:
-        return fit.loglik_, fit.score_, fit.hessian_
-    return part.fun(part.params)
+    """(loglik, gradient, Hessian) of an arm at its own fit: a model that kept them from its last Newton step
+    on the same kernel (a Cox fit) needs no new pass over the rows; any other is evaluated."""
+    own = fit.own_likelihood() if same_kernel else None
+    return own if own is not None else part.fun(part.params)
 
 
 def _quadratic_start(maps: list[np.ndarray], params: list[np.ndarray], at_params: list[tuple]
@@ -448,7 +412,7 @@ def _quadratic_start(maps: list[np.ndarray], params: list[np.ndarray], at_params
 
 
 def effect_modification(pf: ft.PairFit, clustered: bool = False, index_label: str | None = None,
-                        kernels: dict[str, CoxKernel] | None = None) -> dict:
+                        kernels: dict | None = None) -> dict:
     """Likelihood-ratio test that the index terms differ between the arms (df = index basis columns).
 
     Unrestricted: the two per-arm fits (their log-likelihoods add). Restricted: shared index terms with
@@ -465,11 +429,7 @@ def effect_modification(pf: ft.PairFit, clustered: bool = False, index_label: st
     df = pf.basis.n_columns
     stat = max(2.0 * (ll_u - ll_r), 0.0)
     p = float(stats.chi2.sf(stat, df))
-    restricted = {"survival": "a Cox model stratified by arm (arm-specific baseline hazards)"
-                  if (o.model or "cox") == "cox" else "a Weibull model with arm-specific intercept and shape",
-                  "ordinal": "a proportional odds model with arm-specific cut-points",
-                  "binary": "a logistic model with arm-specific intercepts",
-                  "continuous": "a linear model with arm-specific intercepts and residual variances"}[o.kind]
+    restricted = pf.fits[arms[0]].restricted_words
     weak = not p < ALPHA
     index = index_label or pf.index
     head = (f"{o.title}: the test of whether the difference between {arms[0]} and {arms[1]} changes along "
@@ -500,29 +460,19 @@ def horizon_grid(pf: ft.PairFit, horizons: int = HORIZONS) -> np.ndarray:
     return np.unique(np.r_[grid, float(pf.outcome.horizon)])
 
 
-def at_horizon(fit, d, horizon: float, kernel: CoxKernel | None = None, baseline: tuple | None = None):
-    """The same fitted model read at another horizon, without refitting: the coefficients do not depend
-    on the horizon; a Cox model takes its Breslow baseline up to the new horizon from `baseline` (the
-    whole of CoxKernel.baseline at its coefficients, which serves every horizon) or from `kernel`."""
-    view = copy.copy(fit)
-    view.horizon = float(horizon)
-    if isinstance(fit, CoxFit):
-        if baseline is None:
-            baseline = (kernel or cox_kernel(fit, d)).baseline(fit.params_)
-        view._set_baseline(*baseline)
-    return view
+def at_horizon(fit, d, horizon: float, kernel=None, baseline: tuple | None = None):
+    """The same fitted model read at another horizon, without refitting (base.Fitted.at_horizon): the
+    coefficients do not depend on the horizon; a Cox model takes its Breslow baseline up to the new horizon
+    from `baseline` (the whole of CoxKernel.baseline at its coefficients, which serves every horizon) or from
+    `kernel`."""
+    return fit.at_horizon(horizon, d, kernel, baseline)
 
 
-def cox_kernel(fit, d) -> CoxKernel:
-    """The risk-set bookkeeping of one arm's Cox fit, rebuilt from its data."""
-    prep = prepare(fit.basis, d, fit.arm, fit.outcome)
-    t, e = survival_arrays(d, fit.arm, fit.outcome)
-    return CoxKernel(t, e, prep.X, prep.w)
-
-
-def pair_kernels(pf: ft.PairFit) -> dict[str, CoxKernel]:
-    """Each Cox arm's kernel, built once and shared by the effect-modification test and the horizon curve."""
-    return {a: cox_kernel(f, pf.data[a]) for a, f in pf.fits.items() if isinstance(f, CoxFit)}
+def pair_kernels(pf: ft.PairFit) -> dict:
+    """Each arm's reusable likelihood kernel (a Cox arm's risk sets), built once and shared by the
+    effect-modification test and the horizon curve; arms whose model has none are left out."""
+    kernels = {a: f.likelihood_kernel(pf.data[a]) for a, f in pf.fits.items()}
+    return {a: k for a, k in kernels.items() if k is not None}
 
 
 def at_pair_horizon(pf: ft.PairFit, horizon: float, kernels: dict | None = None,
@@ -535,7 +485,7 @@ def at_pair_horizon(pf: ft.PairFit, horizon: float, kernels: dict | None = None,
 
 
 def horizon_curve(fs: ft.FitSet, pf: ft.PairFit, horizons: int = HORIZONS,
-                  kernels: dict[str, CoxKernel] | None = None) -> tuple[list[dict], list[str]]:
+                  kernels: dict | None = None) -> tuple[list[dict], list[str]]:
     """Break-even point (with its interval) at a grid of horizons, and numbers at risk there; horizons
     where fewer than 10% of an arm (or fewer than 20 patients) remain at risk are flagged.
 
@@ -591,7 +541,7 @@ def pair_checks(fs: ft.FitSet, pf: ft.PairFit, *, bands: int = BANDS, window: in
            "window": {"patients": window, "step": step},
            "effect_modification": {k: v for k, v in em.items() if k != "warnings"}}
     warnings = w1 + w2 + em["warnings"]
-    if o.kind == "survival":
+    if describe(o).follow_up:
         row["horizon_curve"], w3 = horizon_curve(fs, pf, kernels=kernels)
         warnings += w3
     row["warnings"] = list(dict.fromkeys(warnings))
@@ -639,7 +589,7 @@ def km_curves(cohort: Cohort, outcome: OutcomeSpec | str, index: IndexValues | n
     numbers at risk at ticks shared by every curve. Complete cases of the outcome (and index)."""
     spec = cohort.spec
     o = spec.outcome(outcome) if isinstance(outcome, str) else outcome
-    if o.kind != "survival":
+    if not describe(o).follow_up:
         raise FulcrumError(f"Kaplan-Meier curves need a survival outcome; '{o.name}' is {o.kind}.",
                            key=f"outcomes '{o.name}'", hint="Choose a survival outcome.")
     f = cohort.frame

@@ -13,6 +13,7 @@ import math
 from importlib import resources
 
 from .indices.prognostic import about_index, predicted
+from .models import describe, kind_of
 from .spec import AnalysisSpec, OutcomeSpec, Spec
 
 TARGET = (0.935, 0.965)
@@ -28,39 +29,42 @@ def _rows() -> tuple[dict, ...]:
     return tuple(r for r in json.loads(text) if r.get("coverage") is not None)
 
 
-def measured(kind: str, method: str, n: int) -> dict | None:
-    """The simulation row for this scenario kind and interval method at the simulated size nearest n (on the
-    log scale), or None when that pair was never simulated. kind: continuous, binary, ordinal, survival,
+def measured(scenario: str, method: str, n: int) -> dict | None:
+    """The simulation row for this scenario scenario and interval method at the simulated size nearest n (on the
+    log scale), or None when that pair was never simulated. scenario: continuous, binary, ordinal, survival,
     composite or one of CURVED; method: fieller, delta, test-inversion or bootstrap-percentile (where several
     resample counts were run, the largest, closest to the tool's own default)."""
-    rows = [r for r in _rows() if r["scenario"] == kind and r["method"] == method]
+    rows = [r for r in _rows() if r["scenario"] == scenario and r["method"] == method]
     if not rows or not n or n <= 0:
         return None
     return dict(min(rows, key=lambda r: (abs(math.log(r["n"] / n)), -r["n"], -(r.get("bootstrap_resamples") or 0),
                                          -r["replicates"])))
 
 
-def default_method(kind: str) -> str:
-    """The method the tool should use by default for this kind: the one marked default in the simulations
+def default_method(scenario: str) -> str:
+    """The method the tool should use by default for this scenario: the one marked default in the simulations
     (the analytic method unless it misses 93.5-96.5% at n >= 1,000); 'analytic' for kinds never simulated."""
     for r in _rows():
-        if r["scenario"] == kind and r.get("default"):
+        if r["scenario"] == scenario and r.get("default"):
             return r["method"]
     return "analytic"
 
 
-def default_interval(kind: str) -> str:
-    """The spec's `interval` setting ("analytic" | "bootstrap") that gives default_method(kind)."""
-    return "bootstrap" if default_method(kind) == "bootstrap-percentile" else "analytic"
+def default_interval(scenario: str) -> str:
+    """The spec's `interval` setting ("analytic" | "bootstrap") that gives default_method(scenario)."""
+    return "bootstrap" if default_method(scenario) == "bootstrap-percentile" else "analytic"
 
 
 FITTED_KINDS = ("survival", "binary")
+# The outcome kinds the coverage study simulated along a straight line with no margin, and their scenario names
+# (explorer/coverage_study.py); an outcome kind added later has no scenario until the study simulates it.
+SIMULATED = {"continuous": "continuous", "binary": "binary", "ordinal": "ordinal", "survival": "survival"}
 
 
-def fitted_scenario(kind: str, refitted: bool = False) -> str:
-    """The name of the simulated scenario of an outcome kind along a fitted (cross-fitted prognostic) index,
+def fitted_scenario(scenario: str, refitted: bool = False) -> str:
+    """The name of the simulated scenario of an outcome scenario along a fitted (cross-fitted prognostic) index,
     holding the index fixed or (refitted) refitting it in every bootstrap replicate (explorer.coverage_study_fitted)."""
-    return f"{kind}, fitted index" + (", refitted" if refitted else "")
+    return f"{scenario}, fitted index" + (", refitted" if refitted else "")
 
 
 def scenario_for(outcome: OutcomeSpec, analysis: AnalysisSpec, composite_kind: str | None = None,
@@ -73,34 +77,32 @@ def scenario_for(outcome: OutcomeSpec, analysis: AnalysisSpec, composite_kind: s
     other than the ordinal one, or two departures together. For a composite row pass the [values] outcome and
     the row's kind. fitted_index: the row's index is a cross-fitted prognostic index (simulated for straight-line,
     zero-margin survival and binary outcomes only)."""
-    kind = _scenario_for(outcome, analysis, composite_kind, clustered, margin)
-    if not fitted_index or kind is None:
-        return kind
-    if kind not in FITTED_KINDS:
+    scenario = _scenario_for(outcome, analysis, composite_kind, clustered, margin)
+    if not fitted_index or scenario is None:
+        return scenario
+    if scenario not in FITTED_KINDS:
         return None
-    return fitted_scenario(kind, analysis.interval == "bootstrap" and analysis.refit_index)
+    return fitted_scenario(scenario, analysis.interval == "bootstrap" and analysis.refit_index)
 
 
 def _scenario_for(outcome: OutcomeSpec, analysis: AnalysisSpec, composite_kind: str | None, clustered: bool,
                   margin: float | None) -> str | None:
     margin = analysis.margin if margin is None else margin
-    if abs(analysis.level - 0.95) > 1e-12 or clustered or (outcome.kind == "continuous" and outcome.bounds):
+    if abs(analysis.level - 0.95) > 1e-12 or clustered or kind_of(outcome).robust(outcome):
         return None
+    facts = describe(outcome)
     departures = [d for d, on in (("spline", analysis.shape != "linear"), ("margin", margin != 0.0),
                                   ("adjusted", bool(outcome.adjust))) if on]
     if composite_kind is not None:
-        return "composite" if composite_kind == "ordinal" and outcome.kind == "ordinal" and not departures else None
-    if outcome.kind == "survival":
-        if (outcome.model or "cox") != "cox" or (outcome.measure or "survival") != "survival":
-            return None
-        kind = "survival"
-    else:
-        kind = outcome.kind if outcome.kind in ("continuous", "binary", "ordinal") else None
-    if kind is None or len(departures) > 1:
+        return "composite" if composite_kind == "ordinal" and facts.levels and not departures else None
+    if facts.follow_up and ((outcome.model or "cox") != "cox" or not facts.probability):
+        return None  # simulated: Cox survival probabilities only
+    scenario = SIMULATED.get(outcome.kind)
+    if scenario is None or len(departures) > 1:
         return None
     if not departures:
-        return kind
-    name = f"{kind} {departures[0]}"
+        return scenario
+    name = f"{scenario} {departures[0]}"
     return name if name in CURVED else None
 
 

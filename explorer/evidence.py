@@ -26,7 +26,8 @@ import numpy as np
 from scipy import special
 
 from . import fitting as ft
-from .margins import margin_for, measure_span, on_probability_scale
+from .margins import margin_for, measure_span
+from .models import describe
 from .numeric import quad, r6, r6_list
 from .policy import policy_indices
 from .target import Target, cohort_target, load_target
@@ -198,7 +199,7 @@ def evidence_rows(fs: ft.FitSet, composite: dict | None = None, replicates: list
         if o.among_survivors:
             continue  # its difference compares different groups of survivors: not a choice between arms
         u = pair_uncertainty(pf, margin_for(spec, o), ft.grid_for(pf, spec.analysis.grid), replicates)
-        rows.append(evidence_row(u, outcome=oname, index=iname, measure=o.title, probability=on_probability_scale(o),
+        rows.append(evidence_row(u, outcome=oname, index=iname, measure=o.title, probability=describe(o).probability,
                                  units=o.units or "", index_label=_index_label(fs, iname),
                                  threshold=outcome_threshold(o, ev), population=_for_index(pops, iname),
                                  x_range=pf.x_range))

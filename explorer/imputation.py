@@ -23,6 +23,7 @@ from .cohort import Cohort
 from .errors import FulcrumError
 from .indices import IndexValues
 from .km import nelson_aalen_at
+from .models import describe
 from .numeric import r6
 from .spec import OutcomeSpec, Spec
 
@@ -98,7 +99,7 @@ def _structural(cohort: Cohort, outcome: OutcomeSpec) -> np.ndarray:
     if not outcome.among_survivors or not outcome.column:
         return none
     for o in cohort.spec.outcomes:
-        if o.kind == "survival":
+        if describe(o).follow_up:
             return f[outcome.column].isna().to_numpy() & (f[o.event] == 1).to_numpy()
     return none
 
@@ -110,7 +111,8 @@ def _columns(spec: Spec, cohort: Cohort, indices: dict[str, IndexValues]) -> pd.
     arm = f[spec.cohort.arm].to_numpy()
     cols: dict[str, np.ndarray] = {}
     for o in spec.outcomes:
-        if o.kind == "survival":
+        facts = describe(o)
+        if facts.follow_up:
             t, e = f[o.time].to_numpy(float), f[o.event].to_numpy(float)
             h = np.full(len(f), np.nan)
             for a in spec.cohort.arms:
@@ -119,7 +121,7 @@ def _columns(spec: Spec, cohort: Cohort, indices: dict[str, IndexValues]) -> pd.
                     h[ok] = nelson_aalen_at(t[ok], e[ok])
             cols.setdefault(f"event:{o.event}", e)
             cols.setdefault(f"hazard:{o.time}:{o.event}", h)
-        elif o.kind == "ordinal":
+        elif facts.levels:
             codes = f[o.column].cat.codes.to_numpy().astype(float)
             cols.setdefault(o.column, np.where(codes < 0, np.nan, codes))
         else:
@@ -178,15 +180,16 @@ def _completed(fs: ft.FitSet, table: pd.DataFrame, filled: np.ndarray) -> Impute
     frame = cohort.frame.copy()
     values = dict(zip(table.columns, filled.T))
     for o in spec.outcomes:
-        if o.kind == "survival":
+        facts = describe(o)
+        if facts.follow_up:
             continue
         v = values[o.column]
-        if o.kind == "ordinal":
+        if facts.levels:
             codes = np.clip(np.round(v), 0, len(o.levels) - 1).astype(int)
             keep = ~_structural(cohort, o)
             frame[o.column] = pd.Categorical.from_codes(np.where(keep, codes, -1), categories=list(o.levels))
             continue
-        if o.kind == "binary":
+        if facts.values == "zero_one":
             v = np.clip(np.round(v), 0, 1)
         elif o.bounds is not None:
             v = np.clip(v, *o.bounds)
@@ -214,7 +217,7 @@ def _imputed_counts(fs: ft.FitSet, pf: ft.PairFit) -> dict[str, int]:
     """Values this pair's analysis would gain from imputation, per column (survival times never)."""
     f, o = fs.cohort.frame, pf.outcome
     out = {}
-    if o.kind != "survival":
+    if not describe(o).follow_up:
         out[o.column] = int((f[o.column].isna().to_numpy() & ~_structural(fs.cohort, o)).sum())
     for c in o.adjust:
         out[c] = int(f[c].isna().sum())
@@ -330,7 +333,7 @@ def imputed_break_evens(fs: ft.FitSet, m: int = M) -> list[dict]:
             row["imputed"] = None
             row["warnings"].append(f"{pf.outcome.title} along {pf.index}: no values are missing, so the "
                                    "complete-case analysis stands.")
-        if pf.outcome.kind == "survival":
+        if describe(pf.outcome).follow_up:
             t, e = (fs.cohort.frame[c] for c in (pf.outcome.time, pf.outcome.event))
             lost = int((t.isna() | e.isna()).sum())
             if lost:

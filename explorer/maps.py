@@ -22,7 +22,7 @@ from . import breakeven as be
 from . import fitting as ft
 from . import values as vl
 from .errors import FulcrumError
-from .models import fit_model
+from .models import describe, fit_model
 from .models.base import Basis
 from .models.words import measure_words
 from .numeric import r6
@@ -33,10 +33,6 @@ GRID = 60
 NEAR = 0.1  # blank where an arm has nobody within a tenth of the ranges (distance in range-scaled units)
 SLACK = 0.02  # the hull widened by 2% of the ranges, so grid edges at the extreme patients stay mapped
 COMPOSITE = "composite"
-MODEL_WORDS = {"survival": "Cox proportional hazards model", "ordinal": "proportional odds model",
-               "binary": "logistic regression", "continuous": "linear regression"}
-
-
 # ------------------------------------------------------------------------------------------
 # Fitting in the plane
 # ------------------------------------------------------------------------------------------
@@ -238,9 +234,7 @@ class PlaneModel:
 
 
 def _model_words(outcome: OutcomeSpec) -> str:
-    if outcome.kind == "survival" and outcome.model == "weibull":
-        return "Weibull accelerated failure time model"
-    return MODEL_WORDS[outcome.kind]
+    return describe(outcome).model
 
 
 def _indices_checked(fs: ft.FitSet, map_spec: MapSpec) -> tuple[str, str]:
@@ -311,8 +305,8 @@ def contour_lines(x: np.ndarray, y: np.ndarray, Z: np.ndarray) -> list[list[tupl
     links: dict[tuple, list[tuple]] = {}
 
     def point(e: tuple) -> tuple[float, float]:
-        kind, r, c = e
-        if kind == "h":
+        side, r, c = e
+        if side == "h":
             z0, z1 = Z[r, c], Z[r, c + 1]
             return float(x[c] + (x[c + 1] - x[c]) * z0 / (z0 - z1)), float(y[r])
         z0, z1 = Z[r, c], Z[r + 1, c]
@@ -463,8 +457,8 @@ def default_map(spec: Spec) -> MapSpec | None:
         return spec.maps[0]
     if len(spec.indices) < 2:
         return None
-    columns = [i.name for i in spec.indices if i.kind == "column"]
-    formulas = [i.name for i in spec.indices if i.kind == "formula"]
+    columns = [i.name for i in spec.indices if i.column]
+    formulas = [i.name for i in spec.indices if i.formula and not i.column]
     pair = (columns[0], formulas[0]) if columns and formulas else (spec.indices[0].name, spec.indices[1].name)
     return MapSpec(indices=pair, target=COMPOSITE if spec.values else spec.outcomes[0].name)
 

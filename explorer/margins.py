@@ -3,28 +3,21 @@
 An outcome's own `margin` wins; the analysis-level `margin` is a default only for measures on a probability
 scale (survival at a horizon, binary, ordinal) and for composites; means and restricted mean survival take 0
 unless they set their own. A margin whose size reaches the measure's whole range is refused.
-Works on the spec's dataclasses by their fields only, so spec.py can call it while parsing.
+Works on the spec's dataclasses by their fields and the kinds' facts (models.kinds, which imports nothing above
+errors), so spec.py can call it while parsing.
 """
 from __future__ import annotations
 
 from typing import Any
 
 from .errors import FulcrumError
-
-
-def on_probability_scale(outcome: Any) -> bool:
-    """Whether the outcome's measure is a probability (survival at a horizon, binary, ordinal favourable)."""
-    return outcome.kind in ("binary", "ordinal") or (outcome.kind == "survival" and outcome.measure != "rmst")
+from .models.kinds import describe
 
 
 def measure_span(outcome: Any) -> float | None:
     """The width of the range the measure can take (1 for a probability, the horizon for RMST, high - low for a
-    bounded mean), or None when it is unbounded."""
-    if on_probability_scale(outcome):
-        return 1.0
-    if outcome.kind == "survival":
-        return float(outcome.horizon) if outcome.horizon else None
-    return None if outcome.bounds is None else float(outcome.bounds[1] - outcome.bounds[0])
+    bounded mean), or None when it is unbounded: the outcome kind's own fact (models.kinds)."""
+    return describe(outcome).span
 
 
 def margin_for(spec: Any, outcome: Any) -> float:
@@ -32,7 +25,7 @@ def margin_for(spec: Any, outcome: Any) -> float:
     scale, else 0."""
     if outcome.margin is not None:
         return float(outcome.margin)
-    return float(spec.analysis.margin) if on_probability_scale(outcome) else 0.0
+    return float(spec.analysis.margin) if describe(outcome).probability else 0.0
 
 
 def check(margin: float | None, span: float | None, key: str, what: str, source: str | None) -> None:
@@ -48,9 +41,8 @@ def check(margin: float | None, span: float | None, key: str, what: str, source:
 def check_outcome(outcome: Any, source: str | None) -> Any:
     """The outcome, after refusing a margin outside what its measure can take."""
     if outcome.margin is not None:
-        what = ("probabilities" if on_probability_scale(outcome) else "restricted mean survival times"
-                if outcome.kind == "survival" else "means within the outcome's bounds")
-        check(outcome.margin, measure_span(outcome), f"outcomes '{outcome.name}'.margin", what, source)
+        facts = describe(outcome)
+        check(outcome.margin, facts.span, f"outcomes '{outcome.name}'.margin", facts.margin_what, source)
     return outcome
 
 
@@ -79,6 +71,7 @@ def with_margins(spec: Any, margins: dict[str, float | None]) -> Any:
 
 def units_words(outcome: Any) -> str:
     """The units a margin is given in, for labels: 'probability', or the outcome's own units."""
-    if on_probability_scale(outcome):
+    facts = describe(outcome)
+    if facts.probability:
         return "probability, e.g. 0.05"
-    return outcome.units or ("time units" if outcome.kind == "survival" else "the outcome's units")
+    return outcome.units or facts.default_units

@@ -25,12 +25,15 @@ import pandas as pd
 
 from .breakeven import critical_value, percentile_interval
 from .errors import FulcrumError, format_rows
+from .models import describe
 from .models.common import one_blas_thread
 from .numeric import r6
 from .resampling import Progress, run_blocks, run_replicates
 from .spec import OutcomeSpec, Spec
 
-RULE_KINDS = ("survival", "ordinal", "continuous", "binary")
+# How a rule of each built-in outcome kind compares two patients (see models.kinds.OutcomeFacts.pairwise), for rules
+# made by hand; rule_for takes it from the outcome's own facts, so an outcome kind added in models needs no entry.
+RULE_KINDS = {"survival": "follow_up", "ordinal": "rank", "continuous": "value", "binary": "value"}
 BLOCK_ELEMENTS = 1 << 20
 MAX_PAIRS = 50_000_000
 MAX_WINDOWS = 100
@@ -62,9 +65,11 @@ class Rule:
     horizon: float | None = None
     label: str | None = None
     among_survivors: bool = False
+    compare: str | None = None  # "follow_up" | "rank" | "value"; None: from RULE_KINDS
 
     def __post_init__(self) -> None:
-        if self.kind not in RULE_KINDS:
+        object.__setattr__(self, "compare", self.compare or RULE_KINDS.get(self.kind))
+        if self.compare not in ("follow_up", "rank", "value"):
             raise FulcrumError(f"pairwise rule '{self.name}' has kind '{self.kind}'.", key="pairwise.priority",
                                hint=f"Use one of {', '.join(RULE_KINDS)}.")
         if not self.threshold >= 0:
@@ -76,10 +81,10 @@ class Rule:
         return self.label or self.name
 
     def describe(self) -> str:
-        if self.kind == "survival":
+        if self.compare == "follow_up":
             within = f" within {self.horizon:g}" if self.horizon is not None else ""
             return f"observed death{within} while the other patient is known to have lived longer"
-        if self.kind == "ordinal":
+        if self.compare == "rank":
             return f"better {self.title} level"
         side = "higher" if self.higher_is_better else "lower"
         by = f" by more than {self.threshold:g}" if self.threshold > 0 else ""
@@ -146,7 +151,7 @@ def statistics(wins: Any, losses: Any, pairs: Any) -> dict[str, np.ndarray]:
 # ------------------------------------------------------------------------------------------
 def _separate(rule: Rule, a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Boolean (len(a), len(b)) matrices: first patient better, first patient worse, at this level."""
-    if rule.kind == "survival":
+    if rule.compare == "follow_up":
         ti, di = a[:, 0:1], a[:, 1:2]
         tj, dj = b[None, :, 0], b[None, :, 1]
         horizon = math.inf if rule.horizon is None else rule.horizon
@@ -154,7 +159,7 @@ def _separate(rule: Rule, a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.
         loss = (di == 1) & (ti <= horizon) & (tj > ti)
         return win, loss
     diff = a[:, None] - b[None, :]
-    if rule.kind == "ordinal" or not rule.higher_is_better:
+    if rule.compare == "rank" or not rule.higher_is_better:
         diff = -diff
     return diff > rule.threshold, diff < -rule.threshold
 
@@ -376,21 +381,22 @@ def default_priority(spec: Spec) -> tuple[str, ...]:
     The [values] outcomes are preferred where named; with none of these kinds, every outcome in spec order.
     """
     v = spec.values
-    by_kind = {kind: [o for o in spec.outcomes if o.kind == kind] for kind in ("survival", "ordinal")}
-    survival = (v.survival_outcome if v and v.survival_outcome else
-                by_kind["survival"][0].name if by_kind["survival"] else None)
-    ordinal = (v.outcome if v and spec.outcome(v.outcome).kind == "ordinal" else
-               by_kind["ordinal"][0].name if by_kind["ordinal"] else None)
+    facts = {o.name: describe(o) for o in spec.outcomes}
+    timed = [o for o in spec.outcomes if facts[o.name].follow_up]
+    ranked = [o for o in spec.outcomes if facts[o.name].levels]
+    survival = (v.survival_outcome if v and v.survival_outcome else timed[0].name if timed else None)
+    ordinal = (v.outcome if v and facts[v.outcome].levels else ranked[0].name if ranked else None)
     qol = v.utility_outcome if v and v.utility_outcome else next(
-        (o.name for o in spec.outcomes if o.kind == "continuous" and o.among_survivors), None)
+        (o.name for o in spec.outcomes if facts[o.name].observed_by == "mean" and o.among_survivors), None)
     names = tuple(n for n in (survival, ordinal, qol) if n)
     return names or tuple(o.name for o in spec.outcomes)
 
 
 def rule_for(outcome: OutcomeSpec, threshold: float = 0.0) -> Rule:
+    facts = describe(outcome)
     return Rule(outcome.name, outcome.kind, higher_is_better=outcome.higher_is_better, threshold=threshold,
-                horizon=outcome.horizon if outcome.kind == "survival" else None, label=outcome.label,
-                among_survivors=outcome.among_survivors)
+                horizon=facts.horizon, label=outcome.label, among_survivors=outcome.among_survivors,
+                compare=facts.pairwise)
 
 
 def rules_for(spec: Spec, priority: Sequence[str] | None = None) -> list[Rule]:
@@ -436,11 +442,12 @@ def patient_table(spec: Spec, frame: pd.DataFrame, rules: Sequence[Rule], rows: 
     cols = {}
     for rule in rules:
         o = spec.outcome(rule.name)
-        if o.kind == "survival":
+        facts = describe(o)
+        if facts.follow_up:
             t = pd.to_numeric(_column(frame, o.time, o), errors="coerce").to_numpy(float)
             e = pd.to_numeric(_column(frame, o.event, o), errors="coerce").to_numpy(float)
             cols[rule.name] = np.column_stack([t, e])[rows]
-        elif o.kind == "ordinal":
+        elif facts.levels:
             cols[rule.name] = _ordinal_codes(_column(frame, o.column, o), o)[rows]
         else:
             cols[rule.name] = pd.to_numeric(_column(frame, o.column, o), errors="coerce").to_numpy(float)[rows]

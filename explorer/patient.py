@@ -22,8 +22,8 @@ from .conversation import WHO_SHORT, ValuesRecord
 from .errors import FulcrumError
 from .fitting import SPARSE_SHARE, STRETCHES, FitSet, PairFit
 from .indices import percentile_of
+from .models import describe
 from .indices.prognostic import about_index_plain
-from .margins import on_probability_scale
 from .models.words import measure_words
 from .numeric import jsonable
 from .spec import OutcomeSpec, SelectionSpec
@@ -250,17 +250,7 @@ def _check_row(fs: FitSet, row: int | None) -> None:
 # ------------------------------------------------------------------------------------------
 def measure_bounds(outcome: OutcomeSpec) -> tuple[float, float]:
     """The range a measure can take: probabilities [0, 1], RMST [0, horizon], bounded outcomes their bounds."""
-    if is_probability(outcome):
-        return 0.0, 1.0
-    if outcome.kind == "survival":
-        return 0.0, float(outcome.horizon)
-    if outcome.bounds is not None:
-        return float(outcome.bounds[0]), float(outcome.bounds[1])
-    return -math.inf, math.inf
-
-
-def is_probability(outcome: OutcomeSpec) -> bool:
-    return on_probability_scale(outcome)
+    return describe(outcome).range or (-math.inf, math.inf)
 
 
 def count_of_100(p: float) -> int:
@@ -276,10 +266,10 @@ def _arm_estimate(pf: PairFit, arm: str, x: float, z: float) -> ArmEstimate:
     lo_b, hi_b = measure_bounds(pf.outcome)
     m = min(max(m, lo_b), hi_b)
     est = ArmEstimate(arm, m, max(m - z * se, lo_b), min(m + z * se, hi_b))
-    if is_probability(pf.outcome):
+    if describe(pf.outcome).probability:
         est.per_100, est.per_100_lower, est.per_100_upper = count_of_100(est.estimate), count_of_100(est.lower), count_of_100(est.upper)
     P = fit.distribution(xa)
-    if P is not None and pf.outcome.kind == "ordinal":
+    if P is not None and describe(pf.outcome).levels:
         P = np.clip(np.asarray(P, float)[0], 0.0, 1.0)
         P = P / P.sum()
         J = fit.distribution_jacobian(xa)
@@ -369,11 +359,11 @@ def _position(pl: Placement) -> str:
 
 
 def _event_words(o: OutcomeSpec) -> str:
-    if o.kind == "survival":
+    facts = describe(o)
+    if facts.follow_up:
         return f"would be alive at {horizon_words(o.horizon, o.units)}"
-    if o.kind == "ordinal":
-        fav = o.favourable or o.levels[:-1]
-        return "would be " + " or ".join(words(v) for v in fav)
+    if facts.levels:
+        return "would be " + " or ".join(words(v) for v in facts.favourable)
     return f"would have this outcome ({o.title})"
 
 
@@ -383,12 +373,12 @@ def _sentence(o: OutcomeSpec, ests: dict[str, ArmEstimate], arms: tuple[str, str
     unit = f" {o.units}" if o.units else ""
     for i, arm in enumerate(arms):
         e = ests[arm]
-        likely = (f"(likely between {e.per_100_lower} and {e.per_100_upper})" if is_probability(o)
+        likely = (f"(likely between {e.per_100_lower} and {e.per_100_upper})" if describe(o).probability
                   else f"(likely between {fmt(e.lower)} and {fmt(e.upper)})")
-        if is_probability(o):
+        if describe(o).probability:
             who = "people like this " if i == 0 else ""
             out.append(f"With {arm}, about {e.per_100} of 100 {who}{_event_words(o)} {likely}.")
-        elif o.kind == "survival":
+        elif describe(o).follow_up:
             out.append(f"With {arm}, people like this would live on average about {fmt(e.estimate)} of the first "
                        f"{o.horizon:g}{unit} {likely}.")
         else:
@@ -431,9 +421,9 @@ def predict(fs: FitSet, outcome: str, pl: Placement) -> Prediction:
         xs = whole_levels(pl)
         by_level = _by_level(xs, *_differences(pf, xs, z), z, margin, arms)
         sentence = level_sentence(f"For {o.title}", by_level, arms)
-    return Prediction(outcome, o.title, pl.name, _measure(o), o.kind, is_probability(o), pl.value, ests, d, ci,
+    return Prediction(outcome, o.title, pl.name, _measure(o), o.kind, describe(o).probability, pl.value, ests, d, ci,
                       clear, favours, _sentence(o, ests, arms), _uncertainty(o, clear, favours),
-                      _states_sentences(pf, ests, arms), o.horizon if o.kind == "survival" else None, o.units,
+                      _states_sentences(pf, ests, arms), describe(o).horizon, o.units,
                       by_level, sentence)
 
 
@@ -443,8 +433,9 @@ def _measure(o: OutcomeSpec) -> str:
 
 def timing_sentence(outcomes: Sequence[OutcomeSpec]) -> str | None:
     """The times the outcomes are counted at, said in words when they are not all the same known time."""
-    surv = [o for o in outcomes if o.kind == "survival"]
-    others = [o for o in outcomes if o.kind != "survival"]
+    timed = {o.name: describe(o).follow_up for o in outcomes}
+    surv = [o for o in outcomes if timed[o.name]]
+    others = [o for o in outcomes if not timed[o.name]]
     if len({(o.horizon, o.units) for o in surv}) <= 1 and not others:
         return None
     text = ["The outcomes are not all counted at the same time."]
@@ -471,13 +462,13 @@ def firmness(p_first: float, arms: tuple[str, str], level: float = 0.95) -> tupl
     return fav, "not clearly"
 
 
-def _composite_words(fs: FitSet, kind: str, whose: str) -> str:
+def _composite_words(fs: FitSet, form: str, whose: str) -> str:
     v = fs.spec.values
     ordinal = fs.spec.outcome(v.outcome).title
     who = WHO_SHORT.get(whose, whose)
-    if kind == "ordinal":
+    if form == "ordinal":
         return f"Weighing the states of {ordinal} by {who} values"
-    if kind == "survival_function":
+    if form == "survival_function":
         so = fs.spec.outcome(v.survival_outcome)
         return (f"Weighing survival at {horizon_words(so.horizon, so.units)} and the states of {ordinal} "
                 f"by {who} values")

@@ -297,8 +297,8 @@ def prepare_index(fs, index: str, target: Target | None = None, *, replicates: l
     for q in qs:
         for d in DIRECTIONS:
             curves[(q.key, d)] = rule_curve(q, sup, thresholds, d, spec.analysis.level, tolerance, rng, q.boot,
-                                            best_interval=q.kind != "level")
-            if chosen and q.kind != "level":
+                                            best_interval=q.role != "level")
+            if chosen and q.role != "level":
                 cc = rule_curve(q, sup_c, thresholds, d, spec.analysis.level, tolerance, rng, q.boot,
                                 best_interval=False)
                 current[(q.key, d)] = _current(q, u, a_first, a_second, cc, sup_c, thresholds, d,
@@ -330,7 +330,7 @@ def break_even_sides(fs, index: str, sup: Support, weights: dict | None = None, 
     cum = np.r_[0.0, np.cumsum(sup.a)]
     out = {}
     for q in quantities(fs, index, grid, weights):
-        if q.kind == "level":
+        if q.role == "level":
             continue
         d = q.sign * (q.value[0] - q.value[1])
         found = []
@@ -374,12 +374,12 @@ def rows(ps: PolicySet) -> list[dict]:
     out = []
     arms = ps.arms
     for q in ps.quantities:
-        if q.kind == "level":
+        if q.role == "level":
             continue
         for d in DIRECTIONS:
             c = ps.curves[(q.key, d)]
             b = c.best
-            composite = q.key.split(":", 1)[1] if q.kind == "composite" else None
+            composite = q.key.split(":", 1)[1] if q.role == "composite" else None
             row = {"outcome": "composite" if composite else q.key, "composite": composite, "title": q.title,
                    "index": ps.index, "direction": d,
                    "rule": rule_words(d, arms, ps.title),
@@ -399,7 +399,7 @@ def rows(ps: PolicySet) -> list[dict]:
                    "current_practice": ps.current.get((q.key, d)),
                    "break_evens": ps.break_evens.get(q.key, []),
                    "overlap": ps.overlap, "warnings": list(ps.warnings)}
-            levels = [x for x in ps.quantities if x.kind == "level" and x.parent == q.key]
+            levels = [x for x in ps.quantities if x.role == "level" and x.parent == q.key]
             if levels:
                 row["levels"] = [_level_json(x, ps.curves[(x.key, d)], b) for x in levels]
             out.append(row)
@@ -431,7 +431,7 @@ def at_threshold(ps: PolicySet, key: str, direction: str, t: float) -> dict:
            "ci": (float(c.lower[j]), float(c.upper[j])), "all_first": c.all_first[0], "all_second": c.all_second[0],
            "levels": {}}
     for q in ps.quantities:
-        if q.kind == "level" and q.parent == key:
+        if q.role == "level" and q.parent == key:
             lc = ps.curves[(q.key, direction)]
             out["levels"][q.key.split(":", 1)[1]] = (float(lc.value[j]), float(lc.lower[j]), float(lc.upper[j]),
                                                       lc.all_first[0], lc.all_second[0])
@@ -515,7 +515,7 @@ def consequences(ps: PolicySet, direction: str, t: float) -> list[dict]:
     title, what the numbers count, the rule's value per 100 with its interval, everyone-first, everyone-second."""
     out = []
     for q in ps.quantities:
-        if q.kind == "level":
+        if q.role == "level":
             continue
         a = at_threshold(ps, q.key, direction, t)
         unit = "patients" if q.probability else (q.units or "total")

@@ -15,8 +15,8 @@ import numpy as np
 
 from . import fitting as ft
 from . import values as vl
+from .models import describe
 from .models.base import Fitted
-from .patient import is_probability
 from .selection import param_gradient
 
 
@@ -26,7 +26,7 @@ class Quantity:
 
     key: str                   # outcome name, "<outcome>:<level>", or "composite:<kind>"
     title: str
-    kind: str                  # "outcome" | "level" | "composite"
+    role: str                  # "outcome" | "level" | "composite"
     sign: float                # +1 when higher is better
     probability: bool          # the per-100 value counts patients
     units: str | None
@@ -97,7 +97,7 @@ def outcome_quantities(pf: ft.PairFit, u: np.ndarray) -> list[Quantity]:
         vals.append(np.asarray(pf.fits[a].measure(u), float))
         facs.append(F)
         hows.append(how)
-    out.append(Quantity(o.name, o.title, "outcome", pf.sign, _is_probability(pf), o.units, tuple(vals), tuple(facs),
+    out.append(Quantity(o.name, o.title, "outcome", pf.sign, describe(o).probability, o.units, tuple(vals), tuple(facs),
                         _worst(*hows)))
     P0 = pf.fits[arms[0]].distribution(u[:1])
     if P0 is not None:
@@ -110,10 +110,6 @@ def outcome_quantities(pf: ft.PairFit, u: np.ndarray) -> list[Quantity]:
     return out
 
 
-def _is_probability(pf: ft.PairFit) -> bool:
-    return is_probability(pf.outcome)
-
-
 def composite_quantities(fs: ft.FitSet, index: str, u: np.ndarray, weights: dict | None = None) -> list[Quantity]:
     """Each composite the spec asks for (values.default_kinds) under the stated (or given) weights."""
     spec = fs.spec
@@ -124,13 +120,13 @@ def composite_quantities(fs: ft.FitSet, index: str, u: np.ndarray, weights: dict
     pf_ord = fs.pair(v.outcome, index)
     arms = list(pf_ord.fits)
     w = vl.check_weights(weights if weights is not None else v.weights, pf_ord.outcome.levels)
-    for kind in vl.default_kinds(spec):
+    for form in vl.default_kinds(spec):
         vals, facs, hows = [], [], []
         for a in arms:
-            if kind == "ordinal":
+            if form == "ordinal":
                 m, F = _level_terms(pf_ord.fits[a], u, w)
                 how = "delta"
-            elif kind == "survival_function":
+            elif form == "survival_function":
                 so = spec.outcome(v.survival_outcome)
                 m, F, how = _survival_function(pf_ord.fits[a], fs.pair(so.name, index), a, u, w)
             else:
@@ -138,12 +134,12 @@ def composite_quantities(fs: ft.FitSet, index: str, u: np.ndarray, weights: dict
             vals.append(m)
             facs.append(F)
             hows.append(how)
-        title = f"Composite ({kind.replace('_', ' ')})"
+        title = f"Composite ({form.replace('_', ' ')})"
         units = None
-        if kind == "quality_adjusted":
+        if form == "quality_adjusted":
             so = vl._survival_outcome(spec)
             units = f"quality-adjusted {so.units}" if so.units else "quality-adjusted time"
-        out.append(Quantity(f"composite:{kind}", title, "composite", 1.0, False, units, tuple(vals), tuple(facs),
+        out.append(Quantity(f"composite:{form}", title, "composite", 1.0, False, units, tuple(vals), tuple(facs),
                             _worst(*hows)))
     return out
 
@@ -208,7 +204,7 @@ def attach_replicates(fs: ft.FitSet, index: str, qs: list[Quantity], u: np.ndarr
     n = fs.spec.analysis.grid
     cms = {(k, index): vl.prepare_composite(fs, k, index, reps) for k in vl.default_kinds(fs.spec)}
     for q in qs:
-        if q.kind == "outcome":
+        if q.role == "outcome":
             pf = fs.pair(q.key, index)
             grid = ft.grid_for(pf, n)
             recs = [r[(q.key, index)] for r in reps if "failed" not in r[(q.key, index)]]
@@ -216,7 +212,7 @@ def attach_replicates(fs: ft.FitSet, index: str, qs: list[Quantity], u: np.ndarr
                 continue
             q.boot = tuple(_interp_rows(grid, np.array([r[s] for r in recs], float), u) for s in ("first", "second"))
             q.interval = "bootstrap-percentile"
-        elif q.kind == "composite":
+        elif q.role == "composite":
             cm = cms.get((q.key.split(":", 1)[1], index))
             if cm is None or cm.boot is None:
                 continue

@@ -18,7 +18,7 @@ from scipy import stats
 from . import breakeven as be
 from . import fitting as ft
 from .errors import FulcrumError
-from .models import fit_model
+from .models import describe, fit_model
 from .models.base import Fitted, numerical_jacobian
 from .models.common import basis_names
 from .models.words import measure_words
@@ -50,23 +50,23 @@ class EValue:
                 "e_value": _r(self.point), "e_value_ci": _r(self.ci)}
 
 
-def approximate_rr(value: float, kind: str = "rr") -> float:
+def approximate_rr(value: float, scale: str = "rr") -> float:
     """An estimate on the risk-ratio scale, by the conversions of VanderWeele & Ding 2017 (and its appendix).
 
     rr/rr_rare/hr_rare/or_rare: as is; or_common: sqrt(OR); hr_common: (1 - 0.5^sqrt(HR)) / (1 - 0.5^sqrt(1/HR));
     smd (a standardised mean difference d): exp(0.91 d).
     """
-    if kind not in EVALUE_KINDS:
-        raise FulcrumError(f"unknown E-value kind '{kind}'.", hint=f"Use one of {', '.join(EVALUE_KINDS)}.")
+    if scale not in EVALUE_KINDS:
+        raise FulcrumError(f"unknown E-value kind '{scale}'.", hint=f"Use one of {', '.join(EVALUE_KINDS)}.")
     v = float(value)
-    if not math.isfinite(v) or (kind != "smd" and v <= 0):
+    if not math.isfinite(v) or (scale != "smd" and v <= 0):
         raise FulcrumError(f"an E-value needs a positive finite ratio (or a finite standardised difference); "
-                           f"got {value!r} for kind '{kind}'.", hint="Check the estimate passed to e_value.")
-    if kind == "smd":
+                           f"got {value!r} for kind '{scale}'.", hint="Check the estimate passed to e_value.")
+    if scale == "smd":
         return math.exp(0.91 * v)
-    if kind == "or_common":
+    if scale == "or_common":
         return math.sqrt(v)
-    if kind == "hr_common":
+    if scale == "hr_common":
         return (1.0 - 0.5 ** math.sqrt(v)) / (1.0 - 0.5 ** math.sqrt(1.0 / v))
     return v
 
@@ -555,13 +555,14 @@ def shift_bootstrap(fs: ft.FitSet, pairs: dict[tuple[str, str], tuple[SelectionP
 # ------------------------------------------------------------------------------------------
 def _comparison(outcome: OutcomeSpec, m: tuple[float, float], v: tuple[float, float], sd_y: float | None,
                 z: float) -> tuple[float, float, float, str] | None:
-    """(estimate, lo, hi, kind) of first versus second: a risk ratio, or a standardised difference."""
-    if outcome.kind == "continuous":
+    """(estimate, lo, hi, kind) of first versus second: a risk ratio, or a standardised difference for a mean."""
+    facts = describe(outcome)
+    if not facts.probability:
         if not sd_y:
             return None
         d, se = (m[0] - m[1]) / sd_y, math.sqrt(max(v[0] + v[1], 0.0)) / sd_y
         return d, d - z * se, d + z * se, "smd"
-    risk = (1.0 - m[0], 1.0 - m[1]) if outcome.kind == "survival" else m
+    risk = (1.0 - m[0], 1.0 - m[1]) if facts.follow_up else m  # survival's event is the complement
     if min(risk) <= 0.0:
         return None
     rr = risk[0] / risk[1]
@@ -574,13 +575,14 @@ def adjusted_e_value(sp: SelectionPair, spec: Spec) -> dict | None:
     quartiles of their index. Risk ratio for binary, ordinal (favourable) and survival (event by the
     horizon) outcomes; exp(0.91 d) for continuous ones (VanderWeele & Ding 2017)."""
     adj, o = sp.adjusted, sp.outcome
-    if adj is None or (o.kind == "survival" and o.measure == "rmst"):
+    facts = describe(o)
+    if adj is None or (facts.follow_up and not facts.probability):  # restricted mean survival: no risk ratio
         return None
     arms = list(adj.fits)
     f1, f2 = adj.fits[arms[0]], adj.fits[arms[1]]
     z = be.critical_value(spec.analysis.level)
     sd_y = None
-    if o.kind == "continuous":
+    if not facts.probability:
         v = [np.var(adj.data[a].y, ddof=1) for a in arms]
         sd_y = math.sqrt((v[0] + v[1]) / 2.0)
     x = np.concatenate([adj.data[a].x for a in arms])
@@ -596,9 +598,9 @@ def adjusted_e_value(sp: SelectionPair, spec: Spec) -> dict | None:
                             **e_value(c[0], c[1], c[2], c[3]).to_json()})
     if overall is None:
         return None
-    if o.kind == "continuous":
+    if not facts.probability:
         what = f"standardised difference in {measure_words(o)} (d; risk ratio approximated by exp(0.91 d))"
-    elif o.kind == "survival":
+    elif facts.follow_up:
         what = f"risk ratio of the event by {o.horizon:g}{' ' + o.units if o.units else ''}"
     else:
         what = f"risk ratio of the {measure_words(o)}"

@@ -27,6 +27,7 @@ from .presets import (
     default_weights,
     preset_weights,  # noqa: F401  (pages/page_values.py reads it as values.preset_weights)
 )
+from .models import describe
 from .result_rows import curve_row, index_info_json
 from .spec import OutcomeSpec, Spec, ValuesSpec
 
@@ -64,7 +65,7 @@ class CompositeModel:
     replicate (None rows where a replicate failed), or None when the interval is analytic.
     """
 
-    kind: str
+    form: str  # the composite's form: one of KINDS
     index: str
     levels: tuple[str, ...]
     arms: tuple[str, str]
@@ -82,7 +83,7 @@ class CompositeModel:
 
     @property
     def weighted(self) -> bool:
-        return self.kind in WEIGHTED_KINDS
+        return self.form in WEIGHTED_KINDS
 
     @property
     def x_range(self) -> tuple[float, float]:
@@ -112,7 +113,7 @@ class CompositeModel:
 class CompositeInfo:
     """What the composite row says beyond the curve: the weights, whose they are, and the caveats."""
 
-    kind: str
+    form: str  # the composite's form: one of KINDS
     index: str
     measure: str
     weights: dict[str, float] | None
@@ -243,7 +244,7 @@ def _survival_outcome(spec: Spec) -> OutcomeSpec | None:
     v = spec.values
     if v is not None and v.survival_outcome:
         return spec.outcome(v.survival_outcome)
-    return next((o for o in spec.outcomes if o.kind == "survival"), None)
+    return next((o for o in spec.outcomes if describe(o).follow_up), None)
 
 
 def _horizon_words(o: OutcomeSpec) -> str:
@@ -263,7 +264,7 @@ def default_kinds(spec: Spec) -> tuple[str, ...]:
     return tuple(kinds)
 
 
-def prepare_composite(fs: ft.FitSet, kind: str, index: str, replicates: list[dict] | None = None,
+def prepare_composite(fs: ft.FitSet, form: str, index: str, replicates: list[dict] | None = None,
                       values: ValuesSpec | None = None) -> CompositeModel:
     """Evaluate one composite's level probabilities and covariances on the grid from the fitted models."""
     spec = fs.spec
@@ -271,13 +272,13 @@ def prepare_composite(fs: ft.FitSet, kind: str, index: str, replicates: list[dic
     if values is None:
         raise FulcrumError("the spec has no [values] section, so there is no composite.", key="values",
                            hint="Add [values] naming the ordinal outcome whose states are weighted.")
-    if kind not in KINDS:
-        raise FulcrumError(f"'{kind}' is not a kind of composite.", hint=f"Kinds: {', '.join(KINDS)}.")
+    if form not in KINDS:
+        raise FulcrumError(f"'{form}' is not a kind of composite.", hint=f"Kinds: {', '.join(KINDS)}.")
     pf_ord = fs.pair(values.outcome, index)
     ordinal = pf_ord.outcome
     notes: list[str] = []
     whose = {"patient": "the patient", "proxy": "a proxy speaking for the patient", "team": "the treating team"}
-    if kind == "ordinal":
+    if form == "ordinal":
         levels = ordinal.levels
         anchor, at = pf_ord, _ordinal_evaluator(pf_ord)
         parts = [pf_ord]
@@ -285,7 +286,7 @@ def prepare_composite(fs: ft.FitSet, kind: str, index: str, replicates: list[dic
         notes.append(f"Each arm's composite is the expected weight over the levels of {ordinal.title}, from its "
                      "fitted level probabilities; the weights are those of " + whose.get(values.whose, values.whose)
                      + ".")
-    elif kind == "survival_function":
+    elif form == "survival_function":
         if not values.survival_outcome:
             raise FulcrumError("the survival x function composite needs a survival outcome.",
                                key="values.survival_outcome", hint="Name the survival outcome in [values].")
@@ -316,11 +317,11 @@ def prepare_composite(fs: ft.FitSet, kind: str, index: str, replicates: list[dic
                      f"times the mean {uo.title} of survivors at that index value: this assumes quality of life is "
                      "constant over the period and the same, while alive, in those who died as in the survivors "
                      "measured; the two models are treated as independent in the intervals.")
-    title = f"Composite ({kind.replace('_', ' ')})"
+    title = f"Composite ({form.replace('_', ' ')})"
     pair = _relabel(anchor, title, parts)
     grid = ft.grid_for(anchor, spec.analysis.grid)
     L, C = at(grid, True)
-    cm = CompositeModel(kind, index, tuple(levels), tuple(anchor.fits), pair, spec, grid, L, C, at, measure, notes)
+    cm = CompositeModel(form, index, tuple(levels), tuple(anchor.fits), pair, spec, grid, L, C, at, measure, notes)
     if replicates is not None:
         _attach_replicates(cm, fs, values, replicates)
     return cm
@@ -334,21 +335,21 @@ def _rep_curve(rec: dict, key: str, src_grid: np.ndarray, grid: np.ndarray) -> n
 def _attach_replicates(cm: CompositeModel, fs: ft.FitSet, values: ValuesSpec, reps: list[dict]) -> None:
     """Per-replicate effective level probabilities on the composite grid, from run_bootstrap records."""
     spec, index, n = fs.spec, cm.index, fs.spec.analysis.grid
-    if cm.kind in WEIGHTED_KINDS:
+    if cm.form in WEIGHTED_KINDS:
         fitted = [rep[(values.outcome, index)] for rep in reps if "failed" not in rep[(values.outcome, index)]]
         if fitted and "dist_first" not in fitted[0]:
             raise FulcrumError("the bootstrap replicates do not hold the level probabilities of "
                                f"'{values.outcome}', so the composite's bootstrap interval cannot be formed.",
                                key="analysis.interval", hint="Run the bootstrap with keep_distribution="
                                f"('{values.outcome}',).")
-    if cm.kind == "survival_function":
+    if cm.form == "survival_function":
         so = spec.outcome(values.survival_outcome)
         if so.measure != "survival":
             cm.notes.append("The bootstrap replicates hold restricted mean survival, not survival at the horizon, "
                             "so this composite's interval is the analytic (test-inversion) one.")
             return
         surv_grid = ft.grid_for(fs.pair(so.name, index), n)
-    if cm.kind == "quality_adjusted":
+    if cm.form == "quality_adjusted":
         so = _survival_outcome(spec)
         if so.measure != "rmst":
             cm.notes.append("The bootstrap replicates hold survival at the horizon, not restricted mean survival, "
@@ -361,7 +362,7 @@ def _attach_replicates(cm: CompositeModel, fs: ft.FitSet, values: ValuesSpec, re
     out = [np.full((len(reps), G, K), np.nan), np.full((len(reps), G, K), np.nan)]
     ok = np.ones(len(reps), bool)
     for r, rep in enumerate(reps):
-        if cm.kind == "quality_adjusted":
+        if cm.form == "quality_adjusted":
             rs, ru = rep[(so.name, index)], rep[(util, index)]
             if "failed" in rs or "failed" in ru:
                 ok[r] = False
@@ -373,7 +374,7 @@ def _attach_replicates(cm: CompositeModel, fs: ft.FitSet, values: ValuesSpec, re
         if "failed" in ro:
             ok[r] = False
             continue
-        if cm.kind == "ordinal":
+        if cm.form == "ordinal":
             out[0][r], out[1][r] = ro["dist_first"], ro["dist_second"]
             continue
         rs = rep[(so.name, index)]
@@ -497,7 +498,7 @@ def reweight(prepared: dict[tuple[str, str], CompositeModel], weights: dict[str,
         v = values or cm.spec.values
         w = weights_for(cm, weights if weights is not None else v.weights)
         s = _summary(cm, w, margin)
-        info = CompositeInfo(cm.kind, cm.index, cm.measure,
+        info = CompositeInfo(cm.form, cm.index, cm.measure,
                              dict(zip(cm.levels, map(float, w))) if cm.weighted else None, v.whose,
                              _notes(cm, w), model=cm)
         if cm.weighted:

@@ -4,6 +4,7 @@ import streamlit as st
 import fulcrum_ui as ui
 from explorer import appstate as aps
 from explorer import margins
+from explorer.models import describe
 
 LEVELS = [0.8, 0.9, 0.95, 0.99]
 ws, _ = ui.page_head(
@@ -38,7 +39,7 @@ if (margin, level, bands) != (a.margin, a.level, a.bands):
     ws = ui.workspace()
 with st.expander("Margin per outcome (each in its own units; the margin above is the default for probabilities)"):
     own = {o.name: st.number_input(f"{o.title} ({margins.units_words(o)})", format="%.3f",
-                                   step=0.01 if margins.on_probability_scale(o) else 1.0,
+                                   step=0.01 if describe(o).probability else 1.0,
                                    key=ui.seed(f"margin:{o.name}:{ws.spec.analysis.margin}", ws.spec.margin_for(o)))
            for o in ws.spec.outcomes}
     changed = {n: v for n, v in own.items() if v != ws.spec.margin_for(ws.spec.outcome(n))}

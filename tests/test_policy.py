@@ -157,11 +157,11 @@ def test_factors_reproduce_the_pointwise_variances(small):
     spec, fs = small
     u = np.unique(fs.indices["cfs"].values)
     for q in quantities(fs, "cfs", u):
-        if q.kind == "level":
+        if q.role == "level":
             continue
         for j, arm in enumerate(spec.cohort.arms):
             var = np.einsum("ij,ij->i", q.factor[j], q.factor[j])
-            if q.kind == "outcome":
+            if q.role == "outcome":
                 want = fs.pair(q.key, "cfs").fits[arm].measure_var(u)
             else:
                 cm = vl.prepare_composite(fs, q.key.split(":")[1], "cfs")
@@ -173,7 +173,7 @@ def test_factors_reproduce_the_pointwise_variances(small):
 
 
 def test_levels_add_up_to_100_and_to_their_outcome(cfs_set):
-    levels = [q for q in cfs_set.quantities if q.kind == "level" and q.parent == "function"]
+    levels = [q for q in cfs_set.quantities if q.role == "level" and q.parent == "function"]
     total = sum(cfs_set.curves[(q.key, "first_below")].value for q in levels)
     np.testing.assert_allclose(total, 100.0, atol=1e-8)
     fav = sum(cfs_set.curves[(f"function:{lv}", "first_below")].value for lv in ("independent", "home_with_help"))
@@ -341,7 +341,7 @@ def test_bootstrap_replicates_of_the_analysis_give_the_rule_intervals(small):
     boot = po.prepare_index(fs, "cfs", replicates=reps)
     delta = po.prepare_index(fs, "cfs")
     for q in boot.quantities:
-        if q.kind == "level":
+        if q.role == "level":
             continue
         cb, cd = boot.curves[(q.key, "first_below")], delta.curves[(q.key, "first_below")]
         np.testing.assert_allclose(cb.value, cd.value)

@@ -80,12 +80,12 @@ def compute_index(spec_index: IndexSpec, frame: pd.DataFrame, *, spec: Spec, see
     level = spec.analysis.level if level is None else level
     warnings: list[str] = []
     info: dict[str, Any] = {"kind": spec_index.kind, "label": spec_index.title, "units": spec_index.units}
-    if spec_index.kind == "column":
+    if spec_index.column:
         model: IndexModel = ColumnIndex(str(spec_index.column), key=f"{key}.column")
         values = model.compute(frame)
         info["column"] = spec_index.column
         missing = describe_missing({spec_index.column: values})
-    elif spec_index.kind == "formula":
+    elif spec_index.formula:
         model = parse_formula(str(spec_index.formula), [str(c) for c in frame.columns], key=f"{key}.formula")
         values = model.compute(frame)
         info.update(formula=spec_index.formula, columns=list(model.columns))

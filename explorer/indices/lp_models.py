@@ -8,6 +8,7 @@ predictor means worse levels (coded best first); the cut-points are not part of 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Callable
 
 import numpy as np
 
@@ -16,9 +17,6 @@ from ..models.cox_kernel import CoxKernel
 from ..models.glm import fit_logistic
 from ..models.ordinal import ordinal_loglik
 
-MODEL_OF_KIND = {"survival": "Cox", "binary": "logistic", "ordinal": "proportional odds", "continuous": "linear"}
-SCALE_OF_KIND = {"survival": "log hazard", "binary": "log odds", "ordinal": "log odds of a worse level",
-                 "continuous": "predicted outcome"}
 
 
 @dataclass
@@ -41,23 +39,24 @@ class LinearPredictor:
 
 @dataclass
 class Target:
-    """The outcome a prognostic model is fitted to: y (0/1, codes 0..K-1 best first, or values) or time/event."""
+    """The outcome a prognostic model is fitted to: y (0/1, codes 0..K-1 best first, or values) or time/event;
+    family: the FAMILIES entry that fits it (the outcome kind's facts say which)."""
 
-    kind: str
+    family: str
     y: np.ndarray | None = None
     time: np.ndarray | None = None
     event: np.ndarray | None = None
 
     def take(self, rows: np.ndarray) -> "Target":
         pick = (lambda a: None if a is None else a[rows])
-        return Target(self.kind, pick(self.y), pick(self.time), pick(self.event))
+        return Target(self.family, pick(self.y), pick(self.time), pick(self.event))
 
 
 def fit_linear_predictor(X: np.ndarray, target: Target, start: np.ndarray | None = None) -> LinearPredictor:
-    """Fit the model for the target's kind on covariates X (n x p, finite); start: coefficients to start
-    Newton's method from (a bootstrap replicate starts from the cohort's fit)."""
+    """Fit the target's family on covariates X (n x p, finite); start: coefficients to start Newton's method
+    from (a bootstrap replicate starts from the cohort's fit)."""
     X = np.asarray(X, float).reshape(len(X), -1)
-    fit = {"survival": _cox, "binary": _logistic, "ordinal": _proportional_odds, "continuous": _linear}[target.kind]
+    fit = FAMILIES[target.family].fit
     return fit(X, target, None if start is None or np.shape(start) != (X.shape[1],) else np.asarray(start, float))
 
 
@@ -96,3 +95,39 @@ def _proportional_odds(X: np.ndarray, t: Target, start: np.ndarray | None = None
     params, _, _, H, _, ok = newton(ordinal_loglik(X, code, np.ones(len(X)), m + 1), start)
     cov = inverse(-H)
     return LinearPredictor(params[m:], cov[m:, m:], 0.0, bool(ok), {"cuts": params[:m]})
+
+
+@dataclass(frozen=True)
+class Family:
+    """One kind of multi-covariate model for a prognostic index, as its report words it.
+
+    name: the report's `model`; scale: what the linear predictor is on; intercept: the predictor keeps one
+    (logistic, linear); flips: a higher predictor means a higher outcome value, so an outcome where higher is
+    better is turned round to make a higher index mean a worse prognosis (Cox and proportional odds predictors
+    already rise with hazard and worse levels); events: which values count as events for the events-per-covariate
+    rule ("event": the event column, "ones": patients coded 1, None: not counted); predicted and orientation:
+    sentences with {title}, {by} (the horizon words) and {direction} (higher or lower) to fill.
+    """
+
+    name: str
+    scale: str
+    fit: Callable
+    intercept: bool
+    flips: bool
+    events: str | None
+    predicted: str
+    orientation: str
+
+
+FAMILIES = {
+    "cox": Family("Cox", "log hazard", _cox, False, False, "event",
+                  "predicted risk of the event in '{title}' by {by}",
+                  "a higher predicted hazard of the event in '{title}'"),
+    "logistic": Family("logistic", "log odds", _logistic, True, True, "ones",
+                       "predicted probability that '{title}' is 1", "{direction} predicted odds of {title}"),
+    "proportional_odds": Family("proportional odds", "log odds of a worse level", _proportional_odds, False, False,
+                                None, "predicted probability of a level of '{title}' worse than the best",
+                                "higher odds of a worse level of {title}"),
+    "linear": Family("linear", "predicted outcome", _linear, True, True, None, "predicted '{title}'",
+                     "a {direction} predicted {title}"),
+}

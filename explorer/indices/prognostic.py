@@ -31,7 +31,8 @@ from ..errors import FulcrumError
 from ..spec import IndexSpec, OutcomeSpec, Spec
 from .concordance import harrell_c
 from .columns import MAX_ERROR_ROWS, as_float, describe_missing
-from .lp_models import MODEL_OF_KIND, SCALE_OF_KIND, LinearPredictor, Target, fit_linear_predictor
+from ..models import describe
+from .lp_models import FAMILIES, Family, LinearPredictor, Target, fit_linear_predictor
 
 MIN_PER_FOLD = 5
 EVENTS_PER_COVARIATE = 10  # common practice
@@ -87,7 +88,7 @@ class PrognosticModel:
                                                                     self.report["fit_on"], key)
         fit_mask = complete & has_outcome & in_arm
         Xc = np.where(complete[:, None], X - self.center, 0.0)
-        horizon = outcome.horizon if outcome.kind == "survival" else None
+        horizon = describe(outcome).horizon
         offset = anchor(self.full, Xc[fit_mask], target.take(np.flatnonzero(fit_mask)), horizon)
         return Refitter(Xc, complete, fit_mask, target, self.report["folds"], self.report["seed"], self.sign, horizon,
                         offset, self.full.coef)
@@ -113,7 +114,7 @@ def cross_fitted_index(index: IndexSpec, frame: pd.DataFrame, spec: Spec, *, key
     center = X[fit].mean(axis=0)
     Xc = np.where(complete[:, None], X - center, 0.0)
     _check_rank(Xc[fit], p.covariates, f"{key}.prognostic.covariates")
-    sign = -1.0 if outcome.kind in ("binary", "continuous") and outcome.higher_is_better else 1.0
+    sign = -1.0 if _family(outcome).flips and outcome.higher_is_better else 1.0
     full, models, fold_of, value_fold, lp = cross_fit(Xc, target, fit, complete, p.folds, seed, groups)
     model = PrognosticModel(outcome.name, outcome.kind, tuple(p.covariates), center, sign, models, full, fold_of,
                             value_fold, key=key)
@@ -149,7 +150,7 @@ def anchor(full: LinearPredictor, Xc: np.ndarray, target: Target, horizon: float
     """What turns the (relative) linear predictor into the model's absolute prediction: lp + anchor is the
     log cumulative hazard at the horizon (Cox, Breslow baseline at the centre), the log odds of a level worse
     than the best (proportional odds), and the linear predictor itself (logistic, linear: intercept included)."""
-    if target.kind == "survival":
+    if target.time is not None:  # a time-to-event target: the log cumulative hazard at the horizon
         time, event = np.asarray(target.time, float), np.asarray(target.event, float)
         if horizon is None:
             horizon = float(np.median(time[event > 0])) if (event > 0).any() else float(np.median(time))
@@ -160,7 +161,7 @@ def anchor(full: LinearPredictor, Xc: np.ndarray, target: Target, horizon: float
         hit = (event[order] > 0) & (t <= horizon)
         h0 = float(np.sum(1.0 / at_risk[hit]))
         return math.log(max(h0, 1e-300))
-    if target.kind == "ordinal":
+    if "cuts" in full.extra:  # proportional odds: the log odds of a level worse than the best
         return -float(full.extra["cuts"][0])
     return 0.0
 
@@ -215,22 +216,36 @@ def _inputs(spec: Spec, frame: pd.DataFrame, outcome_name: str, covariates: tupl
 
 def outcome_target(outcome: OutcomeSpec, frame: pd.DataFrame, key: str) -> tuple[Target, np.ndarray]:
     """The outcome's arrays (NaN where missing) and the mask of rows that have it."""
-    if outcome.kind == "survival":
+    facts = describe(outcome)
+    family = _family_name(outcome, facts.prognostic)
+    if facts.values == "time_event":
         time = as_float(_column(frame, outcome.time, key), outcome.time, key)
         event = as_float(_column(frame, outcome.event, key), outcome.event, key)
         has = np.isfinite(time) & np.isfinite(event)
         _refuse_rows(has & (time <= 0), outcome.time, key, "follow-up times must be positive")
         _refuse_rows(has & ~np.isin(event, (0.0, 1.0)), outcome.event, key, "the event column must hold 0 or 1")
-        return Target("survival", time=time, event=event), has
+        return Target(family, time=time, event=event), has
     raw = _column(frame, outcome.column, key)
-    if outcome.kind == "ordinal":
+    if facts.values == "level":
         y = _ordinal_codes(raw, outcome, key)
     else:
         y = as_float(raw, outcome.column, key)
     has = np.isfinite(y)
-    if outcome.kind == "binary":
+    if facts.values == "zero_one":
         _refuse_rows(has & ~np.isin(y, (0.0, 1.0)), outcome.column, key, "a binary outcome must hold 0 or 1")
-    return Target(outcome.kind, y=y), has
+    return Target(family, y=y), has
+
+
+def _family_name(outcome: OutcomeSpec, name: str | None) -> str:
+    if name not in FAMILIES:
+        raise FulcrumError(f"outcome '{outcome.name}' ({outcome.kind}) offers no model for a prognostic index.",
+                           key=f"outcomes '{outcome.name}'", hint="Fit the prognostic index to another outcome.")
+    return str(name)
+
+
+def _family(outcome: OutcomeSpec) -> Family:
+    """The multi-covariate model family that fits a prognostic index to this outcome (its kind's facts say)."""
+    return FAMILIES[_family_name(outcome, describe(outcome).prognostic)]
 
 
 def _ordinal_codes(raw: pd.Series, outcome: OutcomeSpec, key: str) -> np.ndarray:
@@ -333,8 +348,8 @@ def _check_size(fit: np.ndarray, target: Target, folds: int, p: int, outcome: Ou
         raise FulcrumError(f"only {len(fit)} patients in {where} have '{outcome.name}' and every covariate; "
                            f"{folds}-fold cross-fitting of {p} covariate(s) needs at least {need}.",
                            key=f"{key}.prognostic", hint="Use fewer covariates or folds, or fit_on = \"all\".")
-    if outcome.kind in ("binary", "ordinal", "survival"):
-        values = target.event if outcome.kind == "survival" else target.y
+    if describe(outcome).values != "number":
+        values = target.event if target.time is not None else target.y
         distinct = np.unique(values[fit])
         if len(distinct) < 2:
             raise FulcrumError(f"every patient in {where} has the same value of '{outcome.name}' "
@@ -359,29 +374,30 @@ def _report(index: IndexSpec, outcome: OutcomeSpec, model: PrognosticModel, X: n
     coefficients = [{"name": n, "estimate": float(b), "se": float(s), "ci": [float(b - z * s), float(b + z * s)]}
                     for n, b, s in zip(model.covariates, full.coef, full.se)]
     calibration = fit_linear_predictor(oof[:, None], target)
+    family = FAMILIES[target.family]
     slope, slope_se = float(calibration.coef[0]), float(calibration.se[0])
     return {
         "outcome": outcome.name,
-        "model": MODEL_OF_KIND[outcome.kind],
-        "scale": SCALE_OF_KIND[outcome.kind],
+        "model": family.name,
+        "scale": family.scale,
         "fit_on": p.fit_on,
         "folds": p.folds,
         "seed": seed,
         "n_fit": int(len(oof)),
         "n_events": _events(target),
         "coefficients": coefficients,
-        "intercept": float(full.intercept) if outcome.kind in ("binary", "continuous") else None,
+        "intercept": float(full.intercept) if family.intercept else None,
         "centre": {n: float(c) for n, c in zip(model.covariates, model.center)},
         "orientation": orientation(outcome),
         "c_index": _discrimination(outcome, target, model.sign * oof, level).as_dict(),
         "calibration_slope": {"estimate": slope, "se": slope_se, "ci": [slope - z * slope_se, slope + z * slope_se],
-                              "level": level, "method": f"{MODEL_OF_KIND[outcome.kind]} regression of the outcome "
+                              "level": level, "method": f"{family.name} regression of the outcome "
                               "on the out-of-fold linear predictor in the fitting set (1 = well calibrated)"},
         "converged": bool(full.converged and all(m.converged for m in model.fold_models)),
-        "anchor": anchor(full, X, target, outcome.horizon if outcome.kind == "survival" else None),
+        "anchor": anchor(full, X, target, describe(outcome).horizon),
         "sign": model.sign,
         "predicted": _predicted_words(outcome),
-        "method": (f"{MODEL_OF_KIND[outcome.kind]} model of {outcome.title} on {', '.join(model.covariates)}, "
+        "method": (f"{family.name} model of {outcome.title} on {', '.join(model.covariates)}, "
                    f"fitted on {'the second arm' if p.fit_on == 'second' else 'all patients without an arm term'} "
                    f"by {p.folds}-fold cross-fitting (seed {seed}): patients in the fitting set take the value of "
                    "the fold model that did not see them, everyone else in the cohort the value of a fold model "
@@ -392,10 +408,9 @@ def _report(index: IndexSpec, outcome: OutcomeSpec, model: PrognosticModel, X: n
 
 
 def _events(target: Target) -> int | None:
-    """Events (survival) or patients with the outcome coded 1 (binary); None for other kinds."""
-    if target.kind == "survival":
-        return int(np.sum(target.event))
-    return int(np.sum(target.y)) if target.kind == "binary" else None
+    """Events (survival) or patients with the outcome coded 1 (binary); None for other families."""
+    counted = {"event": target.event, "ones": target.y}.get(FAMILIES[target.family].events)
+    return None if counted is None else int(np.sum(counted))
 
 
 def about_index(label: str, report: Mapping[str, Any], interval: str, refit: bool, spec: Spec | None = None) -> str:
@@ -429,12 +444,9 @@ def about_index_plain(label: str, report: Mapping[str, Any], interval: str, refi
 
 def _predicted_words(outcome: OutcomeSpec) -> str:
     """What `predicted` turns an index value into, in words."""
-    if outcome.kind == "survival":
-        units = f" {outcome.units}" if outcome.units else ""
-        return f"predicted risk of the event in '{outcome.title}' by {outcome.horizon:g}{units}"
-    return {"binary": f"predicted probability that '{outcome.title}' is 1",
-            "ordinal": f"predicted probability of a level of '{outcome.title}' worse than the best",
-            "continuous": f"predicted '{outcome.title}'"}[outcome.kind]
+    horizon = describe(outcome).horizon
+    by = "" if horizon is None else f"{horizon:g}" + (f" {outcome.units}" if outcome.units else "")
+    return _family(outcome).predicted.format(title=outcome.title, by=by)
 
 
 def predicted(report: Mapping[str, Any], x: float | None) -> float | None:
@@ -455,19 +467,17 @@ def predicted(report: Mapping[str, Any], x: float | None) -> float | None:
 
 def orientation(outcome: OutcomeSpec) -> str:
     """One sentence saying what a higher index means."""
-    flipped = outcome.kind in ("binary", "continuous") and outcome.higher_is_better
-    what = {"survival": f"a higher predicted hazard of the event in '{outcome.title}'",
-            "ordinal": f"higher odds of a worse level of {outcome.title}",
-            "binary": f"{'lower' if flipped else 'higher'} predicted odds of {outcome.title}",
-            "continuous": f"a {'lower' if flipped else 'higher'} predicted {outcome.title}"}[outcome.kind]
+    family = _family(outcome)
+    flipped = family.flips and outcome.higher_is_better
+    what = family.orientation.format(title=outcome.title, direction="lower" if flipped else "higher")
     return f"Higher index = worse prognosis: {what}."
 
 
 def _discrimination(outcome: OutcomeSpec, target: Target, index: np.ndarray, level: float):
-    if outcome.kind == "survival":
+    if target.time is not None:
         return harrell_c(target.time, target.event, index, level)
     badness = np.asarray(target.y, float)
-    if outcome.kind in ("binary", "continuous") and outcome.higher_is_better:
+    if FAMILIES[target.family].flips and outcome.higher_is_better:
         badness = -badness
     return harrell_c(-badness, np.ones(len(badness)), index, level)
 
@@ -487,7 +497,7 @@ def _warnings(index: IndexSpec, outcome: OutcomeSpec, complete: np.ndarray, has_
         out.append(f"Index '{name}': {int(no_outcome.sum())} patients without '{outcome.name}' were left out of "
                    f"the fitting and take the value of a fold model assigned at random.")
     events = model.report["n_events"]
-    if outcome.kind == "binary":
+    if _family(outcome).events == "ones":  # the rarer of the two outcome groups
         events = min(events, model.report["n_fit"] - events)
     if events is not None and events < EVENTS_PER_COVARIATE * len(model.covariates):
         out.append(f"Index '{name}': {events} events for {len(model.covariates)} covariates (fewer than "

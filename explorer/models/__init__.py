@@ -1,21 +1,22 @@
-"""Per-arm outcome models behind one protocol (base.Fitted); `fit_model` picks the model for an outcome."""
+"""Per-arm outcome models behind one protocol (base.Fitted); `fit_model` picks the model for an outcome through
+the registry of outcome kinds (kinds.py), which also holds every other fact about a kind (`describe`)."""
 from __future__ import annotations
 
 import numpy as np
 
-from ..errors import FulcrumError
-from ..spec import OutcomeSpec
-from .base import Basis, Fitted, OutcomeData
+from .base import ArmLikelihood, Basis, Fitted, OutcomeData
 from .cox import CoxFit
 from .glm import LinearFit, LogisticFit
 from .ordinal import OrdinalFit
+from .kinds import KINDS, OutcomeFacts, OutcomeKind, describe, kind_of, register, unregister
 from .weibull import WeibullFit
 
-__all__ = ["fit_model", "Basis", "Fitted", "OutcomeData", "CoxFit", "WeibullFit", "OrdinalFit", "LogisticFit",
-           "LinearFit"]
+__all__ = ["fit_model", "Basis", "Fitted", "OutcomeData", "ArmLikelihood", "CoxFit", "WeibullFit", "OrdinalFit",
+           "LogisticFit", "LinearFit", "KINDS", "OutcomeFacts", "OutcomeKind", "describe", "kind_of", "register",
+           "unregister"]
 
 
-def fit_model(outcome: OutcomeSpec, arm: str, basis: Basis, data: OutcomeData, start: np.ndarray | None = None,
+def fit_model(outcome, arm: str, basis: Basis, data: OutcomeData, start: np.ndarray | None = None,
               robust: bool = False, *, checks: bool = True) -> Fitted:
     """Fit `outcome` in one arm along the index: design [basis(x), z], curves at z = data.z_ref
     (default: this arm's weighted mean of z; pass the same z_ref to both arms).
@@ -26,22 +27,4 @@ def fit_model(outcome: OutcomeSpec, arm: str, basis: Basis, data: OutcomeData, s
     fit). robust: sandwich covariance, cluster-robust when data.cluster is given. checks=False skips
     the proportional hazards / odds diagnostics (bootstrap replicates do not need them).
     """
-    kind = outcome.kind
-    if kind == "survival":
-        if outcome.horizon is None:
-            raise FulcrumError(f"survival outcome '{outcome.name}' needs a horizon.", key=f"outcomes '{outcome.name}'",
-                               hint="Add horizon = ... in the units of the time column.")
-        measure = outcome.measure or "survival"
-        if (outcome.model or "cox") == "weibull":
-            return WeibullFit(outcome.name, arm, basis, data, outcome.horizon, measure, start, robust)
-        return CoxFit(outcome.name, arm, basis, data, outcome.horizon, measure, start, robust, checks)
-    if kind == "ordinal":
-        favourable = outcome.favourable or outcome.levels[:-1]
-        return OrdinalFit(outcome.name, arm, basis, data, outcome.levels, favourable, start, robust, checks)
-    if kind == "binary":
-        return LogisticFit(outcome.name, arm, basis, data, start, robust)
-    if kind == "continuous":
-        return LinearFit(outcome.name, arm, basis, data, robust, bounded=outcome.bounds is not None)
-    raise FulcrumError(f"outcome '{outcome.name}' has an unknown kind '{kind}'.", key=f"outcomes '{outcome.name}'",
-                       hint="Use continuous, binary, ordinal or survival.")
-
+    return kind_of(outcome).fit(outcome, arm, basis, data, start, robust, checks)

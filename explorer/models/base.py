@@ -6,7 +6,7 @@ protocol, so none of them branches on the outcome kind.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Protocol, runtime_checkable
+from typing import Any, Callable, Protocol, runtime_checkable
 
 import numpy as np
 
@@ -98,6 +98,13 @@ class Fitted(Protocol):
     the link scale ("identity" | "logit" | "cloglog") and transformed back.
     linear_terms(): (coef, cov) of c0 + c1 x, a linear predictor on which the measure is a strictly
     monotone map of the same form in both arms, when the basis is linear and Fieller applies; else None.
+
+    For the trust checks (explorer.checks), without knowing which model this is:
+    likelihood(d, kernel): the log-likelihood this model maximised, rebuilt from its data `d`, as an
+    ArmLikelihood (its parameters, and which of them are the index terms); likelihood_kernel(d): reusable
+    bookkeeping of that likelihood (a Cox model's risk sets) or None; own_likelihood(): (loglik, gradient,
+    Hessian) kept from the fit, or None; at_horizon(h, d, kernel, baseline): the same fit read at another
+    horizon, without refitting; restricted_words: the model with index terms common to both arms, in words.
     """
 
     arm: str
@@ -119,6 +126,26 @@ class Fitted(Protocol):
     def linear_terms(self) -> tuple[np.ndarray, np.ndarray] | None: ...
 
     def measure_link(self) -> tuple[str, float | None]: ...
+
+    restricted_words: str
+
+    def likelihood(self, d: OutcomeData, kernel: Any = None) -> "ArmLikelihood": ...
+
+    def likelihood_kernel(self, d: OutcomeData) -> Any: ...
+
+    def own_likelihood(self) -> tuple | None: ...
+
+    def at_horizon(self, horizon: float, d: OutcomeData, kernel: Any = None, baseline: tuple | None = None
+                   ) -> "Fitted": ...
+
+
+@dataclass
+class ArmLikelihood:
+    """One arm's log-likelihood as a function of its parameters; `shared` are the index-term positions."""
+
+    fun: Callable
+    params: np.ndarray
+    shared: np.ndarray
 
 
 def numerical_jacobian(f, params: np.ndarray, x: np.ndarray, rel: float = 1e-6) -> np.ndarray:

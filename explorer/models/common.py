@@ -9,6 +9,7 @@ usual choice for inverse-probability weighting.
 """
 from __future__ import annotations
 
+import copy
 import functools
 from contextlib import nullcontext
 from dataclasses import dataclass
@@ -310,6 +311,20 @@ class ArmFit:
 
     def linear_terms(self) -> tuple[np.ndarray, np.ndarray] | None:
         return None
+
+    def likelihood_kernel(self, d: OutcomeData):
+        """Reusable bookkeeping of this model's likelihood (see base.Fitted); none for most models."""
+        return None
+
+    def own_likelihood(self) -> tuple | None:
+        """(loglik, gradient, Hessian) at params_ kept from the fit, or None (then the checks evaluate it)."""
+        return None
+
+    def at_horizon(self, horizon: float, d: OutcomeData, kernel=None, baseline: tuple | None = None):
+        """This fit read at another horizon without refitting (the coefficients do not depend on it)."""
+        view = copy.copy(self)
+        view.horizon = float(horizon)
+        return view
 
     def measure_link(self) -> tuple[str, float | None]:
         """(link, span): the measure lies in [0, span] and its band is built on this link scale (see

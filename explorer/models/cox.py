@@ -13,7 +13,7 @@ import numpy as np
 from scipy import stats
 
 from ..errors import FulcrumError
-from .base import Basis, OutcomeData
+from .base import ArmLikelihood, Basis, OutcomeData
 from .common import (ArmFit, at_risk_warning, check_rank, effect_size, events_per_term_warning, inverse,
                      linear_pair, newton, one_blas_thread, prepare, quad_form, sandwich)
 from .cox_kernel import CoxKernel
@@ -130,6 +130,35 @@ class CoxFit(ArmFit):
         if bad:
             self.warnings_.append(f"Proportional hazards look doubtful in arm '{self.arm}' for the terms: "
                                   f"{', '.join(bad)} (scaled Schoenfeld residuals against the rank of event time).")
+
+    # ---- likelihood, for the trust checks (base.Fitted) ---------------------------------
+    restricted_words = "a Cox model stratified by arm (arm-specific baseline hazards)"
+
+    def likelihood_kernel(self, d: OutcomeData) -> CoxKernel:
+        """The risk-set bookkeeping of this fit, rebuilt from its data."""
+        prep = prepare(self.basis, d, self.arm, self.outcome)
+        t, e = survival_arrays(d, self.arm, self.outcome)
+        return CoxKernel(t, e, prep.X, prep.w)
+
+    def likelihood(self, d: OutcomeData, kernel: CoxKernel | None = None) -> ArmLikelihood:
+        """The Efron partial log-likelihood; the index terms are the first basis columns."""
+        k = kernel if kernel is not None else self.likelihood_kernel(d)
+        return ArmLikelihood(k.evaluate, self.params_, np.arange(self.basis.n_columns))
+
+    def own_likelihood(self) -> tuple | None:
+        """Kept from the last Newton step, so the effect-modification test needs no new pass over the rows."""
+        h = getattr(self, "hessian_", None)
+        return None if h is None else (self.loglik_, self.score_, h)
+
+    def at_horizon(self, horizon: float, d: OutcomeData, kernel: CoxKernel | None = None,
+                   baseline: tuple | None = None) -> "CoxFit":
+        """Read at another horizon: the Breslow baseline up to it from `baseline` (the whole of
+        CoxKernel.baseline at params_, which serves every horizon) or from `kernel`."""
+        view = super().at_horizon(horizon, d)
+        if baseline is None:
+            baseline = (kernel or self.likelihood_kernel(d)).baseline(self.params_)
+        view._set_baseline(*baseline)
+        return view
 
     # ---- predictions -------------------------------------------------------------------
     def _centred(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

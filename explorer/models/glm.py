@@ -8,10 +8,12 @@ the cluster sum, with no small-sample factor.
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from ..errors import FulcrumError
-from .base import Basis, OutcomeData
+from .base import ArmLikelihood, Basis, OutcomeData
 from .common import (ArmFit, check_rank, effect_size, events_per_term_warning, expit, inverse, linear_pair, newton,
                      one_blas_thread, prepare, quad_form, sandwich)
 
@@ -26,6 +28,23 @@ def logistic_loglik(D: np.ndarray, y: np.ndarray, w: np.ndarray):
         p = expit(eta)
         g = D.T @ (w * (y - p))
         H = -(D.T * (w * p * (1 - p))) @ D
+        return ll, g, H
+    return fun
+
+
+def gaussian_loglik(D: np.ndarray, y: np.ndarray, w: np.ndarray):
+    """Normal linear model with parameters (beta, log sigma), the likelihood LinearFit maximises."""
+    def fun(theta: np.ndarray):
+        beta, s = theta[:-1], theta[-1]
+        e = y - D @ beta
+        inv = math.exp(-2 * s)
+        ll = float(w @ (-0.5 * math.log(2 * math.pi) - s - 0.5 * e * e * inv))
+        we = w * e
+        g = np.r_[D.T @ we * inv, float(w @ (e * e)) * inv - w.sum()]
+        H = np.empty((len(theta), len(theta)))
+        H[:-1, :-1] = -(D.T * w) @ D * inv
+        H[:-1, -1] = H[-1, :-1] = -2 * (D.T @ we) * inv
+        H[-1, -1] = -2 * float(w @ (e * e)) * inv
         return ll, g, H
     return fun
 
@@ -54,6 +73,10 @@ class _GlmFit(ArmFit):
     def _eta(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         D = self._design(x)
         return D @ self.params_, D
+
+    def _design_of(self, d: OutcomeData) -> tuple[np.ndarray, np.ndarray]:
+        prep = prepare(self.basis, d, self.arm, self.outcome)
+        return np.column_stack([np.ones(len(prep.w)), prep.X]), prep.w
 
     def linear_terms(self) -> tuple[np.ndarray, np.ndarray] | None:
         """c0 + c1 x on the linear-predictor scale (logit for binary, mean for continuous)."""
@@ -102,6 +125,14 @@ class LogisticFit(_GlmFit):
         self.warnings_ += events_per_term_warning(events, D.shape[1] - 1, arm, "patients in the rarer outcome group")
         self.method_ = (f"Logistic regression in arm '{arm}', {self._shape_words()}{self._held_at()}"
                         f"{self._cov_words()}; probability of the outcome.")
+
+    restricted_words = "a logistic model with arm-specific intercepts"
+
+    def likelihood(self, d: OutcomeData, kernel=None) -> ArmLikelihood:
+        """The logistic log-likelihood; the index terms follow the intercept."""
+        D, w = self._design_of(d)
+        return ArmLikelihood(logistic_loglik(D, np.asarray(d.y, float), w), self.params_,
+                             np.arange(1, self.basis.n_columns + 1))
 
     def measure(self, x: np.ndarray) -> np.ndarray:
         return expit(self._eta(x)[0])
@@ -156,6 +187,16 @@ class LinearFit(_GlmFit):
         cov = f"; {self.cov_kind_} sandwich standard errors{why}" if self.robust_ else ""
         self.method_ = (f"Linear regression in arm '{arm}', {self._shape_words()}{self._held_at()}{cov}; "
                         "mean outcome.")
+
+    restricted_words = "a linear model with arm-specific intercepts and residual variances"
+
+    def likelihood(self, d: OutcomeData, kernel=None) -> ArmLikelihood:
+        """The normal log-likelihood in (coefficients, log sigma), at the maximum-likelihood sigma."""
+        D, w = self._design_of(d)
+        y = np.asarray(d.y, float)
+        rss = float(w @ (y - D @ self.params_) ** 2)
+        return ArmLikelihood(gaussian_loglik(D, y, w), np.r_[self.params_, 0.5 * math.log(rss / w.sum())],
+                             np.arange(1, self.basis.n_columns + 1))
 
     def measure(self, x: np.ndarray) -> np.ndarray:
         return self._eta(x)[0]

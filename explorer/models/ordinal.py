@@ -11,7 +11,7 @@ import numpy as np
 from scipy import stats
 
 from ..errors import FulcrumError
-from .base import Basis, OutcomeData
+from .base import ArmLikelihood, Basis, OutcomeData
 from .common import (ArmFit, check_rank, effect_size, expit, inverse, linear_pair, newton, one_blas_thread, prepare,
                      quad_form, sandwich)
 from .glm import SEPARATION_SIZE, fit_logistic
@@ -214,6 +214,17 @@ class OrdinalFit(ArmFit):
                                   f"p = {pval:.2g}).")
 
     # ---- predictions -------------------------------------------------------------------
+    restricted_words = "a proportional odds model with arm-specific cut-points"
+
+    def likelihood(self, d: OutcomeData, kernel=None) -> ArmLikelihood:
+        """The proportional odds log-likelihood over the levels this arm reached; the index terms follow the
+        cut-points."""
+        prep = prepare(self.basis, d, self.arm, self.outcome)
+        yk = np.searchsorted(self.observed_, np.asarray(d.y, float).astype(int))
+        m = len(self.observed_) - 1
+        q = self.basis.n_columns
+        return ArmLikelihood(ordinal_loglik(prep.X, yk, prep.w, m + 1), self.params_, np.arange(m, m + q))
+
     def _parts(self, x: np.ndarray):
         R = self.rows(x)
         m = len(self.observed_) - 1

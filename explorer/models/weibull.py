@@ -11,7 +11,7 @@ import numpy as np
 from scipy.special import gamma as gamma_fn, gammainc
 
 from ..errors import FulcrumError
-from .base import Basis, OutcomeData, numerical_jacobian
+from .base import ArmLikelihood, Basis, OutcomeData, numerical_jacobian
 from .common import (ArmFit, at_risk_warning, check_rank, events_per_term_warning, inverse, newton,
                      one_blas_thread, prepare, quad_form, sandwich)
 from .cox import survival_arrays
@@ -89,6 +89,16 @@ class WeibullFit(ArmFit):
                         f"{self._held_at()}{self._cov_words()}; "
                         f"{'survival probability' if measure == 'survival' else 'restricted mean survival'} "
                         f"at {self.horizon:g}.")
+
+    restricted_words = "a Weibull model with arm-specific intercept and shape"
+
+    def likelihood(self, d: OutcomeData, kernel=None) -> ArmLikelihood:
+        """The Weibull log-likelihood; the index terms follow the intercept."""
+        prep = prepare(self.basis, d, self.arm, self.outcome)
+        t, e = survival_arrays(d, self.arm, self.outcome)
+        D = np.column_stack([np.ones(len(prep.w)), prep.X])
+        return ArmLikelihood(weibull_loglik(D, np.log(t), e, prep.w), self.params_,
+                             np.arange(1, self.basis.n_columns + 1))
 
     def _cumhaz(self, x: np.ndarray, params: np.ndarray) -> np.ndarray:
         mu = params[0] + self.rows(x) @ params[1:-1]

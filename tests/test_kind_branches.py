@@ -1,0 +1,138 @@
+"""One home for each fact about an outcome: outside explorer/models (and the spec and cohort readers, which parse
+kinds), no code branches on an outcome's kind or on a model class. It asks models.describe(outcome) for the facts
+(probability, range, horizon, levels, ...) or the fit itself (likelihood, horizon view, ...).
+
+The scan follows the project's house metric (common practice for this repository: the structure figures script
+the maintainers run): a comparison or `match` involving a name or attribute called `kind`, or an isinstance check
+against a class defined in explorer/models, counts as a branch.
+"""
+from __future__ import annotations
+
+import ast
+import collections
+import pathlib
+
+ROOT = pathlib.Path(__file__).resolve().parents[1]
+
+# Modules allowed to know outcome kinds: the models themselves, and the readers that parse them.
+ALLOWED = ("explorer/models/", "explorer/spec.py", "explorer/cohort.py")
+
+# Files still waiting for another helper of the redesign (issue 20), with how many branches each may keep.
+# Shrink-only: lower a number (or drop the line) as soon as the file is cleaned; never raise one or add a file.
+# The protocol call that replaces each is listed beside it.
+WAITING = {
+    # analysis.py moves into fitting.py (`layers`): outcome_data's survival/ordinal arrays ->
+    # models.kind_of(o).arrays(o, frame, rows) (checked below); _robust -> models.kind_of(o).robust(o);
+    # fieller_terms' identity -> the fits' measure_link()[0] == "identity".
+    "explorer/analysis.py": 4,
+    # results.measure_words moves into models (`layers`): survival/ordinal/binary words -> describe(o).
+    "explorer/results.py": 3,
+    # charts (`present`): the KM/axis branches -> describe(o).follow_up / .probability; line 1581 compares a chart
+    # record's own "kind" field (step, risk, base, horizon), not an outcome kind: rename it when charts are split.
+    "explorer/charts.py": 6,
+    # meeting and patient_summary (`present`): Prediction.kind == "survival" -> p.horizon is not None (patient.py
+    # sets it from describe(o).horizon); == "ordinal" -> any(e.distribution for e in p.arms.values()).
+    "explorer/meeting.py": 3,
+    "explorer/patient_summary.py": 3,
+    # report (`present`): row["kind"] != "survival" -> describe(o).follow_up.
+    "explorer/report/__init__.py": 1,
+    # appstate (`app`): the outcome table's per-kind cells -> describe(o).columns; survival lists -> follow_up.
+    "explorer/appstate.py": 6,
+    # the coverage study (`layers`): simulated scenario names, compared as scenarios (rename the variable).
+    "explorer/validation.py": 1,
+    "explorer/validation_fitted.py": 3,
+    # docs_gen compares a JSON-schema type name called kind ("object", "list"): rename the variable.
+    "explorer/docs_gen.py": 1,
+    # pages (`app`): page_values' ordinal list -> describe(o).levels, its composite form variable -> rename;
+    # page_outcomes' KM section -> describe(o).follow_up.
+    "pages/page_values.py": 2,
+    "pages/page_outcomes.py": 1,
+}
+
+
+def _model_classes() -> set[str]:
+    return {n.name for p in (ROOT / "explorer" / "models").rglob("*.py")
+            for n in ast.walk(ast.parse(p.read_text(encoding="utf-8"))) if isinstance(n, ast.ClassDef)}
+
+
+def _names_kind(node: ast.AST) -> bool:
+    return any((isinstance(n, ast.Name) and n.id == "kind") or (isinstance(n, ast.Attribute) and n.attr == "kind")
+               for n in ast.walk(node))
+
+
+def branches(tree: ast.AST, classes: set[str]) -> list[int]:
+    """Line numbers of the branches on a kind or a model class in one module."""
+    out = []
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Compare) and _names_kind(node):
+            out.append(node.lineno)
+        elif isinstance(node, ast.Match) and _names_kind(node.subject):
+            out.append(node.lineno)
+        elif (isinstance(node, ast.Call) and getattr(node.func, "id", "") == "isinstance" and len(node.args) == 2
+              and {n.id if isinstance(n, ast.Name) else n.attr for n in ast.walk(node.args[1])
+                   if isinstance(n, (ast.Name, ast.Attribute))} & classes):
+            out.append(node.lineno)
+    return out
+
+
+def scan() -> dict[str, list[int]]:
+    classes = _model_classes()
+    found = collections.defaultdict(list)
+    files = list((ROOT / "explorer").rglob("*.py")) + list((ROOT / "pages").rglob("*.py"))
+    for p in files:
+        rel = p.relative_to(ROOT).as_posix()
+        if rel.startswith(ALLOWED):
+            continue
+        lines = branches(ast.parse(p.read_text(encoding="utf-8")), classes)
+        if lines:
+            found[rel] = sorted(lines)
+    return dict(found)
+
+
+def test_the_scan_catches_each_form_of_branch():
+    code = ("if o.kind == 'survival': pass\n"
+            "match outcome.kind:\n    case 'binary': pass\n"
+            "isinstance(fit, CoxFit)\n"
+            "x = describe(o).probability\n")
+    assert sorted(branches(ast.parse(code), {"CoxFit"})) == [1, 2, 4]
+
+
+def test_no_new_branches_on_an_outcome_kind():
+    found = scan()
+    new = {f: lines for f, lines in found.items() if f not in WAITING}
+    assert not new, (f"code outside explorer/models branches on an outcome kind or a model class: {new}; ask "
+                     "models.describe(outcome) or the fit (see DEVELOPERS.md, 'The model protocol').")
+    grown = {f: (len(found[f]), WAITING[f]) for f in found if f in WAITING and len(found[f]) > WAITING[f]}
+    assert not grown, f"files waiting to be cleaned gained branches (found, allowed): {grown}"
+
+
+def test_the_waiting_list_only_shrinks():
+    found = scan()
+    stale = {f: (len(found.get(f, [])), n) for f, n in WAITING.items() if len(found.get(f, [])) < n}
+    assert not stale, f"these files have fewer branches than WAITING allows (found, allowed); lower it: {stale}"
+    assert len(WAITING) <= 12 and sum(WAITING.values()) <= 34
+
+
+def test_each_kind_gives_the_arrays_the_analysis_reads(demo_spec):
+    # The kinds' own arrays (for analysis.outcome_data once it asks them) equal what the analysis reads today,
+    # for every outcome of the demo (survival, ordinal, continuous; binary reads its column as continuous does).
+    import numpy as np
+
+    from explorer import analysis as an
+    from explorer import models
+    from explorer.cohort import load_cohort
+
+    cohort = load_cohort(demo_spec)
+    rows = np.arange(0, len(cohort.frame), 3)
+    x = np.zeros(len(cohort.frame))
+    kinds = set()
+    for o in demo_spec.outcomes:
+        want = an.outcome_data(demo_spec, cohort, o, x, rows, None)
+        got = models.kind_of(o).arrays(o, cohort.frame, rows)
+        kinds.add(models.describe(o).values)
+        for name in ("y", "time", "event"):
+            if getattr(want, name) is None:
+                assert name not in got
+            else:
+                np.testing.assert_array_equal(got[name], getattr(want, name))
+    assert kinds == {"time_event", "level", "number"}

@@ -317,15 +317,15 @@ SELECTION_SHIFT = (0.0, 0.1)  # the set effect: chosen first-arm patients' linea
 SELECTION_KINDS = ("continuous", "binary")
 
 
-def _selection_arm(kind: str, x: np.ndarray, arm: int, shift: np.ndarray, rng) -> np.ndarray:
-    if kind == "continuous":
+def _selection_arm(sim: str, x: np.ndarray, arm: int, shift: np.ndarray, rng) -> np.ndarray:
+    if sim == "continuous":
         a, b, s = CONT[arm]
         return a + b * x + shift + rng.normal(0, s, len(x))
     a, b = BIN[arm]
     return (rng.uniform(size=len(x)) < expit(a + b * x + shift)).astype(float)
 
 
-def selection_study(kind: str, n: int, effect: bool, spec: Spec, rng: np.random.Generator) -> dict:
+def selection_study(sim: str, n: int, effect: bool, spec: Spec, rng: np.random.Generator) -> dict:
     """A cohort where a quarter are randomised and the rest choose (the frail more often the second arm).
 
     Without effect, chosen and randomised patients share each arm's outcome model; with it, chosen first-arm
@@ -337,8 +337,8 @@ def selection_study(kind: str, n: int, effect: bool, spec: Spec, rng: np.random.
     shift = np.where(effect & ~rand & first, SELECTION_SHIFT[0] + SELECTION_SHIFT[1] * x, 0.0)
     y = np.empty(n)
     for arm, mask in ((0, first), (1, ~first)):
-        y[mask] = _selection_arm(kind, x[mask], arm, shift[mask], rng)
-    sc = Scenario(kind, OUTCOMES[kind], sim_continuous, math.nan)
+        y[mask] = _selection_arm(sim, x[mask], arm, shift[mask], rng)
+    sc = Scenario(sim, OUTCOMES[sim], sim_continuous, math.nan)
     masks = {"first": first, "second": ~first}
     try:
         pairs = {who: pair_of(sc, {arm: OutcomeData(x=x[m & keep], y=y[m & keep]) for arm, m in masks.items()})

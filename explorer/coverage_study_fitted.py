@@ -47,7 +47,7 @@ FOLDS = 5
 REFITTED = "refitted"
 
 
-def simulate(kind: str, n: int, rng: np.random.Generator) -> pd.DataFrame:
+def simulate(sim: str, n: int, rng: np.random.Generator) -> pd.DataFrame:
     """n patients, half per arm: covariates, arm and the outcome drawn from the true linear predictor."""
     Z = np.column_stack([rng.normal(size=(n, 3)), rng.uniform(size=n) < 0.4]).astype(float)
     eta = Z @ GAMMA
@@ -55,7 +55,7 @@ def simulate(kind: str, n: int, rng: np.random.Generator) -> pd.DataFrame:
     frame = pd.DataFrame(Z, columns=list(COVARIATES))
     frame["arm"] = arm
     first = arm == ARMS[0]
-    if kind == "survival":
+    if sim == "survival":
         a = np.where(first, SURV_F["first"][0], SURV_F["second"][0])
         b = np.where(first, SURV_F["first"][1], SURV_F["second"][1])
         t = rng.exponential(1.0 / np.exp(a + b * eta))
@@ -68,18 +68,18 @@ def simulate(kind: str, n: int, rng: np.random.Generator) -> pd.DataFrame:
     return frame
 
 
-def true_absolute(kind: str) -> float:
+def true_absolute(sim: str) -> float:
     """The second arm's absolute prediction at the true break-even, oriented like the index (higher = worse):
     log cumulative hazard at the horizon (survival), log odds of y = 0 (binary)."""
-    if kind == "survival":
+    if sim == "survival":
         a, b = SURV_F["second"]
         return math.log(HORIZON) + a + b * ETA_STAR
     a, b = BIN_F["second"]
     return -(a + b * ETA_STAR)
 
 
-def study_spec(kind: str) -> Spec:
-    return Spec(cohort=CohortSpec(path=Path("simulated.csv"), arm="arm", arms=ARMS), outcomes=(OUTCOMES[kind],),
+def study_spec(sim: str) -> Spec:
+    return Spec(cohort=CohortSpec(path=Path("simulated.csv"), arm="arm", arms=ARMS), outcomes=(OUTCOMES[sim],),
                 indices=(IndexSpec("score", prognostic=PrognosticSpec("y", COVARIATES, "second", FOLDS)),),
                 analysis=AnalysisSpec())
 
@@ -95,10 +95,10 @@ def _summary(pf: ft.PairFit, spec: Spec, base, kept: list) -> tuple:
     return ft.bootstrap_summary(pf, spec, diffs, firsts, seconds, base)
 
 
-def one_study(kind: str, n: int, boot: int, rng: np.random.Generator) -> dict:
+def one_study(sim: str, n: int, boot: int, rng: np.random.Generator) -> dict:
     """One simulated cohort: the analytic interval, and with boot > 0 both bootstraps, around the mapped truth."""
-    spec = study_spec(kind)
-    frame = simulate(kind, n, rng)
+    spec = study_spec(sim)
+    frame = simulate(sim, n, rng)
     seed = int(rng.integers(0, 2**31 - 1))
     try:
         values, model, _ = cross_fitted_index(spec.indices[0], frame, spec, key="indices[0]", seed=seed, level=0.95)
@@ -106,7 +106,7 @@ def one_study(kind: str, n: int, boot: int, rng: np.random.Generator) -> dict:
         data = {}
         for arm, r in rows.items():
             d = OutcomeData(x=values[r])
-            if kind == "survival":
+            if sim == "survival":
                 d.time, d.event = frame["t"].to_numpy()[r], frame["e"].to_numpy()[r]
             else:
                 d.y = frame["y"].to_numpy()[r]
@@ -120,7 +120,7 @@ def one_study(kind: str, n: int, boot: int, rng: np.random.Generator) -> dict:
     except FIT_ERRORS as exc:
         return {"failed": f"{type(exc).__name__}: {exc}"}
     refitter = model.refitter(frame, spec)
-    truth = true_absolute(kind) - model.sign * refitter.offset
+    truth = true_absolute(sim) - model.sign * refitter.offset
     out: dict = {"truth": truth, "converged": all(f.converged_ for f in pf.fits.values()),
                  "index_converged": bool(model.report["converged"])}
     if not s.break_even:
@@ -157,21 +157,21 @@ def _shifted(rec, truth: float):
     return (x - truth, None if lo is None else lo - truth, None if hi is None else hi - truth, shape)
 
 
-def coverage_rows(kind: str, n: int, recs: list[dict], boot: int) -> list[dict]:
+def coverage_rows(sim: str, n: int, recs: list[dict], boot: int) -> list[dict]:
     """Rows like validation.coverage_rows: the analytic method and the bootstrap holding the index fixed under
     '<kind>, fitted index', the bootstrap refitting it under '<kind>, fitted index, refitted'."""
     ok = [r for r in recs if "failed" not in r]
     failed = len(recs) - len(ok)
     with_boot = [r for r in ok if REFITTED in r]
-    methods = [(m, fitted_scenario(kind), ok, None) for m in dict.fromkeys(r["analytic_method"] for r in ok
+    methods = [(m, fitted_scenario(sim), ok, None) for m in dict.fromkeys(r["analytic_method"] for r in ok
                                                                          if r.get("analytic_method"))]
-    methods += [(REFITTED, fitted_scenario(kind, True), with_boot, boot)]
+    methods += [(REFITTED, fitted_scenario(sim, True), with_boot, boot)]
     out = []
     for method, name, part, resamples in methods:
         if not part:
             continue
         summ = summarise_method([_shifted(r.get(method), r["truth"]) for r in part], 0.0)
-        out.append({"scenario": name, "kind": kind, "method": BOOT if method == REFITTED else method, "n": n,
+        out.append({"scenario": name, "kind": sim, "method": BOOT if method == REFITTED else method, "n": n,
                     "replicates": len(part), "failed": failed,
                     "not_converged": sum(not r.get("converged", True) or not r.get("index_converged", True)
                                          for r in part),
@@ -180,23 +180,23 @@ def coverage_rows(kind: str, n: int, recs: list[dict], boot: int) -> list[dict]:
     return out
 
 
-def _task(kind: str, n: int, boot_until: int, boot: int, rng: np.random.Generator) -> dict:
+def _task(sim: str, n: int, boot_until: int, boot: int, rng: np.random.Generator) -> dict:
     study = int(rng.bit_generator.seed_seq.spawn_key[-1])
-    return one_study(kind, n, boot if study < boot_until else 0, rng)
+    return one_study(sim, n, boot if study < boot_until else 0, rng)
 
 
 def run(studies: int = 1000, boot_studies: int = 500, boot: int = 100, n: int = 1000, seed: int = 20261202,
         kinds=KINDS, records: str | None = None, log=print) -> list[dict]:
-    """Every fitted-index coverage row; the first boot_studies studies of each kind also run both bootstraps."""
+    """Every fitted-index coverage row; the first boot_studies studies of each simulated kind also run both bootstraps."""
     rows = []
-    for kind in kinds:
+    for sim in kinds:
         t0 = time.time()
-        task = functools.partial(_task, kind, n, boot_studies, boot)
+        task = functools.partial(_task, sim, n, boot_studies, boot)
         if records:
-            task = functools.partial(_logged, task, records, {"kind": kind, "n": n, "boot": boot})
-        recs = run_replicates(task, studies, seed + KINDS.index(kind))
-        rows += coverage_rows(kind, n, recs, boot)
-        log(f"{kind}: {studies} studies in {time.time() - t0:.0f} s")
+            task = functools.partial(_logged, task, records, {"kind": sim, "n": n, "boot": boot})
+        recs = run_replicates(task, studies, seed + KINDS.index(sim))
+        rows += coverage_rows(sim, n, recs, boot)
+        log(f"{sim}: {studies} studies in {time.time() - t0:.0f} s")
     return rows
 
 
@@ -204,11 +204,11 @@ def run_backwards(studies: int, n: int, seed: int, kinds, records: str, boot: in
     """Studies from the last one down, kinds in turn, logged to `records` (with boot > 0 every study runs the
     bootstrap): run beside run() with the same seed, the two meet in the middle and every study is one cohort, so
     an interrupted pair of runs still covers both kinds and rows_from_records counts each study once."""
-    seeds = {kind: np.random.SeedSequence(seed + KINDS.index(kind)).spawn(studies) for kind in kinds}
+    seeds = {sim: np.random.SeedSequence(seed + KINDS.index(sim)).spawn(studies) for sim in kinds}
     for i in reversed(range(studies)):
-        for kind in kinds:
-            _logged(functools.partial(_task, kind, n, studies if boot else 0, boot), records,
-                    {"kind": kind, "n": n, "boot": boot}, np.random.default_rng(seeds[kind][i]))
+        for sim in kinds:
+            _logged(functools.partial(_task, sim, n, studies if boot else 0, boot), records,
+                    {"kind": sim, "n": n, "boot": boot}, np.random.default_rng(seeds[sim][i]))
 
 
 def _logged(task, path: str, key: dict, rng: np.random.Generator) -> dict:
@@ -219,7 +219,7 @@ def _logged(task, path: str, key: dict, rng: np.random.Generator) -> dict:
 
 
 def rows_from_records(paths: list[str], boot: int) -> list[dict]:
-    """Coverage rows from record files written by run(records=...) or run_backwards, each (kind, study) counted
+    """Coverage rows from record files written by run(records=...) or run_backwards, each (sim, study) counted
     once (a study with a bootstrap wins over the same study without)."""
     groups: dict[tuple, dict] = {}
     for path in paths:
@@ -232,7 +232,7 @@ def rows_from_records(paths: list[str], boot: int) -> list[dict]:
             known = groups.setdefault((d["kind"], d["n"]), {})
             if d["study"] not in known or REFITTED in rec:
                 known[d["study"]] = rec
-    return [r for (kind, n), recs in groups.items() for r in coverage_rows(kind, n, list(recs.values()), boot)]
+    return [r for (sim, n), recs in groups.items() for r in coverage_rows(sim, n, list(recs.values()), boot)]
 
 
 SCENARIO_WORDS = (

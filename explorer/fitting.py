@@ -22,7 +22,7 @@ from . import breakeven as be
 from .cohort import Cohort, load_cohort
 from .errors import FulcrumError
 from .indices import IndexValues, compute_index, needed_columns
-from .models import fit_model
+from .models import fit_model, kind_of
 from .models.base import Basis, Fitted, OutcomeData
 from .numeric import captured
 from .population import Population, resolve
@@ -89,13 +89,8 @@ def outcome_data(spec: Spec, cohort: Cohort, outcome: OutcomeSpec, x: np.ndarray
     """The cleaned arrays of one outcome for the given cohort rows (positions)."""
     f = cohort.frame
     d = OutcomeData(x=np.asarray(x[rows], float))
-    if outcome.kind == "survival":
-        d.time = f[outcome.time].to_numpy(float)[rows]
-        d.event = f[outcome.event].to_numpy(float)[rows]
-    elif outcome.kind == "ordinal":
-        d.y = np.asarray(f[outcome.column].cat.codes.to_numpy()[rows], float)
-    else:
-        d.y = f[outcome.column].to_numpy(float)[rows]
+    for name, values in kind_of(outcome).arrays(outcome, f, rows).items():
+        setattr(d, name, values)
     if outcome.adjust:
         d.z = adjustment_rows(f, outcome, rows)
         d.z_names = tuple(outcome.adjust)
@@ -128,7 +123,7 @@ class SharedData:
 
 
 def robust_for(spec: Spec, outcome: OutcomeSpec) -> bool:
-    return bool(spec.cohort.cluster) or (outcome.kind == "continuous" and outcome.bounds is not None)
+    return bool(spec.cohort.cluster) or kind_of(outcome).robust(outcome)
 
 
 def fit_pair(spec: Spec, cohort: Cohort, outcome: OutcomeSpec, index: IndexValues, basis: Basis,
@@ -263,7 +258,7 @@ def fieller_terms(pf: PairFit, margin: float) -> tuple[float, float, np.ndarray]
     t1, t2 = first.linear_terms(), second.linear_terms()
     if t1 is None or t2 is None:
         return None
-    identity = pf.outcome.kind == "continuous"
+    identity = first.measure_link()[0] == "identity"  # a mean: the line is the measure itself
     if margin != 0.0 and not identity:
         return None
     (c1, v1), (c2, v2) = t1, t2

@@ -14,7 +14,7 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from explorer import analysis as an
+from explorer import fitting as an
 from explorer import checks as ck
 from explorer import models
 from explorer.models.base import ArmLikelihood, Basis, OutcomeData

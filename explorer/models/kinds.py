@@ -4,8 +4,8 @@ Each kind (continuous, binary, ordinal, survival) is a small class registered in
 models asks `describe(outcome)` (an OutcomeFacts: is the measure a probability, its range, its horizon, its
 levels, which columns it reads, ...) or `kind_of(outcome).fit(...)`, and never compares `outcome.kind` itself.
 Adding a kind means one class here (or `register(...)` from elsewhere, as tests/test_toy_kind.py does) and the
-spec's parsing of its keys. This module imports nothing from explorer but errors, so the spec's margin checks
-can use it while parsing.
+spec's parsing of its keys. The models import nothing from explorer but errors, so the spec's margin checks
+(explorer/margins.py) can use these facts while parsing.
 """
 from __future__ import annotations
 
@@ -13,6 +13,10 @@ from dataclasses import dataclass
 from typing import Any
 
 from ..errors import FulcrumError
+from .cox import CoxFit
+from .glm import LinearFit, LogisticFit
+from .ordinal import OrdinalFit
+from .weibull import WeibullFit
 
 
 @dataclass(frozen=True)
@@ -92,7 +96,6 @@ class Continuous(OutcomeKind):
                             "value", "number", "linear")
 
     def fit(self, o, arm, basis, data, start=None, robust=False, checks=True):
-        from .glm import LinearFit
         return LinearFit(o.name, arm, basis, data, robust, bounded=o.bounds is not None)
 
     def robust(self, o: Any) -> bool:
@@ -108,7 +111,6 @@ class Binary(OutcomeKind):
                             "zero_one", "logistic")
 
     def fit(self, o, arm, basis, data, start=None, robust=False, checks=True):
-        from .glm import LogisticFit
         return LogisticFit(o.name, arm, basis, data, start, robust)
 
 
@@ -127,7 +129,6 @@ class Ordinal(OutcomeKind):
         return {"y": frame[o.column].cat.codes.to_numpy()[rows].astype(float)}
 
     def fit(self, o, arm, basis, data, start=None, robust=False, checks=True):
-        from .ordinal import OrdinalFit
         f = self.describe(o)
         return OrdinalFit(o.name, arm, basis, data, f.levels, f.favourable, start, robust, checks)
 
@@ -151,8 +152,6 @@ class Survival(OutcomeKind):
         return {"time": frame[o.time].to_numpy(float)[rows], "event": frame[o.event].to_numpy(float)[rows]}
 
     def fit(self, o, arm, basis, data, start=None, robust=False, checks=True):
-        from .cox import CoxFit
-        from .weibull import WeibullFit
         if o.horizon is None:
             raise FulcrumError(f"survival outcome '{o.name}' needs a horizon.", key=f"outcomes '{o.name}'",
                                hint="Add horizon = ... in the units of the time column.")

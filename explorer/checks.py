@@ -670,6 +670,19 @@ def km_curves(cohort: Cohort, outcome: OutcomeSpec | str, index: IndexValues | n
     return out
 
 
+def km_rows(fs: an.FitSet, bands: int = BANDS) -> list[dict]:
+    """The JSON `kaplan_meier` rows: per survival outcome, each arm's curve over all patients (index null), then
+    for each index its curves in `bands` bands of the index (km_curves rows, each naming its index; none when
+    bands is 0)."""
+    level = fs.spec.analysis.level
+    out: list[dict] = []
+    for o in (o for o in fs.spec.outcomes if o.kind == "survival"):
+        out += [dict(c, index=None) for c in km_curves(fs.cohort, o, level=level)]
+        for name, iv in (fs.indices.items() if bands else ()):
+            out += [dict(c, index=name) for c in km_curves(fs.cohort, o, iv, bands=bands, level=level) if c["band"]]
+    return out
+
+
 # ------------------------------------------------------------------------------------------
 # Baseline characteristics by arm and allocation
 # ------------------------------------------------------------------------------------------

@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 from typing import Any, Mapping, Sequence
 from xml.sax.saxutils import escape
 
-from .charts import fmt, words
+from .words import fmt, words
 from .patient import PatientView, Prediction, count_of_100
 
 

@@ -17,7 +17,7 @@ from scipy import stats
 
 from . import breakeven as be
 from .analysis import SPARSE_SHARE, STRETCHES, FitSet, PairFit
-from .charts import fmt, per_hundred, words
+from .words import fmt, per_hundred, words
 from .conversation import WHO_SHORT, ValuesRecord
 from .errors import FulcrumError
 from .margins import on_probability_scale
@@ -758,23 +758,3 @@ def patient_lines(doc: dict) -> list[str]:
     out.extend(f"warning: {w}" for w in doc.get("warnings", []))
     out.append("Caution: " + " ".join(doc["cautions"]))
     return out
-
-
-# ------------------------------------------------------------------------------------------
-# The printable summary (explorer/patient_summary.py: content and HTML; explorer/patient_pdf.py: PDF)
-# ------------------------------------------------------------------------------------------
-def patient_summary_html(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None
-                         ) -> str:
-    """The printable HTML summary (see patient_summary.summary_html)."""
-    from .patient_summary import summary_html
-
-    return summary_html(view, cautions, identifiers=identifiers)
-
-
-def patient_summary_pdf(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None
-                        ) -> bytes:
-    """The same summary as a PDF (drawn with reportlab, offline)."""
-    from .patient_pdf import summary_pdf
-    from .patient_summary import summary_content
-
-    return summary_pdf(summary_content(view, cautions, identifiers=identifiers))

@@ -5,7 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any, Mapping, Sequence
 
-from .charts import fmt, per_hundred, words
+from .words import fmt, per_hundred, words
 from .patient import Placement, Prediction, PatientView, ValueJudgement, count_of_100
 
 
@@ -82,7 +82,7 @@ class Summary:
 def summary_content(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None
                     ) -> Summary:
     """The summary's content along the primary index."""
-    from .charts import state_colours
+    from .charts_common import state_colours
 
     arrays = []
     for p in _icon_outcomes(view):
@@ -110,7 +110,7 @@ def summary_html(view: PatientView, cautions: Sequence[str], *, identifiers: Map
     intervals, the values used and whose they are, the favoured arm and how firmly, and the cautions."""
     from markupsafe import Markup
 
-    from .charts import chart_to_svg
+    from .charts_common import chart_to_svg
     from .charts_patient import per_hundred_chart
     from .report import render_template
 

@@ -21,7 +21,7 @@ ws, patient = ui.page_head(
 conv = ui.engine("conversation")
 summary = ui.engine("patient_summary")
 arms = list(ws.spec.cohort.arms)
-charts = ui.engine("charts")
+ch_curves = ui.engine("charts_curves")
 per100 = ui.engine("charts_patient")
 fs = ui.fitted(ws)
 if fs is None:
@@ -213,8 +213,8 @@ for p in preds:
         st.caption(aps.md_escape(ui.description(chart) or ""))
     with st.expander("On the curve, and the numbers"):
         row_json = curve_rows.get((p.outcome, index))
-        if charts is not None and row_json is not None:
-            ui.altair(charts.outcome_chart(row_json, arms, patient=marker, index_label=titles[index]))
+        if ch_curves is not None and row_json is not None:
+            ui.altair(ch_curves.outcome_chart(row_json, arms, patient=marker, index_label=titles[index]))
         table = summary.outcome_table(p, arms)
         st.dataframe([{"": r[0], **dict(zip(arms, r[1:]))} for r in table], hide_index=True, width="stretch")
 
@@ -230,11 +230,11 @@ note = "with the name or number added" if identifiers else "no identifiers"
 c1, c2, c3 = st.columns(3)
 with c1:  # made when clicked, so moving a weight never waits for the files
     st.download_button(f"Printable summary (.html, {note})", file_name="patient_summary.html", mime="text/html",
-                       data=lambda: patient.patient_summary_html(view, CAUTIONS, **kwargs), on_click="ignore",
+                       data=lambda: summary.summary_html(view, CAUTIONS, **kwargs), on_click="ignore",
                        icon=":material/print:")
 with c2:
     st.download_button(f"Summary as PDF ({note})", file_name="patient_summary.pdf", mime="application/pdf",
-                       data=lambda: patient.patient_summary_pdf(view, CAUTIONS, **kwargs), on_click="ignore",
+                       data=lambda: ui.engine("patient_pdf").view_pdf(view, CAUTIONS, **kwargs), on_click="ignore",
                        icon=":material/picture_as_pdf:")
 with c3:
     st.download_button(f"Patient view (.json, {note})", file_name="patient_view.json", mime="application/json",

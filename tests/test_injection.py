@@ -170,11 +170,12 @@ def test_report_escapes_labels_levels_names_and_columns(hostile) -> None:
 
 
 def test_patient_summary_escapes_labels(hostile) -> None:
-    from explorer.patient import patient_summary_html, place_patient
+    from explorer.patient import place_patient
+    from explorer.patient_summary import summary_html
 
     _, _, result = hostile
     view = place_patient(result.fitset, row=0)
-    html = patient_summary_html(view, CAUTIONS)
+    html = summary_html(view, CAUTIONS)
     for payload in (XSS1, XSS2, XSS3, "<img src=x"):
         assert payload not in html, payload
     assert "&lt;script&gt;window.__pwned=1&lt;/script&gt;" in html

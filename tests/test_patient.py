@@ -15,8 +15,9 @@ from scipy import stats
 
 from explorer import CAUTIONS
 from explorer.analysis import fit_all
-from explorer.charts import fmt
-from explorer.patient import PatientView, patient_summary_html, place_patient
+from explorer.words import fmt
+from explorer.patient import PatientView, place_patient
+from explorer.patient_summary import summary_html
 from explorer.spec import load_spec
 
 NUMBER = re.compile(r"-?\d+(?:\.\d+)?")
@@ -155,9 +156,9 @@ def test_no_identifiers_unless_asked(fs):
     assert "identifiers" not in v.to_json()
     with_ids = json.dumps(v.to_json(identifiers={"record": pid}))
     assert pid in with_ids
-    html = patient_summary_html(v, CAUTIONS)
+    html = summary_html(v, CAUTIONS)
     assert pid not in html
-    assert pid in patient_summary_html(v, CAUTIONS, identifiers={"record": pid})
+    assert pid in summary_html(v, CAUTIONS, identifiers={"record": pid})
 
 
 def test_outside_the_cohort_range_is_a_limit(fs, view):
@@ -255,7 +256,7 @@ def test_per_hundred_rows_show_outcomes_at_one_horizon_with_the_engines_counts(f
 
 
 def test_summary_page_is_escaped_and_carries_cautions(view):
-    html = patient_summary_html(view, CAUTIONS, identifiers={"name": "<script>alert(1)</script>"})
+    html = summary_html(view, CAUTIONS, identifiers={"name": "<script>alert(1)</script>"})
     assert "<script>alert" not in html and "&lt;script&gt;alert(1)&lt;/script&gt;" in html
     assert html.count("<svg") == 2  # one per outcome, both arms' rows in it
     for caution in CAUTIONS:
@@ -275,13 +276,13 @@ def test_summary_pdf_says_what_the_view_says(fs):
     import html as htmllib
 
     from explorer.conversation import record_conversation
-    from explorer.patient import patient_summary_pdf
+    from explorer.patient_pdf import view_pdf
 
     levels = fs.spec.outcome("function").levels
     rec = record_conversation(levels, ["independent"], ["bedbound"], whose="proxy", when="2026-03-03T14:05",
                               recorded_by="the ward registrar")
     v = place_patient(fs, {"cfs": 9, "age": 101}, record=rec)
-    data = patient_summary_pdf(v, CAUTIONS)
+    data = view_pdf(v, CAUTIONS)
     assert data.startswith(b"%PDF-")
     text = _pdf_text(data)
     flat = lambda t: " ".join(t.split())  # noqa: E731
@@ -295,7 +296,7 @@ def test_summary_pdf_says_what_the_view_says(fs):
         if p.index == v.primary_index:
             assert flat(p.sentence) in text
     hostile = {"name": "<b>Ann</b> & <font size=40>x</font>"}
-    marked = _pdf_text(patient_summary_pdf(v, CAUTIONS, identifiers=hostile))
+    marked = _pdf_text(view_pdf(v, CAUTIONS, identifiers=hostile))
     assert htmllib.unescape("&lt;b&gt;Ann&lt;/b&gt; &amp; &lt;font size=40&gt;x&lt;/font&gt;") in marked
     assert "Ann" not in text
 
@@ -312,7 +313,7 @@ def test_summary_carries_the_values_record(fs):
     doc = json.loads(json.dumps(v.to_json()))
     assert doc["values_record"]["answers"]["worse_than_death"] == ["bedbound"]
     assert doc["values_record"]["source"] == "conversation" and doc["values_record"]["when"] == "2026-03-03T14:05"
-    html = patient_summary_html(v, CAUTIONS)
+    html = summary_html(v, CAUTIONS)
     for line in rec.sentences():
         assert line.replace("'", "&#39;") in html, line
 

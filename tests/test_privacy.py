@@ -26,7 +26,8 @@ from explorer import CAUTIONS, demo, results
 from explorer.analysis import analyse
 from explorer.cli import main
 from explorer.cohort import load_cohort
-from explorer.patient import patient_summary_html, place_patient
+from explorer.patient import place_patient
+from explorer.patient_summary import summary_html
 from explorer.spec import load_spec
 
 ID = re.compile(r"ZQ\d{5}X")
@@ -126,8 +127,8 @@ def test_patient_views_carry_no_identifiers_unless_asked(result) -> None:
         pid = f"ZQ{row:05d}X"
         view = place_patient(result.fitset, row=row)
         assert not leaked(json.dumps(view.to_json(), default=str))
-        assert not leaked(patient_summary_html(view, CAUTIONS))
-        assert leaked(patient_summary_html(view, CAUTIONS, identifiers={"record": pid})) == [pid]
+        assert not leaked(summary_html(view, CAUTIONS))
+        assert leaked(summary_html(view, CAUTIONS, identifiers={"record": pid})) == [pid]
 
 
 @pytest.mark.browser

@@ -10,7 +10,7 @@ import pytest
 import textstat
 
 from explorer.analysis import fit_all
-from explorer.charts import fmt
+from explorer.words import fmt
 from explorer.conversation import questions, record_conversation
 from explorer.patient import place_patient
 from explorer.spec import load_spec

@@ -14,7 +14,8 @@ import pytest
 
 from explorer import CAUTIONS, demo
 from explorer.analysis import analyse
-from explorer.report import Section, render_report, script_json, write_report
+from explorer.report import (Section, chart_payload, embedded_results, render_report, script_json, unpacked,
+                             write_report)
 from explorer.spec import load_spec
 
 ATTR_URL = re.compile(r"""\b(?:src|href|action|xlink:href)\s*=\s*["']?\s*(?:https?:)?//""", re.I)
@@ -79,8 +80,11 @@ def test_report_is_self_contained(html):
         if key in ("src", "href"):
             assert not re.match(r"\s*(https?:)?//", value), (tag, key, value)
     assert "<link" not in html and "@import" not in html
-    bundle = [text for attrs, text in parsed.scripts if not attrs]
-    assert any("vegaEmbed" in text and len(text) > 100_000 for text in bundle)
+    packed = {attrs.get("id"): text for attrs, text in parsed.scripts if attrs.get("type") == "application/octet-stream"}
+    assert set(packed) == {"fulcrum-results", "fulcrum-charts", "fulcrum-vega"}
+    assert all(re.fullmatch(r"[A-Za-z0-9+/=]+", text) for text in packed.values())  # base64: nothing can close <script>
+    bundle = unpacked(packed["fulcrum-vega"])
+    assert "vegaEmbed" in bundle and len(bundle) > 100_000
 
 
 def test_cautions_top_and_bottom(html):
@@ -92,16 +96,19 @@ def test_cautions_top_and_bottom(html):
 
 
 def test_embedded_json_parses_back(result, html):
-    scripts = {attrs.get("id"): text for attrs, text in _parsed(html).scripts if attrs.get("type") == "application/json"}
-    doc = json.loads(scripts["fulcrum-results"])
-    assert doc["arms"] == result.document["arms"]
+    doc = embedded_results(html)
+    assert doc == json.loads(json.dumps(result.document))  # the whole results document, as the JSON file has it
     assert [r["outcome"] for r in doc["results"]] == [r["outcome"] for r in result.document["results"]]
     assert doc["results"][0]["break_even"] == result.document["results"][0]["break_even"]
-    charts = json.loads(scripts["fulcrum-charts"])
+    charts = chart_payload(html)["charts"]
     ids = re.findall(r'<div id="(chart-\d+)" role="img"', html)
     assert [c["id"] for c in charts] == ids and len(ids) >= len(result.document["results"])
     for c in charts[:3]:
         alt.Chart.from_dict(c["spec"]) if "mark" in c["spec"] else alt.LayerChart.from_dict(c["spec"])
+    for c in charts:  # every chart's data is there, kept to four significant figures
+        for rows in c["spec"]["datasets"].values():
+            for r in rows:
+                assert all(v == float(f"{v:.4g}") for v in r.values() if isinstance(v, float)), r
 
 
 def test_provenance_spec_and_versions(result, html):
@@ -180,12 +187,10 @@ def test_script_tags_in_labels_levels_and_names_are_escaped(tmp_path):
     assert "<script>alert" not in html
     for k in (1, 2, 3, 4):
         assert f"&lt;script&gt;alert({k})&lt;/script&gt;" in html, k
-    assert "\\u003cscript\\u003ealert(1)" in html
-    scripts = {attrs.get("id"): text for attrs, text in _parsed(html).scripts if attrs.get("type") == "application/json"}
-    doc = json.loads(scripts["fulcrum-results"])
+    doc = embedded_results(html)
     assert doc["arms"][0] == ATTACK
-    charts = json.loads(scripts["fulcrum-charts"])
-    assert any(ATTACK in json.dumps(c["spec"]) for c in charts)
+    charts = chart_payload(html)
+    assert any(ATTACK in json.dumps(c["spec"]) for c in charts["charts"])
 
 
 @pytest.mark.browser

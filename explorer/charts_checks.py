@@ -9,7 +9,7 @@ import altair as alt
 import pandas as pd
 
 from .charts_common import (ARM_LEGEND, AXIS_CHARS, FONT, HEIGHT, WIDTH, _arm_scale, _chart, _finish, _quick, _sized,
-                            check_for, index_label_of, is_discrete, outcome_title, x_title)
+                            check_for, index_label_of, is_discrete, is_probability, outcome_title, x_title)
 from .charts_curves import breakeven_table, curve_frame, difference_frame
 from .look import INK, OKABE_ITO
 from .words import cap, fmt, interval_words, ordinal, percentile_words, words, wrap
@@ -94,8 +94,7 @@ def observed_fitted_chart(check: Mapping[str, Any], arms: Sequence[str], row: Ma
     diamonds mark the band's mean fitted value (each patient's own covariates)."""
     df = observed_frame(check, arms)
     colour = alt.Color("arm:N", scale=_arm_scale(arms), legend=ARM_LEGEND)
-    probability = str(check.get("measure", "")).startswith("probability")
-    yscale = alt.Scale(domain=[0, 1]) if probability else alt.Scale(zero=False)
+    yscale = alt.Scale(domain=[0, 1]) if is_probability(check) else alt.Scale(zero=False)
     ytitle = wrap(cap(str(check.get("measure", ""))), AXIS_CHARS)
     x = alt.X("x:Q", title=_check_x_title(check, row, index_label), scale=alt.Scale(zero=False, nice=False))
     what = alt.Shape("what:N", scale=alt.Scale(domain=["observed, with interval", "fitted, band average"],
@@ -105,17 +104,19 @@ def observed_fitted_chart(check: Mapping[str, Any], arms: Sequence[str], row: Ma
         layers.append(_chart(curve_frame(row, arms)).mark_line(strokeWidth=3).encode(
             x=x, y=alt.Y("estimate:Q", scale=yscale, title=ytitle), color=colour))
     if len(df):
-        ci = df.dropna(subset=["lower", "upper"])
-        layers.append(_chart(ci).mark_rule(strokeWidth=2.5).encode(
+        # one table for the bars and both kinds of point (a report keeps it once); filters pick the rows
+        every = _chart(df)
+        ci = every.transform_filter("isValid(datum.lower) && isValid(datum.upper)")
+        layers.append(ci.mark_rule(strokeWidth=2.5).encode(
             x=x, y=alt.Y("lower:Q", scale=yscale, title=ytitle), y2=alt.Y2("upper"), color=colour))
         tips = [alt.Tooltip("arm:N"), alt.Tooltip("band:N", title="band"), alt.Tooltip("n:Q", title="patients"),
                 alt.Tooltip("observed:Q", format=".3~g"), alt.Tooltip("lower:Q", format=".3~g"),
                 alt.Tooltip("upper:Q", format=".3~g"), alt.Tooltip("fitted:Q", format=".3~g")]
-        obs = df.dropna(subset=["observed"]).assign(what="observed, with interval")
-        layers.append(_chart(obs).mark_point(filled=True, size=110, opacity=1).encode(
+        obs = every.transform_filter("isValid(datum.observed)").transform_calculate(what="'observed, with interval'")
+        layers.append(obs.mark_point(filled=True, size=110, opacity=1).encode(
             x=x, y=alt.Y("observed:Q", scale=yscale, title=ytitle), color=colour, shape=what, tooltip=tips))
-        fit = df.dropna(subset=["fitted"]).assign(what="fitted, band average")
-        layers.append(_chart(fit).mark_point(filled=False, size=110, strokeWidth=2, opacity=1).encode(
+        fit = every.transform_filter("isValid(datum.fitted)").transform_calculate(what="'fitted, band average'")
+        layers.append(fit.mark_point(filled=False, size=110, strokeWidth=2, opacity=1).encode(
             x=x, y=alt.Y("fitted:Q", scale=yscale, title=ytitle), color=colour, shape=what, tooltip=tips))
     chart = _sized(alt.layer(*layers), WIDTH, HEIGHT)
     label = index_label or (index_label_of(row) if row is not None else check.get("index"))

@@ -50,10 +50,9 @@ def is_discrete(row: Mapping[str, Any]) -> bool:
 
 
 def is_probability(row: Mapping[str, Any]) -> bool:
-    """Whether the row's measure is a probability (so its axis runs from 0 to 1)."""
-    if "weights" in row:
-        return False
-    return str(row.get("measure", "")).startswith("probability")
+    """Whether the row's measure is a probability (so its axis runs from 0 to 1): the results and checks rows
+    say so (composite rows, values in the weights' units, never are)."""
+    return bool(row.get("probability"))
 
 
 def x_title(row: Mapping[str, Any], override: str | None = None) -> str:

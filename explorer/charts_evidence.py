@@ -28,7 +28,7 @@ def evidence_chart(row: Mapping[str, Any], index_label: str, *, width: int = 620
                    style: bool = True) -> alt.TopLevelMixin:
     """Value of information per 100 patients along the index: an area under a line, the threshold as a thin rule,
     and the stretches above it as a band of ticks beneath the axis."""
-    df = pd.DataFrame(row["curve"])
+    df = pd.DataFrame(cc.thinned(row["curve"]), columns=["x", "per_100"])  # the evpi column is not drawn
     base = alt.Chart(df)
     y = alt.Y("per_100:Q", title=wd.wrap(f"{row['units']}", 40), scale=alt.Scale(zero=True))
     x = alt.X("x:Q", title=index_label, scale=alt.Scale(zero=False, nice=False))

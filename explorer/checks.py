@@ -22,6 +22,7 @@ from .cohort import Cohort
 from .errors import FulcrumError
 from .indices import MAX_DISCRETE_LEVELS, IndexValues
 from .km import kaplan_meier, km_json, nice_ticks, normal_quantile
+from .margins import on_probability_scale
 from .models.base import OutcomeData
 from .models.common import newton, prepare
 from .models.cox import CoxFit, survival_arrays
@@ -586,6 +587,7 @@ def pair_checks(fs: an.FitSet, pf: an.PairFit, *, bands: int = BANDS, window: in
     em = effect_modification(pf, clustered=bool(fs.spec.cohort.cluster),
                              index_label=None if iv is None else iv.info.get("label"), kernels=kernels)
     row = {"outcome": o.name, "index": pf.index, "kind": o.kind, "measure": measure_words(o),
+           "probability": on_probability_scale(o),
            "observed_vs_fitted": ovf, "calibration": calib, "sliding_window": windows,
            "window": {"patients": window, "step": step},
            "effect_modification": {k: v for k, v in em.items() if k != "warnings"}}

@@ -134,6 +134,8 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("results[].randomised_break_even", "Only where the headline is not randomised-only and chosen patients "
                                             "differ for this outcome: the randomised-only break-even points."),
         ("results[].measure", "The measure compared, in words (e.g. probability alive at 365 days)."),
+        ("results[].probability", "Whether the measure is a probability, so its scale runs from 0 to 1 (false for "
+                                  "composites)."),
         ("results[].kind", "The outcome kind: survival, ordinal, binary or continuous (for composites: ordinal, "
                            "survival_function or quality_adjusted)."),
         ("results[].higher_is_better", "Whether a higher measure is better; differences are oriented so that "
@@ -440,6 +442,7 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("checks[].outcome", "The outcome's name."),
         ("checks[].index", "The index's name."),
         ("checks[].kind", "The outcome kind."),
+        ("checks[].probability", "Whether the measure is a probability (its scale runs from 0 to 1)."),
         ("checks[].measure", "The measure in words."),
         ("checks[].observed_vs_fitted", "Per arm and band of the index: the observed measure beside the mean "
                                         "fitted value."),

@@ -9,13 +9,23 @@ from .words import fmt, per_hundred, words
 from .patient import Placement, Prediction, PatientView, ValueJudgement, count_of_100
 
 
+def alive_at_horizon(p: Prediction) -> bool:
+    """Whether the prediction is a chance of being alive at a horizon (a probability that carries one)."""
+    return p.probability and p.horizon is not None
+
+
+def has_states(p: Prediction) -> bool:
+    """Whether the prediction gives each arm a share in every outcome state (its levels)."""
+    return any(e.distribution for e in p.arms.values())
+
+
 def icon_probabilities(p: Prediction) -> dict[str, dict[str, float]] | None:
     """Per arm, the state probabilities the per-100 rows show: ordinal levels, or alive / dead."""
     out = {}
     for arm, e in p.arms.items():
         if e.distribution:
             out[arm] = {lv: v[0] for lv, v in e.distribution.items()}
-        elif p.kind == "survival" and p.probability:
+        elif alive_at_horizon(p):
             out[arm] = {"alive": e.estimate, "dead": 1.0 - e.estimate}
         else:
             return None
@@ -27,8 +37,8 @@ def _icon_outcomes(view: PatientView) -> list[Prediction]:
     the spec names them, else the first of each kind."""
     along = [p for p in view.predictions if p.index == view.primary_index]
     want = set(view.combined)
-    ordinal = [p for p in along if p.kind == "ordinal"]
-    survival = [p for p in along if p.kind == "survival" and p.probability]
+    ordinal = [p for p in along if has_states(p)]
+    survival = [p for p in along if alive_at_horizon(p)]
     pick = [next((p for p in group if p.outcome in want), group[0]) for group in (survival, ordinal) if group]
     return pick
 

@@ -13,6 +13,7 @@ import numpy as np
 
 from . import CAUTIONS, __version__
 from .breakeven import CurveSummary
+from .margins import on_probability_scale
 from .spec import Spec, canonical_sha256, spec_to_dict, to_toml
 
 SCHEMA_VERSION = 1
@@ -72,6 +73,7 @@ def curve_row(pair, summary: CurveSummary, index_info: dict, n_points: int | Non
         "index": pair.index,
         "population": getattr(pair, "population", "all"),
         "measure": measure_words(pair.outcome),
+        "probability": on_probability_scale(pair.outcome),
         "kind": pair.outcome.kind,
         "higher_is_better": pair.outcome.higher_is_better,
         "among_survivors": pair.outcome.among_survivors,

@@ -93,9 +93,11 @@ def javascript_bundle() -> str:
 
 
 def packed(text: str) -> Markup:
-    """Text gzipped and base64-encoded, for a <script type="application/octet-stream"> block the page unpacks with
-    the browser's own DecompressionStream (base64 holds no '<', so nothing can close the element early)."""
-    return Markup(base64.b64encode(gzip.compress(text.encode("utf-8"), 9, mtime=0)).decode("ascii"))
+    """Text gzipped and written in base85 (RFC 1924 letters, with '.' standing for '<' so nothing can close the
+    <script type="application/octet-stream"> element it sits in); the page unpacks it with the browser's own
+    DecompressionStream. Base85 spends 5 letters on 4 bytes where base64 spends 4 on 3."""
+    letters = base64.b85encode(gzip.compress(text.encode("utf-8"), 9, mtime=0), pad=False).decode("ascii")
+    return Markup(letters.replace("<", "."))
 
 
 @lru_cache(maxsize=1)
@@ -106,7 +108,7 @@ def packed_bundle() -> Markup:
 
 def unpacked(text: str) -> str:
     """The inverse of `packed` (for tests and tools reading a report)."""
-    return gzip.decompress(base64.b64decode(text)).decode("utf-8")
+    return gzip.decompress(base64.b85decode(text.replace(".", "<"))).decode("utf-8")
 
 
 CHART_DIGITS = 4  # significant figures kept in chart data: more than a chart can show or a tooltip says
@@ -196,8 +198,54 @@ def chart_payload(html: str) -> dict:
 
 
 def embedded_results(html: str) -> dict:
-    """The results document a report embeds (the text `fulcrum analyse --json` writes)."""
-    return json.loads(_packed_block(html, "fulcrum-results"))
+    """The results document a report embeds (what `fulcrum analyse --json` writes)."""
+    return by_rows(json.loads(_packed_block(html, "fulcrum-results")))
+
+
+COLUMNS = "__columns__"
+
+
+def by_columns(obj: Any) -> Any:
+    """A document with every list of like objects (same keys in the same order, more than three) turned into one
+    list per key, which gzip packs far tighter; by_rows (and the page's script) turn it back exactly."""
+    if isinstance(obj, list):
+        if len(obj) > 3 and all(isinstance(v, dict) for v in obj):
+            keys = list(obj[0])
+            if keys and all(list(v) == keys for v in obj):
+                return {COLUMNS: keys, "values": [by_columns([v[k] for v in obj]) for k in keys]}
+        return [by_columns(v) for v in obj]
+    if isinstance(obj, dict):
+        return {k: by_columns(v) for k, v in obj.items()}
+    return obj
+
+
+def by_rows(obj: Any) -> Any:
+    """The inverse of by_columns."""
+    if isinstance(obj, dict):
+        if COLUMNS in obj:
+            columns = [by_rows(v) for v in obj["values"]]
+            return [dict(zip(obj[COLUMNS], row)) for row in zip(*columns)]
+        return {k: by_rows(v) for k, v in obj.items()}
+    if isinstance(obj, list):
+        return [by_rows(v) for v in obj]
+    return obj
+
+
+TABLES_SLOT = "@@FULCRUM_TABLES@@"
+_DETAIL_TABLE = re.compile(r"(<details><summary>[^<]*</summary>)\s*(<table>.*?</table>)\s*(</details>)", re.S)
+
+
+def _pack_detail_tables(page: str) -> tuple[str, dict[str, str]]:
+    """The tables folded inside <details> moved out of the page into a packed store (the page's script puts each
+    back as soon as the page opens; the sentences beside every chart stay in the page itself)."""
+    tables: dict[str, str] = {}
+
+    def move(m: re.Match) -> str:
+        key = f"t{len(tables) + 1}"
+        tables[key] = m.group(2)
+        return f'{m.group(1)}<div class="packed-table" data-table="{key}">(the table opens with the page\'s script)</div>{m.group(3)}'
+
+    return _DETAIL_TABLE.sub(move, page), tables
 
 
 # ------------------------------------------------------------------------------------------
@@ -558,26 +606,29 @@ def render_template(name: str, **context: Any) -> str:
     return _environment().get_template(name).render(**context)
 
 
-def _number_charts(sections: list[list[dict]], specs: list[dict] | None = None) -> list[dict]:
-    """Give every chart an id and its spec, in document order (a section's checks after its own charts);
-    return the list to embed."""
-    specs = [] if specs is None else specs
+def _number_charts(sections: list[list[dict]], store: ChartStore | None = None) -> ChartStore:
+    """Give every chart an id and put its spec in the store, in document order (a section's checks after its own
+    charts); return the store to embed."""
+    store = ChartStore() if store is None else store
     for group in sections:
         for sec in group:
             sec["chart_ids"] = []
             for chart in sec.get("charts", []):
-                cid = f"chart-{len(specs) + 1}"
+                cid = f"chart-{len(store.charts) + 1}"
                 spec = _clean_nan(cc.chart_spec(chart))
-                specs.append({"id": cid, "spec": spec, "description": spec.get("description", "")})
-                sec["chart_ids"].append((cid, spec.get("description", "")))
-            _number_charts([sec.get("checks") or []], specs)
-    return specs
+                store.add(cid, spec)
+                desc = spec.get("description", "")
+                said = bool(desc) and desc in (sec.get("sentence") or "")  # then the sentence names the chart
+                if said:
+                    sec.setdefault("sentence_id", f"{cid}-said")
+                sec["chart_ids"].append((cid, desc, sec["sentence_id"] if said else None))
+            _number_charts([sec.get("checks") or []], store)
+    return store
 
 
 def render_report(result: Any, *, extra_sections: Iterable[Section | Mapping[str, Any]] | None = None,
                   points: int = REPORT_POINTS) -> str:
     """The whole report as one HTML string; `points` caps the patients drawn beneath each outcome chart."""
-    from ..results import dumps
     from ..spec import to_toml
 
     doc = result.document
@@ -620,13 +671,17 @@ def render_report(result: Any, *, extra_sections: Iterable[Section | Mapping[str
         "methods": methods_by_outcome(doc),
         "indices": index_rows(doc),
         "warnings": list(doc.get("warnings") or []),
-        "results_packed": packed(dumps(_clean_nan(doc))),
+        "results_packed": packed(json.dumps(by_columns(_clean_nan(doc)), ensure_ascii=False, allow_nan=False,
+                                            separators=(",", ":"))),
         "charts_packed": packed(json.dumps(store.payload(), ensure_ascii=False, allow_nan=False, separators=(",", ":"),
                                            default=_plain)),
         "javascript_packed": packed_bundle(),
         "points": points,
     }
-    return render_template("report.html", **context)
+    page = render_template("report.html", **context)
+    page, tables = _pack_detail_tables(page)
+    head, _, tail = page.rpartition(TABLES_SLOT)  # the last one: the script block after every user-written string
+    return head + str(packed(json.dumps(tables, ensure_ascii=False, separators=(",", ":")))) + tail
 
 
 def write_report(result: Any, path: str | Path, **kwargs: Any) -> Path:

@@ -76,7 +76,7 @@ def check_for(checks: Iterable[Mapping[str, Any]] | None, outcome: str, index: s
     return next((c for c in checks or [] if c.get("outcome") == outcome and c.get("index") == index), None)
 
 
-DISPLAY_POINTS = 90  # a curve is drawn through at most about this many of its grid points (one every ~7 pixels)
+DISPLAY_POINTS = 60  # a curve is drawn through at most about this many of its grid points (one every ~11 pixels)
 
 
 def thinned(points: Sequence[Any], most: int = DISPLAY_POINTS) -> list[Any]:

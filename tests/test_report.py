@@ -14,8 +14,7 @@ import pytest
 
 from explorer import CAUTIONS, demo
 from explorer.analysis import analyse
-from explorer.report import (Section, chart_payload, embedded_results, render_report, script_json, unpacked,
-                             write_report)
+from explorer.report import Section, chart_payload, embedded_results, render_report, unpacked, write_report
 from explorer.spec import load_spec
 
 ATTR_URL = re.compile(r"""\b(?:src|href|action|xlink:href)\s*=\s*["']?\s*(?:https?:)?//""", re.I)
@@ -123,10 +122,16 @@ def test_provenance_spec_and_versions(result, html):
             assert text.replace("'", "&#39;") in html
 
 
-def test_script_json_is_safe_inside_script():
-    text = str(script_json({"a": "</script><!-- & \u2028"}))
-    assert "</" not in text and "<!--" not in text and "\u2028" not in text
-    assert json.loads(text) == {"a": "</script><!-- & \u2028"}
+def test_packed_blocks_round_trip_and_hold_no_angle_bracket():
+    """Whatever the text (script tags, comment openers, line separators, non-Latin letters), a packed block never
+    holds '<' and unpacks to the same text; by_columns and by_rows are exact inverses on a results-shaped document."""
+    from explorer.report import by_columns, by_rows, packed
+
+    text = "</script><!-- & \u2028 " + "é漢" * 50 + ATTACK * 30
+    block = str(packed(text))
+    assert "<" not in block and unpacked(block) == text
+    doc = {"rows": [{"x": float(i), "ci": [i, None], "who": ATTACK} for i in range(7)], "few": [{"a": 1}], "n": 3}
+    assert by_rows(json.loads(json.dumps(by_columns(doc)))) == doc
 
 
 def test_extra_sections_are_escaped(result):

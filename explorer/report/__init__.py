@@ -1,7 +1,11 @@
 """The offline HTML report: one self-contained file (Vega scripts inlined) that opens with no network.
 
 Every chart sits beside the sentence and the table that say the same thing; every user-supplied
-string is escaped by Jinja's autoescaping, and JSON inside <script> blocks by `script_json`.
+string is escaped by Jinja's autoescaping. The report computes nothing: every number comes from the results
+document (only the patients drawn beneath the curves are sampled from the cohort). To stay small (issue 17: the
+demo's report at most 2 MB) the results document (stored by columns), the charts (each table kept once however
+many charts draw it, rounded to CHART_DIGITS figures), the tables folded in <details> and the Vega bundle travel
+gzipped in base85 blocks that the page unpacks with the browser's DecompressionStream.
 """
 from __future__ import annotations
 
@@ -55,15 +59,6 @@ class Section:
 # ------------------------------------------------------------------------------------------
 # Safe embedding
 # ------------------------------------------------------------------------------------------
-def script_json(obj: Any) -> Markup:
-    """JSON that is safe inside a <script> element: '<', '>', '&' and line separators escaped."""
-    text = json.dumps(obj, ensure_ascii=False, allow_nan=False, separators=(",", ":"), default=_plain)
-    for raw, esc in (("<", "\\u003c"), (">", "\\u003e"), ("&", "\\u0026"), ("\u2028", "\\u2028"),
-                     ("\u2029", "\\u2029")):
-        text = text.replace(raw, esc)
-    return Markup(text)
-
-
 def _plain(obj: Any) -> Any:
     if isinstance(obj, np.generic):
         return obj.item()

@@ -913,6 +913,6 @@ def _short(v: Any) -> str:
 
 def breakeven_table(doc: dict) -> pd.DataFrame:
     """The table of every break-even point (results and composites) for spreadsheet downloads."""
-    from .charts import breakeven_summary_table
+    from .charts_checks import breakeven_summary_table
 
     return breakeven_summary_table(doc)

@@ -9,26 +9,28 @@ from typing import Any, Mapping, Sequence
 import altair as alt
 import pandas as pd
 
-from . import charts as ch
+from . import charts_common as cc
+from . import look
+from . import words as wd
 
-EVIDENCE_COLOUR = ch.OKABE_ITO["reddish_purple"]
-STRATEGY_COLOURS = (ch.OKABE_ITO["blue"], ch.OKABE_ITO["vermillion"], ch.OKABE_ITO["bluish_green"])
+EVIDENCE_COLOUR = look.OKABE_ITO["reddish_purple"]
+STRATEGY_COLOURS = (look.OKABE_ITO["blue"], look.OKABE_ITO["vermillion"], look.OKABE_ITO["bluish_green"])
 STRATEGY_WORDS = {"whole_range": "whole range", "around_break_even": "around the break-even",
                   "fill_thin": "where randomised patients are thin"}
 
 
 def evidence_title(row: Mapping[str, Any]) -> str:
     what = row["measure"] if row["outcome"] != "composite" else f"composite: {row['measure']}"
-    return ch.words(what)
+    return wd.words(what)
 
 
 def evidence_chart(row: Mapping[str, Any], index_label: str, *, width: int = 620, height: int = 240,
                    style: bool = True) -> alt.TopLevelMixin:
     """Value of information per 100 patients along the index: an area under a line, the threshold as a thin rule,
     and the stretches above it as a band of ticks beneath the axis."""
-    df = pd.DataFrame(row["curve"])
+    df = pd.DataFrame(cc.thinned(row["curve"]), columns=["x", "per_100"])  # the evpi column is not drawn
     base = alt.Chart(df)
-    y = alt.Y("per_100:Q", title=ch.wrap(f"{row['units']}", 40), scale=alt.Scale(zero=True))
+    y = alt.Y("per_100:Q", title=wd.wrap(f"{row['units']}", 40), scale=alt.Scale(zero=True))
     x = alt.X("x:Q", title=index_label, scale=alt.Scale(zero=False, nice=False))
     layers: list[alt.Chart] = [
         base.mark_area(color=EVIDENCE_COLOUR, opacity=0.18).encode(x=x, y=y),
@@ -38,7 +40,7 @@ def evidence_chart(row: Mapping[str, Any], index_label: str, *, width: int = 620
     ]
     if row.get("threshold") is not None:
         layers.append(alt.Chart(pd.DataFrame({"t": [row["threshold"]]})).mark_rule(
-            color=ch.INK, strokeDash=[2, 3], strokeWidth=1.5).encode(y="t:Q"))
+            color=look.INK, strokeDash=[2, 3], strokeWidth=1.5).encode(y="t:Q"))
     spans = pd.DataFrame(row.get("above_threshold") or [])
     if len(spans):
         layers.append(alt.Chart(spans).mark_rect(color=EVIDENCE_COLOUR, opacity=0.9, height=8).encode(
@@ -46,18 +48,18 @@ def evidence_chart(row: Mapping[str, Any], index_label: str, *, width: int = 620
     chart = alt.layer(*layers).properties(width=width, height=height)
     subtitle = ("Expected loss from choosing by today's estimates instead of the truth; dotted line: the threshold; "
                 "bar along the foot: where it is exceeded")
-    return ch._finish(chart, evidence_title(row), subtitle, row["sentence"], style)
+    return cc._finish(chart, evidence_title(row), subtitle, row["sentence"], style)
 
 
 def evidence_table(row: Mapping[str, Any], every: int = 20) -> pd.DataFrame:
     pts = row["curve"][::every]
-    return pd.DataFrame({"index value": [ch.fmt(p["x"]) for p in pts],
-                         row["units"]: [ch.fmt(p["per_100"]) for p in pts]})
+    return pd.DataFrame({"index value": [wd.fmt(p["x"]) for p in pts],
+                         row["units"]: [wd.fmt(p["per_100"]) for p in pts]})
 
 
 def evidence_sections(doc: Mapping[str, Any]) -> list[dict]:
     """Report sections for the document's `evidence` rows (extra_sections shape), busiest first."""
-    labels = {r["index"]: ch.index_label_of(r) for r in doc.get("results", [])}
+    labels = {r["index"]: cc.index_label_of(r) for r in doc.get("results", [])}
     rows = sorted(doc.get("evidence") or [], key=lambda r: -(r["peak"] or {}).get("per_100", 0.0)
                   / max(r["threshold"] or 1.0, 1e-12))
     out = []
@@ -96,13 +98,13 @@ def plan_chart(doc: Mapping[str, Any], *, width: int = 560, height: int = 260, s
             x=x, y=y, color=colour, tooltip=["strategy words:N", "new_patients:Q",
                                              alt.Tooltip("chance:Q", format=".0%"), alt.Tooltip("width:Q", format=".3g")]),
     ).properties(width=width, height=height)
-    return ch._finish(chart, "How many more patients, recruited where?", doc["target"]["words"],
+    return cc._finish(chart, "How many more patients, recruited where?", doc["target"]["words"],
                       " ".join(doc["summary"]), style)
 
 
 def plan_table(doc: Mapping[str, Any]) -> pd.DataFrame:
     return pd.DataFrame([{"recruit": STRATEGY_WORDS[r["strategy"]], "new patients": r["new_patients"],
-                          "median interval width": ch.fmt(r["width"]),
+                          "median interval width": wd.fmt(r["width"]),
                           "reaches the target": "" if r["chance"] is None else
                           f"{100 * r['chance']:.0f}% (+/- {100 * r['chance_se']:.0f})",
                           "finite intervals": "" if r["finite_share"] is None else f"{100 * r['finite_share']:.0f}%"}

@@ -15,7 +15,8 @@ from typing import Any, Mapping, Sequence
 import altair as alt
 import pandas as pd
 
-from .charts import FONT, _chart, _finish, _quick, _sized, per_hundred, state_colours, words
+from .charts_common import FONT, _chart, _finish, _quick, _sized, state_colours
+from .words import per_hundred, words
 from .look import ARM_COLOURS, ARM_INKS, INK, MUTED, PAPER, RULE
 
 GAP = 0.6          # extra space after every ten marks, in mark widths

@@ -17,7 +17,9 @@ import altair as alt
 import numpy as np
 import pandas as pd
 
-from .charts import FONT, WIDTH, _chart, _finish, _quick, _sized, arm_colours, fmt, words
+from .charts_common import FONT, WIDTH, _chart, _finish, _quick, _sized
+from .look import arm_colours
+from .words import fmt, words
 from .look import INK, MUTED, NEUTRAL, PAPER
 
 TRACK_PX = 420      # the weight scale's length in the leeway chart

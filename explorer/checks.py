@@ -537,6 +537,7 @@ def pair_checks(fs: ft.FitSet, pf: ft.PairFit, *, bands: int = BANDS, window: in
     em = effect_modification(pf, clustered=bool(fs.spec.cohort.cluster),
                              index_label=None if iv is None else iv.info.get("label"), kernels=kernels)
     row = {"outcome": o.name, "index": pf.index, "kind": o.kind, "measure": measure_words(o),
+           "probability": describe(o).probability,
            "observed_vs_fitted": ovf, "calibration": calib, "sliding_window": windows,
            "window": {"patients": window, "step": step},
            "effect_modification": {k: v for k, v in em.items() if k != "warnings"}}
@@ -618,6 +619,19 @@ def km_curves(cohort: Cohort, outcome: OutcomeSpec | str, index: IndexValues | n
                 out.append({"outcome": o.name, "arm": arm,
                             "band": {"from": r6(lo), "to": r6(hi), "label": f"{lo:g}" if lo == hi else f"{lo:g} to {hi:g}"},
                             **km_json(kaplan_meier(t[sel], e[sel], level=level), ticks)})
+    return out
+
+
+def km_rows(fs: ft.FitSet, bands: int = BANDS) -> list[dict]:
+    """The JSON `kaplan_meier` rows: per survival outcome, each arm's curve over all patients (index null), then
+    for each index its curves in `bands` bands of the index (km_curves rows, each naming its index; none when
+    bands is 0)."""
+    level = fs.spec.analysis.level
+    out: list[dict] = []
+    for o in (o for o in fs.spec.outcomes if describe(o).follow_up):
+        out += [dict(c, index=None) for c in km_curves(fs.cohort, o, level=level)]
+        for name, iv in (fs.indices.items() if bands else ()):
+            out += [dict(c, index=name) for c in km_curves(fs.cohort, o, iv, bands=bands, level=level) if c["band"]]
     return out
 
 

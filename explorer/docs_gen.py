@@ -100,6 +100,11 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("evidence", "Value of information along each index, one row per outcome x index and per composite x index "
                      "(see Evidence rows). Present only with [evidence]."),
         ("baseline", "Baseline table of the cohort covariates (see Baseline rows). Empty without cohort.covariates."),
+        ("kaplan_meier", "Kaplan-Meier curves per arm for every survival outcome: over all patients (index null) and, "
+                         "when [analysis] checks is on, in five bands of each index (see Kaplan-Meier rows). Empty "
+                         "without a survival outcome."),
+        ("coverage", "Where the randomised patients are: per index, patients per window by arm and allocation "
+                     "(see Coverage rows). Empty without an allocation column."),
         ("clustering", "Present only with cohort.cluster: which clustered intervals were used and over how many "
                        "clusters."),
         ("clustering.column", "The cluster column."),
@@ -129,6 +134,8 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("results[].randomised_break_even", "Only where the headline is not randomised-only and chosen patients "
                                             "differ for this outcome: the randomised-only break-even points."),
         ("results[].measure", "The measure compared, in words (e.g. probability alive at 365 days)."),
+        ("results[].probability", "Whether the measure is a probability, so its scale runs from 0 to 1 (false for "
+                                  "composites)."),
         ("results[].kind", "The outcome kind: survival, ordinal, binary or continuous (for composites: ordinal, "
                            "survival_function or quality_adjusted)."),
         ("results[].higher_is_better", "Whether a higher measure is better; differences are oriented so that "
@@ -400,10 +407,42 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
                                                           "survivors."),
         ("pairwise[].warnings", "Sentences (missing values, windows without a difference)."),
     ]),
+    ("kaplan_meier", "Kaplan-Meier rows", [
+        ("kaplan_meier[].outcome", "The survival outcome's name."),
+        ("kaplan_meier[].index", "The index whose bands the curve belongs to; null for all patients."),
+        ("kaplan_meier[].arm", "Arm."),
+        ("kaplan_meier[].band", "The band of the index (from, to, label); null for all patients."),
+        ("kaplan_meier[].band.from", "Band start on the index."),
+        ("kaplan_meier[].band.to", "Band end."),
+        ("kaplan_meier[].band.label", "The band in words."),
+        ("kaplan_meier[].n", "Patients."),
+        ("kaplan_meier[].events", "Events."),
+        ("kaplan_meier[].steps", "The curve: one step per event time, from time 0."),
+        ("kaplan_meier[].steps[].time", "Time."),
+        ("kaplan_meier[].steps[].survival", "Kaplan-Meier survival."),
+        ("kaplan_meier[].steps[].lower", "Interval low (log-log, Greenwood)."),
+        ("kaplan_meier[].steps[].upper", "Interval high."),
+        ("kaplan_meier[].at_risk", "Numbers at risk at ticks shared by every curve of the outcome."),
+        ("kaplan_meier[].at_risk[].time", "Tick."),
+        ("kaplan_meier[].at_risk[].n", "Patients at risk."),
+        ("kaplan_meier[].median", "Median survival time and its interval (null where not reached)."),
+        ("kaplan_meier[].median.time", "Median time."),
+        ("kaplan_meier[].median.ci", "Its interval."),
+    ]),
+    ("coverage", "Coverage rows (where the randomised patients are)", [
+        ("coverage[].index", "The index's name."),
+        ("coverage[].windows", "Quantile windows of the index, lowest first."),
+        ("coverage[].windows[].from", "Window start on the index."),
+        ("coverage[].windows[].to", "Window end."),
+        ("coverage[].windows[].n", "Patients per arm and allocation: {arm: {randomised, chosen}}."),
+        ("coverage[].windows[].sparse", "Whether either arm has fewer randomised patients than [selection] "
+                                        "min_per_window here."),
+    ]),
     ("checks", "Checks rows (can the curves be trusted?)", [
         ("checks[].outcome", "The outcome's name."),
         ("checks[].index", "The index's name."),
         ("checks[].kind", "The outcome kind."),
+        ("checks[].probability", "Whether the measure is a probability (its scale runs from 0 to 1)."),
         ("checks[].measure", "The measure in words."),
         ("checks[].observed_vs_fitted", "Per arm and band of the index: the observed measure beside the mean "
                                         "fitted value."),
@@ -584,7 +623,8 @@ KEYED = {"results[].n", "results[].events", "results[].methods", "results[].refe
          "results[].index_info.percentiles", "results[].index_info.prognostic.centre", "composite[].weights",
          "selection[].adjusted.propensity.coefficients", "selection[].adjusted.n", "selection[].adjusted.effective_n",
          "clustering.clusters_per_arm", "imputation[].imputed_values", "imputation[].complete_case.n",
-         "imputation[].imputed.n", "maps[].n", "maps[].weights", "maps[].coefficients", "spec"}
+         "imputation[].imputed.n", "maps[].n", "maps[].weights", "maps[].coefficients", "coverage[].windows[].n",
+         "spec"}
 
 
 def canonical(path: str) -> str:

@@ -7,7 +7,8 @@ from typing import Any, Iterable, Mapping
 
 import pandas as pd
 
-from .charts import check_for, fmt, index_label_of
+from .charts_common import check_for, index_label_of
+from .words import fmt
 
 COLUMNS = ("outcome", "index", "arms break even at", "better below", "better above", "estimated from",
            "does the difference change along the index?")

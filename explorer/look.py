@@ -73,6 +73,13 @@ def text_on(background: str) -> str:
     return best if contrast(best, background) >= MIN_TEXT_CONTRAST else OKABE_ITO["black"]
 
 
+def arm_colours(arms: Sequence[str]) -> dict[str, str]:
+    """The first arm blue, the second orange (Okabe-Ito), the same in every chart and export."""
+    if len(arms) != 2 or arms[0] == arms[1]:
+        raise ValueError("arm_colours needs exactly two different arm labels")
+    return {arms[0]: ARM_COLOURS[0], arms[1]: ARM_COLOURS[1]}
+
+
 def state_colours(levels: Sequence[str], death: Sequence[bool]) -> dict[str, str]:
     """Colours for outcome states in their order (best first): light to dark, the death state dark neutral.
 

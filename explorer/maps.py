@@ -28,6 +28,7 @@ from .models.words import measure_words
 from .numeric import r6
 from .result_rows import index_info_json
 from .spec import MapSpec, OutcomeSpec, Spec
+from .words import fmt as _fmt
 
 GRID = 60
 NEAR = 0.1  # blank where an arm has nobody within a tenth of the ranges (distance in range-scaled units)
@@ -466,12 +467,6 @@ def default_map(spec: Spec) -> MapSpec | None:
 # ------------------------------------------------------------------------------------------
 # In words
 # ------------------------------------------------------------------------------------------
-def _fmt(v: float) -> str:
-    from .charts import fmt
-
-    return fmt(v)
-
-
 def _labels(row: Mapping[str, Any]) -> tuple[str, str]:
     info = row.get("index_info") or [{}, {}]
     return tuple((i or {}).get("label") or n for i, n in zip(info, row["indices"]))
@@ -518,22 +513,6 @@ def describe_map(row: Mapping[str, Any], arms: Sequence[str]) -> str:
         else:
             text += f" {where} sits on the break-even line."
     return text
-
-
-def map_sections(doc: Mapping[str, Any]) -> list[dict]:
-    """Report sections for the document's `maps` rows, in the shape explorer.report's extra_sections take."""
-    from .charts import decision_map_chart
-
-    arms = doc["arms"]
-    out = []
-    for row in doc.get("maps") or []:
-        a, b = _labels(row)
-        target = "Composite" if row["target"] == COMPOSITE else row.get("measure") or row["target"]
-        out.append({"title": f"Two indices: {target} over {a} and {b}",
-                    "text": describe_map(row, arms), "chart": decision_map_chart(row, arms),
-                    "table": coefficient_table(row),
-                    "notes": [row.get("methods") or "", *(row.get("notes") or []), *(row.get("warnings") or [])]})
-    return out
 
 
 def coefficient_table(row: Mapping[str, Any]) -> pd.DataFrame:

@@ -13,7 +13,8 @@ from dataclasses import dataclass, field
 from typing import Any, Mapping, Sequence
 from xml.sax.saxutils import escape
 
-from .charts import fmt, words
+from .patient_summary import alive_at_horizon, has_states
+from .words import fmt, words
 from .patient import PatientView, Prediction, count_of_100
 
 
@@ -43,7 +44,7 @@ def _rows(p: Prediction, arms: Sequence[str]) -> list[list[str]]:
     """Per-100 rows of one prediction: dead by the horizon for survival, each state and the favourable states
     for an ordinal outcome, the mean with its interval otherwise."""
     title = p.title
-    if p.kind == "survival" and p.probability:
+    if alive_at_horizon(p):
         dead = [_count(100 - e.per_100, 100 - e.per_100_upper, 100 - e.per_100_lower)
                 for e in (p.arms[a] for a in arms)]
         return [[f"Dead ({title.lower().replace('alive ', '')})"] + dead]
@@ -127,7 +128,7 @@ def meeting_content(view: PatientView, rows: Sequence[Mapping[str, Any]], cautio
                              if t)] for p in view.placements.values()]
     along = [p for p in view.predictions if p.index == index]
     per_100: list[list[str]] = []
-    for p in sorted(along, key=lambda p: (p.kind != "survival", p.kind != "ordinal")):
+    for p in sorted(along, key=lambda p: (not alive_at_horizon(p), not has_states(p))):
         per_100.extend(_rows(p, view.arms))
     verdicts = []
     for j in (j for j in view.judgements if j.index == index):

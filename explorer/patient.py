@@ -17,7 +17,7 @@ from scipy import stats
 
 from . import breakeven as be
 from . import values as val
-from .charts import fmt, per_hundred, words
+from .words import fmt, per_hundred, words
 from .conversation import WHO_SHORT, ValuesRecord
 from .errors import FulcrumError
 from .fitting import SPARSE_SHARE, STRETCHES, FitSet, PairFit

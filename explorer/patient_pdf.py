@@ -7,7 +7,7 @@ each arm's outcomes with intervals, the values and whose they are, what they fav
 from __future__ import annotations
 
 import io
-from typing import Sequence
+from typing import Any, Mapping, Sequence
 from xml.sax.saxutils import escape
 
 from reportlab.graphics.shapes import Drawing, Line, Rect, String
@@ -20,10 +20,11 @@ from reportlab.platypus import (KeepTogether, ListFlowable, ListItem, Paragraph,
                                 TableStyle)
 
 from . import __version__
-from .charts import fmt, words
+from .words import fmt, words
 from .charts_patient import LABEL_SIZE, layout
 from .look import INK, MUTED, PAPER, RULE
-from .patient_summary import IconArray, Summary
+from .patient import PatientView
+from .patient_summary import IconArray, Summary, summary_content
 
 FONT, BOLD = "Helvetica", "Helvetica-Bold"
 BODY = ParagraphStyle("body", fontName=FONT, fontSize=9, leading=11.5, alignment=TA_LEFT, spaceAfter=1.5)
@@ -176,6 +177,11 @@ def summary_pdf(s: Summary) -> bytes:
                             invariant=1)
     doc.build(_story(s), onFirstPage=foot, onLaterPages=foot)
     return buf.getvalue()
+
+
+def view_pdf(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None) -> bytes:
+    """One patient's printable summary as a PDF (drawn with reportlab, offline): the content the HTML shows."""
+    return summary_pdf(summary_content(view, cautions, identifiers=identifiers))
 
 
 def _wrap(text: str, width: int) -> list[str]:

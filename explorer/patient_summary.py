@@ -5,8 +5,18 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any, Mapping, Sequence
 
-from .charts import fmt, per_hundred, words
+from .words import fmt, per_hundred, words
 from .patient import Placement, Prediction, PatientView, ValueJudgement, count_of_100
+
+
+def alive_at_horizon(p: Prediction) -> bool:
+    """Whether the prediction is a chance of being alive at a horizon (a probability that carries one)."""
+    return p.probability and p.horizon is not None
+
+
+def has_states(p: Prediction) -> bool:
+    """Whether the prediction gives each arm a share in every outcome state (its levels)."""
+    return any(e.distribution for e in p.arms.values())
 
 
 def icon_probabilities(p: Prediction) -> dict[str, dict[str, float]] | None:
@@ -15,7 +25,7 @@ def icon_probabilities(p: Prediction) -> dict[str, dict[str, float]] | None:
     for arm, e in p.arms.items():
         if e.distribution:
             out[arm] = {lv: v[0] for lv, v in e.distribution.items()}
-        elif p.kind == "survival" and p.probability:
+        elif alive_at_horizon(p):
             out[arm] = {"alive": e.estimate, "dead": 1.0 - e.estimate}
         else:
             return None
@@ -27,8 +37,8 @@ def _icon_outcomes(view: PatientView) -> list[Prediction]:
     the spec names them, else the first of each kind."""
     along = [p for p in view.predictions if p.index == view.primary_index]
     want = set(view.combined)
-    ordinal = [p for p in along if p.kind == "ordinal"]
-    survival = [p for p in along if p.kind == "survival" and p.probability]
+    ordinal = [p for p in along if has_states(p)]
+    survival = [p for p in along if alive_at_horizon(p)]
     pick = [next((p for p in group if p.outcome in want), group[0]) for group in (survival, ordinal) if group]
     return pick
 
@@ -82,7 +92,7 @@ class Summary:
 def summary_content(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None
                     ) -> Summary:
     """The summary's content along the primary index."""
-    from .charts import state_colours
+    from .charts_common import state_colours
 
     arrays = []
     for p in _icon_outcomes(view):
@@ -110,7 +120,7 @@ def summary_html(view: PatientView, cautions: Sequence[str], *, identifiers: Map
     intervals, the values used and whose they are, the favoured arm and how firmly, and the cautions."""
     from markupsafe import Markup
 
-    from .charts import chart_to_svg
+    from .charts_common import chart_to_svg
     from .charts_patient import per_hundred_chart
     from .report import render_template
 

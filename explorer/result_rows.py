@@ -10,6 +10,7 @@ import numpy as np
 from .breakeven import CurveSummary
 from .fitting import PairFit, in_range
 from .indices import percentile_of
+from .models import describe
 from .models.words import measure_words
 from .numeric import jsonable, r6, r6_list
 
@@ -38,6 +39,7 @@ def curve_row(pair: PairFit, summary: CurveSummary, index_info: dict, n_points: 
         "index": pair.index,
         "population": getattr(pair, "population", "all"),
         "measure": measure_words(pair.outcome),
+        "probability": describe(pair.outcome).probability,
         "kind": pair.outcome.kind,
         "higher_is_better": pair.outcome.higher_is_better,
         "among_survivors": pair.outcome.among_survivors,

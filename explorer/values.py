@@ -540,7 +540,8 @@ def composite_rows(fs: ft.FitSet, summaries: dict[tuple[str, str], tuple[be.Curv
     for (kind, index), (s, info) in summaries.items():
         cm = info.model
         row = curve_row(cm.pair, s, index_info_json(fs.indices[index]))
-        row.update({"outcome": "composite", "measure": info.measure, "kind": kind, "higher_is_better": True,
+        row.update({"outcome": "composite", "measure": info.measure, "kind": kind, "probability": False,
+                    "higher_is_better": True,
                     "among_survivors": False, "values_outcome": values_spec.outcome if values_spec else None,
                     "weights": None if info.weights is None else {k: r6(v) for k, v in info.weights.items()},
                     "preset": values_spec.preset if values_spec else None,

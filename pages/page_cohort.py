@@ -245,48 +245,51 @@ for note in cohort.notes:
 
 st.subheader("Patients by arm and allocation")
 st.table(cohort.counts())
-charts = ui.engine("charts")
+ch_checks = ui.engine("charts_checks")
+ch_curves = ui.engine("charts_curves")
+ch_selection = ui.engine("charts_selection")
+wd = ui.engine("words")
 arms = list(ws.spec.cohort.arms)
 
 st.subheader("Baseline characteristics by arm and allocation")
 baseline = ui.attempt(ws.baseline)
-if charts is None:
-    ui.not_available("The baseline table", "explorer/charts.py")
+if ch_checks is None:
+    ui.not_available("The baseline table", "explorer/charts_checks.py")
 elif baseline:
     st.caption("Mean (SD), or share for yes/no characteristics, in each arm among all, randomised and chosen "
                "patients; standardised mean differences (SMD) above 0.1 are flagged.")
-    st.dataframe(charts.baseline_frame(baseline), hide_index=True, width="stretch")
-    ui.altair(charts.smd_chart(baseline), charts.describe_baseline(baseline))
+    st.dataframe(ch_checks.baseline_frame(baseline), hide_index=True, width="stretch")
+    ui.altair(ch_checks.smd_chart(baseline), ch_checks.describe_baseline(baseline))
 elif baseline is not None:
     st.caption("Name baseline covariates in the spec ([cohort] covariates = [...]) to compare the arms on them here.")
 clusters = ui.attempt(ws.clustering)
-if charts is not None:
-    st.caption(aps.md_escape(charts.describe_clustering(clusters)))
+if ch_checks is not None:
+    st.caption(aps.md_escape(ch_checks.describe_clustering(clusters)))
 for w in (clusters or {}).get("warnings", []):
     st.caption("Note: " + aps.md_escape(w))
 
 st.subheader("How each index is spread, by arm" + (", and where the randomised patients are" if ws.cohort.randomised is not None else ""))
 index_values = ui.attempt(ws.index_values)
-if index_values is not None and charts is None:
-    ui.not_available("The index charts", "explorer/charts.py")
+if index_values is not None and ch_curves is None:
+    ui.not_available("The index charts", "explorer/charts_curves.py")
 elif index_values is not None:
     arm_col = cohort.frame[ws.spec.cohort.arm].astype(str).to_numpy()
     for ix in ws.spec.indices:
         iv = index_values[ix.name]
         st.markdown(f"**{aps.md_escape(ix.title)}**")
         df = pd.DataFrame({"x": iv.values, "arm": arm_col})
-        chart = charts.index_distribution_chart(df, arms=arms, label=ix.title, discrete=iv.info.get("discrete"))
+        chart = ch_curves.index_distribution_chart(df, arms=arms, label=ix.title, discrete=iv.info.get("discrete"))
         pct = iv.info.get("percentiles") or {}
         units = iv.info.get("units")
         text = (f"{ix.title}" + (f", in {units}" if units else "") + ": "
-                + ", ".join(f"{k}th percentile {charts.fmt(v)}" for k, v in pct.items()) + "."
+                + ", ".join(f"{k}th percentile {wd.fmt(v)}" for k, v in pct.items()) + "."
                 if pct else ix.title)
         ui.altair(chart, text)
         for w in iv.warnings:
             st.caption(aps.md_escape(w))
         coverage = ui.attempt(ws.coverage, ix.name)
         if coverage:
-            ui.altair(charts.coverage_chart(coverage, arms, index_label=ix.title),
-                      charts.describe_coverage(coverage, arms, ix.title))
+            ui.altair(ch_selection.coverage_chart(coverage, arms, index_label=ix.title),
+                      ch_selection.describe_coverage(coverage, arms, ix.title))
             with st.expander(f"Patients per window of {ix.title}"):
-                st.dataframe(charts.coverage_frame(coverage, arms), hide_index=True, width="stretch")
+                st.dataframe(ch_selection.coverage_frame(coverage, arms), hide_index=True, width="stretch")

@@ -15,7 +15,7 @@ ws, maps = ui.page_head(
     "values, and the break-even line where the arms come out level. The map is blank where patients are too few.",
     needs=("maps", "The two-index map"))
 arms = list(ws.spec.cohort.arms)
-charts = ui.engine("charts")
+ch_maps = ui.engine("charts_maps")
 values = ui.engine("values")
 patient = ui.engine("patient")
 spec = ws.spec
@@ -88,8 +88,8 @@ row = ui.attempt(maps.map_row, model, weights=v.weights if v else None, patient=
 if row is None:
     st.stop()
 text = maps.describe_map(row, arms)
-if charts is not None:
-    ui.altair(charts.decision_map_chart(row, arms), text)
+if ch_maps is not None:
+    ui.altair(ch_maps.decision_map_chart(row, arms), text)
 else:
     ui.sentence(text)
 if point is None:

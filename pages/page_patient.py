@@ -21,7 +21,7 @@ ws, patient = ui.page_head(
 conv = ui.engine("conversation")
 summary = ui.engine("patient_summary")
 arms = list(ws.spec.cohort.arms)
-charts = ui.engine("charts")
+ch_curves = ui.engine("charts_curves")
 per100 = ui.engine("charts_patient")
 fs = ui.fitted(ws)
 if fs is None:
@@ -213,8 +213,8 @@ for p in preds:
         st.caption(aps.md_escape(ui.description(chart) or ""))
     with st.expander("On the curve, and the numbers"):
         row_json = curve_rows.get((p.outcome, index))
-        if charts is not None and row_json is not None:
-            ui.altair(charts.outcome_chart(row_json, arms, patient=marker, index_label=titles[index]))
+        if ch_curves is not None and row_json is not None:
+            ui.altair(ch_curves.outcome_chart(row_json, arms, patient=marker, index_label=titles[index]))
         table = summary.outcome_table(p, arms)
         st.dataframe([{"": r[0], **dict(zip(arms, r[1:]))} for r in table], hide_index=True, width="stretch")
 

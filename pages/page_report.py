@@ -49,11 +49,12 @@ st.caption("Spreadsheet cells that begin with =, +, -, @ or a control character 
 st.caption(f"Data sha256 {doc['inputs']['data_sha256'][:16]}..., spec {doc['inputs']['spec_canonical_sha256'][:16]}..., "
            f"seed {doc['inputs']['seed']}, {doc['inputs']['interval']} intervals at {doc['inputs']['level']:.0%}.")
 
-charts = ui.engine("charts")
-if charts is None:
-    ui.not_available("Break-even table and chart pictures", "explorer/charts.py")
+ch_common = ui.engine("charts_common")
+ch_curves = ui.engine("charts_curves")
+if ch_curves is None:
+    ui.not_available("Break-even table and chart pictures", "explorer/charts_curves.py")
     st.stop()
-st.dataframe(charts.breakeven_table(doc), hide_index=True, width="stretch")
+st.dataframe(ch_curves.breakeven_table(doc), hide_index=True, width="stretch")
 
 st.header("Charts as pictures")
 catalogue = aps.chart_catalogue(doc, {ix.name: ix.title for ix in ws.spec.indices},
@@ -63,13 +64,13 @@ if not catalogue:
 pick = st.selectbox("Chart", list(range(len(catalogue))), format_func=lambda i: catalogue[i]["label"],
                     key=ui.key("chart_pick"))
 item = catalogue[pick]
-build = charts.composite_chart if item["composite"] else charts.outcome_chart
+build = ch_curves.composite_chart if item["composite"] else ch_curves.outcome_chart
 chart = build(item["row"], arms, index_label=item["index_label"])
-ui.altair(chart, charts.describe_row(item["row"], arms, item["index_label"], margin=ws.spec.analysis.margin))
+ui.altair(chart, ch_curves.describe_row(item["row"], arms, item["index_label"], margin=ws.spec.analysis.margin))
 p1, p2 = st.columns(2)
 with p1:
-    st.download_button("PNG picture", data=lambda: charts.chart_to_png(chart), file_name=item["file"] + ".png",
+    st.download_button("PNG picture", data=lambda: ch_common.chart_to_png(chart), file_name=item["file"] + ".png",
                        mime="image/png", on_click="ignore", key=ui.key(f"png:{pick}"), icon=":material/image:")
 with p2:
-    st.download_button("SVG drawing", data=lambda: charts.chart_to_svg(chart), file_name=item["file"] + ".svg",
+    st.download_button("SVG drawing", data=lambda: ch_common.chart_to_svg(chart), file_name=item["file"] + ".svg",
                        mime="image/svg+xml", on_click="ignore", key=ui.key(f"svg:{pick}"), icon=":material/draw:")

@@ -12,7 +12,7 @@ ws, selection = ui.page_head(
     "the same index value, and the break-even points are compared.",
     needs=("selection", "The randomised vs chosen analysis"))
 arms = list(ws.spec.cohort.arms)
-charts = ui.engine("charts")
+ch_selection = ui.engine("charts_selection")
 if ws.cohort.randomised is None:
     st.warning("The cohort has no allocation column, so randomised and chosen patients cannot be told apart. "
                "Name the allocation column on the Cohort page.")
@@ -26,11 +26,11 @@ index = st.radio("Index", names, format_func=titles.get, horizontal=True, key=ui
 
 st.header(f"Where the randomised patients are, along {titles[index]}")
 coverage = ui.attempt(ws.coverage, index)
-if coverage and charts is not None:
-    ui.altair(charts.coverage_chart(coverage, arms, index_label=titles[index]),
-              charts.describe_coverage(coverage, arms, titles[index]))
+if coverage and ch_selection is not None:
+    ui.altair(ch_selection.coverage_chart(coverage, arms, index_label=titles[index]),
+              ch_selection.describe_coverage(coverage, arms, titles[index]))
     with st.expander(f"Patients per window of {titles[index]}"):
-        st.dataframe(charts.coverage_frame(coverage, arms), hide_index=True, width="stretch")
+        st.dataframe(ch_selection.coverage_frame(coverage, arms), hide_index=True, width="stretch")
 
 with_shift = ws.has_selection(None)
 if not with_shift and st.button("Add intervals for the shift in break-even (bootstrap, takes a while)"):
@@ -48,15 +48,15 @@ for outcome in ws.spec.outcomes:
     if not rows:
         continue
     st.subheader(outcome.title)
-    if charts is None:
-        ui.not_available("Selection charts", "explorer/charts.py")
+    if ch_selection is None:
+        ui.not_available("Selection charts", "explorer/charts_selection.py")
         continue
-    ui.altair(charts.selection_break_even_chart(rows[0], index_title=titles[index]),
+    ui.altair(ch_selection.selection_break_even_chart(rows[0], index_title=titles[index]),
               "Break-even points: " + "; ".join(
                   f"{what} " + (", ".join(f"{b['x']:.3g}" for b in rows[0].get(key) or []) or "none in range")
-                  for key, what in charts.SELECTION_SETS) + ".")
+                  for key, what in ch_selection.SELECTION_SETS) + ".")
     for row in rows:
-        ui.altair(charts.selection_chart(row, arms, index_title=titles[index]), charts.describe_selection(row))
+        ui.altair(ch_selection.selection_chart(row, arms, index_title=titles[index]), ch_selection.describe_selection(row))
     table = pd.DataFrame([{"arm": r["arm"], "chosen minus randomised": r["effect"], "interval": r["ci"],
                            "randomised": r["n_randomised"], "chosen": r["n_chosen"],
                            "varies along the index (p)": r.get("varies_with_index_p")} for r in rows])

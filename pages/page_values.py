@@ -4,7 +4,7 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
-from explorer.charts import fmt as charts_fmt
+from explorer.words import fmt as charts_fmt
 
 CUSTOM = "custom"
 WHOSE = {"patient": "the patient's own", "proxy": "a proxy's, on the patient's behalf", "team": "the team's"}
@@ -14,7 +14,7 @@ ws, values = ui.page_head(
     "goes below 0. The composite is each arm's expected value of these weights along the index.",
     needs=("values", "Weighing outcome states"))
 arms = list(ws.spec.cohort.arms)
-charts = ui.engine("charts")
+ch_curves = ui.engine("charts_curves")
 leeway = ui.engine("charts_values")
 
 ordinal = [o for o in ws.spec.outcomes if o.kind == "ordinal"]
@@ -123,11 +123,11 @@ for row, ((kind, _), (_, info)) in zip(rows, summaries.items()):
     else:
         st.caption("Does not use the weights above: time alive is counted at each survivor's own quality of life "
                    "from the cohort (quality-adjusted time, in the survival outcome's time units).")
-    if charts is None:
-        ui.not_available("Composite charts", "explorer/charts.py")
+    if ch_curves is None:
+        ui.not_available("Composite charts", "explorer/charts_curves.py")
     else:
-        ui.altair(charts.composite_chart(row, arms, index_label=titles[index]),
-                  charts.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin))
+        ui.altair(ch_curves.composite_chart(row, arms, index_label=titles[index]),
+                  ch_curves.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin))
     for note in row.get("notes", []):
         st.caption(aps.md_escape(note))
 

@@ -9,7 +9,7 @@ from streamlit.testing.v1 import AppTest
 from explorer import CAUTIONS, demo
 from explorer import appstate as aps
 from explorer.analysis import analyse
-from explorer.charts import fmt
+from explorer.words import fmt
 from explorer.spec import load_spec
 
 APP = Path(__file__).resolve().parents[1] / "pages" / "app.py"

@@ -5,16 +5,21 @@ from __future__ import annotations
 import dataclasses
 import math
 import re
+from typing import Any
 
 import altair as alt
 import numpy as np
 import pandas as pd
 import pytest
 
-from explorer import charts as ch
+from explorer import charts_checks as ck
+from explorer import charts_common as cc
+from explorer import charts_curves as cu
+from explorer import charts_selection as cs
 from explorer import charts_patient as cp
 from explorer import charts_values as cv
 from explorer import look
+from explorer import words as wd
 from explorer import values as vl
 from explorer.analysis import analyse
 from explorer.fitting import fit_all
@@ -74,25 +79,25 @@ def test_every_results_row_builds_outcome_and_difference_charts(result, doc):
     arms = doc["arms"]
     assert len(doc["results"]) == len(result.spec.outcomes) * len(result.spec.indices)
     for row in doc["results"]:
-        points = ch.cohort_points(result.fitset, row["outcome"], row["index"], max_points=300)
+        points = cu.cohort_points(result.fitset, row["outcome"], row["index"], max_points=300)
         assert set(points.columns) == {"x", "y", "arm", "allocation"}
         assert set(points["allocation"]) <= {"randomised", "chosen"}
-        _validated(ch.outcome_chart(row, arms, points, patient={"x": row["range"][0]}))
-        _validated(ch.difference_chart(row, arms, margin=0.05))
+        _validated(cu.outcome_chart(row, arms, points, patient={"x": row["range"][0]}))
+        _validated(cu.difference_chart(row, arms, margin=0.05))
 
 
 def test_every_composite_and_selection_row_builds(result, doc):
     arms = doc["arms"]
     assert doc["composite"] and doc["selection"]
     for row in doc["composite"]:
-        _validated(ch.composite_chart(row, arms))
+        _validated(cu.composite_chart(row, arms))
         if row.get("acceptability"):
             _validated(cv.preference_chart(row["acceptability"], arms, index_title=row["index"]))
         if row.get("thresholds"):
             _validated(cv.leeway_chart(cv.leeway(row["thresholds"]), arms, where="CFS 5"))
     for row in doc["selection"]:
-        _validated(ch.selection_chart(row, arms))
-        _validated(ch.selection_break_even_chart(row))
+        _validated(cs.selection_chart(row, arms))
+        _validated(cs.selection_break_even_chart(row))
 
 
 def test_per_hundred_rows_count_to_100_label_every_run_and_decode(result, doc):
@@ -104,7 +109,7 @@ def test_per_hundred_rows_count_to_100_label_every_run_and_decode(result, doc):
     drawn = cp.counts_of(spec)
     for arm in arms:
         assert sum(drawn[arm].values()) == 100
-        assert drawn[arm] == {k: v for k, v in ch.per_hundred(probs[arm]).items() if v}
+        assert drawn[arm] == {k: v for k, v in wd.per_hundred(probs[arm]).items() if v}
     marks = next(r for r in _records(spec) if "person" in r[0])
     for arm in arms:  # one row per arm, people 1..100 left to right, sorted by state in the levels' order
         row = sorted((m for m in marks if m["arm"] == arm), key=lambda m: m["person"])
@@ -116,12 +121,12 @@ def test_per_hundred_rows_count_to_100_label_every_run_and_decode(result, doc):
     for lab in labels:  # each run is named beside it: its count and state, starting where the run starts
         first = min((m for m in marks if m["arm"] == lab["arm"] and m["state"] == lab["state"]),
                     key=lambda m: m["person"])
-        assert lab["x"] == first["x0"] and lab["text"] == f"{lab['n']} {ch.words(lab['state'])}"
-    assert len(labels) == sum(1 for a in arms for v in ch.per_hundred(probs[a]).values() if v)
+        assert lab["x"] == first["x0"] and lab["text"] == f"{lab['n']} {wd.words(lab['state'])}"
+    assert len(labels) == sum(1 for a in arms for v in wd.per_hundred(probs[a]).values() if v)
     # the key decodes: its swatches are the states' own colours, in order, not a dark figure
     fill = next(e["fill"] for e in _walk(spec) if isinstance(e.get("fill"), dict) and "legend" in e["fill"])
-    colours = ch.state_colours(levels)
-    assert fill["scale"]["domain"] == [ch.words(lv) for lv in levels]
+    colours = cc.state_colours(levels)
+    assert fill["scale"]["domain"] == [wd.words(lv) for lv in levels]
     assert fill["scale"]["range"] == [colours[lv] for lv in levels]
     assert fill["legend"]["symbolType"] == "square" and "symbolFillColor" not in fill["legend"]
     assert not any(isinstance(e.get("shape"), str) and e["shape"].lstrip().startswith("M") for e in _walk(spec))
@@ -130,27 +135,27 @@ def test_per_hundred_rows_count_to_100_label_every_run_and_decode(result, doc):
     assert lum == sorted(lum, reverse=True)
     assert colours[levels[0]] != "#009E73" and colours["dead"] != "#000000"
     assert set(colours[lv] for lv in levels[:-1]) <= PUBLISHED_OKABE_ITO
-    assert not set(colours.values()) & set(ch.ARM_COLOURS)
+    assert not set(colours.values()) & set(look.ARM_COLOURS)
     for arm in arms:
-        assert f"With {arm}: " + ", ".join(f"{n} {ch.words(k)}" for k, n in ch.per_hundred(probs[arm]).items()) \
+        assert f"With {arm}: " + ", ".join(f"{n} {wd.words(k)}" for k, n in wd.per_hundred(probs[arm]).items()) \
             in spec["description"]
     frame = pd.DataFrame({"x": result.fitset.indices["cfs"].values,
                           "arm": result.fitset.cohort.frame[result.spec.cohort.arm].to_numpy()})
-    _validated(ch.index_distribution_chart(frame, arms=doc["arms"], label="Clinical Frailty Scale", patient_x=6))
+    _validated(cu.index_distribution_chart(frame, arms=doc["arms"], label="Clinical Frailty Scale", patient_x=6))
 
 
 def test_strip_beneath_the_plot_carries_the_clear_regions_and_the_break_even(doc):
     arms = doc["arms"]
     row = next(r for r in doc["results"] if r["break_even"] and len(r.get("clear_difference") or []) >= 2)
-    spec = _validated(ch.outcome_chart(row, arms))
+    spec = _validated(cu.outcome_chart(row, arms))
     lo, hi = row["range"]
     band = sorted({(r["from"], r["to"]): r for t in _records(spec) for r in t if "fill" in r and "region" in r}.values(),
                   key=lambda r: r["from"])
     # the band covers the observed range end to end, without gaps or overlaps
     assert band[0]["from"] == pytest.approx(lo) and band[-1]["to"] == pytest.approx(hi)
     assert all(a["to"] == pytest.approx(b["from"]) for a, b in zip(band, band[1:]))
-    colours = ch.arm_colours(arms)
-    clear = [(r["from"], r["to"], colours[r["favours"]]) for r in ch.clear_regions(row)]
+    colours = look.arm_colours(arms)
+    clear = [(r["from"], r["to"], colours[r["favours"]]) for r in cu.clear_regions(row)]
     assert [(b["from"], b["to"], b["fill"]) for b in band if b["fill"] != look.NEUTRAL] == clear
     assert {b["region"] for b in band if b["fill"] == look.NEUTRAL} == {"no clear difference"}
     for b in band:  # words inside a segment read at 4.5:1 or better on its colour
@@ -159,18 +164,18 @@ def test_strip_beneath_the_plot_carries_the_clear_regions_and_the_break_even(doc
     for e in _walk(spec):
         if e.get("mark") in ("rect", {"type": "rect"}) or (isinstance(e.get("mark"), dict)
                                                           and e["mark"].get("type") == "rect"):
-            assert e["encoding"]["y"]["value"] > ch.HEIGHT
+            assert e["encoding"]["y"]["value"] > cc.HEIGHT
     # each break-even point sits on the strip as a diamond, its interval drawn on the same row
     diamonds = list({r["x"]: r for t in _records(spec) for r in t if "interval" in r and "label" in r}.values())
     assert sorted(d["x"] for d in diamonds) == sorted(b["x"] for b in row["break_even"])
-    assert all(d["y"] > ch.HEIGHT + ch.STRIP_BAND[1] for d in diamonds)
+    assert all(d["y"] > cc.HEIGHT + cu.STRIP_BAND[1] for d in diamonds)
     segs = [r for t in _records(spec) for r in t if {"from", "to", "left", "right"} <= set(r)]
     for b in row["break_even"]:
         lo_ci, hi_ci = b["ci"]
         ends = {(s["from"], s["to"]) for s in segs}
         assert any((lo_ci is None or s[0] == pytest.approx(max(lo_ci, s[0]))) and s[0] <= b["x"] <= s[1] for s in ends)
     axis = next(e["axis"] for e in _walk(spec) if isinstance(e.get("axis"), dict) and "offset" in e["axis"])
-    assert axis["offset"] == ch.strip_height(row)
+    assert axis["offset"] == cu.strip_height(row)
 
 
 def test_preference_chart_draws_one_quantity_without_a_half_line(doc):
@@ -227,21 +232,64 @@ def test_leeway_is_exact_one_weight_at_a_time_and_all_together(result, doc):
         else:
             assert worst(t * (1 - 1e-6)) > 0 and worst(t * (1 + 1e-6) + 1e-9) <= 0
     table = cv.leeway_table(lw)
-    assert list(table["state"]) == [ch.words(lv) for lv in cm.levels]
+    assert list(table["state"]) == [wd.words(lv) for lv in cm.levels]
     assert "flip" not in str(table).lower()
+
+
+def km_chart(fs: Any, outcome: str, *, index: str | None = None, between: tuple[float, float] | None = None,
+             style: bool = True) -> alt.TopLevelMixin:
+    """A test-only chart: Kaplan-Meier curves per arm fitted here by lifelines, optionally for the patients whose
+    index lies in `between`."""
+    from lifelines import KaplanMeierFitter
+
+    o = fs.spec.outcome(outcome)
+    if o.kind != "survival":
+        raise ValueError(f"outcome '{outcome}' is not a survival outcome")
+    pf = next(p for (name, _), p in fs.pairs.items() if name == outcome and (index is None or p.index == index))
+    arms = list(pf.fits)
+    recs, counts = [], {}
+    for arm in arms:
+        d = pf.data[arm]
+        keep = np.ones(len(d.x), bool) if between is None else (d.x >= between[0]) & (d.x <= between[1])
+        counts[arm] = int(keep.sum())
+        if not keep.any():
+            continue
+        km = KaplanMeierFitter().fit(np.asarray(d.time)[keep], np.asarray(d.event)[keep])
+        sf = km.survival_function_.iloc[:, 0]
+        ci = km.confidence_interval_survival_function_
+        for t, v, lo, hi in zip(sf.index, sf.to_numpy(), ci.iloc[:, 0].to_numpy(), ci.iloc[:, 1].to_numpy()):
+            recs.append({"time": float(t), "survival": float(v), "lower": float(lo), "upper": float(hi), "arm": arm})
+    df = pd.DataFrame(recs, columns=["time", "survival", "lower", "upper", "arm"])
+    colour = alt.Color("arm:N", scale=cc._arm_scale(arms), legend=cc.ARM_LEGEND)
+    unit = f" ({o.units})" if o.units else ""
+    x = alt.X("time:Q", title=f"time{unit}")
+    layers = ck._km_steps(cc._chart(df), x, colour, 3)
+    if o.horizon:
+        layers.append(cc._chart(pd.DataFrame([{"t": float(o.horizon)}])).mark_rule(color=look.INK, strokeDash=[5, 4])
+                      .encode(x=alt.X("t:Q")))
+    chart = cc._sized(alt.layer(*layers), cc.WIDTH, cc.HEIGHT)
+    where = "" if between is None else f", {pf.index} {wd.fmt(between[0])} to {wd.fmt(between[1])}"
+    at = []
+    for arm in arms:
+        part = df[(df["arm"] == arm) & (df["time"] <= (o.horizon or np.inf))]
+        if len(part):
+            at.append(f"{arm} {wd.fmt(part['survival'].iloc[-1])} ({counts[arm]} patients)")
+    desc = (f"Kaplan-Meier survival by arm for {o.title}{where}"
+            + (f"; at {o.horizon:g}{unit}: " + ", ".join(at) if at else "") + ".")
+    return cc._finish(chart, f"{o.title}: Kaplan-Meier by arm{where}", "dashed line: the horizon", desc, style)
 
 
 def test_kaplan_meier_chart_agrees_with_lifelines(result):
     from lifelines import KaplanMeierFitter
 
-    spec = _validated(ch.km_chart(result.fitset, "alive", index="cfs", between=(6, 9)))
+    spec = _validated(km_chart(result.fitset, "alive", index="cfs", between=(6, 9)))
     pf = result.fitset.pair("alive", "cfs")
     arm = result.spec.cohort.arms[0]
     d = pf.data[arm]
     keep = (d.x >= 6) & (d.x <= 9)
     km = KaplanMeierFitter().fit(d.time[keep], d.event[keep])
     ref = float(km.predict(365.0))
-    assert f"{arm} {ch.fmt(ref)}" in spec["description"]
+    assert f"{arm} {wd.fmt(ref)}" in spec["description"]
 
 
 def test_pairwise_chart_builds(result, doc):
@@ -250,20 +298,20 @@ def test_pairwise_chart_builds(result, doc):
     spec = result.spec
     rows = pw.pairwise_rows(spec, result.fitset.cohort, "cfs", result.fitset.indices["cfs"].values, replicates=20,
                             seed=1)
-    _validated(ch.pairwise_chart(rows, doc["arms"], index_title="Clinical Frailty Scale"))
+    _validated(cs.pairwise_chart(rows, doc["arms"], index_title="Clinical Frailty Scale"))
 
 
 def test_arm_colours_are_okabe_ito_distinct_and_not_green_against_red(doc):
     arms = doc["arms"]
-    colours = ch.arm_colours(arms)
+    colours = look.arm_colours(arms)
     assert set(colours.values()) <= PUBLISHED_OKABE_ITO
     assert len(set(colours.values())) == 2
     assert not set(colours.values()) & GREENISH_OR_RED
-    spec = ch.outcome_chart(doc["results"][0], arms).to_dict()
+    spec = cu.outcome_chart(doc["results"][0], arms).to_dict()
     colour_scales = [s for s in _scales(spec, "color") if s.get("domain") == list(arms)]
     assert colour_scales and all(s["range"] == [colours[a] for a in arms] for s in colour_scales)
     with pytest.raises(ValueError):
-        ch.arm_colours([arms[0], arms[0]])
+        look.arm_colours([arms[0], arms[0]])
 
 
 def test_randomised_and_chosen_differ_by_shape_named_in_words(_demo_master):
@@ -274,9 +322,9 @@ def test_randomised_and_chosen_differ_by_shape_named_in_words(_demo_master):
     fs = fit_all(spec)
     row = analyse(spec, fitset=fs).document["results"][0]
     doc = {"arms": list(spec.cohort.arms)}
-    points = ch.cohort_points(fs, row["outcome"], row["index"])
+    points = cu.cohort_points(fs, row["outcome"], row["index"])
     assert {"randomised", "chosen"} <= set(points["allocation"])
-    spec = ch.outcome_chart(row, doc["arms"], points).to_dict()
+    spec = cu.outcome_chart(row, doc["arms"], points).to_dict()
     shape_scales = [s for s in _scales(spec, "shape") if s.get("domain") == ["randomised", "chosen"]]
     assert shape_scales
     for s in shape_scales:
@@ -298,10 +346,10 @@ def _row_numbers(row: dict) -> set[str]:
                 nums.extend(float(x) for x in v if isinstance(x, (int, float)) and not isinstance(x, bool))
             elif isinstance(v, str):
                 texts.append(v)
-    out = {ch.fmt(v) for v in nums}
+    out = {wd.fmt(v) for v in nums}
     lo, hi = row["range"]
-    out |= {ch.fmt(min(max(v, lo), hi)) for v in nums}
-    if ch.is_discrete(row):
+    out |= {wd.fmt(min(max(v, lo), hi)) for v in nums}
+    if cc.is_discrete(row):
         out |= {str(f(v)) for v in nums for f in (math.floor, math.ceil)}
     for t in texts:
         out |= set(NUMBER.findall(t))
@@ -311,20 +359,20 @@ def _row_numbers(row: dict) -> set[str]:
 def test_describe_row_says_only_numbers_of_the_row(doc):
     arms = doc["arms"]
     for row in doc["results"] + doc["composite"]:
-        sentence = ch.describe_row(row, arms)
+        sentence = cu.describe_row(row, arms)
         allowed = _row_numbers(row)
         found = NUMBER.findall(sentence)
         assert found, sentence
         assert set(found) <= allowed, (sentence, set(found) - allowed)
         for b in row["break_even"]:
-            if ch.is_discrete(row):
+            if cc.is_discrete(row):
                 assert str(math.floor(b["x"])) in found
             else:
-                assert ch.fmt(b["x"]) in found
+                assert wd.fmt(b["x"]) in found
             for end in b["ci"]:
                 if end is not None:
-                    assert ch.fmt(end) in found
-        for arm in {b["favours_below"] for b in row["break_even"]} | {r["favours"] for r in ch.clear_regions(row)}:
+                    assert wd.fmt(end) in found
+        for arm in {b["favours_below"] for b in row["break_even"]} | {r["favours"] for r in cu.clear_regions(row)}:
             assert arm in sentence
 
 
@@ -351,11 +399,11 @@ def _hand_row(shape: str, ci: list, discrete: bool = False) -> dict:
 ])
 def test_interval_shapes_are_said_and_drawn(shape, ci, words):
     row = _hand_row(shape, ci)
-    sentence = ch.describe_row(row, ["A", "B"])
+    sentence = cu.describe_row(row, ["A", "B"])
     assert words in sentence and "approximate" in sentence and "Fieller" in sentence
     # the region runs from 0.2 on the search grid, but the sentence speaks of the observed range only
     assert "from 1 to 4.5" in sentence
-    spec = _validated(ch.outcome_chart(row, ["A", "B"]))
+    spec = _validated(cu.outcome_chart(row, ["A", "B"]))
     texts = {v.get("text") for r in _records(spec) for v in r}
     if ci[0] is None or ci[1] is None or shape == "two_rays":
         assert "open" in texts
@@ -364,7 +412,7 @@ def test_interval_shapes_are_said_and_drawn(shape, ci, words):
 def test_discrete_index_is_spoken_by_whole_levels():
     row = _hand_row("finite", [5.1, 7.2], discrete=True)
     row["break_even"][0]["x"] = 6.4
-    sentence = ch.describe_row(row, ["A", "B"])
+    sentence = cu.describe_row(row, ["A", "B"])
     assert "between levels 6 and 7 (at 6.4)" in sentence
     assert "at levels up to 6 A is favoured, from level 7 B" in sentence
     assert "at levels 1 to 4, favouring A" in sentence
@@ -373,19 +421,19 @@ def test_discrete_index_is_spoken_by_whole_levels():
 def test_no_break_even_says_who_is_favoured_throughout():
     row = _hand_row("finite", [5.1, 7.2])
     row["break_even"], row["favours_throughout"], row["clear_difference"] = [], "B", []
-    sentence = ch.describe_row(row, ["A", "B"])
+    sentence = cu.describe_row(row, ["A", "B"])
     assert "B is favoured throughout the observed range (1 to 9)" in sentence
     assert "Nowhere" in sentence
 
 
 def test_breakeven_table_has_one_row_per_outcome_index_and_composite(doc):
-    table = ch.breakeven_table(doc)
+    table = cu.breakeven_table(doc)
     assert len(table) == len(doc["results"]) + len(doc["composite"])
     assert list(table.columns) == ["outcome", "index", "break-even", "interval", "favoured below",
                                    "favoured above", "clear difference", "measure"]
     for (_, t), row in zip(table.iterrows(), doc["results"] + doc["composite"]):
         if row["break_even"]:
-            assert t["break-even"].split(";")[0].split(" ")[0] == ch.fmt(row["break_even"][0]["x"])
+            assert t["break-even"].split(";")[0].split(" ")[0] == wd.fmt(row["break_even"][0]["x"])
             assert row["break_even"][0]["favours_below"] in t["favoured below"]
         else:
             assert t["favoured below"] == f"{row['favours_throughout']} throughout"
@@ -393,11 +441,11 @@ def test_breakeven_table_has_one_row_per_outcome_index_and_composite(doc):
 
 def test_per_hundred_adds_to_100_by_largest_remainders():
     # Hamilton's largest-remainder apportionment (common practice): 33.3/33.3/33.4 -> 33/33/34.
-    assert ch.per_hundred({"a": 1 / 3, "b": 1 / 3, "c": 1 / 3 + 1e-9}) == {"a": 33, "b": 33, "c": 34}
+    assert wd.per_hundred({"a": 1 / 3, "b": 1 / 3, "c": 1 / 3 + 1e-9}) == {"a": 33, "b": 33, "c": 34}
     rng = np.random.default_rng(4)
     for _ in range(50):
         p = rng.dirichlet(np.ones(5))
-        counts = ch.per_hundred(dict(zip("abcde", p)))
+        counts = wd.per_hundred(dict(zip("abcde", p)))
         assert sum(counts.values()) == 100
         assert all(abs(counts[k] - 100 * v) < 1 for k, v in zip("abcde", p))
 
@@ -405,15 +453,15 @@ def test_per_hundred_adds_to_100_by_largest_remainders():
 def test_fmt_reads_as_three_significant_figures():
     # Python's own 3-significant-figure formatting is the reference.
     for v in (0.123456, 12.345, 123.456, -4.5678, 0.000123456, 9.996):
-        assert float(ch.fmt(v)) == pytest.approx(float(f"{v:.3g}"))
-    assert ch.fmt(None) == "open" and ch.fmt(0.0) == "0" and ch.fmt(1234.5) == "1234"
+        assert float(wd.fmt(v)) == pytest.approx(float(f"{v:.3g}"))
+    assert wd.fmt(None) == "open" and wd.fmt(0.0) == "0" and wd.fmt(1234.5) == "1234"
 
 
 def test_png_and_svg_export(doc):
-    chart = ch.difference_chart(doc["results"][0], doc["arms"])
-    png = ch.chart_to_png(chart, scale=1)
+    chart = cu.difference_chart(doc["results"][0], doc["arms"])
+    png = cc.chart_to_png(chart, scale=1)
     assert png[:8] == b"\x89PNG\r\n\x1a\n"
-    svg = ch.chart_to_svg(chart)
+    svg = cc.chart_to_svg(chart)
     assert svg.lstrip().startswith("<svg") and "</svg>" in svg
 
 
@@ -424,9 +472,9 @@ def test_cohort_points_sample_large_cohorts_by_arm_and_say_so(result):
     frame = fs.cohort.frame
     rows = np.concatenate(list(pf.rows.values()))
     share = frame[fs.spec.cohort.arm].iloc[rows].value_counts(normalize=True)
-    whole = ch.cohort_points(fs, "function", "age", max_points=len(rows) + 1)
+    whole = cu.cohort_points(fs, "function", "age", max_points=len(rows) + 1)
     assert len(whole) == len(rows) and whole.attrs["sample_note"] is None
-    shown = ch.cohort_points(fs, "function", "age", max_points=200, seed=4)
+    shown = cu.cohort_points(fs, "function", "age", max_points=200, seed=4)
     assert len(shown) == 200
     counts = shown["arm"].value_counts()
     for arm, p in share.items():
@@ -435,4 +483,4 @@ def test_cohort_points_sample_large_cohorts_by_arm_and_say_so(result):
     assert "seed 4" in shown.attrs["sample_note"]
     # the sampled points are patients of the cohort: their (unjittered, continuous) ages are cohort ages
     assert set(shown["x"]) <= set(frame["age"].iloc[rows])
-    assert shown.equals(ch.cohort_points(fs, "function", "age", max_points=200, seed=4))
+    assert shown.equals(cu.cohort_points(fs, "function", "age", max_points=200, seed=4))

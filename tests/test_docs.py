@@ -18,7 +18,7 @@ from explorer.spec import SCHEMA, MapSpec, load_spec, parse_spec_text
 ROOT = Path(__file__).resolve().parents[1]
 DOCS = ROOT / "docs"
 GUIDES = ("clinician-guide.md", "researcher-guide.md", "glossary.md", "methods.md", "spec-reference.md")
-# The words the app, charts and report show that a reader must be able to look up (pages/*.py, explorer/charts.py).
+# The words the app, charts and report show that a reader must be able to look up (pages/*.py, explorer/charts_*.py).
 APP_TERMS = (
     "break-even point", "index", "prognostic index", "cross-fitted", "margin", "clear-difference region",
     "interval", "pointwise", "simultaneous band", "Fieller", "delta method", "bootstrap percentile", "two rays",

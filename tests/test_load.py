@@ -24,7 +24,7 @@ import pytest
 from explorer import appstate as aps
 from explorer import demo, results
 from explorer.analysis import analyse
-from explorer.charts import fmt
+from explorer.words import fmt
 from explorer.spec import load_spec, parse_spec
 
 from browser_helpers import CHROMIUM, CHROMIUM_ARGS, IDLE, VIEWPORT, app_server

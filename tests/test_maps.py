@@ -15,6 +15,7 @@ from statsmodels.miscmodels.ordinal_model import OrderedModel
 
 from explorer import analysis as an
 from explorer import fitting as ft
+from explorer import charts_maps
 from explorer import maps
 from explorer.errors import FulcrumError
 from explorer.spec import MapSpec, load_spec
@@ -301,7 +302,7 @@ def test_report_sections_carry_the_map_chart_sentence_and_coefficients(tmp_path,
     spec = dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, checks=False))
     result = an.analyse(spec)
     result.document["maps"] = maps.decision_maps(result.fitset, n=25)
-    sections = maps.map_sections(result.document)
+    sections = charts_maps.map_sections(result.document)
     assert len(sections) == 1
     html = render_report(result, extra_sections=sections, points=0)
     assert str(escape(sections[0]["title"])) in html

@@ -17,7 +17,7 @@ from scipy import stats
 
 from explorer import analysis as an
 from explorer import breakeven as be
-from explorer import charts, coverage
+from explorer import charts_curves, coverage
 from explorer import fitting as ft
 from explorer.cli import summary_table
 from explorer.errors import FulcrumError
@@ -119,7 +119,7 @@ def test_favours_throughout_honours_the_margin(tmp_path, pbc):
     assert row["margin"] == 0.6 and not row["break_even"]
     assert row["favours_throughout"] == "placebo"  # drug minus placebo stays below 0.6 everywhere
     assert all(r["favours"] == "placebo" for r in row["clear_difference"])  # consistent with the regions
-    words = charts.describe_row(row, res.document["arms"])
+    words = charts_curves.describe_row(row, res.document["arms"])
     assert "drug not better by more than the margin (0.6) throughout" in words
     assert "favour" not in words
     table = summary_table(res.document)

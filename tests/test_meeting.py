@@ -74,7 +74,8 @@ def test_the_headline_table_reads_the_results_rows_in_words(small_ws: aps.Worksp
 def test_a_two_ray_break_even_interval_is_drawn_as_two_rays_within_the_index() -> None:
     # A Fieller interval for a ratio is the union of two rays when the denominator is not clearly non-zero
     # (Fieller 1954; common practice). An "interval" of -18.7 to 5.94 around 7.86 is such a pair.
-    from explorer.charts import chart_spec, interval_pieces, selection_break_even_chart
+    from explorer.charts_common import chart_spec
+    from explorer.charts_selection import interval_pieces, selection_break_even_chart
 
     assert interval_pieces(7.86, -18.7, 5.94, "finite", (1.0, 9.0)) == [(5.94, 9.0, False, True)]
     assert interval_pieces(5.0, 2.0, 8.0, "two_rays", (1.0, 9.0)) == [(1.0, 2.0, True, False), (8.0, 9.0, False, True)]
@@ -90,7 +91,7 @@ def test_a_two_ray_break_even_interval_is_drawn_as_two_rays_within_the_index() -
 
 
 def test_numbered_levels_read_as_levels_and_named_ones_as_words() -> None:
-    from explorer.charts import words
+    from explorer.words import words
 
     # a 0-6 scale such as the modified Rankin Scale has numbered levels (common practice)
     assert [words(v) for v in ("0", "6", "home_with_help")] == ["level 0", "level 6", "home with help"]

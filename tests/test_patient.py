@@ -14,10 +14,10 @@ import pytest
 from scipy import stats
 
 from explorer import CAUTIONS
-from explorer.charts import fmt
 from explorer.fitting import fit_all
 from explorer.patient import PatientView, place_patient
 from explorer.patient_summary import summary_content, summary_html
+from explorer.words import fmt
 from explorer.spec import load_spec
 
 NUMBER = re.compile(r"-?\d+(?:\.\d+)?")

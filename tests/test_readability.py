@@ -10,11 +10,11 @@ import pytest
 import textstat
 from test_patient import _runs
 
-from explorer.charts import fmt
 from explorer.conversation import questions, record_conversation
 from explorer.fitting import fit_all
 from explorer.patient import place_patient
 from explorer.spec import load_spec
+from explorer.words import fmt
 
 NUMBER = re.compile(r"(?<![\w.])-?\d+(?:\.\d+)?")
 # Demo patients across the Clinical Frailty Scale (1-9) and age, spoken along each of the two; one beyond the

@@ -14,7 +14,7 @@ import pytest
 
 from explorer import CAUTIONS, demo
 from explorer.analysis import analyse
-from explorer.report import Section, render_report, script_json, write_report
+from explorer.report import Section, chart_payload, embedded_results, render_report, unpacked, write_report
 from explorer.spec import load_spec
 
 ATTR_URL = re.compile(r"""\b(?:src|href|action|xlink:href)\s*=\s*["']?\s*(?:https?:)?//""", re.I)
@@ -79,8 +79,11 @@ def test_report_is_self_contained(html):
         if key in ("src", "href"):
             assert not re.match(r"\s*(https?:)?//", value), (tag, key, value)
     assert "<link" not in html and "@import" not in html
-    bundle = [text for attrs, text in parsed.scripts if not attrs]
-    assert any("vegaEmbed" in text and len(text) > 100_000 for text in bundle)
+    packed = {attrs.get("id"): text for attrs, text in parsed.scripts if attrs.get("type") == "application/octet-stream"}
+    assert set(packed) >= {"fulcrum-results", "fulcrum-charts", "fulcrum-vega"}
+    assert not any("<" in text for text in packed.values())  # base85 without '<': nothing can close <script>
+    bundle = unpacked(packed["fulcrum-vega"])
+    assert "vegaEmbed" in bundle and len(bundle) > 100_000
 
 
 def test_cautions_top_and_bottom(html):
@@ -92,16 +95,19 @@ def test_cautions_top_and_bottom(html):
 
 
 def test_embedded_json_parses_back(result, html):
-    scripts = {attrs.get("id"): text for attrs, text in _parsed(html).scripts if attrs.get("type") == "application/json"}
-    doc = json.loads(scripts["fulcrum-results"])
-    assert doc["arms"] == result.document["arms"]
+    doc = embedded_results(html)
+    assert doc == json.loads(json.dumps(result.document))  # the whole results document, as the JSON file has it
     assert [r["outcome"] for r in doc["results"]] == [r["outcome"] for r in result.document["results"]]
     assert doc["results"][0]["break_even"] == result.document["results"][0]["break_even"]
-    charts = json.loads(scripts["fulcrum-charts"])
+    charts = chart_payload(html)["charts"]
     ids = re.findall(r'<div id="(chart-\d+)" role="img"', html)
     assert [c["id"] for c in charts] == ids and len(ids) >= len(result.document["results"])
     for c in charts[:3]:
         alt.Chart.from_dict(c["spec"]) if "mark" in c["spec"] else alt.LayerChart.from_dict(c["spec"])
+    for c in charts:  # every chart's data is there, kept to four significant figures
+        for rows in c["spec"]["datasets"].values():
+            for r in rows:
+                assert all(v == float(f"{v:.4g}") for v in r.values() if isinstance(v, float)), r
 
 
 def test_provenance_spec_and_versions(result, html):
@@ -116,10 +122,16 @@ def test_provenance_spec_and_versions(result, html):
             assert text.replace("'", "&#39;") in html
 
 
-def test_script_json_is_safe_inside_script():
-    text = str(script_json({"a": "</script><!-- & \u2028"}))
-    assert "</" not in text and "<!--" not in text and "\u2028" not in text
-    assert json.loads(text) == {"a": "</script><!-- & \u2028"}
+def test_packed_blocks_round_trip_and_hold_no_angle_bracket():
+    """Whatever the text (script tags, comment openers, line separators, non-Latin letters), a packed block never
+    holds '<' and unpacks to the same text; by_columns and by_rows are exact inverses on a results-shaped document."""
+    from explorer.report import by_columns, by_rows, packed
+
+    text = "</script><!-- & \u2028 " + "é漢" * 50 + ATTACK * 30
+    block = str(packed(text))
+    assert "<" not in block and unpacked(block) == text
+    doc = {"rows": [{"x": float(i), "ci": [i, None], "who": ATTACK} for i in range(7)], "few": [{"a": 1}], "n": 3}
+    assert by_rows(json.loads(json.dumps(by_columns(doc)))) == doc
 
 
 def test_extra_sections_are_escaped(result):
@@ -180,12 +192,10 @@ def test_script_tags_in_labels_levels_and_names_are_escaped(tmp_path):
     assert "<script>alert" not in html
     for k in (1, 2, 3, 4):
         assert f"&lt;script&gt;alert({k})&lt;/script&gt;" in html, k
-    assert "\\u003cscript\\u003ealert(1)" in html
-    scripts = {attrs.get("id"): text for attrs, text in _parsed(html).scripts if attrs.get("type") == "application/json"}
-    doc = json.loads(scripts["fulcrum-results"])
+    doc = embedded_results(html)
     assert doc["arms"][0] == ATTACK
-    charts = json.loads(scripts["fulcrum-charts"])
-    assert any(ATTACK in json.dumps(c["spec"]) for c in charts)
+    charts = chart_payload(html)
+    assert any(ATTACK in json.dumps(c["spec"]) for c in charts["charts"])
 
 
 @pytest.mark.browser
@@ -226,3 +236,45 @@ def test_sampled_points_are_said_beside_each_outcome_chart(result):
         assert found and 200 < int(found.group(1).replace(",", "")) <= sum(row["n"].values())
     every = outcome_sections(result, result.document, points=10_000)
     assert not any("The chart shows" in s["sentence"] for s in every)
+
+
+REPORT_LIMIT = 2_000_000  # issue 17 item 5: the demo's offline report is at most 2 MB (benchmarks/app_speed.py)
+
+
+def test_demo_report_is_at_most_two_megabytes(_demo_master, tmp_path):
+    """The whole demo analysis (every outcome, index, map, rule and evidence section) makes a report of at most
+    2 MB that still holds the full results document and a chart for every chart slot."""
+    result = analyse(load_spec(_demo_master / "demo.toml"))
+    path = write_report(result, tmp_path / "demo.html")
+    html = path.read_text(encoding="utf-8")
+    assert path.stat().st_size <= REPORT_LIMIT, path.stat().st_size
+    assert embedded_results(html) == json.loads(json.dumps(result.document))
+    ids = re.findall(r'<div id="(chart-\d+)" role="img"', html)
+    assert [c["id"] for c in chart_payload(html)["charts"]] == ids and len(ids) > 100
+
+
+def test_kaplan_meier_and_coverage_come_from_the_results(result, html):
+    """The report draws Kaplan-Meier curves and randomised coverage from the results document (it fits nothing):
+    the results' all-patient curve agrees with lifelines' KaplanMeierFitter at the horizon, every index has its
+    bands, and the coverage windows count every randomised and chosen patient of the cohort."""
+    from lifelines import KaplanMeierFitter
+
+    doc = result.document
+    spec, fs = result.spec, result.fitset
+    o = next(o for o in spec.outcomes if o.kind == "survival")
+    frame = fs.cohort.frame
+    for arm in spec.cohort.arms:
+        row = next(c for c in doc["kaplan_meier"] if c["outcome"] == o.name and c["index"] is None and c["arm"] == arm)
+        ok = (frame[spec.cohort.arm] == arm).to_numpy() & fs.cohort.complete(o)
+        ref = KaplanMeierFitter().fit(frame[o.time][ok], frame[o.event][ok])  # lifelines, the reference library
+        step = [s for s in row["steps"] if s["time"] <= o.horizon][-1]
+        assert step["survival"] == pytest.approx(float(ref.predict(o.horizon)), abs=1e-6)
+        assert row["n"] == int(ok.sum())
+    for ix in fs.indices:
+        assert {c["band"]["label"] for c in doc["kaplan_meier"] if c["index"] == ix and c["outcome"] == o.name}
+    randomised = fs.cohort.randomised.to_numpy(bool)
+    for entry in doc["coverage"]:
+        counted = sum(w["n"][a]["randomised"] for w in entry["windows"] for a in doc["arms"])
+        x = fs.indices[entry["index"]].values
+        assert counted == int((randomised & pd.notna(x)).sum())
+    assert "Kaplan-Meier curves in bands of" in html and "Where the randomised patients are" in html

@@ -16,7 +16,11 @@ from lifelines import KaplanMeierFitter
 from scipy import stats
 from streamlit.testing.v1 import AppTest
 
-from explorer import charts as ch
+from explorer import charts_checks as ck
+from explorer import charts_common as cc
+from explorer import charts_curves as cu
+from explorer import charts_selection as cs
+from explorer import words as wd
 from explorer.analysis import analyse
 from explorer.checks import km_curves
 from explorer.report import render_report
@@ -78,36 +82,36 @@ def test_every_checks_row_draws_valid_charts(doc, result):
     assert len(checks) == len(doc["results"]) and checks
     for c in checks:
         row = _row(doc, c["outcome"], c["index"])
-        for chart in (ch.observed_fitted_chart(c, arms, row), ch.observed_fitted_chart(c, arms),
-                      ch.sliding_window_chart(c, arms, row)):
+        for chart in (ck.observed_fitted_chart(c, arms, row), ck.observed_fitted_chart(c, arms),
+                      ck.sliding_window_chart(c, arms, row)):
             _validated(chart)
-        assert list(ch.calibration_table(c)["arm"]) == arms
+        assert list(ck.calibration_table(c)["arm"]) == arms
         if c["kind"] == "survival":
-            _validated(ch.horizon_chart(c, arms, row, units="days"))
+            _validated(ck.horizon_chart(c, arms, row, units="days"))
     fs = result.fitset
     for name in ("alive", "alive_6m"):
         o = fs.spec.outcome(name)
-        _validated(ch.kaplan_meier_chart(km_curves(fs.cohort, name), arms, units=o.units, horizon=o.horizon))
+        _validated(ck.kaplan_meier_chart(km_curves(fs.cohort, name), arms, units=o.units, horizon=o.horizon))
         for index, iv in fs.indices.items():
-            _validated(ch.kaplan_meier_bands_chart(km_curves(fs.cohort, name, iv, bands=5), arms, index_label=index,
+            _validated(ck.kaplan_meier_bands_chart(km_curves(fs.cohort, name, iv, bands=5), arms, index_label=index,
                                                    units=o.units, horizon=o.horizon))
-    _validated(ch.smd_chart(doc["baseline"]))
+    _validated(ck.smd_chart(doc["baseline"]))
     for index in fs.indices:
-        _validated(ch.coverage_chart(randomised_coverage(fs, index), arms, index_label=index))
+        _validated(cs.coverage_chart(randomised_coverage(fs, index), arms, index_label=index))
 
 
 def test_observed_fitted_and_calibration_sentences_carry_the_rows_numbers(doc):
     for c in doc["checks"]:
-        said = ch.describe_observed_fitted(c)
+        said = ck.describe_observed_fitted(c)
         for arm in doc["arms"]:
             bands = [b for b in c["observed_vs_fitted"] if b["arm"] == arm and b["observed"] is not None]
             worst = max(bands, key=lambda b: abs(b["observed"] - b["fitted"]))
             assert f"in {len(bands)} bands" in said
-            assert f"observed {ch.fmt(worst['observed'])}" in said and f"fitted {ch.fmt(worst['fitted'])}" in said
-        calib = ch.describe_calibration(c)
+            assert f"observed {wd.fmt(worst['observed'])}" in said and f"fitted {wd.fmt(worst['fitted'])}" in said
+        calib = ck.describe_calibration(c)
         for k in c["calibration"]:
-            assert f"calibration slope {ch.fmt(k['slope'])}, intercept {ch.fmt(k['intercept'])}" in calib
-            assert f"band chi-square {ch.fmt(k['chi2'])} on {k['df']} df, p = {ch.fmt(k['p_value'])}" in calib
+            assert f"calibration slope {wd.fmt(k['slope'])}, intercept {wd.fmt(k['intercept'])}" in calib
+            assert f"band chi-square {wd.fmt(k['chi2'])} on {k['df']} df, p = {wd.fmt(k['p_value'])}" in calib
             # the band chi-square's p-value is its chi-square tail (scipy)
             assert k["p_value"] == pytest.approx(stats.chi2.sf(k["chi2"], k["df"]), abs=2e-6)
 
@@ -115,36 +119,36 @@ def test_observed_fitted_and_calibration_sentences_carry_the_rows_numbers(doc):
 def test_sliding_window_and_horizon_sentences_carry_the_rows_numbers(doc):
     arms = doc["arms"]
     for c in doc["checks"]:
-        said = ch.describe_sliding_window(c, arms)
+        said = ck.describe_sliding_window(c, arms)
         diffs = [w["difference"] for w in c["sliding_window"] if w["difference"] is not None]
         assert f"{len(c['sliding_window'])} windows" in said
-        assert ch.fmt(min(diffs)) in said and ch.fmt(max(diffs)) in said
+        assert wd.fmt(min(diffs)) in said and wd.fmt(max(diffs)) in said
         if c["kind"] != "survival":
             continue
-        said = ch.describe_horizon(c, units="days")
+        said = ck.describe_horizon(c, units="days")
         at = next(h for h in c["horizon_curve"] if h["spec_horizon"])
         assert at["horizon"] == next(o["horizon"] for o in doc["spec"]["outcomes"] if o["name"] == c["outcome"])
         if at["break_even"] is not None:
-            assert f"it is {ch.fmt(at['break_even'])} (interval {ch.fmt(at['ci'][0])} to {ch.fmt(at['ci'][1])})" in said
+            assert f"it is {wd.fmt(at['break_even'])} (interval {wd.fmt(at['ci'][0])} to {wd.fmt(at['ci'][1])})" in said
             assert at["break_even"] == _row(doc, c["outcome"], c["index"])["break_even"][0]["x"]
         good = [h["break_even"] for h in c["horizon_curve"] if h["break_even"] is not None
                 and not h["beyond_follow_up"]]
         if good:
-            assert f"from {ch.fmt(min(good))} to {ch.fmt(max(good))}" in said
+            assert f"from {wd.fmt(min(good))} to {wd.fmt(max(good))}" in said
 
 
 def test_kaplan_meier_sentence_agrees_with_lifelines(result):
     fs = result.fitset
     o = fs.spec.outcome("alive")
     curves = km_curves(fs.cohort, "alive")
-    said = ch.describe_km(curves, units=o.units, horizon=o.horizon)
+    said = ck.describe_km(curves, units=o.units, horizon=o.horizon)
     frame = fs.cohort.frame
     for arm in fs.spec.cohort.arms:
         part = frame[frame[fs.spec.cohort.arm] == arm]
         kmf = KaplanMeierFitter().fit(part[o.time], part[o.event])
         # lifelines' product-limit estimate at the horizon and its event count (reference library)
         s = float(kmf.survival_function_at_times(o.horizon).iloc[0])
-        assert f"{arm}: {len(part)} patients, {int(part[o.event].sum())} events, alive at 365 days {ch.fmt(s)}" in said
+        assert f"{arm}: {len(part)} patients, {int(part[o.event].sum())} events, alive at 365 days {wd.fmt(s)}" in said
 
 
 def test_coverage_and_baseline_sentences_carry_the_counts(doc, result):
@@ -153,7 +157,7 @@ def test_coverage_and_baseline_sentences_carry_the_counts(doc, result):
     arms = doc["arms"]
     for index, iv in fs.indices.items():
         coverage = randomised_coverage(fs, index)
-        said = ch.describe_coverage(coverage, arms, index)
+        said = cs.describe_coverage(coverage, arms, index)
         ok = np.isfinite(iv.values)
         # counts by arm and allocation straight from the cohort (pandas)
         counts = pd.crosstab(frame.loc[ok, fs.spec.cohort.arm], fs.cohort.randomised[ok])
@@ -161,25 +165,25 @@ def test_coverage_and_baseline_sentences_carry_the_counts(doc, result):
             assert f"{arm}: {counts.loc[arm, True]} randomised and {counts.loc[arm, False]} chosen" in said
         for c in coverage:
             if c["sparse"]:
-                assert f"{ch.fmt(c['from'])} to {ch.fmt(c['to'])} (" in said
+                assert f"{wd.fmt(c['from'])} to {wd.fmt(c['to'])} (" in said
     table = doc["baseline"]
-    said = ch.describe_baseline(table)
+    said = ck.describe_baseline(table)
     smds = [s for r in table for s in r["smd"] if s["smd"] is not None]
     flagged = [s for s in smds if abs(s["smd"]) > 0.1]
     assert f"{len(flagged)} exceed 0.1" in said
     assert f"{max(smds, key=lambda s: abs(s['smd']))['smd']:.2f}" in said
-    frame_table = ch.baseline_frame(table)
+    frame_table = ck.baseline_frame(table)
     assert sum(str(v).endswith("(above 0.1)") for v in frame_table.to_numpy().ravel()) == len(flagged)
 
 
 def test_summary_table_puts_the_effect_modification_test_before_the_break_even(doc):
-    table = ch.breakeven_summary_table(doc)
+    table = ck.breakeven_summary_table(doc)
     cols = list(table.columns)
     assert cols.index("effect changes along the index?") < cols.index("break-even") < cols.index("cohort percentile")
     for k, row in enumerate(doc["results"]):
-        em = ch.check_for(doc["checks"], row["outcome"], row["index"])["effect_modification"]
+        em = cc.check_for(doc["checks"], row["outcome"], row["index"])["effect_modification"]
         cell = table["effect changes along the index?"].iloc[k]
-        assert cell.startswith(f"p = {ch.fmt(em['p_value'])}")
+        assert cell.startswith(f"p = {wd.fmt(em['p_value'])}")
         assert ("weak evidence" in cell) == em["weak_evidence"] == (em["p_value"] >= 0.05)
 
 
@@ -194,7 +198,7 @@ def test_break_even_percentile_is_scipys_percentile_of_score(doc, result):
         for b in row["break_even"]:
             # scipy.stats.percentileofscore, kind="mean": ties counted half (reference library)
             assert b["x_percentile"] == pytest.approx(stats.percentileofscore(values, b["x"], kind="mean"), abs=1e-6)
-            assert ch.percentile_words(b) in ch.describe_percentiles(row)
+            assert wd.percentile_words(b) in ck.describe_percentiles(row)
             seen += 1
     assert seen >= 3
 
@@ -211,9 +215,9 @@ def test_report_holds_the_checks_sections(report, report_doc):
                     "Kaplan-Meier curves in bands of"):
         assert heading in text, heading
     assert text.count("Can these curves be trusted?") == len(doc["checks"])
-    assert ch.describe_baseline(doc["baseline"]) in text
+    assert ck.describe_baseline(doc["baseline"]) in text
     for c in doc["checks"]:
-        assert ch.describe_calibration(c) in text
+        assert ck.describe_calibration(c) in text
 
 
 def test_report_says_the_effect_modification_test_before_each_break_even(report, report_doc):
@@ -227,9 +231,9 @@ def test_report_says_the_effect_modification_test_before_each_break_even(report,
         label = next((o.get("label") for o in doc["spec"]["outcomes"] if o["name"] == row["outcome"]), None)
         if label:
             row["label"] = label
-        em = ch.check_for(doc["checks"], row["outcome"], row["index"])["effect_modification"]
-        test_at = text.index(ch.describe_effect_modification(em), start)
-        break_even_at = text.index(ch.describe_row(row, arms, margin=margin), start)
+        em = cc.check_for(doc["checks"], row["outcome"], row["index"])["effect_modification"]
+        test_at = text.index(ck.describe_effect_modification(em), start)
+        break_even_at = text.index(cu.describe_row(row, arms, margin=margin), start)
         assert test_at < break_even_at, (row["outcome"], row["index"])
         between = text[test_at:break_even_at]
         assert between.count("Does the effect change along the index?") == 0
@@ -270,14 +274,14 @@ def test_imputation_comparison_sits_beside_the_complete_cases(result):
     fs = result.fitset
     cut = dataclasses.replace(fs, pairs={k: p for k, p in fs.pairs.items() if k[1] == "cfs"})
     rows = im.imputed_break_evens(cut, m=2)
-    table = ch.imputation_frame(rows)
+    table = ck.imputation_frame(rows)
     assert len(table) == len(rows)
     for row, rec in zip(rows, table.to_dict("records")):
         for b in row["complete_case"]["break_even"]:
-            assert ch.fmt(b["x"]) in rec["complete cases"]
+            assert wd.fmt(b["x"]) in rec["complete cases"]
         if row["imputed"]:
             for b in row["imputed"]["break_even"]:
-                assert ch.fmt(b["x"]) in rec["imputed"]
+                assert wd.fmt(b["x"]) in rec["imputed"]
         else:
             assert rec["imputed"] == "nothing to impute"
     shown = missing_data({"imputation": rows, "results": []})

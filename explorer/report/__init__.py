@@ -1,13 +1,22 @@
 """The offline HTML report: one self-contained file (Vega scripts inlined) that opens with no network.
 
 Every chart sits beside the sentence and the table that say the same thing; every user-supplied
-string is escaped by Jinja's autoescaping, and JSON inside <script> blocks by `script_json`.
+string is escaped by Jinja's autoescaping. The report computes nothing: every number comes from the results
+document (only the patients drawn beneath the curves are sampled from the cohort). To stay small (issue 17: the
+demo's report at most 2 MB) the results document (stored by columns), the charts (each table kept once however
+many charts draw it, rounded to CHART_DIGITS figures), the tables folded in <details> and the Vega bundle travel
+gzipped in base85 blocks that the page unpacks with the browser's DecompressionStream.
 """
 from __future__ import annotations
 
+import base64
 import dataclasses
+import gzip
+import hashlib
 import json
+import math
 import platform
+import re
 from functools import lru_cache
 from importlib import metadata, resources
 from pathlib import Path
@@ -19,8 +28,13 @@ import pandas as pd
 from markupsafe import Markup
 
 from .. import CAUTIONS, __version__
-from .. import charts as ch
+from .. import charts_checks as ck
+from .. import charts_common as cc
+from .. import charts_curves as cu
+from .. import charts_selection as cs
 from .. import charts_values as cv
+from .. import look
+from .. import words as wd
 
 CURVE_TABLE_ROWS = 21
 REPORT_POINTS = 400
@@ -45,15 +59,6 @@ class Section:
 # ------------------------------------------------------------------------------------------
 # Safe embedding
 # ------------------------------------------------------------------------------------------
-def script_json(obj: Any) -> Markup:
-    """JSON that is safe inside a <script> element: '<', '>', '&' and line separators escaped."""
-    text = json.dumps(obj, ensure_ascii=False, allow_nan=False, separators=(",", ":"), default=_plain)
-    for raw, esc in (("<", "\\u003c"), (">", "\\u003e"), ("&", "\\u0026"), ("\u2028", "\\u2028"),
-                     ("\u2029", "\\u2029")):
-        text = text.replace(raw, esc)
-    return Markup(text)
-
-
 def _plain(obj: Any) -> Any:
     if isinstance(obj, np.generic):
         return obj.item()
@@ -78,8 +83,164 @@ def javascript_bundle() -> str:
     """Vega, Vega-Lite and vega-embed in one script (from vl-convert), safe to inline in <script>."""
     import vl_convert as vlc
 
-    js = vlc.javascript_bundle(vl_version=ch._vl_version())
+    js = vlc.javascript_bundle(vl_version=cc._vl_version())
     return js.replace("</script", "<\\/script").replace("<!--", "<\\!--")
+
+
+def packed(text: str) -> Markup:
+    """Text gzipped and written in base85 (RFC 1924 letters, with '.' standing for '<' so nothing can close the
+    <script type="application/octet-stream"> element it sits in); the page unpacks it with the browser's own
+    DecompressionStream. Base85 spends 5 letters on 4 bytes where base64 spends 4 on 3."""
+    letters = base64.b85encode(gzip.compress(text.encode("utf-8"), 9, mtime=0), pad=False).decode("ascii")
+    return Markup(letters.replace("<", "."))
+
+
+@lru_cache(maxsize=1)
+def packed_bundle() -> Markup:
+    """The Vega bundle, packed (about a third of its size)."""
+    return packed(javascript_bundle())
+
+
+def unpacked(text: str) -> str:
+    """The inverse of `packed` (for tests and tools reading a report)."""
+    return gzip.decompress(base64.b85decode(text.replace(".", "<"))).decode("utf-8")
+
+
+CHART_DIGITS = 4  # significant figures kept in chart data: more than a chart can show or a tooltip says
+
+
+def _rounded(obj: Any) -> Any:
+    if isinstance(obj, float):
+        return float(f"{obj:.{CHART_DIGITS}g}") if math.isfinite(obj) else None
+    if isinstance(obj, dict):
+        return {k: _rounded(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_rounded(v) for v in obj]
+    return obj
+
+
+class ChartStore:
+    """Chart specs for the page with their data shared: every table a chart draws becomes a named dataset kept once
+    (rounded to CHART_DIGITS figures) however many charts draw it, and the common look (config) is kept once."""
+
+    def __init__(self) -> None:
+        self.datasets: dict[str, list] = {}
+        self.configs: dict[str, dict] = {}
+        self.charts: list[dict] = []
+
+    def _name(self, values: Any) -> str:
+        rows = _rounded(values)
+        name = "d" + hashlib.sha256(json.dumps(rows, separators=(",", ":"), default=_plain).encode()).hexdigest()[:12]
+        self.datasets.setdefault(name, rows)
+        return name
+
+    def _hoist(self, obj: Any) -> Any:
+        if isinstance(obj, dict):
+            if isinstance(obj.get("data"), dict) and "values" in obj["data"] and len(obj["data"]) == 1:
+                obj = dict(obj, data={"name": self._name(obj["data"]["values"])})
+            return {k: self._hoist(v) for k, v in obj.items()}
+        if isinstance(obj, list):
+            return [self._hoist(v) for v in obj]
+        return obj
+
+    def add(self, cid: str, spec: dict) -> None:
+        spec = dict(spec)
+        renamed = {k: self._name(v) for k, v in (spec.pop("datasets", None) or {}).items()}
+        spec = self._hoist(_renamed(spec, renamed))
+        spec.pop("description", None)  # the page's caption holds it; the script puts it back
+        config = spec.pop("config", None)
+        if config is not None:
+            key = "c" + hashlib.sha256(json.dumps(config, sort_keys=True).encode()).hexdigest()[:8]
+            self.configs.setdefault(key, config)
+            spec["usermeta"] = {"config": key}
+        self.charts.append({"id": cid, "spec": spec})
+
+    def payload(self) -> dict:
+        return {"datasets": self.datasets, "configs": self.configs, "charts": self.charts}
+
+
+def _renamed(obj: Any, names: Mapping[str, str]) -> Any:
+    """A spec with its data references renamed (Altair's dataset names to the store's)."""
+    if isinstance(obj, dict):
+        if set(obj) == {"name"} and obj["name"] in names:
+            return {"name": names[obj["name"]]}
+        return {k: _renamed(v, names) for k, v in obj.items()}
+    if isinstance(obj, list):
+        return [_renamed(v, names) for v in obj]
+    return obj
+
+
+def _packed_block(html: str, name: str) -> str:
+    found = re.search(rf'<script type="application/octet-stream" id="{name}"[^>]*>([^<]*)</script>', html)
+    if found is None:
+        raise ValueError(f"the report holds no {name} block")
+    return unpacked(found.group(1))
+
+
+def chart_payload(html: str) -> dict:
+    """The charts a report embeds, each with its own datasets and config again (for tests and tools)."""
+    store = json.loads(_packed_block(html, "fulcrum-charts"))
+    out = []
+    for c in store["charts"]:
+        spec = dict(c["spec"])
+        used = sorted(set(re.findall(r'"name": ?"(d[0-9a-f]{12})"', json.dumps(spec))))
+        spec["datasets"] = {n: store["datasets"][n] for n in used}
+        key = (spec.pop("usermeta", None) or {}).get("config")
+        if key:
+            spec["config"] = store["configs"][key]
+        out.append({"id": c["id"], "spec": spec})
+    return {"charts": out, "datasets": store["datasets"]}
+
+
+def embedded_results(html: str) -> dict:
+    """The results document a report embeds (what `fulcrum analyse --json` writes)."""
+    return by_rows(json.loads(_packed_block(html, "fulcrum-results")))
+
+
+COLUMNS = "__columns__"
+
+
+def by_columns(obj: Any) -> Any:
+    """A document with every list of like objects (same keys in the same order, more than three) turned into one
+    list per key, which gzip packs far tighter; by_rows (and the page's script) turn it back exactly."""
+    if isinstance(obj, list):
+        if len(obj) > 3 and all(isinstance(v, dict) for v in obj):
+            keys = list(obj[0])
+            if keys and all(list(v) == keys for v in obj):
+                return {COLUMNS: keys, "values": [by_columns([v[k] for v in obj]) for k in keys]}
+        return [by_columns(v) for v in obj]
+    if isinstance(obj, dict):
+        return {k: by_columns(v) for k, v in obj.items()}
+    return obj
+
+
+def by_rows(obj: Any) -> Any:
+    """The inverse of by_columns."""
+    if isinstance(obj, dict):
+        if COLUMNS in obj:
+            columns = [by_rows(v) for v in obj["values"]]
+            return [dict(zip(obj[COLUMNS], row)) for row in zip(*columns)]
+        return {k: by_rows(v) for k, v in obj.items()}
+    if isinstance(obj, list):
+        return [by_rows(v) for v in obj]
+    return obj
+
+
+TABLES_SLOT = "@@FULCRUM_TABLES@@"
+_DETAIL_TABLE = re.compile(r"(<details><summary>[^<]*</summary>)\s*(<table>.*?</table>)\s*(</details>)", re.S)
+
+
+def _pack_detail_tables(page: str) -> tuple[str, dict[str, str]]:
+    """The tables folded inside <details> moved out of the page into a packed store (the page's script puts each
+    back as soon as the page opens; the sentences beside every chart stay in the page itself)."""
+    tables: dict[str, str] = {}
+
+    def move(m: re.Match) -> str:
+        key = f"t{len(tables) + 1}"
+        tables[key] = m.group(2)
+        return f'{m.group(1)}<div class="packed-table" data-table="{key}">(the table opens with the page\'s script)</div>{m.group(3)}'
+
+    return _DETAIL_TABLE.sub(move, page), tables
 
 
 # ------------------------------------------------------------------------------------------
@@ -101,7 +262,7 @@ def table_of(df: pd.DataFrame) -> dict:
         if v is None or (isinstance(v, float) and not np.isfinite(v)):
             return ""
         if isinstance(v, (float, np.floating)):
-            return ch.fmt(float(v))
+            return wd.fmt(float(v))
         return str(v)
 
     return {"columns": [str(c) for c in df.columns], "rows": [[cell(v) for v in r] for r in df.itertuples(False)]}
@@ -125,7 +286,7 @@ def _points(result: Any, row: Mapping[str, Any], n: int) -> pd.DataFrame | None:
     if n <= 0 or getattr(result, "fitset", None) is None:
         return None
     try:
-        return ch.cohort_points(result.fitset, row["outcome"], row["index"], max_points=n)
+        return cu.cohort_points(result.fitset, row["outcome"], row["index"], max_points=n)
     except KeyError:
         return None
 
@@ -138,60 +299,57 @@ def outcome_sections(result: Any, doc: Mapping[str, Any], points: int) -> list[d
     for raw in doc.get("results", []):
         row = _labelled(raw, doc.get("spec", {}))
         pts = _points(result, row, points)
-        check = ch.check_for(doc.get("checks"), row["outcome"], row["index"])
+        check = cc.check_for(doc.get("checks"), row["outcome"], row["index"])
         em = (check or {}).get("effect_modification")
         out.append({
-            "title": f"{ch._cap(ch._outcome_title(row))} along {ch.index_label_of(row)}",
-            "effect_modification": ch.describe_effect_modification(em) if em else "",
+            "title": f"{wd.cap(cc.outcome_title(row))} along {cc.index_label_of(row)}",
+            "effect_modification": ck.describe_effect_modification(em) if em else "",
             "weak_evidence": bool(em and em.get("weak_evidence")),
-            "sentence": " ".join(t for t in (ch.describe_row(row, arms, margin=margin),
+            "sentence": " ".join(t for t in (cu.describe_row(row, arms, margin=margin),
                                              None if pts is None else pts.attrs.get("sample_note")) if t),
-            "percentiles": ch.describe_percentiles(row),
-            "charts": [ch.outcome_chart(row, arms, pts), ch.difference_chart(row, arms, margin=margin)],
-            "table": table_of(ch.curve_table(row, arms, every=_every(row))),
+            "percentiles": ck.describe_percentiles(row),
+            "charts": [cu.outcome_chart(row, arms, pts), cu.difference_chart(row, arms, margin=margin)],
+            "table": table_of(cu.curve_table(row, arms, every=_every(row))),
             "counts": _counts(row, arms),
             "methods": row.get("methods") or {},
-            "checks": check_blocks(result, doc, row, check) if check else [],
+            "checks": check_blocks(doc, row, check) if check else [],
             "warnings": row.get("warnings") or [],
         })
     return out
 
 
-def check_blocks(result: Any, doc: Mapping[str, Any], row: Mapping[str, Any], check: Mapping[str, Any]) -> list[dict]:
+def check_blocks(doc: Mapping[str, Any], row: Mapping[str, Any], check: Mapping[str, Any]) -> list[dict]:
     """The checks of one outcome x index as blocks (title, sentence, charts, table): observed against fitted,
     calibration, sliding windows and, for survival, Kaplan-Meier curves by index band and the horizon curve."""
-    arms, label = doc["arms"], ch.index_label_of(row)
-    ovf = ch.observed_frame(check, arms).drop(columns=["x", "from", "to"])
+    arms, label = doc["arms"], cc.index_label_of(row)
+    ovf = ck.observed_frame(check, arms).drop(columns=["x", "from", "to"])
     blocks = [
-        {"title": "Observed against fitted", "sentence": ch.describe_observed_fitted(check, label),
-         "charts": [ch.observed_fitted_chart(check, arms, row)], "table": table_of(ovf)},
-        {"title": "Calibration", "sentence": ch.describe_calibration(check), "charts": [],
-         "table": table_of(ch.calibration_table(check)), "open": True},
-        {"title": "Sliding windows", "sentence": ch.describe_sliding_window(check, arms, label),
-         "charts": [ch.sliding_window_chart(check, arms, row)],
-         "table": table_of(ch.windows_frame(check).drop(columns=["x"]).rename(
+        {"title": "Observed against fitted", "sentence": ck.describe_observed_fitted(check, label),
+         "charts": [ck.observed_fitted_chart(check, arms, row)], "table": table_of(ovf)},
+        {"title": "Calibration", "sentence": ck.describe_calibration(check), "charts": [],
+         "table": table_of(ck.calibration_table(check)), "open": True},
+        {"title": "Sliding windows", "sentence": ck.describe_sliding_window(check, arms, label),
+         "charts": [ck.sliding_window_chart(check, arms, row)],
+         "table": table_of(ck.windows_frame(check).drop(columns=["x"]).rename(
              columns={"n_first": f"{arms[0]} patients", "n_second": f"{arms[1]} patients",
                       "model": "model difference"}))},
     ]
     outcome = _spec_outcome(doc, row["outcome"])
-    fs = getattr(result, "fitset", None)
-    if row.get("kind") == "survival" and fs is not None and row["index"] in fs.indices:
-        from ..checks import km_curves
-
-        curves = km_curves(fs.cohort, row["outcome"], fs.indices[row["index"]], bands=5,
-                           level=float(doc.get("inputs", {}).get("level") or 0.95))
-        chart = ch.kaplan_meier_bands_chart(curves, arms, index_label=label, units=outcome.get("units"),
-                                            horizon=outcome.get("horizon"), label=ch._outcome_title(row))
+    curves = [c for c in doc.get("kaplan_meier") or []
+              if c["outcome"] == row["outcome"] and c.get("index") == row["index"] and c.get("band")]
+    if curves:
+        chart = ck.kaplan_meier_bands_chart(curves, arms, index_label=label, units=outcome.get("units"),
+                                            horizon=outcome.get("horizon"), label=cc.outcome_title(row))
         blocks.append({"title": f"Kaplan-Meier curves in bands of {label}", "sentence": chart.description,
                        "charts": [chart], "table": None})
     if check.get("horizon_curve"):
-        hz = ch.horizon_frame(check).drop(columns=["lower_drawn", "upper_drawn"]).rename(
+        hz = ck.horizon_frame(check).drop(columns=["lower_drawn", "upper_drawn"]).rename(
             columns={"at_risk_first": f"{arms[0]} at risk", "at_risk_second": f"{arms[1]} at risk",
                      "follow_up": "follow-up", "spec_horizon": "the spec's horizon"}).replace(
             {"the spec's horizon": {True: "yes", False: ""}})
         blocks.append({"title": "The break-even point by horizon",
-                       "sentence": ch.describe_horizon(check, label, outcome.get("units")),
-                       "charts": [ch.horizon_chart(check, arms, row, units=outcome.get("units"))],
+                       "sentence": ck.describe_horizon(check, label, outcome.get("units")),
+                       "charts": [ck.horizon_chart(check, arms, row, units=outcome.get("units"))],
                        "table": table_of(hz)})
     return blocks
 
@@ -205,42 +363,32 @@ def baseline_section(doc: Mapping[str, Any]) -> list[dict]:
     table = doc.get("baseline") or []
     if not table:
         return []
-    return [{"title": "Baseline characteristics by arm and allocation", "sentence": ch.describe_baseline(table),
-             "charts": [ch.smd_chart(table)], "table": table_of(ch.baseline_frame(table))}]
+    return [{"title": "Baseline characteristics by arm and allocation", "sentence": ck.describe_baseline(table),
+             "charts": [ck.smd_chart(table)], "table": table_of(ck.baseline_frame(table))}]
 
 
-def coverage_sections(result: Any, doc: Mapping[str, Any]) -> list[dict]:
+def coverage_sections(doc: Mapping[str, Any]) -> list[dict]:
     """Per index: patients per window by arm and allocation, so readers see where the evidence is randomised."""
-    fs = getattr(result, "fitset", None)
-    if fs is None or fs.cohort.randomised is None:
-        return []
-    from ..selection import randomised_coverage
-
     arms, labels = doc["arms"], _index_labels(doc)
     out = []
-    for index in fs.indices:
-        coverage = randomised_coverage(fs, index)
-        label = labels.get(index, index)
-        out.append({"title": label, "sentence": ch.describe_coverage(coverage, arms, label),
-                    "charts": [ch.coverage_chart(coverage, arms, index_label=label)],
-                    "table": table_of(ch.coverage_frame(coverage, arms))})
+    for entry in doc.get("coverage") or []:
+        coverage, label = entry["windows"], labels.get(entry["index"], entry["index"])
+        out.append({"title": label, "sentence": cs.describe_coverage(coverage, arms, label),
+                    "charts": [cs.coverage_chart(coverage, arms, index_label=label)],
+                    "table": table_of(cs.coverage_frame(coverage, arms))})
     return out
 
 
-def survival_sections(result: Any, doc: Mapping[str, Any]) -> list[dict]:
+def survival_sections(doc: Mapping[str, Any]) -> list[dict]:
     """Kaplan-Meier curves per arm, all patients, with numbers at risk: one per survival outcome."""
-    fs = getattr(result, "fitset", None)
-    if fs is None:
-        return []
-    from ..checks import km_curves
-
     arms, out = doc["arms"], []
-    for o in fs.spec.outcomes:
-        if o.kind != "survival":
+    for o in doc.get("spec", {}).get("outcomes", []):
+        curves = [c for c in doc.get("kaplan_meier") or [] if c["outcome"] == o.get("name") and c.get("index") is None]
+        if not curves:
             continue
-        curves = km_curves(fs.cohort, o, level=float(doc.get("inputs", {}).get("level") or 0.95))
-        out.append({"title": o.title, "sentence": ch.describe_km(curves, units=o.units, horizon=o.horizon),
-                    "charts": [ch.kaplan_meier_chart(curves, arms, units=o.units, horizon=o.horizon, label=o.title)]})
+        title, units, horizon = o.get("label") or o["name"], o.get("units"), o.get("horizon")
+        out.append({"title": title, "sentence": ck.describe_km(curves, units=units, horizon=horizon),
+                    "charts": [ck.kaplan_meier_chart(curves, arms, units=units, horizon=horizon, label=title)]})
     return out
 
 
@@ -248,8 +396,8 @@ def missing_data(doc: Mapping[str, Any]) -> dict:
     """The clustering note and, when multiple imputation was asked for, the side-by-side break-evens."""
     clusters = doc.get("clustering")
     rows = doc.get("imputation") or []
-    return {"clustering": ch.describe_clustering(clusters), "clustering_warnings": (clusters or {}).get("warnings", []),
-            "imputation": table_of(ch.imputation_frame(rows, _index_labels(doc))) if rows else None,
+    return {"clustering": ck.describe_clustering(clusters), "clustering_warnings": (clusters or {}).get("warnings", []),
+            "imputation": table_of(ck.imputation_frame(rows, _index_labels(doc))) if rows else None,
             "imputation_notes": list(dict.fromkeys([r["note"] for r in rows] + [r["method"] for r in rows])),
             "imputation_warnings": list(dict.fromkeys(w for r in rows for w in r.get("warnings") or []))}
 
@@ -267,14 +415,14 @@ def composite_sections(doc: Mapping[str, Any]) -> list[dict]:
     arms, margin = doc["arms"], float(doc.get("inputs", {}).get("margin") or 0.0)
     out = []
     for row in doc.get("composite", []):
-        charts = [ch.composite_chart(row, arms)]
+        charts = [cu.composite_chart(row, arms)]
         extra_tables = []
         acc = row.get("acceptability")
         if acc:
-            charts.append(cv.preference_chart(acc, arms, index_title=ch._x_title(row),
+            charts.append(cv.preference_chart(acc, arms, index_title=cc.x_title(row),
                                               spread=(doc.get("spec", {}).get("values") or {}).get("spread"),
                                               ranges=(doc.get("spec", {}).get("values") or {}).get("ranges"),
-                                              discrete=ch.is_discrete(row)))
+                                              discrete=cc.is_discrete(row)))
             step = max(1, len(acc) // (CURVE_TABLE_ROWS - 1))
             extra_tables.append((f"Chance that {arms[0]} is preferred when the weights are uncertain",
                                  table_of(pd.DataFrame([{"index": p["x"], f"chance {arms[0]} is preferred": p["first"]}
@@ -282,16 +430,16 @@ def composite_sections(doc: Mapping[str, Any]) -> list[dict]:
         th = row.get("thresholds")
         if th and th.get("states"):
             lw = cv.leeway(th)
-            charts.append(cv.leeway_chart(lw, arms, where=f"index value {ch.fmt(th.get('x'))}"))
+            charts.append(cv.leeway_chart(lw, arms, where=f"index value {wd.fmt(th.get('x'))}"))
             extra_tables.append((f"How far the weights can move before the answer changes, at index value "
-                                 f"{ch.fmt(th.get('x'))}", table_of(cv.leeway_table(lw))))
+                                 f"{wd.fmt(th.get('x'))}", table_of(cv.leeway_table(lw))))
         weights = row.get("weights") or {}
         out.append({
-            "title": f"{ch._cap(ch._outcome_title(row))} along {ch.index_label_of(row)}",
-            "sentence": ch.describe_row(row, arms, margin=margin),
+            "title": f"{wd.cap(cc.outcome_title(row))} along {cc.index_label_of(row)}",
+            "sentence": cu.describe_row(row, arms, margin=margin),
             "charts": charts,
-            "table": table_of(ch.curve_table(row, arms, every=_every(row))),
-            "weights": [(ch.words(k), ch.fmt(v)) for k, v in weights.items()],
+            "table": table_of(cu.curve_table(row, arms, every=_every(row))),
+            "weights": [(wd.words(k), wd.fmt(v)) for k, v in weights.items()],
             "whose": row.get("whose"),
             "notes": row.get("notes") or [],
             "extra_tables": extra_tables,
@@ -310,7 +458,7 @@ def selection_sections(doc: Mapping[str, Any]) -> list[dict]:
     out = []
     for (outcome, index), rows in groups.items():
         xt = labels.get(index, index)
-        est = pd.DataFrame(ch._selection_estimates(rows[0]), columns=["estimate", "x", "lo", "hi"])
+        est = pd.DataFrame(cs._selection_estimates(rows[0]), columns=["estimate", "x", "lo", "hi"])
         est.columns = ["patients used", "break-even", "interval low", "interval high"]
         facts = pd.DataFrame([{"arm": r.get("arm"), "selection effect (chosen minus randomised)": r.get("effect"),
                                "interval": _pair(r.get("ci")), "p-value": r.get("p_value"),
@@ -324,10 +472,10 @@ def selection_sections(doc: Mapping[str, Any]) -> list[dict]:
                               for r in rows for c in (r.get("curve") or [])[::_every(r)]])
         shift = rows[0].get("shift")
         out.append({"title": f"{rows[0].get('measure', outcome)} along {xt}",
-                    "sentence": " ".join(ch.describe_selection(r) for r in rows),
-                    "charts": [ch.selection_chart(rows, arms, index_title=xt)],
+                    "sentence": " ".join(cs.describe_selection(r) for r in rows),
+                    "charts": [cs.selection_chart(rows, arms, index_title=xt)],
                     "table": table_of(facts), "break_even": table_of(est), "curve": table_of(curve),
-                    "shift": None if shift is None else f"{ch.fmt(shift)} ({_pair(rows[0].get('shift_ci'))})",
+                    "shift": None if shift is None else f"{wd.fmt(shift)} ({_pair(rows[0].get('shift_ci'))})",
                     "warnings": list(dict.fromkeys(w for r in rows for w in r.get("warnings") or []))})
     return out
 
@@ -342,7 +490,7 @@ def pairwise_sections(doc: Mapping[str, Any]) -> list[dict]:
     out = []
     for index, rows in groups.items():
         xt = labels.get(index, index) if index else "the whole cohort"
-        table = pd.DataFrame([{"window": (f"{ch.fmt(r['window']['from'])} to {ch.fmt(r['window']['to'])}"
+        table = pd.DataFrame([{"window": (f"{wd.fmt(r['window']['from'])} to {wd.fmt(r['window']['to'])}"
                                           if r.get("window") else "whole cohort"),
                                f"{arms[0]} patients": r.get("n_first"), f"{arms[1]} patients": r.get("n_second"),
                                "wins": r.get("wins"), "losses": r.get("losses"), "ties": r.get("ties"),
@@ -354,14 +502,14 @@ def pairwise_sections(doc: Mapping[str, Any]) -> list[dict]:
                     "sentence": f"Outcomes in priority order: {priority}. Each {arms[0]} patient meets each "
                                 f"{arms[1]} patient in the same window; the first outcome that separates them "
                                 "decides the pair." + _pairwise_intervals(rows),
-                    "charts": [ch.pairwise_chart(rows, arms, index_title=xt)] if index else [],
+                    "charts": [cs.pairwise_chart(rows, arms, index_title=xt)] if index else [],
                     "table": table_of(table),
                     "warnings": list(dict.fromkeys(w for r in rows for w in r.get("warnings") or []))})
     return out
 
 
 def _pairwise_intervals(rows: list[dict]) -> str:
-    how = ch.pairwise_interval_words(rows)
+    how = cs.pairwise_interval_words(rows)
     return f" {how[0].upper()}{how[1:]}." if how else " No intervals were computed."
 
 
@@ -369,18 +517,18 @@ def _fact(v: Any) -> str:
     if v is None:
         return ""
     if isinstance(v, (int, float)) and not isinstance(v, bool):
-        return ch.fmt(v)
+        return wd.fmt(v)
     return str(v)
 
 
 def _index_labels(doc: Mapping[str, Any]) -> dict[str, str]:
-    return {row["index"]: ch.index_label_of(row) for row in doc.get("results", [])}
+    return {row["index"]: cc.index_label_of(row) for row in doc.get("results", [])}
 
 
 def _pair(v: Any) -> str:
     if not v or v[0] is None or v[1] is None:
         return ""
-    return f"{ch.fmt(v[0])} to {ch.fmt(v[1])}"
+    return f"{wd.fmt(v[0])} to {wd.fmt(v[1])}"
 
 
 def methods_by_outcome(doc: Mapping[str, Any]) -> list[tuple[str, list[tuple[str, str]]]]:
@@ -405,7 +553,7 @@ def index_rows(doc: Mapping[str, Any]) -> list[dict]:
         seen[row["index"]] = {"name": row["index"], "label": info.get("label") or row["index"],
                               "kind": info.get("kind") or "", "units": info.get("units") or "",
                               "discrete": "whole levels" if info.get("discrete") else "continuous",
-                              "percentiles": ", ".join(f"{k}th {ch.fmt(v)}" for k, v in pct.items()),
+                              "percentiles": ", ".join(f"{k}th {wd.fmt(v)}" for k, v in pct.items()),
                               "prognostic": _flat(info.get("prognostic"))}
     return list(seen.values())
 
@@ -420,8 +568,8 @@ def _flat(obj: Any, prefix: str = "") -> list[tuple[str, str]]:
             out.extend(_flat(v, f"{prefix}{k}." if isinstance(v, Mapping) else f"{prefix}{k}"))
         return out
     if isinstance(obj, list):
-        return [(prefix.rstrip("."), ", ".join(ch.fmt(v) if isinstance(v, float) else str(v) for v in obj))]
-    return [(prefix.rstrip("."), ch.fmt(obj) if isinstance(obj, float) else str(obj))]
+        return [(prefix.rstrip("."), ", ".join(wd.fmt(v) if isinstance(v, float) else str(v) for v in obj))]
+    return [(prefix.rstrip("."), wd.fmt(obj) if isinstance(obj, float) else str(obj))]
 
 
 def _extra(sections: Iterable[Section | Mapping[str, Any]] | None) -> list[dict]:
@@ -443,8 +591,8 @@ def _environment() -> jinja2.Environment:
         encoding="utf-8"))
     env = jinja2.Environment(loader=loader, autoescape=True, undefined=jinja2.StrictUndefined, trim_blocks=True,
                              lstrip_blocks=True)
-    env.filters["fmt"] = ch.fmt
-    env.filters["words"] = ch.words
+    env.filters["fmt"] = wd.fmt
+    env.filters["words"] = wd.words
     return env
 
 
@@ -453,20 +601,24 @@ def render_template(name: str, **context: Any) -> str:
     return _environment().get_template(name).render(**context)
 
 
-def _number_charts(sections: list[list[dict]], specs: list[dict] | None = None) -> list[dict]:
-    """Give every chart an id and its spec, in document order (a section's checks after its own charts);
-    return the list to embed."""
-    specs = [] if specs is None else specs
+def _number_charts(sections: list[list[dict]], store: ChartStore | None = None) -> ChartStore:
+    """Give every chart an id and put its spec in the store, in document order (a section's checks after its own
+    charts); return the store to embed."""
+    store = ChartStore() if store is None else store
     for group in sections:
         for sec in group:
             sec["chart_ids"] = []
             for chart in sec.get("charts", []):
-                cid = f"chart-{len(specs) + 1}"
-                spec = _clean_nan(ch.chart_spec(chart))
-                specs.append({"id": cid, "spec": spec, "description": spec.get("description", "")})
-                sec["chart_ids"].append((cid, spec.get("description", "")))
-            _number_charts([sec.get("checks") or []], specs)
-    return specs
+                cid = f"chart-{len(store.charts) + 1}"
+                spec = _clean_nan(cc.chart_spec(chart))
+                store.add(cid, spec)
+                desc = spec.get("description", "")
+                said = bool(desc) and desc in (sec.get("sentence") or "")  # then the sentence names the chart
+                if said:
+                    sec.setdefault("sentence_id", f"{cid}-said")
+                sec["chart_ids"].append((cid, desc, sec["sentence_id"] if said else None))
+            _number_charts([sec.get("checks") or []], store)
+    return store
 
 
 def render_report(result: Any, *, extra_sections: Iterable[Section | Mapping[str, Any]] | None = None,
@@ -478,30 +630,30 @@ def render_report(result: Any, *, extra_sections: Iterable[Section | Mapping[str
     arms = doc["arms"]
     inputs = doc.get("inputs", {})
     baseline = baseline_section(doc)
-    coverage = coverage_sections(result, doc)
+    coverage = coverage_sections(doc)
     outcomes = outcome_sections(result, doc, points)
-    survival = survival_sections(result, doc)
+    survival = survival_sections(doc)
     composites = composite_sections(doc)
     selection = selection_sections(doc)
     pairwise = pairwise_sections(doc)
     from ..charts_evidence import evidence_sections
-    from ..maps import map_sections
+    from ..charts_maps import map_sections
     from ..policy_charts import report_sections as policy_sections
 
     extras = _extra([*map_sections(doc), *policy_sections(doc), *evidence_sections(doc), *(extra_sections or [])])
-    specs = _number_charts([baseline, coverage, outcomes, survival, composites, selection, pairwise, extras])
+    store = _number_charts([baseline, coverage, outcomes, survival, composites, selection, pairwise, extras])
     spec_obj = getattr(result, "spec", None)
     context = {
         "title": f"Fulcrum report: {arms[0]} versus {arms[1]}",
         "arms": arms,
-        "colours": ch.arm_colours(arms),
+        "colours": look.arm_colours(arms),
         "doc": doc,
         "inputs": inputs,
         "cautions": list(doc.get("cautions") or CAUTIONS),
         "generated_at": doc.get("tool", {}).get("generated_at", ""),
         "versions": versions(),
         "spec_toml": to_toml(spec_obj) if spec_obj is not None else json.dumps(doc.get("spec", {}), indent=1),
-        "breakeven": table_of(ch.breakeven_summary_table(doc)),
+        "breakeven": table_of(ck.breakeven_summary_table(doc)),
         "baseline": baseline,
         "coverage": coverage,
         "outcomes": outcomes,
@@ -514,13 +666,17 @@ def render_report(result: Any, *, extra_sections: Iterable[Section | Mapping[str
         "methods": methods_by_outcome(doc),
         "indices": index_rows(doc),
         "warnings": list(doc.get("warnings") or []),
-        "charts": specs,
-        "results_json": script_json(_clean_nan(doc)),
-        "charts_json": script_json([{"id": s["id"], "spec": s["spec"]} for s in specs]),
-        "javascript": Markup(javascript_bundle()),
+        "results_packed": packed(json.dumps(by_columns(_clean_nan(doc)), ensure_ascii=False, allow_nan=False,
+                                            separators=(",", ":"))),
+        "charts_packed": packed(json.dumps(store.payload(), ensure_ascii=False, allow_nan=False, separators=(",", ":"),
+                                           default=_plain)),
+        "javascript_packed": packed_bundle(),
         "points": points,
     }
-    return render_template("report.html", **context)
+    page = render_template("report.html", **context)
+    page, tables = _pack_detail_tables(page)
+    head, _, tail = page.rpartition(TABLES_SLOT)  # the last one: the script block after every user-written string
+    return head + str(packed(json.dumps(tables, ensure_ascii=False, separators=(",", ":")))) + tail
 
 
 def write_report(result: Any, path: str | Path, **kwargs: Any) -> Path:

@@ -230,9 +230,8 @@ def calibration(outcome: OutcomeSpec, obs: list[Observed], fitted: list[float | 
         if ob.value is None or fv is None:
             continue
         var = ob.var
-        if outcome.kind in ("binary", "ordinal"):
-            var = fv * (1 - fv) / ob.n
-        elif outcome.kind == "survival" and (outcome.measure or "survival") == "survival" and not var:
+        survival = outcome.kind == "survival" and (outcome.measure or "survival") == "survival"
+        if outcome.kind in ("binary", "ordinal") or (survival and not var):
             var = fv * (1 - fv) / ob.n
         if var is None or not var > 0:
             continue

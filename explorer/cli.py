@@ -249,7 +249,8 @@ def cmd_patient(args: argparse.Namespace) -> int:
         try:
             values[name.strip()] = float(text)
         except ValueError:
-            raise FulcrumError(f"--at {item!r} should be NAME=NUMBER.", hint="For example --at cfs=6 --at age=82.")
+            raise FulcrumError(f"--at {item!r} should be NAME=NUMBER.",
+                               hint="For example --at cfs=6 --at age=82.") from None
         if not sep or not name.strip():
             raise FulcrumError(f"--at {item!r} should be NAME=NUMBER.", hint="For example --at cfs=6 --at age=82.")
     fs = fit_all(spec, _load(spec, args))

@@ -670,8 +670,8 @@ def _default(section: str, key: str) -> str:
         return ""
     if f.default is not dataclasses.MISSING:
         value = f.default
-    elif f.default_factory is not dataclasses.MISSING:  # type: ignore[misc]
-        value = f.default_factory()  # type: ignore[misc]
+    elif f.default_factory is not dataclasses.MISSING:
+        value = f.default_factory()
     else:
         return ""
     if value in (None, (), {}):

@@ -29,7 +29,7 @@ class Basis:
     knots: tuple[float, ...] = ()
 
     @classmethod
-    def from_index(cls, x: np.ndarray, shape: str = "linear", n_knots: int = 4) -> "Basis":
+    def from_index(cls, x: np.ndarray, shape: str = "linear", n_knots: int = 4) -> Basis:
         if shape == "linear":
             return cls("linear")
         x = np.asarray(x, float)

@@ -9,10 +9,14 @@ import difflib
 import hashlib
 import json
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
+
+try:
+    import tomllib
+except ModuleNotFoundError:  # Python 3.10: the same parser, published as tomli
+    import tomli as tomllib
 
 from . import margins
 from .database import KEYS as DATABASE_KEYS, cohort_source

@@ -76,3 +76,62 @@ def test_mypy_error_count_is_read_from_its_output() -> None:
               "Found 3 errors in 2 files (checked 2 source files)\n")
     assert mypy_errors(sample) == Counter({"explorer/a.py": 2, "explorer/models/b.py": 1})
     assert read_baseline("# c\ntotal 3  # today\nexplorer/a.py 2\n") == (3, {"explorer/a.py": 2})
+
+
+# the import name of each declared distribution, where the two differ
+IMPORT_NAMES = {"scikit-learn": "sklearn", "vl-convert-python": "vl_convert", "pillow": "PIL", "tomli": "tomli",
+                "psycopg[binary]": "psycopg", "dask[distributed]": "dask", "pandas-stubs": None}
+# imported directly but installed by the declared dependency named beside it
+CARRIED = {"markupsafe": "jinja2"}
+
+
+def _declared() -> tuple[set[str], dict[str, set[str]]]:
+    """Import names of the runtime dependencies, and of each optional extra's."""
+    import tomllib
+
+    project = tomllib.loads((ROOT / "pyproject.toml").read_text())["project"]
+
+    def names(reqs: list[str]) -> set[str]:
+        out = set()
+        for r in reqs:
+            dist = re.split(r"[<>=!~;\s]", r, maxsplit=1)[0].lower()
+            name = IMPORT_NAMES.get(dist, dist.replace("-", "_"))
+            if name:
+                out.add(name)
+        return out
+
+    return names(project["dependencies"]), {k: names(v) for k, v in project["optional-dependencies"].items()}
+
+
+def _imports(folders: list[str]) -> dict[str, set[str]]:
+    """Top-level module -> the files that import it, over every .py file in the folders (AST, so comments and
+    strings do not count)."""
+    import ast
+
+    found: dict[str, set[str]] = {}
+    for folder in folders:
+        for path in (ROOT / folder).rglob("*.py"):
+            for node in ast.walk(ast.parse(path.read_text(), str(path))):
+                if isinstance(node, ast.Import):
+                    mods = [a.name for a in node.names]
+                elif isinstance(node, ast.ImportFrom) and node.level == 0 and node.module:
+                    mods = [node.module]
+                else:
+                    continue
+                for m in mods:
+                    found.setdefault(m.split(".")[0], set()).add(str(path.relative_to(ROOT)))
+    return found
+
+
+def test_runtime_dependencies_are_declared_and_used() -> None:
+    """Every runtime dependency in pyproject.toml is imported by explorer/ or pages/, and everything those import
+    is the standard library, the project, or declared (at run time, or in the extra that needs it)."""
+    runtime, extras = _declared()
+    used = _imports(["explorer", "pages"])
+    unused = sorted(runtime - set(used) - {"tomli"})  # tomli: only Python 3.10 imports it
+    assert not unused, f"declared in [project] dependencies but imported nowhere in explorer/ or pages/: {unused}"
+    own = {"explorer", "pages"} | {p.stem for p in (ROOT / "pages").glob("*.py")}
+    known = runtime | set().union(*extras.values()) | set(sys.stdlib_module_names) | own
+    missing = {m: sorted(files) for m, files in used.items()
+               if m not in known and not (m in CARRIED and CARRIED[m] in runtime)}
+    assert not missing, f"imported but not declared in pyproject.toml: {missing}"

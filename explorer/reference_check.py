@@ -277,7 +277,7 @@ def _sm_cov(fit: Any, cluster: np.ndarray | None) -> dict:
     kind = getattr(fit, "cov_kind_", "cluster" if cluster is not None else ("HC0" if fit.robust_ else "model"))
     if not fit.robust_ or kind == "model":
         return {}
-    if kind == "cluster":
+    if cluster is not None:  # cov_kind_ "cluster", or a robust logistic or ordinal fit with clusters
         codes = pd.factorize(cluster, sort=True)[0]
         return {"cov_type": "cluster", "cov_kwds": {"groups": codes, "use_correction": False, "df_correction": False}}
     return {"cov_type": kind}

@@ -571,7 +571,7 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
     ]),
 ]
 RESULT_SECTIONS.append(POLICY_SECTION)
-RESULT_SECTIONS.append(("reference_check", "Reference check (only with `fulcrum analyse --check-reference`)", [
+RESULT_SECTIONS.append(("reference_check", "Reference check (only with `fulcrum analyse SPEC --check-reference`)", [
     ("reference_check", "Every per-arm model refitted with lifelines (Cox, Weibull) or statsmodels (logistic, linear, "
                         "ordinal) on the same rows, design and weights (explorer/reference_check.py)."),
     ("reference_check.agrees", "true when every model agrees with its reference within the tolerance."),
@@ -600,6 +600,8 @@ RESULT_SECTIONS.append(("reference_check", "Reference check (only with `fulcrum 
     ("reference_check.models[].tolerance.absolute", "Absolute part."),
     ("reference_check.models[].tolerance.relative", "Relative part."),
     ("reference_check.models[].agrees", "true when every compared number is within the tolerance."),
+    ("reference_check.models[].checked", "false when nothing could be compared (a weighted ordinal fit: "
+                                         "statsmodels' OrderedModel takes no weights); the note says why."),
     ("reference_check.models[].worst", "Which comparison came closest to (or went past) its tolerance."),
     ("reference_check.models[].note", "Why a comparison was left out or shown without being judged, if one was."),
 ]))

@@ -55,6 +55,7 @@ class ModelCheck:
     predictions: float | None = None  # largest |ours - reference| of the measure along the index grid
     tolerance: tuple[float, float] = (ABS_TOL, REL_TOL)
     agrees: bool = True
+    checked: bool = True  # False when nothing could be compared (the note says why)
     worst: str = ""  # which number came closest to (or went past) its tolerance
     note: str = ""
 
@@ -64,7 +65,7 @@ class ModelCheck:
                 "coefficients": _num(self.coefficients), "standard_errors": _num(self.standard_errors),
                 "predictions": _num(self.predictions),
                 "tolerance": {"absolute": self.tolerance[0], "relative": self.tolerance[1]},
-                "agrees": self.agrees, "worst": self.worst, "note": self.note}
+                "agrees": self.agrees, "checked": self.checked, "worst": self.worst, "note": self.note}
 
 
 @dataclass
@@ -146,6 +147,7 @@ def check_model(fit: Any, data: Any, basis: Any, outcome: str, index: str, arm: 
             mc.agrees = False
     if ratios:
         mc.worst = max(ratios, key=lambda k: ratios[k])
+    mc.checked = params is not None or pred is not None
     return mc
 
 
@@ -346,7 +348,7 @@ def table(check: ReferenceCheck) -> str:
     """The readable table `fulcrum analyse --check-reference` prints."""
     head = ["outcome", "index", "arm", "model", "coefficients", "std errors", "measure", "agrees"]
     rows = [[m.outcome, m.index, m.arm, m.model, _g(m.coefficients), _g(m.standard_errors), _g(m.predictions),
-             "yes" if m.agrees else "NO"] for m in check.models]
+             ("yes" if m.checked else "not checked") if m.agrees else "NO"] for m in check.models]
     widths = [max(len(str(x)) for x in col) for col in zip(head, *rows)]
     out = ["Reference check: each per-arm model refitted with lifelines or statsmodels; the largest absolute "
            "differences (ours - reference).",
@@ -354,8 +356,11 @@ def table(check: ReferenceCheck) -> str:
     out += ["  ".join(str(c).ljust(w) for c, w in zip(r, widths)) for r in rows]
     refs = dict.fromkeys(f"{m.model}: {m.reference}" + (f" ({m.note})" if m.note else "") for m in check.models)
     out += ["", *refs]
+    unchecked = [m for m in check.models if not m.checked and m.agrees]
     if check.agrees:
-        out.append(f"Every model agrees with its reference within {ABS_TOL:g} + {REL_TOL:g} x |reference|.")
+        out.append(f"Every {'checked ' if unchecked else ''}model agrees with its reference within {ABS_TOL:g} + "
+                   f"{REL_TOL:g} x |reference|." + (f" {len(unchecked)} could not be checked (see above)."
+                                                     if unchecked else ""))
     else:
         out.append("These models differ from their reference beyond the tolerance:")
         out += [f"  {m.outcome} along {m.index}, {m.arm} ({m.model}): {m.worst or m.note}" for m in check.disagreeing]

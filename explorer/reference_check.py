@@ -225,7 +225,8 @@ def _cox(fit: CoxFit, X, data, keep, w, weighted, cluster, G):
     cols = [c for c in df.columns if c.startswith("c")]
     cph = CoxPHFitter()  # Efron's method for ties, as ours
     # robust=True gives lifelines' sandwich from the score residuals, which is ours when the model used one
-    _lifelines_fit(cph, df, weighted, fit.robust_, fit_options={"precision": 1e-12})  # lifelines' Newton stops at 1e-7 by default; ours at 1e-9
+    # lifelines' Newton stops at a step of 1e-7 by default; ours at a score of 1e-9
+    _lifelines_fit(cph, df, weighted, fit.robust_, fit_options={"precision": 1e-12})
     params = cph.params_[cols].to_numpy()
     se = cph.standard_errors_[cols].to_numpy()
     # lifelines' own survival curves at its event times (predict_survival_function), read as the step functions
@@ -241,8 +242,8 @@ def _cox(fit: CoxFit, X, data, keep, w, weighted, cluster, G):
     tied = len(np.unique(t[e > 0])) < int((e > 0).sum())
     note, judged = "", True
     if fit.robust_ and tied:  # checked: on untied times lifelines' robust errors equal ours to 1e-11
-        note, judged = ("robust standard errors shown, not judged: at tied event times lifelines' score residuals "
-                        "take Breslow's form, ours Efron's, as the fit"), False
+        note, judged = ("robust standard errors shown, not judged: lifelines forms the score residuals at tied event "
+                        "times differently (without ties the two sandwiches agree to 1e-11)"), False
     return "cox", "lifelines CoxPHFitter (Efron ties, Breslow baseline)", params, se, pred, note, judged
 
 
@@ -255,7 +256,8 @@ def _weibull(fit: WeibullFit, X, data, keep, w, weighted, cluster, G):
     clustered = "C" in df
     if clustered:  # lifelines' parametric fitters take no clusters; the coefficients do not depend on them
         df = df.drop(columns="C")
-    _lifelines_fit(aft, df, weighted, fit.robust_ and not clustered, fit_options={"ftol": 1e-16, "maxiter": 1000})  # its SLSQP by default stops at ftol 1e-10, a score near 1e-2
+    # lifelines' SLSQP stops by default at ftol 1e-10, with a score near 1e-2 on the demo
+    _lifelines_fit(aft, df, weighted, fit.robust_ and not clustered, fit_options={"ftol": 1e-16, "maxiter": 1000})
     lam, rho = aft.params_.loc["lambda_"], aft.params_.loc["rho_"]
     params = np.r_[lam["Intercept"], lam[cols].to_numpy(), rho["Intercept"]]
     se_l, se_r = aft.standard_errors_.loc["lambda_"], aft.standard_errors_.loc["rho_"]

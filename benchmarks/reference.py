@@ -114,7 +114,7 @@ def cross_fit_replicate(X: np.ndarray, time: np.ndarray, event: np.ndarray, fit:
     cox_fit(time[rows], event[rows], X[rows])
     unique = np.unique(rows)
     lp = np.empty(len(rows))
-    for train_u, held_u in KFold(folds, shuffle=True, random_state=seed).split(unique):
+    for _train, held_u in KFold(folds, shuffle=True, random_state=seed).split(unique):
         held = np.isin(rows, unique[held_u])
         model = cox_fit(time[rows[~held]], event[rows[~held]], X[rows[~held]])
         lp[held] = X[rows[held]] @ model.params_.to_numpy()

@@ -566,7 +566,7 @@ class Workspace:
 
     @classmethod
     def open(cls, data: bytes, filename: str, spec: Spec, *, is_demo: bool = False,
-             source: dict | None = None) -> "Workspace":
+             source: dict | None = None) -> Workspace:
         """Load and check the cohort for this spec; raises FulcrumError and changes nothing on failure.
         source: the provenance of a cohort read from a database (explorer.database), kept on the cohort."""
         cohort = load_for(spec, data, filename)
@@ -574,7 +574,7 @@ class Workspace:
             cohort.source = source
         return cls(data=data, filename=filename, spec=spec, cohort=cohort, is_demo=is_demo, source=source)
 
-    def with_spec(self, spec: Spec) -> "Workspace":
+    def with_spec(self, spec: Spec) -> Workspace:
         """The same cohort under a new spec: reloaded and re-checked when the fit-relevant parts changed."""
         if fit_key("", spec) == fit_key("", self.spec):
             return dataclasses.replace(self, spec=spec, notes=[])
@@ -810,7 +810,7 @@ def sheet_names(data: bytes) -> list[str]:
 
     try:
         book = openpyxl.load_workbook(io.BytesIO(data), read_only=True)
-    except Exception:  # noqa: BLE001 - the loader reports damaged workbooks in its own words
+    except Exception:
         return []
     names = list(book.sheetnames)
     book.close()
@@ -879,7 +879,7 @@ class PatientChoice:
     row: int | None = None
     record: Any = None  # conversation.ValuesRecord from the values conversation, when one was held
 
-    def fitted_to(self, fields: list[dict], n_rows: int) -> "PatientChoice":
+    def fitted_to(self, fields: list[dict], n_rows: int) -> PatientChoice:
         """The same patient for a (possibly new) cohort: entered values kept where the field still exists and
         its value is still allowed, every other field at the cohort's default; a row beyond the cohort dropped."""
         values = {}

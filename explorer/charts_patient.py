@@ -55,10 +55,10 @@ def label_tiers(starts: Sequence[float], widths: Sequence[float], space: float =
     placed: list[tuple[int, float, float]] = []
     tiers = []
     for x, w in zip(starts, widths):
-        def clear(t: int) -> bool:
+        def clear(t: int, x: float = x) -> bool:
             return all(x >= e + space for tt, _, e in placed if tt == t)
 
-        def uncrossed(t: int) -> bool:
+        def uncrossed(t: int, x: float = x) -> bool:
             return not any(tt < t and s - 3 <= x <= e + 3 for tt, s, e in placed)
 
         t = 0

@@ -2,18 +2,38 @@
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import os
 import subprocess
 import sys
 from importlib import resources
 from pathlib import Path
 
-import tomllib
+try:
+    import tomllib
+except ModuleNotFoundError:  # Python 3.10: the same parser, published as tomli
+    import tomli as tomllib
 
 from . import CAUTIONS, __version__
+from . import results as res
+from .analysis import analyse
+from .cohort import load_cohort
+from .demo import SEED, write_demo
 from .errors import FulcrumError, printable
+from .fitting import fit_all
+from .indices import compute_index, needed_columns
 from .margins import side_words
+from .numeric import captured
+from .outputs import OutputPlan, input_paths, os_error
+from .patient import patient_document, patient_lines, place_patient
+from .planner import Target, plan_study
 from .progress import ProgressBar
+from .policy import text_table
+from .reference_check import check_reference
+from .reference_check import table as reference_table
+from .settings import advice, check_analysis, check_setting
+from .spec import load_spec
+from .coverage_study_cli import main as validation_main
 
 
 def _fmt(v: float | None) -> str:
@@ -62,10 +82,6 @@ def summary_table(doc: dict) -> str:
 def with_flags(spec, args: argparse.Namespace, flags: dict[str, str]):
     """The spec with the settings given on the command line, checked by the same rules as the spec's own
     (explorer.settings); flags maps each setting to its flag, e.g. {"replicates": "--replicates"}."""
-    import dataclasses
-
-    from .settings import check_analysis
-
     given = {key: getattr(args, key) for key in flags if getattr(args, key, None) is not None}
     if not given:
         return spec
@@ -76,8 +92,6 @@ def with_flags(spec, args: argparse.Namespace, flags: dict[str, str]):
 
 def say_warnings(spec) -> list[str]:
     """Warnings about allowed but weak settings (too many workers, few replicates)."""
-    from .settings import advice
-
     return advice(spec.analysis)
 
 
@@ -96,11 +110,6 @@ def evidence_lines(doc: dict) -> list[str]:
 
 
 def cmd_analyse(args: argparse.Namespace) -> int:
-    from . import results as res
-    from .analysis import analyse
-    from .outputs import input_paths
-    from .spec import load_spec
-
     spec = load_spec(args.spec)
     spec = with_flags(spec, args, {"replicates": "--replicates", "scheduler": "--scheduler"})
     plan = args.plan.inputs_from(args.spec, *input_paths(spec))
@@ -112,6 +121,9 @@ def cmd_analyse(args: argparse.Namespace) -> int:
             print(f"warning: {printable(w)}", file=sys.stderr)
     bar = ProgressBar("bootstrap") if spec.analysis.interval == "bootstrap" and not args.quiet else None
     result = analyse(spec, _load(spec, args), spec_bytes=spec_bytes, progress=bar)
+    reference = check_reference(result.fitset) if args.check_reference else None
+    if reference is not None:
+        result.document["reference_check"] = reference.as_dict()
     # both documents are made before either is written, so a failure leaves no half set of files
     json_text = res.dumps(result.document) + "\n" if json_out else None
     html_text = None
@@ -124,11 +136,17 @@ def cmd_analyse(args: argparse.Namespace) -> int:
     if not args.quiet:
         print(summary_table(result.document))
         if result.document.get("policy"):
-            from .policy import text_table
-
             print(text_table(result.document))
         for line in warning_lines(result.document):
             print(line)
+        if reference is not None:
+            print()
+            print(reference_table(reference))
+    if reference is not None and not reference.agrees:
+        print("fulcrum: the reference check found models that differ from lifelines or statsmodels beyond the "
+              "tolerance: " + "; ".join(f"{m.outcome} along {m.index}, {m.arm} ({m.model}: {m.worst or m.note})"
+                                         for m in reference.disagreeing), file=sys.stderr)
+        return 1
     return 0
 
 
@@ -159,12 +177,6 @@ def _at_value(text: str) -> tuple[str, float]:
 
 
 def cmd_plan(args: argparse.Namespace) -> int:
-    from . import results as res
-    from .fitting import fit_all
-    from .outputs import input_paths
-    from .planner import Target, plan_study
-    from .spec import load_spec
-
     spec = load_spec(args.spec)
     json_out = args.plan.inputs_from(args.spec, *input_paths(spec)).add("--json", args.json)
     index = args.index or spec.indices[0].name
@@ -219,13 +231,6 @@ def plan_table(doc: dict) -> str:
 
 
 def cmd_patient(args: argparse.Namespace) -> int:
-    from . import results as res
-    from .fitting import fit_all
-    from .numeric import captured
-    from .outputs import input_paths
-    from .patient import patient_document, patient_lines, place_patient
-    from .spec import load_spec
-
     spec = load_spec(args.spec)
     json_out = args.plan.inputs_from(args.spec, *input_paths(spec)).add("--json", args.json)
     values = {}
@@ -234,7 +239,8 @@ def cmd_patient(args: argparse.Namespace) -> int:
         try:
             values[name.strip()] = float(text)
         except ValueError:
-            raise FulcrumError(f"--at {item!r} should be NAME=NUMBER.", hint="For example --at cfs=6 --at age=82.")
+            raise FulcrumError(f"--at {item!r} should be NAME=NUMBER.",
+                               hint="For example --at cfs=6 --at age=82.") from None
         if not sep or not name.strip():
             raise FulcrumError(f"--at {item!r} should be NAME=NUMBER.", hint="For example --at cfs=6 --at age=82.")
     fs = fit_all(spec, _load(spec, args))
@@ -250,8 +256,6 @@ def cmd_patient(args: argparse.Namespace) -> int:
 
 def read_input(path: str | Path) -> bytes:
     """An input file's bytes; an unreadable file becomes a located FulcrumError."""
-    from .outputs import os_error
-
     try:
         return Path(path).read_bytes()
     except OSError as exc:
@@ -260,20 +264,12 @@ def read_input(path: str | Path) -> bytes:
 
 def _load(spec, args: argparse.Namespace):
     """The spec's cohort; a database server is contacted only with --allow-connect."""
-    from .cohort import load_cohort
-    from .indices import needed_columns
-
     return load_cohort(spec, extra_columns=needed_columns(spec), allow_connect=args.allow_connect)
 
 
 def cmd_validate(args: argparse.Namespace) -> int:
-    from .indices import compute_index
-    from .spec import load_spec
-
     spec = load_spec(args.spec)
     cohort = _load(spec, args)
-    from .numeric import captured
-
     warnings = say_warnings(spec) + list(cohort.warnings)
     with captured(warnings, "computing the indices"):
         for ix in spec.indices:
@@ -289,9 +285,6 @@ def cmd_validate(args: argparse.Namespace) -> int:
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
-    from .demo import SEED, write_demo
-    from .settings import check_setting
-
     if not 20 <= args.n <= 1_000_000:
         raise FulcrumError(f"--n is {args.n}; the demo needs 20 to 1,000,000 patients.",
                            hint="For example --n 2400 (the default).")
@@ -336,8 +329,6 @@ def cmd_app(args: argparse.Namespace) -> int:
 
 
 def cmd_check_methods(args: argparse.Namespace) -> int:
-    from .coverage_study_cli import main as validation_main
-
     return validation_main(args.rest)
 
 
@@ -356,6 +347,9 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--scheduler", metavar="tcp://HOST:PORT",
                    help="send bootstrap replicates to this Dask cluster (a spec can never name one)")
     a.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    a.add_argument("--check-reference", action="store_true",
+                   help="refit every per-arm model with lifelines or statsmodels and report the largest differences "
+                        "(exit 1 when any exceeds 1e-5 + 1e-5 x |reference|)")
     a.set_defaults(func=cmd_analyse)
 
     pt = sub.add_parser("patient", help="one patient's predictions, verdicts and cautions from the command line")
@@ -414,8 +408,6 @@ def main(argv: list[str] | None = None) -> int:
     error, 130 when stopped; a closed pipe (`fulcrum validate spec.toml | head -1`) ends quietly. A command
     that writes files plans them on `args.plan` (explorer.outputs.OutputPlan), so a stopped or failed run says
     what it wrote."""
-    from .outputs import OutputPlan, os_error
-
     parser = build_parser()
     args, rest = parser.parse_known_args(argv)
     if args.command == "check-methods":

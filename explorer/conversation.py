@@ -170,7 +170,7 @@ class ValuesRecord:
         return doc
 
     @classmethod
-    def from_json(cls, doc: Mapping[str, Any]) -> "ValuesRecord":
+    def from_json(cls, doc: Mapping[str, Any]) -> ValuesRecord:
         a = doc.get("answers")
         answers = None if a is None else Answers(
             tuple(a["levels"]), tuple(a["acceptable"]), tuple(a["worse_than_death"]), tuple(a["ranking"]),

@@ -610,6 +610,40 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
     ]),
 ]
 RESULT_SECTIONS.append(POLICY_SECTION)
+RESULT_SECTIONS.append(("reference_check", "Reference check (only with `fulcrum analyse SPEC --check-reference`)", [
+    ("reference_check", "Every per-arm model refitted with lifelines (Cox, Weibull) or statsmodels (logistic, linear, "
+                        "ordinal) on the same rows, design and weights (explorer/reference_check.py)."),
+    ("reference_check.agrees", "true when every model agrees with its reference within the tolerance."),
+    ("reference_check.tolerance", "The tolerance of DESIGN.md 2b: |ours - reference| <= absolute + relative x "
+                                  "|reference|."),
+    ("reference_check.tolerance.absolute", "1e-5."),
+    ("reference_check.tolerance.relative", "1e-5."),
+    ("reference_check.largest", "The largest differences over every model."),
+    ("reference_check.largest.coefficients", "Largest absolute difference of a coefficient."),
+    ("reference_check.largest.standard_errors", "Largest absolute difference of a standard error."),
+    ("reference_check.largest.predictions", "Largest absolute difference of the outcome's measure along the index."),
+    ("reference_check.models", "One row per outcome x index x arm."),
+    ("reference_check.models[].outcome", "The outcome."),
+    ("reference_check.models[].index", "The index."),
+    ("reference_check.models[].arm", "The arm."),
+    ("reference_check.models[].model", "cox, weibull, logistic, linear or ordinal."),
+    ("reference_check.models[].reference", "The reference fitter, in words."),
+    ("reference_check.models[].measure", "The measure compared along the index (survival, rmst, probability, mean...)."),
+    ("reference_check.models[].n", "Patients in the fit (positive weight)."),
+    ("reference_check.models[].coefficients", "Largest absolute difference of the coefficients (null: not compared)."),
+    ("reference_check.models[].standard_errors", "Largest absolute difference of the standard errors (null: not "
+                                                 "compared; see note)."),
+    ("reference_check.models[].predictions", "Largest absolute difference of the measure at 41 index values over "
+                                             "the observed range, covariates held where the model holds them."),
+    ("reference_check.models[].tolerance", "The tolerance this model was held to."),
+    ("reference_check.models[].tolerance.absolute", "Absolute part."),
+    ("reference_check.models[].tolerance.relative", "Relative part."),
+    ("reference_check.models[].agrees", "true when every compared number is within the tolerance."),
+    ("reference_check.models[].checked", "false when nothing could be compared (a weighted ordinal fit: "
+                                         "statsmodels' OrderedModel takes no weights); the note says why."),
+    ("reference_check.models[].worst", "Which comparison came closest to (or went past) its tolerance."),
+    ("reference_check.models[].note", "Why a comparison was left out or shown without being judged, if one was."),
+]))
 RESULT_FIELDS: dict[str, str] = {path: text for _, _, rows in RESULT_SECTIONS for path, text in rows}
 BREAK_EVEN_LISTS = ("composite[].break_even[]", "selection[].randomised_break_even[]",
                     "selection[].all_break_even[]", "selection[].adjusted_break_even[]",
@@ -710,8 +744,8 @@ def _default(section: str, key: str) -> str:
         return ""
     if f.default is not dataclasses.MISSING:
         value = f.default
-    elif f.default_factory is not dataclasses.MISSING:  # type: ignore[misc]
-        value = f.default_factory()  # type: ignore[misc]
+    elif f.default_factory is not dataclasses.MISSING:
+        value = f.default_factory()
     else:
         return ""
     if value in (None, (), {}):

@@ -136,7 +136,7 @@ class Coverage:
     trees: list[cKDTree]
 
     @classmethod
-    def of(cls, points: Sequence[np.ndarray], names: tuple[str, str]) -> "Coverage":
+    def of(cls, points: Sequence[np.ndarray], names: tuple[str, str]) -> Coverage:
         pooled = np.vstack(points)
         lo, hi = pooled.min(axis=0), pooled.max(axis=0)
         span = np.where(hi > lo, hi - lo, 1.0)

@@ -176,7 +176,7 @@ def meeting_html(m: Meeting) -> str:
             + f"<h4>Nearest break-even points along {escape(m.index_title)}</h4><ul>" + "".join(f"<li>{escape(t)}</li>" for t in m.break_evens)
             + "</ul><h4>What the numbers rest on</h4><ul>" + "".join(f"<li>{escape(t)}</li>" for t in m.rests_on)
             + "".join(f"<li>{escape(t)}</li>" for t in m.limits) + "</ul>")
-    right = (f"<h4>Per 100 patients like this one</h4>"
+    right = ("<h4>Per 100 patients like this one</h4>"
              + _table_html(["", *m.arms], m.per_100) + f"<p class='small'>{escape(m.per_100_note)}</p>"
              + "<h4>What the values favour" + (f" ({escape(m.whose)} values)" if m.whose else "") + "</h4>"
              + "".join(f"<div class='verdict'>{escape(v)}</div>" for v in m.verdicts))
@@ -200,7 +200,7 @@ def meeting_pdf(m: Meeting) -> bytes:
         pages = []
         doc = SimpleDocTemplate(buf, pagesize=A4, leftMargin=14 * mm, rightMargin=14 * mm, topMargin=12 * mm,
                                 bottomMargin=12 * mm, title="Fulcrum meeting view", author="Fulcrum")
-        doc.build(_story(m, size, doc.width), onLaterPages=lambda c, d: pages.append(d.page))
+        doc.build(_story(m, size, doc.width), onLaterPages=lambda c, d: pages.append(d.page))  # noqa: B023 (built here)
         if not pages:
             return buf.getvalue()
     return buf.getvalue()

@@ -171,7 +171,7 @@ class OutputPlan:
         self.planned: dict[Path, str] = {}
         self.written: list[Path] = []
 
-    def inputs_from(self, *paths: str | Path | None) -> "OutputPlan":
+    def inputs_from(self, *paths: str | Path | None) -> OutputPlan:
         """Add input files (the spec, the files it names) that no output may replace; returns the plan."""
         self.inputs.extend(Path(p) for p in paths if p is not None)
         return self

@@ -653,7 +653,7 @@ def place_patient(fs: FitSet, values: Mapping[str, float] | None = None, *, row:
                            hint="Give each index's value, or every covariate its formula or model uses.")
     primary = index if index in placements else next(iter(placements))
     preds, judgements = [], []
-    for name, pl in placements.items():
+    for pl in placements.values():
         limits.extend(_limits(fs, pl))
         preds.extend(predict(fs, o.name, pl) for o in spec.outcomes)
         judgements.extend(judge(fs, pl, weights, record.whose if record else None))

@@ -31,7 +31,7 @@ class ArmArrays:
     where: np.ndarray
 
     @classmethod
-    def of(cls, data: OutcomeData, rows: np.ndarray, n_cohort: int) -> "ArmArrays":
+    def of(cls, data: OutcomeData, rows: np.ndarray, n_cohort: int) -> ArmArrays:
         where = np.full(n_cohort, -1, dtype=np.int64)
         where[rows] = np.arange(len(rows))
         return cls(OutcomeData(data.x, data.y, data.time, data.event, data.z, data.z_names, weights=data.weights),

@@ -24,7 +24,7 @@ ADVISED_REPLICATES = 200  # below this the ends of a 95% percentile interval res
 
 
 def _name(key: str, flags: dict[str, str]) -> str:
-    return flags[key] if key in flags else f"'analysis.{key}'"
+    return flags.get(key, f"'analysis.{key}'")
 
 
 def check_setting(key: str, value: Any, *, source: str | None = None, flags: dict[str, str] | None = None) -> None:

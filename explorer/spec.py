@@ -12,7 +12,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-import tomllib
+try:
+    import tomllib
+except ModuleNotFoundError:  # Python 3.10: the same parser, published as tomli
+    import tomli as tomllib
 
 from . import margins
 from .database import KEYS as DATABASE_KEYS

@@ -682,7 +682,7 @@ def acceptability(cm: CompositeModel, weights: dict[str, float] | Sequence[float
         B = cm.derived(("draw_differences", xs.tobytes(), draws), (*cm.boot, cm.boot_ok),
                        lambda: _draw_differences(cm, xs, draws))
         D = np.einsum("dgk,dk->dg", B, W)
-        p_first = np.mean(D > m, axis=0)
+        p_first = np.mean(m < D, axis=0)
     else:
         if x is None:
             delta, Sig = (cm.L[0] - cm.L[1])[keep], (cm.C[0] + cm.C[1])[keep]

@@ -84,7 +84,7 @@ def attempt(fn: Callable[..., Any], *args: Any, keeping: str | None = "Your load
     """Run fn; on any error show it plainly and return None (the caller keeps its last good state)."""
     try:
         return fn(*args, **kwargs)
-    except Exception as exc:  # noqa: BLE001 - every failure is shown, none is a traceback
+    except Exception as exc:
         show_error(exc, keeping)
         return None
 

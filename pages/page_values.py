@@ -53,7 +53,7 @@ def apply_preset() -> None:
         return
     try:
         weights = values.preset_weights(name, levels, st.session_state.get(ui.key("acceptable"), []))
-    except Exception as exc:  # noqa: BLE001 - shown below, weights unchanged
+    except Exception as exc:
         st.session_state["preset_error"] = exc
         return
     for lv in levels:
@@ -114,7 +114,7 @@ if summaries is None:
 rows = values.composite_rows(ws.fitset(), summaries, v)
 
 st.header(f"Value of outcomes along {titles[index]}")
-for row, ((kind, _), (_, info)) in zip(rows, summaries.items()):
+for row, ((kind, _), _) in zip(rows, summaries.items()):
     st.subheader({"ordinal": f"Expected value of the weights ({outcome.title})",
                   "survival_function": "Survival combined with function",
                   "quality_adjusted": "Quality-adjusted survival"}.get(kind, kind))

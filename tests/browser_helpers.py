@@ -31,7 +31,7 @@ def free_port() -> int:
 def app_server(workdir: Path, timeout: float = 90.0) -> Iterator[str]:
     """`fulcrum app --port N` from an unrelated folder; yields the base URL once /_stcore/health answers."""
     port = free_port()
-    log = open(workdir / "server.log", "wb")
+    log = open(workdir / "server.log", "wb")  # noqa: SIM115 (closed in the finally below, after the server stops)
     proc = subprocess.Popen([sys.executable, "-m", "explorer.cli", "app", "--port", str(port)], cwd=workdir,
                             stdout=log, stderr=subprocess.STDOUT, start_new_session=True)
     url = f"http://127.0.0.1:{port}"

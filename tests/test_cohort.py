@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import csv
 import hashlib
-import io
 import os
 
 import numpy as np

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from scipy import optimize, stats
+from scipy import stats
 
 from explorer import breakeven as be
 from explorer import coverage as cov
@@ -240,7 +240,7 @@ def test_inverted_test_equals_fieller_on_the_linear_scale():
         assert (lo, hi) == pytest.approx(b.ci, abs=1e-6)
         # the tool's own test inversion (used for composites), on a coarse grid with Brent-refined ends
         diff = ft.difference_fn(pf)
-        g = lambda x: diff(x) ** 2 - 1.959963984540054 ** 2 * sum(f.measure_var(x) for f in pf.fits.values())
+        g = lambda x: diff(x) ** 2 - 1.959963984540054 ** 2 * sum(f.measure_var(x) for f in pf.fits.values())  # noqa: E731
         tlo, thi, tshape = be.inverted_test_interval(g, b.x, np.linspace(*be.search_range(*pf.x_range), 41))
         assert tshape == "finite" and (tlo, thi) == pytest.approx(b.ci, abs=1e-6)
 

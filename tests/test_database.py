@@ -15,7 +15,6 @@ import socket
 import sqlite3
 import subprocess
 import tempfile
-import time
 from pathlib import Path
 
 import duckdb

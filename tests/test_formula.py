@@ -133,7 +133,7 @@ def test_matches_numpy_computed_directly() -> None:
             "min(lactate, 2)": np.minimum(lac, 2),
             "(age > 80) * 2 + (cfs >= 5) - (cfs == 3) + (cfs != 4) + (age <= 70) + (age < 66)":
                 (age > 80) * 2.0 + (cfs >= 5) - (cfs == 3) + (cfs != 4) + (age <= 70) + (age < 66),
-            "1 < cfs <= 5": ((1 < cfs) & (cfs <= 5)).astype(float),
+            "1 < cfs <= 5": ((cfs > 1) & (cfs <= 5)).astype(float),
             "age ** -1 + lactate ** 0.5": age ** -1.0 + lac ** 0.5,
             "-age + +cfs": -age + cfs,
             "`lactate (mmol/L)` * 2 + `class`": d["lactate (mmol/L)"] * 2 + d["class"],

@@ -55,11 +55,7 @@ def branches(tree: ast.AST, classes: set[str]) -> list[int]:
     """Line numbers of the branches on a kind or a model class in one module."""
     out = []
     for node in ast.walk(tree):
-        if isinstance(node, ast.Compare) and _names_kind(node):
-            out.append(node.lineno)
-        elif isinstance(node, ast.Match) and _names_kind(node.subject):
-            out.append(node.lineno)
-        elif (isinstance(node, ast.Call) and getattr(node.func, "id", "") == "isinstance" and len(node.args) == 2
+        if isinstance(node, ast.Compare) and _names_kind(node) or isinstance(node, ast.Match) and _names_kind(node.subject) or (isinstance(node, ast.Call) and getattr(node.func, "id", "") == "isinstance" and len(node.args) == 2
               and {n.id if isinstance(n, ast.Name) else n.attr for n in ast.walk(node.args[1])
                    if isinstance(n, (ast.Name, ast.Attribute))} & classes):
             out.append(node.lineno)

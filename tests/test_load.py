@@ -208,7 +208,7 @@ class Session:
             shot.parent.mkdir(parents=True, exist_ok=True)
             await self.page.screenshot(path=str(shot), full_page=True)
             text = await self.page.locator("body").inner_text(timeout=10_000)
-        except Exception as exc:  # noqa: BLE001 - evidence is best effort; the step's own error is raised
+        except Exception as exc:
             return f"(no evidence: {exc})"
         return f"screenshot {shot}; page text: {text[-3000:]}; browser errors: {self.errors}"
 
@@ -277,7 +277,7 @@ async def load_test(url: str, server: psutil.Process, cohorts: list[Cohort]) -> 
             await let_go(browser, url)
             record["rss_mb"]["start"] = rss(server) / 2**20
             record["warm_up"] = warm
-            for k in range(ROUNDS):
+            for _ in range(ROUNDS):
                 record["rounds"].append(await run_round(browser, url, cohorts, server))
                 await let_go(browser, url)
                 record["rss_mb"].setdefault("after_round", []).append(rss(server) / 2**20)

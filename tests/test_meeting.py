@@ -85,7 +85,7 @@ def test_a_two_ray_break_even_interval_is_drawn_as_two_rays_within_the_index() -
            "all_break_even": [{"x": 6.0, "ci": [5.0, 7.0], "interval_shape": "finite"}]}
     chart = selection_break_even_chart(row, index_title="Clinical Frailty Scale")
     spec = chart_spec(chart)
-    domains = [l["encoding"]["x"]["scale"]["domain"] for l in spec["layer"] if "scale" in l["encoding"]["x"]]
+    domains = [ly["encoding"]["x"]["scale"]["domain"] for ly in spec["layer"] if "scale" in ly["encoding"]["x"]]
     assert domains and all(d == [1.0, 9.0] for d in domains)  # no axis stretched beyond the index
     assert "below -18.7 or above 5.94" in spec["description"]
 

@@ -32,7 +32,7 @@ def cohort(rng: np.random.Generator) -> OutcomeData:
 def replicates():
     rng = np.random.default_rng(2024)
     out = {}
-    for r in range(REPS):
+    for _ in range(REPS):
         d = cohort(rng)
         for name, fit in (("cox", CoxFit("s", "a", Basis(), d, HORIZON, checks=False)),
                           ("weibull", WeibullFit("s", "a", Basis(), d, HORIZON))):

@@ -438,7 +438,7 @@ def test_analytic_rows_say_so_and_hold_the_estimate():
             assert lo < a[key] < hi
         for lv in a["by_level"]:
             lo, hi = lv["net_benefit_ci"]
-            assert lo <= lv["net_benefit"] <= hi and -1 <= lo and hi <= 1
+            assert lo <= lv["net_benefit"] <= hi and lo >= -1 and hi <= 1
     json.dumps(rows, allow_nan=False)
     tiny = frame.iloc[:3].assign(arm=["standard", "test", "test"])
     [row] = pw.pairwise_rows(spec, SimpleNamespace(frame=tiny), interval="analytic")

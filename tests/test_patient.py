@@ -75,7 +75,7 @@ def test_intervals_hold_estimates_and_states_add_to_one(view):
         for e in p.arms.values():
             assert e.lower <= e.estimate <= e.upper
             if p.probability:
-                assert 0.0 <= e.lower and e.upper <= 1.0
+                assert e.lower >= 0.0 and e.upper <= 1.0
                 assert e.per_100_lower <= e.per_100 <= e.per_100_upper
             if e.distribution:
                 probs = [v[0] for v in e.distribution.values()]

@@ -253,7 +253,7 @@ def test_outcomes_page_shows_the_test_and_the_checks(doc):
     assert "Does the effect change along the index?" in shown
     weak = [c for c in doc["checks"] if c["index"] == "cfs" and c["effect_modification"]["weak_evidence"]]
     assert weak, "the demo should hold an outcome whose effect does not clearly change along the frailty scale"
-    for c in weak:
+    for _ in weak:
         assert any("weak evidence of any change in effect" in w.value for w in at.warning)
     # one tab of checks per outcome chart (the page puts each outcome's checks in a tab beside its chart)
     assert sum(t.label == "Can the curves be trusted?" for t in at.tabs) == len(ws_outcomes(at))

@@ -47,8 +47,8 @@ class Target:
     time: np.ndarray | None = None
     event: np.ndarray | None = None
 
-    def take(self, rows: np.ndarray) -> "Target":
-        pick = (lambda a: None if a is None else a[rows])
+    def take(self, rows: np.ndarray) -> Target:
+        pick = (lambda a: None if a is None else a[rows])  # noqa: E731
         return Target(self.family, pick(self.y), pick(self.time), pick(self.event))
 
 

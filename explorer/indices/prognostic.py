@@ -80,7 +80,7 @@ class PrognosticModel:
                                hint="Give a value for every covariate of the prognostic model.")
         return self.fold_values(X).mean(axis=0)
 
-    def refitter(self, frame: pd.DataFrame, spec: Spec) -> "Refitter":
+    def refitter(self, frame: pd.DataFrame, spec: Spec) -> Refitter:
         """What a bootstrap replicate needs to refit this index, rebuilt from the cohort frame it was fitted on
         (built on request, so an analysis that holds the index fixed keeps no second copy of the covariates)."""
         key = self.key or "indices"

@@ -29,7 +29,7 @@ class Basis:
     knots: tuple[float, ...] = ()
 
     @classmethod
-    def from_index(cls, x: np.ndarray, shape: str = "linear", n_knots: int = 4) -> "Basis":
+    def from_index(cls, x: np.ndarray, shape: str = "linear", n_knots: int = 4) -> Basis:
         if shape == "linear":
             return cls("linear")
         x = np.asarray(x, float)
@@ -129,14 +129,14 @@ class Fitted(Protocol):
 
     restricted_words: str
 
-    def likelihood(self, d: OutcomeData, kernel: Any = None) -> "ArmLikelihood": ...
+    def likelihood(self, d: OutcomeData, kernel: Any = None) -> ArmLikelihood: ...
 
     def likelihood_kernel(self, d: OutcomeData) -> Any: ...
 
     def own_likelihood(self) -> tuple | None: ...
 
     def at_horizon(self, horizon: float, d: OutcomeData, kernel: Any = None, baseline: tuple | None = None
-                   ) -> "Fitted": ...
+                   ) -> Fitted: ...
 
 
 @dataclass

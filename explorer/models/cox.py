@@ -151,7 +151,7 @@ class CoxFit(ArmFit):
         return None if h is None else (self.loglik_, self.score_, h)
 
     def at_horizon(self, horizon: float, d: OutcomeData, kernel: CoxKernel | None = None,
-                   baseline: tuple | None = None) -> "CoxFit":
+                   baseline: tuple | None = None) -> CoxFit:
         """Read at another horizon: the Breslow baseline up to it from `baseline` (the whole of
         CoxKernel.baseline at params_, which serves every horizon) or from `kernel`."""
         view = super().at_horizon(horizon, d)

@@ -18,6 +18,17 @@ def _demo_master(tmp_path_factory: pytest.TempPathFactory) -> Path:
     return demo.write_demo(tmp_path_factory.mktemp("demo_master")).parent
 
 
+@pytest.fixture(scope="session")
+def demo_results(_demo_master: Path):
+    """The demo analysed once per pytest worker, exactly as `fulcrum analyse demo.toml` does: an
+    explorer.analysis.Results (its .fitset, .summaries and .document). Shared: never modify it; copy first
+    (copy.deepcopy) or build your own when a test changes the spec or the fits."""
+    from explorer.analysis import analyse
+
+    spec_path = _demo_master / "demo.toml"
+    return analyse(load_spec(spec_path), spec_bytes=spec_path.read_bytes())
+
+
 @pytest.fixture
 def demo_dir(_demo_master: Path, tmp_path: Path) -> Path:
     """A fresh copy of the demo folder: demo.toml, demo_cohort.csv, DICTIONARY.md, truth.json."""

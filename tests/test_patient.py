@@ -17,16 +17,14 @@ from explorer import CAUTIONS
 from explorer.analysis import fit_all
 from explorer.charts import fmt
 from explorer.patient import PatientView, patient_summary_html, place_patient
-from explorer.spec import load_spec
 
 NUMBER = re.compile(r"-?\d+(?:\.\d+)?")
 PATIENT = {"cfs": 6, "age": 84, "sex": "F", "lactate": 3.1, "albumin": 30}
 
 
 @pytest.fixture(scope="module")
-def fs(_demo_master):
-    spec = load_spec(_demo_master / "demo.toml")
-    return fit_all(dataclasses.replace(spec, pairwise=None))
+def fs(demo_results):
+    return demo_results.fitset  # the shared demo analysis (conftest): read only
 
 
 @pytest.fixture(scope="module")

@@ -36,8 +36,6 @@ HERE = Path(__file__).resolve().parent
 if str(HERE.parents[1]) not in sys.path:  # run as a script from anywhere: import the worktree's explorer
     sys.path.insert(0, str(HERE.parents[1]))
 
-from explorer import demo  # noqa: E402
-
 IGNORED = ("tool.generated_at", "tool.version")
 
 
@@ -50,6 +48,8 @@ def analyse_folder(spec_path: Path) -> dict:
 
 
 def demo_case(folder: Path) -> dict:
+    from explorer import demo
+
     return analyse_folder(demo.write_demo(folder))
 
 
@@ -130,6 +130,8 @@ window = 200
 
 
 def invented_case(folder: Path) -> dict:
+    from explorer import demo
+
     frame, _ = demo.generate(n=800, seed=7)
     home = frame["days_home_180"]
     frame["home_90"] = (home >= 90).astype("Int64").where(home.notna(), np.nan)

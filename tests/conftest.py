@@ -1,4 +1,7 @@
-"""Shared fixtures: the invented demo in a temporary folder, and a helper that writes small test cases."""
+"""Shared fixtures: the invented demo in a temporary folder and analysed once per worker, and a helper that writes
+small test cases. Spec text for small cases is built with tests/spec_texts.py (`from spec_texts import spec_text`).
+
+Every browser test (marker `browser`) is also marked `slow`, so `pytest -m "not slow"` leaves out Chromium."""
 from __future__ import annotations
 
 import io
@@ -13,9 +16,27 @@ from explorer import demo
 from explorer.spec import Spec, load_spec
 
 
+def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
+    """Browser journeys and the load test drive Chromium for minutes: they count as slow wherever they are."""
+    for item in items:
+        if item.get_closest_marker("browser") and not item.get_closest_marker("slow"):
+            item.add_marker(pytest.mark.slow)
+
+
 @pytest.fixture(scope="session")
 def _demo_master(tmp_path_factory: pytest.TempPathFactory) -> Path:
     return demo.write_demo(tmp_path_factory.mktemp("demo_master")).parent
+
+
+@pytest.fixture(scope="session")
+def demo_results(_demo_master: Path):
+    """The demo analysed once per pytest worker, exactly as `fulcrum analyse demo.toml` does: an
+    explorer.analysis.Results (its .fitset, .summaries and .document). Shared: never modify it; copy first
+    (copy.deepcopy) or build your own when a test changes the spec or the fits."""
+    from explorer.analysis import analyse
+
+    spec_path = _demo_master / "demo.toml"
+    return analyse(load_spec(spec_path), spec_bytes=spec_path.read_bytes())
 
 
 @pytest.fixture

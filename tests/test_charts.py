@@ -32,9 +32,8 @@ NUMBER = re.compile(r"-?\d+(?:\.\d+)?")
 
 
 @pytest.fixture(scope="module")
-def result(_demo_master):
-    spec = load_spec(_demo_master / "demo.toml")
-    return analyse(dataclasses.replace(spec, pairwise=None))
+def result(demo_results):
+    return demo_results  # the shared demo analysis (conftest): read only
 
 
 @pytest.fixture(scope="module")

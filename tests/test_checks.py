@@ -37,8 +37,8 @@ def pair(outcome: OutcomeSpec, data: dict[str, OutcomeData], basis: Basis = Basi
 
 
 @pytest.fixture(scope="module")
-def demo_fits(_demo_master):
-    return ft.fit_all(load_spec(_demo_master / "demo.toml"))
+def demo_fits(demo_results):
+    return demo_results.fitset  # the shared demo analysis (conftest): read only
 
 
 @pytest.fixture(scope="module")

@@ -134,6 +134,7 @@ def test_analytic_coverage_within_binomial_limits(scenario):
         assert abs(r["bias"]) < 3 * r["rmse"] / math.sqrt(STUDIES) + 0.05, r
 
 
+@pytest.mark.slow  # 80 studies x 100 resamples each: the longest of the reduced run
 @pytest.mark.parametrize("scenario", ["continuous", "binary"])
 def test_bootstrap_coverage_within_binomial_limits(scenario):
     """Percentile intervals from the tool's bootstrap summary (100 resamples per study)."""
@@ -156,6 +157,7 @@ def test_false_clear_difference_regions():
         assert rate["simultaneous band"] <= hi
 
 
+@pytest.mark.slow  # a simulation of many studies, as long as a bootstrap coverage check
 def test_selection_test_size():
     """No selection: the averaged selection-effect test rejects at about its nominal 5%."""
     rows = v.run(STUDIES, sizes=(1000,), boot=0, workers=1, seed=SEED, parts=("selection",))

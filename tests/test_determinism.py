@@ -39,6 +39,7 @@ def cli_document(spec_path: Path, out: Path) -> dict:
     return json.loads(out.read_text(encoding="utf-8"))
 
 
+@pytest.mark.slow  # two fresh CLI processes analyse the demo: about 30 s of CPU (measured 2026-12-02)
 def test_two_cli_processes_and_analyse_give_the_same_document(demo_spec_path, tmp_path) -> None:
     first = cli_document(demo_spec_path, tmp_path / "one.json")
     second = cli_document(demo_spec_path, tmp_path / "two.json")

@@ -14,6 +14,7 @@ import pandas as pd
 import pytest
 from scipy import integrate, stats
 from scipy.special import expit
+from spec_texts import binary, spec_text
 
 from explorer import analysis as an
 from explorer import cli
@@ -57,29 +58,14 @@ def test_draws_agree_with_the_closed_form_and_vanish_when_one_arm_always_wins():
 
 
 # ---- on an analysis ----------------------------------------------------------------------------------
-SPEC = """
-[cohort]
-path = "cohort.csv"
-arm = "arm"
-arms = ["alpha", "beta"]
 
-[[outcomes]]
-name = "y"
-kind = "binary"
-column = "y"
 
-[[indices]]
-name = "x"
-column = "x"
+def _spec(**analysis) -> str:
+    """A binary outcome y along a column index x, arms alpha and beta, with [evidence] at threshold 0.5."""
+    return spec_text(("alpha", "beta"), outcomes=[binary("y")], indices=["x"],
+                     analysis={"seed": 5, "workers": 1, **analysis}, evidence={"threshold": 0.5})
 
-[analysis]
-seed = 5
-workers = 1
-{extra}
 
-[evidence]
-threshold = 0.5
-"""
 # first arm logit -2 + 0.4x, second 2 - 0.4x: equal at x = 5 (closed form)
 LINES = {"alpha": (-2.0, 0.4), "beta": (2.0, -0.4)}
 
@@ -100,7 +86,7 @@ def folder(tmp_path_factory):
 
 
 def test_evidence_rows_in_the_document_follow_the_schema_and_the_closed_form(folder):
-    spec = parse_spec_text(SPEC.format(extra=""), base_dir=folder)
+    spec = parse_spec_text(_spec(), base_dir=folder)
     result = an.analyse(spec)
     doc = result.document
     jsonschema.validate(json.loads(res.dumps(doc)), res.schema())
@@ -129,7 +115,7 @@ def test_evidence_rows_in_the_document_follow_the_schema_and_the_closed_form(fol
 
 
 def test_evidence_uses_bootstrap_replicates_when_the_analysis_does(folder):
-    spec = parse_spec_text(SPEC.format(extra='interval = "bootstrap"\nreplicates = 60'), base_dir=folder)
+    spec = parse_spec_text(_spec(interval="bootstrap", replicates=60), base_dir=folder)
     result = an.analyse(spec)
     (row,) = result.document["evidence"]
     assert row["method"] == "bootstrap replicates"
@@ -144,7 +130,7 @@ def test_evidence_uses_bootstrap_replicates_when_the_analysis_does(folder):
 # ---- the planner -------------------------------------------------------------------------------------
 def _width_of(frame, tmp_path):
     frame.to_csv(tmp_path / "cohort.csv", index=False)
-    spec = parse_spec_text(SPEC.format(extra=""), base_dir=tmp_path)
+    spec = parse_spec_text(_spec(), base_dir=tmp_path)
     return pl._interval(ft.fit_all(spec).pair("y", "x"), spec, 5.0, None)[0]
 
 
@@ -152,7 +138,7 @@ def _width_of(frame, tmp_path):
 def test_planner_predicts_the_width_realised_at_that_size(folder, tmp_path):
     """The median width the planner predicts for 1,200 + 1,200 patients agrees within 10% with the median width
     realised on cohorts of 2,400 simulated from the closed-form truth (invented data, truth exact)."""
-    spec = parse_spec_text(SPEC.format(extra=""), base_dir=folder)
+    spec = parse_spec_text(_spec(), base_dir=folder)
     fs = ft.fit_all(spec)
     doc = pl.plan_study(fs, "y", "x", pl.Target(width=1.0), sizes=(1200,), simulations=40,
                         strategies=("whole_range",))
@@ -166,7 +152,7 @@ def test_planner_predicts_the_width_realised_at_that_size(folder, tmp_path):
 
 
 def test_planner_strategies_and_refusals(folder):
-    spec = parse_spec_text(SPEC.format(extra=""), base_dir=folder)
+    spec = parse_spec_text(_spec(), base_dir=folder)
     fs = ft.fit_all(spec)
     doc = pl.plan_study(fs, "y", "x", pl.Target(chance=0.8, at=8.0), sizes=(100, 400), simulations=20)
     assert [r["strategy"] for r in doc["rows"]] == [s for s in pl.STRATEGIES for _ in (100, 400)]
@@ -184,7 +170,7 @@ def test_planner_strategies_and_refusals(folder):
 
 def test_plan_command_writes_its_document(folder, tmp_path, capsys):
     out = tmp_path / "plan.json"
-    (folder / "spec.toml").write_text(SPEC.format(extra=""))
+    (folder / "spec.toml").write_text(_spec())
     code = cli.main(["plan", str(folder / "spec.toml"), "--target-width", "1.5", "--sizes", "200",
                      "--simulations", "20", "--json", str(out), "--quiet"])
     assert code == 0
@@ -227,7 +213,7 @@ def test_the_population_value_is_taken_over_the_target_patients_when_the_spec_na
     # their own index values (standardisation over the target file; Hernan & Robins, What If, ch. 13)
     local = pd.DataFrame({"x": np.linspace(4.0, 6.0, 41)})
     local.to_csv(folder / "local.csv", index=False)
-    text = SPEC.format(extra="") + '\n[target]\npath = "local.csv"\nlabel = "our patients"\n'
+    text = _spec() + '\n[target]\npath = "local.csv"\nlabel = "our patients"\n'
     spec = parse_spec_text(text, base_dir=folder)
     (row,) = an.analyse(spec).document["evidence"]
     xs = np.array([p["x"] for p in row["curve"]])

@@ -8,31 +8,17 @@ import warnings
 import numpy as np
 import pytest
 from scipy.optimize import brentq
+from spec_texts import column_index, spec_text
 
 from explorer import analysis as an
 from explorer import fitting as ft
+from explorer import demo
 from explorer.errors import FulcrumError
 
-SPEC = """\
-[cohort]
-path = "cohort.csv"
-id = "pid"
-arm = "arm"
-arms = ["laparotomy", "non-operative"]
-allocation = "allocation"
-
-[[outcomes]]
-name = "alive"
-kind = "survival"
-time = "days_followed"
-event = "died"
-horizon = 365
-
-[[indices]]
-name = "cfs"
-column = "cfs"
-bounds = [1, 9]
-"""
+SPEC = spec_text(demo.ARMS, cohort={"id": "pid", "allocation": "allocation"},
+                 outcomes=[{"name": "alive", "kind": "survival", "time": "days_followed", "event": "died",
+                            "horizon": 365}],
+                 indices=[column_index("cfs", bounds=[1, 9])])
 
 
 def _typo(small_text, row: int = 5, value: str = "99999"):

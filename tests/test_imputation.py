@@ -137,9 +137,9 @@ def test_imputations_are_seeded_and_keep_observed_values(mcar):
     assert counts == {"y": int(np.isnan(y0).sum())}
 
 
-def test_demo_imputation_leaves_deaths_without_a_quality_of_life_value(_demo_master):
+def test_demo_imputation_leaves_deaths_without_a_quality_of_life_value(demo_results):
     # the invented demo: quality of life is measured among survivors, so patients who died keep no value
-    fs = ft.fit_all(load_spec(_demo_master / "demo.toml"))
+    fs = demo_results.fitset
     completed, counts = im.impute(fs, m=2)
     f = fs.cohort.frame
     dead = f.qol_6m.isna() & (f.died == 1)

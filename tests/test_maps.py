@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
+from spec_texts import binary, spec_text
 from statsmodels.miscmodels.ordinal_model import OrderedModel
 
 from explorer import analysis as an
@@ -23,39 +24,10 @@ from explorer.spec import MapSpec, load_spec
 ARMS = ("alpha", "beta")
 LEVELS = ("well", "some_help", "much_help", "dead")
 WEIGHTS = {"well": 1.0, "some_help": 0.7, "much_help": 0.3, "dead": 0.0}
-SPEC = """\
-[cohort]
-path = "cohort.csv"
-arm = "arm"
-arms = ["alpha", "beta"]
-
-[[outcomes]]
-name = "event"
-kind = "binary"
-column = "event"
-
-[[outcomes]]
-name = "state"
-kind = "ordinal"
-column = "state"
-levels = ["well", "some_help", "much_help", "dead"]
-
-[[indices]]
-name = "a"
-column = "a"
-
-[[indices]]
-name = "b"
-column = "b"
-
-[values]
-outcome = "state"
-weights = { well = 1.0, some_help = 0.7, much_help = 0.3, dead = 0.0 }
-
-[[maps]]
-indices = ["a", "b"]
-target = "event"
-"""
+SPEC = spec_text(ARMS, outcomes=[binary("event"), {"name": "state", "kind": "ordinal", "column": "state",
+                                                   "levels": list(LEVELS)}],
+                 indices=["a", "b"], values={"outcome": "state", "weights": WEIGHTS},
+                 maps=[{"indices": ["a", "b"], "target": "event"}])
 
 
 def _fitset(tmp_path: Path, frame: pd.DataFrame) -> ft.FitSet:

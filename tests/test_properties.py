@@ -13,6 +13,7 @@ import tomllib
 
 import numpy as np
 import pandas as pd
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -102,6 +103,7 @@ def table_text(draw) -> tuple[bytes, str]:
     return text.encode(encoding, errors="replace"), name
 
 
+@pytest.mark.slow  # 2,000 examples: 10-30 s of CPU (measured 2026-12-02)
 @EXAMPLES
 @given(table_text())
 def test_loader_csv_like_text(case: tuple[bytes, str]) -> None:
@@ -143,6 +145,7 @@ def toml_text(draw) -> str:
     return "\n".join(lines)
 
 
+@pytest.mark.slow  # 2,000 examples: 10-30 s of CPU (measured 2026-12-02)
 @EXAMPLES
 @given(toml_text())
 def test_spec_parser_toml_like_text(text: str) -> None:
@@ -171,6 +174,7 @@ def _paths(obj, prefix=()):
 PATHS = list(_paths(BASE))
 
 
+@pytest.mark.slow  # 2,000 examples: 10-30 s of CPU (measured 2026-12-02)
 @EXAMPLES
 @given(st.lists(st.tuples(st.sampled_from(PATHS), st.sampled_from(["delete", "replace", "add"]), VALUES,
                           st.sampled_from(KEYS) | st.text(max_size=5)), min_size=1, max_size=4))
@@ -198,6 +202,7 @@ def test_spec_parser_mutated_structures(edits) -> None:
         pass
 
 
+@pytest.mark.slow  # 2,000 examples: 10-30 s of CPU (measured 2026-12-02)
 @EXAMPLES
 @given(st.dictionaries(st.sampled_from(list(TOP_LEVEL) + ["x"]), VALUES, max_size=5))
 def test_spec_parser_random_structures(data: dict) -> None:
@@ -232,6 +237,7 @@ TOKENS = ["`lactate (mmol/L)`", "`CFS score`", "`âge`", "age", "ｘ", "`a`b`", 
           "10", "-10", "`", "``", "__class__", "ａｇｅ", "\u00a0", "\t"]
 
 
+@pytest.mark.slow  # 2,000 examples: 10-30 s of CPU (measured 2026-12-02)
 @EXAMPLES
 @given(st.lists(st.sampled_from(TOKENS), min_size=1, max_size=14).map("".join))
 def test_formula_tokens_over_extreme_values(text: str) -> None:

@@ -2,7 +2,6 @@
 lay family member manages (measured with textstat), and every number they say is the number in the view's JSON."""
 from __future__ import annotations
 
-import dataclasses
 import math
 import re
 
@@ -11,9 +10,7 @@ import textstat
 from test_patient import _runs
 
 from explorer.conversation import questions, record_conversation
-from explorer.fitting import fit_all
 from explorer.patient import place_patient
-from explorer.spec import load_spec
 from explorer.words import fmt
 
 NUMBER = re.compile(r"(?<![\w.])-?\d+(?:\.\d+)?")
@@ -29,8 +26,8 @@ MIN_EASE = 60.0
 
 
 @pytest.fixture(scope="module")
-def fs(_demo_master):
-    return fit_all(dataclasses.replace(load_spec(_demo_master / "demo.toml"), pairwise=None))
+def fs(demo_results):
+    return demo_results.fitset  # the shared demo analysis (conftest): read only
 
 
 @pytest.fixture(scope="module")

@@ -21,20 +21,17 @@ from explorer import charts_common as cc
 from explorer import charts_curves as cu
 from explorer import charts_selection as cs
 from explorer import words as wd
-from explorer.analysis import analyse
 from explorer.checks import km_curves
 from explorer.report import render_report
 from explorer.selection import randomised_coverage
-from explorer.spec import load_spec
 
 APP = Path(__file__).resolve().parents[1] / "pages" / "app.py"
 
 
 @pytest.fixture(scope="module")
-def result(_demo_master):
-    """The demo analysis, fitted once for the module (no pairwise comparison or decision maps: not shown here)."""
-    spec = load_spec(_demo_master / "demo.toml")
-    return analyse(dataclasses.replace(spec, pairwise=None, maps=()))
+def result(demo_results):
+    """The shared demo analysis (conftest; read only)."""
+    return demo_results
 
 
 @pytest.fixture(scope="module")
@@ -47,10 +44,11 @@ REPORT_INDICES = ("cfs", "age")
 
 @pytest.fixture(scope="module")
 def report_doc(doc) -> dict:
-    """The demo document cut to two indices, so the report stays quick to draw."""
+    """The demo document cut to two indices, without the pairwise comparison or decision maps (not looked at
+    here), so the report stays quick to draw."""
     keep = {k: [r for r in doc[k] if r.get("index") in REPORT_INDICES] for k in ("results", "composite", "selection",
                                                                                   "checks")}
-    return {**doc, **keep}
+    return {**doc, **keep, "pairwise": [], "maps": []}
 
 
 @pytest.fixture(scope="module")

@@ -599,12 +599,12 @@ def case(write_case, text, tmp_path):
 
 def no_analysis(monkeypatch):
     """Make any analysis fail the test: refusals of outputs must come before the long work."""
-    import explorer.analysis
+    import explorer.cli
 
     def boom(*a, **k):
         raise AssertionError("the analysis ran before the outputs were checked")
 
-    monkeypatch.setattr(explorer.analysis, "analyse", boom)
+    monkeypatch.setattr(explorer.cli, "analyse", boom)
 
 
 def cli(argv, capsys) -> tuple[int, str, str]:
@@ -728,14 +728,14 @@ def test_a_failure_after_the_first_output_says_what_was_written(case, capsys, mo
 
 
 def test_a_run_stopped_during_the_analysis_says_nothing_was_written(case, capsys, monkeypatch, tmp_path):
-    import explorer.analysis
+    import explorer.cli
 
     spec, _, _ = case
 
     def stopped(*a, **k):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(explorer.analysis, "analyse", stopped)
+    monkeypatch.setattr(explorer.cli, "analyse", stopped)
     code, _, err = cli(["analyse", spec, "--json", tmp_path / "r.json"], capsys)
     assert code == 130 and "stopped. Nothing was written." in err and not (tmp_path / "r.json").exists()
 
@@ -1020,11 +1020,11 @@ def _place(folder, name: str) -> str:
 def test_command_line_flags_only_end_cleanly(flag_case, monkeypatch, capsys, command, json_to, html_to, replicates,
                                              scheduler, quiet, junk):
     """Any mix of flags ends in exit 0, or exit 2 with a message; never a traceback, never a changed input."""
-    import explorer.analysis
+    import explorer.cli
     import explorer.report
 
     folder, result = flag_case
-    monkeypatch.setattr(explorer.analysis, "analyse", lambda spec, *cohort, **kw: result)  # no connection is ever made
+    monkeypatch.setattr(explorer.cli, "analyse", lambda spec, *cohort, **kw: result)  # no connection is ever made
     monkeypatch.setattr(explorer.report, "render_report", lambda r: "<html>the report</html>")
     inputs = {p: p.read_bytes() for p in (folder / "spec.toml", folder / "cohort.csv")}
     argv = [command, str(folder / "spec.toml")]

@@ -30,7 +30,7 @@ def demo_small(tmp_path_factory):
 
 
 def test_patient_command_prints_and_writes_the_app_numbers(demo_small, tmp_path, capsys, monkeypatch):
-    monkeypatch.setattr("explorer.spec.load_spec", lambda path: demo_small)
+    monkeypatch.setattr("explorer.cli.load_spec", lambda path: demo_small)
     out = tmp_path / "patient.json"
     assert cli.main(["patient", "ignored.toml", "--at", "cfs=6", "--at", "age=82", "--json", str(out)]) == 0
     doc = json.loads(out.read_text())
@@ -53,7 +53,7 @@ def test_patient_command_prints_and_writes_the_app_numbers(demo_small, tmp_path,
 
 
 def test_a_patient_value_outside_the_index_bounds_is_refused(demo_small, capsys, monkeypatch):
-    monkeypatch.setattr("explorer.spec.load_spec", lambda path: demo_small)
+    monkeypatch.setattr("explorer.cli.load_spec", lambda path: demo_small)
     assert cli.main(["patient", "ignored.toml", "--at", "cfs=99"]) == 2
     err = capsys.readouterr().err
     assert "outside the index's bounds 1 to 9" in err and "bounds" in err

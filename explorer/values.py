@@ -21,6 +21,7 @@ from . import analysis as an
 from . import breakeven as be
 from .errors import FulcrumError
 from .spec import OutcomeSpec, Spec, ValuesSpec, default_weights
+from .timepoints import mismatch
 
 KINDS = ("ordinal", "survival_function", "quality_adjusted")
 WEIGHTED_KINDS = ("ordinal", "survival_function")
@@ -434,6 +435,7 @@ def prepare_composite(fs: an.FitSet, kind: str, index: str, replicates: list[dic
                      "measured; the two models are treated as independent in the intervals.")
     title = f"Composite ({kind.replace('_', ' ')})"
     pair = _relabel(anchor, title, parts)
+    pair.warnings.extend(mismatch([p.outcome for p in parts]))  # outcomes measured at different times
     grid = an.grid_for(anchor, spec.analysis.grid)
     L, C = at(grid, True)
     cm = CompositeModel(kind, index, tuple(levels), tuple(anchor.fits), pair, spec, grid, L, C, at, measure, notes)

@@ -6,7 +6,7 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
-from explorer import database
+from explorer import charts, database
 from explorer.errors import FulcrumError
 from explorer.spec import OUTCOME_KINDS
 
@@ -245,14 +245,11 @@ for note in cohort.notes:
 
 st.subheader("Patients by arm and allocation")
 st.table(cohort.counts())
-charts = ui.engine("charts")
 arms = list(ws.spec.cohort.arms)
 
 st.subheader("Baseline characteristics by arm and allocation")
 baseline = ui.attempt(ws.baseline)
-if charts is None:
-    ui.not_available("The baseline table", "explorer/charts.py")
-elif baseline:
+if baseline:
     st.caption("Mean (SD), or share for yes/no characteristics, in each arm among all, randomised and chosen "
                "patients; standardised mean differences (SMD) above 0.1 are flagged.")
     st.dataframe(charts.baseline_frame(baseline), hide_index=True, width="stretch")
@@ -260,16 +257,13 @@ elif baseline:
 elif baseline is not None:
     st.caption("Name baseline covariates in the spec ([cohort] covariates = [...]) to compare the arms on them here.")
 clusters = ui.attempt(ws.clustering)
-if charts is not None:
-    st.caption(aps.md_escape(charts.describe_clustering(clusters)))
+st.caption(aps.md_escape(charts.describe_clustering(clusters)))
 for w in (clusters or {}).get("warnings", []):
     st.caption("Note: " + aps.md_escape(w))
 
 st.subheader("How each index is spread, by arm" + (", and where the randomised patients are" if ws.cohort.randomised is not None else ""))
 index_values = ui.attempt(ws.index_values)
-if index_values is not None and charts is None:
-    ui.not_available("The index charts", "explorer/charts.py")
-elif index_values is not None:
+if index_values is not None:
     arm_col = cohort.frame[ws.spec.cohort.arm].astype(str).to_numpy()
     for ix in ws.spec.indices:
         iv = index_values[ix.name]

@@ -3,10 +3,10 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
-from explorer import margins
+from explorer import charts, headline_table, margins
 
 LEVELS = [0.8, 0.9, 0.95, 0.99]
-ws, _ = ui.page_head(
+ws = ui.page_head(
     "Outcomes by index",
     "Where do the two arms do equally well (the break-even point), and which does better on either side? The "
     "table answers for every outcome and index; below it, one chart per outcome, with its checks and methods "
@@ -71,27 +71,22 @@ if rows is None:
 with st.spinner("Checking the curves against the data..."):
     checks = ui.attempt(ws.checks) or []
 doc = {"arms": arms, "results": rows, "checks": checks}
-charts = ui.engine("charts")
 
 # ------------------------------------------------------------------------------------------
 # The headline: every outcome and index in one table, at the top of the page
 # ------------------------------------------------------------------------------------------
-headline_mod = ui.engine("headline_table")
 with headline:
-    if charts is None or headline_mod is None:
-        ui.not_available("The break-even table", "explorer/headline_table.py")
-    else:
-        table = headline_mod.headline_table([r for r in rows if r["index"] == index], checks,
-                                            {o.name: o.title for o in ws.spec.outcomes})
-        st.dataframe(table.drop(columns=["index"]), hide_index=True, width="stretch",
-                     column_config={c: st.column_config.TextColumn(c, width="medium") for c in table.columns})
-        clusters = ui.attempt(ws.clustering)
-        st.caption(f"{aps.md_escape(arms[0])} is drawn in blue, {aps.md_escape(arms[1])} in orange. "
-                   + aps.md_escape(charts.describe_clustering(clusters)))
-        for w in (clusters or {}).get("warnings", []):
-            st.caption("Note: " + aps.md_escape(w))
-        with st.expander("Every break-even point on every index, with the test numbers (for the record)"):
-            st.dataframe(charts.breakeven_summary_table(doc), hide_index=True, width="stretch")
+    table = headline_table.headline_table([r for r in rows if r["index"] == index], checks,
+                                          {o.name: o.title for o in ws.spec.outcomes})
+    st.dataframe(table.drop(columns=["index"]), hide_index=True, width="stretch",
+                 column_config={c: st.column_config.TextColumn(c, width="medium") for c in table.columns})
+    clusters = ui.attempt(ws.clustering)
+    st.caption(f"{aps.md_escape(arms[0])} is drawn in blue, {aps.md_escape(arms[1])} in orange. "
+               + aps.md_escape(charts.describe_clustering(clusters)))
+    for w in (clusters or {}).get("warnings", []):
+        st.caption("Note: " + aps.md_escape(w))
+    with st.expander("Every break-even point on every index, with the test numbers (for the record)"):
+        st.dataframe(charts.breakeven_summary_table(doc), hide_index=True, width="stretch")
 
 
 # ------------------------------------------------------------------------------------------
@@ -148,9 +143,6 @@ if ws.fitset().population is not None:
     st.caption(aps.md_escape(f"These curves rest on {ws.fitset().population.words} ({ws.fitset().population.reason})."))
 for row in [r for r in doc["results"] if r["index"] == index]:
     st.subheader(ws.spec.outcome(row["outcome"]).title)
-    if charts is None:
-        ui.not_available("Charts", "explorer/charts.py")
-        continue
     check = charts.check_for(checks, row["outcome"], index)
     points = ui.attempt(charts.cohort_points, ws.fitset(), row["outcome"], index) if show_points else None
     ui.altair(charts.outcome_chart(row, arms, points, index_label=titles[index]),

@@ -4,9 +4,10 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
-from explorer import exports, results
+from explorer import charts, exports, results
+from explorer.report import render_report
 
-ws, _ = ui.page_head(
+ws = ui.page_head(
     "Report",
     "Everything here reflects the current settings: the cohort, the weights, the margin and the interval level. "
     "The spec file reloads all of them on the Cohort page or with `fulcrum analyse`.")
@@ -27,13 +28,9 @@ with c1:
     st.download_button("Results (.json)", data=results.dumps(doc), file_name="fulcrum_results.json",
                        mime="application/json", on_click="ignore", icon=":material/data_object:")
 with c2:
-    render_report = ui.part("report", "render_report")
-    if render_report is None:
-        ui.not_available("The offline HTML report", "explorer/report")
-    else:
-        st.download_button("Offline report (.html, opens with no network)", data=lambda: render_report(res),
-                           file_name="fulcrum_report.html", mime="text/html", on_click="ignore",
-                           icon=":material/description:")
+    st.download_button("Offline report (.html, opens with no network)", data=lambda: render_report(res),
+                       file_name="fulcrum_report.html", mime="text/html", on_click="ignore",
+                       icon=":material/description:")
 table = aps.breakeven_table(doc)
 c3, c4 = st.columns(2)
 with c3:
@@ -49,10 +46,6 @@ st.caption("Spreadsheet cells that begin with =, +, -, @ or a control character 
 st.caption(f"Data sha256 {doc['inputs']['data_sha256'][:16]}..., spec {doc['inputs']['spec_canonical_sha256'][:16]}..., "
            f"seed {doc['inputs']['seed']}, {doc['inputs']['interval']} intervals at {doc['inputs']['level']:.0%}.")
 
-charts = ui.engine("charts")
-if charts is None:
-    ui.not_available("Break-even table and chart pictures", "explorer/charts.py")
-    st.stop()
 st.dataframe(charts.breakeven_table(doc), hide_index=True, width="stretch")
 
 st.header("Charts as pictures")

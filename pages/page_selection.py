@@ -4,15 +4,14 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
+from explorer import charts
 
-ws, selection = ui.page_head(
+ws = ui.page_head(
     "Randomised vs chosen",
     "Patients allocated at random and patients whose treatment was chosen can differ in ways the data do not "
     "show. Here each arm's outcomes in chosen patients are set against the same arm's randomised patients at "
-    "the same index value, and the break-even points are compared.",
-    needs=("selection", "The randomised vs chosen analysis"))
+    "the same index value, and the break-even points are compared.")
 arms = list(ws.spec.cohort.arms)
-charts = ui.engine("charts")
 if ws.cohort.randomised is None:
     st.warning("The cohort has no allocation column, so randomised and chosen patients cannot be told apart. "
                "Name the allocation column on the Cohort page.")
@@ -26,7 +25,7 @@ index = st.radio("Index", names, format_func=titles.get, horizontal=True, key=ui
 
 st.header(f"Where the randomised patients are, along {titles[index]}")
 coverage = ui.attempt(ws.coverage, index)
-if coverage and charts is not None:
+if coverage:
     ui.altair(charts.coverage_chart(coverage, arms, index_label=titles[index]),
               charts.describe_coverage(coverage, arms, titles[index]))
     with st.expander(f"Patients per window of {titles[index]}"):
@@ -48,9 +47,6 @@ for outcome in ws.spec.outcomes:
     if not rows:
         continue
     st.subheader(outcome.title)
-    if charts is None:
-        ui.not_available("Selection charts", "explorer/charts.py")
-        continue
     ui.altair(charts.selection_break_even_chart(rows[0], index_title=titles[index]),
               "Break-even points: " + "; ".join(
                   f"{what} " + (", ".join(f"{b['x']:.3g}" for b in rows[0].get(key) or []) or "none in range")

@@ -4,18 +4,16 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
+from explorer import charts, charts_values, values
 from explorer.charts import fmt as charts_fmt
 
 CUSTOM = "custom"
 WHOSE = {"patient": "the patient's own", "proxy": "a proxy's, on the patient's behalf", "team": "the team's"}
-ws, values = ui.page_head(
+ws = ui.page_head(
     "Values",
     "How much is each outcome state worth? Give the best state 1 and death 0; a state judged worse than death "
-    "goes below 0. The composite is each arm's expected value of these weights along the index.",
-    needs=("values", "Weighing outcome states"))
+    "goes below 0. The composite is each arm's expected value of these weights along the index.")
 arms = list(ws.spec.cohort.arms)
-charts = ui.engine("charts")
-leeway = ui.engine("charts_values")
 
 ordinal = [o for o in ws.spec.outcomes if o.kind == "ordinal"]
 if ws.spec.values is None:
@@ -123,26 +121,23 @@ for row, ((kind, _), (_, info)) in zip(rows, summaries.items()):
     else:
         st.caption("Does not use the weights above: time alive is counted at each survivor's own quality of life "
                    "from the cohort (quality-adjusted time, in the survival outcome's time units).")
-    if charts is None:
-        ui.not_available("Composite charts", "explorer/charts.py")
-    else:
-        ui.altair(charts.composite_chart(row, arms, index_label=titles[index]),
-                  charts.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin))
+    ui.altair(charts.composite_chart(row, arms, index_label=titles[index]),
+              charts.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin))
     for note in row.get("notes", []):
         st.caption(aps.md_escape(note))
 
     th = row.get("thresholds")
-    if th and leeway is not None:
+    if th:
         with st.expander("How far can these weights move before the answer changes?", expanded=False):
-            lw = leeway.leeway(th)
-            chart = leeway.leeway_chart(lw, arms, where=f"{titles[index]} {x0:.3g}")
+            lw = charts_values.leeway(th)
+            chart = charts_values.leeway_chart(lw, arms, where=f"{titles[index]} {x0:.3g}")
             ui.show_chart(chart)
             ui.sentence(ui.description(chart) or "")
-            st.dataframe(leeway.leeway_table(lw), hide_index=True, width="stretch")
+            st.dataframe(charts_values.leeway_table(lw), hide_index=True, width="stretch")
 
     acc = row.get("acceptability")
-    if acc and leeway is not None:
-        chart = leeway.preference_chart(acc, arms, index_title=titles[index], spread=v.spread, ranges=v.ranges,
+    if acc:
+        chart = charts_values.preference_chart(acc, arms, index_title=titles[index], spread=v.spread, ranges=v.ranges,
                                           discrete=discrete)
         ui.altair(chart, ui.description(chart))
 
@@ -175,28 +170,24 @@ def pairwise_window(window, label: str) -> str:
 # The hierarchical pairwise comparison
 # ------------------------------------------------------------------------------------------
 st.header("Pairwise comparison of patients")
-pairwise = ui.engine("pairwise")
-if pairwise is None:
-    ui.not_available("The pairwise comparison", "explorer/pairwise.py")
-else:
-    st.markdown("Every patient in one arm is compared with every patient in the other, outcome by outcome in "
-                "order of priority; a pair is decided by the first outcome that separates them.")
-    if st.checkbox("Compute the pairwise comparison (with its own bootstrap)", key=ui.key("pairwise_on")):
-        prow = ui.with_progress("Pairwise comparison:", ws.pairwise, index)
-        if prow:
-            order = [ws.spec.outcome(n).title for n in (ws.spec.pairwise.priority if ws.spec.pairwise else ())]
-            if order:
-                st.markdown("**Order of priority:** " + " → ".join(aps.md_escape(t) for t in order))
-            table = pd.DataFrame([{"patients": pairwise_window(r["window"], titles.get(index, "index")),
-                                   f"{arms[0]}": r["n_first"], f"{arms[1]}": r["n_second"],
-                                   "win ratio": rounded(r["win_ratio"]), "win ratio interval": span(r["win_ratio_ci"]),
-                                   "net benefit": rounded(r["net_benefit"]),
-                                   "net benefit interval": span(r["net_benefit_ci"]),
-                                   "clearly favours": r["favours"] or "neither"} for r in prow])
-            st.dataframe(table.astype(str), hide_index=True, width="stretch")
-            st.caption("Win ratio: pairs won by the first arm over pairs lost (above 1 favours it). Net benefit: "
-                       "the share of pairs won minus the share lost (above 0 favours the first arm).")
-            overall = prow[0]
-            if overall.get("win_ratio") is not None:
-                ui.sentence(f"Across everyone, {arms[0]} wins {overall['wins']:,} and loses {overall['losses']:,} "
-                            f"of {overall['pairs']:,} pairs (win ratio {overall['win_ratio']:.3g}).")
+st.markdown("Every patient in one arm is compared with every patient in the other, outcome by outcome in "
+            "order of priority; a pair is decided by the first outcome that separates them.")
+if st.checkbox("Compute the pairwise comparison (with its own bootstrap)", key=ui.key("pairwise_on")):
+    prow = ui.with_progress("Pairwise comparison:", ws.pairwise, index)
+    if prow:
+        order = [ws.spec.outcome(n).title for n in (ws.spec.pairwise.priority if ws.spec.pairwise else ())]
+        if order:
+            st.markdown("**Order of priority:** " + " → ".join(aps.md_escape(t) for t in order))
+        table = pd.DataFrame([{"patients": pairwise_window(r["window"], titles.get(index, "index")),
+                               f"{arms[0]}": r["n_first"], f"{arms[1]}": r["n_second"],
+                               "win ratio": rounded(r["win_ratio"]), "win ratio interval": span(r["win_ratio_ci"]),
+                               "net benefit": rounded(r["net_benefit"]),
+                               "net benefit interval": span(r["net_benefit_ci"]),
+                               "clearly favours": r["favours"] or "neither"} for r in prow])
+        st.dataframe(table.astype(str), hide_index=True, width="stretch")
+        st.caption("Win ratio: pairs won by the first arm over pairs lost (above 1 favours it). Net benefit: "
+                   "the share of pairs won minus the share lost (above 0 favours the first arm).")
+        overall = prow[0]
+        if overall.get("win_ratio") is not None:
+            ui.sentence(f"Across everyone, {arms[0]} wins {overall['wins']:,} and loses {overall['losses']:,} "
+                        f"of {overall['pairs']:,} pairs (win ratio {overall['win_ratio']:.3g}).")

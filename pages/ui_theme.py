@@ -2,7 +2,7 @@
 that says, on every page, which tool this is, which cohort is loaded and which patient is in hand.
 
 The colours come from explorer/look.py (docs/look.md explains them; tests check every text pair reaches 4.5:1).
-Pages call nothing here except set_patient(); the app's entry script calls header() once per run.
+Pages call nothing here; the app's entry script calls header() once per run.
 """
 from __future__ import annotations
 
@@ -13,8 +13,6 @@ import streamlit as st
 
 from explorer import look
 
-PATIENT = "fulcrum_patient_in_hand"
-_SLOT = "fulcrum_header_slot"
 
 # A lever on its fulcrum: the beam carries the two arms' colours at its ends. Drawn here, owned by no one else.
 MARK = (f'<svg class="fulcrum-mark" viewBox="0 0 44 28" width="44" height="28" aria-hidden="true" focusable="false">'
@@ -82,19 +80,9 @@ def header_html(cohort: str, n: int, arms: tuple[str, str] | list[str], patient:
             f'<dl><div><dt>Patient</dt><dd>{who}</dd></div></dl></header>')
 
 
-def header(ws: Any) -> None:
-    """The stylesheet and the header, at the top of every page (call once per run, before the page)."""
+def header(ws: Any, patient: str | None) -> None:
+    """The stylesheet and the header, at the top of every page (call once per run, before the page). patient: the
+    session's one patient in a line (appstate.PatientChoice.describe), as the sidebar says it."""
     st.markdown(CSS, unsafe_allow_html=True)
-    slot = st.empty()
-    st.session_state[_SLOT] = (slot, ws.filename, ws.cohort.n, tuple(ws.spec.cohort.arms), bool(ws.is_demo))
-    slot.markdown(header_html(ws.filename, ws.cohort.n, ws.spec.cohort.arms, st.session_state.get(PATIENT),
-                              bool(ws.is_demo)), unsafe_allow_html=True)
-
-
-def set_patient(label: str | None) -> None:
-    """Name the patient in hand (no identifiers: a cohort row number or "entered values") and refresh the header."""
-    st.session_state[PATIENT] = label
-    held = st.session_state.get(_SLOT)
-    if held:
-        slot, name, n, arms, demo = held
-        slot.markdown(header_html(name, n, arms, label, demo), unsafe_allow_html=True)
+    st.markdown(header_html(ws.filename, ws.cohort.n, ws.spec.cohort.arms, patient, bool(ws.is_demo)),
+                unsafe_allow_html=True)

@@ -28,7 +28,7 @@ from .coverage import label_results
 from .errors import FulcrumError
 from .headline import annotate
 from .indices import needed_columns
-from .intake import releasing_memory
+from .intake import release_memory, releasing_memory
 from .pairwise import pairwise_rows
 from .selection import analyse_selection, randomised_coverage
 from .spec import Spec, canonical_sha256, parse_spec, parse_spec_text, spec_to_dict, to_toml
@@ -765,6 +765,36 @@ def preview(data: bytes, filename: str, sheet: str | None = None) -> pd.DataFram
         raise FulcrumError("the file has column names but no data rows.", file=filename,
                            hint="Add one row per patient under the header.")
     return frame
+
+
+PREVIEW_ROWS = 200  # rows of a received file kept for the Cohort page to show (never the whole table)
+MAX_VALUES = 50  # distinct values kept per column, for the arm, allocation and level choices
+
+
+@dataclass(frozen=True)
+class FirstLook:
+    """What the Cohort page needs of a received file, and nothing more: its columns and row count, the role
+    guesses and each column's first distinct values (made from every row), and the first PREVIEW_ROWS rows.
+    The whole text table is dropped once this is made, so a large upload is not held twice in the session."""
+
+    columns: tuple[str, ...]
+    n_rows: int
+    guess: Guess
+    values: dict[str, tuple[str, ...]]
+    head: pd.DataFrame
+
+
+def first_look(data: bytes, filename: str, sheet: str | None = None) -> FirstLook:
+    """Read the file once (preview), keep the bounded summary the page uses, release the rest."""
+    frame = preview(data, filename, sheet)
+    try:
+        look = FirstLook(columns=tuple(frame.columns), n_rows=len(frame), guess=guess_roles(frame),
+                         values={c: tuple(_values(frame[c])[:MAX_VALUES]) for c in frame.columns},
+                         head=frame.head(PREVIEW_ROWS).copy())
+    finally:
+        del frame
+        release_memory()
+    return look
 
 
 def sheet_names(data: bytes) -> list[str]:

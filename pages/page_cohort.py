@@ -26,10 +26,10 @@ st.markdown("Load a cohort, tell Fulcrum which column holds what, and check the 
 # ------------------------------------------------------------------------------------------
 def stage(data: bytes, filename: str, sheet: str | None = None) -> dict:
     """Read a first look at an upload; an error is kept to show, the loaded cohort is untouched."""
-    out = {"sha": aps.data_sha256(data), "data": data, "filename": filename, "sheet": sheet, "frame": None,
+    out = {"sha": aps.data_sha256(data), "data": data, "filename": filename, "sheet": sheet, "look": None,
            "error": None, "sheets": []}
     try:
-        out["frame"] = aps.preview(data, filename, sheet)
+        out["look"] = aps.first_look(data, filename, sheet)  # bounded: the whole table is not kept
     except FulcrumError as exc:
         out["error"] = exc
         if exc.key == "cohort.sheet":
@@ -67,7 +67,7 @@ else:
                              key=ui.key("sheet"))
         if sheet != staged["sheet"]:
             staged = st.session_state[STAGED] = stage(staged["data"], staged["filename"], sheet)
-    if staged["error"] is not None and not (staged["sheets"] and staged["frame"] is not None):
+    if staged["error"] is not None and not (staged["sheets"] and staged["look"] is not None):
         ui.show_error(staged["error"], f"The cohort already loaded ({ws.filename}) is kept.")
 
 
@@ -114,7 +114,7 @@ for note in ws.notes:
     st.info(aps.md_escape(note))
 
 staged = st.session_state.get(STAGED)
-fresh = staged is not None and staged["frame"] is not None
+fresh = staged is not None and staged["look"] is not None
 
 # ------------------------------------------------------------------------------------------
 # 2. Columns, outcomes and indices
@@ -122,28 +122,30 @@ fresh = staged is not None and staged["frame"] is not None
 st.header("2. Columns, outcomes and indices")
 if fresh:
     source = staged
-    st.markdown(f"**New file:** {aps.md_escape(staged['filename'])}, {len(staged['frame']):,} rows. Fulcrum has "
+    look = staged["look"]
+    st.markdown(f"**New file:** {aps.md_escape(staged['filename'])}, {look.n_rows:,} rows. Fulcrum has "
                 "guessed each column's role; check every choice, then press **Check and use**.")
-    frame = staged["frame"]
     base_rows = None
 else:
     source = {"sha": ws.data_sha256, "data": ws.data, "filename": ws.filename, "sheet": ws.spec.cohort.sheet,
               "database": ws.source}
     previews = st.session_state.setdefault(PREVIEWS, {})
-    frame = previews.get(ws.data_sha256)
-    if frame is None:
-        frame = ui.attempt(aps.preview, ws.data, ws.filename, ws.spec.cohort.sheet)
-        if frame is not None:
-            previews.clear()
-            previews[ws.data_sha256] = frame
+    look = previews.get(ws.data_sha256)
+    if look is None:
+        look = ui.attempt(aps.first_look, ws.data, ws.filename, ws.spec.cohort.sheet)
+        previews.clear()  # one file's first look at a time
+        if look is not None:
+            previews[ws.data_sha256] = look
     base_rows = ws.spec
     st.markdown(f"**Loaded:** {aps.md_escape(ws.filename)}. Change any role below and press **Check and use**; "
                 "if the check fails, the cohort stays as it is.")
 
-if frame is not None:
+if look is not None:
     tag = source["sha"][:10]
-    guess = aps.guess_roles(frame)
-    cols = list(frame.columns)
+    guess = look.guess
+    cols = list(look.columns)
+    with st.expander(f"The file's first {len(look.head):,} rows, as read (of {look.n_rows:,})"):
+        st.dataframe(look.head, hide_index=True)
     current = ws.spec.cohort if not fresh else None
 
     def choose(label: str, name: str, options: list[str], default: str | None, help: str | None = None) -> str:
@@ -151,7 +153,7 @@ if frame is not None:
         return st.selectbox(label, options, key=k, help=help)
 
     def values_of(col: str) -> list[str]:
-        return [str(v) for v in pd.unique(frame[col].dropna())] if col in frame else []
+        return list(look.values.get(col, ()))
 
     a, b, c = st.columns(3)
     with a:

@@ -229,14 +229,40 @@ def whose_words(ws: aps.Workspace, choice: aps.PatientChoice | None = None) -> s
     return WHOSE_WORDS.get(who, who) if who else None
 
 
-def patient_view(ws: aps.Workspace, fs: Any, index: str | None = None, keeping: str | None = None):
-    """The engine's view of the session's patient (nothing computed here), or None with the reason shown."""
+def _place(ws: aps.Workspace, fs: Any, index: str | None):
     choice = patient(ws)
     values, row = choice.inputs()
     record = current_record(ws, choice)
     weights = record.weights if record is not None else None
-    return attempt(patient_mod.place_patient, fs, values, row=row, weights=weights, index=index, record=record,
-                   keeping=keeping)
+    return patient_mod.place_patient(fs, values, row=row, weights=weights, index=index, record=record)
+
+
+def patient_view(ws: aps.Workspace, fs: Any, index: str | None = None, keeping: str | None = None):
+    """The engine's view of the session's patient (nothing computed here), or None with the reason shown."""
+    return attempt(_place, ws, fs, index, keeping=keeping)
+
+
+def patient_marker(ws: aps.Workspace, fs: Any, index: str) -> dict | None:
+    """Where the session's patient sits on one index, for a chart's patient rule and a caption: {"x", "label",
+    "sentence"}; None (with a quiet note) when the patient cannot be placed on it."""
+    try:
+        view = _place(ws, fs, index)
+    except FulcrumError as exc:
+        st.caption("The patient in hand is not marked here: " + aps.md_escape(exc.what))
+        return None
+    pl = view.placements.get(index)
+    if pl is None:
+        return None
+    return {"x": pl.value, "label": f"this patient ({pl.value:.3g}, percentile {pl.percentile:.0f})",
+            "sentence": f"{pl.label} {pl.value:.3g} (cohort percentile {pl.percentile:.0f}"
+                        + ("; outside the cohort's range)." if pl.outside else ").")}
+
+
+def patient_caption(marker: dict | None) -> None:
+    """One line saying where the patient in hand sits (the patient is changed on the Patient page)."""
+    if marker is not None:
+        st.caption("**Patient in hand:** " + aps.md_escape(marker["sentence"]) + " The dotted line marks them on "
+                   "each chart; change the patient on the Patient page.")
 
 
 def current_record(ws: aps.Workspace, choice: aps.PatientChoice):

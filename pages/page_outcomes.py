@@ -139,13 +139,15 @@ show_points = st.checkbox("Show each patient beneath the curves" + (" (triangles
                                                                      if ws.cohort.randomised is not None else ""),
                           value=True, key=ui.key("points"))
 st.header(f"Outcomes along {titles[index]}")
+marker = ui.patient_marker(ws, ws.fitset(), index)
+ui.patient_caption(marker)
 if ws.fitset().population is not None:
     st.caption(aps.md_escape(f"These curves rest on {ws.fitset().population.words} ({ws.fitset().population.reason})."))
 for row in [r for r in doc["results"] if r["index"] == index]:
     st.subheader(ws.spec.outcome(row["outcome"]).title)
     check = charts.check_for(checks, row["outcome"], index)
     points = ui.attempt(charts.cohort_points, ws.fitset(), row["outcome"], index) if show_points else None
-    ui.altair(charts.outcome_chart(row, arms, points, index_label=titles[index]),
+    ui.altair(charts.outcome_chart(row, arms, points, patient=marker, index_label=titles[index]),
               " ".join(t for t in (charts.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin),
                                    charts.describe_percentiles(row, titles[index])) if t))
     for w in row.get("warnings", []) + (check or {}).get("warnings", []):  # check warnings outside the tabs

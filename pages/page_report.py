@@ -3,6 +3,7 @@ and each chart as a picture."""
 import streamlit as st
 
 import fulcrum_ui as ui
+from explorer import CAUTIONS, patient
 from explorer import appstate as aps
 from explorer import charts, exports, results
 from explorer.report import render_report
@@ -48,6 +49,22 @@ st.caption(f"Data sha256 {doc['inputs']['data_sha256'][:16]}..., spec {doc['inpu
 
 st.dataframe(charts.breakeven_table(doc), hide_index=True, width="stretch")
 
+st.header("The patient in hand")
+view = ui.patient_view(ws, res.fitset)
+if view is not None:
+    ui.sentence(f"{ui.patient_line(ws) or ''}. " + view.place_sentence())
+    st.caption("The report above is about the cohort. The patient's own summary (no identifiers; add a name on the "
+               "Patient page) is made from the same fits and the weights in use.")
+    q1, q2 = st.columns(2)
+    with q1:
+        st.download_button("Patient summary (.html)", file_name="patient_summary.html", mime="text/html",
+                           data=lambda: patient.patient_summary_html(view, CAUTIONS), on_click="ignore",
+                           icon=":material/print:", key=ui.key("report_patient_html"))
+    with q2:
+        st.download_button("Patient summary (.pdf)", file_name="patient_summary.pdf", mime="application/pdf",
+                           data=lambda: patient.patient_summary_pdf(view, CAUTIONS), on_click="ignore",
+                           icon=":material/picture_as_pdf:", key=ui.key("report_patient_pdf"))
+
 st.header("Charts as pictures")
 catalogue = aps.chart_catalogue(doc, {ix.name: ix.title for ix in ws.spec.indices},
                                 {o.name: o.title for o in ws.spec.outcomes})
@@ -57,7 +74,10 @@ pick = st.selectbox("Chart", list(range(len(catalogue))), format_func=lambda i: 
                     key=ui.key("chart_pick"))
 item = catalogue[pick]
 build = charts.composite_chart if item["composite"] else charts.outcome_chart
-chart = build(item["row"], arms, index_label=item["index_label"])
+marker = None
+if st.checkbox("Mark the patient in hand on the picture", value=True, key=ui.key("report_marker")):
+    marker = ui.patient_marker(ws, res.fitset, item["row"]["index"])
+chart = build(item["row"], arms, patient=marker, index_label=item["index_label"])
 ui.altair(chart, charts.describe_row(item["row"], arms, item["index_label"], margin=ws.spec.analysis.margin))
 p1, p2 = st.columns(2)
 with p1:

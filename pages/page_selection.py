@@ -42,6 +42,8 @@ if result is None:
 
 
 st.header(f"Randomised and chosen patients along {titles[index]}")
+marker = ui.patient_marker(ws, ws.fitset(), index)
+ui.patient_caption(marker)
 for outcome in ws.spec.outcomes:
     rows = [r for r in result.rows if r["index"] == index and r["outcome"] == outcome.name]
     if not rows:
@@ -52,7 +54,8 @@ for outcome in ws.spec.outcomes:
                   f"{what} " + (", ".join(f"{b['x']:.3g}" for b in rows[0].get(key) or []) or "none in range")
                   for key, what in charts.SELECTION_SETS) + ".")
     for row in rows:
-        ui.altair(charts.selection_chart(row, arms, index_title=titles[index]), charts.describe_selection(row))
+        ui.altair(charts.selection_chart(row, arms, index_title=titles[index], patient=marker),
+                  charts.describe_selection(row))
     table = pd.DataFrame([{"arm": r["arm"], "chosen minus randomised": r["effect"], "interval": r["ci"],
                            "randomised": r["n_randomised"], "chosen": r["n_chosen"],
                            "varies along the index (p)": r.get("varies_with_index_p")} for r in rows])

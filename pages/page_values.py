@@ -101,10 +101,12 @@ here = {k: cm for k, cm in prepared.items() if k[1] == index}
 anchor = next(iter(here.values()))
 lo, hi = anchor.x_range
 discrete = bool(ws.index_values()[index].info.get("discrete"))
+marker = ui.patient_marker(ws, ws.fitset(), index)
+ui.patient_caption(marker)
+start = marker["x"] if marker is not None and lo <= marker["x"] <= hi else values.default_threshold_x(anchor)
 x0 = st.slider(f"Test how far the weights can move at {titles[index]} =", float(lo), float(hi),
                step=1.0 if discrete else (hi - lo) / 100,
-               key=ui.seed(f"x0:{index}", float(round(values.default_threshold_x(anchor)) if discrete
-                                                else values.default_threshold_x(anchor))))
+               key=ui.seed(f"x0:{index}", float(round(start) if discrete else start)))
 summaries = ui.attempt(values.reweight, here, v.weights, values=v, margin=ws.spec.analysis.margin,
                        threshold_at={index: x0})
 if summaries is None:
@@ -121,8 +123,10 @@ for row, ((kind, _), (_, info)) in zip(rows, summaries.items()):
     else:
         st.caption("Does not use the weights above: time alive is counted at each survivor's own quality of life "
                    "from the cohort (quality-adjusted time, in the survival outcome's time units).")
-    ui.altair(charts.composite_chart(row, arms, index_label=titles[index]),
+    ui.altair(charts.composite_chart(row, arms, patient=marker, index_label=titles[index]),
               charts.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin))
+    for w in row.get("warnings", []):
+        st.warning(aps.md_escape(w))
     for note in row.get("notes", []):
         st.caption(aps.md_escape(note))
 

@@ -814,7 +814,8 @@ def chart_catalogue(doc: dict, index_titles: dict[str, str], outcome_titles: dic
     for composite, rows in ((False, doc.get("results", [])), (True, doc.get("composite", []))):
         for row in rows:
             ix = index_titles.get(row["index"], row["index"])
-            what = (f"Value of outcomes ({row.get('kind', 'composite').replace('_', ' ')})" if composite
+            what = (row.get("label") or f"Value of outcomes ({row.get('kind', 'composite').replace('_', ' ')})"
+                    if composite
                     else outcome_titles.get(row["outcome"], row["outcome"]))
             name = f"{'composite_' + row.get('kind', '') if composite else row['outcome']}_by_{row['index']}"
             out.append({"label": f"{what} along {ix}", "file": re.sub(r"[^A-Za-z0-9_.-]+", "_", name),

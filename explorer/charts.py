@@ -505,7 +505,8 @@ def composite_chart(row: Mapping[str, Any], arms: Sequence[str], points: pd.Data
     sub = "weights: " + ", ".join(f"{words(k)} {fmt(v)}" for k, v in weights.items()) if weights else None
     if who:
         sub = f"{sub} ({who}'s values)" if sub else f"{who}'s values"
-    title = f"Value of outcomes ({words(row.get('kind', 'composite'))}) along {index_label_of(row, index_label)}"
+    what = row.get("label") or f"Value of outcomes ({words(row.get('kind', 'composite'))})"
+    title = f"{what} along {index_label_of(row, index_label)}"
     return _finish(chart, title, [sub] if sub else None, describe_row(row, arms, index_label), style)
 
 

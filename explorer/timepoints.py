@@ -57,6 +57,7 @@ def mismatch(outcomes: Sequence[OutcomeSpec]) -> list[str]:
     if max(days) <= min(days) * (1 + SAME):
         return []
     said = ", ".join(f"'{o.title}' at {_words(d)}" for o, d in known)
-    return [f"This composite combines outcomes measured at different times ({said}); the combination assumes one "
-            "time point, so read it with care, or combine outcomes measured at the same time (for example a "
-            "survival outcome whose horizon matches the other outcome's)."]
+    warning = (f"This composite combines outcomes measured at different times ({said}); the combination assumes one "
+               "time point, so read it with care, or combine outcomes measured at the same time (for example a "
+               "survival outcome whose horizon matches the other outcome's).")
+    return [warning]

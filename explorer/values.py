@@ -428,12 +428,14 @@ def prepare_composite(fs: an.FitSet, kind: str, index: str, replicates: list[dic
         levels = ("quality-adjusted survival",)
         anchor, at = pf_surv, _quality_adjusted_evaluator(pf_surv, pf_util)
         parts = [pf_surv, pf_util]
-        measure = f"quality-adjusted survival to {_horizon_words(so)} (RMST x {conditional_label(uo)})"
+        measure = (f"quality-adjusted {so.units or 'time'} alive up to {_horizon_words(so)} (restricted mean "
+                   f"survival x {conditional_label(uo)})")  # the values carry their units
         notes.append(f"Quality-adjusted survival is approximated as restricted mean survival to {_horizon_words(so)} "
                      f"times the mean {uo.title} of survivors at that index value: this assumes quality of life is "
                      "constant over the period and the same, while alive, in those who died as in the survivors "
                      "measured; the two models are treated as independent in the intervals.")
-    title = f"Composite ({kind.replace('_', ' ')})"
+    title = {"ordinal": f"Expected value of the weights ({ordinal.title})", "survival_function": "Survival combined "
+             "with function", "quality_adjusted": "Quality-adjusted survival"}[kind]  # words, never the kind's name
     pair = _relabel(anchor, title, parts)
     pair.warnings.extend(mismatch([p.outcome for p in parts]))  # outcomes measured at different times
     grid = an.grid_for(anchor, spec.analysis.grid)

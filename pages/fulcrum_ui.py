@@ -253,7 +253,7 @@ def patient_marker(ws: aps.Workspace, fs: Any, index: str) -> dict | None:
     pl = view.placements.get(index)
     if pl is None:
         return None
-    return {"x": pl.value, "label": f"this patient ({pl.value:.3g}, percentile {pl.percentile:.0f})",
+    return {"x": pl.value, "label": f"this patient ({pl.value:.3g})",
             "sentence": f"{pl.label} {pl.value:.3g} (cohort percentile {pl.percentile:.0f}"
                         + ("; outside the cohort's range)." if pl.outside else ").")}
 

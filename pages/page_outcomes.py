@@ -79,7 +79,8 @@ with headline:
     table = headline_table.headline_table([r for r in rows if r["index"] == index], checks,
                                           {o.name: o.title for o in ws.spec.outcomes})
     st.dataframe(table.drop(columns=["index"]), hide_index=True, width="stretch",
-                 column_config={c: st.column_config.TextColumn(c, width="medium") for c in table.columns})
+                 column_config={c: st.column_config.TextColumn(c, width="large" if c.startswith(("arms", "does"))
+                                                               else "medium") for c in table.columns})
     clusters = ui.attempt(ws.clustering)
     st.caption(f"{aps.md_escape(arms[0])} is drawn in blue, {aps.md_escape(arms[1])} in orange. "
                + aps.md_escape(charts.describe_clustering(clusters)))

@@ -41,6 +41,12 @@ if result is None:
     st.stop()
 
 
+def span(ci) -> str:
+    """An interval as people read it ("-0.063 to 0.078"), open ends said in words."""
+    lo, hi = (list(ci or []) + [None, None])[:2]
+    return f"{'open' if lo is None else charts.fmt(lo)} to {'open' if hi is None else charts.fmt(hi)}"
+
+
 st.header(f"Randomised and chosen patients along {titles[index]}")
 marker = ui.patient_marker(ws, ws.fitset(), index)
 ui.patient_caption(marker)
@@ -56,9 +62,11 @@ for outcome in ws.spec.outcomes:
     for row in rows:
         ui.altair(charts.selection_chart(row, arms, index_title=titles[index], patient=marker),
                   charts.describe_selection(row))
-    table = pd.DataFrame([{"arm": r["arm"], "chosen minus randomised": r["effect"], "interval": r["ci"],
-                           "randomised": r["n_randomised"], "chosen": r["n_chosen"],
-                           "varies along the index (p)": r.get("varies_with_index_p")} for r in rows])
+    table = pd.DataFrame([{"arm": r["arm"], f"chosen minus randomised ({r.get('measure', outcome.title)})":
+                           charts.fmt(r["effect"]), "interval": span(r["ci"]), "randomised patients": r["n_randomised"],
+                           "chosen patients": r["n_chosen"],
+                           "does it vary along the index? (p)": charts.fmt(r.get("varies_with_index_p"))}
+                          for r in rows])
     st.dataframe(table.astype(str), hide_index=True, width="stretch")
     ev = rows[0].get("e_value")
     if ev and ev.get("e_value") is not None:

@@ -62,11 +62,13 @@ else:
     staged = st.session_state.get(STAGED)
     if staged is None or staged["sha"] != aps.data_sha256(data) or staged["filename"] != upload.name:
         staged = st.session_state[STAGED] = stage(data, upload.name)
+        staged["data"] = None  # the uploader holds the bytes: a second copy is not kept in the session
     if staged["sheets"]:
         sheet = st.selectbox("The workbook has several sheets; which holds the cohort?", staged["sheets"],
                              key=ui.key("sheet"))
         if sheet != staged["sheet"]:
-            staged = st.session_state[STAGED] = stage(staged["data"], staged["filename"], sheet)
+            staged = st.session_state[STAGED] = stage(data, staged["filename"], sheet)
+            staged["data"] = None
     if staged["error"] is not None and not (staged["sheets"] and staged["look"] is not None):
         ui.show_error(staged["error"], f"The cohort already loaded ({ws.filename}) is kept.")
 
@@ -220,7 +222,8 @@ if look is not None:
                               aps.indices_from_rows(indices.to_dict("records"), base, keep),
                               base=base, base_dir=Path(".") if fresh else ws.spec.cohort.path.parent)
         if fresh:
-            return aps.Workspace.open(source["data"], source["filename"], spec, source=source.get("database"))
+            data = source["data"] if source["data"] is not None else upload.getvalue()  # the upload's bytes, once
+            return aps.Workspace.open(data, source["filename"], spec, source=source.get("database"))
         return ws.with_spec(spec)
 
     if st.button("Check and use", type="primary"):

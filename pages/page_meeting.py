@@ -13,7 +13,7 @@ if fs is None:
     st.stop()
 names = [ix.name for ix in ws.spec.indices]
 titles = {ix.name: ix.title for ix in ws.spec.indices}
-top = st.columns([1.3, 2, 1.3, 1.1], vertical_alignment="bottom")
+top = st.columns([1.2, 1.8, 1.3, 1.5], vertical_alignment="bottom")
 with top[0]:
     st.markdown("### Meeting view")
 with top[1]:

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import dataclasses
 import hashlib
+import io
 import math
 import re
 from collections import OrderedDict
@@ -15,11 +16,25 @@ from pathlib import Path
 from typing import Any, Callable
 
 import numpy as np
+import openpyxl
 import pandas as pd
 
+from . import result_rows as res
+from .analysis import analyse
+from .charts_checks import breakeven_summary_table
+from .checks import baseline_table, checks_rows, clustering, km_curves
+from .cohort import load_cohort, read_table
+from .coverage import label_results
 from .errors import FulcrumError
+from .fitting import FitSet, compute_indices, fit_all, run_bootstrap, summarise
+from .headline import annotate
+from .indices import needed_columns
+from .intake import release_memory, releasing_memory
+from .pairwise import pairwise_rows
+from .selection import analyse_selection, randomised_coverage
 from .spec import Spec, canonical_sha256, parse_spec, parse_spec_text, spec_to_dict, to_toml
 from .spec_sections import carried_rule_sections, reachable_target
+from .values import prepare_composites
 
 APP_SOURCE = "the app's settings"
 NAME_HINTS: dict[str, tuple[str, ...]] = {
@@ -588,8 +603,6 @@ class Workspace:
 
     def index_values(self) -> dict:
         """Each index over the cohort (computed once per cohort and spec; the fits reuse them)."""
-        from .fitting import compute_indices
-
         key = self._key("indices")
         return self.fits.take(key) or self.fits.put(key, compute_indices(self.spec, self.cohort))
 
@@ -598,8 +611,6 @@ class Workspace:
 
     def fitset(self, progress: Callable[[int, int], None] | None = None):
         """The fitted models for this cohort and spec, fitted once and reused (never for weights or margin)."""
-        from .fitting import fit_all
-
         key = self._key("fits")
         fs = self.fits.take(key)
         if fs is None:
@@ -617,8 +628,6 @@ class Workspace:
 
     def run_bootstrap(self, progress: Callable[[int, int], None] | None = None) -> None:
         """Bootstrap replicates for the current fits, kept for every later re-summary (margin, weights)."""
-        from .fitting import run_bootstrap
-
         keep = (self.spec.values.outcome,) if self.spec.values else ()
         self.replicates.put(self.boot_key(), run_bootstrap(self.fitset(), progress=progress, keep_distribution=keep))
 
@@ -633,11 +642,6 @@ class Workspace:
     # -- what the pages show -----------------------------------------------------------------
     def curve_rows(self, bootstrap: bool = True) -> list[dict]:
         """The `results` rows (outcome x index) for the current margin, level and bands."""
-        from . import result_rows as res
-        from .coverage import label_results
-        from .fitting import summarise
-        from .headline import annotate
-
         boot = bootstrap and self.has_bootstrap()
 
         def make() -> list[dict]:
@@ -654,8 +658,6 @@ class Workspace:
 
     def composites(self, bootstrap: bool = True) -> dict:
         """Prepared composites (level probabilities on the grid) for fast re-weighting."""
-        from .values import prepare_composites
-
         if self.spec.values is None:
             return {}
         boot = bootstrap and self.has_bootstrap()
@@ -667,8 +669,6 @@ class Workspace:
     def selection(self, replicates: int | None = 0, progress: Callable[[int, int], None] | None = None):
         """The randomised-vs-chosen analysis for the current margin and level; replicates=0 skips the
         bootstrap of the break-even shift, None uses the engine's default number."""
-        from .selection import analyse_selection
-
         spec = dataclasses.replace(self.spec, values=None)
         key = ("selection", replicates, self.data_sha256, canonical_sha256(spec))
         return self._cached(key, lambda: analyse_selection(self.fitset(), replicates=replicates, progress=progress))
@@ -679,8 +679,6 @@ class Workspace:
 
     def pairwise(self, index: str | None, progress: Callable[[int, int], None] | None = None) -> list[dict]:
         """The hierarchical pairwise comparison, overall and in windows along the index."""
-        from .pairwise import pairwise_rows
-
         spec = dataclasses.replace(self.spec, values=None)
         key = ("pairwise", index, self.data_sha256, canonical_sha256(spec))
         ivs = self.index_values()
@@ -695,8 +693,6 @@ class Workspace:
 
     def result(self, bootstrap: bool = True, progress: Callable[[int, int], None] | None = None):
         """The whole analysis as the engine's orchestrator makes it (for the report and the JSON)."""
-        from .analysis import analyse
-
         boot = bootstrap and self.has_bootstrap()
         key = ("result", *result_key(self.data_sha256, self.spec, boot))
 
@@ -704,10 +700,8 @@ class Workspace:
             spec = self.results_spec(bootstrap)
             fs = dataclasses.replace(self.fitset(), spec=spec)
             extra: dict[str, Any] = {"spec_bytes": spec_text(spec).encode()}
-            if boot and _takes_replicates():
+            if boot:  # the replicates already run: the report needs no new bootstrap
                 extra["replicates"] = self._reps(True)
-            elif boot:
-                extra["progress"] = progress
             return analyse(spec, fitset=fs, **extra)
 
         return self._cached(key, make)
@@ -716,8 +710,6 @@ class Workspace:
     def checks(self) -> list[dict]:
         """The JSON `checks` rows (observed vs fitted, calibration, sliding windows, effect modification,
         break-even by horizon) for the current fits, margin and level; [] when the spec switches them off."""
-        from .checks import checks_rows
-
         if not self.spec.analysis.checks:
             return []
         a = self.spec.analysis
@@ -726,14 +718,10 @@ class Workspace:
 
     def _unfitted(self):
         """The cohort and its indices as a FitSet without fits, for what needs no model."""
-        from .fitting import FitSet
-
         return FitSet(self.spec, self.cohort, self.index_values(), {})
 
     def km_curves(self, outcome: str, index: str | None = None, bands: int = 5) -> list[dict]:
         """Kaplan-Meier curves per arm, overall and (with an index) per band of it, with numbers at risk."""
-        from .checks import km_curves
-
         key = self._key("km", outcome, index, bands, self.spec.analysis.level)
         ivs = self.index_values()
         return self._cached(key, lambda: km_curves(self.cohort, outcome, ivs[index] if index else None,
@@ -742,8 +730,6 @@ class Workspace:
 
     def baseline(self) -> list[dict]:
         """The baseline table by arm and allocation with standardised mean differences ([] without covariates)."""
-        from .checks import baseline_table
-
         if not self.spec.cohort.covariates:
             return []
         key = self._key("baseline")
@@ -751,15 +737,11 @@ class Workspace:
 
     def coverage(self, index: str) -> list[dict]:
         """Patients per window of the index by arm and allocation ([] without an allocation column)."""
-        from .selection import randomised_coverage
-
         key = self._key("coverage", index)
         return self._cached(key, lambda: randomised_coverage(self._unfitted(), index), self.trust)
 
     def clustering(self) -> dict | None:
         """Which clustered intervals the analysis uses and over how many clusters (None without a cluster column)."""
-        from .checks import clustering
-
         return clustering(self._unfitted())
 
 
@@ -767,21 +749,8 @@ def _interval(spec: Spec, interval: str) -> Spec:
     return dataclasses.replace(spec, analysis=dataclasses.replace(spec.analysis, interval=interval))
 
 
-def _takes_replicates() -> bool:
-    """Whether analysis.analyse accepts finished bootstrap replicates (so the report needs no new bootstrap)."""
-    import inspect
-
-    from .analysis import analyse
-
-    return "replicates" in inspect.signature(analyse).parameters
-
-
 def load_for(spec: Spec, data: bytes, filename: str):
     """Read and check the cohort bytes against the spec (the engine's loader, nothing of our own)."""
-    from .cohort import load_cohort
-    from .indices import needed_columns
-    from .intake import releasing_memory
-
     with releasing_memory():
         return load_cohort(spec, data=data, filename=filename, extra_columns=needed_columns(spec))
 
@@ -791,9 +760,6 @@ def load_for(spec: Spec, data: bytes, filename: str):
 # ------------------------------------------------------------------------------------------
 def preview(data: bytes, filename: str, sheet: str | None = None) -> pd.DataFrame:
     """Every column of the file as text (the loader's own reader), so roles can be guessed before checking."""
-    from .cohort import read_table
-    from .intake import releasing_memory
-
     with releasing_memory():
         frame = read_table(data, filename, sheet)
     if frame.empty:
@@ -802,12 +768,38 @@ def preview(data: bytes, filename: str, sheet: str | None = None) -> pd.DataFram
     return frame
 
 
+PREVIEW_ROWS = 200  # rows of a received file kept for the Cohort page to show (never the whole table)
+MAX_VALUES = 50  # distinct values kept per column, for the arm, allocation and level choices
+
+
+@dataclass(frozen=True)
+class FirstLook:
+    """What the Cohort page needs of a received file, and nothing more: its columns and row count, the role
+    guesses and each column's first distinct values (made from every row), and the first PREVIEW_ROWS rows.
+    The whole text table is dropped once this is made, so a large upload is not held twice in the session."""
+
+    columns: tuple[str, ...]
+    n_rows: int
+    guess: Guess
+    values: dict[str, tuple[str, ...]]
+    head: pd.DataFrame
+
+
+def first_look(data: bytes, filename: str, sheet: str | None = None) -> FirstLook:
+    """Read the file once (preview), keep the bounded summary the page uses, release the rest."""
+    frame = preview(data, filename, sheet)
+    try:
+        look = FirstLook(columns=tuple(frame.columns), n_rows=len(frame), guess=guess_roles(frame),
+                         values={c: tuple(_values(frame[c])[:MAX_VALUES]) for c in frame.columns},
+                         head=frame.head(PREVIEW_ROWS).copy())
+    finally:
+        del frame
+        release_memory()
+    return look
+
+
 def sheet_names(data: bytes) -> list[str]:
     """The sheets of an .xlsx workbook (empty when it cannot be opened)."""
-    import io
-
-    import openpyxl
-
     try:
         book = openpyxl.load_workbook(io.BytesIO(data), read_only=True)
     except Exception:
@@ -823,7 +815,8 @@ def chart_catalogue(doc: dict, index_titles: dict[str, str], outcome_titles: dic
     for composite, rows in ((False, doc.get("results", [])), (True, doc.get("composite", []))):
         for row in rows:
             ix = index_titles.get(row["index"], row["index"])
-            what = (f"Value of outcomes ({row.get('kind', 'composite').replace('_', ' ')})" if composite
+            what = (row.get("label") or f"Value of outcomes ({row.get('kind', 'composite').replace('_', ' ')})"
+                    if composite
                     else outcome_titles.get(row["outcome"], row["outcome"]))
             name = f"{'composite_' + row.get('kind', '') if composite else row['outcome']}_by_{row['index']}"
             out.append({"label": f"{what} along {ix}", "file": re.sub(r"[^A-Za-z0-9_.-]+", "_", name),
@@ -873,7 +866,6 @@ def patient_fields(spec: Spec, index_values: dict, frame: pd.DataFrame,
 class PatientChoice:
     """The one patient in hand for the whole session: entered values, or a cohort row, and the values record
     (whose values the weights are). Every page reads it; only the user's own edits or a reset change it."""
-
     how: str = "entered"  # "entered" | "row"
     values: dict[str, Any] = field(default_factory=dict)
     row: int | None = None
@@ -913,6 +905,4 @@ def _short(v: Any) -> str:
 
 def breakeven_table(doc: dict) -> pd.DataFrame:
     """The table of every break-even point (results and composites) for spreadsheet downloads."""
-    from .charts_checks import breakeven_summary_table
-
     return breakeven_summary_table(doc)

@@ -191,7 +191,7 @@ def _break_even_layers(row: Mapping[str, Any], domain: tuple[float, float]) -> l
     return layers
 
 
-def _patient_layers(patient: Mapping[str, Any] | None) -> list[alt.Chart]:
+def patient_layers(patient: Mapping[str, Any] | None) -> list[alt.Chart]:
     if not patient:
         return []
     x = patient.get("x", patient.get("value"))
@@ -255,7 +255,7 @@ def outcome_chart(row: Mapping[str, Any], arms: Sequence[str], points: pd.DataFr
                  alt.Tooltip("estimate:Q", format=".3~g"), alt.Tooltip("lower:Q", format=".3~g"),
                  alt.Tooltip("upper:Q", format=".3~g")]))
     layers += _strip_layers(row, arms, domain)
-    layers += _patient_layers(patient)
+    layers += patient_layers(patient)
     chart = _sized(alt.layer(*layers), WIDTH, HEIGHT)
     title = f"{cap(outcome_title(row))} along {index_label_of(row, index_label)}"
     subtitle = (f"{arms[0]} (blue) and {arms[1]} (orange), each with its interval as a band; the strip beneath "
@@ -315,7 +315,8 @@ def composite_chart(row: Mapping[str, Any], arms: Sequence[str], points: pd.Data
     sub = "weights: " + ", ".join(f"{words(k)} {fmt(v)}" for k, v in weights.items()) if weights else None
     if who:
         sub = f"{sub} ({who}'s values)" if sub else f"{who}'s values"
-    title = f"Value of outcomes ({words(row.get('kind', 'composite'))}) along {index_label_of(row, index_label)}"
+    what = row.get("label") or f"Value of outcomes ({words(row.get('kind', 'composite'))})"
+    title = f"{what} along {index_label_of(row, index_label)}"
     return _finish(chart, title, [sub] if sub else None, describe_row(row, arms, index_label), style)
 
 
@@ -440,19 +441,25 @@ def index_distribution_chart(data: pd.DataFrame | Sequence[float] | np.ndarray, 
     if discrete is None:
         discrete = bool(len(df)) and bool(np.all(np.equal(np.mod(df["x"], 1), 0))) and df["x"].nunique() <= 15
     has_arm = "arm" in df.columns and arms is not None
+    n = len(df)
+    # counted here, not in the browser: a chart of a large cohort carries a few hundred rows, never one per patient
+    if not discrete and n:
+        lo, hi = float(df["x"].min()), float(df["x"].max())
+        step = (hi - lo) / 1000 or 1.0
+        df = df.assign(x=lo + np.round((df["x"].astype(float) - lo) / step) * step)
+    counts = df.groupby(["x", "arm"] if has_arm else ["x"], observed=True).size().rename("patients").reset_index()
     colour = (alt.Color("arm:N", scale=_arm_scale(arms), legend=alt.Legend(title="arm")) if has_arm
               else alt.value(INK))
     xenc = (alt.X("x:O", title=label) if discrete else alt.X("x:Q", bin=alt.Bin(maxbins=30), title=label))
-    base = _chart(df).mark_bar(opacity=0.85).encode(
-        x=xenc, y=alt.Y("count():Q", title="patients", stack=True), color=colour,
-        tooltip=[alt.Tooltip("count():Q", title="patients")] + ([alt.Tooltip("arm:N")] if has_arm else []))
+    base = _chart(counts).mark_bar(opacity=0.85).encode(
+        x=xenc, y=alt.Y("sum(patients):Q", title="patients", stack=True), color=colour,
+        tooltip=[alt.Tooltip("sum(patients):Q", title="patients")] + ([alt.Tooltip("arm:N")] if has_arm else []))
     layers: list[alt.Chart] = [base]
     if patient_x is not None:
         pdf = pd.DataFrame([{"x": float(patient_x), "label": f"this patient ({fmt(patient_x)})"}])
         xr = alt.X("x:O") if discrete else alt.X("x:Q")
         layers.append(_chart(pdf).mark_rule(color="#000000", strokeWidth=3, strokeDash=[2, 3]).encode(x=xr))
     chart = _sized(alt.layer(*layers), WIDTH, HEIGHT * 0.7)
-    n = len(df)
     desc = (f"Histogram of {label} over {n} patients"
             + (f", from {fmt(df['x'].min())} to {fmt(df['x'].max())}" if n else "") + ".")
     return _finish(chart, f"{label}: how the cohort is spread", f"{n} patients", desc, style)

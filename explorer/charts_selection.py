@@ -10,6 +10,7 @@ import pandas as pd
 
 from .charts_common import (ARM_LEGEND, AXIS_CHARS, FONT, HEIGHT, WIDTH, _arm_scale, _chart, _finish, _quick, _sized,
                             thinned)
+from .charts_curves import patient_layers
 from .look import ARM_COLOURS, INK, arm_colours
 from .words import fmt, wrap
 
@@ -55,7 +56,8 @@ def interval_pieces(x: float, lo: float | None, hi: float | None, shape: str | N
 
 @_quick
 def selection_chart(row: Mapping[str, Any] | Sequence[Mapping[str, Any]], arms: Sequence[str] | None = None, *,
-                    index_title: str | None = None, style: bool = True) -> alt.TopLevelMixin:
+                    index_title: str | None = None, style: bool = True,
+                    patient: Mapping[str, Any] | None = None) -> alt.TopLevelMixin:
     """The selection effect (chosen minus randomised, same arm, same index value) along the index, with its band.
 
     row: one selection row, or the rows of one outcome x index (one per arm, drawn in the arm colours).
@@ -87,6 +89,7 @@ def selection_chart(row: Mapping[str, Any] | Sequence[Mapping[str, Any]], arms: 
             tooltip=[alt.Tooltip("arm:N"), alt.Tooltip("x:Q", format=".3~g", title="index"),
                      alt.Tooltip("effect:Q", format=".3~g"), alt.Tooltip("lower:Q", format=".3~g"),
                      alt.Tooltip("upper:Q", format=".3~g")]))
+    layers += patient_layers(patient)  # patient: {"x", "label"} as for outcome_chart
     chart = _sized(alt.layer(*layers), WIDTH, HEIGHT * 0.8)
     who = " and ".join(str(r.get("arm")) for r in rows)
     title = f"Selection effect ({who}): {first.get('measure', first.get('outcome'))} along {xt}"

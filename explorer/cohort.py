@@ -21,7 +21,7 @@ import pyarrow.compute as pc
 from . import database
 from .errors import FulcrumError, nfc, printable
 from .indices.formula import formula_columns
-from .intake import check_archive, drop_trailing_empty, hidden_rows, nfc_series, number_hint, read_file
+from .intake import check_archive, check_parquet, drop_trailing_empty, hidden_rows, nfc_series, number_hint, read_file
 from .spec import OutcomeSpec, Spec
 
 FORMATS = (".csv", ".tsv", ".xlsx", ".parquet")
@@ -433,6 +433,7 @@ def _open_parquet(data: bytes, file: str) -> tuple[list[str], Opener]:
     names = list(pf.schema_arrow.names)
 
     def read(wanted: set[str], numeric: set[str]) -> Raw:
+        check_parquet(pf, file, {n for n in names if nfc(n.strip()) in wanted})  # before any column is read
         # one column at a time, so only one column's Arrow buffers are held beside the converted ones
         return {nfc(name.strip()): _arrow_column(pf.read(columns=[name]).column(0), nfc(name.strip()) in numeric)
                 for name in names if nfc(name.strip()) in wanted}

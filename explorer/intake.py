@@ -1,6 +1,7 @@
-"""Checks on a received file before and while it is read: the path is an ordinary readable file, a workbook does
-not unpack to more than a set size (a small .xlsx can hold gigabytes of text), hidden spreadsheet rows are found,
-and labels are compared in one Unicode form.
+"""Checks on a received file before and while it is read: the path is an ordinary readable file, a workbook or a
+Parquet file does not unpack to more than a set size (a small .xlsx can hold gigabytes of text; a Parquet file's
+metadata states each column's uncompressed size), hidden spreadsheet rows are found, and labels are compared in one
+Unicode form.
 
 The unpacked-size limit is `MAX_UNPACKED_MB` megabytes (default 500), set by the environment variable
 FULCRUM_MAX_UNPACKED_MB for both the command line and the app.
@@ -90,6 +91,29 @@ def check_archive(data: bytes, file: str) -> zipfile.ZipFile:
                            hint="Export the sheet as CSV UTF-8 (read without this limit), or, if the workbook is "
                                 f"genuine, raise the limit with the environment variable {ENV_LIMIT}.")
     return archive
+
+
+def check_parquet(pf, file: str, columns: set[str]) -> None:
+    """Refuse a Parquet file whose columns to be read would unpack to more than the limit, before any is read: the
+    file's metadata gives each column chunk's uncompressed size per row group (pf: a pyarrow ParquetFile)."""
+    meta = pf.metadata
+    total, by_column = 0, {}
+    for g in range(meta.num_row_groups):
+        group = meta.row_group(g)
+        for c in range(group.num_columns):
+            chunk = group.column(c)
+            name = chunk.path_in_schema.split(".")[0]
+            if name in columns:
+                total += chunk.total_uncompressed_size
+                by_column[name] = by_column.get(name, 0) + chunk.total_uncompressed_size
+    limit = unpacked_limit()
+    if total > limit:
+        big = max(by_column, key=by_column.get)
+        raise FulcrumError(f"the Parquet file's columns to be read would unpack to {total / 1e6:,.0f} MB ('{big}' "
+                           f"alone {by_column[big] / 1e6:,.0f} MB), more than the limit of {limit / 1e6:,.0f} MB.",
+                           file=file, column=big,
+                           hint="Keep only the columns the analysis needs in the file, or, if the file is genuine, "
+                                f"raise the limit with the environment variable {ENV_LIMIT}.")
 
 
 ROW_TAG = re.compile(rb"<(?:\w+:)?row\b[^>]*>")

@@ -85,7 +85,12 @@ def _nearest_break_evens(rows: Sequence[Mapping[str, Any]], index: str, x: float
         lo, hi = (b.get("ci") or [None, None])[:2]
         side = "below" if x < float(b["x"]) else "above"
         fav = b.get("favours_below") if side == "below" else b.get("favours_above")
-        out.append(f"{name}: {fmt(b['x'])} ({fmt(lo)} to {fmt(hi)}); patient {side}"
+        shape = b.get("interval_shape") or "finite"  # a two-part or open interval is said as such, never as one span
+        span = (f"{fmt(lo)} to {fmt(hi)}" if shape == "finite" and lo is not None and hi is not None else
+                f"interval in two parts: below {fmt(lo)} or above {fmt(hi)}" if shape == "two_rays" else
+                f"interval open below, up to {fmt(hi)}" if hi is not None else
+                f"interval open above, from {fmt(lo)}" if lo is not None else "interval unbounded")
+        out.append(f"{name}: {fmt(b['x'])} ({span}); patient {side}"
                    + (f": {fav} better." if fav else "."))
     return out
 

@@ -20,16 +20,11 @@ from . import fitting as ft
 from .coverage import label_composites
 from .errors import FulcrumError
 from .numeric import jsonable, quad, r6
-from .presets import (
-    PRESETS,
-    available_presets,  # noqa: F401  (pages/page_values.py reads it as values.available_presets)
-    check_weights,
-    default_weights,
-    preset_weights,  # noqa: F401  (pages/page_values.py reads it as values.preset_weights)
-)
+from .presets import PRESETS, check_weights, default_weights
 from .models import describe
 from .result_rows import curve_row, index_info_json
 from .spec import OutcomeSpec, Spec, ValuesSpec
+from .timepoints import mismatch
 
 KINDS = ("ordinal", "survival_function", "quality_adjusted")
 WEIGHTED_KINDS = ("ordinal", "survival_function")
@@ -312,13 +307,16 @@ def prepare_composite(fs: ft.FitSet, form: str, index: str, replicates: list[dic
         levels = ("quality-adjusted survival",)
         anchor, at = pf_surv, _quality_adjusted_evaluator(pf_surv, pf_util)
         parts = [pf_surv, pf_util]
-        measure = f"quality-adjusted survival to {_horizon_words(so)} (RMST x {conditional_label(uo)})"
+        measure = (f"quality-adjusted {so.units or 'time'} alive up to {_horizon_words(so)} (restricted mean "
+                   f"survival x {conditional_label(uo)})")  # the values carry their units
         notes.append(f"Quality-adjusted survival is approximated as restricted mean survival to {_horizon_words(so)} "
                      f"times the mean {uo.title} of survivors at that index value: this assumes quality of life is "
                      "constant over the period and the same, while alive, in those who died as in the survivors "
                      "measured; the two models are treated as independent in the intervals.")
-    title = f"Composite ({form.replace('_', ' ')})"
+    title = {"ordinal": f"Expected value of the weights ({ordinal.title})", "survival_function": "Survival combined "
+             "with function", "quality_adjusted": "Quality-adjusted survival"}[form]  # words, never the kind's name
     pair = _relabel(anchor, title, parts)
+    pair.warnings.extend(mismatch([p.outcome for p in parts]))  # outcomes measured at different times
     grid = ft.grid_for(anchor, spec.analysis.grid)
     L, C = at(grid, True)
     cm = CompositeModel(form, index, tuple(levels), tuple(anchor.fits), pair, spec, grid, L, C, at, measure, notes)

@@ -22,7 +22,6 @@ page = st.navigation([st.Page(file, title=title, url_path=path, default=i == 0)
                       for i, (file, title, path) in enumerate(PAGES)])
 ws = ui.workspace()
 if page.url_path != "meeting":  # the meeting view is one screen of its own and names cohort and patient itself
-    ui.header(ws)  # the app's header (pages/ui_theme.py draws it)
+    ui_theme.header(ws, ui.patient_line(ws))  # the app's header (pages/ui_theme.py draws it)
 ui.sidebar(ws)
-ui_theme.header(ui.workspace())
 page.run()

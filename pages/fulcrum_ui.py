@@ -5,20 +5,24 @@ Everything statistical is in explorer/; this file only moves things between sess
 """
 from __future__ import annotations
 
-import importlib
 import logging
 import sys
 import tempfile
 import traceback
 from pathlib import Path
-from types import ModuleType
+from types import SimpleNamespace
 from typing import Any, Callable
 
 import streamlit as st
 
 from explorer import CAUTIONS
 from explorer import appstate as aps
+from explorer import conversation
+from explorer import patient as patient_mod
+from explorer.demo import write_demo
 from explorer.errors import FulcrumError
+from explorer.intake import read_file
+from explorer.spec import load_spec
 
 log = logging.getLogger("fulcrum.app")
 
@@ -40,26 +44,6 @@ WHOSE_WORDS = {"patient": "the patient's own", "proxy": "a proxy's, for the pati
 def setup() -> None:
     st.set_page_config(page_title="Fulcrum", layout="wide", initial_sidebar_state="expanded")
     st.markdown(STYLE, unsafe_allow_html=True)
-
-
-def engine(name: str) -> ModuleType | None:
-    """An engine module, or None while it has not landed (a missing module, not a broken one)."""
-    try:
-        return importlib.import_module(f"explorer.{name}")
-    except ModuleNotFoundError as exc:
-        if exc.name and (exc.name == f"explorer.{name}" or exc.name.startswith(f"explorer.{name}.")):
-            return None
-        raise
-
-
-def part(module: str, attr: str) -> Any:
-    """An engine function, or None while it has not landed."""
-    mod = engine(module)
-    return getattr(mod, attr, None) if mod is not None else None
-
-
-def not_available(what: str, waiting_for: str) -> None:
-    st.info(f"{what} is not available yet (waiting for {waiting_for} in the engine).")
 
 
 # ------------------------------------------------------------------------------------------
@@ -95,16 +79,11 @@ def attempt(fn: Callable[..., Any], *args: Any, keeping: str | None = "Your load
 @st.cache_resource(show_spinner=False)
 def demo_spec_path() -> str:
     """The invented demo cohort, written once per server process into its own temporary folder."""
-    from explorer.demo import write_demo
-
     folder = Path(tempfile.mkdtemp(prefix="fulcrum-demo-"))
     return str(write_demo(folder))
 
 
 def open_spec_file(path: str | Path, is_demo: bool) -> aps.Workspace:
-    from explorer.intake import read_file
-    from explorer.spec import load_spec
-
     spec = load_spec(path)
     if spec.cohort.database:
         raise FulcrumError("the spec reads its cohort from a database, which the app opens from the Cohort page.",
@@ -213,10 +192,7 @@ def result(ws: aps.Workspace, bootstrap: bool = True):
 # ------------------------------------------------------------------------------------------
 def patient_fields(ws: aps.Workspace) -> list[dict]:
     """The patient's inputs; text covariates the cohort coded 0/1 are asked by the file's own labels."""
-    from types import SimpleNamespace
-
-    mod = engine("patient")
-    codings = mod.text_codings(SimpleNamespace(cohort=ws.cohort)) if mod is not None else {}
+    codings = patient_mod.text_codings(SimpleNamespace(cohort=ws.cohort))
     return aps.patient_fields(ws.spec, ws.index_values(), ws.cohort.frame, codings)
 
 
@@ -253,33 +229,57 @@ def whose_words(ws: aps.Workspace, choice: aps.PatientChoice | None = None) -> s
     return WHOSE_WORDS.get(who, who) if who else None
 
 
-def patient_view(ws: aps.Workspace, fs: Any, index: str | None = None, keeping: str | None = None):
-    """The engine's view of the session's patient (nothing computed here), or None with the reason shown."""
-    mod = engine("patient")
-    if mod is None:
-        return None
+def _place(ws: aps.Workspace, fs: Any, index: str | None):
     choice = patient(ws)
     values, row = choice.inputs()
     record = current_record(ws, choice)
     weights = record.weights if record is not None else None
-    return attempt(mod.place_patient, fs, values, row=row, weights=weights, index=index, record=record,
-                   keeping=keeping)
+    return patient_mod.place_patient(fs, values, row=row, weights=weights, index=index, record=record)
+
+
+def patient_view(ws: aps.Workspace, fs: Any, index: str | None = None, keeping: str | None = None):
+    """The engine's view of the session's patient (nothing computed here), or None with the reason shown."""
+    return attempt(_place, ws, fs, index, keeping=keeping)
+
+
+def patient_marker(ws: aps.Workspace, fs: Any, index: str) -> dict | None:
+    """Where the session's patient sits on one index, for a chart's patient rule and a caption: {"x", "label",
+    "sentence"}; None (with a quiet note) when the patient cannot be placed on it."""
+    try:
+        view = _place(ws, fs, index)
+    except FulcrumError as exc:
+        st.caption("The patient in hand is not marked here: " + aps.md_escape(exc.what))
+        return None
+    pl = view.placements.get(index)
+    if pl is None:
+        return None
+    return {"x": pl.value, "label": f"this patient ({pl.value:.3g})",
+            "sentence": f"{pl.label} {pl.value:.3g} (cohort percentile {pl.percentile:.0f}"
+                        + ("; outside the cohort's range)." if pl.outside else ").")}
+
+
+def patient_caption(marker: dict | None) -> None:
+    """One line saying where the patient in hand sits (the patient is changed on the Patient page)."""
+    if marker is not None:
+        st.caption("**Patient in hand:** " + aps.md_escape(marker["sentence"]) + " The dotted line marks them on "
+                   "each chart; change the patient on the Patient page.")
 
 
 def current_record(ws: aps.Workspace, choice: aps.PatientChoice):
     """The values record of the weights now in use (the conversation's while its weights stand)."""
-    conv = engine("conversation")
-    return conv.current_record(choice.record, ws.spec.values) if conv is not None else None
+    return conversation.current_record(choice.record, ws.spec.values)
 
 
 # ------------------------------------------------------------------------------------------
 # Small pieces of screen
 # ------------------------------------------------------------------------------------------
-def header(ws: aps.Workspace) -> None:
-    """The app's header, drawn once per run above every page (pages/ui_theme.py)."""
-    import ui_theme  # a sibling page module, like this one
-
-    ui_theme.header(ws)
+def patient_line(ws: aps.Workspace) -> str | None:
+    """The patient in hand in one line (the header's and the sidebar's), or None when it cannot be placed."""
+    choice = attempt(patient, ws, keeping=None)
+    if choice is None:
+        return None
+    fields = attempt(patient_fields, ws, keeping=None) or []
+    return choice.describe(fields, whose_words(ws, choice))
 
 
 def sidebar(ws: aps.Workspace) -> None:
@@ -289,29 +289,21 @@ def sidebar(ws: aps.Workspace) -> None:
                     + ("  \n_Invented demo data: no real patient._" if ws.is_demo else ""))
         arms = ws.spec.cohort.arms
         st.markdown(f"**Arms:** {aps.md_escape(arms[0])} (first) and {aps.md_escape(arms[1])} (second)")
-        choice = attempt(patient, ws, keeping=None)
-        if choice is not None:
-            fields = attempt(patient_fields, ws, keeping=None) or []
-            st.markdown("**Patient in hand:** " + aps.md_escape(choice.describe(fields, whose_words(ws, choice))))
+        line = patient_line(ws)
+        if line is not None:
+            st.markdown("**Patient in hand:** " + aps.md_escape(line))
             st.button("Reset the patient", on_click=reset_patient, key="reset_patient",
                       help="Back to the cohort's typical values; forgets the values conversation.")
         st.caption(" ".join(CAUTIONS))
 
 
-def page_head(title: str, intro: str, needs: tuple[str, str] | None = None) -> tuple[aps.Workspace, ModuleType | None]:
-    """Title, a plain-words introduction and the cautions; with needs=(module, what), the engine module or a
-    clean 'not available yet' and a stop."""
+def page_head(title: str, intro: str) -> aps.Workspace:
+    """Title, a plain-words introduction and the cautions; returns the session's workspace."""
     ws = workspace()
     st.title(title)
     st.markdown(intro)
     cautions()
-    module = None
-    if needs is not None:
-        module = engine(needs[0])
-        if module is None:
-            not_available(needs[1], f"explorer/{needs[0]}.py")
-            st.stop()
-    return ws, module
+    return ws
 
 
 def cautions() -> None:

@@ -6,7 +6,7 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
-from explorer import database
+from explorer import charts_checks, charts_curves, charts_selection, database, words
 from explorer.errors import FulcrumError
 from explorer.spec import OUTCOME_KINDS
 
@@ -26,10 +26,10 @@ st.markdown("Load a cohort, tell Fulcrum which column holds what, and check the 
 # ------------------------------------------------------------------------------------------
 def stage(data: bytes, filename: str, sheet: str | None = None) -> dict:
     """Read a first look at an upload; an error is kept to show, the loaded cohort is untouched."""
-    out = {"sha": aps.data_sha256(data), "data": data, "filename": filename, "sheet": sheet, "frame": None,
+    out = {"sha": aps.data_sha256(data), "data": data, "filename": filename, "sheet": sheet, "look": None,
            "error": None, "sheets": []}
     try:
-        out["frame"] = aps.preview(data, filename, sheet)
+        out["look"] = aps.first_look(data, filename, sheet)  # bounded: the whole table is not kept
     except FulcrumError as exc:
         out["error"] = exc
         if exc.key == "cohort.sheet":
@@ -62,12 +62,14 @@ else:
     staged = st.session_state.get(STAGED)
     if staged is None or staged["sha"] != aps.data_sha256(data) or staged["filename"] != upload.name:
         staged = st.session_state[STAGED] = stage(data, upload.name)
+        staged["data"] = None  # the uploader holds the bytes: a second copy is not kept in the session
     if staged["sheets"]:
         sheet = st.selectbox("The workbook has several sheets; which holds the cohort?", staged["sheets"],
                              key=ui.key("sheet"))
         if sheet != staged["sheet"]:
-            staged = st.session_state[STAGED] = stage(staged["data"], staged["filename"], sheet)
-    if staged["error"] is not None and not (staged["sheets"] and staged["frame"] is not None):
+            staged = st.session_state[STAGED] = stage(data, staged["filename"], sheet)
+            staged["data"] = None
+    if staged["error"] is not None and not (staged["sheets"] and staged["look"] is not None):
         ui.show_error(staged["error"], f"The cohort already loaded ({ws.filename}) is kept.")
 
 
@@ -114,7 +116,7 @@ for note in ws.notes:
     st.info(aps.md_escape(note))
 
 staged = st.session_state.get(STAGED)
-fresh = staged is not None and staged["frame"] is not None
+fresh = staged is not None and staged["look"] is not None
 
 # ------------------------------------------------------------------------------------------
 # 2. Columns, outcomes and indices
@@ -122,28 +124,30 @@ fresh = staged is not None and staged["frame"] is not None
 st.header("2. Columns, outcomes and indices")
 if fresh:
     source = staged
-    st.markdown(f"**New file:** {aps.md_escape(staged['filename'])}, {len(staged['frame']):,} rows. Fulcrum has "
+    look = staged["look"]
+    st.markdown(f"**New file:** {aps.md_escape(staged['filename'])}, {look.n_rows:,} rows. Fulcrum has "
                 "guessed each column's role; check every choice, then press **Check and use**.")
-    frame = staged["frame"]
     base_rows = None
 else:
     source = {"sha": ws.data_sha256, "data": ws.data, "filename": ws.filename, "sheet": ws.spec.cohort.sheet,
               "database": ws.source}
     previews = st.session_state.setdefault(PREVIEWS, {})
-    frame = previews.get(ws.data_sha256)
-    if frame is None:
-        frame = ui.attempt(aps.preview, ws.data, ws.filename, ws.spec.cohort.sheet)
-        if frame is not None:
-            previews.clear()
-            previews[ws.data_sha256] = frame
+    look = previews.get(ws.data_sha256)
+    if look is None:
+        look = ui.attempt(aps.first_look, ws.data, ws.filename, ws.spec.cohort.sheet)
+        previews.clear()  # one file's first look at a time
+        if look is not None:
+            previews[ws.data_sha256] = look
     base_rows = ws.spec
     st.markdown(f"**Loaded:** {aps.md_escape(ws.filename)}. Change any role below and press **Check and use**; "
                 "if the check fails, the cohort stays as it is.")
 
-if frame is not None:
+if look is not None:
     tag = source["sha"][:10]
-    guess = aps.guess_roles(frame)
-    cols = list(frame.columns)
+    guess = look.guess
+    cols = list(look.columns)
+    with st.expander(f"The file's first {len(look.head):,} rows, as read (of {look.n_rows:,})"):
+        st.dataframe(look.head, hide_index=True)
     current = ws.spec.cohort if not fresh else None
 
     def choose(label: str, name: str, options: list[str], default: str | None, help: str | None = None) -> str:
@@ -151,7 +155,7 @@ if frame is not None:
         return st.selectbox(label, options, key=k, help=help)
 
     def values_of(col: str) -> list[str]:
-        return [str(v) for v in pd.unique(frame[col].dropna())] if col in frame else []
+        return list(look.values.get(col, ()))
 
     a, b, c = st.columns(3)
     with a:
@@ -218,7 +222,8 @@ if frame is not None:
                               aps.indices_from_rows(indices.to_dict("records"), base, keep),
                               base=base, base_dir=Path(".") if fresh else ws.spec.cohort.path.parent)
         if fresh:
-            return aps.Workspace.open(source["data"], source["filename"], spec, source=source.get("database"))
+            data = source["data"] if source["data"] is not None else upload.getvalue()  # the upload's bytes, once
+            return aps.Workspace.open(data, source["filename"], spec, source=source.get("database"))
         return ws.with_spec(spec)
 
     if st.button("Check and use", type="primary"):
@@ -245,51 +250,42 @@ for note in cohort.notes:
 
 st.subheader("Patients by arm and allocation")
 st.table(cohort.counts())
-ch_checks = ui.engine("charts_checks")
-ch_curves = ui.engine("charts_curves")
-ch_selection = ui.engine("charts_selection")
-wd = ui.engine("words")
 arms = list(ws.spec.cohort.arms)
 
 st.subheader("Baseline characteristics by arm and allocation")
 baseline = ui.attempt(ws.baseline)
-if ch_checks is None:
-    ui.not_available("The baseline table", "explorer/charts_checks.py")
-elif baseline:
+if baseline:
     st.caption("Mean (SD), or share for yes/no characteristics, in each arm among all, randomised and chosen "
                "patients; standardised mean differences (SMD) above 0.1 are flagged.")
-    st.dataframe(ch_checks.baseline_frame(baseline), hide_index=True, width="stretch")
-    ui.altair(ch_checks.smd_chart(baseline), ch_checks.describe_baseline(baseline))
+    st.dataframe(charts_checks.baseline_frame(baseline), hide_index=True, width="stretch")
+    ui.altair(charts_checks.smd_chart(baseline), charts_checks.describe_baseline(baseline))
 elif baseline is not None:
     st.caption("Name baseline covariates in the spec ([cohort] covariates = [...]) to compare the arms on them here.")
 clusters = ui.attempt(ws.clustering)
-if ch_checks is not None:
-    st.caption(aps.md_escape(ch_checks.describe_clustering(clusters)))
+st.caption(aps.md_escape(charts_checks.describe_clustering(clusters)))
 for w in (clusters or {}).get("warnings", []):
     st.caption("Note: " + aps.md_escape(w))
 
 st.subheader("How each index is spread, by arm" + (", and where the randomised patients are" if ws.cohort.randomised is not None else ""))
 index_values = ui.attempt(ws.index_values)
-if index_values is not None and ch_curves is None:
-    ui.not_available("The index charts", "explorer/charts_curves.py")
-elif index_values is not None:
+if index_values is not None:
     arm_col = cohort.frame[ws.spec.cohort.arm].astype(str).to_numpy()
     for ix in ws.spec.indices:
         iv = index_values[ix.name]
         st.markdown(f"**{aps.md_escape(ix.title)}**")
         df = pd.DataFrame({"x": iv.values, "arm": arm_col})
-        chart = ch_curves.index_distribution_chart(df, arms=arms, label=ix.title, discrete=iv.info.get("discrete"))
+        chart = charts_curves.index_distribution_chart(df, arms=arms, label=ix.title, discrete=iv.info.get("discrete"))
         pct = iv.info.get("percentiles") or {}
         units = iv.info.get("units")
         text = (f"{ix.title}" + (f", in {units}" if units else "") + ": "
-                + ", ".join(f"{k}th percentile {wd.fmt(v)}" for k, v in pct.items()) + "."
+                + ", ".join(f"{k}th percentile {words.fmt(v)}" for k, v in pct.items()) + "."
                 if pct else ix.title)
         ui.altair(chart, text)
         for w in iv.warnings:
             st.caption(aps.md_escape(w))
         coverage = ui.attempt(ws.coverage, ix.name)
         if coverage:
-            ui.altair(ch_selection.coverage_chart(coverage, arms, index_label=ix.title),
-                      ch_selection.describe_coverage(coverage, arms, ix.title))
+            ui.altair(charts_selection.coverage_chart(coverage, arms, index_label=ix.title),
+                      charts_selection.describe_coverage(coverage, arms, ix.title))
             with st.expander(f"Patients per window of {ix.title}"):
-                st.dataframe(ch_selection.coverage_frame(coverage, arms), hide_index=True, width="stretch")
+                st.dataframe(charts_selection.coverage_frame(coverage, arms), hide_index=True, width="stretch")

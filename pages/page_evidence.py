@@ -9,7 +9,7 @@ from explorer import charts_evidence as ce
 from explorer import evidence as ev
 from explorer import planner as pl
 
-ws, _ = ui.page_head(
+ws = ui.page_head(
     "More evidence",
     "For researchers planning what to study next. **Where does uncertainty matter?** For each index value, how much "
     "patients would gain if we knew the true curves instead of today's estimates (the expected value of perfect "

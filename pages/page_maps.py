@@ -5,19 +5,16 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
+from explorer import charts_maps, maps, values
 from explorer.spec import MapSpec
 
 MODELS = "map_models"
 KINDS = {"ordinal": "states of function", "survival_function": "survival x function among survivors"}
-ws, maps = ui.page_head(
+ws = ui.page_head(
     "Two indices",
     "Two ways of seeing a patient at once: each arm's model in two indices, the arm favoured at every pair of "
-    "values, and the break-even line where the arms come out level. The map is blank where patients are too few.",
-    needs=("maps", "The two-index map"))
+    "values, and the break-even line where the arms come out level. The map is blank where patients are too few.")
 arms = list(ws.spec.cohort.arms)
-ch_maps = ui.engine("charts_maps")
-values = ui.engine("values")
-patient = ui.engine("patient")
 spec = ws.spec
 names = [ix.name for ix in spec.indices]
 if len(names) < 2:
@@ -48,7 +45,7 @@ with c3:
 interaction = st.checkbox("Let the effect of one index depend on the other (add their product to each arm's model)",
                           key=ui.seed("map_interaction", bool(start.interaction)))
 kind = "ordinal"
-if target == maps.COMPOSITE and values is not None:
+if target == maps.COMPOSITE:
     kinds = [k for k in values.default_kinds(spec) if k in values.WEIGHTED_KINDS]
     if len(kinds) > 1:
         kind = st.radio("Composite", kinds, horizontal=True, format_func=lambda k: KINDS.get(k, k),
@@ -77,7 +74,7 @@ if model is None:
 # The session's patient (the one in the sidebar)
 # ------------------------------------------------------------------------------------------
 point = None
-view = ui.patient_view(ws, fs) if patient is not None else None
+view = ui.patient_view(ws, fs)
 if view is not None and first in view.placements and second in view.placements:
     point = (view.placements[first].value, view.placements[second].value)
 
@@ -88,10 +85,7 @@ row = ui.attempt(maps.map_row, model, weights=v.weights if v else None, patient=
 if row is None:
     st.stop()
 text = maps.describe_map(row, arms)
-if ch_maps is not None:
-    ui.altair(ch_maps.decision_map_chart(row, arms), text)
-else:
-    ui.sentence(text)
+ui.altair(charts_maps.decision_map_chart(row, arms), text)
 if point is None:
     st.caption("The patient in hand could not be placed on both indices; set their values on the Patient page.")
 for w in row["warnings"]:

@@ -2,19 +2,18 @@
 import streamlit as st
 
 import fulcrum_ui as ui
-from explorer import CAUTIONS
+from explorer import CAUTIONS, meeting
 
 # This page keeps to one screen: a short title, no introduction block (the cautions are in the view itself).
 st.markdown("<style>[data-testid='stMainBlockContainer']{padding-top:1.2rem;padding-bottom:0.5rem}</style>",
             unsafe_allow_html=True)
 ws = ui.workspace()
-meeting = ui.engine("meeting")
 fs = ui.fitted(ws)
-if fs is None or meeting is None:
+if fs is None:
     st.stop()
 names = [ix.name for ix in ws.spec.indices]
 titles = {ix.name: ix.title for ix in ws.spec.indices}
-top = st.columns([1.3, 2, 1.3, 1.1], vertical_alignment="bottom")
+top = st.columns([1.2, 1.8, 1.3, 1.5], vertical_alignment="bottom")
 with top[0]:
     st.markdown("### Meeting view")
 with top[1]:

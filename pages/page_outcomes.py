@@ -3,11 +3,11 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
-from explorer import margins
+from explorer import charts_checks, charts_common, charts_curves, headline_table, margins
 from explorer.models import describe
 
 LEVELS = [0.8, 0.9, 0.95, 0.99]
-ws, _ = ui.page_head(
+ws = ui.page_head(
     "Outcomes by index",
     "Where do the two arms do equally well (the break-even point), and which does better on either side? The "
     "table answers for every outcome and index; below it, one chart per outcome, with its checks and methods "
@@ -72,29 +72,23 @@ if rows is None:
 with st.spinner("Checking the curves against the data..."):
     checks = ui.attempt(ws.checks) or []
 doc = {"arms": arms, "results": rows, "checks": checks}
-ch_checks = ui.engine("charts_checks")
-ch_common = ui.engine("charts_common")
-ch_curves = ui.engine("charts_curves")
 
 # ------------------------------------------------------------------------------------------
 # The headline: every outcome and index in one table, at the top of the page
 # ------------------------------------------------------------------------------------------
-headline_mod = ui.engine("headline_table")
 with headline:
-    if ch_curves is None or headline_mod is None:
-        ui.not_available("The break-even table", "explorer/headline_table.py")
-    else:
-        table = headline_mod.headline_table([r for r in rows if r["index"] == index], checks,
-                                            {o.name: o.title for o in ws.spec.outcomes})
-        st.dataframe(table.drop(columns=["index"]), hide_index=True, width="stretch",
-                     column_config={c: st.column_config.TextColumn(c, width="medium") for c in table.columns})
-        clusters = ui.attempt(ws.clustering)
-        st.caption(f"{aps.md_escape(arms[0])} is drawn in blue, {aps.md_escape(arms[1])} in orange. "
-                   + aps.md_escape(ch_checks.describe_clustering(clusters)))
-        for w in (clusters or {}).get("warnings", []):
-            st.caption("Note: " + aps.md_escape(w))
-        with st.expander("Every break-even point on every index, with the test numbers (for the record)"):
-            st.dataframe(ch_checks.breakeven_summary_table(doc), hide_index=True, width="stretch")
+    table = headline_table.headline_table([r for r in rows if r["index"] == index], checks,
+                                          {o.name: o.title for o in ws.spec.outcomes})
+    st.dataframe(table.drop(columns=["index"]), hide_index=True, width="stretch",
+                 column_config={c: st.column_config.TextColumn(c, width="large" if c.startswith(("arms", "does"))
+                                                               else "medium") for c in table.columns})
+    clusters = ui.attempt(ws.clustering)
+    st.caption(f"{aps.md_escape(arms[0])} is drawn in blue, {aps.md_escape(arms[1])} in orange. "
+               + aps.md_escape(charts_checks.describe_clustering(clusters)))
+    for w in (clusters or {}).get("warnings", []):
+        st.caption("Note: " + aps.md_escape(w))
+    with st.expander("Every break-even point on every index, with the test numbers (for the record)"):
+        st.dataframe(charts_checks.breakeven_summary_table(doc), hide_index=True, width="stretch")
 
 
 # ------------------------------------------------------------------------------------------
@@ -105,7 +99,7 @@ def show_effect_modification(check: dict | None) -> None:
     em = (check or {}).get("effect_modification")
     if not em:
         return
-    text = "**Does the effect change along the index?** " + aps.md_escape(ch_checks.describe_effect_modification(em))
+    text = "**Does the effect change along the index?** " + aps.md_escape(charts_checks.describe_effect_modification(em))
     (st.warning if em.get("weak_evidence") else st.success)(text)
 
 
@@ -121,51 +115,50 @@ def show_checks(check: dict, row: dict, label: str) -> None:
         else:
             ui.sentence(text)
 
-    piece(lambda: ch_checks.observed_fitted_chart(check, arms, row, index_label=label),
-          ch_checks.describe_observed_fitted(check, label))
-    st.dataframe(ch_checks.calibration_table(check), hide_index=True, width="stretch")
-    ui.sentence(ch_checks.describe_calibration(check))
-    piece(lambda: ch_checks.sliding_window_chart(check, arms, row, index_label=label),
-          ch_checks.describe_sliding_window(check, arms, label))
-    if outcome.kind == "survival":
+    piece(lambda: charts_checks.observed_fitted_chart(check, arms, row, index_label=label),
+          charts_checks.describe_observed_fitted(check, label))
+    st.dataframe(charts_checks.calibration_table(check), hide_index=True, width="stretch")
+    ui.sentence(charts_checks.describe_calibration(check))
+    piece(lambda: charts_checks.sliding_window_chart(check, arms, row, index_label=label),
+          charts_checks.describe_sliding_window(check, arms, label))
+    if describe(outcome).follow_up:
         km = {"units": outcome.units, "horizon": outcome.horizon, "label": outcome.title}
         overall = ui.attempt(ws.km_curves, outcome.name)
         if overall:
-            piece(lambda: ch_checks.kaplan_meier_chart(overall, arms, **km),
-                  ch_checks.describe_km(overall, units=outcome.units, horizon=outcome.horizon))
+            piece(lambda: charts_checks.kaplan_meier_chart(overall, arms, **km),
+                  charts_checks.describe_km(overall, units=outcome.units, horizon=outcome.horizon))
         banded = ui.attempt(ws.km_curves, outcome.name, row["index"]) if draw else None
         if banded:
-            chart = ch_checks.kaplan_meier_bands_chart(banded, arms, index_label=label, **km)
+            chart = charts_checks.kaplan_meier_bands_chart(banded, arms, index_label=label, **km)
             ui.altair(chart)
             st.caption(aps.md_escape(ui.description(chart)))
         if check.get("horizon_curve"):
-            piece(lambda: ch_checks.horizon_chart(check, arms, row, index_label=label, units=outcome.units),
-                  ch_checks.describe_horizon(check, label, outcome.units))
+            piece(lambda: charts_checks.horizon_chart(check, arms, row, index_label=label, units=outcome.units),
+                  charts_checks.describe_horizon(check, label, outcome.units))
 
 
 show_points = st.checkbox("Show each patient beneath the curves" + (" (triangles: randomised, dots: chosen)"
                                                                      if ws.cohort.randomised is not None else ""),
                           value=True, key=ui.key("points"))
 st.header(f"Outcomes along {titles[index]}")
+marker = ui.patient_marker(ws, ws.fitset(), index)
+ui.patient_caption(marker)
 if ws.fitset().population is not None:
     st.caption(aps.md_escape(f"These curves rest on {ws.fitset().population.words} ({ws.fitset().population.reason})."))
 for row in [r for r in doc["results"] if r["index"] == index]:
     st.subheader(ws.spec.outcome(row["outcome"]).title)
-    if ch_curves is None:
-        ui.not_available("Charts", "explorer/charts_curves.py")
-        continue
-    check = ch_common.check_for(checks, row["outcome"], index)
-    points = ui.attempt(ch_curves.cohort_points, ws.fitset(), row["outcome"], index) if show_points else None
-    ui.altair(ch_curves.outcome_chart(row, arms, points, index_label=titles[index]),
-              " ".join(t for t in (ch_curves.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin),
-                                   ch_checks.describe_percentiles(row, titles[index])) if t))
+    check = charts_common.check_for(checks, row["outcome"], index)
+    points = ui.attempt(charts_curves.cohort_points, ws.fitset(), row["outcome"], index) if show_points else None
+    ui.altair(charts_curves.outcome_chart(row, arms, points, patient=marker, index_label=titles[index]),
+              " ".join(t for t in (charts_curves.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin),
+                                   charts_checks.describe_percentiles(row, titles[index])) if t))
     for w in row.get("warnings", []) + (check or {}).get("warnings", []):  # check warnings outside the tabs
         st.caption("Note: " + aps.md_escape(w))
     tabs = st.tabs(["Difference and numbers", "Does the difference change?",
                     "Can the curves be trusted?", "Method"])
     with tabs[0]:
-        ui.altair(ch_curves.difference_chart(row, arms, margin=ws.spec.analysis.margin, index_label=titles[index]))
-        st.dataframe(ch_curves.curve_table(row, arms, every=max(1, len(row["curve"]) // 25)), hide_index=True,
+        ui.altair(charts_curves.difference_chart(row, arms, margin=ws.spec.analysis.margin, index_label=titles[index]))
+        st.dataframe(charts_curves.curve_table(row, arms, every=max(1, len(row["curve"]) // 25)), hide_index=True,
                      width="stretch")
     with tabs[1]:
         show_effect_modification(check)

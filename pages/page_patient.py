@@ -4,25 +4,21 @@ import dataclasses
 import datetime as dt
 import json
 
-import fulcrum_ui as ui
 import streamlit as st
-import ui_theme
 
+import fulcrum_ui as ui
 from explorer import CAUTIONS
 from explorer import appstate as aps
+from explorer import charts_curves, charts_patient, patient_pdf, patient_summary
+from explorer import conversation as conv
 
 ENTER, PICK = "Enter this patient's values", "Pick a patient from the cohort"
 WHOSE = {"patient": "The patient", "proxy": "Someone speaking for the patient", "team": "The treating team"}
-ws, patient = ui.page_head(
+ws = ui.page_head(
     "Patient",
     "Place one patient on the curves: where they sit on each index, what each arm predicts for people like "
-    "them, and which arm their values favour. Nothing is refitted.",
-    needs=("patient", "The patient view"))
-conv = ui.engine("conversation")
-summary = ui.engine("patient_summary")
+    "them, and which arm their values favour. Nothing is refitted.")
 arms = list(ws.spec.cohort.arms)
-ch_curves = ui.engine("charts_curves")
-per100 = ui.engine("charts_patient")
 fs = ui.fitted(ws)
 if fs is None:
     st.stop()
@@ -145,7 +141,7 @@ def weights_in_use(levels: list[str]) -> None:
 
 
 record = None
-if ws.spec.values is not None and conv is not None:
+if ws.spec.values is not None:
     levels = list(ws.spec.outcome(ws.spec.values.outcome).levels)
     st.header("What matters to the patient")
     kept = choice.record
@@ -180,9 +176,6 @@ pl = view.placements.get(index)
 if pl is None:
     st.stop()
 marker = {"x": pl.value, "label": f"this patient ({pl.value:.3g}, percentile {pl.percentile:.0f})"}
-row = new_choice.inputs()[1]
-ui_theme.set_patient(f"{'cohort row ' + str(row + 1) if row is not None else 'entered values'}: "
-                     f"{titles[index]} {pl.value:.3g}")
 
 # ------------------------------------------------------------------------------------------
 # Which arm the weights favour, and how firmly
@@ -206,16 +199,16 @@ for p in preds:
     st.subheader(p.title)
     for s in [p.sentence, *p.states_sentences, p.uncertainty, *([p.level_sentence] if p.level_sentence else [])]:
         ui.sentence(s)
-    probs = summary.icon_probabilities(p)
-    if per100 is not None and probs:
-        chart = per100.per_hundred_chart(probs, f"{p.title}: out of 100 people like this", width=880)
+    probs = patient_summary.icon_probabilities(p)
+    if probs:
+        chart = charts_patient.per_hundred_chart(probs, f"{p.title}: out of 100 people like this", width=880)
         ui.show_chart(chart)
         st.caption(aps.md_escape(ui.description(chart) or ""))
     with st.expander("On the curve, and the numbers"):
         row_json = curve_rows.get((p.outcome, index))
-        if ch_curves is not None and row_json is not None:
-            ui.altair(ch_curves.outcome_chart(row_json, arms, patient=marker, index_label=titles[index]))
-        table = summary.outcome_table(p, arms)
+        if row_json is not None:
+            ui.altair(charts_curves.outcome_chart(row_json, arms, patient=marker, index_label=titles[index]))
+        table = patient_summary.outcome_table(p, arms)
         st.dataframe([{"": r[0], **dict(zip(arms, r[1:]))} for r in table], hide_index=True, width="stretch")
 
 # ------------------------------------------------------------------------------------------
@@ -230,13 +223,12 @@ note = "with the name or number added" if identifiers else "no identifiers"
 c1, c2, c3 = st.columns(3)
 with c1:  # made when clicked, so moving a weight never waits for the files
     st.download_button(f"Printable summary (.html, {note})", file_name="patient_summary.html", mime="text/html",
-                       data=lambda: summary.summary_html(view, CAUTIONS, **kwargs), on_click="ignore",
+                       data=lambda: patient_summary.summary_html(view, CAUTIONS, **kwargs), on_click="ignore",
                        icon=":material/print:")
 with c2:
-    pdf = ui.engine("patient_pdf")
     st.download_button(f"Summary as PDF ({note})", file_name="patient_summary.pdf", mime="application/pdf",
-                       data=lambda: pdf.summary_pdf(summary.summary_content(view, CAUTIONS, **kwargs)),
-                       on_click="ignore", icon=":material/picture_as_pdf:")
+                       data=lambda: patient_pdf.view_pdf(view, CAUTIONS, **kwargs), on_click="ignore",
+                       icon=":material/picture_as_pdf:")
 with c3:
     st.download_button(f"Patient view (.json, {note})", file_name="patient_view.json", mime="application/json",
                        data=lambda: json.dumps(view.to_json(identifiers), indent=1), on_click="ignore",

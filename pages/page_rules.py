@@ -4,17 +4,17 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
+from explorer import exports, policy
+from explorer import policy_charts as pcharts
+from explorer import target as target_mod
 
 CACHE = "policy_sets"
-ws, policy = ui.page_head(
+ws = ui.page_head(
     "Rules per 100 patients",
     "A break-even point answers \"which arm for this patient?\". A team reviewing its practice asks next: \"if we "
     "gave one arm below a threshold and the other above it, what would happen to 100 of our patients?\" Each "
     "patient's predicted outcomes under the arm the rule gives are averaged (standardisation); move the threshold "
-    "to see the consequences change.",
-    needs=("policy", "Rule consequences"))
-pcharts = ui.engine("policy_charts")
-target_mod = ui.engine("target")
+    "to see the consequences change.")
 spec = ws.spec
 arms = list(spec.cohort.arms)
 fs = ui.fitted(ws)
@@ -83,27 +83,24 @@ here = policy.at_threshold(ps, row["outcome"] if not row["composite"] else f"com
                            direction, t)
 
 st.header(f"Per 100 of {ps.target.name} ({ps.target.n} patients)")
-unit = pcharts.unit_words(row) if pcharts else ""
+unit = pcharts.unit_words(row)
 m1, m2, m3 = st.columns(3)
 m1.metric(f"The rule at {t:.3g}", policy.fmt(here["value"], row["counts_patients"]),
           help=f"{unit}; interval {policy.fmt(here['ci'][0])} to {policy.fmt(here['ci'][1])}")
 m2.metric(f"Everyone {arms[0]}", policy.fmt(here["all_first"], row["counts_patients"]))
 m3.metric(f"Everyone {arms[1]}", policy.fmt(here["all_second"], row["counts_patients"]))
-if pcharts is not None:
-    ui.altair(pcharts.rule_curve_chart(row, arms, t, index_title=titles[index]), pcharts.describe_rule(row, arms, t))
-    for r in rows:
-        if r.get("levels") and r["direction"] == direction:
-            chart = pcharts.frequency_chart(r, arms, t)
-            if chart is not None:
-                ui.altair(chart, pcharts.per_hundred_words(r, arms, t))
+ui.altair(pcharts.rule_curve_chart(row, arms, t, index_title=titles[index]), pcharts.describe_rule(row, arms, t))
+for r in rows:
+    if r.get("levels") and r["direction"] == direction:
+        chart = pcharts.frequency_chart(r, arms, t)
+        if chart is not None:
+            ui.altair(chart, pcharts.per_hundred_words(r, arms, t))
 
 st.subheader(f"Every outcome under this rule (threshold {t:.3g})")
 table = pd.DataFrame(policy.consequences(ps, direction, t)).astype(str)
 st.dataframe(table, hide_index=True, width="stretch")
-exports = ui.engine("exports")
-if exports is not None:
-    st.download_button("Download this table (CSV, for the minutes)", exports.to_csv_safe(table),
-                       file_name=f"rule_{index}_{t:.3g}.csv", mime="text/csv", key=ui.key("rule_csv"))
+st.download_button("Download this table (CSV, for the minutes)", exports.to_csv_safe(table),
+                   file_name=f"rule_{index}_{t:.3g}.csv", mime="text/csv", key=ui.key("rule_csv"))
 
 cp = row.get("current_practice")
 if cp:

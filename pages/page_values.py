@@ -4,20 +4,20 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
+from explorer import charts_curves, charts_values, values
+from explorer.models import describe
+from explorer.presets import available_presets, preset_weights
 from explorer.words import fmt as charts_fmt
 
 CUSTOM = "custom"
 WHOSE = {"patient": "the patient's own", "proxy": "a proxy's, on the patient's behalf", "team": "the team's"}
-ws, values = ui.page_head(
+ws = ui.page_head(
     "Values",
     "How much is each outcome state worth? Give the best state 1 and death 0; a state judged worse than death "
-    "goes below 0. The composite is each arm's expected value of these weights along the index.",
-    needs=("values", "Weighing outcome states"))
+    "goes below 0. The composite is each arm's expected value of these weights along the index.")
 arms = list(ws.spec.cohort.arms)
-ch_curves = ui.engine("charts_curves")
-leeway = ui.engine("charts_values")
 
-ordinal = [o for o in ws.spec.outcomes if o.kind == "ordinal"]
+ordinal = [o for o in ws.spec.outcomes if describe(o).levels]
 if ws.spec.values is None:
     if not ordinal:
         st.warning("The spec has no ordinal outcome (a ranked list of states such as independent, home with help, "
@@ -38,7 +38,7 @@ levels = list(outcome.levels)
 # Weights: a preset to start from, then one slider per state
 # ------------------------------------------------------------------------------------------
 st.header(f"Weights for {outcome.title}")
-presets = values.available_presets(levels)
+presets = available_presets(levels)
 labels = {p.name: p.label for p in presets} | {CUSTOM: "My own weights"}
 p1, p2 = st.columns([2, 1])
 with p2:
@@ -52,7 +52,7 @@ def apply_preset() -> None:
     if name == CUSTOM:
         return
     try:
-        weights = values.preset_weights(name, levels, st.session_state.get(ui.key("acceptable"), []))
+        weights = preset_weights(name, levels, st.session_state.get(ui.key("acceptable"), []))
     except Exception as exc:
         st.session_state["preset_error"] = exc
         return
@@ -103,10 +103,12 @@ here = {k: cm for k, cm in prepared.items() if k[1] == index}
 anchor = next(iter(here.values()))
 lo, hi = anchor.x_range
 discrete = bool(ws.index_values()[index].info.get("discrete"))
+marker = ui.patient_marker(ws, ws.fitset(), index)
+ui.patient_caption(marker)
+start = marker["x"] if marker is not None and lo <= marker["x"] <= hi else values.default_threshold_x(anchor)
 x0 = st.slider(f"Test how far the weights can move at {titles[index]} =", float(lo), float(hi),
                step=1.0 if discrete else (hi - lo) / 100,
-               key=ui.seed(f"x0:{index}", float(round(values.default_threshold_x(anchor)) if discrete
-                                                else values.default_threshold_x(anchor))))
+               key=ui.seed(f"x0:{index}", float(round(start) if discrete else start)))
 summaries = ui.attempt(values.reweight, here, v.weights, values=v, margin=ws.spec.analysis.margin,
                        threshold_at={index: x0})
 if summaries is None:
@@ -114,35 +116,32 @@ if summaries is None:
 rows = values.composite_rows(ws.fitset(), summaries, v)
 
 st.header(f"Value of outcomes along {titles[index]}")
-for row, ((kind, _), _) in zip(rows, summaries.items()):
-    st.subheader({"ordinal": f"Expected value of the weights ({outcome.title})",
-                  "survival_function": "Survival combined with function",
-                  "quality_adjusted": "Quality-adjusted survival"}.get(kind, kind))
-    if kind in values.WEIGHTED_KINDS:
+for row, ((form, _), _) in zip(rows, summaries.items()):
+    st.subheader(row["label"])  # the composite's title in words (values.prepare_composite)
+    if form in values.WEIGHTED_KINDS:
         st.caption(f"Uses the weights above: {WHOSE[v.whose]} values.")
     else:
         st.caption("Does not use the weights above: time alive is counted at each survivor's own quality of life "
                    "from the cohort (quality-adjusted time, in the survival outcome's time units).")
-    if ch_curves is None:
-        ui.not_available("Composite charts", "explorer/charts_curves.py")
-    else:
-        ui.altair(ch_curves.composite_chart(row, arms, index_label=titles[index]),
-                  ch_curves.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin))
+    ui.altair(charts_curves.composite_chart(row, arms, patient=marker, index_label=titles[index]),
+              charts_curves.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin))
+    for w in row.get("warnings", []):
+        st.warning(aps.md_escape(w))
     for note in row.get("notes", []):
         st.caption(aps.md_escape(note))
 
     th = row.get("thresholds")
-    if th and leeway is not None:
+    if th:
         with st.expander("How far can these weights move before the answer changes?", expanded=False):
-            lw = leeway.leeway(th)
-            chart = leeway.leeway_chart(lw, arms, where=f"{titles[index]} {x0:.3g}")
+            lw = charts_values.leeway(th)
+            chart = charts_values.leeway_chart(lw, arms, where=f"{titles[index]} {x0:.3g}")
             ui.show_chart(chart)
             ui.sentence(ui.description(chart) or "")
-            st.dataframe(leeway.leeway_table(lw), hide_index=True, width="stretch")
+            st.dataframe(charts_values.leeway_table(lw), hide_index=True, width="stretch")
 
     acc = row.get("acceptability")
-    if acc and leeway is not None:
-        chart = leeway.preference_chart(acc, arms, index_title=titles[index], spread=v.spread, ranges=v.ranges,
+    if acc:
+        chart = charts_values.preference_chart(acc, arms, index_title=titles[index], spread=v.spread, ranges=v.ranges,
                                           discrete=discrete)
         ui.altair(chart, ui.description(chart))
 
@@ -175,28 +174,24 @@ def pairwise_window(window, label: str) -> str:
 # The hierarchical pairwise comparison
 # ------------------------------------------------------------------------------------------
 st.header("Pairwise comparison of patients")
-pairwise = ui.engine("pairwise")
-if pairwise is None:
-    ui.not_available("The pairwise comparison", "explorer/pairwise.py")
-else:
-    st.markdown("Every patient in one arm is compared with every patient in the other, outcome by outcome in "
-                "order of priority; a pair is decided by the first outcome that separates them.")
-    if st.checkbox("Compute the pairwise comparison (with its own bootstrap)", key=ui.key("pairwise_on")):
-        prow = ui.with_progress("Pairwise comparison:", ws.pairwise, index)
-        if prow:
-            order = [ws.spec.outcome(n).title for n in (ws.spec.pairwise.priority if ws.spec.pairwise else ())]
-            if order:
-                st.markdown("**Order of priority:** " + " → ".join(aps.md_escape(t) for t in order))
-            table = pd.DataFrame([{"patients": pairwise_window(r["window"], titles.get(index, "index")),
-                                   f"{arms[0]}": r["n_first"], f"{arms[1]}": r["n_second"],
-                                   "win ratio": rounded(r["win_ratio"]), "win ratio interval": span(r["win_ratio_ci"]),
-                                   "net benefit": rounded(r["net_benefit"]),
-                                   "net benefit interval": span(r["net_benefit_ci"]),
-                                   "clearly favours": r["favours"] or "neither"} for r in prow])
-            st.dataframe(table.astype(str), hide_index=True, width="stretch")
-            st.caption("Win ratio: pairs won by the first arm over pairs lost (above 1 favours it). Net benefit: "
-                       "the share of pairs won minus the share lost (above 0 favours the first arm).")
-            overall = prow[0]
-            if overall.get("win_ratio") is not None:
-                ui.sentence(f"Across everyone, {arms[0]} wins {overall['wins']:,} and loses {overall['losses']:,} "
-                            f"of {overall['pairs']:,} pairs (win ratio {overall['win_ratio']:.3g}).")
+st.markdown("Every patient in one arm is compared with every patient in the other, outcome by outcome in "
+            "order of priority; a pair is decided by the first outcome that separates them.")
+if st.checkbox("Compute the pairwise comparison (with its own bootstrap)", key=ui.key("pairwise_on")):
+    prow = ui.with_progress("Pairwise comparison:", ws.pairwise, index)
+    if prow:
+        order = [ws.spec.outcome(n).title for n in (ws.spec.pairwise.priority if ws.spec.pairwise else ())]
+        if order:
+            st.markdown("**Order of priority:** " + " → ".join(aps.md_escape(t) for t in order))
+        table = pd.DataFrame([{"patients": pairwise_window(r["window"], titles.get(index, "index")),
+                               f"{arms[0]}": r["n_first"], f"{arms[1]}": r["n_second"],
+                               "win ratio": rounded(r["win_ratio"]), "win ratio interval": span(r["win_ratio_ci"]),
+                               "net benefit": rounded(r["net_benefit"]),
+                               "net benefit interval": span(r["net_benefit_ci"]),
+                               "clearly favours": r["favours"] or "neither"} for r in prow])
+        st.dataframe(table.astype(str), hide_index=True, width="stretch")
+        st.caption("Win ratio: pairs won by the first arm over pairs lost (above 1 favours it). Net benefit: "
+                   "the share of pairs won minus the share lost (above 0 favours the first arm).")
+        overall = prow[0]
+        if overall.get("win_ratio") is not None:
+            ui.sentence(f"Across everyone, {arms[0]} wins {overall['wins']:,} and loses {overall['losses']:,} "
+                        f"of {overall['pairs']:,} pairs (win ratio {overall['win_ratio']:.3g}).")

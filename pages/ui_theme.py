@@ -2,7 +2,7 @@
 that says, on every page, which tool this is, which cohort is loaded and which patient is in hand.
 
 The colours come from explorer/look.py (docs/look.md explains them; tests check every text pair reaches 4.5:1).
-Pages call nothing here except set_patient(); the app's entry script calls header() once per run.
+Pages call nothing here; the app's entry script calls header() once per run.
 """
 from __future__ import annotations
 
@@ -13,8 +13,6 @@ import streamlit as st
 
 from explorer import look
 
-PATIENT = "fulcrum_patient_in_hand"
-_SLOT = "fulcrum_header_slot"
 
 # A lever on its fulcrum: the beam carries the two arms' colours at its ends. Drawn here, owned by no one else.
 MARK = (f'<svg class="fulcrum-mark" viewBox="0 0 44 28" width="44" height="28" aria-hidden="true" focusable="false">'
@@ -53,7 +51,7 @@ a:focus-visible, button:focus-visible, input:focus-visible, textarea:focus-visib
 [role="button"]:focus-visible, [tabindex]:focus-visible, summary:focus-visible {{
   outline: 3px solid var(--f-focus) !important; outline-offset: 2px !important; box-shadow: 0 0 0 5px var(--f-paper); }}
 /* the header */
-.fulcrum-head {{ display: grid; grid-template-columns: auto 1fr auto; align-items: center;
+.fulcrum-head {{ display: grid; grid-template-columns: auto auto minmax(0, 1fr); align-items: center;
   gap: calc(3 * var(--f-unit)); background: var(--f-panel); border-bottom: 3px solid var(--f-ink);
   border-radius: 2px; padding: var(--f-unit) calc(2 * var(--f-unit)); margin-bottom: var(--f-unit); }}
 .fulcrum-name {{ display: flex; align-items: center; gap: var(--f-unit); font-weight: 700; font-size: 1.35rem;
@@ -64,6 +62,7 @@ a:focus-visible, button:focus-visible, input:focus-visible, textarea:focus-visib
 .fulcrum-head dd {{ margin: 0; font-weight: 600; color: var(--f-ink); white-space: nowrap; }}
 .fulcrum-head .first {{ color: {look.ARM_INKS[0]}; }}
 .fulcrum-head .second {{ color: {look.ARM_INKS[1]}; }}
+.fulcrum-head dd.patient {{ white-space: normal; }}
 .fulcrum-head .demo {{ color: var(--f-muted); font-weight: 400; font-style: italic; }}
 @media (max-width: 900px) {{ .fulcrum-head {{ grid-template-columns: 1fr; }} }}
 </style>
@@ -79,22 +78,12 @@ def header_html(cohort: str, n: int, arms: tuple[str, str] | list[str], patient:
             f'<dl><div><dt>Cohort</dt><dd>{escape(cohort)} · {n:,} patients{note}</dd></div>'
             f'<div><dt>Arms</dt><dd><span class="first">{escape(arms[0])}</span> or '
             f'<span class="second">{escape(arms[1])}</span></dd></div></dl>'
-            f'<dl><div><dt>Patient</dt><dd>{who}</dd></div></dl></header>')
+            f'<dl><div><dt>Patient</dt><dd class="patient">{who}</dd></div></dl></header>')
 
 
-def header(ws: Any) -> None:
-    """The stylesheet and the header, at the top of every page (call once per run, before the page)."""
+def header(ws: Any, patient: str | None) -> None:
+    """The stylesheet and the header, at the top of every page (call once per run, before the page). patient: the
+    session's one patient in a line (appstate.PatientChoice.describe), as the sidebar says it."""
     st.markdown(CSS, unsafe_allow_html=True)
-    slot = st.empty()
-    st.session_state[_SLOT] = (slot, ws.filename, ws.cohort.n, tuple(ws.spec.cohort.arms), bool(ws.is_demo))
-    slot.markdown(header_html(ws.filename, ws.cohort.n, ws.spec.cohort.arms, st.session_state.get(PATIENT),
-                              bool(ws.is_demo)), unsafe_allow_html=True)
-
-
-def set_patient(label: str | None) -> None:
-    """Name the patient in hand (no identifiers: a cohort row number or "entered values") and refresh the header."""
-    st.session_state[PATIENT] = label
-    held = st.session_state.get(_SLOT)
-    if held:
-        slot, name, n, arms, demo = held
-        slot.markdown(header_html(name, n, arms, label, demo), unsafe_allow_html=True)
+    st.markdown(header_html(ws.filename, ws.cohort.n, ws.spec.cohort.arms, patient, bool(ws.is_demo)),
+                unsafe_allow_html=True)

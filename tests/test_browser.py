@@ -73,7 +73,7 @@ def test_the_app_in_chromium_from_demo_to_an_offline_report(browser_context, tmp
                 change_a_weight(page)
                 screenshot(page, SHOTS / "values_after_weight_change.png")
 
-        with page.expect_download(timeout=120_000) as download:
+        with page.expect_download(timeout=300_000) as download:
             page.get_by_role("button", name=re.compile("Offline report")).click()
         report = tmp_path / "report.html"
         download.value.save_as(report)

@@ -91,9 +91,14 @@ def test_a_clinician_keeps_a_patient_on_every_page_prints_the_meeting_view_then_
     set_number(page, "Clinical Frailty Scale", "7")
     set_number(page, "Age", "82")
     assert "Clinical Frailty Scale 7, Age 82" in sidebar(page)
-    for name in ("Outcomes by index", "Values", "Randomised vs chosen", "Two indices", "Cohort", "Patient"):
-        go(page, name)
+    for name in ("Outcomes by index", "Values", "Randomised vs chosen", "Two indices", "Report", "Cohort", "Patient"):
+        text = go(page, name)
         assert "Clinical Frailty Scale 7, Age 82" in sidebar(page), name
+        assert "Clinical Frailty Scale 7, Age 82" in text, name  # the header of every page names the patient
+        if name in ("Outcomes by index", "Values", "Randomised vs chosen"):  # where they sit, marked on the charts
+            assert "Patient in hand: Clinical Frailty Scale 7 (cohort percentile 80)" in text, name
+        if name == "Report":  # the Report page offers the patient's own summary beside the cohort's report
+            assert "Patient summary (.pdf)" in text
     assert page.get_by_role("spinbutton", name="Clinical Frailty Scale", exact=True).input_value() == "7.00"
     text = go(page, "Meeting view")
     assert "80th" in text and "Per 100 patients like this one" in text and CAUTIONS[0] in text

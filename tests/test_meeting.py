@@ -95,3 +95,19 @@ def test_numbered_levels_read_as_levels_and_named_ones_as_words() -> None:
 
     # a 0-6 scale such as the modified Rankin Scale has numbered levels (common practice)
     assert [words(v) for v in ("0", "6", "home_with_help")] == ["level 0", "level 6", "home with help"]
+
+
+def test_the_meeting_view_says_a_two_part_break_even_interval_as_two_parts() -> None:
+    # Fieller 1954 (common practice): a two-ray set is not the span between its ends, which here would exclude 7.86.
+    from explorer.meeting import _nearest_break_evens
+
+    rows = [{"index": "cfs", "outcome": "alive", "break_even": [
+                {"x": 7.86, "ci": [-18.7, 5.94], "interval_shape": "two_rays", "favours_below": "laparotomy"}]},
+            {"index": "cfs", "outcome": "home", "break_even": [
+                {"x": 4.36, "ci": [1.74, 5.68], "interval_shape": "finite", "favours_above": "non-operative"}]},
+            {"index": "cfs", "outcome": "qol", "break_even": [
+                {"x": 2.64, "ci": [None, 4.43], "interval_shape": "unbounded_below"}]}]
+    said = _nearest_break_evens(rows, "cfs", 7.0, {"alive": "Alive", "home": "At home", "qol": "QoL"}, "CFS")
+    assert said[0] == "Alive: 7.86 (interval in two parts: below -18.7 or above 5.94); patient below: laparotomy better."
+    assert said[1].startswith("At home: 4.36 (1.74 to 5.68); patient above")
+    assert said[2].startswith("QoL: 2.64 (interval open below, up to 4.43)")

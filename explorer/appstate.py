@@ -26,6 +26,7 @@ from .checks import baseline_table, checks_rows, clustering, km_curves
 from .cohort import load_cohort, read_table
 from .coverage import label_results
 from .errors import FulcrumError
+from .models import describe
 from .fitting import FitSet, compute_indices, fit_all, run_bootstrap, summarise
 from .headline import annotate
 from .indices import needed_columns
@@ -297,30 +298,42 @@ def outcomes_from_rows(rows: list[dict], base: Spec | None = None) -> list[dict]
         if not name:
             raise FulcrumError(f"outcome row {i + 1} has no name.", key=f"outcomes[{i + 1}].name",
                                hint="Give each outcome a short name, or clear the row.")
-        kind = str(row.get("kind") or "").strip()
-        table: dict[str, Any] = {"name": name, "kind": kind}
+        kind_name = str(row.get("kind") or "").strip()
+        table: dict[str, Any] = {"name": name, "kind": kind_name}
         old = known.get(name, {})
-        if old.get("kind") == kind:
-            table.update({k: v for k, v in old.items() if k in _KIND_KEYS.get(kind, set())})
-        cells = ("time", "event", "label") if kind == "survival" else ("column", "label")
-        for key in cells:
+        if old.get("kind") == kind_name:
+            table.update({k: v for k, v in old.items() if k in _KIND_KEYS.get(kind_name, set())})
+        for key in _ROW_CELLS.get(kind_name, ("column", "label")):
             v = row.get(key)
             if not _blank(v):
                 table[key] = str(v).strip()
             elif key == "label":
                 table.pop("label", None)
-        if kind == "survival" and not _blank(row.get("horizon")):
-            try:
-                table["horizon"] = float(row["horizon"])
-            except (TypeError, ValueError):
-                raise FulcrumError(f"the horizon of outcome '{name}' is not a number: {row['horizon']!r}.",
-                                   key=f"outcomes '{name}'.horizon", hint="Give the horizon as a number.") from None
-        if kind == "ordinal" and not _blank(row.get("levels")):
-            table["levels"] = [v.strip() for v in str(row["levels"]).split(",") if v.strip()]
-            if "favourable" in table and not set(table["favourable"]) <= set(table["levels"]):
-                del table["favourable"]
+        for key, read in _ROW_EXTRA.get(kind_name, {}).items():
+            if not _blank(row.get(key)):
+                read(table, row[key])
         out.append(table)
     return out
+
+
+def _horizon_cell(table: dict, v: Any) -> None:
+    try:
+        table["horizon"] = float(v)
+    except (TypeError, ValueError):
+        raise FulcrumError(f"the horizon of outcome '{table['name']}' is not a number: {v!r}.",
+                           key=f"outcomes '{table['name']}'.horizon", hint="Give the horizon as a number.") from None
+
+
+def _levels_cell(table: dict, v: Any) -> None:
+    table["levels"] = [s.strip() for s in str(v).split(",") if s.strip()]
+    if "favourable" in table and not set(table["favourable"]) <= set(table["levels"]):
+        del table["favourable"]
+
+
+# The outcome table's cells, per kind as the spec names them (the spec's own keys, like _KIND_KEYS above):
+# which text cells a row reads (default: column and label) and which cells need reading.
+_ROW_CELLS = {"survival": ("time", "event", "label")}
+_ROW_EXTRA = {"survival": {"horizon": _horizon_cell}, "ordinal": {"levels": _levels_cell}}
 
 
 def spec_to_dict_single(obj) -> dict:
@@ -447,7 +460,7 @@ def with_settings(spec: Spec, *, margin: float | None = None, level: float | Non
 def add_values(spec: Spec, outcome: str) -> Spec:
     """Start a [values] section on an ordinal outcome with equal-step weights."""
     changes: dict[str, Any] = {"outcome": outcome}
-    survival = [o.name for o in spec.outcomes if o.kind == "survival"]
+    survival = [o.name for o in spec.outcomes if describe(o).follow_up]
     if survival:
         changes["survival_outcome"] = survival[0]
     return edit_spec(spec, {"values": changes})

@@ -381,12 +381,12 @@ def km_records(curves: Sequence[Mapping[str, Any]], arms: Sequence[str]) -> tupl
     recs: list[dict] = []
     for c in curves:
         band = (c.get("band") or {}).get("label") or "all patients"
-        recs += [{"kind": "step", "band": band, "arm": c["arm"], **s} for s in drawn_steps(c["steps"])]
+        recs += [{"part": "step", "band": band, "arm": c["arm"], **s} for s in drawn_steps(c["steps"])]
         row = -AT_RISK_STEP * (list(arms).index(c["arm"]) + 1)
-        recs += [{"kind": "risk", "band": band, "arm": c["arm"], "time": a["time"], "n": a["n"], "y": row}
+        recs += [{"part": "risk", "band": band, "arm": c["arm"], "time": a["time"], "n": a["n"], "y": row}
                  for a in c["at_risk"]]
     for band in dict.fromkeys(r["band"] for r in recs):
-        recs.append({"kind": "base", "band": band, "time": 0.0, "y": 0.0})
+        recs.append({"part": "base", "band": band, "time": 0.0, "y": 0.0})
     return tuple(recs)
 
 
@@ -401,7 +401,7 @@ def _km_layer(recs: Sequence[Mapping[str, Any]], arms: Sequence[str], *, units: 
     x = alt.X("time:Q", scale=xs, title=f"time ({units})" if units else "time")
     colour = alt.Color("arm:N", scale=_arm_scale(arms), legend=ARM_LEGEND)
     base = alt.Chart()
-    of = lambda kind: base.transform_filter(alt.datum.kind == kind)  # noqa: E731
+    of = lambda part: base.transform_filter(alt.datum.part == part)  # noqa: E731
     layers = _km_steps(of("step"), x, colour, 2.5, ys)
     layers += [of("base").mark_rule(color=INK, strokeWidth=1).encode(y=alt.Y("y:Q", scale=ys)),
                of("risk").mark_text(fontSize=FONT["text"] - 3).encode(

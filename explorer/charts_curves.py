@@ -14,6 +14,7 @@ from .charts_common import (ALLOCATION_SHAPES, ALLOCATION_SIZES, ARM_LEGEND, AXI
                             outcome_title, x_title)
 from .look import INK, MUTED, NEUTRAL, OKABE_ITO, PAPER, arm_colours, text_on
 from .margins import side_words
+from .models import describe
 from .words import cap, fmt, interval_words, level_span, levels_within, words, wrap
 
 
@@ -481,17 +482,18 @@ def cohort_points(fs: Any, outcome: str, index: str, *, max_points: int = 1500, 
     frame = fs.cohort.frame
     arms = list(pf.rows)
     xs, ys, codes, positions = [], [], [], []
+    facts = describe(o)
     for k, (arm, rows) in enumerate(pf.rows.items()):
         d = pf.data[arm]
         x = np.asarray(d.x, float)
-        if o.kind == "survival":
+        if facts.follow_up:
             t, e = np.asarray(d.time, float), np.asarray(d.event, float)
-            if o.measure == "rmst":
+            if not facts.probability:  # restricted mean survival
                 keep, y = (t >= o.horizon) | (e == 1), np.minimum(t, o.horizon)
             else:
                 keep, y = (t >= o.horizon) | (e == 1), (t >= o.horizon).astype(float)
-        elif o.kind == "ordinal":
-            fav = [o.levels.index(lv) for lv in o.favourable]
+        elif facts.levels:
+            fav = [facts.levels.index(lv) for lv in facts.favourable]
             keep, y = np.ones(len(x), bool), np.isin(np.asarray(d.y), fav).astype(float)
         else:
             keep, y = np.ones(len(x), bool), np.asarray(d.y, float)
@@ -512,8 +514,7 @@ def cohort_points(fs: Any, outcome: str, index: str, *, max_points: int = 1500, 
         df["allocation"] = np.where(frame[spec.cohort.allocation].iloc[rows].astype(str).to_numpy()
                                     == str(spec.cohort.randomised), "randomised", "chosen")
     rng = np.random.default_rng(seed)  # without an allocation column nobody is drawn as randomised
-    binary = o.kind in ("binary", "ordinal") or (o.kind == "survival" and o.measure != "rmst")
-    if binary:
+    if facts.probability:  # 0/1 values: jittered off the edges so overlapping patients show
         df["y"] = df["y"] + np.where(df["y"] > 0.5, -1, 1) * rng.uniform(0, 0.04, len(df))
     ix = fs.indices[index]
     if bool((ix.info or {}).get("discrete")):

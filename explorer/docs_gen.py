@@ -803,8 +803,8 @@ def results_markdown() -> str:
             mark = ""
             if info is not None:
                 mark = "required" if info["required"] else "optional"
-                kind = _schema_type(info["node"])
-                mark += f" ({_cell(kind)})" if kind and kind not in ("object", "list") else ""
+                type_name = _schema_type(info["node"])
+                mark += f" ({_cell(type_name)})" if type_name and type_name not in ("object", "list") else ""
             lines.append(f"| `{path}` | {mark} | {_cell(text)} |")
         lines.append("")
     return "\n".join(lines)

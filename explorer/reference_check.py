@@ -159,17 +159,12 @@ def _refit(fit, X, data, keep, w, weighted, cluster, G):
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # reference libraries' convergence chatter; the differences speak
-        if isinstance(fit, CoxFit):
-            return _cox(fit, X, data, keep, w, weighted, cluster, G)
-        elif isinstance(fit, WeibullFit):
-            return _weibull(fit, X, data, keep, w, weighted, cluster, G)
-        elif isinstance(fit, LogisticFit):
-            return _logistic(fit, X, np.asarray(data.y, float)[keep], w, weighted, cluster, G)
-        elif isinstance(fit, LinearFit):
-            return _linear(fit, X, np.asarray(data.y, float)[keep], w, weighted, cluster, G)
-        elif isinstance(fit, OrdinalFit):
-            return _ordinal(fit, X, np.asarray(data.y, float)[keep], w, weighted, cluster, G)
-    return None
+        refit = REFITS.get(type(fit))
+        if refit is None:
+            return None
+        if refit in (_cox, _weibull):  # time-to-event fitters read time and event from the data
+            return refit(fit, X, data, keep, w, weighted, cluster, G)
+        return refit(fit, X, np.asarray(data.y, float)[keep], w, weighted, cluster, G)
 
 
 def _measure(kind: str) -> str:
@@ -278,13 +273,13 @@ def _weibull(fit: WeibullFit, X, data, keep, w, weighted, cluster, G):
 # ---- binary, continuous, ordinal: statsmodels -------------------------------------------------------
 def _sm_cov(fit: Any, cluster: np.ndarray | None) -> dict:
     """statsmodels' covariance options for the sandwich the model used (none: model-based)."""
-    kind = getattr(fit, "cov_kind_", "cluster" if cluster is not None else ("HC0" if fit.robust_ else "model"))
-    if not fit.robust_ or kind == "model":
+    sandwich = getattr(fit, "cov_kind_", "cluster" if cluster is not None else ("HC0" if fit.robust_ else "model"))
+    if not fit.robust_ or sandwich == "model":
         return {}
     if cluster is not None:  # cov_kind_ "cluster", or a robust logistic or ordinal fit with clusters
         codes = pd.factorize(cluster, sort=True)[0]
         return {"cov_type": "cluster", "cov_kwds": {"groups": codes, "use_correction": False, "df_correction": False}}
-    return {"cov_type": kind}
+    return {"cov_type": sandwich}
 
 
 def _logistic(fit: LogisticFit, X, y, w, weighted, cluster, G):
@@ -371,3 +366,7 @@ def table(check: ReferenceCheck) -> str:
 
 def _g(v: float | None) -> str:
     return "-" if v is None else f"{v:.1e}"
+
+
+# Which reference library refits which model (each model class has exactly one reference fitter).
+REFITS = {CoxFit: _cox, WeibullFit: _weibull, LogisticFit: _logistic, LinearFit: _linear, OrdinalFit: _ordinal}

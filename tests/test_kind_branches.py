@@ -17,28 +17,9 @@ ROOT = pathlib.Path(__file__).resolve().parents[1]
 # Modules allowed to know outcome kinds: the models themselves, and the readers that parse them.
 ALLOWED = ("explorer/models/", "explorer/spec.py", "explorer/cohort.py")
 
-# Files still waiting for another helper of the redesign (issue 20), with how many branches each may keep.
-# Shrink-only: lower a number (or drop the line) as soon as the file is cleaned; never raise one or add a file.
-# The protocol call that replaces each is listed beside it.
-WAITING = {
-    # charts (`present`): the KM/axis branches -> describe(o).follow_up / .probability; line 1581 compares a chart
-    # record's own "kind" field (step, risk, base, horizon), not an outcome kind: rename it when charts are split.
-    "explorer/charts.py": 6,
-    # meeting and patient_summary (`present`): Prediction.kind == "survival" -> p.horizon is not None (patient.py
-    # sets it from describe(o).horizon); == "ordinal" -> any(e.distribution for e in p.arms.values()).
-    "explorer/meeting.py": 3,
-    "explorer/patient_summary.py": 3,
-    # report (`present`): row["kind"] != "survival" -> describe(o).follow_up.
-    "explorer/report/__init__.py": 1,
-    # appstate (`app`): the outcome table's per-kind cells -> describe(o).columns; survival lists -> follow_up.
-    "explorer/appstate.py": 6,
-    # docs_gen compares a JSON-schema type name called kind ("object", "list"): rename the variable.
-    "explorer/docs_gen.py": 1,
-    # pages (`app`): page_values' ordinal list -> describe(o).levels, its composite form variable -> rename;
-    # page_outcomes' KM section -> describe(o).follow_up.
-    "pages/page_values.py": 2,
-    "pages/page_outcomes.py": 1,
-}
+# Files allowed to keep some branches while they wait to be cleaned, with how many each may keep. Empty since the
+# redesign landed; keep it so (shrink-only: never raise a number or add a file).
+WAITING: dict[str, int] = {}
 
 
 def _model_classes() -> set[str]:
@@ -97,7 +78,7 @@ def test_the_waiting_list_only_shrinks():
     found = scan()
     stale = {f: (len(found.get(f, [])), n) for f, n in WAITING.items() if len(found.get(f, [])) < n}
     assert not stale, f"these files have fewer branches than WAITING allows (found, allowed); lower it: {stale}"
-    assert len(WAITING) <= 8 and sum(WAITING.values()) <= 23
+    assert not WAITING  # emptied when the redesign landed: new code asks the models
 
 
 def test_outcome_data_reads_each_kind_through_its_arrays(demo_spec):

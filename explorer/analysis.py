@@ -90,7 +90,7 @@ def _analyse(spec: Spec, fs: FitSet, spec_bytes: bytes | None, progress: Progres
                              "checks": ck.checks_rows(fs) if spec.analysis.checks else [],
                              "baseline": ck.baseline_table(fs.cohort) if spec.cohort.covariates else []}
     extra["kaplan_meier"] = ck.km_rows(fs, bands=ck.BANDS if spec.analysis.checks else 0)
-    extra["coverage"] = [{"index": ix, "windows": w} for ix, w in selection.coverage.items()] if selection else []
+    extra["randomised_windows"] = [{"index": ix, "windows": w} for ix, w in selection.coverage.items()] if selection else []
     clusters = ck.clustering(fs)
     if clusters:
         extra["clustering"] = clusters

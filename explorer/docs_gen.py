@@ -64,7 +64,7 @@ KEYED = {"results[].n", "results[].events", "results[].methods", "results[].refe
          "results[].index_info.percentiles", "results[].index_info.prognostic.centre", "composite[].weights",
          "selection[].adjusted.propensity.coefficients", "selection[].adjusted.n", "selection[].adjusted.effective_n",
          "clustering.clusters_per_arm", "imputation[].imputed_values", "imputation[].complete_case.n",
-         "imputation[].imputed.n", "maps[].n", "maps[].weights", "maps[].coefficients", "coverage[].windows[].n",
+         "imputation[].imputed.n", "maps[].n", "maps[].weights", "maps[].coefficients", "randomised_windows[].windows[].n",
          "spec"}
 
 

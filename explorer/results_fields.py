@@ -57,7 +57,7 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("kaplan_meier", "Kaplan-Meier curves per arm for every survival outcome: over all patients (index null) and, "
                          "when [analysis] checks is on, in five bands of each index (see Kaplan-Meier rows). Empty "
                          "without a survival outcome."),
-        ("coverage", "Where the randomised patients are: per index, patients per window by arm and allocation "
+        ("randomised_windows", "Where the randomised patients are: per index, patients per window by arm and allocation "
                      "(see Coverage rows). Empty without an allocation column."),
         ("clustering", "Present only with cohort.cluster: which clustered intervals were used and over how many "
                        "clusters."),
@@ -383,13 +383,13 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("kaplan_meier[].median.time", "Median time."),
         ("kaplan_meier[].median.ci", "Its interval."),
     ]),
-    ("coverage", "Coverage rows (where the randomised patients are)", [
-        ("coverage[].index", "The index's name."),
-        ("coverage[].windows", "Quantile windows of the index, lowest first."),
-        ("coverage[].windows[].from", "Window start on the index."),
-        ("coverage[].windows[].to", "Window end."),
-        ("coverage[].windows[].n", "Patients per arm and allocation: {arm: {randomised, chosen}}."),
-        ("coverage[].windows[].sparse", "Whether either arm has fewer randomised patients than [selection] "
+    ("randomised_windows", "Randomised windows (where the randomised patients are)", [
+        ("randomised_windows[].index", "The index's name."),
+        ("randomised_windows[].windows", "Quantile windows of the index, lowest first."),
+        ("randomised_windows[].windows[].from", "Window start on the index."),
+        ("randomised_windows[].windows[].to", "Window end."),
+        ("randomised_windows[].windows[].n", "Patients per arm and allocation: {arm: {randomised, chosen}}."),
+        ("randomised_windows[].windows[].sparse", "Whether either arm has fewer randomised patients than [selection] "
                                         "min_per_window here."),
     ]),
     ("checks", "Checks rows (can the curves be trusted?)", [

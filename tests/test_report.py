@@ -273,7 +273,7 @@ def test_kaplan_meier_and_coverage_come_from_the_results(result, html):
     for ix in fs.indices:
         assert {c["band"]["label"] for c in doc["kaplan_meier"] if c["index"] == ix and c["outcome"] == o.name}
     randomised = fs.cohort.randomised.to_numpy(bool)
-    for entry in doc["coverage"]:
+    for entry in doc["randomised_windows"]:
         counted = sum(w["n"][a]["randomised"] for w in entry["windows"] for a in doc["arms"])
         x = fs.indices[entry["index"]].values
         assert counted == int((randomised & pd.notna(x)).sum())

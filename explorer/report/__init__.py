@@ -371,7 +371,7 @@ def coverage_sections(doc: Mapping[str, Any]) -> list[dict]:
     """Per index: patients per window by arm and allocation, so readers see where the evidence is randomised."""
     arms, labels = doc["arms"], _index_labels(doc)
     out = []
-    for entry in doc.get("coverage") or []:
+    for entry in doc.get("randomised_windows") or []:
         coverage, label = entry["windows"], labels.get(entry["index"], entry["index"])
         out.append({"title": label, "sentence": cs.describe_coverage(coverage, arms, label),
                     "charts": [cs.coverage_chart(coverage, arms, index_label=label)],

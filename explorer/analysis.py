@@ -10,7 +10,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from . import breakeven as be
-from . import checks as ck
+from . import trust as ck
 from . import evidence as ev
 from . import headline as hl
 from . import imputation as im

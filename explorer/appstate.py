@@ -22,7 +22,7 @@ import pandas as pd
 from . import result_rows as res
 from .analysis import analyse
 from .charts_checks import breakeven_summary_table
-from .checks import baseline_table, checks_rows, clustering, km_curves
+from .trust import baseline_table, checks_rows, clustering, km_curves
 from .cohort import load_cohort, read_table
 from .coverage import label_results
 from .errors import FulcrumError

@@ -14,7 +14,7 @@ from spec_texts import binary, spec_text
 
 from explorer import CAUTIONS, cli
 from explorer import analysis as an
-from explorer import checks as ck
+from explorer import trust as ck
 from explorer import fitting as ft
 from explorer.patient import place_patient
 

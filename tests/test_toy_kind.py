@@ -15,7 +15,7 @@ import pytest
 import statsmodels.api as sm
 
 from explorer import analysis, fitting as an
-from explorer import checks as ck
+from explorer import trust as ck
 from explorer import models
 from explorer.models.base import ArmLikelihood, Basis, OutcomeData
 from explorer.models.common import ArmFit, inverse, newton, one_blas_thread, prepare, quad_form

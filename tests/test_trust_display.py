@@ -21,7 +21,7 @@ from explorer import charts_common as cc
 from explorer import charts_curves as cu
 from explorer import charts_selection as cs
 from explorer import words as wd
-from explorer.checks import km_curves
+from explorer.trust import km_curves
 from explorer.report import render_report
 from explorer.selection import randomised_coverage
 

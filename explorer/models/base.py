@@ -99,7 +99,7 @@ class Fitted(Protocol):
     linear_terms(): (coef, cov) of c0 + c1 x, a linear predictor on which the measure is a strictly
     monotone map of the same form in both arms, when the basis is linear and Fieller applies; else None.
 
-    For the trust checks (explorer.checks), without knowing which model this is:
+    For the trust checks (explorer.trust), without knowing which model this is:
     likelihood(d, kernel): the log-likelihood this model maximised, rebuilt from its data `d`, as an
     ArmLikelihood (its parameters, and which of them are the index terms); likelihood_kernel(d): reusable
     bookkeeping of that likelihood (a Cox model's risk sets) or None; own_likelihood(): (loglik, gradient,

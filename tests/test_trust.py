@@ -15,7 +15,7 @@ import statsmodels.api as sm
 from lifelines import CoxPHFitter, KaplanMeierFitter
 from scipy import optimize, stats
 
-from explorer import checks as ck
+from explorer import trust as ck
 from explorer import fitting as ft
 from explorer.models import fit_model
 from explorer.models.base import Basis, OutcomeData

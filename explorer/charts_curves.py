@@ -15,6 +15,7 @@ from .charts_common import (ALLOCATION_SHAPES, ALLOCATION_SIZES, ARM_LEGEND, AXI
 from .look import INK, MUTED, NEUTRAL, OKABE_ITO, PAPER, arm_colours, text_on
 from .margins import side_words
 from .models import describe
+from .sampling import plot_sample, sample_note
 from .words import cap, fmt, interval_words, level_span, levels_within, words, wrap
 
 
@@ -474,7 +475,6 @@ def cohort_points(fs: Any, outcome: str, index: str, *, max_points: int = 1500, 
     Above `max_points` patients a seeded sample is drawn, each arm keeping its share (sampling.plot_sample),
     and attrs["sample_note"] holds the sentence to show beside the chart; the models use every patient.
     """
-    from .sampling import plot_sample, sample_note
 
     spec = fs.spec
     pf = fs.pair(outcome, index)

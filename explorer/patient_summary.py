@@ -6,6 +6,10 @@ from dataclasses import dataclass
 from typing import Any, Mapping, Sequence
 
 from .words import fmt, per_hundred, words
+from .charts_common import state_colours
+from .charts_common import chart_to_svg
+from .charts_patient import per_hundred_chart
+from .report import render_template
 from .patient import Placement, Prediction, PatientView, ValueJudgement, count_of_100
 
 
@@ -92,7 +96,6 @@ class Summary:
 def summary_content(view: PatientView, cautions: Sequence[str], *, identifiers: Mapping[str, Any] | None = None
                     ) -> Summary:
     """The summary's content along the primary index."""
-    from .charts_common import state_colours
 
     arrays = []
     for p in _icon_outcomes(view):
@@ -120,9 +123,6 @@ def summary_html(view: PatientView, cautions: Sequence[str], *, identifiers: Map
     intervals, the values used and whose they are, the favoured arm and how firmly, and the cautions."""
     from markupsafe import Markup
 
-    from .charts_common import chart_to_svg
-    from .charts_patient import per_hundred_chart
-    from .report import render_template
 
     s = summary_content(view, cautions, identifiers=identifiers)
     svgs = [Markup(chart_to_svg(per_hundred_chart(a.probabilities, "", a.colours, width=560, key=False, subtitle=None)))

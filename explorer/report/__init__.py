@@ -35,6 +35,11 @@ from .. import charts_selection as cs
 from .. import charts_values as cv
 from .. import look
 from .. import words as wd
+from ..spec import to_toml
+from ..charts_evidence import evidence_sections
+from ..charts_maps import map_sections
+from ..policy_charts import report_sections as policy_sections
+from ..outputs import write_atomic
 
 CURVE_TABLE_ROWS = 21
 REPORT_POINTS = 400
@@ -624,7 +629,6 @@ def _number_charts(sections: list[list[dict]], store: ChartStore | None = None) 
 def render_report(result: Any, *, extra_sections: Iterable[Section | Mapping[str, Any]] | None = None,
                   points: int = REPORT_POINTS) -> str:
     """The whole report as one HTML string; `points` caps the patients drawn beneath each outcome chart."""
-    from ..spec import to_toml
 
     doc = result.document
     arms = doc["arms"]
@@ -636,9 +640,6 @@ def render_report(result: Any, *, extra_sections: Iterable[Section | Mapping[str
     composites = composite_sections(doc)
     selection = selection_sections(doc)
     pairwise = pairwise_sections(doc)
-    from ..charts_evidence import evidence_sections
-    from ..charts_maps import map_sections
-    from ..policy_charts import report_sections as policy_sections
 
     extras = _extra([*map_sections(doc), *policy_sections(doc), *evidence_sections(doc), *(extra_sections or [])])
     store = _number_charts([baseline, coverage, outcomes, survival, composites, selection, pairwise, extras])
@@ -681,6 +682,5 @@ def render_report(result: Any, *, extra_sections: Iterable[Section | Mapping[str
 
 def write_report(result: Any, path: str | Path, **kwargs: Any) -> Path:
     """Write the report to `path` (UTF-8) and return the path."""
-    from ..outputs import write_atomic
 
     return write_atomic(Path(path), render_report(result, **kwargs))

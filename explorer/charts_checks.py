@@ -8,7 +8,7 @@ from typing import Any, Iterable, Mapping, Sequence
 import altair as alt
 import pandas as pd
 
-from .charts_common import (ARM_LEGEND, AXIS_CHARS, FONT, HEIGHT, WIDTH, _arm_scale, _chart, _finish, _quick, _sized,
+from .charts_common import (ARM_LEGEND, AXIS_CHARS, FONT, HEIGHT, WIDTH, arm_scale, base_chart, finish_chart, quick_chart, sized_chart,
                             check_for, index_label_of, is_discrete, is_probability, outcome_title, x_title)
 from .charts_curves import breakeven_table, curve_frame, difference_frame
 from .look import INK, OKABE_ITO
@@ -87,13 +87,13 @@ def observed_frame(check: Mapping[str, Any], arms: Sequence[str]) -> pd.DataFram
     return df
 
 
-@_quick
+@quick_chart
 def observed_fitted_chart(check: Mapping[str, Any], arms: Sequence[str], row: Mapping[str, Any] | None = None, *,
                           index_label: str | None = None, style: bool = True) -> alt.TopLevelMixin:
     """Observed values in bands of the index (points with intervals) over each arm's fitted curve; open
     diamonds mark the band's mean fitted value (each patient's own covariates)."""
     df = observed_frame(check, arms)
-    colour = alt.Color("arm:N", scale=_arm_scale(arms), legend=ARM_LEGEND)
+    colour = alt.Color("arm:N", scale=arm_scale(arms), legend=ARM_LEGEND)
     yscale = alt.Scale(domain=[0, 1]) if is_probability(check) else alt.Scale(zero=False)
     ytitle = wrap(cap(str(check.get("measure", ""))), AXIS_CHARS)
     x = alt.X("x:Q", title=_check_x_title(check, row, index_label), scale=alt.Scale(zero=False, nice=False))
@@ -101,11 +101,11 @@ def observed_fitted_chart(check: Mapping[str, Any], arms: Sequence[str], row: Ma
                                               range=["circle", "diamond"]), legend=alt.Legend(title="in each band"))
     layers: list[alt.Chart] = []
     if row is not None:
-        layers.append(_chart(curve_frame(row, arms)).mark_line(strokeWidth=3).encode(
+        layers.append(base_chart(curve_frame(row, arms)).mark_line(strokeWidth=3).encode(
             x=x, y=alt.Y("estimate:Q", scale=yscale, title=ytitle), color=colour))
     if len(df):
         # one table for the bars and both kinds of point (a report keeps it once); filters pick the rows
-        every = _chart(df)
+        every = base_chart(df)
         ci = every.transform_filter("isValid(datum.lower) && isValid(datum.upper)")
         layers.append(ci.mark_rule(strokeWidth=2.5).encode(
             x=x, y=alt.Y("lower:Q", scale=yscale, title=ytitle), y2=alt.Y2("upper"), color=colour))
@@ -118,11 +118,11 @@ def observed_fitted_chart(check: Mapping[str, Any], arms: Sequence[str], row: Ma
         fit = every.transform_filter("isValid(datum.fitted)").transform_calculate(what="'fitted, band average'")
         layers.append(fit.mark_point(filled=False, size=110, strokeWidth=2, opacity=1).encode(
             x=x, y=alt.Y("fitted:Q", scale=yscale, title=ytitle), color=colour, shape=what, tooltip=tips))
-    chart = _sized(alt.layer(*layers), WIDTH, HEIGHT)
+    chart = sized_chart(alt.layer(*layers), WIDTH, HEIGHT)
     label = index_label or (index_label_of(row) if row is not None else check.get("index"))
     title = f"Observed against fitted: {check.get('measure', check.get('outcome'))} along {label}"
     sub = "points: observed in bands of the index with intervals; lines: each arm's fitted curve"
-    return _finish(chart, title, sub, describe_observed_fitted(check, label), style)
+    return finish_chart(chart, title, sub, describe_observed_fitted(check, label), style)
 
 
 def describe_observed_fitted(check: Mapping[str, Any], index_label: str | None = None) -> str:
@@ -187,7 +187,7 @@ def windows_frame(check: Mapping[str, Any], discrete: bool = False) -> pd.DataFr
     return df
 
 
-@_quick
+@quick_chart
 def sliding_window_chart(check: Mapping[str, Any], arms: Sequence[str], row: Mapping[str, Any] | None = None, *,
                          index_label: str | None = None, style: bool = True) -> alt.TopLevelMixin:
     """The difference without a model in overlapping windows of patients (points with intervals, at each
@@ -198,16 +198,16 @@ def sliding_window_chart(check: Mapping[str, Any], arms: Sequence[str], row: Map
     domain = ["sliding window (no model)", "model"]
     colour = alt.Color("what:N", scale=alt.Scale(domain=domain, range=[WINDOW_COLOUR, INK]),
                        legend=alt.Legend(title="difference"))
-    layers: list[alt.Chart] = [_chart(pd.DataFrame([{"y": 0.0}])).mark_rule(color=INK, strokeWidth=1.5)
+    layers: list[alt.Chart] = [base_chart(pd.DataFrame([{"y": 0.0}])).mark_rule(color=INK, strokeWidth=1.5)
                                .encode(y=alt.Y("y:Q"))]
     if row is not None:
         mf = difference_frame(row)  # the difference chart's own table (shared with it in the report)
-        layers.append(_chart(mf).mark_area(opacity=0.18, color=INK).encode(
+        layers.append(base_chart(mf).mark_area(opacity=0.18, color=INK).encode(
             x=alt.X("x:Q"), y=alt.Y("lower:Q", title=ytitle), y2=alt.Y2("upper")))
-        layers.append(_chart(mf).transform_calculate(what="'model'").mark_line(strokeWidth=3).encode(
+        layers.append(base_chart(mf).transform_calculate(what="'model'").mark_line(strokeWidth=3).encode(
             x=alt.X("x:Q"), y=alt.Y("difference:Q"), color=colour))
     elif len(df):
-        layers.append(_chart(df.sort_values("median").assign(what="model")).mark_line(strokeWidth=3).encode(
+        layers.append(base_chart(df.sort_values("median").assign(what="model")).mark_line(strokeWidth=3).encode(
             x=alt.X("median:Q"), y=alt.Y("model:Q", title=ytitle), color=colour))
     est = df.dropna(subset=["difference"]).assign(what="sliding window (no model)")
     if len(est):
@@ -216,17 +216,17 @@ def sliding_window_chart(check: Mapping[str, Any], arms: Sequence[str], row: Map
                 alt.Tooltip("n_second:Q", title=f"{arms[1]} patients"),
                 alt.Tooltip("difference:Q", format=".3~g"), alt.Tooltip("lower:Q", format=".3~g"),
                 alt.Tooltip("upper:Q", format=".3~g"), alt.Tooltip("model:Q", format=".3~g", title="model")]
-        layers.append(_chart(est).mark_rule(strokeWidth=2, opacity=0.8).encode(
+        layers.append(base_chart(est).mark_rule(strokeWidth=2, opacity=0.8).encode(
             x=x, y=alt.Y("lower:Q", title=ytitle), y2=alt.Y2("upper"), color=colour))
-        layers.append(_chart(est).mark_point(filled=True, size=70, opacity=1).encode(
+        layers.append(base_chart(est).mark_point(filled=True, size=70, opacity=1).encode(
             x=x, y=alt.Y("difference:Q", title=ytitle), color=colour, tooltip=tips))
-    chart = _sized(alt.layer(*layers), WIDTH, HEIGHT)
+    chart = sized_chart(alt.layer(*layers), WIDTH, HEIGHT)
     label = index_label or (index_label_of(row) if row is not None else check.get("index"))
     win = check.get("window") or {}
     title = f"Sliding windows: {check.get('measure', check.get('outcome'))} along {label}"
     sub = (f"windows of {win.get('patients', '?')} patients ordered on the index, moving by {win.get('step', '?')}; "
            f"above zero favours {arms[0]}")
-    return _finish(chart, title, sub, describe_sliding_window(check, arms, label), style)
+    return finish_chart(chart, title, sub, describe_sliding_window(check, arms, label), style)
 
 
 def describe_sliding_window(check: Mapping[str, Any], arms: Sequence[str], index_label: str | None = None) -> str:
@@ -263,7 +263,7 @@ def horizon_frame(check: Mapping[str, Any], low: float | None = None, high: floa
                                        "at_risk_first", "at_risk_second", "follow_up", "spec_horizon"])
 
 
-@_quick
+@quick_chart
 def horizon_chart(check: Mapping[str, Any], arms: Sequence[str], row: Mapping[str, Any] | None = None, *,
                   index_label: str | None = None, units: str | None = None,
                   style: bool = True) -> alt.TopLevelMixin:
@@ -289,25 +289,25 @@ def horizon_chart(check: Mapping[str, Any], arms: Sequence[str], row: Mapping[st
     layers: list[alt.Chart] = []
     spec_h = df[df["spec_horizon"]]
     if len(spec_h):
-        layers.append(_chart(spec_h[["horizon"]].assign(what="the spec's horizon")).mark_rule(
+        layers.append(base_chart(spec_h[["horizon"]].assign(what="the spec's horizon")).mark_rule(
             color=INK, strokeDash=[5, 4]).encode(x=alt.X("horizon:Q"), tooltip=[alt.Tooltip("what:N")]))
     if len(found):
         tips = [alt.Tooltip("horizon:Q", format=".4~g"), alt.Tooltip("break_even:Q", format=".3~g"),
                 alt.Tooltip("lower:Q", format=".3~g"), alt.Tooltip("upper:Q", format=".3~g"),
                 alt.Tooltip("at_risk_first:Q", title=f"{arms[0]} at risk"),
                 alt.Tooltip("at_risk_second:Q", title=f"{arms[1]} at risk")]
-        layers.append(_chart(found).mark_line(strokeWidth=2, color=INK, opacity=0.5).encode(x=x, y=y))
-        layers.append(_chart(found).mark_rule(strokeWidth=3).encode(
+        layers.append(base_chart(found).mark_line(strokeWidth=2, color=INK, opacity=0.5).encode(x=x, y=y))
+        layers.append(base_chart(found).mark_rule(strokeWidth=3).encode(
             x=x, y=alt.Y("lower_drawn:Q", scale=alt.Scale(domain=[low, high], zero=False)), y2=alt.Y2("upper_drawn"),
             color=colour))
-        layers.append(_chart(found).mark_point(filled=True, size=110, opacity=1).encode(x=x, y=y, color=colour,
+        layers.append(base_chart(found).mark_point(filled=True, size=110, opacity=1).encode(x=x, y=y, color=colour,
                                                                                          tooltip=tips))
     if not layers:
-        layers.append(_chart(pd.DataFrame([{"y": 0.0}])).mark_rule(opacity=0).encode(y=alt.Y("y:Q")))
-    chart = _sized(alt.layer(*layers), WIDTH, HEIGHT * 0.85)
+        layers.append(base_chart(pd.DataFrame([{"y": 0.0}])).mark_rule(opacity=0).encode(y=alt.Y("y:Q")))
+    chart = sized_chart(alt.layer(*layers), WIDTH, HEIGHT * 0.85)
     title = f"Break-even on {label} by horizon: {outcome_title(row) if row is not None else check.get('outcome')}"
     sub = "bars: intervals; grey: few patients left at risk; dashed: the spec's horizon"
-    return _finish(chart, title, sub, describe_horizon(check, label, units), style)
+    return finish_chart(chart, title, sub, describe_horizon(check, label, units), style)
 
 
 def describe_horizon(check: Mapping[str, Any], index_label: str | None = None, units: str | None = None) -> str:
@@ -399,7 +399,7 @@ def _km_layer(recs: Sequence[Mapping[str, Any]], arms: Sequence[str], *, units: 
     xs = alt.Scale(domain=[-0.05 * top, 1.02 * top], nice=False, zero=False)
     ys = alt.Scale(domain=[-AT_RISK_STEP * (len(arms) + 0.6), 1.0], nice=False, zero=False)
     x = alt.X("time:Q", scale=xs, title=f"time ({units})" if units else "time")
-    colour = alt.Color("arm:N", scale=_arm_scale(arms), legend=ARM_LEGEND)
+    colour = alt.Color("arm:N", scale=arm_scale(arms), legend=ARM_LEGEND)
     base = alt.Chart()
     of = lambda part: base.transform_filter(alt.datum.part == part)  # noqa: E731
     layers = _km_steps(of("step"), x, colour, 2.5, ys)
@@ -411,10 +411,10 @@ def _km_layer(recs: Sequence[Mapping[str, Any]], arms: Sequence[str], *, units: 
     if horizon:  # one rule per panel, at a constant
         layers.append(of("base").mark_rule(color=INK, strokeDash=[5, 4]).encode(
             x=alt.XDatum(float(horizon), type="quantitative", scale=xs)))
-    return _sized(alt.layer(*layers), *size)
+    return sized_chart(alt.layer(*layers), *size)
 
 
-@_quick
+@quick_chart
 def kaplan_meier_chart(curves: Sequence[Mapping[str, Any]], arms: Sequence[str], *, band: str | None = None,
                        units: str | None = None, horizon: float | None = None, label: str | None = None,
                        style: bool = True) -> alt.TopLevelMixin:
@@ -426,12 +426,12 @@ def kaplan_meier_chart(curves: Sequence[Mapping[str, Any]], arms: Sequence[str],
     chart.data = alt.InlineData(values=recs)
     outcome = label or (rows[0]["outcome"] if rows else "")
     where = "all patients" if band is None else f"index band {band}"
-    return _finish(chart, f"{outcome}: Kaplan-Meier by arm, {where}",
+    return finish_chart(chart, f"{outcome}: Kaplan-Meier by arm, {where}",
                    "numbers at risk beneath the curves; dashed line: the horizon" if horizon
                    else "numbers at risk beneath the curves", describe_km(rows, units=units, horizon=horizon), style)
 
 
-@_quick
+@quick_chart
 def kaplan_meier_bands_chart(curves: Sequence[Mapping[str, Any]], arms: Sequence[str], *, index_label: str = "index",
                              units: str | None = None, horizon: float | None = None, columns: int = 2,
                              label: str | None = None, style: bool = True) -> alt.TopLevelMixin:
@@ -445,7 +445,7 @@ def kaplan_meier_bands_chart(curves: Sequence[Mapping[str, Any]], arms: Sequence
     outcome = label or (curves[0]["outcome"] if curves else "")
     desc = " ".join(f"{index_label} {b}: " + describe_km(_km_rows(curves, b), units=units, horizon=horizon)
                     for b in bands)
-    return _finish(chart, f"{outcome}: Kaplan-Meier by arm in bands of {index_label}",
+    return finish_chart(chart, f"{outcome}: Kaplan-Meier by arm in bands of {index_label}",
                    "numbers at risk beneath the curves in each panel", desc or "No bands.", style)
 
 
@@ -489,7 +489,7 @@ def baseline_frame(table: Sequence[Mapping[str, Any]]) -> pd.DataFrame:
     return pd.DataFrame(recs)
 
 
-@_quick
+@quick_chart
 def smd_chart(table: Sequence[Mapping[str, Any]], *, style: bool = True) -> alt.TopLevelMixin:
     """Standardised mean differences of every baseline covariate in every comparison, with the 0.1 lines."""
     df = pd.DataFrame([{"covariate": words(r["covariate"]), "comparison": f"{s['compare']} ({s['among']})",
@@ -502,9 +502,9 @@ def smd_chart(table: Sequence[Mapping[str, Any]], *, style: bool = True) -> alt.
     shapes = ["circle", "square", "triangle-up", "diamond", "cross", "triangle-down"]
     limit = max([0.25] + [abs(float(v)) * 1.1 for v in df["smd"]])
     refs = pd.DataFrame([{"x": v} for v in (-0.1, 0.1)])
-    layers = [_chart(pd.DataFrame([{"x": 0.0}])).mark_rule(color=INK).encode(x=alt.X("x:Q")),
-              _chart(refs).mark_rule(color=INK, strokeDash=[5, 4]).encode(x=alt.X("x:Q")),
-              _chart(df).mark_point(filled=True, size=110, opacity=0.9).encode(
+    layers = [base_chart(pd.DataFrame([{"x": 0.0}])).mark_rule(color=INK).encode(x=alt.X("x:Q")),
+              base_chart(refs).mark_rule(color=INK, strokeDash=[5, 4]).encode(x=alt.X("x:Q")),
+              base_chart(df).mark_point(filled=True, size=110, opacity=0.9).encode(
                   x=alt.X("smd:Q", title="standardised mean difference", scale=alt.Scale(domain=[-limit, limit])),
                   y=alt.Y("covariate:N", title=None, sort=list(dict.fromkeys(df["covariate"]))),
                   color=alt.Color("comparison:N", scale=alt.Scale(domain=comparisons,
@@ -513,8 +513,8 @@ def smd_chart(table: Sequence[Mapping[str, Any]], *, style: bool = True) -> alt.
                   shape=alt.Shape("comparison:N", scale=alt.Scale(domain=comparisons, range=shapes[:len(comparisons)])),
                   tooltip=[alt.Tooltip("covariate:N"), alt.Tooltip("comparison:N"),
                            alt.Tooltip("smd:Q", format=".3f"), alt.Tooltip("flag:N")])]
-    chart = _sized(alt.layer(*layers), WIDTH, max(120, 34 * df["covariate"].nunique()))
-    return _finish(chart, "Balance of baseline characteristics", "dashed lines: standardised mean difference 0.1",
+    chart = sized_chart(alt.layer(*layers), WIDTH, max(120, 34 * df["covariate"].nunique()))
+    return finish_chart(chart, "Balance of baseline characteristics", "dashed lines: standardised mean difference 0.1",
                    describe_baseline(table), style)
 
 

@@ -112,7 +112,7 @@ def styled(chart: alt.TopLevelMixin) -> alt.TopLevelMixin:
     return chart
 
 
-def _finish(chart: alt.TopLevelMixin, title: str, subtitle: str | list[str] | None, description: str,
+def finish_chart(chart: alt.TopLevelMixin, title: str, subtitle: str | list[str] | None, description: str,
             style: bool) -> alt.TopLevelMixin:
     """Title, accessible description and (optionally) the projector look, set in place on a fresh chart."""
     if title:
@@ -127,7 +127,7 @@ _quiet_depth = 0
 _saved_debug = True
 
 
-def _quick(fn: Callable) -> Callable:
+def quick_chart(fn: Callable) -> Callable:
     """Build without Altair's per-object validation (specs are validated whole by to_dict when wanted).
 
     Altair keeps the switch in a module global; a counter under a lock restores it only when the last of
@@ -151,7 +151,7 @@ def _quick(fn: Callable) -> Callable:
     return run
 
 
-def _chart(data: pd.DataFrame) -> alt.Chart:
+def base_chart(data: pd.DataFrame) -> alt.Chart:
     """A chart over inline records (much faster to build and serialise than Altair's frame handling)."""
     return alt.Chart(alt.InlineData(values=_records(data)))
 
@@ -168,12 +168,12 @@ def _native(v: Any) -> Any:
     return v.item() if isinstance(v, np.generic) else v
 
 
-def _sized(chart: alt.TopLevelMixin, width: float, height: float) -> alt.TopLevelMixin:
+def sized_chart(chart: alt.TopLevelMixin, width: float, height: float) -> alt.TopLevelMixin:
     chart.width, chart.height = width, height
     return chart
 
 
-def _arm_scale(arms: Sequence[str]) -> alt.Scale:
+def arm_scale(arms: Sequence[str]) -> alt.Scale:
     c = arm_colours(arms)
     return alt.Scale(domain=list(arms), range=[c[a] for a in arms])
 
@@ -192,7 +192,7 @@ def vega_lite_version() -> str:
 
 
 @lru_cache(maxsize=1)
-def _vl_version() -> str | None:
+def converter_version() -> str | None:
     import vl_convert as vlc
 
     want = vega_lite_version()
@@ -202,10 +202,10 @@ def _vl_version() -> str | None:
 def chart_to_svg(chart: alt.TopLevelMixin) -> str:
     import vl_convert as vlc
 
-    return vlc.vegalite_to_svg(chart_spec(chart), vl_version=_vl_version())
+    return vlc.vegalite_to_svg(chart_spec(chart), vl_version=converter_version())
 
 
 def chart_to_png(chart: alt.TopLevelMixin, scale: float = 2.0) -> bytes:
     import vl_convert as vlc
 
-    return vlc.vegalite_to_png(chart_spec(chart), vl_version=_vl_version(), scale=scale)
+    return vlc.vegalite_to_png(chart_spec(chart), vl_version=converter_version(), scale=scale)

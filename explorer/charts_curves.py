@@ -9,13 +9,11 @@ import altair as alt
 import numpy as np
 import pandas as pd
 
-from .charts_common import (ALLOCATION_SHAPES, ALLOCATION_SIZES, ARM_LEGEND, AXIS_CHARS, FONT, HEIGHT, WIDTH, _arm_scale,
-                            _chart, _finish, _quick, _sized, index_label_of, thinned, is_discrete, is_probability, measure_title,
+from .charts_common import (ALLOCATION_SHAPES, ALLOCATION_SIZES, ARM_LEGEND, AXIS_CHARS, FONT, HEIGHT, WIDTH, arm_scale,
+                            base_chart, finish_chart, quick_chart, sized_chart, index_label_of, thinned, is_discrete, is_probability, measure_title,
                             outcome_title, x_title)
 from .look import INK, MUTED, NEUTRAL, OKABE_ITO, PAPER, arm_colours, text_on
 from .margins import side_words
-from .models import describe
-from .sampling import plot_sample, sample_note
 from .words import cap, fmt, interval_words, level_span, levels_within, words, wrap
 
 
@@ -125,13 +123,13 @@ def _strip_layers(row: Mapping[str, Any], arms: Sequence[str], domain: tuple[flo
                      "ink": text_on(fill), "region": words_, "words": words_ if fits else ""})
     df = pd.DataFrame(recs)
     y0, y1 = HEIGHT + STRIP_BAND[0], HEIGHT + STRIP_BAND[1]
-    layers = [_chart(df).mark_rect(stroke=PAPER, strokeWidth=1).encode(
+    layers = [base_chart(df).mark_rect(stroke=PAPER, strokeWidth=1).encode(
         x=alt.X("from:Q"), x2=alt.X2("to"), y=alt.value(y0), y2=alt.value(y1),
         fill=alt.Fill("fill:N", scale=None),
         tooltip=[alt.Tooltip("region:N", title="difference"), alt.Tooltip("from:Q", format=".3~g"),
                  alt.Tooltip("to:Q", format=".3~g")])]
     for ink, part in df[df["words"] != ""].groupby("ink"):
-        layers.append(_chart(part).mark_text(fontSize=FONT["text"] - 1, color=ink, baseline="middle").encode(
+        layers.append(base_chart(part).mark_text(fontSize=FONT["text"] - 1, color=ink, baseline="middle").encode(
             x=alt.X("mid:Q"), y=alt.value((y0 + y1) / 2), text=alt.Text("words:N")))
     return layers + _break_even_layers(row, domain)
 
@@ -161,33 +159,33 @@ def _break_even_layers(row: Mapping[str, Any], domain: tuple[float, float]) -> l
     mdf, sdf = pd.DataFrame(marks), pd.DataFrame(segs)
     tip = [alt.Tooltip("label:N", title="break-even"), alt.Tooltip("interval:N", title="interval")]
     layers = [
-        _chart(mdf).mark_rule(color=INK, strokeWidth=1.5, opacity=0.8).encode(
+        base_chart(mdf).mark_rule(color=INK, strokeWidth=1.5, opacity=0.8).encode(
             x=alt.X("x:Q"), y=alt.value(0), y2=alt.value(HEIGHT + STRIP_BAND[1]), strokeDash=dash, tooltip=tip),
     ]
     if len(sdf):
-        layers.append(_chart(sdf).mark_rule(color=INK, strokeWidth=3).encode(
+        layers.append(base_chart(sdf).mark_rule(color=INK, strokeWidth=3).encode(
             x=alt.X("from:Q"), x2=alt.X2("to"), y=alt.Y("y:Q", scale=None), strokeDash=dash))
         ends = pd.concat([sdf.assign(end=sdf["from"])[sdf["left"] == ""], sdf.assign(end=sdf["to"])[sdf["right"] == ""]])
         if len(ends):
-            layers.append(_chart(ends).mark_tick(color=INK, thickness=2, size=12, orient="vertical").encode(
+            layers.append(base_chart(ends).mark_tick(color=INK, thickness=2, size=12, orient="vertical").encode(
                 x=alt.X("end:Q"), y=alt.Y("y:Q", scale=None)))
-    layers.append(_chart(mdf).mark_point(shape="diamond", filled=True, size=170, color=INK, opacity=1,
+    layers.append(base_chart(mdf).mark_point(shape="diamond", filled=True, size=170, color=INK, opacity=1,
                                          stroke=PAPER, strokeWidth=1.5).encode(
         x=alt.X("x:Q"), y=alt.Y("y:Q", scale=None), tooltip=tip))
     mdf["side"] = ["right" if x > domain[0] + 0.6 * (domain[1] - domain[0]) else "left" for x in mdf["x"]]
     for side, part in mdf.groupby("side"):  # words on the roomier side of the diamond
-        layers.append(_chart(part).mark_text(align=side, dx=-9 if side == "right" else 9, dy=-7,
+        layers.append(base_chart(part).mark_text(align=side, dx=-9 if side == "right" else 9, dy=-7,
                                              fontSize=FONT["text"] - 1, color=INK, baseline="bottom",
                                              fontWeight="bold").encode(
             x=alt.X("x:Q"), y=alt.Y("y:Q", scale=None), text=alt.Text("label:N")))
     if arrows:
         adf = pd.DataFrame(arrows)
-        layers.append(_chart(adf).mark_point(filled=True, size=110, color=INK, opacity=1).encode(
+        layers.append(base_chart(adf).mark_point(filled=True, size=110, color=INK, opacity=1).encode(
             x=alt.X("x:Q"), y=alt.Y("y:Q", scale=None), shape=alt.Shape("shape:N", scale=None)))
         for side, dx in (("left", 6), ("right", -6)):
             part = adf[adf["align"] == side]
             if len(part):
-                layers.append(_chart(part).mark_text(fontSize=FONT["text"] - 3, color=MUTED, dy=12, dx=dx,
+                layers.append(base_chart(part).mark_text(fontSize=FONT["text"] - 3, color=MUTED, dy=12, dx=dx,
                                                         align=side).encode(
                     x=alt.X("x:Q"), y=alt.Y("y:Q", scale=None), text=alt.Text("text:N")))
     return layers
@@ -201,9 +199,9 @@ def patient_layers(patient: Mapping[str, Any] | None) -> list[alt.Chart]:
         return []
     label = str(patient.get("label") or f"this patient ({fmt(x)})")
     df = pd.DataFrame([{"x": float(x), "label": label}])
-    return [_chart(df).mark_rule(color=OKABE_ITO["black"], strokeWidth=3, strokeDash=[2, 3]).encode(
+    return [base_chart(df).mark_rule(color=OKABE_ITO["black"], strokeWidth=3, strokeDash=[2, 3]).encode(
                 x=alt.X("x:Q"), tooltip=[alt.Tooltip("label:N", title="patient")]),
-            _chart(df).mark_text(align="left", dx=6, fontSize=FONT["text"], fontWeight="bold", color="#000000")
+            base_chart(df).mark_text(align="left", dx=6, fontSize=FONT["text"], fontWeight="bold", color="#000000")
             .encode(x=alt.X("x:Q"), y=alt.value(40), text=alt.Text("label:N"))]
 
 
@@ -213,9 +211,9 @@ def _points_layers(points: pd.DataFrame | None, arms: Sequence[str]) -> list[alt
         return []
     df = points.loc[:, [c for c in ("x", "y", "arm", "allocation") if c in points.columns]].copy()
     if "allocation" not in df.columns:  # allocation unknown: plain small dots, no randomised/chosen legend
-        return [_chart(df).mark_point(filled=True, opacity=0.35, strokeWidth=0, size=ALLOCATION_SIZES["chosen"])
+        return [base_chart(df).mark_point(filled=True, opacity=0.35, strokeWidth=0, size=ALLOCATION_SIZES["chosen"])
                 .encode(x=alt.X("x:Q"), y=alt.Y("y:Q"),
-                        color=alt.Color("arm:N", scale=_arm_scale(arms), legend=ARM_LEGEND))]
+                        color=alt.Color("arm:N", scale=arm_scale(arms), legend=ARM_LEGEND))]
     domain = list(ALLOCATION_SHAPES)
     shape = alt.Shape("allocation:N", scale=alt.Scale(domain=domain, range=[ALLOCATION_SHAPES[d] for d in domain]),
                       legend=alt.Legend(title="patients", symbolFillColor="#666666", symbolStrokeColor="#666666",
@@ -224,14 +222,14 @@ def _points_layers(points: pd.DataFrame | None, arms: Sequence[str]) -> list[alt
     for allocation in domain:
         part = df[df["allocation"] == allocation]
         if len(part):
-            out.append(_chart(part).mark_point(filled=True, opacity=0.35, strokeWidth=0,
+            out.append(base_chart(part).mark_point(filled=True, opacity=0.35, strokeWidth=0,
                                                size=ALLOCATION_SIZES[allocation]).encode(
-                x=alt.X("x:Q"), y=alt.Y("y:Q"), color=alt.Color("arm:N", scale=_arm_scale(arms), legend=ARM_LEGEND),
+                x=alt.X("x:Q"), y=alt.Y("y:Q"), color=alt.Color("arm:N", scale=arm_scale(arms), legend=ARM_LEGEND),
                 shape=shape))
     return out
 
 
-@_quick
+@quick_chart
 def outcome_chart(row: Mapping[str, Any], arms: Sequence[str], points: pd.DataFrame | None = None,
                   patient: Mapping[str, Any] | None = None, *, index_label: str | None = None,
                   style: bool = True) -> alt.TopLevelMixin:
@@ -244,13 +242,13 @@ def outcome_chart(row: Mapping[str, Any], arms: Sequence[str], points: pd.DataFr
     cf = curve_frame(row, arms)
     yscale = alt.Scale(domain=[0, 1]) if is_probability(row) else alt.Scale(zero=False)
     ytitle = measure_title(row)
-    colour = alt.Color("arm:N", scale=_arm_scale(arms), legend=ARM_LEGEND)
+    colour = alt.Color("arm:N", scale=arm_scale(arms), legend=ARM_LEGEND)
     layers: list[alt.Chart] = []
     layers += _points_layers(points, arms)
     if cf["lower"].notna().any():
-        layers.append(_chart(cf).mark_area(opacity=0.2).encode(
+        layers.append(base_chart(cf).mark_area(opacity=0.2).encode(
             x=_x_axis(row, index_label), y=alt.Y("lower:Q", scale=yscale, title=wrap(ytitle, AXIS_CHARS)), y2=alt.Y2("upper"), color=colour))
-    layers.append(_chart(cf).mark_line(strokeWidth=3.5).encode(
+    layers.append(base_chart(cf).mark_line(strokeWidth=3.5).encode(
         x=_x_axis(row, index_label),
         y=alt.Y("estimate:Q", scale=yscale, title=wrap(ytitle, AXIS_CHARS)), color=colour,
         tooltip=[alt.Tooltip("arm:N"), alt.Tooltip("x:Q", format=".3~g", title="index"),
@@ -258,11 +256,11 @@ def outcome_chart(row: Mapping[str, Any], arms: Sequence[str], points: pd.DataFr
                  alt.Tooltip("upper:Q", format=".3~g")]))
     layers += _strip_layers(row, arms, domain)
     layers += patient_layers(patient)
-    chart = _sized(alt.layer(*layers), WIDTH, HEIGHT)
+    chart = sized_chart(alt.layer(*layers), WIDTH, HEIGHT)
     title = f"{cap(outcome_title(row))} along {index_label_of(row, index_label)}"
     subtitle = (f"{arms[0]} (blue) and {arms[1]} (orange), each with its interval as a band; the strip beneath "
                 "shows where the difference is clear and the break-even point on its interval")
-    return _finish(chart, title, subtitle, describe_row(row, arms, index_label), style)
+    return finish_chart(chart, title, subtitle, describe_row(row, arms, index_label), style)
 
 
 def _x_axis(row: Mapping[str, Any], override: str | None = None) -> alt.X:
@@ -272,7 +270,7 @@ def _x_axis(row: Mapping[str, Any], override: str | None = None) -> alt.X:
                  title=x_title(row, override), axis=axis)
 
 
-@_quick
+@quick_chart
 def difference_chart(row: Mapping[str, Any], arms: Sequence[str], *, margin: float = 0.0,
                      index_label: str | None = None, style: bool = True) -> alt.TopLevelMixin:
     """The difference (first minus second, oriented so above zero favours the first arm) with its band; the row's
@@ -284,29 +282,29 @@ def difference_chart(row: Mapping[str, Any], arms: Sequence[str], *, margin: flo
     if not row.get("higher_is_better", True):
         ytitle += " (sign flipped: lower is better)"
     layers: list[alt.Chart] = []
-    layers.append(_chart(df).mark_area(opacity=0.25, color=INK).encode(
+    layers.append(base_chart(df).mark_area(opacity=0.25, color=INK).encode(
         x=_x_axis(row, index_label), y=alt.Y("lower:Q", title=wrap(ytitle, AXIS_CHARS)), y2=alt.Y2("upper")))
     refs = pd.DataFrame([{"y": 0.0, "label": "no difference", "dash": False}]
                         + ([{"y": float(margin), "label": f"margin {fmt(margin)}", "dash": True}] if margin else []))
     for dashed, part in refs.groupby("dash"):
-        rule = _chart(part).mark_rule(color=INK, strokeWidth=2, strokeDash=[6, 4] if dashed else [1, 0])
+        rule = base_chart(part).mark_rule(color=INK, strokeWidth=2, strokeDash=[6, 4] if dashed else [1, 0])
         layers.append(rule.encode(y=alt.Y("y:Q")))
-        layers.append(_chart(part).mark_text(align="right", dy=-8, fontSize=FONT["text"], color=INK).encode(
+        layers.append(base_chart(part).mark_text(align="right", dy=-8, fontSize=FONT["text"], color=INK).encode(
             y=alt.Y("y:Q"), x=alt.value(WIDTH - 4), text=alt.Text("label:N")))
-    layers.append(_chart(df).mark_line(strokeWidth=3.5, color=OKABE_ITO["black"]).encode(
+    layers.append(base_chart(df).mark_line(strokeWidth=3.5, color=OKABE_ITO["black"]).encode(
         x=alt.X("x:Q"), y=alt.Y("difference:Q"),
         tooltip=[alt.Tooltip("x:Q", format=".3~g", title="index"), alt.Tooltip("difference:Q", format=".3~g"),
                  alt.Tooltip("lower:Q", format=".3~g"), alt.Tooltip("upper:Q", format=".3~g")]))
     layers += _strip_layers(row, arms, domain)
-    chart = _sized(alt.layer(*layers), WIDTH, HEIGHT)
+    chart = sized_chart(alt.layer(*layers), WIDTH, HEIGHT)
     band = row.get("regions_band", "pointwise")
     title = f"Difference in {outcome_title(row)} along {index_label_of(row, index_label)}"
     subtitle = (f"above zero favours {arms[0]}, below favours {arms[1]}; grey band: {band} interval; the strip "
                 "beneath shows where the difference is clear")
-    return _finish(chart, title, subtitle, describe_row(row, arms, index_label, margin=margin), style)
+    return finish_chart(chart, title, subtitle, describe_row(row, arms, index_label, margin=margin), style)
 
 
-@_quick
+@quick_chart
 def composite_chart(row: Mapping[str, Any], arms: Sequence[str], points: pd.DataFrame | None = None,
                     patient: Mapping[str, Any] | None = None, *, index_label: str | None = None,
                     style: bool = True) -> alt.TopLevelMixin:
@@ -319,7 +317,7 @@ def composite_chart(row: Mapping[str, Any], arms: Sequence[str], points: pd.Data
         sub = f"{sub} ({who}'s values)" if sub else f"{who}'s values"
     what = row.get("label") or f"Value of outcomes ({words(row.get('kind', 'composite'))})"
     title = f"{what} along {index_label_of(row, index_label)}"
-    return _finish(chart, title, [sub] if sub else None, describe_row(row, arms, index_label), style)
+    return finish_chart(chart, title, [sub] if sub else None, describe_row(row, arms, index_label), style)
 
 
 def _break_even_words(b: Mapping[str, Any], discrete: bool, margin: float, arms: Sequence[str] = ()) -> str:
@@ -427,7 +425,7 @@ def curve_table(row: Mapping[str, Any], arms: Sequence[str], every: int = 1) -> 
     return pd.DataFrame(recs)
 
 
-@_quick
+@quick_chart
 def index_distribution_chart(data: pd.DataFrame | Sequence[float] | np.ndarray, *, arms: Sequence[str] | None = None,
                              label: str = "index", discrete: bool | None = None, patient_x: float | None = None,
                              style: bool = True) -> alt.TopLevelMixin:
@@ -450,74 +448,18 @@ def index_distribution_chart(data: pd.DataFrame | Sequence[float] | np.ndarray, 
         step = (hi - lo) / 1000 or 1.0
         df = df.assign(x=lo + np.round((df["x"].astype(float) - lo) / step) * step)
     counts = df.groupby(["x", "arm"] if has_arm else ["x"], observed=True).size().rename("patients").reset_index()
-    colour = (alt.Color("arm:N", scale=_arm_scale(arms), legend=alt.Legend(title="arm")) if has_arm
+    colour = (alt.Color("arm:N", scale=arm_scale(arms), legend=alt.Legend(title="arm")) if has_arm
               else alt.value(INK))
     xenc = (alt.X("x:O", title=label) if discrete else alt.X("x:Q", bin=alt.Bin(maxbins=30), title=label))
-    base = _chart(counts).mark_bar(opacity=0.85).encode(
+    base = base_chart(counts).mark_bar(opacity=0.85).encode(
         x=xenc, y=alt.Y("sum(patients):Q", title="patients", stack=True), color=colour,
         tooltip=[alt.Tooltip("sum(patients):Q", title="patients")] + ([alt.Tooltip("arm:N")] if has_arm else []))
     layers: list[alt.Chart] = [base]
     if patient_x is not None:
         pdf = pd.DataFrame([{"x": float(patient_x), "label": f"this patient ({fmt(patient_x)})"}])
         xr = alt.X("x:O") if discrete else alt.X("x:Q")
-        layers.append(_chart(pdf).mark_rule(color="#000000", strokeWidth=3, strokeDash=[2, 3]).encode(x=xr))
-    chart = _sized(alt.layer(*layers), WIDTH, HEIGHT * 0.7)
+        layers.append(base_chart(pdf).mark_rule(color="#000000", strokeWidth=3, strokeDash=[2, 3]).encode(x=xr))
+    chart = sized_chart(alt.layer(*layers), WIDTH, HEIGHT * 0.7)
     desc = (f"Histogram of {label} over {n} patients"
             + (f", from {fmt(df['x'].min())} to {fmt(df['x'].max())}" if n else "") + ".")
-    return _finish(chart, f"{label}: how the cohort is spread", f"{n} patients", desc, style)
-
-
-def cohort_points(fs: Any, outcome: str, index: str, *, max_points: int = 1500, seed: int = 0) -> pd.DataFrame:
-    """Each patient's index value and outcome on the measure's scale (x, y, arm, allocation), no identifiers.
-
-    Survival: 1 alive at the horizon, 0 died before it (censored earlier left out; RMST: time capped at the
-    horizon). Ordinal: 1 in a favourable level. 0/1 outcomes are jittered a little so they can be seen.
-    Above `max_points` patients a seeded sample is drawn, each arm keeping its share (sampling.plot_sample),
-    and attrs["sample_note"] holds the sentence to show beside the chart; the models use every patient.
-    """
-
-    spec = fs.spec
-    pf = fs.pair(outcome, index)
-    o = pf.outcome
-    frame = fs.cohort.frame
-    arms = list(pf.rows)
-    xs, ys, codes, positions = [], [], [], []
-    facts = describe(o)
-    for k, (arm, rows) in enumerate(pf.rows.items()):
-        d = pf.data[arm]
-        x = np.asarray(d.x, float)
-        if facts.follow_up:
-            t, e = np.asarray(d.time, float), np.asarray(d.event, float)
-            if not facts.probability:  # restricted mean survival
-                keep, y = (t >= o.horizon) | (e == 1), np.minimum(t, o.horizon)
-            else:
-                keep, y = (t >= o.horizon) | (e == 1), (t >= o.horizon).astype(float)
-        elif facts.levels:
-            fav = [facts.levels.index(lv) for lv in facts.favourable]
-            keep, y = np.ones(len(x), bool), np.isin(np.asarray(d.y), fav).astype(float)
-        else:
-            keep, y = np.ones(len(x), bool), np.asarray(d.y, float)
-        xs.append(x[keep])
-        ys.append(y[keep])
-        codes.append(np.full(int(keep.sum()), k))
-        positions.append(np.asarray(rows)[keep])
-    every = pd.DataFrame({"x": np.concatenate(xs), "y": np.concatenate(ys),
-                          "arm": pd.Categorical.from_codes(np.concatenate(codes), categories=arms),
-                          "row": np.concatenate(positions)})
-    df = plot_sample(every, max_points, seed=seed, by="arm").reset_index(drop=True)
-    rows = df.pop("row").to_numpy()
-    df["arm"] = df["arm"].astype(str).astype(object)
-    randomised = getattr(fs.cohort, "randomised", None)
-    if randomised is not None:
-        df["allocation"] = np.where(np.asarray(randomised, bool)[rows], "randomised", "chosen")
-    elif spec.cohort.allocation:
-        df["allocation"] = np.where(frame[spec.cohort.allocation].iloc[rows].astype(str).to_numpy()
-                                    == str(spec.cohort.randomised), "randomised", "chosen")
-    rng = np.random.default_rng(seed)  # without an allocation column nobody is drawn as randomised
-    if facts.probability:  # 0/1 values: jittered off the edges so overlapping patients show
-        df["y"] = df["y"] + np.where(df["y"] > 0.5, -1, 1) * rng.uniform(0, 0.04, len(df))
-    ix = fs.indices[index]
-    if bool((ix.info or {}).get("discrete")):
-        df["x"] = df["x"] + rng.uniform(-0.2, 0.2, len(df))
-    df.attrs["sample_note"] = sample_note(len(every), len(df), seed)
-    return df
+    return finish_chart(chart, f"{label}: how the cohort is spread", f"{n} patients", desc, style)

@@ -48,7 +48,7 @@ def evidence_chart(row: Mapping[str, Any], index_label: str, *, width: int = 620
     chart = alt.layer(*layers).properties(width=width, height=height)
     subtitle = ("Expected loss from choosing by today's estimates instead of the truth; dotted line: the threshold; "
                 "bar along the foot: where it is exceeded")
-    return cc._finish(chart, evidence_title(row), subtitle, row["sentence"], style)
+    return cc.finish_chart(chart, evidence_title(row), subtitle, row["sentence"], style)
 
 
 def evidence_table(row: Mapping[str, Any], every: int = 20) -> pd.DataFrame:
@@ -98,7 +98,7 @@ def plan_chart(doc: Mapping[str, Any], *, width: int = 560, height: int = 260, s
             x=x, y=y, color=colour, tooltip=["strategy words:N", "new_patients:Q",
                                              alt.Tooltip("chance:Q", format=".0%"), alt.Tooltip("width:Q", format=".3g")]),
     ).properties(width=width, height=height)
-    return cc._finish(chart, "How many more patients, recruited where?", doc["target"]["words"],
+    return cc.finish_chart(chart, "How many more patients, recruited where?", doc["target"]["words"],
                       " ".join(doc["summary"]), style)
 
 

@@ -7,9 +7,9 @@ import altair as alt
 import numpy as np
 import pandas as pd
 
-from .charts_common import AXIS_CHARS, FONT, WIDTH, _chart, _finish, _quick, _sized
+from .charts_common import AXIS_CHARS, FONT, WIDTH, base_chart, finish_chart, quick_chart, sized_chart
 from .look import INK, arm_colours
-from .maps import COMPOSITE, _labels, coefficient_table, describe_map
+from .maps import COMPOSITE, map_labels, coefficient_table, describe_map
 from .words import fmt, wrap
 
 
@@ -54,7 +54,7 @@ def _half_cell(row: Mapping[str, Any]) -> tuple[float, float]:
     return 0.51 * dx, 0.51 * dy
 
 
-@_quick
+@quick_chart
 def decision_map_chart(map_row: Mapping[str, Any], arms: Sequence[str], patient: Mapping[str, Any] | None = None, *,
                        style: bool = True) -> alt.TopLevelMixin:
     """The arm favoured over two indices (a maps row): solid where the interval excludes no difference, pale where
@@ -72,7 +72,7 @@ def decision_map_chart(map_row: Mapping[str, Any], arms: Sequence[str], patient:
     layers: list[alt.Chart] = []
     if len(cells):
         hx, hy = _half_cell(map_row)
-        layers.append(_chart(cells).transform_calculate(
+        layers.append(base_chart(cells).transform_calculate(
             x=f"datum.at_x - {hx!r}", x2=f"datum.at_x + {hx!r}", y=f"datum.at_y - {hy!r}", y2=f"datum.at_y + {hy!r}"
         ).mark_rect(strokeWidth=0).encode(
             x=alt.X("x:Q", scale=xscale, title=wrap(xt, AXIS_CHARS)), x2=alt.X2("x2"),
@@ -85,7 +85,7 @@ def decision_map_chart(map_row: Mapping[str, Any], arms: Sequence[str], patient:
                           for k, line in enumerate(map_row.get("contour") or []) for j, p in enumerate(line)],
                          columns=["x", "y", "line", "order"])
     if len(lines):
-        layers.append(_chart(lines).mark_line(color=INK, strokeWidth=3).encode(
+        layers.append(base_chart(lines).mark_line(color=INK, strokeWidth=3).encode(
             x=alt.X("x:Q", scale=xscale, title=wrap(xt, AXIS_CHARS)),
             y=alt.Y("y:Q", scale=yscale, title=wrap(yt, AXIS_CHARS)),
             detail="line:N", order="order:Q"))
@@ -93,24 +93,24 @@ def decision_map_chart(map_row: Mapping[str, Any], arms: Sequence[str], patient:
     if point and point.get("x") is not None and point.get("y") is not None:
         label = str(point.get("label") or f"this patient ({fmt(point['x'])}, {fmt(point['y'])})")
         pdf = pd.DataFrame([{"x": float(point["x"]), "y": float(point["y"]), "label": label}])
-        layers.append(_chart(pdf).mark_point(shape="diamond", size=320, filled=True, color="#000000", opacity=1,
+        layers.append(base_chart(pdf).mark_point(shape="diamond", size=320, filled=True, color="#000000", opacity=1,
                                              stroke="#FFFFFF", strokeWidth=2).encode(
             x=alt.X("x:Q", scale=xscale), y=alt.Y("y:Q", scale=yscale),
             tooltip=[alt.Tooltip("label:N", title="patient")]))
-        layers.append(_chart(pdf).mark_text(align="left", dx=10, dy=-10, fontSize=FONT["text"], fontWeight="bold",
+        layers.append(base_chart(pdf).mark_text(align="left", dx=10, dy=-10, fontSize=FONT["text"], fontWeight="bold",
                                             color="#000000").encode(
             x=alt.X("x:Q", scale=xscale), y=alt.Y("y:Q", scale=yscale), text=alt.Text("label:N")))
     if not layers:
-        layers.append(_chart(pd.DataFrame([{"x": xs[0], "y": ys[0]}])).mark_point(opacity=0).encode(
+        layers.append(base_chart(pd.DataFrame([{"x": xs[0], "y": ys[0]}])).mark_point(opacity=0).encode(
             x=alt.X("x:Q", scale=xscale, title=xt), y=alt.Y("y:Q", scale=yscale, title=yt)))
-    chart = _sized(alt.layer(*layers), WIDTH, round(WIDTH * 0.75))
+    chart = sized_chart(alt.layer(*layers), WIDTH, round(WIDTH * 0.75))
     target = "the composite" if map_row["target"] == "composite" else map_row.get("measure") or map_row["target"]
     title = f"Which arm is favoured on {target}, over {xt.split(' (')[0]} and {yt.split(' (')[0]}"
     none = "the margin" if map_row.get("margin") else "no difference"
     subtitle = (f"solid: clearly favoured (interval excludes {none}); pale: not clearly; black line: "
                 "break-even; blank: too few patients")
     desc_row = dict(map_row, patient=point) if point is not map_row.get("patient") else map_row
-    return _finish(chart, title, subtitle, describe_map(desc_row, arms), style)
+    return finish_chart(chart, title, subtitle, describe_map(desc_row, arms), style)
 
 
 def map_sections(doc: Mapping[str, Any]) -> list[dict]:
@@ -118,7 +118,7 @@ def map_sections(doc: Mapping[str, Any]) -> list[dict]:
     arms = doc["arms"]
     out = []
     for row in doc.get("maps") or []:
-        a, b = _labels(row)
+        a, b = map_labels(row)
         target = "Composite" if row["target"] == COMPOSITE else row.get("measure") or row["target"]
         out.append({"title": f"Two indices: {target} over {a} and {b}",
                     "text": describe_map(row, arms), "chart": decision_map_chart(row, arms),

@@ -15,7 +15,7 @@ from typing import Any, Mapping, Sequence
 import altair as alt
 import pandas as pd
 
-from .charts_common import FONT, _chart, _finish, _quick, _sized, state_colours
+from .charts_common import FONT, base_chart, finish_chart, quick_chart, sized_chart, state_colours
 from .words import per_hundred, words
 from .look import ARM_COLOURS, ARM_INKS, INK, MUTED, PAPER, RULE
 
@@ -121,7 +121,7 @@ def per_hundred_words(counts: Mapping[str, Mapping[str, int]]) -> str:
                     for arm, c in counts.items())
 
 
-@_quick
+@quick_chart
 def per_hundred_chart(probabilities: Mapping[str, Mapping[str, float]], title: str,
                       colours: Mapping[str, str] | None = None, *, width: int = 600, key: bool = True,
                       subtitle: str | None = "each mark is one person in 100; a gap after every ten",
@@ -145,32 +145,32 @@ def per_hundred_chart(probabilities: Mapping[str, Mapping[str, float]], title: s
                                       columns=3) if key else None)
     px = alt.Scale(domain=[0, width], nice=False, zero=False)  # stretches with the chart; labels only gain room
     py = alt.Scale(domain=[0, lay.height], range=[0, lay.height])
-    layers = [_chart(marks).mark_rect(opacity=1, stroke=RULE, strokeWidth=0.4).encode(
+    layers = [base_chart(marks).mark_rect(opacity=1, stroke=RULE, strokeWidth=0.4).encode(
         x=alt.X("x0:Q", scale=px, axis=None), x2=alt.X2("x1"), y=alt.Y("y0:Q", scale=py, axis=None),
         y2=alt.Y2("y1"), fill=fill,
         tooltip=[alt.Tooltip("arm:N"), alt.Tooltip("state words:N", title="state"),
                  alt.Tooltip("of 100:Q", title="people of 100")])]
     labels = pd.DataFrame(lay.labels)
     if len(labels):
-        layers.append(_chart(labels).mark_rule(color=MUTED, strokeWidth=1).encode(
+        layers.append(base_chart(labels).mark_rule(color=MUTED, strokeWidth=1).encode(
             x=alt.X("x:Q", scale=px), y=alt.Y("leader_y0:Q", scale=py), y2=alt.Y2("leader_y1")))
         for halo in (True, False):  # a white halo first, so a leader passing behind a label never cuts its words
             look = {"stroke": PAPER, "strokeWidth": 5, "strokeJoin": "round", "color": PAPER} if halo else {"color": INK}
-            layers.append(_chart(labels).mark_text(align="left", baseline="alphabetic", dx=-1, fontSize=LABEL_SIZE,
+            layers.append(base_chart(labels).mark_text(align="left", baseline="alphabetic", dx=-1, fontSize=LABEL_SIZE,
                                                    **look).encode(
                 x=alt.X("x:Q", scale=px), y=alt.Y("y:Q", scale=py), text=alt.Text("text:N")))
     heads = pd.DataFrame(lay.arms)
     for _, h in heads.iterrows():
         one = pd.DataFrame([h.to_dict()])
-        layers.append(_chart(one).mark_text(align="left", baseline="alphabetic", fontSize=FONT["text"] + 1,
+        layers.append(base_chart(one).mark_text(align="left", baseline="alphabetic", fontSize=FONT["text"] + 1,
                                             fontWeight="bold", color=h["colour"], dx=14).encode(
             x=alt.X("x:Q", scale=px), y=alt.Y("y:Q", scale=py), text=alt.Text("text:N")))
-        layers.append(_chart(one).mark_rect(color=h["bar"]).encode(
+        layers.append(base_chart(one).mark_rect(color=h["bar"]).encode(
             x=alt.X("x:Q", scale=px), x2=alt.value(9), y=alt.Y("y:Q", scale=py),
             y2=alt.value(float(h["y"]) - 13)))
-    chart = _sized(alt.layer(*layers), width, lay.height)
+    chart = sized_chart(alt.layer(*layers), width, lay.height)
     desc = f"{title or 'Out of 100 people like this patient'}: {per_hundred_words(lay.counts)}"
-    return _finish(chart, title, subtitle, desc, style)
+    return finish_chart(chart, title, subtitle, desc, style)
 
 
 def counts_of(spec: Mapping[str, Any]) -> dict[str, dict[str, int]]:

@@ -8,7 +8,7 @@ import altair as alt
 import numpy as np
 import pandas as pd
 
-from .charts_common import (ARM_LEGEND, AXIS_CHARS, FONT, HEIGHT, WIDTH, _arm_scale, _chart, _finish, _quick, _sized,
+from .charts_common import (ARM_LEGEND, AXIS_CHARS, FONT, HEIGHT, WIDTH, arm_scale, base_chart, finish_chart, quick_chart, sized_chart,
                             thinned)
 from .charts_curves import patient_layers
 from .look import ARM_COLOURS, INK, arm_colours
@@ -20,7 +20,7 @@ SELECTION_SETS = (("randomised_break_even", "randomised patients only"), ("all_b
                   ("adjusted_break_even", "chosen patients, weighted"))
 
 
-def _selection_estimates(row: Mapping[str, Any]) -> list[dict]:
+def selection_estimates(row: Mapping[str, Any]) -> list[dict]:
     """Every break-even point of the randomised-only, all-patient and weighted fits, with intervals."""
     out = []
     for key, what in SELECTION_SETS:
@@ -54,7 +54,7 @@ def interval_pieces(x: float, lo: float | None, hi: float | None, shape: str | N
     return [(max(p, a), min(q, b), ol or p < a, orr or q > b) for p, q, ol, orr in pieces if min(q, b) >= max(p, a)]
 
 
-@_quick
+@quick_chart
 def selection_chart(row: Mapping[str, Any] | Sequence[Mapping[str, Any]], arms: Sequence[str] | None = None, *,
                     index_title: str | None = None, style: bool = True,
                     patient: Mapping[str, Any] | None = None) -> alt.TopLevelMixin:
@@ -77,12 +77,12 @@ def selection_chart(row: Mapping[str, Any] | Sequence[Mapping[str, Any]], arms: 
     first = rows[0] if rows else {}
     xt = index_title or str(first.get("index", "index"))
     x = alt.X("x:Q", title=xt, scale=alt.Scale(zero=False, nice=False))
-    layers: list[alt.Chart] = [_chart(pd.DataFrame([{"y": 0.0}])).mark_rule(color=INK, strokeWidth=2)
+    layers: list[alt.Chart] = [base_chart(pd.DataFrame([{"y": 0.0}])).mark_rule(color=INK, strokeWidth=2)
                                .encode(y=alt.Y("y:Q"))]
     if len(df):
-        layers.append(_chart(df).mark_area(opacity=0.2).encode(
+        layers.append(base_chart(df).mark_area(opacity=0.2).encode(
             x=x, y=alt.Y("lower:Q", title="chosen minus randomised"), y2=alt.Y2("upper"), color=colour))
-        layers.append(_chart(df).mark_line(strokeWidth=3.5).encode(
+        layers.append(base_chart(df).mark_line(strokeWidth=3.5).encode(
             x=x, y=alt.Y("effect:Q"), color=colour, detail=alt.Detail("arm:N"),
             strokeDash=alt.StrokeDash("randomised:N", scale=alt.Scale(domain=["enough", "few"], range=[[1, 0], [6, 4]]),
                                       legend=alt.Legend(title="randomised patients here")),
@@ -90,18 +90,18 @@ def selection_chart(row: Mapping[str, Any] | Sequence[Mapping[str, Any]], arms: 
                      alt.Tooltip("effect:Q", format=".3~g"), alt.Tooltip("lower:Q", format=".3~g"),
                      alt.Tooltip("upper:Q", format=".3~g")]))
     layers += patient_layers(patient)  # patient: {"x", "label"} as for outcome_chart
-    chart = _sized(alt.layer(*layers), WIDTH, HEIGHT * 0.8)
+    chart = sized_chart(alt.layer(*layers), WIDTH, HEIGHT * 0.8)
     who = " and ".join(str(r.get("arm")) for r in rows)
     title = f"Selection effect ({who}): {first.get('measure', first.get('outcome'))} along {xt}"
     sub = "chosen minus randomised patients in the same arm at the same index value; zero means none"
-    return _finish(chart, title, sub, " ".join(describe_selection(r) for r in rows), style)
+    return finish_chart(chart, title, sub, " ".join(describe_selection(r) for r in rows), style)
 
 
-@_quick
+@quick_chart
 def selection_break_even_chart(row: Mapping[str, Any], *, index_title: str | None = None,
                                style: bool = True) -> alt.TopLevelMixin:
     """Break-even points from randomised patients only, from all patients, and from weighted chosen patients."""
-    est = _selection_estimates(row)
+    est = selection_estimates(row)
     df = pd.DataFrame(est, columns=["estimate", "x", "lo", "hi", "shape"]).astype({"x": float, "lo": float, "hi": float})
     order = [w for _, w in SELECTION_SETS]
     shapes = ["triangle-up", "circle", "diamond"]
@@ -114,24 +114,24 @@ def selection_break_even_chart(row: Mapping[str, Any], *, index_title: str | Non
                            for e in est for p, q, ol, orr in interval_pieces(e["x"], e["lo"], e["hi"], e["shape"], span)],
                           columns=["estimate", "from", "to", "open", "edge"])
     scale = alt.Scale(domain=list(span), nice=False, zero=False, clamp=True)
-    layers = [_chart(pieces).mark_rule(strokeWidth=4, color=INK).encode(
+    layers = [base_chart(pieces).mark_rule(strokeWidth=4, color=INK).encode(
                   x=alt.X("from:Q", title=f"break-even on {xt}", scale=scale), x2=alt.X2("to"), y=y),
-              _chart(pieces[pieces["open"]]).mark_text(text="…", fontSize=22, color=INK, dy=-8).encode(
+              base_chart(pieces[pieces["open"]]).mark_text(text="…", fontSize=22, color=INK, dy=-8).encode(
                   x=alt.X("edge:Q", scale=scale), y=y),
-              _chart(df[(df["x"] >= span[0]) & (df["x"] <= span[1])]).mark_point(
+              base_chart(df[(df["x"] >= span[0]) & (df["x"] <= span[1])]).mark_point(
                   filled=True, size=260, color=INK, opacity=1).encode(
                   x=alt.X("x:Q", scale=scale), y=y,
                   shape=alt.Shape("estimate:N", legend=None, scale=alt.Scale(domain=order, range=shapes)),
                   tooltip=[alt.Tooltip("estimate:N"), alt.Tooltip("x:Q", format=".3~g"), alt.Tooltip("lo:Q", format=".3~g"),
                            alt.Tooltip("hi:Q", format=".3~g")])]
-    chart = _sized(alt.layer(*layers), WIDTH, 70 * len(order))
+    chart = sized_chart(alt.layer(*layers), WIDTH, 70 * len(order))
     parts = [f"{e['estimate']}: {fmt(e['x'])}" + (f" (interval {_shape_words(e)})"
                                                    if pd.notna(e["lo"]) or pd.notna(e["hi"]) else " (interval open)")
              for e in df.to_dict("records")]
     desc = (f"Break-even points of {row.get('measure', row.get('outcome'))} along {xt} by the patients used: "
             + ("; ".join(parts) if parts else "none in the searched range") + ".")
     title = f"Break-even by the patients used: {row.get('label') or row.get('measure') or row.get('outcome')} along {xt}"
-    return _finish(chart, title, None, desc, style)
+    return finish_chart(chart, title, None, desc, style)
 
 
 def _shape_words(e: Mapping[str, Any]) -> str:
@@ -158,7 +158,7 @@ def pairwise_interval_words(rows: Sequence[Mapping[str, Any]]) -> str | None:
     return f"{fmt(100 * row.get('level', 0.95))}% intervals by {how}"
 
 
-@_quick
+@quick_chart
 def pairwise_chart(rows: Sequence[Mapping[str, Any]], arms: Sequence[str], *, index_title: str | None = None,
                    style: bool = True) -> alt.TopLevelMixin:
     """Net benefit (wins minus losses over all pairs) in windows along the index, with the whole-cohort value."""
@@ -170,29 +170,29 @@ def pairwise_chart(rows: Sequence[Mapping[str, Any]], arms: Sequence[str], *, in
                       columns=["x", "from", "to", "net_benefit", "lo", "hi"]).astype(float)
     xt = index_title or str((rows[0] if rows else {}).get("index") or "index")
     x = alt.X("x:Q", title=f"{xt} (window median)", scale=alt.Scale(zero=False))
-    layers: list[alt.Chart] = [_chart(pd.DataFrame([{"y": 0.0}])).mark_rule(color=INK, strokeWidth=2)
+    layers: list[alt.Chart] = [base_chart(pd.DataFrame([{"y": 0.0}])).mark_rule(color=INK, strokeWidth=2)
                                .encode(y=alt.Y("y:Q"))]
     if overall is not None:
-        layers.append(_chart(pd.DataFrame([{"y": overall["net_benefit"], "what": "whole cohort"}]))
+        layers.append(base_chart(pd.DataFrame([{"y": overall["net_benefit"], "what": "whole cohort"}]))
                       .mark_rule(color=INK, strokeDash=[6, 4]).encode(y=alt.Y("y:Q"), tooltip=[alt.Tooltip("what:N")]))
     if len(df):
         ci = df.dropna(subset=["lo", "hi"])
         if len(ci):
-            layers.append(_chart(ci).mark_rule(strokeWidth=3, color=INK).encode(
+            layers.append(base_chart(ci).mark_rule(strokeWidth=3, color=INK).encode(
                 x=x, y=alt.Y("lo:Q", title=wrap(f"net benefit ({arms[0]} minus {arms[1]})", AXIS_CHARS)), y2=alt.Y2("hi")))
-        layers.append(_chart(df).mark_point(filled=True, size=120, color=ARM_COLOURS[0], opacity=1).encode(
+        layers.append(base_chart(df).mark_point(filled=True, size=120, color=ARM_COLOURS[0], opacity=1).encode(
             x=x, y=alt.Y("net_benefit:Q", title=wrap(f"net benefit ({arms[0]} minus {arms[1]})", AXIS_CHARS)),
             tooltip=[alt.Tooltip("from:Q", format=".3~g"), alt.Tooltip("to:Q", format=".3~g"),
                      alt.Tooltip("net_benefit:Q", format=".3~g"), alt.Tooltip("lo:Q", format=".3~g"),
                      alt.Tooltip("hi:Q", format=".3~g")]))
-    chart = _sized(alt.layer(*layers), WIDTH, HEIGHT * 0.8)
+    chart = sized_chart(alt.layer(*layers), WIDTH, HEIGHT * 0.8)
     desc = (f"Net benefit of {arms[0]} over {arms[1]} by pairwise comparison in {len(df)} windows along {xt}"
             + (f"; whole cohort {fmt(overall['net_benefit'])}" if overall is not None else "") + ": "
             + "; ".join(f"{fmt(r['from'])} to {fmt(r['to'])}: {fmt(r['net_benefit'])}" for r in df.to_dict("records"))
             + ".")
     how = pairwise_interval_words(windows)
     bars = f"; bars: {how}" if how and len(df.dropna(subset=["lo", "hi"])) else ""
-    return _finish(chart, f"Pairwise comparison along {xt}",
+    return finish_chart(chart, f"Pairwise comparison along {xt}",
                    "above zero favours " + arms[0] + "; dashed: whole cohort" + bars, desc + (f" {how}." if bars else ""),
                    style)
 
@@ -224,7 +224,7 @@ def describe_selection(row: Mapping[str, Any]) -> str:
                      + (f", p = {fmt(p)}" if p is not None else "") + ").")
     else:
         parts.append(f"In {arm}, the selection effect could not be estimated.")
-    est = _selection_estimates(row)
+    est = selection_estimates(row)
     if est:
         parts.append("Break-even points: " + "; ".join(f"{e['estimate']} {fmt(e['x'])}" for e in est) + ".")
     if row.get("shift") is not None:
@@ -248,7 +248,7 @@ def _window_label(c: Mapping[str, Any]) -> str:
     return f"{fmt(c['from'])} to {fmt(c['to'])}"
 
 
-@_quick
+@quick_chart
 def coverage_chart(coverage: Sequence[Mapping[str, Any]], arms: Sequence[str], *, index_label: str = "index",
                    style: bool = True) -> alt.TopLevelMixin:
     """Patients per window of the index, side by side per arm, randomised (solid) stacked under chosen (pale);
@@ -259,10 +259,10 @@ def coverage_chart(coverage: Sequence[Mapping[str, Any]], arms: Sequence[str], *
                        for c in coverage for a in arms for alloc in ("randomised", "chosen")],
                       columns=["window", "arm", "allocation", "n", "sort"])
     x = alt.X("window:N", sort=order, title=f"{index_label} (windows)", axis=alt.Axis(labelAngle=-40))
-    bars = _chart(df).mark_bar().encode(
+    bars = base_chart(df).mark_bar().encode(
         x=x, xOffset=alt.XOffset("arm:N", sort=list(arms)),
         y=alt.Y("n:Q", title="patients", stack="zero"),
-        color=alt.Color("arm:N", scale=_arm_scale(arms), legend=alt.Legend(title="arm")),
+        color=alt.Color("arm:N", scale=arm_scale(arms), legend=alt.Legend(title="arm")),
         opacity=alt.Opacity("allocation:N", scale=alt.Scale(domain=list(ALLOCATION_OPACITY),
                                                             range=list(ALLOCATION_OPACITY.values())),
                             legend=alt.Legend(title="patients (solid: randomised)")),
@@ -273,10 +273,10 @@ def coverage_chart(coverage: Sequence[Mapping[str, Any]], arms: Sequence[str], *
     few = pd.DataFrame([{"window": _window_label(c), "text": "few randomised"} for c in coverage if c["sparse"]],
                        columns=["window", "text"])
     if len(few):
-        layers.append(_chart(few).mark_text(angle=270, align="right", dy=0, fontSize=FONT["text"] - 3, color=INK)
+        layers.append(base_chart(few).mark_text(angle=270, align="right", dy=0, fontSize=FONT["text"] - 3, color=INK)
                       .encode(x=alt.X("window:N", sort=order), y=alt.value(6), text=alt.Text("text:N")))
-    chart = _sized(alt.layer(*layers), WIDTH, HEIGHT * 0.8)
-    return _finish(chart, f"Where the randomised patients are along {index_label}",
+    chart = sized_chart(alt.layer(*layers), WIDTH, HEIGHT * 0.8)
+    return finish_chart(chart, f"Where the randomised patients are along {index_label}",
                    "per window: each arm's randomised patients (solid) under its chosen patients (pale)",
                    describe_coverage(coverage, arms, index_label), style)
 

@@ -17,7 +17,7 @@ import altair as alt
 import numpy as np
 import pandas as pd
 
-from .charts_common import FONT, WIDTH, _chart, _finish, _quick, _sized
+from .charts_common import FONT, WIDTH, base_chart, finish_chart, quick_chart, sized_chart
 from .look import arm_colours
 from .words import fmt, words
 from .look import INK, MUTED, NEUTRAL, PAPER
@@ -51,7 +51,7 @@ def chance_words(points: Sequence[Mapping[str, Any]], arms: Sequence[str], index
     return "; ".join(parts) + "."
 
 
-@_quick
+@quick_chart
 def preference_chart(points: pd.DataFrame | Iterable[Mapping[str, Any]], arms: Sequence[str], *,
                      index_title: str = "index", title: str | None = None, spread: float | None = None,
                      ranges: Mapping[str, Any] | None = None, discrete: bool = False,
@@ -71,9 +71,9 @@ def preference_chart(points: pd.DataFrame | Iterable[Mapping[str, Any]], arms: S
     tip = [alt.Tooltip("x:Q", format=".3~g", title=index_title),
            alt.Tooltip("p:Q", format=".0%", title=f"chance {arms[0]} is preferred")]
     layers = [
-        _chart(df).mark_area(color=c[arms[0]], opacity=0.28).encode(x=x, y=alt.Y("bottom:Q"), y2=alt.Y2("p")),
-        _chart(df).mark_area(color=c[arms[1]], opacity=0.28).encode(x=x, y=y, y2=alt.Y2("top")),
-        _chart(df).mark_line(color=INK, strokeWidth=3.5).encode(x=x, y=y, tooltip=tip),
+        base_chart(df).mark_area(color=c[arms[0]], opacity=0.28).encode(x=x, y=alt.Y("bottom:Q"), y2=alt.Y2("p")),
+        base_chart(df).mark_area(color=c[arms[1]], opacity=0.28).encode(x=x, y=y, y2=alt.Y2("top")),
+        base_chart(df).mark_line(color=INK, strokeWidth=3.5).encode(x=x, y=y, tooltip=tip),
     ]
     # each arm's share named inside it, where that share is widest
     i_hi, i_lo = int(df["p"].idxmax()), int(df["p"].idxmin())
@@ -86,10 +86,10 @@ def preference_chart(points: pd.DataFrame | Iterable[Mapping[str, Any]], arms: S
     for n in names:
         n["align"] = "left" if n["x"] <= lo + 0.5 * (hi - lo) else "right"
     for align, part in pd.DataFrame(names).groupby("align") if names else []:
-        layers.append(_chart(part).mark_text(align=align, dx=8 if align == "left" else -8, fontSize=FONT["text"],
+        layers.append(base_chart(part).mark_text(align=align, dx=8 if align == "left" else -8, fontSize=FONT["text"],
                                              color=INK, fontWeight="bold").encode(
             x=alt.X("x:Q"), y=alt.Y("y:Q"), text=alt.Text("text:N")))
-    chart = _sized(alt.layer(*layers), WIDTH, 320)
+    chart = sized_chart(alt.layer(*layers), WIDTH, 320)
     title = title or f"Chance that {arms[0]} is preferred"
     if spread:
         moved = f"each weight drawn within ±{fmt(spread)} of its value" + (" or its stated range" if ranges else "")
@@ -99,7 +99,7 @@ def preference_chart(points: pd.DataFrame | Iterable[Mapping[str, Any]], arms: S
         moved = "the weights as stated, so only the models' uncertainty varies"
     subtitle = (f"{_cap_first(moved)}. The line splits the draws: below it they prefer {arms[0]}, above it "
                 f"{arms[1]}")
-    return _finish(chart, title, subtitle, chance_words(recs, arms, index_title), style)
+    return finish_chart(chart, title, subtitle, chance_words(recs, arms, index_title), style)
 
 
 # ------------------------------------------------------------------------------------------
@@ -178,7 +178,7 @@ def leeway_table(lw: Mapping[str, Any]) -> pd.DataFrame:
                          for r in lw["states"]], columns=["state", "weight in use", "answer changes at", "room"])
 
 
-@_quick
+@quick_chart
 def leeway_chart(lw: Mapping[str, Any], arms: Sequence[str], *, where: str = "", style: bool = True
                  ) -> alt.TopLevelMixin:
     """One row per state: the weight scale coloured by the favoured arm, the weight in use and the change point.
@@ -215,26 +215,26 @@ def leeway_chart(lw: Mapping[str, Any], arms: Sequence[str], *, where: str = "",
                                                                       domain=False, labelPadding=8, labelLimit=280),
               scale=alt.Scale(paddingInner=0.3))
     layers = [
-        _chart(sdf).mark_bar(height=14, stroke=PAPER, strokeWidth=1).encode(
+        base_chart(sdf).mark_bar(height=14, stroke=PAPER, strokeWidth=1).encode(
             x=x, x2=alt.X2("to"), y=y, fill=alt.Fill("fill:N", scale=None),
             tooltip=[alt.Tooltip("state:N"), alt.Tooltip("favoured:N", title="favoured at these weights"),
                      alt.Tooltip("from:Q", format=".2f"), alt.Tooltip("to:Q", format=".2f")]),
     ]
     use = mdf[mdf["kind"] == "in use"]
     change = mdf[mdf["kind"] == "change"]
-    layers.append(_chart(use).mark_tick(color=INK, thickness=4, size=30, opacity=1).encode(
+    layers.append(base_chart(use).mark_tick(color=INK, thickness=4, size=30, opacity=1).encode(
         x=alt.X("x:Q"), y=alt.Y("state:N", sort=state_names),
         tooltip=[alt.Tooltip("state:N"), alt.Tooltip("text:N", title="weight")]))
-    layers.append(_chart(use).mark_text(fontSize=FONT["text"] - 2, color=INK, dy=-21, fontWeight="bold").encode(
+    layers.append(base_chart(use).mark_text(fontSize=FONT["text"] - 2, color=INK, dy=-21, fontWeight="bold").encode(
         x=alt.X("x:Q"), y=alt.Y("state:N", sort=state_names), text=alt.Text("text:N")))
     if len(change):
-        layers.append(_chart(change).mark_tick(color=INK, thickness=2, size=26, opacity=1).encode(
+        layers.append(base_chart(change).mark_tick(color=INK, thickness=2, size=26, opacity=1).encode(
             x=alt.X("x:Q"), y=alt.Y("state:N", sort=state_names)))
-        layers.append(_chart(change).mark_text(fontSize=FONT["text"] - 3, color=MUTED, dy=20).encode(
+        layers.append(base_chart(change).mark_text(fontSize=FONT["text"] - 3, color=MUTED, dy=20).encode(
             x=alt.X("x:Q"), y=alt.Y("state:N", sort=state_names), text=alt.Text("text:N")))
-    layers.append(_chart(ndf).mark_text(align="left", fontSize=FONT["text"] - 1, color=INK).encode(
+    layers.append(base_chart(ndf).mark_text(align="left", fontSize=FONT["text"] - 1, color=INK).encode(
         x=alt.value(TRACK_PX + 16), y=alt.Y("state:N", sort=state_names), text=alt.Text("text:N")))
-    chart = _sized(alt.layer(*layers), TRACK_PX + 190, ROW_PX * len(order))
+    chart = sized_chart(alt.layer(*layers), TRACK_PX + 190, ROW_PX * len(order))
     fav = lw.get("favours")
     head = f"at {where}: " if where else ""
     now = f"the weights in use favour {fav}" if fav else "the weights in use sit exactly on the line between the arms"
@@ -242,7 +242,7 @@ def leeway_chart(lw: Mapping[str, Any], arms: Sequence[str], *, where: str = "",
                 f"at that weight ({arms[0]} blue, {arms[1]} orange). {_cap_first(lw['together_words'])}.")
     desc = (f"{_cap_first(head + now)}. " + _cap_first("; ".join(r["words"] for r in lw["states"])) + ". "
             + _cap_first(lw["together_words"]) + ".")
-    return _finish(chart, "How far can the weights move before the answer changes?", subtitle, desc, style)
+    return finish_chart(chart, "How far can the weights move before the answer changes?", subtitle, desc, style)
 
 
 def _cap_first(text: str) -> str:

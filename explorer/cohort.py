@@ -166,7 +166,7 @@ def read_table(data: bytes, filename: str, sheet: str | None = None) -> pd.DataF
 # ---------------------------------------------------------------------------------------------
 # Checking and typing the columns
 # ---------------------------------------------------------------------------------------------
-class _Checker:
+class ColumnChecker:
     """Types each column by its role; collects warnings and notes; raises on the first real problem."""
 
     def __init__(self, spec: Spec, raw: Raw, roles: dict[str, list[tuple[str, str]]], file: str) -> None:
@@ -375,7 +375,7 @@ class _Checker:
 
 def _build(spec: Spec, raw: Raw, roles: dict[str, list[tuple[str, str]]], path: Path | None, name: str,
            file: str, sha: str, notes: Sequence[str] = (), warnings: Sequence[str] = ()) -> Cohort:
-    chk = _Checker(spec, raw, roles, file)
+    chk = ColumnChecker(spec, raw, roles, file)
     chk.notes.extend(notes)
     chk.warnings.extend(warnings)
     c = spec.cohort

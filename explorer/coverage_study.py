@@ -186,7 +186,7 @@ def pair_of(sc: Scenario, data: dict[str, OutcomeData], basis: Basis | None = No
 
 def composite_model(pf: ft.PairFit, spec: Spec) -> vl.CompositeModel:
     """The tool's ordinal composite (expected state weight) built from a fitted pair, as values.prepare_composite does."""
-    at = vl._ordinal_evaluator(pf)
+    at = vl.ordinal_evaluator(pf)
     grid = ft.grid_for(pf, spec.analysis.grid)
     L, C = at(grid, True)
     return vl.CompositeModel("ordinal", "x", pf.outcome.levels, ARMS, pf, spec, grid, L, C, at, "expected weight")
@@ -265,7 +265,7 @@ def bootstrap(sc: Scenario, pf: ft.PairFit, spec: Spec, base: be.CurveSummary, c
     return ft.bootstrap_summary(pf, spec, diffs, firsts, seconds, base)
 
 
-def _record(b: be.BreakEven, ci: tuple | None = None) -> tuple:
+def study_record(b: be.BreakEven, ci: tuple | None = None) -> tuple:
     lo, hi, shape = ci if ci is not None else (*b.ci, b.interval_shape)
     return (float(b.x), lo, hi, shape)
 
@@ -284,16 +284,16 @@ def one_study(sc: Scenario, n: int, boot: int, spec: Spec, rng: np.random.Genera
     i = int(np.argmin([abs(b.x - sc.truth) for b in s.break_even]))
     est = s.break_even[i]
     out["analytic_method"] = est.interval
-    out[est.interval] = _record(est)
+    out[est.interval] = study_record(est)
     if est.interval in ("fieller", "test-inversion"):
-        out["delta"] = _record(est, delta_interval(pf, est, spec.analysis.level))
+        out["delta"] = study_record(est, delta_interval(pf, est, spec.analysis.level))
     if cm is not None:
-        out["delta"] = _record(est, composite_delta_interval(cm, np.asarray(sc.weights), est, spec.analysis.level))
+        out["delta"] = study_record(est, composite_delta_interval(cm, np.asarray(sc.weights), est, spec.analysis.level))
     else:
-        out[INVERTED] = _record(est, _inverted(pf, spec, est.x))
+        out[INVERTED] = study_record(est, _inverted(pf, spec, est.x))
     if boot:
         bs = bootstrap(sc, pf, spec, s, cm, boot, rng)
-        out[BOOT] = _record(bs.break_even[i])
+        out[BOOT] = study_record(bs.break_even[i])
     return out
 
 
@@ -376,7 +376,7 @@ def summarise_method(records: list, truth: float) -> dict:
             "not_finite_share": (len(est) - len(finite)) / n if n else None}
 
 
-def _round(v):
+def round_row(v):
     return None if v is None else round(float(v), 4)
 
 
@@ -395,8 +395,8 @@ def coverage_rows(sc: Scenario, n: int, recs: list[dict], boot: int, seconds: fl
         summ = summarise_method([r.get(m) for r in ok], sc.truth)
         rows.append({"scenario": sc.name, "kind": sc.name, "method": m, "n": n, "replicates": len(ok),
                      "failed": failed, "not_converged": sum(not r.get("converged", True) for r in ok),
-                     "bootstrap_resamples": boot if m == BOOT else None, "truth": _round(sc.truth),
-                     **{k: _round(v) for k, v in summ.items()}, "seconds": round(seconds, 1)})
+                     "bootstrap_resamples": boot if m == BOOT else None, "truth": round_row(sc.truth),
+                     **{k: round_row(v) for k, v in summ.items()}, "seconds": round(seconds, 1)})
     return rows
 
 
@@ -471,7 +471,7 @@ def run(replicates: int = 500, sizes=(300, 1000, 3000), boot: int = 200, workers
                 for band in ("pointwise", "simultaneous"):
                     rows.append({"scenario": "no effect modification", "kind": sc.name, "method": f"{band} band",
                                  "n": n, "replicates": len(ok), "failed": len(recs) - len(ok),
-                                 "false_clear_difference_rate": _round(np.mean([r[band] for r in ok]))})
+                                 "false_clear_difference_rate": round_row(np.mean([r[band] for r in ok]))})
                 say(f"null {sc.name} n={n} done")
     if "selection" in parts:
         for k, kind in enumerate(SELECTION_KINDS):
@@ -486,7 +486,7 @@ def run(replicates: int = 500, sizes=(300, 1000, 3000), boot: int = 200, workers
                             "wald": "averaged effect (Wald)", "lr": "varies with index (likelihood ratio)"}[test],
                             "n": n, "replicates": len(ok), "failed": len(recs) - len(ok),
                             "selection": "set effect" if effect else "none",
-                            "rejection_rate": _round(np.mean([r[test] < 0.05 for r in ok]))})
+                            "rejection_rate": round_row(np.mean([r[test] < 0.05 for r in ok]))})
                 say(f"selection {kind} n={n} done")
     mark_defaults(rows)
     return rows

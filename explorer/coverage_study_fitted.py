@@ -30,7 +30,7 @@ from scipy.special import expit
 
 from . import fitting as ft
 from .coverage import fitted_scenario
-from .coverage_study import ARMS, BOOT, CENSOR, FIT_ERRORS, HORIZON, OUTCOMES, _record, _round, summarise_method
+from .coverage_study import ARMS, BOOT, CENSOR, FIT_ERRORS, HORIZON, OUTCOMES, study_record, round_row, summarise_method
 from .indices.prognostic import cross_fitted_index
 from .models import fit_model
 from .models.base import Basis, OutcomeData
@@ -128,7 +128,7 @@ def one_study(sim: str, n: int, boot: int, rng: np.random.Generator) -> dict:
     i = int(np.argmin([abs(b.x - truth) for b in s.break_even]))
     est = s.break_even[i]
     out["analytic_method"] = est.interval
-    out[est.interval] = _record(est)
+    out[est.interval] = study_record(est)
     if boot:
         arrays = {arm: ArmArrays.of(data[arm], rows[arm], n) for arm in ARMS}
         starts = {arm: f.params_ for arm, f in pf.fits.items()}
@@ -140,7 +140,7 @@ def one_study(sim: str, n: int, boot: int, rng: np.random.Generator) -> dict:
                 refitted.append(_curves(pf, refit_arms(sc_outcome, basis, arrays, draw, starts, x), s.grid))
             except FIT_ERRORS:
                 refitted.append(None)
-        out[REFITTED] = _record(_summary(pf, spec, s, refitted).break_even[i])
+        out[REFITTED] = study_record(_summary(pf, spec, s, refitted).break_even[i])
         out["refit_failed"] = sum(k is None for k in refitted)
     return out
 
@@ -176,7 +176,7 @@ def coverage_rows(sim: str, n: int, recs: list[dict], boot: int) -> list[dict]:
                     "not_converged": sum(not r.get("converged", True) or not r.get("index_converged", True)
                                          for r in part),
                     "bootstrap_resamples": resamples, "truth": ETA_STAR, "truth_scale": "true linear predictor",
-                    "index": "fitted", **{k: _round(v) for k, v in summ.items()}})
+                    "index": "fitted", **{k: round_row(v) for k, v in summ.items()}})
     return out
 
 

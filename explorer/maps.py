@@ -467,7 +467,7 @@ def default_map(spec: Spec) -> MapSpec | None:
 # ------------------------------------------------------------------------------------------
 # In words
 # ------------------------------------------------------------------------------------------
-def _labels(row: Mapping[str, Any]) -> tuple[str, str]:
+def map_labels(row: Mapping[str, Any]) -> tuple[str, str]:
     info = row.get("index_info") or [{}, {}]
     return tuple((i or {}).get("label") or n for i, n in zip(info, row["indices"]))
 
@@ -478,7 +478,7 @@ def _share(grid: list[list[Any]], arm: str, mapped: int) -> float:
 
 def describe_map(row: Mapping[str, Any], arms: Sequence[str]) -> str:
     """The map in words: where each arm is favoured and clearly so, the break-even line, the patient's point."""
-    a, b = _labels(row)
+    a, b = map_labels(row)
     mapped = sum(v is not None for r in row["difference"] for v in r)
     target = "the composite" if row["target"] == COMPOSITE else row.get("measure") or row["target"]
     if not mapped:

@@ -33,7 +33,7 @@ def unit_words(row: Mapping[str, Any]) -> str:
     return "patients per 100" if row["counts_patients"] else f"{row['units'] or 'total'} per 100 patients"
 
 
-@cc._quick
+@cc.quick_chart
 def rule_curve_chart(row: Mapping[str, Any], arms: Sequence[str], threshold: float | None = None, *,
                      index_title: str | None = None, style: bool = True) -> alt.TopLevelMixin:
     """Per-100 value of the rule at every threshold, its band, the blanket rules and the chosen threshold."""
@@ -42,15 +42,15 @@ def rule_curve_chart(row: Mapping[str, Any], arms: Sequence[str], threshold: flo
                         "first": p["first_share"]} for p in row["curve"]])
     x = alt.X("threshold:Q", title=f"threshold t on {index_title or row['index']}", scale=alt.Scale(zero=False))
     y_title = f"{row['title']}: {unit_words(row)}"
-    band = cc._chart(df).mark_area(opacity=0.25, color=look.INK).encode(x=x, y=alt.Y("lo:Q", title=y_title,
+    band = cc.base_chart(df).mark_area(opacity=0.25, color=look.INK).encode(x=x, y=alt.Y("lo:Q", title=y_title,
                                                                                     scale=alt.Scale(zero=False)),
                                                                        y2="hi:Q")
-    line = cc._chart(df).mark_line(color=look.INK, strokeWidth=3, interpolate="step-after").encode(
+    line = cc.base_chart(df).mark_line(color=look.INK, strokeWidth=3, interpolate="step-after").encode(
         x=x, y="value:Q", tooltip=[alt.Tooltip("threshold:Q", format=".3g"), alt.Tooltip("value:Q", format=".3g"),
                                    alt.Tooltip("first:Q", title=f"given {arms[0]} per 100", format=".0f")])
     blankets = pd.DataFrame([{"rule": f"everyone {arms[0]}", "value": row["all_first"]["value"], "arm": arms[0]},
                              {"rule": f"everyone {arms[1]}", "value": row["all_second"]["value"], "arm": arms[1]}])
-    rules = cc._chart(blankets).mark_rule(strokeDash=[8, 5], strokeWidth=3).encode(
+    rules = cc.base_chart(blankets).mark_rule(strokeDash=[8, 5], strokeWidth=3).encode(
         y="value:Q", color=alt.Color("arm:N", scale=alt.Scale(domain=list(arms), range=[colours[a] for a in arms]),
                                      legend=alt.Legend(title="dashed: everyone given")),
         tooltip=[alt.Tooltip("rule:N"), alt.Tooltip("value:Q", format=".3g")])
@@ -58,16 +58,16 @@ def rule_curve_chart(row: Mapping[str, Any], arms: Sequence[str], threshold: flo
     layers = [band, line, rules]
     if b["ci"][0] is not None and b["ci"][1] is not None:
         span = pd.DataFrame([{"from": b["ci"][0], "to": b["ci"][1]}])
-        layers.insert(0, cc._chart(span).mark_rect(opacity=0.12, color=look.OKABE_ITO["bluish_green"]).encode(
+        layers.insert(0, cc.base_chart(span).mark_rect(opacity=0.12, color=look.OKABE_ITO["bluish_green"]).encode(
             x="from:Q", x2="to:Q"))
     j = _at(row, threshold)
     here = pd.DataFrame([{"threshold": row["curve"][j]["threshold"], "value": row["curve"][j]["value"]}])
-    layers.append(cc._chart(here).mark_rule(strokeWidth=2, color=look.INK).encode(x="threshold:Q"))
-    layers.append(cc._chart(here).mark_point(size=160, filled=True, color=look.INK, shape="diamond").encode(
+    layers.append(cc.base_chart(here).mark_rule(strokeWidth=2, color=look.INK).encode(x="threshold:Q"))
+    layers.append(cc.base_chart(here).mark_point(size=160, filled=True, color=look.INK, shape="diamond").encode(
         x="threshold:Q", y="value:Q"))
-    chart = cc._sized(alt.layer(*layers), cc.WIDTH, cc.HEIGHT)
+    chart = cc.sized_chart(alt.layer(*layers), cc.WIDTH, cc.HEIGHT)
     lo_arm = arms[0] if row["direction"] == "first_below" else arms[1]
-    return cc._finish(chart, f"{row['title']}: {lo_arm} below t, per 100 of {row['target']['name']}",
+    return cc.finish_chart(chart, f"{row['title']}: {lo_arm} below t, per 100 of {row['target']['name']}",
                       "line: the rule at each threshold (shaded: interval); dashed: everyone given one arm; "
                       "pale green: interval of the best threshold; diamond: the threshold shown",
                       describe_rule(row, arms, threshold), style)
@@ -95,7 +95,7 @@ def level_counts(row: Mapping[str, Any], arms: Sequence[str], threshold: float |
     return pd.DataFrame(out)
 
 
-@cc._quick
+@cc.quick_chart
 def per_hundred_bars(row: Mapping[str, Any], arms: Sequence[str], threshold: float | None = None, *,
                      style: bool = True) -> alt.TopLevelMixin | None:
     """A plain per-100 display: one bar of 100 patients per rule, split by level (best level first)."""
@@ -108,19 +108,19 @@ def per_hundred_bars(row: Mapping[str, Any], arms: Sequence[str], threshold: flo
     long = table.melt(id_vars="level", var_name="rule", value_name="per100")
     long["order"] = long["level"].map({lv: i for i, lv in enumerate(levels)})
     long["label"] = long["per100"].map(lambda v: f"{v:.0f}")
-    bars = cc._chart(long).mark_bar(stroke="white", strokeWidth=1).encode(
+    bars = cc.base_chart(long).mark_bar(stroke="white", strokeWidth=1).encode(
         y=alt.Y("rule:N", sort=rules, title=None),
         x=alt.X("per100:Q", title="patients out of 100", scale=alt.Scale(domain=[0, 100])),
         color=alt.Color("level:N", sort=levels, scale=alt.Scale(domain=levels, range=[colours[lv] for lv in levels]),
                         legend=alt.Legend(title="state", orient="bottom")),
         order=alt.Order("order:Q"),
         tooltip=[alt.Tooltip("rule:N"), alt.Tooltip("level:N"), alt.Tooltip("per100:Q", format=".1f")])
-    text = cc._chart(long[long["per100"] >= 5]).mark_text(fontSize=cc.FONT["text"] - 2).encode(
+    text = cc.base_chart(long[long["per100"] >= 5]).mark_text(fontSize=cc.FONT["text"] - 2).encode(
         color=alt.condition(alt.datum.level == levels[-1], alt.value("white"), alt.value("black")),
         y=alt.Y("rule:N", sort=rules), x=alt.X("per100:Q", stack="zero", bandPosition=0.5),
         detail="level:N", order=alt.Order("order:Q"), text="label:N")
-    chart = cc._sized(alt.layer(bars, text), cc.WIDTH, 60 * len(rules) + 40)
-    return cc._finish(chart, f"{row['title']}: out of 100 of {row['target']['name']}", None,
+    chart = cc.sized_chart(alt.layer(bars, text), cc.WIDTH, 60 * len(rules) + 40)
+    return cc.finish_chart(chart, f"{row['title']}: out of 100 of {row['target']['name']}", None,
                       per_hundred_words(row, arms, threshold), style)
 
 

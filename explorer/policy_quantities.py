@@ -137,7 +137,7 @@ def composite_quantities(fs: ft.FitSet, index: str, u: np.ndarray, weights: dict
         title = f"Composite ({form.replace('_', ' ')})"
         units = None
         if form == "quality_adjusted":
-            so = vl._survival_outcome(spec)
+            so = vl.survival_outcome_of(spec)
             units = f"quality-adjusted {so.units}" if so.units else "quality-adjusted time"
         out.append(Quantity(f"composite:{form}", title, "composite", 1.0, False, units, tuple(vals), tuple(facs),
                             _worst(*hows)))
@@ -171,7 +171,7 @@ def _survival_function(fit_ord: Fitted, pf_surv: ft.PairFit, arm: str, u: np.nda
 
 def _quality_adjusted(fs: ft.FitSet, index: str, arm: str, u: np.ndarray) -> tuple[np.ndarray, np.ndarray, str]:
     spec = fs.spec
-    so = vl._survival_outcome(spec)
+    so = vl.survival_outcome_of(spec)
     R, FR, how_r = _survival_factor(fs.pair(so.name, index), arm, u, "rmst")
     fit_u = fs.pair(spec.values.utility_outcome, index).fits[arm]
     U = np.asarray(fit_u.measure(u), float)

@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 
 from . import cohort as ch
+from .readers import read_columns
 from .errors import FulcrumError, format_rows
 from .spec import Spec
 
@@ -77,9 +78,9 @@ def load_target(spec: Spec, indices: dict, names: list[str] | None = None, *, da
         data = path.read_bytes()
     roles = target_columns(spec, indices, names)
     notes: list[str] = []
-    header, raw = ch._read(data, name, shown, t.sheet if t is not None else None, roles, set(roles), notes)
+    header, raw = read_columns(data, name, shown, t.sheet if t is not None else None, roles, set(roles), notes)
     raw = {h: raw[h] for h in header if h in roles}
-    chk = ch._Checker(spec, raw, roles, shown)
+    chk = ch.ColumnChecker(spec, raw, roles, shown)
     frame = pd.DataFrame({c: chk.column(c) for c in raw}, copy=False)
     warnings = list(chk.warnings) + notes
     values: dict[str, np.ndarray] = {}

@@ -163,7 +163,7 @@ def rmst_at_horizon(fit, outcome: OutcomeSpec, x: np.ndarray) -> tuple[np.ndarra
     return np.asarray(est, float), np.asarray(var, float)
 
 
-def _ordinal_evaluator(pf: ft.PairFit) -> Evaluator:
+def ordinal_evaluator(pf: ft.PairFit) -> Evaluator:
     arms = list(pf.fits)
 
     def at(x: np.ndarray, with_cov: bool):
@@ -235,7 +235,7 @@ def _relabel(pf: ft.PairFit, title: str, parts: list[ft.PairFit]) -> ft.PairFit:
     return dataclasses.replace(pf, outcome=dataclasses.replace(pf.outcome, label=title), warnings=warnings)
 
 
-def _survival_outcome(spec: Spec) -> OutcomeSpec | None:
+def survival_outcome_of(spec: Spec) -> OutcomeSpec | None:
     v = spec.values
     if v is not None and v.survival_outcome:
         return spec.outcome(v.survival_outcome)
@@ -254,7 +254,7 @@ def default_kinds(spec: Spec) -> tuple[str, ...]:
     kinds = ["ordinal"]
     if v.survival_outcome:
         kinds.append("survival_function")
-    if v.utility_outcome and _survival_outcome(spec) is not None:
+    if v.utility_outcome and survival_outcome_of(spec) is not None:
         kinds.append("quality_adjusted")
     return tuple(kinds)
 
@@ -275,7 +275,7 @@ def prepare_composite(fs: ft.FitSet, form: str, index: str, replicates: list[dic
     whose = {"patient": "the patient", "proxy": "a proxy speaking for the patient", "team": "the treating team"}
     if form == "ordinal":
         levels = ordinal.levels
-        anchor, at = pf_ord, _ordinal_evaluator(pf_ord)
+        anchor, at = pf_ord, ordinal_evaluator(pf_ord)
         parts = [pf_ord]
         measure = f"expected weight of {ordinal.title}"
         notes.append(f"Each arm's composite is the expected weight over the levels of {ordinal.title}, from its "
@@ -297,7 +297,7 @@ def prepare_composite(fs: ft.FitSet, form: str, index: str, replicates: list[dic
                      f"must refer to the same horizon and population, the function model describing patients "
                      f"alive then; the two models are treated as independent in the intervals.")
     else:
-        so = _survival_outcome(spec)
+        so = survival_outcome_of(spec)
         if so is None or not values.utility_outcome:
             raise FulcrumError("quality-adjusted survival needs a survival outcome and a utility outcome.",
                                key="values.utility_outcome", hint="Name utility_outcome in [values] and add a "
@@ -348,7 +348,7 @@ def _attach_replicates(cm: CompositeModel, fs: ft.FitSet, values: ValuesSpec, re
             return
         surv_grid = ft.grid_for(fs.pair(so.name, index), n)
     if cm.form == "quality_adjusted":
-        so = _survival_outcome(spec)
+        so = survival_outcome_of(spec)
         if so.measure != "rmst":
             cm.notes.append("The bootstrap replicates hold survival at the horizon, not restricted mean survival, "
                             "so this composite's interval is the analytic (test-inversion) one.")

@@ -3,7 +3,7 @@ import streamlit as st
 
 import fulcrum_ui as ui
 from explorer import appstate as aps
-from explorer import charts_checks, charts_common, charts_curves, headline_table, margins
+from explorer import charts_checks, charts_common, charts_curves, headline_table, margins, observed
 from explorer.models import describe
 
 LEVELS = [0.8, 0.9, 0.95, 0.99]
@@ -148,7 +148,7 @@ if ws.fitset().population is not None:
 for row in [r for r in doc["results"] if r["index"] == index]:
     st.subheader(ws.spec.outcome(row["outcome"]).title)
     check = charts_common.check_for(checks, row["outcome"], index)
-    points = ui.attempt(charts_curves.cohort_points, ws.fitset(), row["outcome"], index) if show_points else None
+    points = ui.attempt(observed.cohort_points, ws.fitset(), row["outcome"], index) if show_points else None
     ui.altair(charts_curves.outcome_chart(row, arms, points, patient=marker, index_label=titles[index]),
               " ".join(t for t in (charts_curves.describe_row(row, arms, titles[index], margin=ws.spec.analysis.margin),
                                    charts_checks.describe_percentiles(row, titles[index])) if t))

@@ -17,6 +17,7 @@ from explorer import charts_common as cc
 from explorer import charts_curves as cu
 from explorer import charts_selection as cs
 from explorer import charts_patient as cp
+from explorer import observed
 from explorer import charts_values as cv
 from explorer import look
 from explorer import words as wd
@@ -78,7 +79,7 @@ def test_every_results_row_builds_outcome_and_difference_charts(result, doc):
     arms = doc["arms"]
     assert len(doc["results"]) == len(result.spec.outcomes) * len(result.spec.indices)
     for row in doc["results"]:
-        points = cu.cohort_points(result.fitset, row["outcome"], row["index"], max_points=300)
+        points = observed.cohort_points(result.fitset, row["outcome"], row["index"], max_points=300)
         assert set(points.columns) == {"x", "y", "arm", "allocation"}
         assert set(points["allocation"]) <= {"randomised", "chosen"}
         _validated(cu.outcome_chart(row, arms, points, patient={"x": row["range"][0]}))
@@ -259,14 +260,14 @@ def km_chart(fs: Any, outcome: str, *, index: str | None = None, between: tuple[
         for t, v, lo, hi in zip(sf.index, sf.to_numpy(), ci.iloc[:, 0].to_numpy(), ci.iloc[:, 1].to_numpy()):
             recs.append({"time": float(t), "survival": float(v), "lower": float(lo), "upper": float(hi), "arm": arm})
     df = pd.DataFrame(recs, columns=["time", "survival", "lower", "upper", "arm"])
-    colour = alt.Color("arm:N", scale=cc._arm_scale(arms), legend=cc.ARM_LEGEND)
+    colour = alt.Color("arm:N", scale=cc.arm_scale(arms), legend=cc.ARM_LEGEND)
     unit = f" ({o.units})" if o.units else ""
     x = alt.X("time:Q", title=f"time{unit}")
-    layers = ck._km_steps(cc._chart(df), x, colour, 3)
+    layers = ck._km_steps(cc.base_chart(df), x, colour, 3)
     if o.horizon:
-        layers.append(cc._chart(pd.DataFrame([{"t": float(o.horizon)}])).mark_rule(color=look.INK, strokeDash=[5, 4])
+        layers.append(cc.base_chart(pd.DataFrame([{"t": float(o.horizon)}])).mark_rule(color=look.INK, strokeDash=[5, 4])
                       .encode(x=alt.X("t:Q")))
-    chart = cc._sized(alt.layer(*layers), cc.WIDTH, cc.HEIGHT)
+    chart = cc.sized_chart(alt.layer(*layers), cc.WIDTH, cc.HEIGHT)
     where = "" if between is None else f", {pf.index} {wd.fmt(between[0])} to {wd.fmt(between[1])}"
     at = []
     for arm in arms:
@@ -275,7 +276,7 @@ def km_chart(fs: Any, outcome: str, *, index: str | None = None, between: tuple[
             at.append(f"{arm} {wd.fmt(part['survival'].iloc[-1])} ({counts[arm]} patients)")
     desc = (f"Kaplan-Meier survival by arm for {o.title}{where}"
             + (f"; at {o.horizon:g}{unit}: " + ", ".join(at) if at else "") + ".")
-    return cc._finish(chart, f"{o.title}: Kaplan-Meier by arm{where}", "dashed line: the horizon", desc, style)
+    return cc.finish_chart(chart, f"{o.title}: Kaplan-Meier by arm{where}", "dashed line: the horizon", desc, style)
 
 
 def test_kaplan_meier_chart_agrees_with_lifelines(result):
@@ -321,7 +322,7 @@ def test_randomised_and_chosen_differ_by_shape_named_in_words(_demo_master):
     fs = fit_all(spec)
     row = analyse(spec, fitset=fs).document["results"][0]
     doc = {"arms": list(spec.cohort.arms)}
-    points = cu.cohort_points(fs, row["outcome"], row["index"])
+    points = observed.cohort_points(fs, row["outcome"], row["index"])
     assert {"randomised", "chosen"} <= set(points["allocation"])
     spec = cu.outcome_chart(row, doc["arms"], points).to_dict()
     shape_scales = [s for s in _scales(spec, "shape") if s.get("domain") == ["randomised", "chosen"]]
@@ -471,9 +472,9 @@ def test_cohort_points_sample_large_cohorts_by_arm_and_say_so(result):
     frame = fs.cohort.frame
     rows = np.concatenate(list(pf.rows.values()))
     share = frame[fs.spec.cohort.arm].iloc[rows].value_counts(normalize=True)
-    whole = cu.cohort_points(fs, "function", "age", max_points=len(rows) + 1)
+    whole = observed.cohort_points(fs, "function", "age", max_points=len(rows) + 1)
     assert len(whole) == len(rows) and whole.attrs["sample_note"] is None
-    shown = cu.cohort_points(fs, "function", "age", max_points=200, seed=4)
+    shown = observed.cohort_points(fs, "function", "age", max_points=200, seed=4)
     assert len(shown) == 200
     counts = shown["arm"].value_counts()
     for arm, p in share.items():
@@ -482,4 +483,4 @@ def test_cohort_points_sample_large_cohorts_by_arm_and_say_so(result):
     assert "seed 4" in shown.attrs["sample_note"]
     # the sampled points are patients of the cohort: their (unjittered, continuous) ages are cohort ages
     assert set(shown["x"]) <= set(frame["age"].iloc[rows])
-    assert shown.equals(cu.cohort_points(fs, "function", "age", max_points=200, seed=4))
+    assert shown.equals(observed.cohort_points(fs, "function", "age", max_points=200, seed=4))

@@ -33,7 +33,7 @@ from .. import charts_common as cc
 from .. import charts_curves as cu
 from .. import charts_selection as cs
 from .. import charts_values as cv
-from .. import look
+from .. import look, observed
 from .. import words as wd
 from ..spec import to_toml
 from ..charts_evidence import evidence_sections
@@ -88,7 +88,7 @@ def javascript_bundle() -> str:
     """Vega, Vega-Lite and vega-embed in one script (from vl-convert), safe to inline in <script>."""
     import vl_convert as vlc
 
-    js = vlc.javascript_bundle(vl_version=cc._vl_version())
+    js = vlc.javascript_bundle(vl_version=cc.converter_version())
     return js.replace("</script", "<\\/script").replace("<!--", "<\\!--")
 
 
@@ -291,7 +291,7 @@ def _points(result: Any, row: Mapping[str, Any], n: int) -> pd.DataFrame | None:
     if n <= 0 or getattr(result, "fitset", None) is None:
         return None
     try:
-        return cu.cohort_points(result.fitset, row["outcome"], row["index"], max_points=n)
+        return observed.cohort_points(result.fitset, row["outcome"], row["index"], max_points=n)
     except KeyError:
         return None
 
@@ -463,7 +463,7 @@ def selection_sections(doc: Mapping[str, Any]) -> list[dict]:
     out = []
     for (outcome, index), rows in groups.items():
         xt = labels.get(index, index)
-        est = pd.DataFrame(cs._selection_estimates(rows[0]), columns=["estimate", "x", "lo", "hi"])
+        est = pd.DataFrame(cs.selection_estimates(rows[0]), columns=["estimate", "x", "lo", "hi"])
         est.columns = ["patients used", "break-even", "interval low", "interval high"]
         facts = pd.DataFrame([{"arm": r.get("arm"), "selection effect (chosen minus randomised)": r.get("effect"),
                                "interval": _pair(r.get("ci")), "p-value": r.get("p_value"),

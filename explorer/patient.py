@@ -701,10 +701,9 @@ def _death_sources(fs: FitSet, preds: list[Prediction]) -> list[str]:
             continue
         each = " ".join(f"{arm}: {a} in 100 from {ps.title}, {b} in 100 from {pf.title}." for arm, a, b in pairs)
         along = fs.indices[ps.index].info.get("label") or ps.index  # the index's label, never its internal name
-        out.append(f"Deaths by {horizon_words(ps.horizon, ps.units)} (along {along}) come from two models. {each} "
-                   "Use the first for death: it uses all follow-up, and the survival-with-function value takes "
-                   "death from it. "
-                   f"The second is a separate model of the state at one time, so it can differ a little.")
+        out.append(f"Two models give deaths by {horizon_words(ps.horizon, ps.units)}, along {along}. {each} "
+                   "Use the first for death. It uses all follow-up, and the survival-with-function value takes "
+                   "death from it. The second models the state at one time only, so it can differ.")
     return out
 
 

@@ -97,7 +97,7 @@ def check_parquet(pf, file: str, columns: set[str]) -> None:
     """Refuse a Parquet file whose columns to be read would unpack to more than the limit, before any is read: the
     file's metadata gives each column chunk's uncompressed size per row group (pf: a pyarrow ParquetFile)."""
     meta = pf.metadata
-    total, by_column = 0, {}
+    total, by_column = 0, dict[str, int]()
     for g in range(meta.num_row_groups):
         group = meta.row_group(g)
         for c in range(group.num_columns):
@@ -108,7 +108,7 @@ def check_parquet(pf, file: str, columns: set[str]) -> None:
                 by_column[name] = by_column.get(name, 0) + chunk.total_uncompressed_size
     limit = unpacked_limit()
     if total > limit:
-        big = max(by_column, key=by_column.get)
+        big = max(by_column, key=lambda c: by_column[c])
         raise FulcrumError(f"the Parquet file's columns to be read would unpack to {total / 1e6:,.0f} MB ('{big}' "
                            f"alone {by_column[big] / 1e6:,.0f} MB), more than the limit of {limit / 1e6:,.0f} MB.",
                            file=file, column=big,

@@ -82,7 +82,7 @@ def _is_numeric(s: pd.Series) -> bool:
         return False
     if pd.api.types.is_numeric_dtype(s):
         return True
-    return bool(s.notna().any()) and pd.to_numeric(s.dropna(), errors="coerce").notna().all()
+    return bool(s.notna().any()) and bool(pd.to_numeric(s.dropna(), errors="coerce").notna().all())
 
 
 def _numbers(s: pd.Series) -> pd.Series:
@@ -134,7 +134,7 @@ def guess_roles(frame: pd.DataFrame) -> Guess:
     if g.arm:
         taken.add(g.arm)
         g.arms = tuple(sorted(distinct_values(frame[g.arm]), key=lambda v: -int((frame[g.arm].astype(str) == v).sum())))
-    g.id = _best(frame, "id", lambda s: s.notna().all() and s.is_unique, taken)
+    g.id = _best(frame, "id", lambda s: bool(s.notna().all()) and bool(s.is_unique), taken)
     if g.id:
         taken.add(g.id)
     g.cluster = _best(frame, "cluster", lambda s: not _is_numeric(s) and 2 <= len(distinct_values(s)) <= max(2, n // 5),

@@ -30,8 +30,9 @@ def stated_days(text: str | None) -> float | None:
 def horizon_days(outcome: OutcomeSpec) -> float | None:
     """When the outcome is measured, in days: a survival horizon in its stated units, else a time point stated in
     its label, column or name; None when nothing says."""
-    if outcome.horizon is not None and (outcome.units or "").strip().lower() in DAYS:
-        return float(outcome.horizon) * DAYS[outcome.units.strip().lower()]
+    units = (outcome.units or "").strip().lower()
+    if outcome.horizon is not None and units in DAYS:
+        return float(outcome.horizon) * DAYS[units]
     for text in (outcome.label, outcome.column, outcome.name):
         days = stated_days(text)
         if days is not None:
@@ -50,8 +51,9 @@ def _words(days: float) -> str:
 def mismatch(outcomes: Sequence[OutcomeSpec]) -> list[str]:
     """A warning when the outcomes combined into one composite are measured at different times ([] otherwise, and
     when some outcome states no time point)."""
-    known = [(o, horizon_days(o)) for o in outcomes]
-    if len(known) < 2 or any(d is None for _, d in known):
+    stated = [(o, horizon_days(o)) for o in outcomes]
+    known = [(o, d) for o, d in stated if d is not None]
+    if len(known) < 2 or len(known) < len(stated):
         return []
     days = [d for _, d in known]
     if max(days) <= min(days) * (1 + SAME):

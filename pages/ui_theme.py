@@ -51,7 +51,7 @@ a:focus-visible, button:focus-visible, input:focus-visible, textarea:focus-visib
 [role="button"]:focus-visible, [tabindex]:focus-visible, summary:focus-visible {{
   outline: 3px solid var(--f-focus) !important; outline-offset: 2px !important; box-shadow: 0 0 0 5px var(--f-paper); }}
 /* the header */
-.fulcrum-head {{ display: grid; grid-template-columns: auto auto minmax(0, 1fr); align-items: center;
+.fulcrum-head {{ display: grid; grid-template-columns: auto minmax(0, 1fr); align-items: center;
   gap: calc(3 * var(--f-unit)); background: var(--f-panel); border-bottom: 3px solid var(--f-ink);
   border-radius: 2px; padding: var(--f-unit) calc(2 * var(--f-unit)); margin-bottom: var(--f-unit); }}
 .fulcrum-name {{ display: flex; align-items: center; gap: var(--f-unit); font-weight: 700; font-size: 1.35rem;
@@ -63,6 +63,9 @@ a:focus-visible, button:focus-visible, input:focus-visible, textarea:focus-visib
 .fulcrum-head .first {{ color: {look.ARM_INKS[0]}; }}
 .fulcrum-head .second {{ color: {look.ARM_INKS[1]}; }}
 .fulcrum-head dd.patient {{ white-space: normal; }}
+/* the patient in hand: a row of its own under the name, cohort and arms, so a long line wraps at full width */
+.fulcrum-head dl.who {{ grid-column: 1 / -1; }}
+.fulcrum-head dl.who div {{ min-width: 0; }}
 .fulcrum-head .demo {{ color: var(--f-muted); font-weight: 400; font-style: italic; }}
 @media (max-width: 900px) {{ .fulcrum-head {{ grid-template-columns: 1fr; }} }}
 </style>
@@ -78,7 +81,7 @@ def header_html(cohort: str, n: int, arms: tuple[str, str] | list[str], patient:
             f'<dl><div><dt>Cohort</dt><dd>{escape(cohort)} · {n:,} patients{note}</dd></div>'
             f'<div><dt>Arms</dt><dd><span class="first">{escape(arms[0])}</span> or '
             f'<span class="second">{escape(arms[1])}</span></dd></div></dl>'
-            f'<dl><div><dt>Patient</dt><dd class="patient">{who}</dd></div></dl></header>')
+            f'<dl class="who"><div><dt>Patient</dt><dd class="patient">{who}</dd></div></dl></header>')
 
 
 def header(ws: Any, patient: str | None) -> None:

@@ -61,8 +61,8 @@ def test_a_patient_value_outside_the_index_bounds_is_refused(demo_small, capsys,
 
 def test_two_death_figures_are_explained_and_disagreeing_indices_are_shown(demo_small):
     view = place_patient(ft.fit_all(demo_small), {"cfs": 6, "age": 82})
-    deaths = [s for s in view.limits if s.startswith("Deaths by")]
-    assert deaths and all("Use the first for death" in s and "from two models" in s for s in deaths)
+    deaths = [s for s in view.limits if s.startswith("Two models give deaths by")]
+    assert deaths and all("Use the first for death" in s and "it can differ" in s for s in deaths)
     by_outcome = {}
     for p in view.predictions:
         by_outcome.setdefault(p.outcome, set()).add((p.clear, p.favours if p.clear else None))

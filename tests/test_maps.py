@@ -266,7 +266,9 @@ def test_report_sections_carry_the_map_chart_sentence_and_coefficients(tmp_path,
     from explorer import report
     from explorer.report import render_report
 
-    monkeypatch.setattr(report, "javascript_bundle", lambda: "")
+    # patch the packed bundle itself: it is cached per process, so patching what it packs would leave an empty
+    # bundle cached for every later report in this worker
+    monkeypatch.setattr(report, "packed_bundle", lambda: report.packed(""))
 
     rng = np.random.default_rng(6)
     _fitset(tmp_path, _logit_cohort(rng, 300, {"alpha": (0.25, -0.25, 0.15), "beta": (-0.25, -0.05, 0.05)}))

@@ -198,6 +198,8 @@ def build_spec(cohort: dict[str, Any], outcomes: list[dict], indices: list[dict]
         table.pop("randomised", None)
     if base is not None and base.cohort.covariates and "covariates" not in table:
         table["covariates"] = list(base.cohort.covariates)
+    if base is not None and base.cohort.labels and "labels" not in table:
+        table["labels"] = dict(base.cohort.labels)
     data: dict[str, Any] = {"cohort": table, "outcomes": outcomes, "indices": indices}
     if base is not None:
         old = spec_to_dict(base)
@@ -671,15 +673,15 @@ def patient_fields(spec: Spec, index_values: dict, frame: pd.DataFrame,
                 by_code = {v: k for k, v in codings[col].items()}
                 counts = nums.value_counts()
                 options = [by_code[c] for c in counts.index if c in by_code] or list(codings[col])
-                fields[col] = {"key": col, "label": col, "numeric": False, "options": options,
+                fields[col] = {"key": col, "label": spec.column_title(col), "numeric": False, "options": options,
                                "default": options[0]}
             elif len(s) and nums.notna().all():
                 whole = bool(np.all(np.mod(nums, 1) == 0))
-                fields[col] = {"key": col, "label": col, "numeric": True, "discrete": whole,
+                fields[col] = {"key": col, "label": spec.column_title(col), "numeric": True, "discrete": whole,
                                "default": float(np.median(nums)), "min": float(nums.min()), "max": float(nums.max())}
             else:
                 options = [str(v) for v in s.astype(str).value_counts().index]
-                fields[col] = {"key": col, "label": col, "numeric": False, "options": options,
+                fields[col] = {"key": col, "label": spec.column_title(col), "numeric": False, "options": options,
                                "default": options[0] if options else ""}
     return list(fields.values())
 

@@ -14,7 +14,7 @@ from .charts_common import (ALLOCATION_SHAPES, ALLOCATION_SIZES, ARM_LEGEND, AXI
                             outcome_title, x_title)
 from .look import INK, MUTED, NEUTRAL, OKABE_ITO, PAPER, arm_colours, text_on
 from .margins import side_words
-from .words import cap, fmt, interval_words, level_span, levels_within, words, wrap
+from .words import cap, fmt, interval_words, level_span, levels_within, row_bounds, words, wrap
 
 
 def curve_frame(row: Mapping[str, Any], arms: Sequence[str]) -> pd.DataFrame:
@@ -147,7 +147,7 @@ def _break_even_layers(row: Mapping[str, Any], domain: tuple[float, float]) -> l
         line = "extrapolated" if b.get("extrapolated") else "within the observed range"
         label = f"break-even {fmt(b['x'])}" + (" (extrapolated)" if b.get("extrapolated") else "")
         y = HEIGHT + STRIP_ROW + STRIP_ROW_STEP * k
-        marks.append({"x": b["x"], "line": line, "label": label, "interval": interval_words(b), "y": y})
+        marks.append({"x": b["x"], "line": line, "label": label, "interval": interval_words(b, row_bounds(row)), "y": y})
         for s in _interval_segments(b, *domain):
             s.update(y=y, line=line)
             segs.append(s)
@@ -320,7 +320,8 @@ def composite_chart(row: Mapping[str, Any], arms: Sequence[str], points: pd.Data
     return finish_chart(chart, title, [sub] if sub else None, describe_row(row, arms, index_label), style)
 
 
-def _break_even_words(b: Mapping[str, Any], discrete: bool, margin: float, arms: Sequence[str] = ()) -> str:
+def _break_even_words(b: Mapping[str, Any], discrete: bool, margin: float, arms: Sequence[str] = (),
+                      bounds: Any = None) -> str:
     x = float(b["x"])
     meet = "break even" if not margin else "differ by the margin"
     lo_w, hi_w = (side_words(b["favours_below"], arms, margin), side_words(b.get("favours_above"), arms, margin))
@@ -337,7 +338,7 @@ def _break_even_words(b: Mapping[str, Any], discrete: bool, margin: float, arms:
         place = f"the arms {meet} at {fmt(x)}"
         sides = f"below it {lo_w}{fav}, above it {hi_w}"
     extra = "; this lies beyond the observed range, an extrapolation" if b.get("extrapolated") else ""
-    return f"{place} (interval {interval_words(b)}){extra}; {sides}"
+    return f"{place} (interval {interval_words(b, bounds)}){extra}; {sides}"
 
 
 def _region_words(r: Mapping[str, Any], discrete: bool, arms: Sequence[str] = (), margin: float = 0.0) -> str:
@@ -362,7 +363,7 @@ def describe_row(row: Mapping[str, Any], arms: Sequence[str], index_label: str |
     head = f"{measure_title(row)}{named} along {label}, {arms[0]} against {arms[1]}: "
     bes = row.get("break_even") or []
     if bes:
-        body = "; and ".join(_break_even_words(b, discrete, margin, arms) for b in bes) + "."
+        body = "; and ".join(_break_even_words(b, discrete, margin, arms, row_bounds(row)) for b in bes) + "."
     else:
         fav = side_words(row.get("favours_throughout"), arms, margin)
         span = level_span(*levels_within(lo, hi)) if discrete and levels_within(lo, hi) else \
@@ -380,8 +381,8 @@ def describe_row(row: Mapping[str, Any], arms: Sequence[str], index_label: str |
     return head + body + clear + (f" {about}" if about else "")
 
 
-def _row_interval(b: Mapping[str, Any]) -> str:
-    text = interval_words(b)
+def _row_interval(b: Mapping[str, Any], bounds: Any = None) -> str:
+    text = interval_words(b, bounds)
     if b.get("coverage") is not None:
         n = f" of {b['coverage_n']:,} patients" if b.get("coverage_n") else ""
         text += f" (covered the truth in {100 * b['coverage']:.1f}% of simulated cohorts{n})"
@@ -399,7 +400,7 @@ def breakeven_table(doc: Mapping[str, Any]) -> pd.DataFrame:
         bes = row.get("break_even") or []
         if bes:
             be_txt = "; ".join(fmt(b["x"]) + (" (extrapolated)" if b.get("extrapolated") else "") for b in bes)
-            interval = "; ".join(_row_interval(b) for b in bes)
+            interval = "; ".join(_row_interval(b, row_bounds(row)) for b in bes)
             below = "; ".join(side_words(b["favours_below"], arms, m) for b in bes)
             above = "; ".join(side_words(b.get("favours_above", ""), arms, m) for b in bes)
         else:

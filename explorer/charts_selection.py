@@ -12,7 +12,7 @@ from .charts_common import (ARM_LEGEND, AXIS_CHARS, FONT, HEIGHT, WIDTH, arm_sca
                             thinned)
 from .charts_curves import patient_layers
 from .look import ARM_COLOURS, INK, arm_colours
-from .words import fmt, wrap
+from .words import fmt, interval_span, wrap
 
 
 ALLOCATION_OPACITY = {"randomised": 1.0, "chosen": 0.35}
@@ -125,7 +125,7 @@ def selection_break_even_chart(row: Mapping[str, Any], *, index_title: str | Non
                   tooltip=[alt.Tooltip("estimate:N"), alt.Tooltip("x:Q", format=".3~g"), alt.Tooltip("lo:Q", format=".3~g"),
                            alt.Tooltip("hi:Q", format=".3~g")])]
     chart = sized_chart(alt.layer(*layers), WIDTH, 70 * len(order))
-    parts = [f"{e['estimate']}: {fmt(e['x'])}" + (f" (interval {_shape_words(e)})"
+    parts = [f"{e['estimate']}: {fmt(e['x'])}" + (f" (interval {_shape_words(e, row.get('index_bounds'))})"
                                                    if pd.notna(e["lo"]) or pd.notna(e["hi"]) else " (interval open)")
              for e in df.to_dict("records")]
     desc = (f"Break-even points of {row.get('measure', row.get('outcome'))} along {xt} by the patients used: "
@@ -134,16 +134,14 @@ def selection_break_even_chart(row: Mapping[str, Any], *, index_title: str | Non
     return finish_chart(chart, title, None, desc, style)
 
 
-def _shape_words(e: Mapping[str, Any]) -> str:
+def _shape_words(e: Mapping[str, Any], bounds: Any = None) -> str:
     lo, hi, x = e.get("lo"), e.get("hi"), e.get("x")
-    two = e.get("shape") == "two_rays" or (pd.notna(lo) and pd.notna(hi) and not lo <= x <= hi)
-    if two:
-        return f"below {fmt(lo)} or above {fmt(hi)}, running beyond the index"
-    if pd.isna(lo):
-        return f"anywhere up to {fmt(hi)}"
-    if pd.isna(hi):
-        return f"anywhere from {fmt(lo)}"
-    return f"{fmt(lo)} to {fmt(hi)}"
+    lo, hi = (None if pd.isna(lo) else float(lo)), (None if pd.isna(hi) else float(hi))
+    inside = x is None or pd.isna(x) or lo is None or hi is None or lo <= float(x) <= hi
+    two = e.get("shape") == "two_rays" or not inside
+    return interval_span({"ci": [lo, hi], "interval_shape": "two_rays" if two else "finite"}, bounds)
+
+
 PAIRWISE_INTERVALS = {"u-statistic": "large-sample U-statistic variances", "bootstrap-percentile": "percentile bootstrap"}
 
 
@@ -212,16 +210,30 @@ def _runs(df: pd.DataFrame, flag: str) -> list[tuple[float, float]]:
     return out
 
 
+def _difference(v: float | None, probability: bool) -> str:
+    """A chosen-minus-randomised difference in words: percentage points for a probability, the measure's own
+    units otherwise; 'higher' or 'lower' instead of a sign."""
+    if v is None:
+        return "open"
+    size = fmt(abs(100 * v) if probability else abs(v)) + (" percentage points" if probability else "")
+    return "no different" if v == 0 else f"{size} {'higher' if v > 0 else 'lower'}"
+
+
 def describe_selection(row: Mapping[str, Any]) -> str:
-    """A selection row in words: the averaged selection effect and how the break-even point moves."""
+    """A selection row in words: the averaged selection effect (in percentage points where the measure is a
+    probability, never a bare signed number) and how the break-even point moves."""
     arm, measure = row.get("arm"), row.get("measure", row.get("outcome"))
+    probability = bool(row.get("probability"))
     parts = []
     if row.get("effect") is not None:
         lo, hi = row.get("ci") or [None, None]
         p = row.get("p_value")
-        parts.append(f"In {arm}, chosen patients' {measure} differs from randomised patients' by {fmt(row['effect'])} "
-                     f"on average over {row.get('effect_over', 'the index')} (interval {fmt(lo)} to {fmt(hi)}"
-                     + (f", p = {fmt(p)}" if p is not None else "") + ").")
+        span = (f"interval from {_difference(lo, probability)} to {_difference(hi, probability)}"
+                if lo is not None and hi is not None else "interval open")
+        parts.append(f"In {arm}, chosen patients' {measure} is {_difference(row['effect'], probability)} than "
+                     f"randomised patients' at the same index value, on average over "
+                     f"{row.get('effect_over', 'the index')} ({span}" + (f"; p = {fmt(p)}" if p is not None else "")
+                     + ").")
     else:
         parts.append(f"In {arm}, the selection effect could not be estimated.")
     est = selection_estimates(row)
@@ -229,8 +241,11 @@ def describe_selection(row: Mapping[str, Any]) -> str:
         parts.append("Break-even points: " + "; ".join(f"{e['estimate']} {fmt(e['x'])}" for e in est) + ".")
     if row.get("shift") is not None:
         lo, hi = row.get("shift_ci") or [None, None]
-        ci = f" (interval {fmt(lo)} to {fmt(hi)})" if lo is not None and hi is not None else ""
-        parts.append(f"Using all patients moves the break-even point by {fmt(row['shift'])}{ci}.")
+        ci = (f" (interval from {fmt(lo)} to {fmt(hi)}; a negative value moves it lower)"
+              if lo is not None and hi is not None else "")
+        way = "higher" if row["shift"] > 0 else "lower"
+        parts.append(f"Using all patients instead of the randomised ones moves the break-even point "
+                     f"{fmt(abs(row['shift']))} {way} along the index{ci}.")
     return " ".join(parts)
 
 

@@ -34,17 +34,11 @@ from .reference_check import table as reference_table
 from .settings import advice, check_analysis, check_setting
 from .spec import load_spec
 from .coverage_study_cli import main as validation_main
+from .words import interval_words, row_bounds
 
 
 def _fmt(v: float | None) -> str:
     return "open" if v is None else f"{v:.3g}"
-
-
-def _interval_words(b: dict) -> str:
-    lo, hi = b["ci"]
-    if b.get("interval_shape") == "two_rays":
-        return f"[below {_fmt(lo)} or above {_fmt(hi)}]"
-    return f"[{_fmt(lo)}, {_fmt(hi)}]"
 
 
 def summary_table(doc: dict) -> str:
@@ -55,7 +49,7 @@ def summary_table(doc: dict) -> str:
     for row in doc["results"] + doc.get("composite", []):
         m = float(row.get("margin") or 0.0)
         if row["break_even"]:
-            be = "; ".join(f"{b['x']:.3g} {_interval_words(b)} {b['interval']}"
+            be = "; ".join(f"{b['x']:.3g} [{interval_words(b, row_bounds(row))}]"
                            + (" (extrapolated)" if b["extrapolated"] else "") for b in row["break_even"])
             fav = "; ".join(f"{side_words(b['favours_below'], arms, m)} / {side_words(b['favours_above'], arms, m)}"
                             for b in row["break_even"])

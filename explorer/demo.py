@@ -333,6 +333,7 @@ allocation = "allocation"
 randomised = "randomised"
 # cluster = "hospital" would give cluster-robust intervals, but six hospitals are too few clusters for them
 covariates = ["age", "sex", "cfs", "lactate", "albumin"]
+labels = {{ age = "Age (years)", sex = "Sex", cfs = "Clinical Frailty Scale", lactate = "Lactate (mmol/L)", albumin = "Albumin (g/L)" }}
 
 [[outcomes]]
 name = "alive"

@@ -49,7 +49,7 @@ SECTION_HEADS = {
 TYPE_WORDS = {"str": "text", "path": "file path", "float": "number", "int": "whole number", "bool": "true / false",
               "list[str]": "list of texts", "list[float]": "list of numbers", "list[int]": "list of whole numbers",
               "table[float]": "table of numbers",
-              "table[range]": "table of [low, high]", "table": "inline table"}
+              "table[range]": "table of [low, high]", "table[str]": "table of texts", "table": "inline table"}
 
 RESULT_FIELDS: dict[str, str] = {path: text for _, _, rows in RESULT_SECTIONS for path, text in rows}
 BREAK_EVEN_LISTS = ("composite[].break_even[]", "selection[].randomised_break_even[]",

@@ -8,7 +8,7 @@ from typing import Any, Iterable, Mapping
 import pandas as pd
 
 from .charts_common import check_for, index_label_of
-from .words import fmt
+from .words import fmt, interval_span, row_bounds
 
 COLUMNS = ("outcome", "index", "arms break even at", "better below", "better above", "estimated from",
            "does the difference change along the index?")
@@ -22,20 +22,6 @@ def change_words(em: Mapping[str, Any] | None) -> str:
     if em.get("weak_evidence"):
         return f"not clearly: the break-even rests on weak evidence (p = {fmt(p)})"
     return f"yes, clearly (p = {fmt(p)})"
-
-
-def _interval(b: Mapping[str, Any]) -> str:
-    lo, hi = (b.get("ci") or [None, None])[:2]
-    shape = b.get("interval_shape") or "finite"
-    if shape == "finite" and lo is not None and hi is not None:
-        return f"{fmt(lo)} to {fmt(hi)}"
-    if shape == "two_rays":
-        return f"below {fmt(lo)} or above {fmt(hi)}: the data cannot rule out most values"
-    if shape == "unbounded_below" and hi is not None:
-        return f"anywhere up to {fmt(hi)}"
-    if shape == "unbounded_above" and lo is not None:
-        return f"anywhere from {fmt(lo)}"
-    return "unbounded: the data cannot place it"
 
 
 def _population(row: Mapping[str, Any]) -> str:
@@ -55,7 +41,7 @@ def headline_table(rows: Iterable[Mapping[str, Any]], checks: Iterable[Mapping[s
         units = (row.get("index_info") or {}).get("units")
         bes = [b for b in row.get("break_even") or [] if b.get("x") is not None]
         if bes:
-            at = "; ".join(f"{fmt(b['x'])}{' ' + units if units else ''} ({_interval(b)})"
+            at = "; ".join(f"{fmt(b['x'])}{' ' + units if units else ''} ({interval_span(b, row_bounds(row))})"
                            + (", beyond the data" if b.get("extrapolated") else "") for b in bes)
             below, above = bes[0].get("favours_below") or "", bes[-1].get("favours_above") or ""
         else:

@@ -14,7 +14,7 @@ from typing import Any, Mapping, Sequence
 from xml.sax.saxutils import escape
 
 from .patient_summary import alive_at_horizon, has_states
-from .words import fmt, words
+from .words import fmt, interval_span, row_bounds, words
 from .patient import PatientView, Prediction, count_of_100
 
 
@@ -82,15 +82,10 @@ def _nearest_break_evens(rows: Sequence[Mapping[str, Any]], index: str, x: float
                        + (f" ({fav} ahead throughout)" if fav else "") + ".")
             continue
         b = min(points, key=lambda b: abs(float(b["x"]) - x))
-        lo, hi = (b.get("ci") or [None, None])[:2]
         side = "below" if x < float(b["x"]) else "above"
         fav = b.get("favours_below") if side == "below" else b.get("favours_above")
-        shape = b.get("interval_shape") or "finite"  # a two-part or open interval is said as such, never as one span
-        span = (f"{fmt(lo)} to {fmt(hi)}" if shape == "finite" and lo is not None and hi is not None else
-                f"interval in two parts: below {fmt(lo)} or above {fmt(hi)}" if shape == "two_rays" else
-                f"interval open below, up to {fmt(hi)}" if hi is not None else
-                f"interval open above, from {fmt(lo)}" if lo is not None else "interval unbounded")
-        out.append(f"{name}: {fmt(b['x'])} ({span}); patient {side}"
+        span = interval_span(b, row_bounds(r))  # two parts as two, open ends as open, within the bounds
+        out.append(f"{name}: {fmt(b['x'])} (interval {span}); patient {side}"
                    + (f": {fav} better." if fav else "."))
     return out
 

@@ -82,6 +82,7 @@ def index_info_json(iv) -> IndexInfo:
     info = dict(iv.info)
     out = IndexInfo({"kind": info.get("kind"), "label": info.get("label"), "units": info.get("units"),
                      "discrete": bool(info.get("discrete", False)),
+                     "bounds": [r6(v) for v in info["bounds"]] if info.get("bounds") else None,
                      "percentiles": {str(k): r6(v) for k, v in (info.get("percentiles") or {}).items()}})
     if "prognostic" in info:
         out["prognostic"] = jsonable(info["prognostic"])

@@ -200,6 +200,8 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("results[].index_info.label", "The index's readable name."),
         ("results[].index_info.units", "Its units, or null."),
         ("results[].index_info.discrete", "True when the index takes whole levels only (e.g. a frailty scale)."),
+        ("results[].index_info.bounds", "The values the index can take, [low, high], as the spec declares them (e.g. "
+         "[1, 9] for a 1-9 scale), or null; interval words cut a break-even interval to them."),
         ("results[].index_info.percentiles", "Cohort percentiles of the index, by percentile (5, 25, 50, 75, 95)."),
         ("results[].index_info.prognostic", "Prognostic indices only: the cross-fitted model behind the index."),
         ("results[].index_info.about", "Prognostic indices only: one sentence saying the index is a score fitted from "
@@ -249,6 +251,9 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("selection[].index", "The index's name."),
         ("selection[].arm", "The arm compared within."),
         ("selection[].measure", "The measure in words."),
+        ("selection[].probability", "True when the measure is a probability (effects are then differences in "
+         "probability, said in percentage points)."),
+        ("selection[].index_bounds", "The index's declared bounds [low, high], or null (as index_info.bounds)."),
         ("selection[].effect", "Selection effect: chosen minus randomised measure in this arm, averaged over the "
                                "index values of this arm's randomised patients."),
         ("selection[].ci", "Its interval."),

@@ -662,7 +662,11 @@ def analyse_selection(fs: ft.FitSet, *, shift_interval: str | None = None, repli
         for arm in spec.cohort.arms:
             eff = selection_effect(sp, arm, spec)
             effects[(*key, arm)] = eff
-            rows.append(_row(sp, arm, eff, (rb, ab, jb), shift, ev))
+            row = _row(sp, arm, eff, (rb, ab, jb), shift, ev)
+            bounds = spec.index(sp.index).bounds
+            row.update(probability=describe(sp.outcome).probability,
+                       index_bounds=None if bounds is None else [float(v) for v in bounds])
+            rows.append(row)
     coverage = {ix.name: randomised_coverage(fs, ix.name) for ix in spec.indices}
     return SelectionResults(pairs, effects, rows, coverage)
 

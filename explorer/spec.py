@@ -52,6 +52,7 @@ class CohortSpec:
     cluster: str | None = None
     sheet: str | None = None
     covariates: tuple[str, ...] = ()
+    labels: tuple[tuple[str, str], ...] = ()  # (column, the label a person reads); a tuple keeps the spec hashable
     database: str | None = None
     table: str | None = None
     query: str | None = None
@@ -195,6 +196,10 @@ class Spec:
                 return o
         raise KeyError(name)
 
+    def column_title(self, column: str) -> str:
+        """The label a person reads for a cohort column: the spec's own ([cohort] labels), else its name."""
+        return dict(self.cohort.labels).get(column) or column
+
     def index(self, name: str) -> IndexSpec:
         for i in self.indices:
             if i.name == name:
@@ -225,6 +230,9 @@ SCHEMA: dict[str, dict[str, tuple[str, str]]] = {
         "cluster": ("str", "Optional column of clusters (e.g. hospital) for cluster-robust intervals."),
         "sheet": ("str", "Excel only: the sheet to read when the workbook has several."),
         "covariates": ("list[str]", "Baseline covariates to describe by arm and allocation."),
+        "labels": ("table[str]", "Optional readable labels for columns, shown wherever a person reads a column "
+                   "(e.g. the patient's values): { lactate = \"Lactate (mmol/L)\" }. Unlabelled columns are shown "
+                   "by their name."),
         **DATABASE_KEYS,
     },
     "outcomes": {
@@ -393,7 +401,7 @@ def parse_spec(data: dict[str, Any], base_dir: str | Path = ".", source: str | N
     cohort = CohortSpec(
         **cohort_source(c, base_dir, source), arm=c.get("arm"), arms=(arms[0], arms[1]), id=c.get("id"),
         allocation=c.get("allocation"), randomised=c.get("randomised", "randomised"), cluster=c.get("cluster"),
-        sheet=c.get("sheet"), covariates=c.get("covariates", ()),
+        sheet=c.get("sheet"), covariates=c.get("covariates", ()), labels=tuple(c.get("labels", {}).items()),
     )
 
     outcomes = tuple(margins.check_outcome(_outcome(o, i, source), source)
@@ -661,6 +669,8 @@ def spec_to_dict(spec: Spec, relative_to: Path | None = None) -> dict[str, Any]:
 
     out = plain(spec, relative_to)
     out.get("analysis", {}).pop("scheduler", None)  # set on the command line only, never written to a spec
+    if "labels" in out["cohort"]:  # held as pairs so the spec stays hashable; written as the table it was read as
+        out["cohort"]["labels"] = dict(out["cohort"]["labels"])
     for key in ("outcomes", "indices", "maps"):
         out.setdefault(key, [])
     if not out["maps"]:

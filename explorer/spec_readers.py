@@ -87,6 +87,16 @@ def coerce(value: Any, type_name: str, path: str, source: str | None) -> Any:
                                    file=source, key=f"{path}.{k}", hint="Give each weight as a number.")
             out[nfc(str(k))] = float(v)
         return out
+    if type_name == "table[str]":
+        if not isinstance(value, dict):
+            raise bad('a table of texts, e.g. { lactate = "Lactate (mmol/L)" }')
+        out_text = {}
+        for k, v in value.items():
+            if not isinstance(v, str) or not v.strip():
+                raise FulcrumError(f"'{path}.{k}' should be a text, found {v!r}.", file=source, key=f"{path}.{k}",
+                                   hint='Write the label in quotes, e.g. "Lactate (mmol/L)".')
+            out_text[nfc(str(k))] = nfc(v.strip())
+        return out_text
     if type_name == "table[range]":
         if not isinstance(value, dict):
             raise bad("a table of [low, high] pairs")

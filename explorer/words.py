@@ -61,23 +61,63 @@ def percentile_words(b: Mapping[str, Any]) -> str:
     return "" if p is None else f"the {ordinal(p)} percentile of the cohort"
 
 
-def interval_words(b: Mapping[str, Any]) -> str:
-    lo, hi = b["ci"]
-    shape = b.get("interval_shape", "finite")
-    if shape == "two_rays":
-        core = f"in two parts, up to {fmt(lo)} and from {fmt(hi)}"
-    elif shape == "unbounded" or (lo is None and hi is None):
-        core = "unbounded: the data cannot place it"
-    elif lo is None:
-        core = f"open below, up to {fmt(hi)}"
-    elif hi is None:
-        core = f"from {fmt(lo)}, open above"
-    else:
-        core = f"{fmt(lo)} to {fmt(hi)}"
+def _span_piece(a: float | None, z: float | None, bounds: tuple[float, float] | None) -> str | None:
+    """One connected piece of an interval (None: open), cut to the declared bounds; None when it lies wholly
+    outside them."""
+    if bounds is not None:
+        low, high = float(bounds[0]), float(bounds[1])
+        if (a is not None and a > high) or (z is not None and z < low):
+            return None
+        from_low, to_high = a is None or a <= low, z is None or z >= high
+        if from_low and to_high:
+            return f"anywhere from {fmt(low)} to {fmt(high)}, the whole possible range"
+        if from_low:
+            return f"from the lowest possible value ({fmt(low)}) to {fmt(z)}"
+        if to_high:
+            return f"from {fmt(a)} to the highest possible value ({fmt(high)})"
+        return f"{fmt(a)} to {fmt(z)}"
+    if a is None and z is None:
+        return "unbounded"
+    if a is None:
+        return f"open below, up to {fmt(z)}"
+    if z is None:
+        return f"from {fmt(a)}, open above"
+    return f"{fmt(a)} to {fmt(z)}"
+
+
+def interval_span(b: Mapping[str, Any], bounds: Any = None) -> str:
+    """Where a break-even's interval lies, in words: a two-part interval as two parts, an open end as open, and
+    ends past the index's declared bounds (e.g. [1, 9] for a 1-9 scale) as the lowest or highest possible value,
+    never as an impossible number such as -21.5 on a 1-9 scale. The one home of these words: every table,
+    sentence and summary that states a break-even interval uses it."""
+    lo, hi = (b.get("ci") or [None, None])[:2]
+    lo = None if lo is None or not np.isfinite(lo) else float(lo)
+    hi = None if hi is None or not np.isfinite(hi) else float(hi)
+    scale = (float(bounds[0]), float(bounds[1])) if bounds else None
+    two = b.get("interval_shape") == "two_rays" and lo is not None and hi is not None
+    pieces = [p for p in ([_span_piece(None, lo, scale), _span_piece(hi, None, scale)] if two
+                          else [_span_piece(lo, hi, scale)]) if p is not None]
+    if not pieces:
+        return "outside the possible range: the data cannot place it"
+    if len(pieces) == 2:
+        return f"in two parts: {pieces[0]}, and {pieces[1]}"
+    text = pieces[0]
+    if text == "unbounded" or text.endswith("the whole possible range"):
+        return f"{text}: the data cannot place it"
+    return text
+
+
+def interval_words(b: Mapping[str, Any], bounds: Any = None) -> str:
+    """interval_span with the method that made the interval (e.g. 'Fieller', 'bootstrap percentile')."""
     method = METHOD_WORDS.get(b.get("interval", ""), b.get("interval", ""))
     if b.get("approximate"):
         method += ", approximate"
-    return f"{core}, {method}"
+    return f"{interval_span(b, bounds)}, {method}"
+
+
+def row_bounds(row: Mapping[str, Any]) -> Any:
+    """The declared bounds of a results row's index ([low, high]), or None."""
+    return (row.get("index_info") or {}).get("bounds")
 
 
 def levels_within(lo: float, hi: float) -> tuple[int, int] | None:

@@ -369,8 +369,14 @@ def test_describe_row_says_only_numbers_of_the_row(doc):
                 assert str(math.floor(b["x"])) in found
             else:
                 assert wd.fmt(b["x"]) in found
+            bounds = (row.get("index_info") or {}).get("bounds")
             for end in b["ci"]:
-                if end is not None:
+                if end is None:
+                    continue
+                if bounds and not bounds[0] <= end <= bounds[1]:
+                    # an end past the declared bounds (the demo's 1-9 frailty scale) is said as the scale's end
+                    assert wd.fmt(end) not in found and (wd.fmt(bounds[0]) in found or wd.fmt(bounds[1]) in found)
+                else:
                     assert wd.fmt(end) in found
         for arm in {b["favours_below"] for b in row["break_even"]} | {r["favours"] for r in cu.clear_regions(row)}:
             assert arm in sentence
@@ -394,7 +400,7 @@ def _hand_row(shape: str, ci: list, discrete: bool = False) -> dict:
     ("finite", [5.1, 7.2], "5.1 to 7.2"),
     ("unbounded_above", [5.1, None], "open above"),
     ("unbounded_below", [None, 7.2], "open below"),
-    ("two_rays", [4.0, 8.0], "in two parts, up to 4 and from 8"),
+    ("two_rays", [4.0, 8.0], "in two parts: open below, up to 4, and from 8, open above"),
     ("unbounded", [None, None], "unbounded"),
 ])
 def test_interval_shapes_are_said_and_drawn(shape, ci, words):

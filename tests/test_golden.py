@@ -4,7 +4,8 @@ were made (tests/golden/make_golden.py says what each case covers and when to re
 The reference here is the project's own earlier output, made at commit 2904666 before the redesign and kept in
 tests/golden/*.json.gz: a refactoring must leave every number of it in place. The redesign left it identical; the
 demo and invented files were then regenerated once for an intended change of words only (composite titles in words
-instead of kind names, quality-adjusted measures with their units), every number unchanged. Every golden field must be present and equal (numbers
+instead of kind names, quality-adjusted measures with their units), every number unchanged; the demo's again when
+its spec gained column labels (only the two spec hashes changed). Every golden field must be present and equal (numbers
 within 1e-9 relative + 1e-12 absolute), except tool.generated_at and tool.version; fields added since are allowed.
 """
 from __future__ import annotations

@@ -49,6 +49,8 @@ def test_the_patient_in_hand_survives_a_new_cohort_and_asks_coded_text_by_its_la
     fields = aps.patient_fields(ws.spec, ws.index_values(), ws.cohort.frame, codings)
     sex = next(f for f in fields if f["key"] == "sex")
     assert not sex["numeric"] and set(sex["options"]) == {"F", "M"}  # the demo file's own labels
+    # a formula's columns are asked by the spec's [cohort] labels, never by the bare column name
+    assert {f["key"]: f["label"] for f in fields}["lactate"] == "Lactate (mmol/L)" and sex["label"] == "Sex"
     choice = aps.PatientChoice(values={"cfs": 7.0, "age": 82.0, "sex": "M", "gone": 3.0}, row=10_000)
     fitted = choice.fitted_to(fields, ws.cohort.n)
     assert fitted.values["cfs"] == 7.0 and fitted.values["sex"] == "M" and "gone" not in fitted.values
@@ -87,7 +89,10 @@ def test_a_two_ray_break_even_interval_is_drawn_as_two_rays_within_the_index() -
     spec = chart_spec(chart)
     domains = [ly["encoding"]["x"]["scale"]["domain"] for ly in spec["layer"] if "scale" in ly["encoding"]["x"]]
     assert domains and all(d == [1.0, 9.0] for d in domains)  # no axis stretched beyond the index
-    assert "below -18.7 or above 5.94" in spec["description"]
+    assert "in two parts: open below, up to -18.7, and from 5.94, open above" in spec["description"]
+    # With the index's declared bounds the words stay on the scale: nothing below 1 on a 1-9 scale.
+    spec = chart_spec(selection_break_even_chart({**row, "index_bounds": [1, 9]}, index_title="Clinical Frailty Scale"))
+    assert "from 5.94 to the highest possible value (9)" in spec["description"] and "-18.7" not in spec["description"]
 
 
 def test_numbered_levels_read_as_levels_and_named_ones_as_words() -> None:
@@ -108,6 +113,35 @@ def test_the_meeting_view_says_a_two_part_break_even_interval_as_two_parts() -> 
             {"index": "cfs", "outcome": "qol", "break_even": [
                 {"x": 2.64, "ci": [None, 4.43], "interval_shape": "unbounded_below"}]}]
     said = _nearest_break_evens(rows, "cfs", 7.0, {"alive": "Alive", "home": "At home", "qol": "QoL"}, "CFS")
-    assert said[0] == "Alive: 7.86 (interval in two parts: below -18.7 or above 5.94); patient below: laparotomy better."
-    assert said[1].startswith("At home: 4.36 (1.74 to 5.68); patient above")
+    assert said[0] == ("Alive: 7.86 (interval in two parts: open below, up to -18.7, and from 5.94, open above); "
+                       "patient below: laparotomy better.")
+    assert said[1].startswith("At home: 4.36 (interval 1.74 to 5.68); patient above")
     assert said[2].startswith("QoL: 2.64 (interval open below, up to 4.43)")
+
+
+def test_interval_ends_past_the_index_bounds_are_said_as_the_scale_ends() -> None:
+    # The demo's own intervals along the Clinical Frailty Scale (1-9, Rockwood 2005; bounds declared in the spec):
+    # a Fieller set reaching -21.5 or a two-ray set (-inf, -18.7] U [5.94, inf) is, on the scale, [1, 4.43] or
+    # [5.94, 9]; the words say so instead of printing an impossible frailty of -21.5.
+    from explorer.headline_table import headline_table
+    from explorer.meeting import _nearest_break_evens
+
+    info = {"label": "Clinical Frailty Scale", "bounds": [1, 9]}
+    rows = [{"index": "cfs", "outcome": "alive", "index_info": info, "break_even": [
+                {"x": 7.86, "ci": [-18.7, 5.94], "interval_shape": "two_rays", "favours_below": "laparotomy",
+                 "favours_above": "non-operative"}]},
+            {"index": "cfs", "outcome": "qol", "index_info": info, "break_even": [
+                {"x": 2.64, "ci": [-21.5, 4.43], "interval_shape": "finite", "favours_below": "laparotomy",
+                 "favours_above": "non-operative"}]},
+            {"index": "cfs", "outcome": "days", "index_info": info, "break_even": [
+                {"x": 5.0, "ci": [None, None], "interval_shape": "unbounded", "favours_below": "laparotomy",
+                 "favours_above": "non-operative"}]}]
+    titles = {"alive": "Alive", "qol": "QoL", "days": "Days at home"}
+    said = _nearest_break_evens(rows, "cfs", 7.0, titles, "CFS")
+    assert said[0].startswith("Alive: 7.86 (interval from 5.94 to the highest possible value (9))")
+    assert said[1].startswith("QoL: 2.64 (interval from the lowest possible value (1) to 4.43)")
+    assert "anywhere from 1 to 9, the whole possible range: the data cannot place it" in said[2]
+    table = headline_table(rows, [], titles)
+    cells = " ".join(table["arms break even at"])
+    assert "-18.7" not in cells and "-21.5" not in cells
+    assert "2.64 (from the lowest possible value (1) to 4.43)" in cells

@@ -77,6 +77,8 @@ def test_paths_resolve_relative_to_spec_file(tmp_path):
     (BASE + '\n[[maps]]\nindices = ["cfs", "age"]\ntarget = "alive"\n', "maps[1].indices", "'age'"),
     (BASE.replace('column = "cfs"', 'column = "cfs"\nformula = "cfs*2"'), "indices", "exactly one of"),
     ("[cohort\n", None, "not valid TOML"),
+    (BASE.replace('arm = "group"', 'arm = "group"\nlabels = { cfs = 7 }'), "cohort.labels.cfs", "should be a text"),
+    (BASE.replace('arm = "group"', 'arm = "group"\nlabels = ["cfs"]'), "cohort.labels", "a table of texts"),
 ])
 def test_errors_name_the_key_and_what_to_do(bad, key, words):
     with pytest.raises(FulcrumError) as e:
@@ -98,6 +100,10 @@ def test_toml_round_trip_and_canonical_hash(tmp_path):
     reordered = BASE.replace('arm = "group"\narms = ["op", "no-op"]', 'arms = [ "op" , "no-op" ]\narm = "group"')
     reordered += "\n[analysis]\nmargin = 0.0\nlevel = 0.95\n"
     assert canonical_sha256(parse(reordered, tmp_path)) == canonical_sha256(spec)
+    # column labels are written back as the table they were read as
+    labelled = parse(BASE.replace('arm = "group"', 'arm = "group"\nlabels = { cfs = "Frailty (CFS)" }'), tmp_path)
+    assert labelled.column_title("cfs") == "Frailty (CFS)" and labelled.column_title("t") == "t"
+    assert parse(to_toml(labelled, relative_to=tmp_path), tmp_path) == labelled
 
 
 def test_missing_spec_file_message(tmp_path):

@@ -79,7 +79,8 @@ def compute_index(spec_index: IndexSpec, frame: pd.DataFrame, *, spec: Spec, see
     seed = spec.analysis.seed if seed is None else seed
     level = spec.analysis.level if level is None else level
     warnings: list[str] = []
-    info: dict[str, Any] = {"kind": spec_index.kind, "label": spec_index.title, "units": spec_index.units}
+    info: dict[str, Any] = {"kind": spec_index.kind, "label": spec_index.title, "units": spec_index.units,
+                            "bounds": list(spec_index.bounds) if spec_index.bounds is not None else None}
     if spec_index.column:
         model: IndexModel = ColumnIndex(str(spec_index.column), key=f"{key}.column")
         values = model.compute(frame)

@@ -46,22 +46,23 @@ class Results:
 
 def analyse(spec: Spec, cohort: Cohort | None = None, *, spec_bytes: bytes | None = None,
             progress: Progress | None = None, fitset: FitSet | None = None,
-            replicates: list[dict] | None = None) -> Results:
+            replicates: list[dict] | None = None, selection: Any = None) -> Results:
     """Run the analysis the spec describes; `progress(done, total)` reports resampling steps.
 
-    `fitset` and `replicates` let a caller (the app) pass fits and bootstrap replicates it already has.
+    `fitset`, `replicates` and `selection` let a caller (the app) pass fits, bootstrap replicates and the
+    randomised-vs-chosen analysis (selection.analyse_selection on these fits and this spec) it already has.
     Numerical warnings (overflow and the like) become result warnings instead of reaching the terminal.
     """
     fs = fitset or fit_all(spec, cohort)
     numeric: list[str] = []
     with captured(numeric, "summarising the fits"):
-        out = _analyse(spec, fs, spec_bytes, progress, replicates)
+        out = _analyse(spec, fs, spec_bytes, progress, replicates, selection)
     out.document["warnings"] = list(dict.fromkeys(out.document["warnings"] + numeric))
     return out
 
 
 def _analyse(spec: Spec, fs: FitSet, spec_bytes: bytes | None, progress: Progress | None,
-             replicates: list[dict] | None) -> Results:
+             replicates: list[dict] | None, selection: Any = None) -> Results:
     reps = replicates
     if reps is None and spec.analysis.interval == "bootstrap":
         keep = (spec.values.outcome,) if spec.values else ()
@@ -69,8 +70,7 @@ def _analyse(spec: Spec, fs: FitSet, spec_bytes: bytes | None, progress: Progres
     summaries = summarise(fs, reps)
     rows = [curve_row(fs.pairs[key], s, index_info_json(fs.indices[key[1]])) for key, s in summaries.items()]
     composite = vl.composite_summaries(fs, replicates=reps) if spec.values else {}
-    selection = None
-    if spec.cohort.allocation and fs.cohort.randomised is not None:
+    if selection is None and spec.cohort.allocation and fs.cohort.randomised is not None:
         selection = sel.analyse_selection(fs, replicates=0 if spec.analysis.interval == "analytic" else None,
                                           progress=progress)
     pairwise = []

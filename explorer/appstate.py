@@ -451,9 +451,20 @@ class Workspace:
         return self.boot_key() in self.replicates
 
     def run_bootstrap(self, progress: Callable[[int, int], None] | None = None) -> None:
-        """Bootstrap replicates for the current fits, kept for every later re-summary (margin, weights)."""
+        """Bootstrap replicates for the current fits, kept for every later re-summary (margin, weights); with
+        chosen patients in the cohort, the bootstrap of the break-even shift too (selection.analyse_selection
+        exactly as analyse() runs it), so the report that follows runs no bootstrap of its own."""
+        fs = self.fitset()
         keep = (self.spec.values.outcome,) if self.spec.values else ()
-        self.replicates.put(self.boot_key(), run_bootstrap(self.fitset(), progress=progress, keep_distribution=keep))
+        self.replicates.put(self.boot_key(), run_bootstrap(fs, progress=progress, keep_distribution=keep))
+        if self.spec.cohort.allocation and fs.cohort.randomised is not None:
+            spec = _interval(self.spec, "bootstrap")
+            self.results.put(self._boot_selection_key(), analyse_selection(
+                dataclasses.replace(fs, spec=spec), replicates=None, progress=progress))
+
+    def _boot_selection_key(self) -> tuple:
+        spec = _interval(dataclasses.replace(self.spec, values=None), "bootstrap")
+        return ("boot-selection", *result_key(self.data_sha256, spec, True))
 
     def _reps(self, bootstrap: bool) -> list[dict] | None:
         return self.replicates.take(self.boot_key()) if bootstrap else None
@@ -526,6 +537,7 @@ class Workspace:
             extra: dict[str, Any] = {"spec_bytes": spec_text(spec).encode()}
             if boot:  # the replicates already run: the report needs no new bootstrap
                 extra["replicates"] = self._reps(True)
+                extra["selection"] = self.results.take(self._boot_selection_key())
             return analyse(spec, fitset=fs, **extra)
 
         return self._cached(key, make)

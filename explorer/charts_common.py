@@ -7,9 +7,12 @@ titled, described for screen readers and sized for a projector.
 """
 from __future__ import annotations
 
-import re
+import hashlib
 import math
+import pickle
+import re
 import threading
+from collections import OrderedDict
 from functools import lru_cache, wraps
 from typing import Any, Callable, Iterable, Mapping, Sequence
 
@@ -127,27 +130,54 @@ _quiet_depth = 0
 _saved_debug = True
 
 
-def quick_chart(fn: Callable) -> Callable:
-    """Build without Altair's per-object validation (specs are validated whole by to_dict when wanted).
+BUILT_KEPT = 128  # charts kept for reuse (a page shows up to about twenty; a session revisits its pages)
+_built: OrderedDict[bytes, Any] = OrderedDict()
 
-    Altair keeps the switch in a module global; a counter under a lock restores it only when the last of
-    several concurrent builds (app sessions run in threads) has finished.
+
+def _build_key(fn: Callable, args: tuple, kwargs: dict) -> bytes | None:
+    """A digest of a chart builder's name and arguments (rows, frames, arms, the patient marker), or None when
+    an argument cannot be pickled (such a chart is simply built each time)."""
+    try:
+        blob = pickle.dumps((fn.__module__, fn.__qualname__, args, sorted(kwargs.items())), protocol=5)
+    except Exception:
+        return None
+    return hashlib.blake2b(blob, digest_size=20).digest()
+
+
+def quick_chart(fn: Callable) -> Callable:
+    """Build without Altair's per-object validation (specs are validated whole by to_dict when wanted), and
+    give back the chart already built when the same builder is called with equal arguments: a page rerun (a
+    page switch, a control elsewhere) redraws the same charts, and building them took most of its time. The
+    builders are pure functions of their arguments and callers copy a chart before changing it.
+
+    Altair keeps the validation switch in a module global; a counter under a lock restores it only when the
+    last of several concurrent builds (app sessions run in threads) has finished.
     """
     @wraps(fn)
     def run(*args: Any, **kwargs: Any) -> Any:
         global _quiet_depth, _saved_debug
+        key = _build_key(fn, args, kwargs)
         with _QUIET:
+            if key is not None and key in _built:
+                _built.move_to_end(key)
+                return _built[key]
             if _quiet_depth == 0:
                 _saved_debug = schemapi.DEBUG_MODE
                 schemapi.DEBUG_MODE = False
             _quiet_depth += 1
         try:
-            return fn(*args, **kwargs)
+            chart = fn(*args, **kwargs)
         finally:
             with _QUIET:
                 _quiet_depth -= 1
                 if _quiet_depth == 0:
                     schemapi.DEBUG_MODE = _saved_debug
+        if key is not None:
+            with _QUIET:
+                _built[key] = chart
+                while len(_built) > BUILT_KEPT:
+                    _built.popitem(last=False)
+        return chart
     return run
 
 

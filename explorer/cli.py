@@ -305,12 +305,20 @@ def streamlit_flags(address: str | None, port: int | None) -> list[str]:
     return flags
 
 
+# `streamlit run` in this process, while a background thread imports the engine (about five seconds of the first
+# page on a fresh server, spent instead while the server starts); the first session then finds it imported.
+LAUNCH = ("import runpy, sys, threading\n"
+          "threading.Thread(target=__import__, args=('explorer.appstate',), daemon=True).start()\n"
+          "sys.argv = ['streamlit', 'run', *sys.argv[1:]]\n"
+          "runpy.run_module('streamlit', run_name='__main__', alter_sys=True)\n")
+
+
 def cmd_app(args: argparse.Namespace) -> int:
     if args.port is not None and not 1 <= args.port <= 65535:
         raise FulcrumError(f"--port is {args.port}; a port is a number from 1 to 65535.",
                            hint="For example --port 8501.")
     main_script = resources.files("explorer.app_pages").joinpath("app.py")
-    cmd = [sys.executable, "-m", "streamlit", "run", str(main_script), *streamlit_flags(args.address, args.port)]
+    cmd = [sys.executable, "-c", LAUNCH, str(main_script), *streamlit_flags(args.address, args.port)]
     if args.spec:
         cmd += ["--", "--spec", str(Path(args.spec).resolve())]
     env = dict(os.environ, STREAMLIT_BROWSER_GATHER_USAGE_STATS="false")

@@ -8,7 +8,9 @@ from __future__ import annotations
 import logging
 import sys
 import tempfile
+import threading
 import traceback
+from collections import OrderedDict
 from pathlib import Path
 from types import SimpleNamespace
 from typing import Any, Callable
@@ -321,16 +323,38 @@ def description(chart: Any) -> str | None:
     return text if isinstance(text, str) else None
 
 
-def show_chart(chart: Any) -> None:
-    """A chart as wide as its column, keeping its own plot height (titles and legends are added around it)."""
+_SPECS: OrderedDict[int, tuple[Any, dict, str]] = OrderedDict()  # id(chart) -> (chart, its spec, its width)
+_SPECS_LOCK = threading.Lock()
+
+
+def vega_spec(chart: Any) -> tuple[dict, str]:
+    """The chart's Vega-Lite spec, made once per chart object (the builders give back the same object for the
+    same arguments, so a rerun reuses it), without Altair's whole-spec schema validation: that took about 0.2 s
+    a chart, two seconds of every visit to the Outcomes page; tests/test_charts.py validates every builder's.
+    With it, the width to show it at: panels keep their own size (fit-x would squeeze them to 0)."""
     import altair as alt
 
-    if isinstance(chart, (alt.FacetChart, alt.ConcatChart, alt.HConcatChart, alt.VConcatChart)):
-        st.altair_chart(chart, width="content")  # panels keep their own size (fit-x would squeeze them to 0)
-        return
-    chart = chart.copy(deep=False)
-    chart.autosize = alt.AutoSizeParams(type="fit-x", contains="padding")
-    st.altair_chart(chart, width="stretch")
+    with _SPECS_LOCK:
+        hit = _SPECS.get(id(chart))
+        if hit is not None and hit[0] is chart:
+            _SPECS.move_to_end(id(chart))
+            return hit[1], hit[2]
+    view, width = chart, "content"
+    if not isinstance(chart, (alt.FacetChart, alt.ConcatChart, alt.HConcatChart, alt.VConcatChart)):
+        view, width = chart.copy(deep=False), "stretch"
+        view.autosize = alt.AutoSizeParams(type="fit-x", contains="padding")
+    spec = view.to_dict(validate=False)
+    with _SPECS_LOCK:
+        _SPECS[id(chart)] = (chart, spec, width)
+        while len(_SPECS) > 128:
+            _SPECS.popitem(last=False)
+    return spec, width
+
+
+def show_chart(chart: Any) -> None:
+    """A chart as wide as its column, keeping its own plot height (titles and legends are added around it)."""
+    spec, width = vega_spec(chart)
+    st.vega_lite_chart(spec=dict(spec), width=width)
 
 
 def altair(chart: Any, text: str | None = None) -> None:

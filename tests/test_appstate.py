@@ -174,6 +174,25 @@ def test_workspace_matches_the_command_line_analysis(demo_ws: aps.Workspace) -> 
     assert doc["inputs"]["spec_canonical_sha256"] == cli["inputs"]["spec_canonical_sha256"]
 
 
+def test_the_bootstrap_the_app_runs_gives_the_report_fulcrum_analyse_would(demo_ws: aps.Workspace,
+                                                                           monkeypatch: pytest.MonkeyPatch) -> None:
+    # Determinism (DESIGN 2b): the app's bootstrap button runs the model and break-even-shift replicates once;
+    # the report made from them must equal `fulcrum analyse` with the same bootstrap spec, field for field.
+    ws = demo_ws.with_spec(aps.with_settings(demo_ws.spec, margin=0.0, replicates=20))
+    ws.run_bootstrap()
+    from explorer import selection
+
+    with monkeypatch.context() as m:  # the report runs no selection analysis (and so no shift bootstrap) again
+        m.setattr(selection, "analyse_selection", lambda *a, **k: pytest.fail("the shift bootstrap ran again"))
+        app = ws.result(bootstrap=True).document
+    spec = ws.results_spec(True)
+    cli = analyse(spec, ws.cohort, spec_bytes=aps.spec_text(spec).encode()).document
+    assert spec.analysis.interval == "bootstrap" and app["selection"], "no shift bootstrap to compare"
+    assert {r["shift_interval"] for r in app["selection"] if r.get("shift") is not None} == {"bootstrap-percentile"}
+    for key in ("results", "selection", "composite", "pairwise"):
+        assert app[key] == cli[key], key
+
+
 def test_margin_and_weights_never_refit(demo_ws: aps.Workspace) -> None:
     ws = demo_ws
     ws.fitset()

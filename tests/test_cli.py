@@ -110,7 +110,9 @@ def test_app_becomes_streamlit_with_the_projects_settings_and_two_malloc_arenas(
     monkeypatch.delenv("MALLOC_ARENA_MAX", raising=False)
     with pytest.raises(SystemExit):
         main(["app", "--port", "8599"])
-    assert seen["argv"][1:4] == ["-m", "streamlit", "run"] and "--server.port=8599" in seen["argv"]
+    # `streamlit run` on the packaged app script, from a launcher that imports the engine while the server starts
+    assert seen["argv"][1] == "-c" and "runpy.run_module('streamlit'" in seen["argv"][2]
+    assert seen["argv"][3].endswith("app.py") and "--server.port=8599" in seen["argv"]
     assert seen["env"]["MALLOC_ARENA_MAX"] == "2" and seen["env"]["STREAMLIT_BROWSER_GATHER_USAGE_STATS"] == "false"
     monkeypatch.setenv("MALLOC_ARENA_MAX", "4")
     with pytest.raises(SystemExit):

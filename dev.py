@@ -77,7 +77,9 @@ def cmd_test(args: list[str]) -> int:
     ensure_venv("test,cluster")
     ensure_chromium()
     ensure_postgresql()
-    workers = ["-n", "2"] if not any(a.startswith("-n") for a in args) else []
+    # one pytest worker more than cores: the browser tests spend much of their time waiting on pages, and with one
+    # worker a core a third of the machine's time was idle
+    workers = ["-n", str((os.cpu_count() or 2) + 1)] if not any(a.startswith("-n") for a in args) else []
     code = subprocess.call([str(PY), "-m", "pytest", *workers, *args], cwd=ROOT)
     if code == 5:
         print("pytest collected no tests: that is a failure here.", flush=True)

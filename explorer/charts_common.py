@@ -99,7 +99,7 @@ def projector_config() -> alt.Config:
         font=TYPEFACE,
         axis=alt.AxisConfig(labelFontSize=FONT["axis_label"], titleFontSize=FONT["axis_title"], grid=True,
                             gridColor=RULE, gridOpacity=0.35, labelColor=INK, titleColor=INK, domainColor=MUTED,
-                            tickColor=MUTED, titleFontWeight="normal"),
+                            tickColor=MUTED, titleFontWeight="normal", labelLimit=360),  # Vega-Lite cuts at 180 px
         legend=alt.LegendConfig(labelFontSize=FONT["legend_label"], titleFontSize=FONT["legend_title"],
                                 orient="bottom", direction="vertical", labelLimit=420, titleLimit=420,
                                 symbolSize=160, labelColor=INK, titleColor=INK),

@@ -79,9 +79,8 @@ doc = {"arms": arms, "results": rows, "checks": checks}
 with headline:
     table = headline_table.headline_table([r for r in rows if r["index"] == index], checks,
                                           {o.name: o.title for o in ws.spec.outcomes})
-    st.dataframe(table.drop(columns=["index"]), hide_index=True, width="stretch",
-                 column_config={c: st.column_config.TextColumn(c, width="large" if c.startswith(("arms", "does"))
-                                                               else "medium") for c in table.columns})
+    # a static table: every cell wraps and reads in full at 1400 px (a data grid cut the break-even column short)
+    st.table(table.drop(columns=["index"]), hide_index=True)
     clusters = ui.attempt(ws.clustering)
     st.caption(f"{aps.md_escape(arms[0])} is drawn in blue, {aps.md_escape(arms[1])} in orange. "
                + aps.md_escape(charts_checks.describe_clustering(clusters)))

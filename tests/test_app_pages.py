@@ -39,6 +39,7 @@ def texts(at: AppTest) -> str:
     parts = [e.value for kind in ("markdown", "caption", "info", "warning", "error", "success", "title",
                                   "header", "subheader") for e in getattr(at, kind)]
     parts += [df.value.to_string() for df in at.dataframe]
+    parts += [t.value.to_string() for t in at.table]
     return "\n".join(str(p) for p in parts)
 
 

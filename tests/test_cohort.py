@@ -379,9 +379,8 @@ def test_non_numeric_entries_in_numeric_columns(write_case, text):
 
 def test_text_covariate_with_many_values_must_be_coded(write_case, text):
     text["hospital2"] = text["hospital"]
-    spec = write_case(text, edit=(('covariates = ["age", "sex", "cfs", "lactate", "albumin"]\n\n[[outcomes]]',
-                                   'covariates = ["age", "sex", "cfs", "lactate", "albumin", "hospital2"]\n\n'
-                                   '[[outcomes]]'),))
+    spec = write_case(text, edit=(('covariates = ["age", "sex", "cfs", "lactate", "albumin"]\nlabels',
+                                   'covariates = ["age", "sex", "cfs", "lactate", "albumin", "hospital2"]\nlabels'),))
     err = _raise(spec)
     k = text["hospital2"].nunique()
     assert f"a covariate holds text with {k} different value(s)" in str(err) and "Code it as numbers" in err.hint

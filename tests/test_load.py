@@ -1,10 +1,10 @@
-"""Load and isolation: four browser sessions at once against one app server, each with its own cohort.
+"""Load and isolation: three browser sessions at once against one app server, each with its own cohort.
 
 Every session (its own Playwright context on Debian's Chromium) uploads a different invented cohort, applies a
 spec, and reads its break-even points back from the Outcomes page; they must be the engine's own numbers for that
 file, with no error on any page. The server's memory (RSS of it and its children, read with psutil) is measured
-after a warm-up session and after each of three rounds of four sessions, once the closed sessions have been let go.
-Four sessions of one outcome each, not the six of three outcomes of earlier versions: the browser, not the server,
+after a warm-up session and after each of three rounds of three sessions, once the closed sessions have been let go.
+Three sessions of one outcome each, not the six of three outcomes of earlier versions: the browser, not the server,
 spent most of the time (about 200 s of Chromium CPU against 55 s of server CPU per round of six, drawing charts
 that say nothing about isolation or memory), and the growth across rounds that DESIGN 2b asks about needs repeated
 rounds, not larger ones.
@@ -35,9 +35,9 @@ from spec_texts import demo_spec_text
 
 pytestmark = pytest.mark.browser
 ROOT = Path(__file__).resolve().parents[1]
-SESSIONS = 4
+SESSIONS = 3
 ROUNDS = 3
-STAGGER = 2  # sessions busy at once (all four stay open); the server has two cores
+STAGGER = 2  # sessions busy at once (all three stay open); the server has two cores
 TTL = 2  # seconds Streamlit keeps a closed tab's session for reconnecting (Fulcrum's setting is 30 s)
 WAIT_MS = 300_000  # the longest wait for any one thing on a page, in milliseconds
 BOUND = 1200.0  # the whole test stops by itself after this many seconds, whatever happens
@@ -67,7 +67,7 @@ class Cohort:
 
 @pytest.fixture(scope="module")
 def cohorts(tmp_path_factory: pytest.TempPathFactory) -> list[Cohort]:
-    """Four invented cohorts of different sizes and seeds, each with the engine's own results for it."""
+    """Three invented cohorts of different sizes and seeds, each with the engine's own results for it."""
     out = []
     for k in range(SESSIONS):
         folder = tmp_path_factory.mktemp(f"ward{k}")
@@ -287,7 +287,7 @@ async def load_test(url: str, server: psutil.Process, cohorts: list[Cohort]) -> 
     return record
 
 
-def test_four_sessions_at_once_each_see_their_own_cohort_and_memory_returns(cohorts, tmp_path, monkeypatch) -> None:
+def test_three_sessions_at_once_each_see_their_own_cohort_and_memory_returns(cohorts, tmp_path, monkeypatch) -> None:
     if not Path(CHROMIUM).exists():
         pytest.fail(f"Debian's chromium is not at {CHROMIUM}; `python3 dev.py test` installs it with apt.")
     monkeypatch.setenv("STREAMLIT_SERVER_DISCONNECTED_SESSION_TTL", str(TTL))

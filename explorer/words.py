@@ -72,9 +72,9 @@ def _span_piece(a: float | None, z: float | None, bounds: tuple[float, float] | 
         if from_low and to_high:
             return f"anywhere from {fmt(low)} to {fmt(high)}, the whole possible range"
         if from_low:
-            return f"from the lowest possible value ({fmt(low)}) to {fmt(z)}"
+            return f"from {fmt(low)}, the lowest possible value, to {fmt(z)}"
         if to_high:
-            return f"from {fmt(a)} to the highest possible value ({fmt(high)})"
+            return f"from {fmt(a)} to {fmt(high)}, the highest possible value"
         return f"{fmt(a)} to {fmt(z)}"
     if a is None and z is None:
         return "unbounded"

@@ -92,7 +92,7 @@ def test_a_two_ray_break_even_interval_is_drawn_as_two_rays_within_the_index() -
     assert "in two parts: open below, up to -18.7, and from 5.94, open above" in spec["description"]
     # With the index's declared bounds the words stay on the scale: nothing below 1 on a 1-9 scale.
     spec = chart_spec(selection_break_even_chart({**row, "index_bounds": [1, 9]}, index_title="Clinical Frailty Scale"))
-    assert "from 5.94 to the highest possible value (9)" in spec["description"] and "-18.7" not in spec["description"]
+    assert "from 5.94 to 9, the highest possible value" in spec["description"] and "-18.7" not in spec["description"]
 
 
 def test_numbered_levels_read_as_levels_and_named_ones_as_words() -> None:
@@ -138,10 +138,10 @@ def test_interval_ends_past_the_index_bounds_are_said_as_the_scale_ends() -> Non
                  "favours_above": "non-operative"}]}]
     titles = {"alive": "Alive", "qol": "QoL", "days": "Days at home"}
     said = _nearest_break_evens(rows, "cfs", 7.0, titles, "CFS")
-    assert said[0].startswith("Alive: 7.86 (interval from 5.94 to the highest possible value (9))")
-    assert said[1].startswith("QoL: 2.64 (interval from the lowest possible value (1) to 4.43)")
+    assert said[0].startswith("Alive: 7.86 (interval from 5.94 to 9, the highest possible value)")
+    assert said[1].startswith("QoL: 2.64 (interval from 1, the lowest possible value, to 4.43)")
     assert "anywhere from 1 to 9, the whole possible range: the data cannot place it" in said[2]
     table = headline_table(rows, [], titles)
     cells = " ".join(table["arms break even at"])
     assert "-18.7" not in cells and "-21.5" not in cells
-    assert "2.64 (from the lowest possible value (1) to 4.43)" in cells
+    assert "2.64 (from 1, the lowest possible value, to 4.43)" in cells

@@ -12,7 +12,7 @@ from .charts_common import (ARM_LEGEND, AXIS_CHARS, FONT, HEIGHT, WIDTH, arm_sca
                             thinned)
 from .charts_curves import patient_layers
 from .look import ARM_COLOURS, INK, arm_colours
-from .words import fmt, interval_span, wrap
+from .words import fmt, interval_span, row_bounds, wrap
 
 
 ALLOCATION_OPACITY = {"randomised": 1.0, "chosen": 0.35}
@@ -125,7 +125,7 @@ def selection_break_even_chart(row: Mapping[str, Any], *, index_title: str | Non
                   tooltip=[alt.Tooltip("estimate:N"), alt.Tooltip("x:Q", format=".3~g"), alt.Tooltip("lo:Q", format=".3~g"),
                            alt.Tooltip("hi:Q", format=".3~g")])]
     chart = sized_chart(alt.layer(*layers), WIDTH, 70 * len(order))
-    parts = [f"{e['estimate']}: {fmt(e['x'])}" + (f" (interval {_shape_words(e, row.get('index_bounds'))})"
+    parts = [f"{e['estimate']}: {fmt(e['x'])}" + (f" (interval {_shape_words(e, row_bounds(row))})"
                                                    if pd.notna(e["lo"]) or pd.notna(e["hi"]) else " (interval open)")
              for e in df.to_dict("records")]
     desc = (f"Break-even points of {row.get('measure', row.get('outcome'))} along {xt} by the patients used: "

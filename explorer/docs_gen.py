@@ -59,7 +59,8 @@ BREAK_EVEN_LISTS = ("composite[].break_even[]", "selection[].randomised_break_ev
                     "composite[].randomised_break_even[]")
 ALIASES: dict[str, str] = {**{p: "results[].break_even[]" for p in BREAK_EVEN_LISTS},
                            "imputation[].imputed.curve[]": "results[].curve[]",
-                           "maps[].index_info[]": "results[].index_info"}
+                           "maps[].index_info[]": "results[].index_info",
+                           "selection[].index_info": "results[].index_info"}
 KEYED = {"results[].n", "results[].events", "results[].methods", "results[].reference",
          "results[].index_info.percentiles", "results[].index_info.prognostic.centre", "composite[].weights",
          "selection[].adjusted.propensity.coefficients", "selection[].adjusted.n", "selection[].adjusted.effective_n",

@@ -253,7 +253,7 @@ RESULT_SECTIONS: list[tuple[str, str, list[tuple[str, str]]]] = [
         ("selection[].measure", "The measure in words."),
         ("selection[].probability", "True when the measure is a probability (effects are then differences in "
          "probability, said in percentage points)."),
-        ("selection[].index_bounds", "The index's declared bounds [low, high], or null (as index_info.bounds)."),
+        ("selection[].index_info", "About the index, as results[].index_info (see Index information)."),
         ("selection[].effect", "Selection effect: chosen minus randomised measure in this arm, averaged over the "
                                "index values of this arm's randomised patients."),
         ("selection[].ci", "Its interval."),

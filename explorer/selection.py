@@ -22,6 +22,7 @@ from .models import describe, fit_model
 from .models.base import Fitted, numerical_jacobian
 from .models.common import basis_names
 from .models.words import measure_words
+from .result_rows import index_info_json
 from .resampling import ArmArrays, Progress, refit_arms, run_replicates
 from .spec import OutcomeSpec, SelectionSpec, Spec
 from .weighting import Weighting, covariate_design, propensity_weights
@@ -663,9 +664,7 @@ def analyse_selection(fs: ft.FitSet, *, shift_interval: str | None = None, repli
             eff = selection_effect(sp, arm, spec)
             effects[(*key, arm)] = eff
             row = _row(sp, arm, eff, (rb, ab, jb), shift, ev)
-            bounds = spec.index(sp.index).bounds
-            row.update(probability=describe(sp.outcome).probability,
-                       index_bounds=None if bounds is None else [float(v) for v in bounds])
+            row.update(probability=describe(sp.outcome).probability, index_info=index_info_json(fs.indices[sp.index]))
             rows.append(row)
     coverage = {ix.name: randomised_coverage(fs, ix.name) for ix in spec.indices}
     return SelectionResults(pairs, effects, rows, coverage)

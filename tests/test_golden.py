@@ -5,7 +5,9 @@ The reference here is the project's own earlier output, made at commit 2904666 b
 tests/golden/*.json.gz: a refactoring must leave every number of it in place. The redesign left it identical; the
 demo and invented files were then regenerated once for an intended change of words only (composite titles in words
 instead of kind names, quality-adjusted measures with their units), every number unchanged; the demo's again when
-its spec gained column labels (only the two spec hashes changed). Every golden field must be present and equal (numbers
+its spec gained column labels (only the two spec hashes changed); and selection rows' index_bounds was then
+taken out of the demo and invented files by a script that touched nothing else (the same fact now lives in
+selection[].index_info.bounds, as in results[].index_info). Every golden field must be present and equal (numbers
 within 1e-9 relative + 1e-12 absolute), except tool.generated_at and tool.version; fields added since are allowed.
 """
 from __future__ import annotations

@@ -91,7 +91,7 @@ def test_a_two_ray_break_even_interval_is_drawn_as_two_rays_within_the_index() -
     assert domains and all(d == [1.0, 9.0] for d in domains)  # no axis stretched beyond the index
     assert "in two parts: open below, up to -18.7, and from 5.94, open above" in spec["description"]
     # With the index's declared bounds the words stay on the scale: nothing below 1 on a 1-9 scale.
-    spec = chart_spec(selection_break_even_chart({**row, "index_bounds": [1, 9]}, index_title="Clinical Frailty Scale"))
+    spec = chart_spec(selection_break_even_chart({**row, "index_info": {"bounds": [1, 9]}}, index_title="Clinical Frailty Scale"))
     assert "from 5.94 to 9, the highest possible value" in spec["description"] and "-18.7" not in spec["description"]
 
 

@@ -159,6 +159,7 @@ def test_patient_page_places_a_cohort_row_and_offers_a_summary_without_identifie
     assert any(b.label.startswith("Printable summary") for b in at.get("download_button"))
 
 
+@pytest.mark.slow  # over 10 s on two cores
 def test_the_bootstrap_runs_only_on_request_and_then_supplies_the_intervals() -> None:
     at = visit(start(), "page_outcomes.py")
     ws = workspace(at)

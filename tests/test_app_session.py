@@ -126,6 +126,7 @@ def without_clock(doc: dict) -> dict:
 # ------------------------------------------------------------------------------------------
 # Item 6: the app's results are the command line's
 # ------------------------------------------------------------------------------------------
+@pytest.mark.slow  # over 10 s on two cores
 def test_changed_settings_save_reload_and_reproduce_with_fulcrum_analyse(ward, tmp_path: Path) -> None:
     at = open_ward(ward)
     weights = {"bedbound": -0.3, "care_home": 0.2}
@@ -174,6 +175,7 @@ def spec_with(text: bytes, old: str, new: str) -> bytes:
     return s.replace(old, new, 1).encode()
 
 
+@pytest.mark.slow  # over 10 s on two cores
 def test_failed_uploads_and_bad_edits_keep_the_cohort_settings_and_break_even_table(ward) -> None:
     at = open_ward(ward)
     change_margin_and_a_weight(at, 0.03, {"bedbound": -0.2})

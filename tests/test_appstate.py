@@ -174,6 +174,7 @@ def test_workspace_matches_the_command_line_analysis(demo_ws: aps.Workspace) -> 
     assert doc["inputs"]["spec_canonical_sha256"] == cli["inputs"]["spec_canonical_sha256"]
 
 
+@pytest.mark.slow  # over 10 s on two cores
 def test_the_bootstrap_the_app_runs_gives_the_report_fulcrum_analyse_would(demo_ws: aps.Workspace,
                                                                            monkeypatch: pytest.MonkeyPatch) -> None:
     # Determinism (DESIGN 2b): the app's bootstrap button runs the model and break-even-shift replicates once;

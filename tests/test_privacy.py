@@ -108,6 +108,7 @@ def cli_run(cohort_with_ids, tmp_path_factory) -> dict[str, str]:
             "report": (folder / "report.html").read_text(encoding="utf-8"), "report path": str(folder / "report.html")}
 
 
+@pytest.mark.slow  # over 10 s on two cores
 def test_no_identifier_in_logs_output_results_or_report(cli_run) -> None:
     assert "passed every check" in cli_run["stdout"] and "break-even" in cli_run["stdout"]
     for where in ("stdout", "stderr", "logs", "results JSON", "report"):

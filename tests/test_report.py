@@ -241,6 +241,7 @@ def test_sampled_points_are_said_beside_each_outcome_chart(result):
 REPORT_LIMIT = 2_000_000  # issue 17 item 5: the demo's offline report is at most 2 MB (benchmarks/app_speed.py)
 
 
+@pytest.mark.slow  # over 10 s on two cores
 def test_demo_report_is_at_most_two_megabytes(demo_results, tmp_path):
     """The whole demo analysis (every outcome, index, map, rule and evidence section) makes a report of at most
     2 MB that still holds the full results document and a chart for every chart slot."""

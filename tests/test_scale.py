@@ -58,6 +58,7 @@ def _comparable(doc: dict) -> dict:
     return doc
 
 
+@pytest.mark.slow  # over 10 s on two cores
 def test_serial_joblib_and_dask_give_identical_results(small_spec, monkeypatch):
     import sys
 

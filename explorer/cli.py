@@ -290,7 +290,10 @@ def cmd_demo(args: argparse.Namespace) -> int:
     return 0
 
 
-def streamlit_flags(address: str | None, port: int | None) -> list[str]:
+UPLOAD_MB = (1, 4096)  # the app's per-file upload limit that `fulcrum app --max-upload-mb` accepts, in MB
+
+
+def streamlit_flags(address: str | None, port: int | None, max_upload_mb: int | None = None) -> list[str]:
     """The project's Streamlit settings as command-line flags, so they hold from any folder."""
     text = resources.files("explorer.app_settings").joinpath("config.toml").read_text()
     flags = []
@@ -302,6 +305,8 @@ def streamlit_flags(address: str | None, port: int | None) -> list[str]:
         flags.append(f"--server.address={address}")
     if port:
         flags.append(f"--server.port={port}")
+    if max_upload_mb:
+        flags.append(f"--server.maxUploadSize={max_upload_mb}")
     return flags
 
 
@@ -317,8 +322,14 @@ def cmd_app(args: argparse.Namespace) -> int:
     if args.port is not None and not 1 <= args.port <= 65535:
         raise FulcrumError(f"--port is {args.port}; a port is a number from 1 to 65535.",
                            hint="For example --port 8501.")
+    lo, hi = UPLOAD_MB
+    if args.max_upload_mb is not None and not lo <= args.max_upload_mb <= hi:
+        raise FulcrumError(f"--max-upload-mb is {args.max_upload_mb}; the app accepts files of {lo} to {hi} MB.",
+                           hint="For example --max-upload-mb 500. A larger cohort: use Parquet, a database, "
+                                "or `fulcrum analyse`, which reads files of any size.")
     main_script = resources.files("explorer.app_pages").joinpath("app.py")
-    cmd = [sys.executable, "-c", LAUNCH, str(main_script), *streamlit_flags(args.address, args.port)]
+    cmd = [sys.executable, "-c", LAUNCH, str(main_script),
+           *streamlit_flags(args.address, args.port, args.max_upload_mb)]
     if args.spec:
         cmd += ["--", "--spec", str(Path(args.spec).resolve())]
     env = dict(os.environ, STREAMLIT_BROWSER_GATHER_USAGE_STATS="false")
@@ -378,6 +389,8 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--port", type=int)
     s.add_argument("--address", help="address to bind (default 127.0.0.1)")
     s.add_argument("--spec", help="open on this spec instead of the demo")
+    s.add_argument("--max-upload-mb", type=int, metavar="MB",
+                   help=f"largest cohort file the app accepts, in MB (default 200; {UPLOAD_MB[0]} to {UPLOAD_MB[1]})")
     s.set_defaults(func=cmd_app)
 
     pl = sub.add_parser("plan", help="simulate the next study: how many more randomised patients, where, would "

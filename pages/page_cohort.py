@@ -49,6 +49,10 @@ left, right = st.columns(2)
 with left:
     upload = st.file_uploader("Your cohort file: CSV, TSV, Excel (.xlsx) or Parquet, one row per patient",
                               type=["csv", "tsv", "xlsx", "parquet"], key=ui.key("cohort_file"))
+    st.caption(f"Files up to {st.get_option('server.maxUploadSize')} MB (a larger file shows a red mark and is not "
+               "read). For a larger cohort: save it as Parquet, which is often a tenth of the size; read it from a "
+               "database below; start the app with `fulcrum app --max-upload-mb 500`; or run `fulcrum analyse` "
+               "on the command line.")
 with right:
     st.button("Use the invented demo cohort", on_click=use_demo, disabled=ws.is_demo)
     spec_upload = st.file_uploader("Reload a spec saved by Fulcrum (.toml): weights, indices, margin",

@@ -118,3 +118,25 @@ def test_app_becomes_streamlit_with_the_projects_settings_and_two_malloc_arenas(
     with pytest.raises(SystemExit):
         main(["app"])
     assert seen["env"]["MALLOC_ARENA_MAX"] == "4"
+
+
+def test_app_upload_limit_is_the_users_within_its_bounds(monkeypatch, capsys):
+    """`fulcrum app --max-upload-mb` reaches Streamlit; a limit outside 1-4096 MB is refused before anything starts."""
+    import os
+
+    seen = {}
+
+    def fake_execve(path, argv, env):
+        seen.update(argv=argv)
+        raise SystemExit(0)
+
+    monkeypatch.setattr(os, "execve", fake_execve)
+    with pytest.raises(SystemExit):
+        main(["app", "--max-upload-mb", "500"])
+    assert seen["argv"][-1] == "--server.maxUploadSize=500"
+    seen.clear()
+    for bad in ("0", "-5", "100000"):
+        assert main(["app", "--max-upload-mb", bad]) == 2
+        err = capsys.readouterr().err
+        assert f"--max-upload-mb is {bad}" in err and "Traceback" not in err and "Parquet" in err
+    assert not seen  # no server was started

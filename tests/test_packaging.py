@@ -90,3 +90,6 @@ def test_settings_become_flags_with_defaults_and_overrides():
     assert "--server.disconnectedSessionTTL=30" in flags and "--server.fileWatcherType=none" in flags
     over = streamlit_flags("0.0.0.0", 8600)
     assert over[-2:] == ["--server.address=0.0.0.0", "--server.port=8600"]
+    # `fulcrum app --max-upload-mb` comes after the project's default, so Streamlit takes the user's value
+    bigger = streamlit_flags(None, None, 500)
+    assert bigger[-1] == "--server.maxUploadSize=500" and "--server.maxUploadSize=200" in bigger
